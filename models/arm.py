@@ -1,0 +1,335 @@
+"""Load a serial arm from URDF text into pinocchio, after checking that it is physical.
+
+:class:`ArmModel` is what the rest of the project consumes, for the built-in
+exoskeleton and human arm and for a user's own URDF alike: a pinocchio
+``Model`` plus the names of the actuated joints, the cuff sites and the hand
+point.  :func:`load_arm` checks the file first, so that a bad file fails with
+a message that names the element and the value instead of a crash deep in a
+dynamics algorithm.
+"""
+
+from __future__ import annotations
+
+import math
+import xml.etree.ElementTree as ET
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pinocchio as pin
+
+from .errors import ModelError, ParameterError, UnknownNameError
+from .inertia import check_rotational_inertia
+
+__all__ = ["ArmModel", "load_arm", "check_urdf", "read_urdf_file"]
+
+
+@dataclass(frozen=True, eq=False)
+class ArmModel:
+    """A fixed-base serial arm as pinocchio sees it.
+
+    Attributes
+    ----------
+    name : str
+        Robot name from the URDF.
+    urdf : str
+        The URDF text the model was built from.
+    model : pinocchio.Model
+        Kinematics and dynamics; ``model.armature`` [kg m^2], ``model.damping``
+        [N m s/rad], ``model.friction`` [N m], ``model.effortLimit`` [N m],
+        ``model.velocityLimit`` [rad/s] and the position limits [rad] are set.
+    joint_names : tuple of str
+        The actuated joints, in the order of ``q``.
+    sites : mapping str -> str
+        Cuff site role (e.g. ``"upper_arm"``) to frame name.
+    hand_frame : str
+        Frame of the hand point.
+    """
+
+    name: str
+    urdf: str
+    model: pin.Model
+    joint_names: tuple[str, ...]
+    sites: Mapping[str, str] = field(default_factory=dict)
+    hand_frame: str = ""
+
+    @property
+    def nq(self) -> int:
+        """Number of configuration variables (= number of revolute joints)."""
+        return int(self.model.nq)
+
+    @property
+    def nv(self) -> int:
+        """Number of velocity variables."""
+        return int(self.model.nv)
+
+    def frame_id(self, name: str) -> int:
+        """Index of frame ``name``; an unknown name lists the frames there are."""
+        if not self.model.existFrame(name):
+            raise UnknownNameError(
+                f"{self.name}: no frame named {name!r}; frames are "
+                + ", ".join(f.name for f in self.model.frames)
+            )
+        return int(self.model.getFrameId(name))
+
+    def site_frame(self, role: str) -> str:
+        """Frame name of cuff site ``role``."""
+        try:
+            return self.sites[role]
+        except KeyError as e:
+            raise UnknownNameError(
+                f"{self.name}: no cuff site {role!r}; sites are {sorted(self.sites)}"
+            ) from e
+
+    def neutral(self) -> np.ndarray:
+        """(nq,) the zero posture [rad] (every built-in arm hangs at the side there)."""
+        return pin.neutral(self.model)
+
+    def position_limits(self) -> tuple[np.ndarray, np.ndarray]:
+        """Lower and upper joint limits, (nq,) each [rad]."""
+        return self.model.lowerPositionLimit.copy(), self.model.upperPositionLimit.copy()
+
+
+def read_urdf_file(path: str | Path) -> str:
+    """Read a URDF file as text, turning an unreadable path into a :class:`ModelError`."""
+    p = Path(path)
+    try:
+        return p.read_text(encoding="utf-8")
+    except OSError as e:
+        raise ModelError(f"cannot read URDF file {str(p)!r}: {e.strerror or e}") from e
+    except UnicodeDecodeError as e:
+        raise ModelError(f"URDF file {str(p)!r} is not UTF-8 text: {e}") from e
+
+
+def _float_attr(el: ET.Element, attr: str, where: str, default: float | None = None) -> float:
+    raw = el.get(attr)
+    if raw is None:
+        if default is None:
+            raise ModelError(f"{where}: missing attribute {attr!r}")
+        return default
+    try:
+        x = float(raw)
+    except ValueError as e:
+        raise ModelError(f"{where}: {attr}={raw!r} is not a number") from e
+    if not math.isfinite(x):
+        raise ModelError(f"{where}: {attr}={raw!r} is not finite")
+    return x
+
+
+def _vec_attr(el: ET.Element | None, attr: str, where: str, default: str) -> np.ndarray:
+    raw = default if el is None or el.get(attr) is None else el.get(attr)
+    try:
+        v = np.array([float(t) for t in raw.split()])
+    except ValueError as e:
+        raise ModelError(f"{where}: {attr}={raw!r} is not a list of numbers") from e
+    if v.shape != (3,) or not np.all(np.isfinite(v)):
+        raise ModelError(f"{where}: {attr}={raw!r} must be 3 finite numbers")
+    return v
+
+
+def check_urdf(text: str, source: str = "<urdf>") -> ET.Element:
+    """Parse URDF text and check every inertial and every joint limit.
+
+    Raises :class:`ModelError` naming the element and the value for: malformed
+    XML, a root that is not ``<robot>``, a non-positive or non-finite mass, an
+    inertia that is not positive definite or breaks the triangle inequality, a
+    joint that refers to a missing link, a zero axis, and inconsistent limits
+    (``lower > upper``, ``effort <= 0``, ``velocity <= 0``).
+
+    Returns the parsed ``<robot>`` element.
+    """
+    try:
+        root = ET.fromstring(text)
+    except ET.ParseError as e:
+        raise ModelError(f"{source}: malformed URDF XML ({e})") from e
+    if root.tag != "robot":
+        raise ModelError(f"{source}: root element must be <robot>, got <{root.tag}>")
+    links = {}
+    for link in root.findall("link"):
+        name = link.get("name")
+        if not name:
+            raise ModelError(f"{source}: a <link> has no name")
+        if name in links:
+            raise ModelError(f"{source}: link {name!r} is defined twice")
+        links[name] = link
+        ine = link.find("inertial")
+        if ine is None:
+            continue
+        where = f"{source}: link {name!r}"
+        mass_el = ine.find("mass")
+        if mass_el is None:
+            raise ModelError(f"{where}: <inertial> without <mass>")
+        m = _float_attr(mass_el, "value", where + " <mass>")
+        if m <= 0.0:
+            raise ModelError(f"{where}: mass must be > 0 kg, got {m!r}")
+        inertia_el = ine.find("inertia")
+        if inertia_el is None:
+            raise ModelError(f"{where}: <inertial> without <inertia>")
+        w = where + " <inertia>"
+        c = {k: _float_attr(inertia_el, k, w, 0.0) for k in ("ixx", "ixy", "ixz", "iyy", "iyz", "izz")}
+        I = np.array(
+            [[c["ixx"], c["ixy"], c["ixz"]], [c["ixy"], c["iyy"], c["iyz"]], [c["ixz"], c["iyz"], c["izz"]]]
+        )
+        try:
+            check_rotational_inertia(where, I)
+        except ParameterError as e:
+            raise ModelError(str(e)) from e
+    joints = set()
+    for j in root.findall("joint"):
+        name = j.get("name")
+        where = f"{source}: joint {name!r}"
+        if not name:
+            raise ModelError(f"{source}: a <joint> has no name")
+        if name in joints:
+            raise ModelError(f"{source}: joint {name!r} is defined twice")
+        joints.add(name)
+        kind = j.get("type")
+        if kind not in {"revolute", "continuous", "prismatic", "fixed", "floating", "planar"}:
+            raise ModelError(f"{where}: unknown joint type {kind!r}")
+        for end in ("parent", "child"):
+            el = j.find(end)
+            ref = None if el is None else el.get("link")
+            if ref is None:
+                raise ModelError(f"{where}: missing <{end} link=...>")
+            if ref not in links:
+                raise ModelError(f"{where}: {end} link {ref!r} is not defined")
+        _vec_attr(j.find("origin"), "xyz", where + " <origin>", "0 0 0")
+        _vec_attr(j.find("origin"), "rpy", where + " <origin>", "0 0 0")
+        if kind in {"revolute", "continuous", "prismatic"}:
+            axis = _vec_attr(j.find("axis"), "xyz", where + " <axis>", "1 0 0")
+            if np.linalg.norm(axis) < 1e-12:
+                raise ModelError(f"{where}: axis must be non-zero, got {axis.tolist()}")
+        if kind in {"revolute", "prismatic"}:
+            lim = j.find("limit")
+            if lim is None:
+                raise ModelError(f"{where}: a {kind} joint needs a <limit> element")
+            w = where + " <limit>"
+            lo = _float_attr(lim, "lower", w, 0.0)
+            hi = _float_attr(lim, "upper", w, 0.0)
+            eff = _float_attr(lim, "effort", w)
+            vel = _float_attr(lim, "velocity", w)
+            if lo > hi:
+                raise ModelError(f"{w}: lower={lo!r} is above upper={hi!r}")
+            if eff <= 0.0:
+                raise ModelError(f"{w}: effort must be > 0, got {eff!r}")
+            if vel <= 0.0:
+                raise ModelError(f"{w}: velocity must be > 0, got {vel!r}")
+        dyn = j.find("dynamics")
+        if dyn is not None:
+            for attr in ("damping", "friction"):
+                val = _float_attr(dyn, attr, where + " <dynamics>", 0.0)
+                if val < 0.0:
+                    raise ModelError(f"{where} <dynamics>: {attr} must be >= 0, got {val!r}")
+    return root
+
+
+def load_arm(
+    urdf: str,
+    *,
+    sites: Mapping[str, str] | None = None,
+    hand_frame: str | None = None,
+    joint_names: Sequence[str] | None = None,
+    armature_kg_m2: Sequence[float] | None = None,
+    source: str = "<urdf>",
+) -> ArmModel:
+    """Check URDF text and build an :class:`ArmModel` with pinocchio.
+
+    Parameters
+    ----------
+    urdf : str
+        URDF text (use :func:`read_urdf_file` for a path).
+    sites : mapping, optional
+        Cuff site role -> frame name, e.g. ``{"upper_arm": "my_cuff_1"}``.
+        Every frame must exist.
+    hand_frame : str, optional
+        Frame of the hand point; must exist.
+    joint_names : sequence of str, optional
+        The joints the caller requires, in order; each must exist and be
+        ``revolute`` (with limits).  When given, the model must have exactly
+        these movable joints in this order.
+    armature_kg_m2 : sequence of float, optional
+        Reflected rotor inertia per joint [kg m^2] (URDF has no field for it).
+    source : str
+        Name of the file used in error messages.
+
+    Raises
+    ------
+    ModelError
+        The file is malformed or not physical (see :func:`check_urdf`), or the
+        joint-space inertia is singular (a joint moves no mass).
+    UnknownNameError
+        A named frame or joint is missing.
+    """
+    root = check_urdf(urdf, source)
+    kinds = {j.get("name"): j.get("type") for j in root.findall("joint")}
+    movable = [n for n, k in kinds.items() if k != "fixed"]
+    if joint_names is not None:
+        for n in joint_names:
+            if n not in kinds:
+                raise UnknownNameError(f"{source}: no joint named {n!r}; joints are {sorted(kinds)}")
+            if kinds[n] != "revolute":
+                raise ModelError(
+                    f"{source}: joint {n!r} must be revolute (with limits), got type {kinds[n]!r}"
+                )
+        extra = [n for n in movable if n not in joint_names]
+        if extra:
+            raise ModelError(f"{source}: movable joints {extra} are not among the required ones")
+    else:
+        bad = [n for n in movable if kinds[n] != "revolute"]
+        if bad:
+            raise ModelError(
+                f"{source}: joints {bad} must be revolute (with limits), got "
+                + ", ".join(f"{n}={kinds[n]!r}" for n in bad)
+            )
+    try:
+        model = pin.buildModelFromXML(urdf)
+    except (RuntimeError, ValueError) as e:
+        raise ModelError(f"{source}: pinocchio could not build the model: {e}") from e
+    names = tuple(model.names[1:])
+    if joint_names is not None and names != tuple(joint_names):
+        raise ModelError(
+            f"{source}: joint order in the chain is {list(names)}, expected {list(joint_names)}"
+        )
+    if model.nq != model.nv:
+        raise ModelError(f"{source}: nq={model.nq} != nv={model.nv}; only revolute joints are allowed")
+    if armature_kg_m2 is not None:
+        a = np.asarray(armature_kg_m2, dtype=float)
+        if a.shape != (model.nv,) or not np.all(np.isfinite(a)) or np.any(a < 0):
+            raise ParameterError(
+                f"armature_kg_m2 must be {model.nv} finite values >= 0, got {list(armature_kg_m2)}"
+            )
+        model.armature = a.copy()
+    arm = ArmModel(
+        name=model.name,
+        urdf=urdf,
+        model=model,
+        joint_names=names,
+        sites=dict(sites or {}),
+        hand_frame=hand_frame or "",
+    )
+    for frame in list(arm.sites.values()) + ([hand_frame] if hand_frame else []):
+        arm.frame_id(frame)
+    _check_mass_matrix(arm, source)
+    return arm
+
+
+def _check_mass_matrix(arm: ArmModel, source: str) -> None:
+    """The joint-space inertia at the neutral posture must be positive definite."""
+    model = arm.model
+    data = model.createData()
+    saved = model.armature.copy()
+    model.armature = np.zeros(model.nv)  # judge the links alone, not the rotors
+    try:
+        M = pin.crba(model, data, pin.neutral(model))
+    finally:
+        model.armature = saved
+    M = np.triu(M) + np.triu(M, 1).T
+    diag = np.diag(M)
+    for i, d in enumerate(diag):
+        if not d > 1e-12:
+            raise ModelError(
+                f"{source}: joint {arm.joint_names[i]!r} moves no mass (M[{i},{i}] = {d:g} kg m^2)"
+            )
+    if np.linalg.eigvalsh(M)[0] <= 1e-12 * float(np.max(diag)):
+        raise ModelError(f"{source}: the joint-space inertia is singular at the zero posture")
