@@ -1,0 +1,389 @@
+"""A parametric 7-DOF upper-limb exoskeleton (right arm), emitted as URDF.
+
+Joint order and roles (all revolute, all link frames parallel to the base
+frame at q = 0, where the arm hangs at the side with the forearm in
+mid-position, palm facing the body):
+
+====  ===================  =======================================  =========
+ #    joint                 role                                    axis (q=0)
+====  ===================  =======================================  =========
+ 1    ``exo_shoulder_a``    shoulder, fixed tilted axis u1           u1
+ 2    ``exo_shoulder_b``    shoulder, u2 = u1 x d / |u1 x d|         -u2'
+ 3    ``exo_shoulder_c``    shoulder, humeral long axis              +z
+ 4    ``exo_elbow``         elbow flexion (+) / extension            -y
+ 5    ``exo_forearm``       pronation (+) / supination               +z
+ 6    ``exo_wrist_flex``    wrist flexion (+) / extension            +x
+ 7    ``exo_wrist_dev``     radial (+) / ulnar deviation             -y
+====  ===================  =======================================  =========
+
+Base frame: origin at the shoulder centre, x forward, y to the left, z up.
+The three shoulder axes intersect at the shoulder centre.  Axis 1 points
+back, out and up (azimuth ``shoulder_axis_azimuth_rad`` behind the frontal
+plane, elevation ``shoulder_axis_elevation_rad``); the shoulder is singular
+only when the upper arm lies along that line.  With the defaults (35 deg, 30
+deg) the hanging arm is 60 deg away from it and reaching forward, sideways,
+across the body, to the mouth and behind the head all stay more than 30 deg
+away (design choice, checked in the tests).
+
+All defaults are design assumptions of this project (common practice for
+research rehabilitation exoskeletons, not a specific device); see each field.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ._checks import in_range, vector
+from .arm import ArmModel, load_arm
+from .errors import ParameterError
+from .inertia import Inertial, combine, cylindrical_tube, solid_box, solid_cylinder
+from .sites import DEFAULT_SITES, SiteSpec
+from .urdf import Geometry, Joint, Link, RobotDescription, Visual, rpy_from_z_axis, to_urdf
+
+__all__ = ["ExoParams", "EXO_JOINTS", "exo_description", "exo_urdf", "build_exo", "shoulder_axes"]
+
+EXO_JOINTS: tuple[str, ...] = (
+    "exo_shoulder_a",
+    "exo_shoulder_b",
+    "exo_shoulder_c",
+    "exo_elbow",
+    "exo_forearm",
+    "exo_wrist_flex",
+    "exo_wrist_dev",
+)
+_LINKS = (
+    "exo_shoulder_a_link",
+    "exo_shoulder_b_link",
+    "exo_upper_arm",
+    "exo_forearm_a",
+    "exo_forearm_b",
+    "exo_wrist_link",
+    "exo_hand",
+)
+_SEGMENT_LINK = {"upper_arm": "exo_upper_arm", "forearm": "exo_forearm_b", "hand": "exo_hand"}
+HAND_FRAME = "exo_hand_point"
+
+_deg = math.radians
+
+# Our own palette: steel-blue frame, graphite actuators, amber cuffs.
+_FRAME_RGBA = (0.22, 0.40, 0.64, 1.0)
+_MOTOR_RGBA = (0.16, 0.16, 0.18, 1.0)
+_CUFF_RGBA = (0.93, 0.62, 0.16, 1.0)
+
+
+def _seven(owner: str, name: str, value, sign: str = "") -> tuple[float, ...]:
+    """Seven finite values, one per joint; ``sign`` is "", ">0" or ">=0"."""
+    v = vector(owner, name, value, 7)
+    for i, x in enumerate(v):
+        if (sign == ">0" and not x > 0.0) or (sign == ">=0" and not x >= 0.0):
+            raise ParameterError(
+                f"{owner}.{name}[{i}] ({EXO_JOINTS[i]}) must be {sign[:-1]} 0, got {x!r}"
+            )
+    return v
+
+
+_STRICTLY_POSITIVE = ("link_mass_kg", "velocity_limit_rad_s", "torque_limit_Nm")
+_NONNEGATIVE = ("armature_kg_m2", "viscous_friction_Nm_s_per_rad", "coulomb_friction_Nm")
+
+
+@dataclass(frozen=True)
+class ExoParams:
+    """Parameters of the exoskeleton, SI units, validated on construction.
+
+    Segment lengths are adjustable within :attr:`ADJUSTMENT_RANGES_M`, as on
+    a real device; use :meth:`fitted_to` to match a wearer.  Inertial
+    parameters come from a simple design (tubes, bars, motor housings whose
+    masses are ``link_mass_kg``) unless ``link_inertials`` gives all seven
+    explicitly.
+
+    Defaults, all common practice for research rehabilitation exoskeletons
+    (design assumptions, no single source):
+
+    * ``link_mass_kg`` totals 7.55 kg of moving mass.
+    * ``torque_limit_Nm``: 80 N m for each shoulder joint and 20 N m for each
+      wrist joint; 40 N m at the elbow (half the shoulder, about twice the
+      static need of a large forearm plus the robot, and within the 30-70 N m
+      of adult maximal voluntary elbow flexion torque, from memory); 20 N m
+      for pronation/supination, like the wrist (adult maximal pronation
+      torque is under 10 N m, from memory).
+    * ``velocity_limit_rad_s``: 3 rad/s shoulder, 4 rad/s elbow, 5 rad/s
+      forearm and wrist: above the speed of a healthy reach, below fast
+      voluntary motion (REFERENCES.md section 13).
+    * position limits: mechanical stops inside the normal human range of
+      motion (AAOS 1965; REFERENCES.md section 2a) so the robot cannot take a
+      wearer beyond it.
+    * ``armature_kg_m2``: rotor inertia reflected through the gear,
+      J_rotor N^2, e.g. 8e-6 kg m^2 x 100^2 = 0.08 kg m^2 at the shoulder.
+    """
+
+    #: Shoulder centre to elbow axis [m].
+    upper_arm_length_m: float = 0.284
+    #: Elbow axis to wrist centre [m].
+    forearm_length_m: float = 0.271
+    #: Wrist centre to the centre of the hand grip (the hand point) [m].
+    hand_length_m: float = 0.068
+    #: Angle of shoulder axis 1 behind the frontal plane [rad].
+    shoulder_axis_azimuth_rad: float = _deg(35.0)
+    #: Angle of shoulder axis 1 above the horizontal [rad].
+    shoulder_axis_elevation_rad: float = _deg(30.0)
+    #: Mass of each moving link, in joint order [kg].
+    link_mass_kg: tuple[float, ...] = (1.8, 1.6, 2.0, 0.7, 0.8, 0.3, 0.35)
+    #: Seven explicit inertials (link frames) that override the design; None keeps it.
+    link_inertials: tuple[Inertial, ...] | None = None
+    position_lower_rad: tuple[float, ...] = (
+        _deg(-55), _deg(-60), _deg(-85), _deg(0), _deg(-75), _deg(-65), _deg(-25),
+    )
+    position_upper_rad: tuple[float, ...] = (
+        _deg(170), _deg(80), _deg(65), _deg(145), _deg(75), _deg(75), _deg(18),
+    )
+    velocity_limit_rad_s: tuple[float, ...] = (3.0, 3.0, 3.0, 4.0, 5.0, 5.0, 5.0)
+    torque_limit_Nm: tuple[float, ...] = (80.0, 80.0, 80.0, 40.0, 20.0, 20.0, 20.0)
+    armature_kg_m2: tuple[float, ...] = (0.08, 0.08, 0.05, 0.04, 0.01, 0.005, 0.005)
+    viscous_friction_Nm_s_per_rad: tuple[float, ...] = (0.4, 0.4, 0.3, 0.25, 0.1, 0.05, 0.05)
+    coulomb_friction_Nm: tuple[float, ...] = (0.6, 0.6, 0.4, 0.35, 0.15, 0.08, 0.08)
+    #: Cuff sites on the robot.
+    sites: tuple[SiteSpec, ...] = field(default=DEFAULT_SITES)
+
+    #: Adjustment range of each length (design assumption, covers f5 to m95).
+    ADJUSTMENT_RANGES_M = {
+        "upper_arm_length_m": (0.20, 0.36),
+        "forearm_length_m": (0.18, 0.34),
+        "hand_length_m": (0.03, 0.12),
+    }
+
+    def __post_init__(self) -> None:
+        o = "ExoParams"
+        for name, (lo, hi) in self.ADJUSTMENT_RANGES_M.items():
+            object.__setattr__(self, name, in_range(o, name, getattr(self, name), lo, hi, "m"))
+        object.__setattr__(
+            self, "shoulder_axis_azimuth_rad",
+            in_range(o, "shoulder_axis_azimuth_rad", self.shoulder_axis_azimuth_rad, 0.0, _deg(80), "rad"),
+        )
+        object.__setattr__(
+            self, "shoulder_axis_elevation_rad",
+            in_range(o, "shoulder_axis_elevation_rad", self.shoulder_axis_elevation_rad,
+                     _deg(-60), _deg(60), "rad"),
+        )
+        for name in _STRICTLY_POSITIVE:
+            object.__setattr__(self, name, _seven(o, name, getattr(self, name), ">0"))
+        for name in _NONNEGATIVE:
+            object.__setattr__(self, name, _seven(o, name, getattr(self, name), ">=0"))
+        for name in ("position_lower_rad", "position_upper_rad"):
+            object.__setattr__(self, name, _seven(o, name, getattr(self, name)))
+        for i, (lo, hi) in enumerate(zip(self.position_lower_rad, self.position_upper_rad)):
+            if not lo < hi:
+                raise ParameterError(
+                    f"{o}.position_lower_rad[{i}] ({EXO_JOINTS[i]}) = {lo!r} must be below "
+                    f"position_upper_rad[{i}] = {hi!r}"
+                )
+            if not (lo <= 0.0 <= hi):
+                raise ParameterError(
+                    f"{o}: the zero posture must lie inside the limits of {EXO_JOINTS[i]}, "
+                    f"got [{lo!r}, {hi!r}] rad"
+                )
+        if self.link_inertials is not None:
+            li = tuple(self.link_inertials)
+            if len(li) != 7 or not all(isinstance(x, Inertial) for x in li):
+                raise ParameterError(f"{o}.link_inertials must be 7 Inertial records or None")
+            object.__setattr__(self, "link_inertials", li)
+        names = [s.name for s in self.sites]
+        if len(set(names)) != len(names):
+            raise ParameterError(f"{o}.sites has duplicate names {names}")
+        for s in self.sites:
+            if not isinstance(s, SiteSpec):
+                raise ParameterError(f"{o}.sites must hold SiteSpec records, got {s!r}")
+
+    @classmethod
+    def fitted_to(cls, upper_arm_length_m: float, forearm_length_m: float, hand_grip_m: float,
+                  **overrides) -> ExoParams:
+        """Exoskeleton with its segment lengths set to a wearer's.
+
+        ``hand_grip_m`` is the wearer's wrist-to-grip distance.  Other fields
+        may be given as keywords.
+        """
+        return cls(
+            upper_arm_length_m=upper_arm_length_m,
+            forearm_length_m=forearm_length_m,
+            hand_length_m=hand_grip_m,
+            **overrides,
+        )
+
+    @property
+    def total_mass_kg(self) -> float:
+        """Total moving mass [kg]."""
+        return float(sum(i.mass_kg for i in self.inertials()))
+
+    def inertials(self) -> tuple[Inertial, ...]:
+        """The seven link inertials, in the link frames (explicit or from the design)."""
+        if self.link_inertials is not None:
+            return self.link_inertials
+        return _design_inertials(self)
+
+
+def shoulder_axes(p: ExoParams) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Unit axes (u1, u2, u3) of the three shoulder joints at q = 0, base frame.
+
+    ``u1`` is tilted by azimuth a and elevation b:
+    :math:`u_1 = (-\\sin a \\cos b, -\\cos a \\cos b, \\sin b)`;
+    ``u3 = +z`` (the hanging humerus, internal rotation positive);
+    ``u2 = -(u_1 \\times d)/|u_1 \\times d|`` with ``d = -z`` is normal to both,
+    signed so that positive joint 2 raises the arm sideways.
+    """
+    a, b = p.shoulder_axis_azimuth_rad, p.shoulder_axis_elevation_rad
+    u1 = np.array([-math.sin(a) * math.cos(b), -math.cos(a) * math.cos(b), math.sin(b)])
+    d = np.array([0.0, 0.0, -1.0])
+    u2 = -np.cross(u1, d)
+    u2 /= np.linalg.norm(u2)
+    return u1, u2, np.array([0.0, 0.0, 1.0])
+
+
+def _rod(mass: float, a: np.ndarray, b: np.ndarray, radius: float, name: str) -> Inertial:
+    """Solid rod from point a to point b."""
+    a, b = np.asarray(a, float), np.asarray(b, float)
+    return solid_cylinder(mass, radius, float(np.linalg.norm(b - a)), b - a, (a + b) / 2, name)
+
+
+def _design_inertials(p: ExoParams) -> tuple[Inertial, ...]:
+    """Inertials of the default mechanical design (shapes in :func:`_design_shapes`)."""
+    out = []
+    for i, parts in enumerate(_design_shapes(p)):
+        m = p.link_mass_kg[i]
+        out.append(combine([fn(frac * m) for frac, fn, _vis in parts], name=f"ExoParams link {_LINKS[i]}"))
+    return tuple(out)
+
+
+def _design_shapes(p: ExoParams):
+    """Per link: list of (mass fraction, inertial factory, visual) in the link frame."""
+    u1, u2, _ = shoulder_axes(p)
+    L1, L2, L3 = p.upper_arm_length_m, p.forearm_length_m, p.hand_length_m
+    r_sh = 0.15  # radius of the shoulder actuators from the shoulder centre [m]
+    ring_z = -0.10  # humeral-rotation ring below the shoulder centre [m]
+    lat = -0.085  # lateral offset of the upper-arm bar [m]
+    site = {s.name: s for s in p.sites}
+    ua_cuff_z = -site["upper_arm"].fraction * L1 if "upper_arm" in site else -0.5 * L1
+    fa_cuff_z = -site["forearm"].fraction * L2 if "forearm" in site else -0.6 * L2
+
+    def vis_cyl(r, length, center, axis, rgba, mat):
+        return Visual(Geometry("cylinder", (r, length)), tuple(center), rpy_from_z_axis(axis), rgba, mat)
+
+    def vis_box(size, center, rgba=_FRAME_RGBA, mat="exo_frame"):
+        return Visual(Geometry("box", tuple(size)), tuple(center), (0.0, 0.0, 0.0), rgba, mat)
+
+    def vis_rod(a, b, r):
+        a, b = np.asarray(a, float), np.asarray(b, float)
+        return vis_cyl(r, float(np.linalg.norm(b - a)), (a + b) / 2, b - a, _FRAME_RGBA, "exo_frame")
+
+    m1c = r_sh * u2
+    m2c = np.array([0.0, 0.0, ring_z])
+    elbow = np.array([0.0, 0.0, -L1])
+    wrist = np.array([0.0, 0.0, -L2])
+    grip = np.array([0.0, 0.0, -L3])
+    shapes = [
+        [  # 1: carries the joint-2 actuator on axis u2
+            (0.75, lambda m: solid_cylinder(m, 0.045, 0.08, u2, m1c, "motor2"),
+             vis_cyl(0.045, 0.08, m1c, u2, _MOTOR_RGBA, "exo_motor")),
+            (0.25, lambda m: _rod(m, r_sh * u1, m1c, 0.015, "arc1"), vis_rod(r_sh * u1, m1c, 0.015)),
+        ],
+        [  # 2: carries the humeral-rotation ring
+            (0.75, lambda m: cylindrical_tube(m, 0.065, 0.085, 0.05, "z", m2c, "ring3"),
+             vis_cyl(0.085, 0.05, m2c, (0, 0, 1), _MOTOR_RGBA, "exo_motor")),
+            (0.25, lambda m: _rod(m, m1c, m2c + (0.0, lat, 0.0), 0.015, "arc2"),
+             vis_rod(m1c, m2c + (0.0, lat, 0.0), 0.015)),
+        ],
+        [  # 3: upper-arm bar, elbow actuator, upper-arm cuff shell
+            (0.35, lambda m: _rod(m, (0, lat, ring_z), (0, lat, -L1), 0.015, "bar3"),
+             vis_rod((0, lat, ring_z), (0, lat, -L1), 0.015)),
+            (0.50, lambda m: solid_cylinder(m, 0.045, 0.06, "y", elbow + (0, lat - 0.01, 0), "motor4"),
+             vis_cyl(0.045, 0.06, elbow + (0, lat - 0.01, 0), (0, 1, 0), _MOTOR_RGBA, "exo_motor")),
+            (0.15, lambda m: cylindrical_tube(m, 0.055, 0.065, 0.08, "z", (0, 0, ua_cuff_z), "cuff3"),
+             vis_cyl(0.065, 0.08, (0, 0, ua_cuff_z), (0, 0, 1), _CUFF_RGBA, "exo_cuff")),
+        ],
+        [  # 4: elbow bracket and the pronation ring stator
+            (0.70, lambda m: cylindrical_tube(m, 0.045, 0.065, 0.04, "z", (0, 0, -0.08), "ring5"),
+             vis_cyl(0.065, 0.04, (0, 0, -0.08), (0, 0, 1), _MOTOR_RGBA, "exo_motor")),
+            (0.30, lambda m: _rod(m, (0, lat, 0), (0, -0.065, -0.08), 0.012, "bracket4"),
+             vis_rod((0, lat, 0), (0, -0.065, -0.08), 0.012)),
+        ],
+        [  # 5: forearm bar, wrist actuator, forearm cuff shell
+            (0.35, lambda m: _rod(m, (0, -0.055, -0.08), (0, -0.055, -L2), 0.012, "bar5"),
+             vis_rod((0, -0.055, -0.08), (0, -0.055, -L2), 0.012)),
+            (0.45, lambda m: solid_cylinder(m, 0.03, 0.05, "x", wrist + (-0.05, 0, 0), "motor6"),
+             vis_cyl(0.03, 0.05, wrist + (-0.05, 0, 0), (1, 0, 0), _MOTOR_RGBA, "exo_motor")),
+            (0.20, lambda m: cylindrical_tube(m, 0.042, 0.05, 0.07, "z", (0, 0, fa_cuff_z), "cuff5"),
+             vis_cyl(0.05, 0.07, (0, 0, fa_cuff_z), (0, 0, 1), _CUFF_RGBA, "exo_cuff")),
+        ],
+        [  # 6: bracket holding the deviation actuator
+            (0.80, lambda m: solid_cylinder(m, 0.025, 0.04, "y", (0, -0.045, 0), "motor7"),
+             vis_cyl(0.025, 0.04, (0, -0.045, 0), (0, 1, 0), _MOTOR_RGBA, "exo_motor")),
+            (0.20, lambda m: solid_box(m, (0.03, 0.02, 0.03), (-0.03, -0.03, 0), "bracket6"),
+             vis_box((0.03, 0.02, 0.03), (-0.03, -0.03, 0))),
+        ],
+        [  # 7: hand grip handle (axis forward in mid-position) and its bracket
+            (0.70, lambda m: solid_cylinder(m, 0.017, 0.11, "x", grip, "handle"),
+             vis_cyl(0.017, 0.11, grip, (1, 0, 0), _CUFF_RGBA, "exo_cuff")),
+            (0.30, lambda m: solid_box(m, (0.02, 0.02, L3), (0.06, 0, -L3 / 2), "bracket7"),
+             vis_box((0.02, 0.02, L3), (0.06, 0, -L3 / 2))),
+        ],
+    ]
+    return shapes
+
+
+def exo_description(p: ExoParams | None = None) -> RobotDescription:
+    """The exoskeleton as a :class:`~models.urdf.RobotDescription`."""
+    p = ExoParams() if p is None else p
+    u1, u2, u3 = shoulder_axes(p)
+    L1, L2, L3 = p.upper_arm_length_m, p.forearm_length_m, p.hand_length_m
+    inertials = p.inertials()
+    shapes = _design_shapes(p)
+    axes = [u1, u2, u3, (0, -1, 0), (0, 0, 1), (1, 0, 0), (0, -1, 0)]
+    origins = [(0, 0, 0), (0, 0, 0), (0, 0, 0), (0, 0, -L1), (0, 0, 0), (0, 0, -L2), (0, 0, 0)]
+    base_visuals = (
+        Visual(Geometry("box", (0.06, 0.10, 0.30)), (-0.20, -0.12, 0.05), (0, 0, 0), _FRAME_RGBA, "exo_frame"),
+        Visual(Geometry("cylinder", (0.05, 0.09)), tuple(0.15 * u1), rpy_from_z_axis(u1), _MOTOR_RGBA, "exo_motor"),
+    )
+    links = [Link("exo_base", None, base_visuals)]
+    joints = []
+    parent = "exo_base"
+    for i in range(7):
+        vis = tuple(v for _f, _fn, v in shapes[i]) if p.link_inertials is None else ()
+        links.append(Link(_LINKS[i], inertials[i], vis))
+        joints.append(
+            Joint(
+                name=EXO_JOINTS[i], kind="revolute", parent=parent, child=_LINKS[i],
+                xyz_m=tuple(float(x) for x in origins[i]), axis=tuple(float(x) for x in axes[i]),
+                lower=p.position_lower_rad[i], upper=p.position_upper_rad[i],
+                effort=p.torque_limit_Nm[i], velocity=p.velocity_limit_rad_s[i],
+                damping=p.viscous_friction_Nm_s_per_rad[i], friction=p.coulomb_friction_Nm[i],
+            )
+        )
+        parent = _LINKS[i]
+    lengths = {"upper_arm": L1, "forearm": L2, "hand": L3}
+    for s in p.sites:
+        frame = f"exo_cuff_{s.name}"
+        pos = np.array([0.0, 0.0, -s.fraction * lengths[s.segment]]) + np.array(s.offset_m)
+        links.append(Link(frame))
+        joints.append(Joint(f"{frame}_mount", "fixed", _SEGMENT_LINK[s.segment], frame, tuple(pos)))
+    links.append(Link(HAND_FRAME))
+    joints.append(Joint(f"{HAND_FRAME}_mount", "fixed", "exo_hand", HAND_FRAME, (0.0, 0.0, -L3)))
+    return RobotDescription("exosandbox_exo", tuple(links), tuple(joints))
+
+
+def exo_urdf(p: ExoParams | None = None) -> str:
+    """URDF text of the exoskeleton."""
+    return to_urdf(exo_description(p))
+
+
+def build_exo(p: ExoParams | None = None) -> ArmModel:
+    """Pinocchio model of the exoskeleton, with armature, friction and limits set."""
+    p = ExoParams() if p is None else p
+    return load_arm(
+        exo_urdf(p),
+        sites={s.name: f"exo_cuff_{s.name}" for s in p.sites},
+        hand_frame=HAND_FRAME,
+        joint_names=EXO_JOINTS,
+        armature_kg_m2=p.armature_kg_m2,
+        source="exosandbox_exo",
+    )

@@ -1,0 +1,60 @@
+"""Named frames on a limb segment where a cuff can be strapped."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Literal
+
+from ._checks import in_range, vector
+from .errors import ParameterError
+
+__all__ = ["Segment", "SiteSpec", "SEGMENTS", "DEFAULT_SITES"]
+
+Segment = Literal["upper_arm", "forearm", "hand"]
+SEGMENTS: tuple[str, ...] = ("upper_arm", "forearm", "hand")
+
+
+@dataclass(frozen=True)
+class SiteSpec:
+    """A cuff site: a frame on a segment's long axis, plus an optional offset.
+
+    Parameters
+    ----------
+    name : str
+        Site name, e.g. ``"upper_arm"``; the frame is called
+        ``<prefix>_cuff_<name>`` in the URDF.
+    segment : {"upper_arm", "forearm", "hand"}
+        Segment that carries the site.  The forearm site rides distal of the
+        pronation/supination joint, so it turns with the forearm.
+    fraction : float
+        Distance from the proximal joint centre along the segment, as a
+        fraction of the segment length, in [0, 1].  For ``hand`` on the
+        exoskeleton the length is the wrist-to-grip distance; on the human,
+        the wrist-to-third-metacarpale length.
+    offset_m : (3,) tuple
+        Extra offset in the segment frame [m] (frame axes: x forward, y left,
+        z up with the arm hanging).
+    """
+
+    name: str
+    segment: Segment
+    fraction: float
+    offset_m: tuple[float, float, float] = (0.0, 0.0, 0.0)
+
+    def __post_init__(self) -> None:
+        owner = f"SiteSpec({self.name!r})"
+        if not self.name or not self.name.replace("_", "").isalnum():
+            raise ParameterError(f"{owner}.name must be a non-empty identifier, got {self.name!r}")
+        if self.segment not in SEGMENTS:
+            raise ParameterError(f"{owner}.segment must be one of {SEGMENTS}, got {self.segment!r}")
+        object.__setattr__(self, "fraction", in_range(owner, "fraction", self.fraction, 0.0, 1.0))
+        object.__setattr__(self, "offset_m", vector(owner, "offset_m", self.offset_m, 3))
+
+
+#: Default layout on the exoskeleton: mid upper arm, 60 % down the forearm,
+#: and the hand grip at the end of the hand segment (common practice).
+DEFAULT_SITES: tuple[SiteSpec, ...] = (
+    SiteSpec("upper_arm", "upper_arm", 0.5),
+    SiteSpec("forearm", "forearm", 0.6),
+    SiteSpec("hand", "hand", 1.0),
+)
