@@ -1,0 +1,1 @@
+"""What we run: short scenario scripts that a user copies and edits."""
