@@ -18,7 +18,7 @@ from .coupling import (
 )
 from .cuffs import CuffParams, CuffWrench, cuff_energy, cuff_wrench
 from .errors import ModelError, ParameterError, SandboxError, UnknownNameError
-from .exo import EXO_JOINTS, ExoParams, build_exo, exo_description, exo_urdf
+from .exo import EXO_JOINTS, ExoParams, build_exo, exo_description, exo_urdf, load_exo
 from .human import (
     SUBJECTS,
     HumanParams,
@@ -37,7 +37,7 @@ __all__ = [
     "DEFAULT_CUFFS", "Assembly", "Cuff", "CuffSpec", "Registration", "assemble", "fit_exo", "strap_cuffs",
     "CuffParams", "CuffWrench", "cuff_energy", "cuff_wrench",
     "ModelError", "ParameterError", "SandboxError", "UnknownNameError",
-    "EXO_JOINTS", "ExoParams", "build_exo", "exo_description", "exo_urdf",
+    "EXO_JOINTS", "ExoParams", "build_exo", "exo_description", "exo_urdf", "load_exo",
     "SUBJECTS", "HumanParams", "ShoulderRhythm", "Subject", "build_human", "girdle_posture",
     "human_description", "human_urdf",
     "Inertial", "SiteSpec",

@@ -32,18 +32,22 @@ research rehabilitation exoskeletons, not a specific device); see each field.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
 from ._checks import in_range, vector
-from .arm import ArmModel, load_arm
+from .arm import ArmModel, load_arm, read_urdf_file
 from .errors import ParameterError
 from .inertia import Inertial, combine, cylindrical_tube, solid_box, solid_cylinder
 from .sites import DEFAULT_SITES, SiteSpec
 from .urdf import Geometry, Joint, Link, RobotDescription, Visual, rpy_from_z_axis, to_urdf
 
-__all__ = ["ExoParams", "EXO_JOINTS", "exo_description", "exo_urdf", "build_exo", "shoulder_axes"]
+__all__ = [
+    "ExoParams", "EXO_JOINTS", "exo_description", "exo_urdf", "build_exo", "load_exo", "shoulder_axes",
+]
 
 EXO_JOINTS: tuple[str, ...] = (
     "exo_shoulder_a",
@@ -386,4 +390,44 @@ def build_exo(p: ExoParams | None = None) -> ArmModel:
         joint_names=EXO_JOINTS,
         armature_kg_m2=p.armature_kg_m2,
         source="exosandbox_exo",
+    )
+
+
+def load_exo(
+    urdf: str | Path,
+    *,
+    sites: Mapping[str, str],
+    hand_frame: str,
+    joint_names: Sequence[str] | None = None,
+    armature_kg_m2: Sequence[float] | None = None,
+) -> ArmModel:
+    """Load a user's own exoskeleton URDF.
+
+    Parameters
+    ----------
+    urdf : str or Path
+        A path to a ``.urdf`` file, or URDF text (anything starting with ``<``).
+    sites : mapping str -> str
+        Cuff site name (``"upper_arm"``, ``"forearm"``, ``"hand"``, or your
+        own) to the frame (URDF link) that carries it.
+    hand_frame : str
+        Frame of the hand point.
+    joint_names : sequence of str, optional
+        Required joints in chain order; every movable joint must be revolute.
+    armature_kg_m2 : sequence of float, optional
+        Reflected rotor inertia per joint [kg m^2]; URDF cannot carry it.
+
+    Every check of :func:`models.arm.load_arm` applies: a missing frame, a
+    non-revolute joint, a non-physical mass or inertia, an inconsistent limit
+    is a :class:`~models.errors.ModelError` or
+    :class:`~models.errors.UnknownNameError` that names it.
+    """
+    if isinstance(urdf, Path) or not str(urdf).lstrip().startswith("<"):
+        source = str(urdf)
+        text = read_urdf_file(urdf)
+    else:
+        source, text = "<urdf text>", str(urdf)
+    return load_arm(
+        text, sites=sites, hand_frame=hand_frame, joint_names=joint_names,
+        armature_kg_m2=armature_kg_m2, source=source,
     )

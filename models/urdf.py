@@ -107,7 +107,7 @@ class RobotDescription:
 
 
 def rpy_from_z_axis(axis) -> tuple[float, float, float]:
-    """URDF roll-pitch-yaw of a rotation that takes local z onto ``axis``.
+    r"""URDF roll-pitch-yaw of a rotation that takes local z onto ``axis``.
 
     URDF composes rpy as :math:`R = R_z(yaw) R_y(pitch) R_x(roll)`; with roll 0
     the image of z is :math:`(\cos y \sin p, \sin y \sin p, \cos p)`.
