@@ -157,6 +157,8 @@ def check_urdf(text: str, source: str = "<urdf>") -> ET.Element:
         if ine is None:
             continue
         where = f"{source}: link {name!r}"
+        _vec_attr(ine.find("origin"), "xyz", where + " <inertial><origin>", "0 0 0")
+        _vec_attr(ine.find("origin"), "rpy", where + " <inertial><origin>", "0 0 0")
         mass_el = ine.find("mass")
         if mass_el is None:
             raise ModelError(f"{where}: <inertial> without <mass>")
@@ -167,7 +169,7 @@ def check_urdf(text: str, source: str = "<urdf>") -> ET.Element:
         if inertia_el is None:
             raise ModelError(f"{where}: <inertial> without <inertia>")
         w = where + " <inertia>"
-        c = {k: _float_attr(inertia_el, k, w, 0.0) for k in ("ixx", "ixy", "ixz", "iyy", "iyz", "izz")}
+        c = {k: _float_attr(inertia_el, k, w) for k in ("ixx", "ixy", "ixz", "iyy", "iyz", "izz")}
         I = np.array(
             [[c["ixx"], c["ixy"], c["ixz"]], [c["ixy"], c["iyy"], c["iyz"]], [c["ixz"], c["iyz"], c["izz"]]]
         )
@@ -286,6 +288,14 @@ def load_arm(
         model = pin.buildModelFromXML(urdf)
     except (RuntimeError, ValueError) as e:
         raise ModelError(f"{source}: pinocchio could not build the model: {e}") from e
+    checked_mass = sum(float(link.find("inertial/mass").get("value"))
+                       for link in root.findall("link") if link.find("inertial") is not None)
+    built_mass = sum(model.inertias[i].mass for i in range(model.njoints))
+    if abs(built_mass - checked_mass) > 1e-9 * max(1.0, checked_mass):
+        raise ModelError(
+            f"{source}: pinocchio read {built_mass!r} kg of mass where the file declares {checked_mass!r} kg; "
+            "an <inertial> element was not understood"
+        )
     names = tuple(model.names[1:])
     if joint_names is not None and names != tuple(joint_names):
         raise ModelError(

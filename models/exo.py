@@ -42,7 +42,7 @@ from ._checks import in_range, vector
 from .arm import ArmModel, load_arm, read_urdf_file
 from .errors import ParameterError
 from .inertia import Inertial, combine, cylindrical_tube, solid_box, solid_cylinder
-from .sites import DEFAULT_SITES, SiteSpec
+from .sites import DEFAULT_SITES, SiteSpec, check_sites
 from .urdf import Geometry, Joint, Link, RobotDescription, Visual, rpy_from_z_axis, to_urdf
 
 __all__ = [
@@ -89,6 +89,9 @@ def _seven(owner: str, name: str, value, sign: str = "") -> tuple[float, ...]:
     return v
 
 
+#: Smallest distance a user-given stop of shoulder joint b may keep from its singular angle [rad].
+SHOULDER_SINGULARITY_MARGIN_RAD = _deg(10.0)
+
 _STRICTLY_POSITIVE = ("link_mass_kg", "velocity_limit_rad_s", "torque_limit_Nm")
 _NONNEGATIVE = ("armature_kg_m2", "viscous_friction_Nm_s_per_rad", "coulomb_friction_Nm")
 
@@ -118,7 +121,8 @@ class ExoParams:
       voluntary motion (REFERENCES.md section 13).
     * position limits: mechanical stops inside the normal human range of
       motion (AAOS 1965; REFERENCES.md section 2a) so the robot cannot take a
-      wearer beyond it.
+      wearer beyond it, and away from the shoulder singularity
+      (:meth:`limits_rad`).
     * ``armature_kg_m2``: rotor inertia reflected through the gear,
       J_rotor N^2, e.g. 8e-6 kg m^2 x 100^2 = 0.08 kg m^2 at the shoulder.
     """
@@ -137,12 +141,9 @@ class ExoParams:
     link_mass_kg: tuple[float, ...] = (1.8, 1.6, 2.0, 0.7, 0.8, 0.3, 0.35)
     #: Seven explicit inertials (link frames) that override the design; None keeps it.
     link_inertials: tuple[Inertial, ...] | None = None
-    position_lower_rad: tuple[float, ...] = (
-        _deg(-55), _deg(-60), _deg(-85), _deg(0), _deg(-75), _deg(-65), _deg(-25),
-    )
-    position_upper_rad: tuple[float, ...] = (
-        _deg(170), _deg(80), _deg(65), _deg(145), _deg(75), _deg(75), _deg(18),
-    )
+    #: Lower / upper joint stops [rad]; None takes the design defaults of :meth:`limits_rad`.
+    position_lower_rad: tuple[float, ...] | None = None
+    position_upper_rad: tuple[float, ...] | None = None
     velocity_limit_rad_s: tuple[float, ...] = (3.0, 3.0, 3.0, 4.0, 5.0, 5.0, 5.0)
     torque_limit_Nm: tuple[float, ...] = (80.0, 80.0, 80.0, 40.0, 20.0, 20.0, 20.0)
     armature_kg_m2: tuple[float, ...] = (0.08, 0.08, 0.05, 0.04, 0.01, 0.005, 0.005)
@@ -176,8 +177,10 @@ class ExoParams:
         for name in _NONNEGATIVE:
             object.__setattr__(self, name, _seven(o, name, getattr(self, name), ">=0"))
         for name in ("position_lower_rad", "position_upper_rad"):
-            object.__setattr__(self, name, _seven(o, name, getattr(self, name)))
-        for i, (lo, hi) in enumerate(zip(self.position_lower_rad, self.position_upper_rad)):
+            if getattr(self, name) is not None:
+                object.__setattr__(self, name, _seven(o, name, getattr(self, name)))
+        lower, upper = self.limits_rad()
+        for i, (lo, hi) in enumerate(zip(lower, upper)):
             if not lo < hi:
                 raise ParameterError(
                     f"{o}.position_lower_rad[{i}] ({EXO_JOINTS[i]}) = {lo!r} must be below "
@@ -188,17 +191,20 @@ class ExoParams:
                     f"{o}: the zero posture must lie inside the limits of {EXO_JOINTS[i]}, "
                     f"got [{lo!r}, {hi!r}] rad"
                 )
+        b = self.shoulder_axis_elevation_rad
+        margin = SHOULDER_SINGULARITY_MARGIN_RAD
+        if lower[1] < b - math.pi / 2 + margin or upper[1] > b + math.pi / 2 - margin:
+            raise ParameterError(
+                f"{o}: limits of exo_shoulder_b [{lower[1]!r}, {upper[1]!r}] rad come within "
+                f"{math.degrees(margin):g} deg of the shoulder singularity at elevation "
+                f"{b!r} -/+ pi/2 rad (upper arm along axis 1)"
+            )
         if self.link_inertials is not None:
             li = tuple(self.link_inertials)
             if len(li) != 7 or not all(isinstance(x, Inertial) for x in li):
                 raise ParameterError(f"{o}.link_inertials must be 7 Inertial records or None")
             object.__setattr__(self, "link_inertials", li)
-        names = [s.name for s in self.sites]
-        if len(set(names)) != len(names):
-            raise ParameterError(f"{o}.sites has duplicate names {names}")
-        for s in self.sites:
-            if not isinstance(s, SiteSpec):
-                raise ParameterError(f"{o}.sites must hold SiteSpec records, got {s!r}")
+        object.__setattr__(self, "sites", check_sites(o, self.sites))
 
     @classmethod
     def fitted_to(cls, upper_arm_length_m: float, forearm_length_m: float, hand_grip_m: float,
@@ -214,6 +220,22 @@ class ExoParams:
             hand_length_m=hand_grip_m,
             **overrides,
         )
+
+    def limits_rad(self) -> tuple[tuple[float, ...], tuple[float, ...]]:
+        """Joint stops (lower, upper), 7 each [rad]: the given ones, or the design defaults.
+
+        Defaults, deg: shoulder a -55..170, shoulder c -85..65, elbow 0..145,
+        forearm -75..75, wrist flexion -65..75, deviation -25..18 (inside the
+        AAOS ranges, REFERENCES.md 2a).  Shoulder b is singular at b -/+ 90 deg
+        (b = ``shoulder_axis_elevation_rad``: the upper arm lies along axis 1),
+        so its default range keeps 20 deg away: [max(-60, b - 70), min(80, b + 70)] deg.
+        """
+        b = math.degrees(self.shoulder_axis_elevation_rad)
+        lo = (-55.0, max(-60.0, b - 70.0), -85.0, 0.0, -75.0, -65.0, -25.0)
+        hi = (170.0, min(80.0, b + 70.0), 65.0, 145.0, 75.0, 75.0, 18.0)
+        lower = self.position_lower_rad if self.position_lower_rad is not None else tuple(map(_deg, lo))
+        upper = self.position_upper_rad if self.position_upper_rad is not None else tuple(map(_deg, hi))
+        return lower, upper
 
     @property
     def total_mass_kg(self) -> float:
@@ -341,6 +363,7 @@ def exo_description(p: ExoParams | None = None) -> RobotDescription:
     u1, u2, u3 = shoulder_axes(p)
     L1, L2, L3 = p.upper_arm_length_m, p.forearm_length_m, p.hand_length_m
     inertials = p.inertials()
+    lower, upper = p.limits_rad()
     shapes = _design_shapes(p)
     axes = [u1, u2, u3, (0, -1, 0), (0, 0, 1), (1, 0, 0), (0, -1, 0)]
     origins = [(0, 0, 0), (0, 0, 0), (0, 0, 0), (0, 0, -L1), (0, 0, 0), (0, 0, -L2), (0, 0, 0)]
@@ -358,7 +381,7 @@ def exo_description(p: ExoParams | None = None) -> RobotDescription:
             Joint(
                 name=EXO_JOINTS[i], kind="revolute", parent=parent, child=_LINKS[i],
                 xyz_m=tuple(float(x) for x in origins[i]), axis=tuple(float(x) for x in axes[i]),
-                lower=p.position_lower_rad[i], upper=p.position_upper_rad[i],
+                lower=lower[i], upper=upper[i],
                 effort=p.torque_limit_Nm[i], velocity=p.velocity_limit_rad_s[i],
                 damping=p.viscous_friction_Nm_s_per_rad[i], friction=p.coulomb_friction_Nm[i],
             )

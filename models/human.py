@@ -49,7 +49,7 @@ from ._checks import in_range, positive, vector
 from .arm import ArmModel, load_arm
 from .errors import ParameterError, UnknownNameError
 from .inertia import Inertial
-from .sites import SiteSpec
+from .sites import SiteSpec, check_sites
 from .urdf import Geometry, Joint, Link, RobotDescription, Visual, rpy_from_z_axis, to_urdf
 
 __all__ = [
@@ -293,9 +293,7 @@ class HumanParams:
                 SiteSpec("forearm", "forearm", 0.6),
                 SiteSpec("hand", "hand", hand),
             ))
-        names = [s.name for s in self.sites]
-        if len(set(names)) != len(names):
-            raise ParameterError(f"{o}.sites has duplicate names {names}")
+        object.__setattr__(self, "sites", check_sites(o, self.sites))
         t = vector(o, "torque_limit_Nm", self.torque_limit_Nm, 7)
         for i, x in enumerate(t):
             if not x > 0:

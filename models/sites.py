@@ -58,3 +58,18 @@ DEFAULT_SITES: tuple[SiteSpec, ...] = (
     SiteSpec("forearm", "forearm", 0.6),
     SiteSpec("hand", "hand", 1.0),
 )
+
+
+def check_sites(owner: str, sites) -> tuple[SiteSpec, ...]:
+    """Return ``sites`` as a tuple of :class:`SiteSpec` with unique names, or raise naming ``owner.sites``."""
+    try:
+        out = tuple(sites)
+    except TypeError as e:
+        raise ParameterError(f"{owner}.sites must be a sequence of SiteSpec, got {sites!r}") from e
+    for s in out:
+        if not isinstance(s, SiteSpec):
+            raise ParameterError(f"{owner}.sites must hold SiteSpec records, got {s!r}")
+    names = [s.name for s in out]
+    if len(set(names)) != len(names):
+        raise ParameterError(f"{owner}.sites has duplicate names {names}")
+    return out
