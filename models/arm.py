@@ -67,10 +67,8 @@ class ArmModel:
     def frame_id(self, name: str) -> int:
         """Index of frame ``name``; an unknown name lists the frames there are."""
         if not self.model.existFrame(name):
-            raise UnknownNameError(
-                f"{self.name}: no frame named {name!r}; frames are "
-                + ", ".join(f.name for f in self.model.frames)
-            )
+            links = [f.name for f in self.model.frames if f.type == pin.FrameType.BODY]
+            raise UnknownNameError(f"{self.name}: no frame named {name!r}; the links are " + ", ".join(links))
         return int(self.model.getFrameId(name))
 
     def site_frame(self, role: str) -> str:
@@ -318,8 +316,12 @@ def load_arm(
         sites=dict(sites or {}),
         hand_frame=hand_frame or "",
     )
-    for frame in list(arm.sites.values()) + ([hand_frame] if hand_frame else []):
-        arm.frame_id(frame)
+    for role, frame in list(arm.sites.items()) + ([("hand point", hand_frame)] if hand_frame else []):
+        if not model.existFrame(frame):
+            links = [f.name for f in model.frames if f.type == pin.FrameType.BODY]
+            raise UnknownNameError(
+                f"{source}: {role} frame {frame!r} does not exist; the links are " + ", ".join(links)
+            )
     _check_mass_matrix(arm, source)
     return arm
 

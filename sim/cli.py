@@ -12,7 +12,7 @@ import sys
 from collections.abc import Sequence
 from pathlib import Path
 
-from models import ExoParams, HumanParams, SandboxError, Subject, exo_urdf, fit_exo, human_urdf
+from models import ExoParams, HumanParams, SandboxError, Subject, exo_urdf, fit_exo, human_urdf, load_exo
 
 __all__ = ["main", "build_parser"]
 
@@ -54,6 +54,13 @@ def build_parser() -> argparse.ArgumentParser:
     who.add_argument("--sex", choices=("female", "male"))
     u.add_argument("--girdle", action="store_true", help="human: add the 2-DOF shoulder girdle")
     u.set_defaults(func=_cmd_urdf)
+
+    c = sub.add_parser("check", help="check your own exoskeleton URDF and print what was read")
+    c.add_argument("file", metavar="FILE", help="URDF file")
+    c.add_argument("--site", action="append", default=[], metavar="NAME=FRAME",
+                   help="a cuff site and the frame (link) that carries it; repeat for each cuff")
+    c.add_argument("--hand", metavar="FRAME", help="frame of the hand point")
+    c.set_defaults(func=_cmd_check)
     return p
 
 
@@ -92,6 +99,28 @@ def _cmd_urdf(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     except OSError as e:
         raise _UserError(f"cannot write {str(out)!r}: {e.strerror or e}") from e
     return f"wrote {out} ({summary})"
+
+
+def _cmd_check(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    sites = {}
+    for item in args.site:
+        name, sep, frame = item.partition("=")
+        if not sep or not name or not frame:
+            parser.error(f"--site expects NAME=FRAME, got {item!r}")
+        sites[name] = frame
+    arm = load_exo(Path(args.file), sites=sites, hand_frame=args.hand or "")
+    m = arm.model
+    mass = sum(m.inertias[i].mass for i in range(1, m.njoints))
+    lines = [f"{args.file}: ok, {arm.nq} revolute joints, {mass:.3f} kg moving mass"]
+    lines.append(f"  {'joint':<24} {'lower rad':>10} {'upper rad':>10} {'effort N m':>11} {'vel rad/s':>10}")
+    for i, name in enumerate(arm.joint_names):
+        lines.append(f"  {name:<24} {m.lowerPositionLimit[i]:>10.4f} {m.upperPositionLimit[i]:>10.4f} "
+                     f"{m.effortLimit[i]:>11.3f} {m.velocityLimit[i]:>10.3f}")
+    for name, frame in sites.items():
+        lines.append(f"  cuff site {name!r} -> frame {frame!r}")
+    if args.hand:
+        lines.append(f"  hand point -> frame {args.hand!r}")
+    return "\n".join(lines)
 
 
 class _UserError(Exception):

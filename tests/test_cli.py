@@ -106,3 +106,34 @@ def test_unwritable_output_is_one_line_error(tmp_path):
                           capture_output=True, text=True)
     assert proc.returncode == 1
     assert proc.stderr.count("\n") == 1 and "cannot write" in proc.stderr
+
+
+def test_check_reads_a_user_urdf_and_reports_its_joints_mass_and_sites(tmp_path, capsys):
+    # The file's declared masses add up to the printed moving mass (sum over <inertial><mass>).
+    import xml.etree.ElementTree as ET
+
+    path = tmp_path / "mine.urdf"
+    main(["urdf", "exo", "-o", str(path)])
+    capsys.readouterr()
+    declared = sum(float(m.get("value")) for m in ET.parse(path).getroot().iter("mass"))
+    assert main(["check", str(path), "--site", "upper_arm=exo_cuff_upper_arm", "--hand", "exo_hand_point"]) == 0
+    out = capsys.readouterr().out
+    assert f"{declared:.3f} kg moving mass" in out
+    assert "exo_wrist_dev" in out and "cuff site 'upper_arm' -> frame 'exo_cuff_upper_arm'" in out
+
+
+@pytest.mark.parametrize(
+    "extra, text",
+    [
+        (["--site", "upper_arm=strap_9"], "upper_arm frame 'strap_9' does not exist"),
+        (["--site", "strap_9"], "--site expects NAME=FRAME"),
+        (["--hand", "nowhere"], "hand point frame 'nowhere' does not exist"),
+    ],
+)
+def test_check_names_the_missing_frame_in_one_line(tmp_path, extra, text):
+    path = tmp_path / "mine.urdf"
+    main(["urdf", "exo", "-o", str(path)])
+    proc = subprocess.run([sys.executable, "-m", "sim.cli", "check", str(path), *extra],
+                          capture_output=True, text=True)
+    assert proc.returncode != 0
+    assert proc.stderr.count("\n") == 1 and text in proc.stderr

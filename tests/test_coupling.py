@@ -109,5 +109,5 @@ def test_user_urdf_with_own_site_names_straps_like_the_built_in_one():
                    hand_frame="exo_hand_point")
     pe = _frame(exo, exo.neutral(), "my_arm_strap").translation
     assert np.allclose(pe, _frame(asm.exo, asm.q_exo0, "exo_cuff_upper_arm").translation, atol=0)
-    with pytest.raises(UnknownNameError, match="no frame named 'exo_cuff_upper_arm'"):
+    with pytest.raises(UnknownNameError, match="upper_arm frame 'exo_cuff_upper_arm' does not exist"):
         load_exo(text, sites={"upper_arm": "exo_cuff_upper_arm"}, hand_frame="exo_hand_point")
