@@ -42,7 +42,7 @@ from ._checks import in_range, vector
 from .arm import ArmModel, load_arm, read_urdf_file
 from .errors import ParameterError
 from .inertia import Inertial, combine, cylindrical_tube, solid_box, solid_cylinder
-from .sites import DEFAULT_SITES, SiteSpec, check_sites
+from .sites import DEFAULT_SITES, SiteSpec, check_sites, site_frames
 from .urdf import Geometry, Joint, Link, RobotDescription, Visual, rpy_from_z_axis, to_urdf
 
 __all__ = [
@@ -387,12 +387,9 @@ def exo_description(p: ExoParams | None = None) -> RobotDescription:
             )
         )
         parent = _LINKS[i]
-    lengths = {"upper_arm": L1, "forearm": L2, "hand": L3}
-    for s in p.sites:
-        frame = f"exo_cuff_{s.name}"
-        pos = np.array([0.0, 0.0, -s.fraction * lengths[s.segment]]) + np.array(s.offset_m)
-        links.append(Link(frame))
-        joints.append(Joint(f"{frame}_mount", "fixed", _SEGMENT_LINK[s.segment], frame, tuple(pos)))
+    site_links, site_joints = site_frames("exo", p.sites, _SEGMENT_LINK, {"upper_arm": L1, "forearm": L2, "hand": L3})
+    links += site_links
+    joints += site_joints
     links.append(Link(HAND_FRAME))
     joints.append(Joint(f"{HAND_FRAME}_mount", "fixed", "exo_hand", HAND_FRAME, (0.0, 0.0, -L3)))
     return RobotDescription("exosandbox_exo", tuple(links), tuple(joints))
@@ -408,7 +405,7 @@ def build_exo(p: ExoParams | None = None) -> ArmModel:
     p = ExoParams() if p is None else p
     return load_arm(
         exo_urdf(p),
-        sites={s.name: f"exo_cuff_{s.name}" for s in p.sites},
+        sites={s.name: s.frame("exo") for s in p.sites},
         hand_frame=HAND_FRAME,
         joint_names=EXO_JOINTS,
         armature_kg_m2=p.armature_kg_m2,

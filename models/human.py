@@ -49,7 +49,7 @@ from ._checks import in_range, positive, vector
 from .arm import ArmModel, load_arm
 from .errors import ParameterError, UnknownNameError
 from .inertia import Inertial
-from .sites import SiteSpec, check_sites
+from .sites import SiteSpec, check_sites, site_frames
 from .urdf import Geometry, Joint, Link, RobotDescription, Visual, rpy_from_z_axis, to_urdf
 
 __all__ = [
@@ -414,11 +414,9 @@ def human_description(
                             axis=tuple(float(a) for a in _ARM_AXES[i]), lower=_deg(lo), upper=_deg(hi),
                             effort=p.torque_limit_Nm[i], velocity=_HUMAN_SPEED_RAD_S[i]))
         parent = child
-    for s in p.sites:
-        frame = f"human_cuff_{s.name}"
-        pos = np.array([0.0, 0.0, -s.fraction * L[s.segment]]) + np.array(s.offset_m)
-        links.append(Link(frame))
-        joints.append(Joint(f"{frame}_mount", "fixed", _SEG_LINK[s.segment], frame, tuple(pos)))
+    site_links, site_joints = site_frames("human", p.sites, _SEG_LINK, L)
+    links += site_links
+    joints += site_joints
     links.append(Link(HAND_FRAME))
     joints.append(Joint(f"{HAND_FRAME}_mount", "fixed", "human_hand", HAND_FRAME, (0.0, 0.0, -p.grip_distance_m)))
     return RobotDescription("exosandbox_human_arm", tuple(links), tuple(joints))
@@ -441,7 +439,7 @@ def build_human(p: HumanParams | None = None, **placement) -> ArmModel:
     p = HumanParams() if p is None else p
     return load_arm(
         human_urdf(p, **placement),
-        sites={s.name: f"human_cuff_{s.name}" for s in p.sites},
+        sites={s.name: s.frame("human") for s in p.sites},
         hand_frame=HAND_FRAME,
         joint_names=p.joint_names,
         source="exosandbox_human_arm",

@@ -2,13 +2,15 @@
 
 from __future__ import annotations
 
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Literal
 
 from ._checks import in_range, vector
 from .errors import ParameterError
+from .urdf import Joint, Link
 
-__all__ = ["Segment", "SiteSpec", "SEGMENTS", "DEFAULT_SITES"]
+__all__ = ["Segment", "SiteSpec", "SEGMENTS", "DEFAULT_SITES", "check_sites", "site_frames"]
 
 Segment = Literal["upper_arm", "forearm", "hand"]
 SEGMENTS: tuple[str, ...] = ("upper_arm", "forearm", "hand")
@@ -50,6 +52,10 @@ class SiteSpec:
         object.__setattr__(self, "fraction", in_range(owner, "fraction", self.fraction, 0.0, 1.0))
         object.__setattr__(self, "offset_m", vector(owner, "offset_m", self.offset_m, 3))
 
+    def frame(self, prefix: str) -> str:
+        """URDF link name of the site on a model whose names start with ``prefix``."""
+        return f"{prefix}_cuff_{self.name}"
+
 
 #: Default layout on the exoskeleton: mid upper arm, 60 % down the forearm,
 #: and the hand grip at the end of the hand segment (common practice).
@@ -73,3 +79,23 @@ def check_sites(owner: str, sites) -> tuple[SiteSpec, ...]:
     if len(set(names)) != len(names):
         raise ParameterError(f"{owner}.sites has duplicate names {names}")
     return out
+
+
+def site_frames(
+    prefix: str,
+    sites: Sequence[SiteSpec],
+    segment_link: Mapping[str, str],
+    length_m: Mapping[str, float],
+) -> tuple[list[Link], list[Joint]]:
+    """Massless site links and the fixed joints that mount them on their segments.
+
+    A site sits at ``(0, 0, -fraction * length) + offset_m`` in its segment's
+    link frame (segments point along -z).
+    """
+    links, joints = [], []
+    for s in sites:
+        frame = s.frame(prefix)
+        pos = (s.offset_m[0], s.offset_m[1], s.offset_m[2] - s.fraction * length_m[s.segment])
+        links.append(Link(frame))
+        joints.append(Joint(f"{frame}_mount", "fixed", segment_link[s.segment], frame, pos))
+    return links, joints
