@@ -253,11 +253,12 @@ class HumanParams:
         Add the 2-DOF shoulder girdle (sternoclavicular elevation and
         protraction) in front of the glenohumeral joint.
     clavicle_length_m : float, optional
-        Sternoclavicular to glenohumeral centre [m]; default 0.086 x stature
-        (about 150 mm for a 1.75 m adult, from memory; de Leva has no clavicle row).
+        Sternoclavicular to glenohumeral centre [m]; None means 0.086 x stature
+        (about 150 mm for a 1.75 m adult, from memory; de Leva has no clavicle
+        row). See :meth:`clavicle_m`.
     sites : tuple of SiteSpec, optional
-        Cuff sites on the arm; default mid upper arm, 60 % of the forearm and
-        the hand's centre of mass (the grip).
+        Cuff sites on the arm; None means mid upper arm, 60 % of the forearm
+        and the hand's centre of mass (the grip). See :meth:`cuff_sites`.
     torque_limit_Nm : (7,) tuple
         Peak joint torques the human can produce [N m] (from memory, order of
         magnitude).
@@ -280,20 +281,14 @@ class HumanParams:
             raise ParameterError(f"{o}.subject must be a Subject or a name, got {self.subject!r}")
         if not isinstance(self.girdle, bool):
             raise ParameterError(f"{o}.girdle must be True or False, got {self.girdle!r}")
-        if self.clavicle_length_m is None:
-            object.__setattr__(self, "clavicle_length_m", 0.086 * self.subject.stature_m)
-        object.__setattr__(
-            self, "clavicle_length_m",
-            in_range(o, "clavicle_length_m", self.clavicle_length_m, 0.08, 0.25, "m"),
-        )
-        if self.sites is None:
-            hand = self.row("hand").com_fraction
-            object.__setattr__(self, "sites", (
-                SiteSpec("upper_arm", "upper_arm", 0.5),
-                SiteSpec("forearm", "forearm", 0.6),
-                SiteSpec("hand", "hand", hand),
-            ))
-        object.__setattr__(self, "sites", check_sites(o, self.sites))
+        # None fields stay None and are derived on use, so dataclasses.replace(subject=...) stays consistent
+        if self.clavicle_length_m is not None:
+            object.__setattr__(
+                self, "clavicle_length_m",
+                in_range(o, "clavicle_length_m", self.clavicle_length_m, 0.08, 0.25, "m"),
+            )
+        if self.sites is not None:
+            object.__setattr__(self, "sites", check_sites(o, self.sites))
         t = vector(o, "torque_limit_Nm", self.torque_limit_Nm, 7)
         for i, x in enumerate(t):
             if not x > 0:
@@ -336,13 +331,27 @@ class HumanParams:
         return Inertial(m, (0.0, 0.0, -self.com_distance_m(segment)), (ixx, iyy, i_long, 0.0, 0.0, 0.0),
                         name=f"human {segment}")
 
+    def clavicle_m(self) -> float:
+        """Clavicle length [m]: the given one, or 0.086 x stature (from memory)."""
+        return self.clavicle_length_m if self.clavicle_length_m is not None else 0.086 * self.subject.stature_m
+
+    def cuff_sites(self) -> tuple[SiteSpec, ...]:
+        """Cuff sites: the given ones, or mid upper arm, 60 % of the forearm and the hand's centre of mass."""
+        if self.sites is not None:
+            return self.sites
+        return (
+            SiteSpec("upper_arm", "upper_arm", 0.5),
+            SiteSpec("forearm", "forearm", 0.6),
+            SiteSpec("hand", "hand", self.row("hand").com_fraction),
+        )
+
     def clavicle_vector_m(self) -> np.ndarray:
         """Sternoclavicular joint to glenohumeral centre at rest, thorax frame [m].
 
         Lateral and 20 deg backward in the horizontal plane (from memory).
         """
         a = _deg(20.0)
-        return self.clavicle_length_m * np.array([-math.sin(a), -math.cos(a), 0.0])
+        return self.clavicle_m() * np.array([-math.sin(a), -math.cos(a), 0.0])
 
     @property
     def joint_names(self) -> tuple[str, ...]:
@@ -352,7 +361,7 @@ class HumanParams:
     @property
     def grip_distance_m(self) -> float:
         """Wrist centre to the hand site (the grip) [m]."""
-        hand = next((s for s in self.sites if s.segment == "hand"), None)
+        hand = next((s for s in self.cuff_sites() if s.segment == "hand"), None)
         frac = hand.fraction if hand is not None else self.row("hand").com_fraction
         return frac * self.length_m("hand")
 
@@ -414,7 +423,7 @@ def human_description(
                             axis=tuple(float(a) for a in _ARM_AXES[i]), lower=_deg(lo), upper=_deg(hi),
                             effort=p.torque_limit_Nm[i], velocity=_HUMAN_SPEED_RAD_S[i]))
         parent = child
-    site_links, site_joints = site_frames("human", p.sites, _SEG_LINK, L)
+    site_links, site_joints = site_frames("human", p.cuff_sites(), _SEG_LINK, L)
     links += site_links
     joints += site_joints
     links.append(Link(HAND_FRAME))
@@ -439,7 +448,7 @@ def build_human(p: HumanParams | None = None, **placement) -> ArmModel:
     p = HumanParams() if p is None else p
     return load_arm(
         human_urdf(p, **placement),
-        sites={s.name: s.frame("human") for s in p.sites},
+        sites={s.name: s.frame("human") for s in p.cuff_sites()},
         hand_frame=HAND_FRAME,
         joint_names=p.joint_names,
         source="exosandbox_human_arm",

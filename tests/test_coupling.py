@@ -111,3 +111,16 @@ def test_user_urdf_with_own_site_names_straps_like_the_built_in_one():
     assert np.allclose(pe, _frame(asm.exo, asm.q_exo0, "exo_cuff_upper_arm").translation, atol=0)
     with pytest.raises(UnknownNameError, match="upper_arm frame 'exo_cuff_upper_arm' does not exist"):
         load_exo(text, sites={"upper_arm": "exo_cuff_upper_arm"}, hand_frame="exo_hand_point")
+
+
+def test_changing_the_subject_of_human_params_rederives_the_grip_site():
+    # de Leva (1996) Table 4: hand COM at 0.7900 (male) / 0.7474 (female) of wrist->MET3.
+    import dataclasses
+
+    from models import HumanParams
+
+    man = HumanParams("m50")
+    woman = dataclasses.replace(man, subject="f50")
+    assert next(s for s in man.cuff_sites() if s.name == "hand").fraction == 0.7900
+    assert next(s for s in woman.cuff_sites() if s.name == "hand").fraction == 0.7474
+    assert woman.clavicle_m() == pytest.approx(0.086 * 1.626, rel=1e-12)  # ANSUR II P50 woman, 1.626 m
