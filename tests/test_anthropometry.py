@@ -21,7 +21,7 @@ import numpy as np
 import pinocchio as pin
 import pytest
 
-from models.exo import EXO_JOINTS, build_exo
+from models.exo import EXO_JOINTS, ExoParams, build_exo
 from models.human import (
     HUMAN_ARM_JOINTS,
     SUBJECTS,
@@ -209,6 +209,17 @@ def test_default_exo_stops_lie_inside_the_human_and_aaos_ranges_for_joints_4_to_
         assert hlo <= elo < ehi <= hhi, (ename, hname)
         lo_deg, hi_deg = AAOS_DEG[hname]
         assert math.radians(lo_deg) <= elo and ehi <= math.radians(hi_deg), ename
+
+
+def test_default_exo_stops_cover_the_functional_elbow_and_forearm_range_of_daily_living():
+    # Morrey, Askew, An & Chao (1981), J. Bone Joint Surg. Am. 63(6):872-877 (REFERENCES.md 2b):
+    # most activities of daily living need elbow flexion 30-130 deg and forearm
+    # rotation from 50 deg pronation to 50 deg supination.
+    lower, upper = ExoParams().limits_rad()
+    elbow, forearm = EXO_JOINTS.index("exo_elbow"), EXO_JOINTS.index("exo_forearm")
+    assert lower[elbow] <= math.radians(30.0) and upper[elbow] >= math.radians(130.0)
+    # pronation positive on exo_forearm (same axis and sign as human_forearm_rotation)
+    assert lower[forearm] <= math.radians(-50.0) and upper[forearm] >= math.radians(50.0)
 
 
 # -- shoulder rhythm and girdle -----------------------------------------------------------
