@@ -8,7 +8,7 @@ mid-position, palm facing the body):
  #    joint                 role                                    axis (q=0)
 ====  ===================  =======================================  =========
  1    ``exo_shoulder_a``    shoulder, fixed tilted axis u1           u1
- 2    ``exo_shoulder_b``    shoulder, u2 = u1 x d / |u1 x d|         -u2'
+ 2    ``exo_shoulder_b``    shoulder, normal to u1 and to the arm    u2
  3    ``exo_shoulder_c``    shoulder, humeral long axis              +z
  4    ``exo_elbow``         elbow flexion (+) / extension            -y
  5    ``exo_forearm``       pronation (+) / supination               +z
@@ -23,7 +23,8 @@ plane, elevation ``shoulder_axis_elevation_rad``); the shoulder is singular
 only when the upper arm lies along that line.  With the defaults (35 deg, 30
 deg) the hanging arm is 60 deg away from it and reaching forward, sideways,
 across the body, to the mouth and behind the head all stay more than 30 deg
-away (design choice, checked in the tests).
+away (design choice, checked in the tests).  Joint 2 is singular at
+b -/+ 90 deg (b the elevation of axis 1), which its stops avoid.
 
 All defaults are design assumptions of this project (common practice for
 research rehabilitation exoskeletons, not a specific device); see each field.
