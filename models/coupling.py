@@ -96,6 +96,7 @@ class Registration:
 
 def fit_exo(human: HumanParams, **overrides) -> ExoParams:
     """Exoskeleton parameters with upper arm, forearm and grip lengths set to the wearer's."""
+    overrides.setdefault("side", human.side)
     return ExoParams.fitted_to(
         human.length_m("upper_arm"), human.length_m("forearm"), human.grip_distance_m, **overrides
     )
@@ -174,6 +175,8 @@ def assemble(
     hp = HumanParams(human) if isinstance(human, str) else human
     ep = fit_exo(hp) if exo is None else exo
     reg = Registration() if registration is None else registration
+    if ep.side != hp.side:
+        raise ParameterError(f"the exoskeleton is for the {ep.side} arm but the human arm is the {hp.side} one")
     exo_arm = build_exo(ep)
     human_arm = build_human(hp, base_xyz_m=reg.human_base_xyz_m())
     qe = exo_arm.neutral() if q_exo0 is None else np.asarray(q_exo0, dtype=float)

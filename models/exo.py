@@ -1,4 +1,7 @@
-"""A parametric 7-DOF upper-limb exoskeleton (right arm), emitted as URDF.
+"""A parametric 7-DOF upper-limb exoskeleton, emitted as URDF.
+
+Described here for the right arm; ``side="left"`` gives its mirror image
+across the sagittal (x-z) plane, with the same joint names, signs and limits.
 
 Joint order and roles (all revolute, all link frames parallel to the base
 frame at q = 0, where the arm hangs at the side with the forearm in
@@ -44,7 +47,7 @@ from .arm import ArmModel, load_arm, read_urdf_file
 from .errors import ParameterError
 from .inertia import Inertial, combine, cylindrical_tube, solid_box, solid_cylinder
 from .sites import DEFAULT_SITES, SiteSpec, check_sites, site_frames
-from .urdf import Geometry, Joint, Link, RobotDescription, Visual, rpy_from_z_axis, to_urdf
+from .urdf import SIDES, Geometry, Joint, Link, RobotDescription, Side, Visual, mirrored, rpy_from_z_axis, to_urdf
 
 __all__ = [
     "ExoParams", "EXO_JOINTS", "exo_description", "exo_urdf", "build_exo", "load_exo", "shoulder_axes",
@@ -152,6 +155,8 @@ class ExoParams:
     coulomb_friction_Nm: tuple[float, ...] = (0.6, 0.6, 0.4, 0.35, 0.15, 0.08, 0.08)
     #: Cuff sites on the robot.
     sites: tuple[SiteSpec, ...] = field(default=DEFAULT_SITES)
+    #: Which arm: "right", or "left" (the mirror image across the sagittal plane).
+    side: Side = "right"
 
     #: Adjustment range of each length (design assumption, covers f5 to m95).
     ADJUSTMENT_RANGES_M = {
@@ -162,6 +167,8 @@ class ExoParams:
 
     def __post_init__(self) -> None:
         o = "ExoParams"
+        if self.side not in SIDES:
+            raise ParameterError(f"{o}.side must be 'right' or 'left', got {self.side!r}")
         for name, (lo, hi) in self.ADJUSTMENT_RANGES_M.items():
             object.__setattr__(self, name, in_range(o, name, getattr(self, name), lo, hi, "m"))
         object.__setattr__(
@@ -253,6 +260,18 @@ class ExoParams:
 def shoulder_axes(p: ExoParams) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Unit axes (u1, u2, u3) of the three shoulder joints at q = 0, base frame.
 
+    For a left arm these are the mirror images :math:`-S u` of the right
+    arm's (:func:`models.urdf.mirrored`); the right arm's are below.
+    """
+    axes = _right_shoulder_axes(p)
+    if p.side == "left":
+        return tuple(np.array([-u[0], u[1], -u[2]]) for u in axes)
+    return axes
+
+
+def _right_shoulder_axes(p: ExoParams) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Unit axes (u1, u2, u3) of the right arm's shoulder joints at q = 0, base frame.
+
     ``u1`` is tilted by azimuth a and elevation b:
     :math:`u_1 = (-\\sin a \\cos b, -\\cos a \\cos b, \\sin b)`;
     ``u3 = +z`` (the hanging humerus, internal rotation positive);
@@ -284,7 +303,7 @@ def _design_inertials(p: ExoParams) -> tuple[Inertial, ...]:
 
 def _design_shapes(p: ExoParams):
     """Per link: list of (mass fraction, inertial factory, visual) in the link frame."""
-    u1, u2, _ = shoulder_axes(p)
+    u1, u2, _ = _right_shoulder_axes(p)
     L1, L2, L3 = p.upper_arm_length_m, p.forearm_length_m, p.hand_length_m
     r_sh = 0.15  # radius of the shoulder actuators from the shoulder centre [m]
     ring_z = -0.10  # humeral-rotation ring below the shoulder centre [m]
@@ -361,7 +380,7 @@ def _design_shapes(p: ExoParams):
 def exo_description(p: ExoParams | None = None) -> RobotDescription:
     """The exoskeleton as a :class:`~models.urdf.RobotDescription`."""
     p = ExoParams() if p is None else p
-    u1, u2, u3 = shoulder_axes(p)
+    u1, u2, u3 = _right_shoulder_axes(p)
     L1, L2, L3 = p.upper_arm_length_m, p.forearm_length_m, p.hand_length_m
     inertials = p.inertials()
     lower, upper = p.limits_rad()
@@ -393,7 +412,8 @@ def exo_description(p: ExoParams | None = None) -> RobotDescription:
     joints += site_joints
     links.append(Link(HAND_FRAME))
     joints.append(Joint(f"{HAND_FRAME}_mount", "fixed", "exo_hand", HAND_FRAME, (0.0, 0.0, -L3)))
-    return RobotDescription("exosandbox_exo", tuple(links), tuple(joints))
+    right = RobotDescription("exosandbox_exo", tuple(links), tuple(joints))
+    return mirrored(right) if p.side == "left" else right
 
 
 def exo_urdf(p: ExoParams | None = None) -> str:

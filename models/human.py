@@ -1,4 +1,4 @@
-"""An anthropometric right human arm scaled from stature, body mass and sex, as URDF.
+"""An anthropometric human arm scaled from stature, body mass and sex, as URDF.
 
 One table throughout: de Leva (1996), Table 4 (Zatsiorsky–Seluyanov data
 adjusted to joint-centre endpoints) for the mass fractions, the centre-of-mass
@@ -8,7 +8,8 @@ than Dempster/Winter because it is sex-specific and gives radii of gyration
 about three axes, which a 3-D arm with axial rotations needs; the two tables
 must not be mixed (REFERENCES.md section 1).
 
-Joint order (all revolute; link frames parallel to the thorax frame at q = 0,
+Described for the right arm (``side="left"`` mirrors it across the sagittal
+plane).  Joint order (all revolute; link frames parallel to the thorax frame at q = 0,
 arm hanging at the side, forearm in mid-position, palm facing the body):
 
 ==  =========================  ==========================  ==========  ===========
@@ -39,7 +40,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Literal
 
 import numpy as np
@@ -50,7 +51,7 @@ from .arm import ArmModel, load_arm
 from .errors import ParameterError, UnknownNameError
 from .inertia import Inertial
 from .sites import SiteSpec, check_sites, site_frames
-from .urdf import Geometry, Joint, Link, RobotDescription, Visual, rpy_from_z_axis, to_urdf
+from .urdf import SIDES, Geometry, Joint, Link, RobotDescription, Side, Visual, mirrored, rpy_from_z_axis, to_urdf
 
 __all__ = [
     "Sex",
@@ -264,6 +265,9 @@ class HumanParams:
         magnitude).
     rhythm : ShoulderRhythm
         Scapulohumeral rhythm used with the girdle.
+    side : {"right", "left"}
+        Which arm; the left is the mirror image of the right across the
+        sagittal plane, with the same joint names, signs and limits.
     """
 
     subject: Subject | str = "m50"
@@ -272,9 +276,12 @@ class HumanParams:
     sites: tuple[SiteSpec, ...] | None = None
     torque_limit_Nm: tuple[float, ...] = _HUMAN_TORQUE_NM
     rhythm: ShoulderRhythm = field(default_factory=ShoulderRhythm)
+    side: Side = "right"
 
     def __post_init__(self) -> None:
         o = "HumanParams"
+        if self.side not in SIDES:
+            raise ParameterError(f"{o}.side must be 'right' or 'left', got {self.side!r}")
         if isinstance(self.subject, str):
             object.__setattr__(self, "subject", Subject.named(self.subject))
         elif not isinstance(self.subject, Subject):
@@ -380,6 +387,18 @@ def human_description(
     p = HumanParams() if p is None else p
     base_xyz_m = vector("human_description", "base_xyz_m", base_xyz_m, 3)
     base_rpy_rad = vector("human_description", "base_rpy_rad", base_rpy_rad, 3)
+    arm = _right_arm_description(p)
+    if p.side == "left":
+        arm = mirrored(arm)
+    # the registration is a world placement: it is set after mirroring, never mirrored
+    joints = tuple(replace(j, xyz_m=base_xyz_m, rpy_rad=base_rpy_rad) if j.name == "human_registration" else j
+                   for j in arm.joints)
+    return replace(arm, joints=joints)
+
+
+def _right_arm_description(p: HumanParams) -> RobotDescription:
+    """The right arm with the thorax at the world origin."""
+    base_xyz_m = base_rpy_rad = (0.0, 0.0, 0.0)
     L = {s: p.length_m(s) for s in ("upper_arm", "forearm", "hand")}
     thorax_vis = (
         Visual(Geometry("box", (0.22, 0.34, 0.50)), (-0.02, 0.19, -0.22), (0, 0, 0), _TORSO_RGBA, "human_torso"),

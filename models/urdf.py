@@ -12,15 +12,23 @@ from __future__ import annotations
 
 import math
 import xml.etree.ElementTree as ET
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Literal
+
+import numpy as np
+import pinocchio as pin
 
 from .errors import ParameterError
 from .inertia import Inertial
 
-__all__ = ["Geometry", "Visual", "Link", "Joint", "RobotDescription", "to_urdf", "rpy_from_z_axis"]
+__all__ = [
+    "Geometry", "Visual", "Link", "Joint", "RobotDescription", "to_urdf", "rpy_from_z_axis", "mirrored",
+    "Side", "SIDES",
+]
 
 GeometryKind = Literal["cylinder", "box", "sphere"]
+Side = Literal["right", "left"]
+SIDES: tuple[str, ...] = ("right", "left")
 JointKind = Literal["revolute", "fixed", "prismatic"]
 
 
@@ -178,3 +186,42 @@ def to_urdf(robot: RobotDescription) -> str:
                 ET.SubElement(el, "dynamics", damping=_f(j.damping), friction=_f(j.friction))
     ET.indent(root, space="  ")
     return '<?xml version="1.0" encoding="utf-8"?>\n' + ET.tostring(root, encoding="unicode") + "\n"
+
+
+#: Reflection across the x-z (sagittal) plane of the base frame: y -> -y.
+_S = np.diag([1.0, -1.0, 1.0])
+
+
+def _mirror_rpy(rpy: tuple[float, float, float]) -> tuple[float, float, float]:
+    """rpy of :math:`S R S` (the mirror image of a rotation is again a rotation)."""
+    R = _S @ pin.rpy.rpyToMatrix(*rpy) @ _S
+    return tuple(float(x) for x in pin.rpy.matrixToRpy(R))
+
+
+def _mirror_xyz(xyz: tuple[float, float, float]) -> tuple[float, float, float]:
+    return (xyz[0], -xyz[1], xyz[2])
+
+
+def mirrored(robot: RobotDescription, name: str | None = None) -> RobotDescription:
+    r"""The mirror image of ``robot`` across the x-z plane (a right arm becomes a left arm).
+
+    Points map by :math:`S = \mathrm{diag}(1, -1, 1)`, rotations by
+    :math:`R \mapsto S R S`, inertia tensors by :math:`I \mapsto S I S`,
+    and each joint axis by :math:`a \mapsto -S a`: an axis is a pseudo-vector,
+    so with that sign a joint angle of the mirrored arm produces the mirror
+    image of the original motion (flexion stays flexion, pronation stays
+    pronation).  Joint limits therefore stay as they are.
+    """
+    links = []
+    for link in robot.links:
+        ine = link.inertial
+        if ine is not None:
+            ine = Inertial.from_matrix(ine.mass_kg, _S @ ine.com, _S @ ine.matrix @ _S, ine.name)
+        visuals = tuple(replace(v, xyz_m=_mirror_xyz(v.xyz_m), rpy_rad=_mirror_rpy(v.rpy_rad)) for v in link.visuals)
+        links.append(Link(link.name, ine, visuals))
+    joints = tuple(
+        replace(j, xyz_m=_mirror_xyz(j.xyz_m), rpy_rad=_mirror_rpy(j.rpy_rad),
+                axis=(-j.axis[0], j.axis[1], -j.axis[2]))
+        for j in robot.joints
+    )
+    return RobotDescription(name or robot.name, tuple(links), joints)

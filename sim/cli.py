@@ -52,6 +52,7 @@ def build_parser() -> argparse.ArgumentParser:
     who.add_argument("--stature", type=float, metavar="M", help="stature [m]")
     who.add_argument("--mass", type=float, metavar="KG", help="body mass [kg]")
     who.add_argument("--sex", choices=("female", "male"))
+    u.add_argument("--side", choices=("right", "left"), default="right", help="which arm (default: right)")
     u.add_argument("--girdle", action="store_true", help="human: add the 2-DOF shoulder girdle")
     u.set_defaults(func=_cmd_urdf)
 
@@ -82,13 +83,14 @@ def _cmd_urdf(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     if args.what == "exo":
         if args.girdle:
             parser.error("--girdle applies to 'urdf human' only")
-        params = ExoParams() if subject is None else fit_exo(HumanParams(subject))
-        text, summary = exo_urdf(params), f"exoskeleton, 7 joints, {params.total_mass_kg:.2f} kg moving mass"
+        params = ExoParams(side=args.side) if subject is None else fit_exo(HumanParams(subject, side=args.side))
+        text = exo_urdf(params)
+        summary = f"{params.side}-arm exoskeleton, 7 joints, {params.total_mass_kg:.2f} kg moving mass"
     else:
-        hp = HumanParams(subject or "m50", girdle=args.girdle)
+        hp = HumanParams(subject or "m50", girdle=args.girdle, side=args.side)
         s = hp.subject
         text = human_urdf(hp)
-        summary = (f"human arm, {len(hp.joint_names)} joints, {s.sex} {s.stature_m:.3f} m "
+        summary = (f"human {hp.side} arm, {len(hp.joint_names)} joints, {s.sex} {s.stature_m:.3f} m "
                    f"{s.mass_kg:.1f} kg")
     if args.output is None:
         sys.stdout.write(text)

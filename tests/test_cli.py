@@ -51,6 +51,7 @@ def test_urdf_exo_writes_a_file_both_engines_load_with_equal_dynamics(tmp_path, 
         (["--stature", "1.75", "--mass", "75", "--sex", "male"], 7),
         (["--subject", "m50"], 7),
         (["--subject", "f5", "--girdle"], 9),
+        (["--subject", "m95", "--side", "left"], 7),
     ],
 )
 def test_urdf_human_writes_a_file_both_engines_load_with_equal_dynamics(tmp_path, args, nq):
@@ -89,6 +90,7 @@ def test_urdf_exo_fitted_to_a_subject_changes_the_segment_lengths(tmp_path):
         (["urdf", "robot"], "invalid choice"),
         (["urdf", "exo", "--girdle"], "--girdle"),
         (["urdf", "exo", "--mass", "abc"], "invalid float"),
+        (["urdf", "exo", "--side", "both"], "invalid choice"),
     ],
 )
 def test_bad_options_give_one_line_error_and_nonzero_exit(argv, text):
