@@ -1,0 +1,291 @@
+"""The human's joint-space movement intent: minimum-jerk moves between held postures.
+
+A :class:`JointIntent` starts at a posture, may hold it, then moves through a
+sequence of :class:`Via` postures.  Each move is a minimum-jerk
+point-to-point movement (Flash & Hogan 1985); each hold keeps the posture
+with zero velocity and acceleration.  Position and velocity are continuous at
+every segment boundary (a minimum-jerk move starts and ends at rest);
+acceleration is continuous too, since it is zero at both ends of a move.
+
+References
+----------
+.. [1] Flash T., Hogan N. (1985), "The coordination of arm movements: an
+   experimentally confirmed mathematical model", *J. Neurosci.* 5(7):1688-1703.
+"""
+
+from __future__ import annotations
+
+import math
+from bisect import bisect_right
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from models._checks import nonnegative, positive, vector
+from models.errors import ParameterError
+
+__all__ = ["minimum_jerk", "Via", "JointIntent"]
+
+
+def _posture(owner: str, field: str, value: Sequence[float]) -> tuple[float, ...]:
+    """Return ``value`` as a non-empty tuple of finite floats [rad]."""
+    try:
+        n = len(value)
+    except TypeError as e:
+        raise ParameterError(f"{owner}.{field} must be a sequence of numbers [rad], got {value!r}") from e
+    if n == 0:
+        raise ParameterError(f"{owner}.{field} must have at least one joint, got {value!r}")
+    return vector(owner, field, value, n)
+
+
+def _mj_eval(
+    q0: np.ndarray, D: np.ndarray, T: float, t: np.ndarray | float
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Minimum-jerk polynomial without input checks (the hot path of :meth:`JointIntent.at`).
+
+    ``t`` is a scalar or an (m,) array; outputs have shape ``np.shape(t) + q0.shape``.
+    """
+    if np.ndim(t) == 0:  # scalar fast path: Python floats, three array operations
+        tau = min(max(float(t) / T, 0.0), 1.0)
+    else:
+        tau = np.clip(np.asarray(t, dtype=float) / T, 0.0, 1.0)[:, None]
+    t2 = tau * tau
+    s = t2 * tau * (10.0 + tau * (-15.0 + 6.0 * tau))  # 10 tau^3 - 15 tau^4 + 6 tau^5
+    ds = 30.0 * t2 * (1.0 - tau) ** 2  # 30 tau^2 - 60 tau^3 + 30 tau^4
+    dds = 60.0 * tau * (1.0 - tau) * (1.0 - 2.0 * tau)  # 60 tau - 180 tau^2 + 120 tau^3
+    q = q0 + D * s
+    dq = D * (ds / T)
+    ddq = D * (dds / (T * T))
+    return q, dq, ddq
+
+
+def minimum_jerk(
+    q0: Sequence[float] | np.ndarray,
+    q1: Sequence[float] | np.ndarray,
+    duration_s: float,
+    t_s: float | np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Position, velocity and acceleration of a minimum-jerk move from ``q0`` to ``q1``.
+
+    With :math:`\\tau = t / T` and :math:`D = q_1 - q_0`,
+
+    .. math::
+        x(t) = q_0 + D \\, (10 \\tau^3 - 15 \\tau^4 + 6 \\tau^5), \\qquad
+        \\dot x = \\frac{D}{T} 30 \\tau^2 (1 - \\tau)^2, \\qquad
+        \\ddot x = \\frac{D}{T^2} 60 \\tau (1 - \\tau)(1 - 2 \\tau),
+
+    the movement that minimises the integrated squared jerk between two rest
+    postures (Flash & Hogan 1985, *J. Neurosci.* 5(7):1688-1703).  Outside
+    :math:`[0, T]` the time is clamped: the output is the nearer end posture
+    with zero velocity and acceleration.
+
+    Parameters
+    ----------
+    q0, q1 : (n,) array_like [rad]
+        Start and end postures (a scalar counts as n = 1).
+    duration_s : float [s]
+        Movement time T, > 0.
+    t_s : float or (m,) array_like [s]
+        Time since the start of the move.
+
+    Returns
+    -------
+    q, dq, ddq : (n,) ndarray, or (m, n) for an (m,) ``t_s``
+        Position [rad], velocity [rad/s] and acceleration [rad/s^2].
+
+    Raises
+    ------
+    ParameterError
+        If the postures differ in length or are not finite, if ``duration_s``
+        is not > 0, or if a time is not finite.
+    """
+    owner = "minimum_jerk"
+    a = np.atleast_1d(np.asarray(q0, dtype=float))
+    b = np.atleast_1d(np.asarray(q1, dtype=float))
+    if a.ndim != 1 or a.shape != b.shape:
+        raise ParameterError(f"{owner}.q1 must have the shape of q0 {a.shape}, got {b.shape}")
+    if not (np.all(np.isfinite(a)) and np.all(np.isfinite(b))):
+        raise ParameterError(f"{owner}.q0 and q1 must be finite, got {q0!r} and {q1!r}")
+    T = positive(owner, "duration_s", duration_s, "s")
+    t = np.asarray(t_s, dtype=float)
+    if t.ndim > 1 or not np.all(np.isfinite(t)):
+        raise ParameterError(f"{owner}.t_s must be a finite scalar or 1-D array [s], got {t_s!r}")
+    return _mj_eval(a, b - a, T, t if t.ndim else float(t))
+
+
+@dataclass(frozen=True)
+class Via:
+    """A posture to move to, and how long to hold it.
+
+    Attributes
+    ----------
+    posture_rad : tuple of float [rad]
+        Target joint posture, one entry per joint.
+    move_s : float [s]
+        Duration of the minimum-jerk move into this posture, > 0.
+    hold_s : float [s]
+        Time spent at the posture after arriving, >= 0.
+    """
+
+    posture_rad: tuple[float, ...]
+    move_s: float
+    hold_s: float = 0.0
+
+    def __post_init__(self) -> None:
+        o = "Via"
+        object.__setattr__(self, "posture_rad", _posture(o, "posture_rad", self.posture_rad))
+        object.__setattr__(self, "move_s", positive(o, "move_s", self.move_s, "s"))
+        object.__setattr__(self, "hold_s", nonnegative(o, "hold_s", self.hold_s, "s"))
+
+
+@dataclass(frozen=True)
+class JointIntent:
+    """A piecewise joint-space intent: hold, then minimum-jerk moves through vias with holds.
+
+    The timeline is ``start_hold_s`` at ``start_rad``, then for each via a
+    move of ``move_s`` into ``posture_rad`` followed by a hold of ``hold_s``.
+    Before t = 0 the intent is the start posture, after :attr:`duration_s`
+    the last posture, both at rest.
+
+    Attributes
+    ----------
+    start_rad : tuple of float [rad]
+        Initial posture (n joints).
+    vias : tuple of Via
+        Postures visited in order; each must have n joints.  May be empty (a
+        pure hold).
+    start_hold_s : float [s]
+        Hold at the start posture before the first move, >= 0.
+
+    Notes
+    -----
+    Segment start times are precomputed, so :meth:`at` costs one bisection
+    and one polynomial evaluation (it runs every control tick).  A hold is
+    evaluated as a minimum-jerk "move" of zero amplitude, which is constant.
+    """
+
+    start_rad: tuple[float, ...]
+    vias: tuple[Via, ...]
+    start_hold_s: float = 0.0
+
+    def __post_init__(self) -> None:
+        o = "JointIntent"
+        start = _posture(o, "start_rad", self.start_rad)
+        object.__setattr__(self, "start_rad", start)
+        object.__setattr__(self, "start_hold_s", nonnegative(o, "start_hold_s", self.start_hold_s, "s"))
+        try:
+            vias = tuple(self.vias)
+        except TypeError as e:
+            raise ParameterError(f"{o}.vias must be a sequence of Via, got {self.vias!r}") from e
+        n = len(start)
+        for i, v in enumerate(vias):
+            if not isinstance(v, Via):
+                raise ParameterError(f"{o}.vias[{i}] must be a Via, got {v!r}")
+            if len(v.posture_rad) != n:
+                raise ParameterError(
+                    f"{o}.vias[{i}].posture_rad must have {n} entries (the length of start_rad), "
+                    f"got {len(v.posture_rad)}"
+                )
+        object.__setattr__(self, "vias", vias)
+        self._build_segments()
+
+    def _build_segments(self) -> None:
+        """Precompute (start time, duration, start posture, amplitude) of every non-empty segment."""
+        starts: list[float] = []
+        durations: list[float] = []
+        q_from: list[np.ndarray] = []
+        amplitude: list[np.ndarray] = []
+        t = 0.0
+        q = np.array(self.start_rad)
+        zero = np.zeros_like(q)
+
+        def add(dur: float, q_a: np.ndarray, d: np.ndarray) -> None:
+            nonlocal t
+            if dur > 0.0:
+                starts.append(t)
+                durations.append(dur)
+                q_from.append(q_a)
+                amplitude.append(d)
+                t += dur
+
+        add(self.start_hold_s, q, zero)
+        for v in self.vias:
+            target = np.array(v.posture_rad)
+            add(v.move_s, q, target - q)
+            add(v.hold_s, target, zero)
+            q = target
+        for arr in (*q_from, *amplitude, q):
+            arr.setflags(write=False)
+        object.__setattr__(self, "_starts", starts)
+        object.__setattr__(self, "_durations", durations)
+        object.__setattr__(self, "_q_from", q_from)
+        object.__setattr__(self, "_amplitude", amplitude)
+        object.__setattr__(self, "_q_start", np.array(self.start_rad))
+        object.__setattr__(self, "_q_end", q)
+        object.__setattr__(self, "_end_s", t)
+
+    @property
+    def n_joints(self) -> int:
+        """Number of joints n."""
+        return len(self.start_rad)
+
+    @property
+    def duration_s(self) -> float:
+        """Total duration [s]: ``start_hold_s`` plus every via's ``move_s + hold_s``."""
+        return self._end_s
+
+    def at(self, t_s: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Intended posture, velocity and acceleration at time ``t_s``.
+
+        Parameters
+        ----------
+        t_s : float [s]
+            Time since the start of the intent (finite; may be < 0 or past the end).
+
+        Returns
+        -------
+        q, dq, ddq : (n,) ndarray
+            Position [rad], velocity [rad/s] and acceleration [rad/s^2]; new
+            arrays on every call.
+        """
+        t = float(t_s)
+        if not math.isfinite(t):
+            raise ParameterError(f"JointIntent.at t_s must be finite, got {t_s!r}")
+        if t >= self._end_s or t < 0.0:
+            q = self._q_end if t >= self._end_s else self._q_start
+            z = np.zeros(q.shape)
+            return q.copy(), z, z.copy()
+        i = bisect_right(self._starts, t) - 1
+        return _mj_eval(self._q_from[i], self._amplitude[i], self._durations[i], t - self._starts[i])
+
+    def sample(self, t_s: Sequence[float] | np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Evaluate :meth:`at` on a time grid, vectorised.
+
+        Parameters
+        ----------
+        t_s : (m,) array_like [s]
+            Finite times, in any order.
+
+        Returns
+        -------
+        Q, dQ, ddQ : (m, n) ndarray
+            Positions [rad], velocities [rad/s] and accelerations [rad/s^2].
+        """
+        t = np.asarray(t_s, dtype=float)
+        if t.ndim != 1 or not np.all(np.isfinite(t)):
+            raise ParameterError(f"JointIntent.sample t_s must be a finite 1-D array [s], got shape {t.shape}")
+        m, n = t.shape[0], self.n_joints
+        Q = np.empty((m, n))
+        dQ = np.zeros((m, n))
+        ddQ = np.zeros((m, n))
+        Q[t < 0.0] = self._q_start
+        Q[t >= self._end_s] = self._q_end
+        inside = (t >= 0.0) & (t < self._end_s)
+        idx = np.searchsorted(self._starts, t, side="right") - 1
+        for i in np.unique(idx[inside]):
+            mask = inside & (idx == i)
+            Q[mask], dQ[mask], ddQ[mask] = _mj_eval(
+                self._q_from[i], self._amplitude[i], self._durations[i], t[mask] - self._starts[i]
+            )
+        return Q, dQ, ddQ

@@ -1,0 +1,367 @@
+"""What a real exoskeleton senses: joint encoders, joint torque and a 6-axis force/torque sensor.
+
+The controller sees only these measurements, never the simulator's state.
+
+Both sensors use the same first-order low-pass filter with cut-off
+:math:`f_c`, time constant :math:`\\tau_f = 1 / (2 \\pi f_c)`, discretised
+exactly for a zero-order-hold input over a tick :math:`\\Delta t`:
+
+.. math::
+    y_k = y_{k-1} + \\alpha \\, (u_k - y_{k-1}), \\qquad
+    \\alpha = 1 - e^{-2 \\pi f_c \\Delta t},
+
+so that a unit step gives :math:`y_k = 1 - e^{-k \\Delta t / \\tau_f}` exactly
+(zero-order-hold equivalent of :math:`1 / (\\tau_f s + 1)`; e.g. Franklin,
+Powell & Workman, *Digital Control of Dynamic Systems*, 3rd ed., 1998,
+the chapter on discrete equivalents; chapter from memory).
+
+Randomness comes only from the ``numpy.random.Generator`` passed in.  A
+sensor whose noise standard deviations are all zero never draws from it.
+
+Both sensors keep preallocated internal buffers; every array they return is a
+fresh read-only copy, so a controller cannot change the sensor state.
+"""
+
+from __future__ import annotations
+
+import math
+import operator
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from models._checks import nonnegative, positive, vector
+from models.errors import ParameterError
+
+__all__ = ["EncoderParams", "JointSensing", "ForceSensorParams", "ForceTorqueSensor", "lowpass_alpha"]
+
+
+def lowpass_alpha(cutoff_Hz: float, dt_s: float) -> float:
+    """Gain :math:`\\alpha = 1 - e^{-2 \\pi f_c \\Delta t}` of the exactly discretised first-order low-pass.
+
+    Parameters
+    ----------
+    cutoff_Hz : float [Hz]
+        Cut-off frequency :math:`f_c`, > 0.
+    dt_s : float [s]
+        Sample period :math:`\\Delta t`, > 0.
+
+    Returns
+    -------
+    float
+        :math:`\\alpha \\in (0, 1]`.
+    """
+    return -math.expm1(-2.0 * math.pi * cutoff_Hz * dt_s)
+
+
+def _readonly(buf: np.ndarray) -> np.ndarray:
+    out = buf.copy()
+    out.setflags(write=False)
+    return out
+
+
+def _check_rng(owner: str, rng: object) -> np.random.Generator:
+    if not isinstance(rng, np.random.Generator):
+        raise ParameterError(f"{owner}.rng must be a numpy.random.Generator (np.random.default_rng(seed)), got {rng!r}")
+    return rng
+
+
+def _check_signal(owner: str, name: str, value: object, shape: tuple[int, ...]) -> np.ndarray:
+    arr = np.asarray(value, dtype=float)
+    if arr.shape != shape:
+        raise ParameterError(f"{owner}.{name} must have shape {shape}, got {arr.shape}")
+    if not np.all(np.isfinite(arr)):
+        raise ParameterError(f"{owner}.{name} must be finite, got {arr!r}")
+    return arr
+
+
+@dataclass(frozen=True)
+class EncoderParams:
+    """Joint encoders and joint torque sensing.
+
+    Attributes
+    ----------
+    resolution_rad : float [rad]
+        Quantisation step, > 0.  Default: a 17-bit absolute encoder,
+        :math:`2 \\pi / 2^{17} \\approx 4.79 \\cdot 10^{-5}` rad (common practice).
+    velocity_cutoff_Hz : float [Hz]
+        Cut-off of the first-order low-pass applied to the finite-difference
+        velocity, > 0.  Default 100 Hz (common practice).
+    torque_noise_std_Nm : float [N m]
+        Standard deviation of the white Gaussian noise added to the joint
+        torque, >= 0.  Default 0 (ideal torque sensing).
+    """
+
+    resolution_rad: float = 2.0 * math.pi / 2**17
+    velocity_cutoff_Hz: float = 100.0
+    torque_noise_std_Nm: float = 0.0
+
+    def __post_init__(self) -> None:
+        o = "EncoderParams"
+        object.__setattr__(self, "resolution_rad", positive(o, "resolution_rad", self.resolution_rad, "rad"))
+        object.__setattr__(
+            self, "velocity_cutoff_Hz", positive(o, "velocity_cutoff_Hz", self.velocity_cutoff_Hz, "Hz")
+        )
+        object.__setattr__(
+            self, "torque_noise_std_Nm", nonnegative(o, "torque_noise_std_Nm", self.torque_noise_std_Nm, "N m")
+        )
+
+
+class JointSensing:
+    """Quantised joint positions, a filtered finite-difference velocity and noisy joint torques.
+
+    At tick k, with resolution r, tick :math:`\\Delta t` and the gain
+    :math:`\\alpha` of the module docstring:
+
+    .. math::
+        q^m_k = r \\, \\mathrm{round}(q_k / r), \\qquad
+        \\hat{\\dot q}_k = \\hat{\\dot q}_{k-1}
+            + \\alpha \\Big( \\frac{q^m_k - q^m_{k-1}}{\\Delta t} - \\hat{\\dot q}_{k-1} \\Big), \\qquad
+        \\tau^m_k = \\tau_k + \\sigma_\\tau \\, n_k,
+
+    a mid-tread quantiser (ties round to even, as ``numpy.round``), a
+    backward difference low-passed at ``velocity_cutoff_Hz``, and
+    :math:`n_k \\sim \\mathcal N(0, 1)` drawn from ``rng``.
+
+    Parameters
+    ----------
+    params : EncoderParams
+    n_joints : int
+        Number of joints n, >= 1.
+    dt_s : float [s]
+        Control tick, > 0.
+    rng : numpy.random.Generator
+        Source of the torque noise.
+
+    Notes
+    -----
+    :meth:`reset` sets the velocity estimate to 0 and stores the quantised
+    reset posture as :math:`q^m_{-1}` for the first difference.  If
+    :meth:`measure` is called before any :meth:`reset`, it first resets at
+    the posture it is given (so the first velocity estimate is 0).
+    """
+
+    def __init__(self, params: EncoderParams, n_joints: int, dt_s: float, rng: np.random.Generator) -> None:
+        o = "JointSensing"
+        if not isinstance(params, EncoderParams):
+            raise ParameterError(f"{o}.params must be an EncoderParams, got {params!r}")
+        try:
+            n = operator.index(n_joints)
+        except TypeError as e:
+            raise ParameterError(f"{o}.n_joints must be an integer >= 1, got {n_joints!r}") from e
+        if n < 1 or isinstance(n_joints, bool):
+            raise ParameterError(f"{o}.n_joints must be an integer >= 1, got {n_joints!r}")
+        self.params = params
+        self.n_joints = n
+        self.dt_s = positive(o, "dt_s", dt_s, "s")
+        self._rng = _check_rng(o, rng)
+        self._alpha = lowpass_alpha(params.velocity_cutoff_Hz, self.dt_s)
+        self._q = np.zeros(n)
+        self._q_prev = np.zeros(n)
+        self._dq = np.zeros(n)
+        self._diff = np.zeros(n)
+        self._tau = np.zeros(n)
+        self._noise = np.zeros(n)
+        self._started = False
+
+    def _quantise(self, q: np.ndarray, out: np.ndarray) -> np.ndarray:
+        r = self.params.resolution_rad
+        np.divide(q, r, out=out)
+        np.round(out, out=out)
+        np.multiply(out, r, out=out)
+        return out
+
+    def reset(self, q_true: Sequence[float] | np.ndarray) -> None:
+        """Start a new run at posture ``q_true`` (n,) [rad]: velocity estimate 0, previous reading q(reset)."""
+        q = _check_signal("JointSensing", "reset q_true", q_true, (self.n_joints,))
+        self._quantise(q, self._q_prev)
+        self._dq.fill(0.0)
+        self._started = True
+
+    def measure(
+        self, q_true: Sequence[float] | np.ndarray, tau_joint_Nm: Sequence[float] | np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """One tick of sensing.
+
+        Parameters
+        ----------
+        q_true : (n,) array_like [rad]
+            True joint positions.
+        tau_joint_Nm : (n,) array_like [N m]
+            True joint torques.
+
+        Returns
+        -------
+        q_meas : (n,) ndarray [rad]
+            Quantised positions.
+        dq_est : (n,) ndarray [rad/s]
+            Low-passed backward-difference velocity.
+        tau_meas : (n,) ndarray [N m]
+            Joint torques plus noise.
+
+        All three are read-only copies.
+        """
+        n = (self.n_joints,)
+        q = _check_signal("JointSensing", "measure q_true", q_true, n)
+        tau = _check_signal("JointSensing", "measure tau_joint_Nm", tau_joint_Nm, n)
+        if not self._started:
+            self.reset(q)
+        self._quantise(q, self._q)
+        np.subtract(self._q, self._q_prev, out=self._diff)
+        self._diff /= self.dt_s
+        self._diff -= self._dq
+        self._diff *= self._alpha
+        self._dq += self._diff
+        self._q_prev[:] = self._q
+        self._tau[:] = tau
+        std = self.params.torque_noise_std_Nm
+        if std > 0.0:
+            self._rng.standard_normal(out=self._noise)
+            self._noise *= std
+            self._tau += self._noise
+        return _readonly(self._q), _readonly(self._dq), _readonly(self._tau)
+
+
+@dataclass(frozen=True)
+class ForceSensorParams:
+    """A 6-axis force/torque sensor: bias, white noise, a first-order low-pass and a pure delay.
+
+    Attributes
+    ----------
+    noise_std_N : float [N]
+        Standard deviation of the white Gaussian noise on each force axis, >= 0.
+    noise_std_Nm : float [N m]
+        Standard deviation on each torque axis, >= 0.  Defaults 0.3 N and
+        0.01 N m: a small 6-axis F/T sensor (common practice, from memory).
+    bias_N : (3,) tuple of float [N]
+        Constant offset of the force reading, in the sensor frame.
+    bias_Nm : (3,) tuple of float [N m]
+        Constant offset of the torque reading, in the sensor frame.
+    cutoff_Hz : float or None [Hz]
+        Cut-off of the first-order low-pass, > 0; ``None`` means no filter
+        (0 and inf are rejected, so "no filter" has one spelling).
+        Default 200 Hz (common practice).
+    delay_ticks : int
+        Pure transport delay, in control ticks, >= 0.  Default 1.
+    """
+
+    noise_std_N: float = 0.3
+    noise_std_Nm: float = 0.01
+    bias_N: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    bias_Nm: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    cutoff_Hz: float | None = 200.0
+    delay_ticks: int = 1
+
+    def __post_init__(self) -> None:
+        o = "ForceSensorParams"
+        object.__setattr__(self, "noise_std_N", nonnegative(o, "noise_std_N", self.noise_std_N, "N"))
+        object.__setattr__(self, "noise_std_Nm", nonnegative(o, "noise_std_Nm", self.noise_std_Nm, "N m"))
+        object.__setattr__(self, "bias_N", vector(o, "bias_N", self.bias_N, 3))
+        object.__setattr__(self, "bias_Nm", vector(o, "bias_Nm", self.bias_Nm, 3))
+        if self.cutoff_Hz is not None:
+            object.__setattr__(
+                self, "cutoff_Hz", positive(o, "cutoff_Hz", self.cutoff_Hz, "Hz (or None for no filter)")
+            )
+        d = self.delay_ticks
+        try:
+            di = operator.index(d)
+        except TypeError as e:
+            raise ParameterError(f"{o}.delay_ticks must be an integer >= 0, got {d!r}") from e
+        if di < 0 or isinstance(d, bool):
+            raise ParameterError(f"{o}.delay_ticks must be an integer >= 0, got {d!r}")
+        object.__setattr__(self, "delay_ticks", di)
+
+
+class ForceTorqueSensor:
+    """A 6-axis force/torque sensor sampled every control tick.
+
+    With the true wrench :math:`w_k = [f; \\tau]` in the sensor frame, bias
+    b, noise standard deviations :math:`\\sigma` (per axis) and
+    :math:`n_k \\sim \\mathcal N(0, I_6)` drawn from ``rng``:
+
+    .. math::
+        u_k = w_k + b + \\sigma \\circ n_k, \\qquad
+        y_k = y_{k-1} + \\alpha (u_k - y_{k-1}), \\qquad
+        \\text{output}_k = y_{k - d},
+
+    with the gain :math:`\\alpha` of the module docstring (:math:`y_k = u_k`
+    when ``cutoff_Hz`` is None) and d = ``delay_ticks``.
+
+    Parameters
+    ----------
+    params : ForceSensorParams
+    dt_s : float [s]
+        Control tick, > 0.
+    rng : numpy.random.Generator
+        Source of the noise.
+
+    Notes
+    -----
+    Start-up: on the first tick after :meth:`reset` the filter state is set
+    to that tick's noisy sample :math:`u_0` (a real sensor has been running
+    long before the first reading, so no transient from zero), i.e.
+    :math:`y_0 = u_0`, and the delay line is filled with it: for
+    :math:`k < d` the output is :math:`y_0`.
+    """
+
+    def __init__(self, params: ForceSensorParams, dt_s: float, rng: np.random.Generator) -> None:
+        o = "ForceTorqueSensor"
+        if not isinstance(params, ForceSensorParams):
+            raise ParameterError(f"{o}.params must be a ForceSensorParams, got {params!r}")
+        self.params = params
+        self.dt_s = positive(o, "dt_s", dt_s, "s")
+        self._rng = _check_rng(o, rng)
+        self._alpha = 1.0 if params.cutoff_Hz is None else lowpass_alpha(params.cutoff_Hz, self.dt_s)  # unused if None
+        self._bias = np.array(params.bias_N + params.bias_Nm)
+        self._std = np.array((params.noise_std_N,) * 3 + (params.noise_std_Nm,) * 3)
+        self._noisy = bool(np.any(self._std > 0.0))
+        self._u = np.zeros(6)
+        self._noise = np.zeros(6)
+        self._y = np.zeros(6)
+        self._tmp = np.zeros(6)
+        self._line = np.zeros((params.delay_ticks, 6))
+        self.reset()
+
+    def reset(self) -> None:
+        """Forget the filter state and the delay line; the next sample restarts them."""
+        self._y.fill(0.0)
+        self._line.fill(0.0)
+        self._head = 0
+        self._started = False
+
+    def measure(self, wrench_true: Sequence[float] | np.ndarray) -> np.ndarray:
+        """One tick of sensing.
+
+        Parameters
+        ----------
+        wrench_true : (6,) array_like [N, N m]
+            True wrench ``[f; tau]`` in the sensor frame.
+
+        Returns
+        -------
+        (6,) ndarray [N, N m]
+            The measured wrench, a read-only copy.
+        """
+        w = _check_signal("ForceTorqueSensor", "measure wrench_true", wrench_true, (6,))
+        np.add(w, self._bias, out=self._u)
+        if self._noisy:
+            self._rng.standard_normal(out=self._noise)
+            self._noise *= self._std
+            self._u += self._noise
+        if not self._started:
+            self._y[:] = self._u
+            self._line[:] = self._u
+            self._started = True
+        elif self.params.cutoff_Hz is None:
+            self._y[:] = self._u
+        else:
+            np.subtract(self._u, self._y, out=self._tmp)
+            self._tmp *= self._alpha
+            self._y += self._tmp
+        if self._line.shape[0] == 0:
+            return _readonly(self._y)
+        out = _readonly(self._line[self._head])
+        self._line[self._head] = self._y
+        self._head = (self._head + 1) % self._line.shape[0]
+        return out
