@@ -1,0 +1,694 @@
+"""Columnar run logs, written chunk by chunk while a simulation runs.
+
+A run folder looks like this::
+
+    meta.json                  status, column shapes/dtypes, chunk size, user metadata
+    metrics.json               optional, written by :meth:`RunLog.close`
+    log/chunk_000000.npz       ticks 0 .. chunk_ticks-1, one ``.npy`` entry per column
+    log/chunk_000001.npz       ...
+
+Every tick is one row of every column.  :class:`RunLog` keeps one preallocated
+buffer of ``chunk_ticks`` rows per column; a full buffer is written as one chunk
+file and then reused, so a crash loses at most the ticks of the current chunk.
+``meta.json`` is written when the log is created (``"status": "running"``) and
+rewritten by :meth:`RunLog.close` with the final status, so a folder whose
+status is still ``"running"`` is the trace of a process that died.
+
+Design notes
+------------
+* **Atomic files.**  Each chunk and each JSON file is written under a ``.tmp``
+  name in the same directory and moved into place with :func:`os.replace`, so a
+  reader never sees half a file.  This protects against the process dying; it
+  does not ``fsync`` and so gives no guarantee against power loss.
+* **Bit-for-bit determinism.**  Chunks are written with :mod:`zipfile` and
+  :func:`numpy.lib.format.write_array` -- the layout of an uncompressed
+  :func:`numpy.savez` archive, ``allow_pickle=False`` -- with every zip entry
+  stamped with a fixed date (1980-01-01).  :func:`numpy.savez` happens to get
+  the same fixed date from :class:`zipfile.ZipInfo`'s default on current
+  CPython; setting it explicitly makes "same data, same bytes" a property of
+  this module rather than of that implementation detail.  Chunks load with
+  ``numpy.load(..., allow_pickle=False)``.
+* **JSON policy.**  Metadata and metrics are converted to plain JSON (numpy
+  scalars and arrays, tuples and relative :class:`~pathlib.PurePath` objects are
+  converted).  Non-finite numbers (NaN, inf), absolute paths and
+  non-serialisable objects are *rejected* with a :class:`RunLogError` naming the
+  key, rather than stored as strings, so that ``meta.json`` stays strict JSON and
+  a NaN never hides in a parameter record.  No timestamps are added, so
+  ``meta.json`` is deterministic too.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+import math
+import os
+import platform
+import re
+import subprocess
+import zipfile
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from importlib import import_module
+from importlib import metadata as importlib_metadata
+from pathlib import Path, PurePath
+from types import TracebackType
+from typing import Any
+
+import numpy as np
+from numpy.typing import DTypeLike
+
+from models.errors import SandboxError
+
+__all__ = [
+    "RunLogError",
+    "RunLog",
+    "Run",
+    "load_run",
+    "environment_metadata",
+]
+
+_log = logging.getLogger(__name__)
+
+FORMAT_VERSION = 1
+"""Version of the run-folder layout, stored in ``meta.json`` as ``format_version``."""
+
+META_FILE = "meta.json"
+METRICS_FILE = "metrics.json"
+CHUNK_DIR = "log"
+_CHUNK_RE = re.compile(r"^chunk_(\d{6})\.npz$")
+_FINAL_STATUSES = ("complete", "failed", "interrupted")
+_RESERVED_META_KEYS = frozenset(
+    {"format_version", "status", "reason", "columns", "chunk_ticks", "ticks", "chunks"}
+)
+_ALLOWED_DTYPE_KINDS = "biufc"  # bool, signed/unsigned int, float, complex
+_ZIP_DATE_TIME = (1980, 1, 1, 0, 0, 0)  # earliest DOS timestamp: fixed for determinism
+_GIT_TIMEOUT_S = 2.0
+#: Reported name -> installed distribution whose version is read (without importing it).
+_VERSIONED_MODULES = {"numpy": "numpy", "pinocchio": "pin", "qpsolvers": "qpsolvers", "osqp": "osqp",
+                      "meshcat": "meshcat", "mujoco": "mujoco"}
+
+ColumnSpec = tuple[int, ...] | tuple[tuple[int, ...], DTypeLike]
+
+
+class RunLogError(SandboxError, RuntimeError):
+    """A run log cannot be written or read as asked (bad column, folder or file)."""
+
+
+# ----------------------------------------------------------------------------------------------
+# helpers: columns, JSON, atomic files
+# ----------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Column:
+    shape: tuple[int, ...]
+    dtype: np.dtype
+
+    def to_json(self) -> dict[str, Any]:
+        return {"shape": list(self.shape), "dtype": self.dtype.name}
+
+
+def _parse_shape(name: str, shape: Any) -> tuple[int, ...]:
+    if not isinstance(shape, (tuple, list)):
+        raise RunLogError(
+            f"column {name!r}: shape must be a tuple of non-negative ints such as () or (7,), got {shape!r}"
+        )
+    dims = []
+    for d in shape:
+        if isinstance(d, (bool, np.bool_)) or not isinstance(d, (int, np.integer)) or d < 0:
+            raise RunLogError(f"column {name!r}: shape dimensions must be non-negative ints, got {tuple(shape)!r}")
+        dims.append(int(d))
+    return tuple(dims)
+
+
+def _parse_dtype(name: str, dtype: Any) -> np.dtype:
+    try:
+        dt = np.dtype(dtype)
+    except TypeError as e:
+        raise RunLogError(f"column {name!r}: {dtype!r} is not a numpy dtype") from e
+    if dt.kind not in _ALLOWED_DTYPE_KINDS or dt.fields is not None or dt.subdtype is not None:
+        raise RunLogError(
+            f"column {name!r}: dtype must be bool, integer, float or complex, got {dt.name!r}"
+        )
+    return dt.newbyteorder("=")
+
+
+def _parse_column(name: Any, spec: Any) -> _Column:
+    if not isinstance(name, str) or not name.isidentifier():
+        raise RunLogError(f"column name must be a Python identifier (it is a keyword of append), got {name!r}")
+    is_pair = (
+        isinstance(spec, (tuple, list))
+        and len(spec) == 2
+        and isinstance(spec[0], (tuple, list))
+        and not isinstance(spec[1], (int, np.integer))
+    )
+    if is_pair:
+        return _Column(_parse_shape(name, spec[0]), _parse_dtype(name, spec[1]))
+    return _Column(_parse_shape(name, spec), np.dtype(np.float64))
+
+
+def _columns_from_meta(meta: Mapping[str, Any], where: str) -> dict[str, _Column]:
+    cols = meta.get("columns")
+    if not isinstance(cols, Mapping) or not cols:
+        raise RunLogError(f"{where} has no 'columns' table")
+    out = {}
+    for name, spec in cols.items():
+        if not isinstance(spec, Mapping) or "shape" not in spec or "dtype" not in spec:
+            raise RunLogError(f"{where}: column {name!r} needs 'shape' and 'dtype', got {spec!r}")
+        out[name] = _Column(_parse_shape(name, spec["shape"]), _parse_dtype(name, spec["dtype"]))
+    return out
+
+
+def _to_json(value: Any, where: str) -> Any:
+    """Return ``value`` as plain JSON types, or raise naming ``where``."""
+    if value is None or isinstance(value, (bool, str)):
+        return value
+    if isinstance(value, np.bool_):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        if not math.isfinite(value):
+            raise RunLogError(f"{where} must be finite (NaN and inf are not stored), got {value!r}")
+        return float(value)
+    if isinstance(value, np.ndarray):
+        if value.dtype.kind not in "biuf":
+            raise RunLogError(f"{where} is an array of dtype {value.dtype.name!r}; only bool/int/float are stored")
+        return _to_json(value.tolist(), where)
+    if isinstance(value, PurePath):
+        if value.is_absolute():
+            raise RunLogError(f"{where} is an absolute path; store paths relative to the run or not at all")
+        return value.as_posix()
+    if isinstance(value, Mapping):
+        out = {}
+        for k, v in value.items():
+            if not isinstance(k, str):
+                raise RunLogError(f"{where} has a non-string key {k!r}; JSON keys must be strings")
+            out[k] = _to_json(v, f"{where}[{k!r}]")
+        return out
+    if isinstance(value, (list, tuple)):
+        return [_to_json(v, f"{where}[{i}]") for i, v in enumerate(value)]
+    raise RunLogError(f"{where} is not JSON-serialisable (type {type(value).__name__})")
+
+
+def _atomic_write_bytes(path: Path, data: bytes) -> None:
+    tmp = path.with_name(path.name + ".tmp")
+    tmp.write_bytes(data)
+    os.replace(tmp, path)
+
+
+def _write_json(path: Path, obj: Mapping[str, Any]) -> None:
+    text = json.dumps(obj, indent=2, allow_nan=False) + "\n"
+    _atomic_write_bytes(path, text.encode("utf-8"))
+
+
+def _write_npz(path: Path, arrays: Mapping[str, np.ndarray]) -> None:
+    """Write ``arrays`` as an uncompressed ``.npz`` with fixed timestamps, atomically."""
+    tmp = path.with_name(path.name + ".tmp")
+    with zipfile.ZipFile(tmp, mode="w", compression=zipfile.ZIP_STORED, allowZip64=True) as zf:
+        for name, arr in arrays.items():
+            info = zipfile.ZipInfo(name + ".npy", date_time=_ZIP_DATE_TIME)
+            info.compress_type = zipfile.ZIP_STORED
+            with zf.open(info, mode="w", force_zip64=True) as fh:
+                np.lib.format.write_array(fh, np.ascontiguousarray(arr), allow_pickle=False)
+    os.replace(tmp, path)
+
+
+def _chunk_name(index: int) -> str:
+    return f"chunk_{index:06d}.npz"
+
+
+# ----------------------------------------------------------------------------------------------
+# writer
+# ----------------------------------------------------------------------------------------------
+
+
+class RunLog:
+    """Append-only columnar log of one simulation run, written in chunks.
+
+    Parameters
+    ----------
+    folder : str or pathlib.Path
+        Run folder.  Created if missing; refused if it exists and is not empty.
+    columns : Mapping[str, shape or (shape, dtype)]
+        Column name -> per-tick shape, e.g. ``{"t": (), "q_exo": (7,),
+        "cuff_wrench_true": (3, 6)}`` (float64), or a ``(shape, dtype)`` pair
+        for other dtypes, e.g. ``{"sat": ((7,), "bool"), "iters": ((), "int64")}``.
+        Allowed dtypes: bool, integers, floats, complex.  Names must be Python
+        identifiers.  Column ``c`` is read back with shape ``(ticks, *shape_c)``.
+    chunk_ticks : int, optional
+        Rows per chunk file [ticks], >= 1.  Default 1000.
+    metadata : Mapping, optional
+        Extra JSON-serialisable entries merged into ``meta.json`` (seed,
+        parameters, :func:`environment_metadata`, ...).  numpy scalars/arrays,
+        tuples and relative paths are converted; NaN/inf, absolute paths and
+        the reserved keys ``format_version, status, reason, columns,
+        chunk_ticks, ticks, chunks`` are rejected.
+
+    Raises
+    ------
+    RunLogError
+        If a column spec, ``chunk_ticks`` or ``metadata`` is invalid, or the
+        folder is a file or is not empty.
+
+    Notes
+    -----
+    Memory: one buffer of ``chunk_ticks`` rows per column.  :meth:`append`
+    copies each value into its row and allocates nothing else for ndarray
+    inputs.  As a context manager the log closes itself: ``"complete"`` on
+    normal exit, ``"failed"`` on an exception, ``"interrupted"`` on
+    ``KeyboardInterrupt`` (or another non-``Exception`` such as ``SystemExit``);
+    the exception is re-raised.
+
+    Examples
+    --------
+    >>> with RunLog("runs/r1", {"t": (), "q": (7,)}, metadata={"seed": 3}) as log:  # doctest: +SKIP
+    ...     for k in range(n):
+    ...         log.append(t=k * dt_s, q=state.q)
+    """
+
+    def __init__(
+        self,
+        folder: str | os.PathLike[str],
+        columns: Mapping[str, ColumnSpec],
+        *,
+        chunk_ticks: int = 1000,
+        metadata: Mapping[str, Any] | None = None,
+    ) -> None:
+        if isinstance(chunk_ticks, (bool, np.bool_)) or not isinstance(chunk_ticks, (int, np.integer)):
+            raise RunLogError(f"chunk_ticks must be an int >= 1, got {chunk_ticks!r}")
+        if chunk_ticks < 1:
+            raise RunLogError(f"chunk_ticks must be an int >= 1, got {chunk_ticks}")
+        if not isinstance(columns, Mapping) or not columns:
+            raise RunLogError(f"columns must be a non-empty mapping of name -> shape, got {columns!r}")
+        self._columns = {name: _parse_column(name, spec) for name, spec in columns.items()}
+        self._chunk_ticks = int(chunk_ticks)
+
+        extra = {}
+        if metadata is not None:
+            if not isinstance(metadata, Mapping):
+                raise RunLogError(f"metadata must be a mapping, got {type(metadata).__name__}")
+            clash = sorted(set(metadata) & _RESERVED_META_KEYS)
+            if clash:
+                raise RunLogError(f"metadata keys {clash} are reserved by the run log; rename them")
+            extra = _to_json(metadata, "metadata")
+
+        self._folder = Path(folder)
+        if self._folder.exists():
+            if not self._folder.is_dir():
+                raise RunLogError(f"run folder {str(self._folder)!r} exists and is not a directory")
+            if any(self._folder.iterdir()):
+                what = "already contains a run" if (self._folder / META_FILE).exists() else "is not empty"
+                raise RunLogError(f"run folder {str(self._folder)!r} {what}; choose a new or empty folder")
+        (self._folder / CHUNK_DIR).mkdir(parents=True, exist_ok=True)
+
+        self._meta: dict[str, Any] = {
+            "format_version": FORMAT_VERSION,
+            "status": "running",
+            "columns": {name: col.to_json() for name, col in self._columns.items()},
+            "chunk_ticks": self._chunk_ticks,
+            **extra,
+        }
+        _write_json(self._folder / META_FILE, self._meta)
+
+        self._buffers = {
+            name: np.empty((self._chunk_ticks, *col.shape), dtype=col.dtype) for name, col in self._columns.items()
+        }
+        self._row = 0
+        self._ticks = 0
+        self._chunks = 0
+        self._closed = False
+
+    # -- properties ------------------------------------------------------------------------------
+
+    @property
+    def folder(self) -> Path:
+        """pathlib.Path : the run folder, as given."""
+        return self._folder
+
+    @property
+    def ticks(self) -> int:
+        """int : number of ticks appended so far [ticks] (written or buffered)."""
+        return self._ticks
+
+    @property
+    def column_names(self) -> tuple[str, ...]:
+        """tuple of str : the column names, in the order given."""
+        return tuple(self._columns)
+
+    # -- writing ---------------------------------------------------------------------------------
+
+    def append(self, /, **values: Any) -> None:
+        """Append one tick: one value for every column.
+
+        Parameters
+        ----------
+        **values : array_like
+            ``name=value`` for every column exactly once; ``value`` has the
+            column's per-tick shape and a dtype that casts to the column's
+            dtype within its kind (e.g. int -> float is accepted, float -> int
+            or float -> bool is not).
+
+        Raises
+        ------
+        RunLogError
+            Naming the column, if a column is missing, unknown, has the wrong
+            shape or an incompatible dtype; or if the log is closed.  On error
+            nothing of this tick is stored.
+        """
+        if self._closed:
+            raise RunLogError(f"run log {str(self._folder)!r} is closed; cannot append")
+        if values.keys() != self._columns.keys():
+            unknown = sorted(set(values) - set(self._columns))
+            if unknown:
+                raise RunLogError(f"unknown column(s) {unknown}; the columns are {list(self._columns)}")
+            missing = [n for n in self._columns if n not in values]
+            raise RunLogError(f"missing column(s) {missing} in append; every column must be given once per tick")
+        arrays = {}
+        for name, col in self._columns.items():
+            arr = np.asarray(values[name])
+            if arr.shape != col.shape:
+                raise RunLogError(f"column {name!r} expects shape {col.shape}, got {arr.shape}")
+            if not np.can_cast(arr.dtype, col.dtype, casting="same_kind"):
+                raise RunLogError(f"column {name!r} has dtype {col.dtype.name}, cannot store a {arr.dtype.name} value")
+            arrays[name] = arr
+        if self._row == self._chunk_ticks:  # a previous chunk write failed: retry before overwriting
+            self._write_chunk()
+        row = self._row
+        for name, arr in arrays.items():
+            self._buffers[name][row] = arr
+        self._row += 1
+        self._ticks += 1
+        if self._row == self._chunk_ticks:
+            self._write_chunk()
+
+    def _write_chunk(self) -> None:
+        path = self._folder / CHUNK_DIR / _chunk_name(self._chunks)
+        rows = self._row
+        try:
+            _write_npz(path, {name: buf[:rows] for name, buf in self._buffers.items()})
+        except OSError as e:
+            raise RunLogError(f"could not write chunk file {str(path)!r}: {e}") from e
+        _log.debug("wrote %s (%d ticks)", path.name, rows)
+        self._chunks += 1
+        self._row = 0
+
+    def close(
+        self,
+        status: str = "complete",
+        reason: str | None = None,
+        metrics: Mapping[str, Any] | None = None,
+    ) -> None:
+        """Flush the partial chunk and record the final status.  Idempotent.
+
+        Parameters
+        ----------
+        status : {"complete", "failed", "interrupted"}, optional
+            Final status stored in ``meta.json``.
+        reason : str, optional
+            Why the run ended that way (e.g. ``"QPSolveError: level 2 infeasible"``).
+        metrics : Mapping, optional
+            Summary metrics, written to ``metrics.json`` (same JSON policy as
+            ``metadata``: NaN/inf rejected naming the key).
+
+        Raises
+        ------
+        RunLogError
+            If ``status`` is unknown or ``metrics`` is not storable; the log
+            then stays open so the call can be repeated.
+
+        Notes
+        -----
+        Files are written in the order: last chunk, ``metrics.json``,
+        ``meta.json``, so a final status on disk implies the rest is there.
+        A second call does nothing (its arguments are ignored).
+        """
+        if self._closed:
+            _log.debug("run log %s already closed; close(%r) ignored", self._folder, status)
+            return
+        if status not in _FINAL_STATUSES:
+            raise RunLogError(f"status must be one of {list(_FINAL_STATUSES)}, got {status!r}")
+        if reason is not None and not isinstance(reason, str):
+            raise RunLogError(f"reason must be a str or None, got {type(reason).__name__}")
+        metrics_json = None if metrics is None else _to_json(metrics, "metrics")
+        if metrics_json is not None and not isinstance(metrics_json, dict):
+            raise RunLogError(f"metrics must be a mapping, got {type(metrics).__name__}")
+        if self._row > 0:
+            self._write_chunk()
+        if metrics_json is not None:
+            _write_json(self._folder / METRICS_FILE, metrics_json)
+        self._meta.update(status=status, reason=reason, ticks=self._ticks, chunks=self._chunks)
+        _write_json(self._folder / META_FILE, self._meta)
+        self._closed = True
+
+    # -- context manager -------------------------------------------------------------------------
+
+    def __enter__(self) -> RunLog:
+        if self._closed:
+            raise RunLogError(f"run log {str(self._folder)!r} is closed")
+        return self
+
+    def __exit__(
+        self,
+        exc_type: type[BaseException] | None,
+        exc: BaseException | None,
+        tb: TracebackType | None,
+    ) -> bool:
+        if exc is None:
+            self.close("complete")
+        else:
+            status = "failed" if isinstance(exc, Exception) else "interrupted"
+            self.close(status, reason=_one_line(exc))
+        return False
+
+    def __repr__(self) -> str:
+        state = "closed" if self._closed else "open"
+        return f"RunLog({str(self._folder)!r}, columns={list(self._columns)}, ticks={self._ticks}, {state})"
+
+
+def _one_line(exc: BaseException) -> str:
+    """``"ExcType: message"`` on one line (just ``"ExcType"`` if the message is empty)."""
+    message = " ".join(str(exc).split())
+    name = type(exc).__name__
+    return f"{name}: {message}" if message else name
+
+
+# ----------------------------------------------------------------------------------------------
+# reader
+# ----------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Run:
+    """A run read back from disk by :func:`load_run`.
+
+    Attributes
+    ----------
+    arrays : dict of str -> ndarray
+        Column ``c`` as one array of shape ``(ticks, *shape_c)``, all chunks
+        concatenated in order, with the column's dtype.
+    meta : dict
+        Contents of ``meta.json``.
+    metrics : dict
+        Contents of ``metrics.json``; empty if there is none.
+    complete : bool
+        True iff ``meta["status"] == "complete"``.
+    """
+
+    arrays: dict[str, np.ndarray]
+    meta: dict[str, Any]
+    metrics: dict[str, Any] = field(default_factory=dict)
+    complete: bool = False
+
+    @property
+    def ticks(self) -> int:
+        """int : number of ticks read [ticks]."""
+        return len(next(iter(self.arrays.values())))
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        """Return ``arrays[name]``; KeyError lists the columns."""
+        try:
+            return self.arrays[name]
+        except KeyError:
+            raise KeyError(f"no column {name!r} in this run; the columns are {list(self.arrays)}") from None
+
+
+def _read_json(path: Path) -> dict[str, Any]:
+    try:
+        obj = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, ValueError) as e:
+        raise RunLogError(f"cannot read {str(path)!r}: {e}") from e
+    if not isinstance(obj, dict):
+        raise RunLogError(f"{str(path)!r} must hold a JSON object, got {type(obj).__name__}")
+    return obj
+
+
+def _read_chunk(path: Path, columns: Mapping[str, _Column]) -> dict[str, np.ndarray]:
+    try:
+        with np.load(path, allow_pickle=False) as npz:
+            if not isinstance(npz, np.lib.npyio.NpzFile):
+                raise RunLogError(f"chunk file {str(path)!r} is not an .npz archive")
+            extra = sorted(set(npz.files) - set(columns))
+            if extra:
+                raise RunLogError(f"chunk file {str(path)!r} holds unexpected arrays {extra}")
+            out = {}
+            for name in columns:
+                if name not in npz.files:
+                    raise RunLogError(f"chunk file {str(path)!r} has no column {name!r}")
+                out[name] = npz[name]
+    except RunLogError:
+        raise
+    except (OSError, ValueError, EOFError, KeyError, zipfile.BadZipFile) as e:
+        raise RunLogError(f"chunk file {str(path)!r} is corrupt or truncated: {type(e).__name__}: {e}") from e
+    rows = {len(a) if a.ndim else -1 for a in out.values()}
+    for name, arr in out.items():
+        col = columns[name]
+        if arr.ndim == 0 or arr.shape[1:] != col.shape or arr.dtype != col.dtype:
+            raise RunLogError(
+                f"chunk file {str(path)!r}: column {name!r} has shape {arr.shape} and dtype {arr.dtype.name},"
+                f" expected (ticks, *{col.shape}) and {col.dtype.name}"
+            )
+    if len(rows) != 1:
+        raise RunLogError(f"chunk file {str(path)!r}: columns have different tick counts {sorted(rows)}")
+    return out
+
+
+def load_run(path: str | os.PathLike[str]) -> Run:
+    """Read a run folder written by :class:`RunLog`.
+
+    Works on finished and unfinished runs: for a run whose status is still
+    ``"running"`` (the process died) or ``"failed"``, every chunk file on disk
+    is loaded.  Leftover ``*.tmp`` files (a chunk being written when the
+    process died) are ignored with a warning.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        The run folder.
+
+    Returns
+    -------
+    Run
+        The concatenated columns, ``meta.json``, ``metrics.json`` and whether
+        the run completed.
+
+    Raises
+    ------
+    RunLogError
+        If the folder or ``meta.json`` is missing or unreadable, a chunk file
+        is missing from the sequence, corrupt, truncated or inconsistent with
+        ``meta.json`` (the message names the file), or, for a closed run, the
+        tick/chunk counts on disk differ from those recorded.
+    """
+    root = Path(path)
+    if not root.is_dir():
+        raise RunLogError(f"no run folder at {str(root)!r}")
+    meta_path = root / META_FILE
+    if not meta_path.is_file():
+        raise RunLogError(f"{str(root)!r} is not a run folder: {META_FILE} is missing")
+    meta = _read_json(meta_path)
+    columns = _columns_from_meta(meta, str(meta_path))
+    chunk_ticks = meta.get("chunk_ticks")
+    if isinstance(chunk_ticks, bool) or not isinstance(chunk_ticks, int) or chunk_ticks < 1:
+        raise RunLogError(f"{str(meta_path)!r}: chunk_ticks must be an int >= 1, got {chunk_ticks!r}")
+
+    chunk_dir = root / CHUNK_DIR
+    indices = []
+    if chunk_dir.is_dir():
+        for entry in sorted(chunk_dir.iterdir()):
+            m = _CHUNK_RE.match(entry.name)
+            if m:
+                indices.append(int(m.group(1)))
+            elif entry.name.endswith(".tmp"):
+                _log.warning("ignoring unfinished file %s", entry.name)
+    indices.sort()
+    for expected, found in enumerate(indices):
+        if found != expected:
+            raise RunLogError(f"chunk file {str(chunk_dir / _chunk_name(expected))!r} is missing")
+
+    parts: dict[str, list[np.ndarray]] = {name: [] for name in columns}
+    for i in indices:
+        chunk_path = chunk_dir / _chunk_name(i)
+        chunk = _read_chunk(chunk_path, columns)
+        n = len(next(iter(chunk.values())))
+        if i < len(indices) - 1 and n != chunk_ticks:
+            raise RunLogError(f"chunk file {str(chunk_path)!r} has {n} ticks; all but the last must have {chunk_ticks}")
+        for name, arr in chunk.items():
+            parts[name].append(arr)
+    arrays = {
+        name: np.concatenate(parts[name]) if parts[name] else np.empty((0, *col.shape), dtype=col.dtype)
+        for name, col in columns.items()
+    }
+
+    status = meta.get("status")
+    if status in _FINAL_STATUSES:
+        ticks = len(next(iter(arrays.values())))
+        if meta.get("chunks") != len(indices) or meta.get("ticks") != ticks:
+            raise RunLogError(
+                f"{str(root)!r}: meta.json records {meta.get('chunks')} chunks / {meta.get('ticks')} ticks,"
+                f" found {len(indices)} chunks / {ticks} ticks on disk"
+            )
+    metrics_path = root / METRICS_FILE
+    metrics = _read_json(metrics_path) if metrics_path.exists() else {}
+    return Run(arrays=arrays, meta=meta, metrics=metrics, complete=status == "complete")
+
+
+# ----------------------------------------------------------------------------------------------
+# environment
+# ----------------------------------------------------------------------------------------------
+
+
+def _module_version(name: str) -> str | None:
+    """Version of the module's distribution from the installed metadata, or of the module itself."""
+    try:
+        return str(importlib_metadata.version(_VERSIONED_MODULES[name]))
+    except importlib_metadata.PackageNotFoundError:
+        pass
+    try:  # e.g. pinocchio built from source, without the "pin" distribution
+        return str(import_module(name).__version__)
+    except Exception:  # a missing or broken optional install only means "no version"
+        return None
+
+
+def _git(*args: str) -> str | None:
+    try:
+        done = subprocess.run(
+            ["git", *args],
+            cwd=Path(__file__).resolve().parent,
+            capture_output=True,
+            text=True,
+            timeout=_GIT_TIMEOUT_S,
+            check=False,
+        )
+    except (OSError, subprocess.SubprocessError):
+        return None
+    return done.stdout if done.returncode == 0 else None
+
+
+def environment_metadata() -> dict[str, Any]:
+    """Describe the software environment of a run, for ``RunLog(metadata=...)``.
+
+    Returns
+    -------
+    dict
+        ``python`` (version string), ``machine`` and ``system`` (from
+        :mod:`platform`), the versions of ``numpy``, ``pinocchio``,
+        ``qpsolvers``, ``osqp``, ``meshcat`` and ``mujoco`` (None when not
+        importable), ``git_revision`` (``git rev-parse HEAD`` of the checkout
+        holding this file, None when unavailable) and ``git_dirty`` (True if
+        ``git status --porcelain`` reports changes, None when unavailable).
+        Holds no filesystem paths.  Each git call has a 2 s timeout.
+    """
+    env: dict[str, Any] = {
+        "python": platform.python_version(),
+        "machine": platform.machine(),
+        "system": platform.system(),
+    }
+    for name in _VERSIONED_MODULES:
+        env[name] = _module_version(name)
+    revision = _git("rev-parse", "HEAD")
+    env["git_revision"] = (revision.strip() or None) if revision is not None else None
+    status = _git("status", "--porcelain")
+    env["git_dirty"] = bool(status.strip()) if status is not None else None
+    return env

@@ -1,0 +1,315 @@
+"""Chunked columnar run logs: round trip, crash traces, strictness and determinism."""
+
+from __future__ import annotations
+
+import json
+import os
+import zipfile
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from models.errors import SandboxError
+from sim.runlog import RunLog, RunLogError, environment_metadata, load_run
+
+COLUMNS = {
+    "t": (),
+    "q_exo": (7,),
+    "cuff_wrench_true": (3, 6),
+    "sat": ((7,), "bool"),
+    "iters": ((), "int64"),
+}
+
+
+def _ticks(n: int, seed: int = 0) -> list[dict[str, np.ndarray]]:
+    """``n`` ticks of seeded data for :data:`COLUMNS`."""
+    rng = np.random.default_rng(seed)
+    q = rng.standard_normal((n, 7))
+    w = rng.standard_normal((n, 3, 6)) * 1e3
+    sat = rng.random((n, 7)) < 0.2
+    iters = rng.integers(0, 50, size=n)
+    return [
+        {"t": k * 1e-3, "q_exo": q[k], "cuff_wrench_true": w[k], "sat": sat[k], "iters": iters[k]}
+        for k in range(n)
+    ]
+
+
+def _stacked(ticks: list[dict[str, np.ndarray]]) -> dict[str, np.ndarray]:
+    return {name: np.array([tick[name] for tick in ticks]) for name in COLUMNS}
+
+
+def _chunk_files(folder) -> list[str]:
+    return sorted(p.name for p in (folder / "log").iterdir())
+
+
+def _meta(folder) -> dict:
+    return json.loads((folder / "meta.json").read_text(encoding="utf-8"))
+
+
+def test_2500_ticks_in_chunks_of_1000_round_trip_bit_identical(tmp_path):
+    ticks = _ticks(2500)
+    with RunLog(tmp_path / "run", COLUMNS, chunk_ticks=1000) as log:
+        for tick in ticks:
+            log.append(**tick)
+        assert log.ticks == 2500
+    assert _chunk_files(tmp_path / "run") == ["chunk_000000.npz", "chunk_000001.npz", "chunk_000002.npz"]
+    run = load_run(tmp_path / "run")
+    expected = _stacked(ticks)
+    assert run.complete and run.ticks == 2500
+    assert run.meta["ticks"] == 2500 and run.meta["chunks"] == 3 and run.meta["status"] == "complete"
+    for name, arr in expected.items():
+        assert run[name].shape == (2500, *arr.shape[1:])
+        assert np.array_equal(run[name], arr)
+    assert run["q_exo"].tobytes() == expected["q_exo"].tobytes()  # bit-identical floats
+    assert run["sat"].dtype == np.bool_ and run["iters"].dtype == np.int64 and run["t"].dtype == np.float64
+
+
+@pytest.mark.parametrize(
+    ("exc", "status", "reason"),
+    [
+        (ValueError("solver\ndiverged at t=1.5 s"), "failed", "ValueError: solver diverged at t=1.5 s"),
+        (KeyboardInterrupt(), "interrupted", "KeyboardInterrupt"),
+    ],
+)
+def test_exception_in_with_block_keeps_all_ticks_and_records_status(tmp_path, exc, status, reason):
+    ticks = _ticks(1500)
+    with pytest.raises(type(exc)):
+        with RunLog(tmp_path / "run", COLUMNS, chunk_ticks=1000) as log:
+            for tick in ticks:
+                log.append(**tick)
+            raise exc
+    assert _chunk_files(tmp_path / "run") == ["chunk_000000.npz", "chunk_000001.npz"]
+    meta = _meta(tmp_path / "run")
+    assert meta["status"] == status and meta["reason"] == reason
+    run = load_run(tmp_path / "run")
+    assert not run.complete
+    assert np.array_equal(run["cuff_wrench_true"], _stacked(ticks)["cuff_wrench_true"])
+
+
+def test_unclosed_log_stays_running_and_loads_finished_chunks(tmp_path):
+    ticks = _ticks(1500)
+    log = RunLog(tmp_path / "run", COLUMNS, chunk_ticks=1000)
+    for tick in ticks:
+        log.append(**tick)
+    del log  # the process "dies": no close
+    run = load_run(tmp_path / "run")
+    assert run.meta["status"] == "running" and not run.complete
+    assert run.ticks == 1000
+    assert np.array_equal(run["q_exo"], _stacked(ticks[:1000])["q_exo"])
+
+
+def test_leftover_temporary_chunk_is_ignored_on_load(tmp_path):
+    log = RunLog(tmp_path / "run", {"t": ()}, chunk_ticks=2)
+    for k in range(2):
+        log.append(t=float(k))
+    (tmp_path / "run" / "log" / "chunk_000001.npz.tmp").write_bytes(b"PK\x03\x04half a chunk")
+    assert np.array_equal(load_run(tmp_path / "run")["t"], [0.0, 1.0])
+
+
+def test_chunks_hold_no_pickles_and_meta_holds_converted_metadata(tmp_path):
+    metadata = {
+        "seed": np.int64(7),
+        "dt_s": np.float64(1e-3),
+        "gains": np.array([1.0, 2.5]),
+        "levels": ("contact", "posture"),
+        "urdf": Path("models") / "exo.urdf",
+    }
+    with RunLog(tmp_path / "run", COLUMNS, chunk_ticks=10, metadata=metadata) as log:
+        for tick in _ticks(25):
+            log.append(**tick)
+    for name in _chunk_files(tmp_path / "run"):
+        with np.load(tmp_path / "run" / "log" / name, allow_pickle=False) as npz:
+            assert sorted(npz.files) == sorted(COLUMNS)
+            assert all(npz[c].dtype != object for c in npz.files)
+    meta = _meta(tmp_path / "run")
+    assert meta["seed"] == 7 and meta["dt_s"] == 1e-3 and meta["gains"] == [1.0, 2.5]
+    assert meta["levels"] == ["contact", "posture"] and meta["urdf"] == "models/exo.urdf"
+    assert meta["columns"]["cuff_wrench_true"] == {"shape": [3, 6], "dtype": "float64"}
+    assert meta["columns"]["sat"] == {"shape": [7], "dtype": "bool"}
+    assert meta["chunk_ticks"] == 10
+    assert str(tmp_path) not in (tmp_path / "run" / "meta.json").read_text(encoding="utf-8")
+
+
+def test_meta_json_is_written_as_running_at_creation(tmp_path):
+    RunLog(tmp_path / "run", {"t": ()}, metadata={"scenario": "reach"})
+    meta = _meta(tmp_path / "run")
+    assert meta["status"] == "running" and meta["scenario"] == "reach"
+    assert meta["columns"] == {"t": {"shape": [], "dtype": "float64"}}
+
+
+def test_metrics_written_on_close_and_read_back(tmp_path):
+    log = RunLog(tmp_path / "run", {"t": ()})
+    log.append(t=0.0)
+    log.close(metrics={"peak_interaction_force_N": np.float64(12.5), "n_sat": 3})
+    assert load_run(tmp_path / "run").metrics == {"peak_interaction_force_N": 12.5, "n_sat": 3}
+    other = RunLog(tmp_path / "other", {"t": ()})
+    other.close()
+    assert load_run(tmp_path / "other").metrics == {}
+    assert load_run(tmp_path / "other")["t"].shape == (0,)
+
+
+def test_close_is_idempotent(tmp_path):
+    log = RunLog(tmp_path / "run", {"t": ()}, chunk_ticks=4)
+    for k in range(3):
+        log.append(t=float(k))
+    log.close("failed", reason="QPSolveError: infeasible")
+    before = (tmp_path / "run" / "meta.json").read_bytes()
+    log.close("complete")
+    assert (tmp_path / "run" / "meta.json").read_bytes() == before
+    assert _chunk_files(tmp_path / "run") == ["chunk_000000.npz"]
+
+
+def test_reentering_or_appending_after_close_is_refused(tmp_path):
+    log = RunLog(tmp_path / "run", {"t": ()})
+    log.close()
+    with pytest.raises(RunLogError, match="closed"):
+        log.append(t=1.0)
+    with pytest.raises(RunLogError, match="closed"):
+        log.__enter__()
+
+
+def test_environment_metadata_has_keys_and_no_paths():
+    env = environment_metadata()
+    expected = {"python", "machine", "system", "numpy", "pinocchio", "qpsolvers", "osqp", "meshcat", "mujoco"}
+    assert expected | {"git_revision", "git_dirty"} <= set(env)
+    assert env["numpy"] == np.__version__
+    assert env["git_dirty"] in (True, False, None)
+    for key, value in env.items():
+        assert value is None or isinstance(value, (str, bool)), key
+        if isinstance(value, str):
+            assert not value.startswith(os.sep) and not os.path.isabs(value), key
+    json.dumps(env)  # storable as metadata
+
+
+_OK = {"t": 0.0, "q": np.zeros(7), "sat": np.zeros(7, dtype=bool)}
+
+
+@pytest.mark.parametrize(
+    ("values", "match"),
+    [
+        ({**_OK, "q": np.zeros(6)}, "column 'q' expects shape \\(7,\\), got \\(6,\\)"),
+        ({**_OK, "q": 1.0}, "column 'q' expects shape \\(7,\\), got \\(\\)"),
+        ({"q": np.zeros(7), "sat": np.zeros(7, dtype=bool)}, "missing column\\(s\\) \\['t'\\]"),
+        ({**_OK, "tau": np.zeros(7)}, "unknown column\\(s\\) \\['tau'\\]"),
+        ({**_OK, "sat": np.full(7, 0.5)}, "column 'sat' has dtype bool"),
+    ],
+    ids=["wrong-shape", "scalar-for-vector", "missing", "unknown", "float-into-bool"],
+)
+def test_bad_append_names_the_column_and_stores_nothing(tmp_path, values, match):
+    log = RunLog(tmp_path / "run", {"t": (), "q": (7,), "sat": ((7,), bool)}, chunk_ticks=2)
+    with pytest.raises(RunLogError, match=match):
+        log.append(**values)
+    assert log.ticks == 0
+    log.append(t=1.0, q=np.ones(7), sat=np.ones(7, dtype=bool))
+    log.close()
+    assert np.array_equal(load_run(tmp_path / "run")["t"], [1.0])
+
+
+def test_run_log_error_is_a_sandbox_error():
+    assert issubclass(RunLogError, SandboxError) and issubclass(RunLogError, RuntimeError)
+
+
+def test_non_empty_folder_is_refused_and_empty_one_accepted(tmp_path):
+    RunLog(tmp_path / "run", {"t": ()}).close()
+    with pytest.raises(RunLogError, match="run.*already contains a run"):
+        RunLog(tmp_path / "run", {"t": ()})
+    (tmp_path / "notes").mkdir()
+    (tmp_path / "notes" / "todo.txt").write_text("x")
+    with pytest.raises(RunLogError, match="notes.*not empty"):
+        RunLog(tmp_path / "notes", {"t": ()})
+    (tmp_path / "empty").mkdir()
+    log = RunLog(tmp_path / "empty", {"t": ()})
+    assert log.folder == tmp_path / "empty" and log.column_names == ("t",)
+
+
+@pytest.mark.parametrize(
+    ("columns", "kwargs", "match"),
+    [
+        ({"q": (-1,)}, {}, "column 'q': shape"),
+        ({"q": 7}, {}, "column 'q': shape"),
+        ({"q": ((7,), object)}, {}, "column 'q': dtype"),
+        ({"not a name": ()}, {}, "identifier"),
+        ({}, {}, "non-empty"),
+        ({"t": ()}, {"chunk_ticks": 0}, "chunk_ticks"),
+        ({"t": ()}, {"metadata": {"gain": float("nan")}}, "metadata\\['gain'\\] must be finite"),
+        ({"t": ()}, {"metadata": {"p": {"k": [1.0, np.inf]}}}, "metadata\\['p'\\]\\['k'\\]\\[1\\] must be finite"),
+        ({"t": ()}, {"metadata": {"status": "ok"}}, "reserved"),
+        ({"t": ()}, {"metadata": {"obj": object()}}, "metadata\\['obj'\\] is not JSON"),
+    ],
+)
+def test_invalid_columns_or_metadata_are_rejected_before_writing(tmp_path, columns, kwargs, match):
+    with pytest.raises(RunLogError, match=match):
+        RunLog(tmp_path / "run", columns, **kwargs)
+    assert not (tmp_path / "run").exists()
+
+
+def test_absolute_path_in_metadata_is_rejected(tmp_path):
+    with pytest.raises(RunLogError, match="metadata\\['urdf'\\] is an absolute path"):
+        RunLog(tmp_path / "run", {"t": ()}, metadata={"urdf": tmp_path / "exo.urdf"})
+
+
+def test_non_finite_metrics_are_rejected_and_log_stays_open(tmp_path):
+    log = RunLog(tmp_path / "run", {"t": ()})
+    with pytest.raises(RunLogError, match="metrics\\['rms_N'\\] must be finite"):
+        log.close(metrics={"rms_N": float("nan")})
+    with pytest.raises(RunLogError, match="status must be one of"):
+        log.close("done")
+    log.append(t=0.0)
+    log.close(metrics={"rms_N": 0.0})
+    assert load_run(tmp_path / "run").complete
+
+
+def test_same_data_gives_byte_identical_files(tmp_path):
+    for name in ("a", "b"):
+        with RunLog(tmp_path / name, COLUMNS, chunk_ticks=100, metadata={"seed": 3}) as log:
+            for tick in _ticks(250, seed=3):
+                log.append(**tick)
+    files = _chunk_files(tmp_path / "a")
+    assert files == _chunk_files(tmp_path / "b") and len(files) == 3
+    for f in files:
+        assert (tmp_path / "a" / "log" / f).read_bytes() == (tmp_path / "b" / "log" / f).read_bytes()
+        assert {i.date_time for i in zipfile.ZipFile(tmp_path / "a" / "log" / f).infolist()} == {(1980, 1, 1, 0, 0, 0)}
+    assert (tmp_path / "a" / "meta.json").read_bytes() == (tmp_path / "b" / "meta.json").read_bytes()
+
+
+def test_load_missing_folder_or_meta_names_the_path(tmp_path):
+    with pytest.raises(RunLogError, match="no run folder.*nowhere"):
+        load_run(tmp_path / "nowhere")
+    (tmp_path / "bare").mkdir()
+    with pytest.raises(RunLogError, match="bare.*meta.json is missing"):
+        load_run(tmp_path / "bare")
+
+
+@pytest.mark.parametrize(
+    "damage",
+    [
+        lambda b: b[: len(b) // 2],  # truncated mid-write by something else
+        lambda b: b"",  # empty file
+        lambda b: b[:200] + bytes(x ^ 0xFF for x in b[200:260]) + b[260:],  # flipped payload bytes
+    ],
+    ids=["truncated", "empty", "bit-flipped"],
+)
+def test_corrupt_chunk_is_reported_naming_the_file(tmp_path, damage):
+    with RunLog(tmp_path / "run", {"q": (7,)}, chunk_ticks=10) as log:
+        for k in range(25):
+            log.append(q=np.full(7, float(k)))
+    path = tmp_path / "run" / "log" / "chunk_000001.npz"
+    path.write_bytes(damage(path.read_bytes()))
+    with pytest.raises(RunLogError, match="chunk_000001.npz"):
+        load_run(tmp_path / "run")
+
+
+def test_missing_chunk_in_sequence_is_reported(tmp_path):
+    log = RunLog(tmp_path / "run", {"t": ()}, chunk_ticks=1)
+    for k in range(3):
+        log.append(t=float(k))
+    (tmp_path / "run" / "log" / "chunk_000001.npz").unlink()
+    with pytest.raises(RunLogError, match="chunk_000001.npz' is missing"):
+        load_run(tmp_path / "run")
+
+
+def test_run_getitem_unknown_column_lists_columns(tmp_path):
+    RunLog(tmp_path / "run", {"t": (), "q": (2,)}).close()
+    with pytest.raises(KeyError, match="'tau'.*\\['t', 'q'\\]"):
+        load_run(tmp_path / "run")["tau"]
