@@ -25,7 +25,10 @@ from .errors import ParameterError, UnknownNameError
 from .exo import ExoParams, build_exo
 from .human import HumanParams, build_human
 
-__all__ = ["CuffSpec", "Cuff", "DEFAULT_CUFFS", "Registration", "Assembly", "fit_exo", "strap_cuffs", "assemble"]
+__all__ = [
+    "CuffSpec", "Cuff", "DEFAULT_CUFFS", "Registration", "Assembly", "fit_exo", "strap_cuffs", "assemble",
+    "matching_exo_posture", "matching_exo_velocity",
+]
 
 
 @dataclass(frozen=True)
@@ -132,6 +135,73 @@ def strap_cuffs(
     return tuple(cuffs)
 
 
+def matching_exo_posture(
+    exo: ArmModel,
+    human: ArmModel,
+    q_human: np.ndarray,
+    *,
+    tol_rad: float = 1e-12,
+    max_iter: int = 50,
+) -> np.ndarray:
+    r"""Exoskeleton posture that lines its segments up with the wearer's.
+
+    Joints 4 to 7 of both arms share axes and signs, so they are copied from
+    the human's (the last 7 entries of ``q_human``, girdle or not).  The three
+    shoulder angles are solved so that the robot's upper-arm frame has the
+    orientation of the human's: Newton iterations on
+    :math:`\log_3(R(q)^T R^*)` with the frame's local angular Jacobian
+    (pinocchio ``log3``, ``computeFrameJacobian``).  Raises
+    :class:`ParameterError` if the shoulder is singular there or the
+    solution leaves the robot's joint limits.
+    """
+    qh = np.asarray(q_human, dtype=float)
+    dh = human.model.createData()
+    pin.framesForwardKinematics(human.model, dh, qh)
+    target = dh.oMf[human.frame_id("human_upper_arm")].rotation
+    model, data = exo.model, exo.model.createData()
+    q = exo.neutral()
+    q[3:] = qh[-4:]
+    fid = exo.frame_id("exo_upper_arm")
+    for _ in range(max_iter):
+        pin.framesForwardKinematics(model, data, q)
+        err = pin.log3(data.oMf[fid].rotation.T @ target)
+        if np.linalg.norm(err) < tol_rad:
+            break
+        J = pin.computeFrameJacobian(model, data, q, fid, pin.LOCAL)[3:, :3]
+        if np.linalg.svd(J, compute_uv=False)[-1] < 1e-6:
+            raise ParameterError("matching_exo_posture: the robot shoulder is singular at this posture")
+        q[:3] += np.linalg.solve(J, err)
+        q[:3] = (q[:3] + np.pi) % (2 * np.pi) - np.pi
+    else:
+        raise ParameterError("matching_exo_posture: the shoulder angles did not converge")
+    _posture(exo, q, "q_exo")
+    return q
+
+
+def matching_exo_velocity(
+    exo: ArmModel, human: ArmModel, q_exo: np.ndarray, q_human: np.ndarray, v_human: np.ndarray
+) -> np.ndarray:
+    r"""Robot joint velocities that move its segments with the wearer's.
+
+    Joints 4 to 7 copy the human's; the shoulder rates solve
+    :math:`J_\omega^{exo} \dot q_{1:3} = \omega_{upper\,arm}^{human}` (angular
+    frame Jacobians in the world-aligned frame, pinocchio
+    ``computeFrameJacobian``).  With aligned joint centres the cuffs then start
+    with no relative motion.
+    """
+    me, mh = exo.model, human.model
+    de, dh = me.createData(), mh.createData()
+    Jh = pin.computeFrameJacobian(mh, dh, np.asarray(q_human, float), human.frame_id("human_upper_arm"),
+                                  pin.LOCAL_WORLD_ALIGNED)[3:]
+    Je = pin.computeFrameJacobian(me, de, np.asarray(q_exo, float), exo.frame_id("exo_upper_arm"),
+                                  pin.LOCAL_WORLD_ALIGNED)[3:, :3]
+    vh = np.asarray(v_human, dtype=float)
+    ve = np.zeros(me.nv)
+    ve[:3] = np.linalg.solve(Je, Jh @ vh)
+    ve[3:] = vh[-4:]
+    return ve
+
+
 def _posture(arm: ArmModel, q, name: str) -> np.ndarray:
     q = np.asarray(vector("strap_cuffs", name, q, arm.nq))
     lo, hi = arm.position_limits()
@@ -171,6 +241,7 @@ def assemble(
 
     ``exo=None`` fits the default exoskeleton to the wearer.  Postures default
     to zero (arm hanging); with the girdle on, ``q_human0`` has 9 entries.
+    Given ``q_human0`` alone, the robot starts at :func:`matching_exo_posture`.
     """
     hp = HumanParams(human) if isinstance(human, str) else human
     ep = fit_exo(hp) if exo is None else exo
@@ -179,7 +250,12 @@ def assemble(
         raise ParameterError(f"the exoskeleton is for the {ep.side} arm but the human arm is the {hp.side} one")
     exo_arm = build_exo(ep)
     human_arm = build_human(hp, base_xyz_m=reg.human_base_xyz_m())
-    qe = exo_arm.neutral() if q_exo0 is None else np.asarray(q_exo0, dtype=float)
     qh = human_arm.neutral() if q_human0 is None else np.asarray(q_human0, dtype=float)
+    if q_exo0 is not None:
+        qe = np.asarray(q_exo0, dtype=float)
+    elif q_human0 is None:
+        qe = exo_arm.neutral()
+    else:
+        qe = matching_exo_posture(exo_arm, human_arm, qh)
     straps = strap_cuffs(exo_arm, qe, human_arm, qh, cuffs)
     return Assembly(ep, hp, reg, exo_arm, human_arm, straps, qe.copy(), qh.copy())

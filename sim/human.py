@@ -1,0 +1,121 @@
+"""The wearer's motor control: intent tracking with an internal model and joint impedance.
+
+The human computes, along the intended motion :math:`q_d(t)`, the torque its
+own arm needs (the nervous system carries a model of its arm: inertia,
+Coriolis and gravity, by inverse dynamics) and adds a joint impedance around
+the intent,
+
+.. math::
+    \\tau_h = \\mathrm{ID}(q_d, \\dot q_d, \\ddot q_d)
+              + K (q_d - q) + B (\\dot q_d - \\dot q),
+
+saturated at the arm's peak joint torques.  It does not anticipate the robot.
+Impedance magnitudes: shoulder and elbow from the standard two-link arm model
+of Shadmehr & Mussa-Ivaldi (1994), diagonal terms (REFERENCES.md section 10,
+from memory); forearm, wrist and girdle values are common practice.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pinocchio as pin
+
+from models._checks import vector
+from models.arm import ArmModel
+from models.errors import ParameterError
+from models.human import HumanParams, girdle_posture
+
+from .intent import JointIntent
+
+__all__ = ["HumanMotorParams", "HumanMotor"]
+
+
+@dataclass(frozen=True)
+class HumanMotorParams:
+    """Joint impedance and internal-model switches of the wearer (7 arm joints).
+
+    ``stiffness_Nm_per_rad``: shoulder (3) 15, elbow 16 (Shadmehr &
+    Mussa-Ivaldi 1994, from memory), forearm and wrist 2 (common practice).
+    ``damping_Nm_s_per_rad``: shoulder 2.3, elbow 2.4 (same source), forearm
+    and wrist 0.1 (common practice).  The girdle joints, when present, get
+    ``girdle_stiffness_Nm_per_rad`` and ``girdle_damping_Nm_s_per_rad``.
+    """
+
+    stiffness_Nm_per_rad: tuple[float, ...] = (15.0, 15.0, 15.0, 16.0, 2.0, 2.0, 2.0)
+    damping_Nm_s_per_rad: tuple[float, ...] = (2.3, 2.3, 2.3, 2.4, 0.1, 0.1, 0.1)
+    girdle_stiffness_Nm_per_rad: float = 30.0
+    girdle_damping_Nm_s_per_rad: float = 2.0
+    gravity_feedforward: bool = True
+    inertial_feedforward: bool = True
+
+    def __post_init__(self) -> None:
+        o = "HumanMotorParams"
+        for f in ("stiffness_Nm_per_rad", "damping_Nm_s_per_rad"):
+            v = vector(o, f, getattr(self, f), 7)
+            if any(x < 0 for x in v):
+                raise ParameterError(f"{o}.{f} must be >= 0 on every joint, got {v}")
+            object.__setattr__(self, f, v)
+        for f in ("girdle_stiffness_Nm_per_rad", "girdle_damping_Nm_s_per_rad"):
+            x = float(getattr(self, f))
+            if not (np.isfinite(x) and x >= 0):
+                raise ParameterError(f"{o}.{f} must be >= 0, got {getattr(self, f)!r}")
+
+
+class HumanMotor:
+    """Torque the wearer produces at time t given their own joint state.
+
+    Parameters
+    ----------
+    arm : ArmModel
+        The human arm (its own, exact model).
+    params : HumanParams
+        The same parameters the arm was built from (girdle, rhythm, limits).
+    intent : JointIntent
+        Intended motion of the 7 arm joints [rad].
+    motor : HumanMotorParams
+        Impedance and internal-model switches.
+    """
+
+    #: Step of the central difference that gives girdle velocities and accelerations [s].
+    _FD_STEP_S = 1e-4
+
+    def __init__(self, arm: ArmModel, params: HumanParams, intent: JointIntent,
+                 motor: HumanMotorParams | None = None) -> None:
+        self.arm, self.params, self.intent = arm, params, intent
+        self.motor = HumanMotorParams() if motor is None else motor
+        if len(intent.start_rad) != 7:
+            raise ParameterError(f"the intent must give the 7 arm joints, got {len(intent.start_rad)}")
+        self._model = arm.model
+        self._data = arm.model.createData()
+        g = (self.motor.girdle_stiffness_Nm_per_rad, self.motor.girdle_damping_Nm_s_per_rad)
+        extra = 2 if params.girdle else 0
+        self.K = np.array([g[0]] * extra + list(self.motor.stiffness_Nm_per_rad))
+        self.B = np.array([g[1]] * extra + list(self.motor.damping_Nm_s_per_rad))
+        self._limit = arm.model.effortLimit.copy()
+
+    def desired(self, t_s: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Intended (q, dq, ddq) of every joint of the model at ``t_s``."""
+        q, dq, ddq = self.intent.at(t_s)
+        if not self.params.girdle:
+            return q, dq, ddq
+        h = self._FD_STEP_S
+        qm, q0, qp = (girdle_posture(self.params, self.intent.at(t_s + k * h)[0]) for k in (-1, 0, 1))
+        return q0, (qp - qm) / (2 * h), (qp - 2 * q0 + qm) / h**2
+
+    def torque(self, t_s: float, q: np.ndarray, v: np.ndarray) -> np.ndarray:
+        """Joint torques (nv,) [N m] at time ``t_s`` and state (q, v)."""
+        qd, dqd, ddqd = self.desired(t_s)
+        m = self.motor
+        if m.inertial_feedforward and m.gravity_feedforward:
+            ff = pin.rnea(self._model, self._data, qd, dqd, ddqd)
+        elif m.gravity_feedforward:
+            ff = pin.computeGeneralizedGravity(self._model, self._data, qd)
+        elif m.inertial_feedforward:
+            ff = pin.rnea(self._model, self._data, qd, dqd, ddqd) - pin.computeGeneralizedGravity(
+                self._model, self._data, qd)
+        else:
+            ff = np.zeros(self._model.nv)
+        tau = ff + self.K * pin.difference(self._model, q, qd) + self.B * (dqd - v)
+        return np.clip(tau, -self._limit, self._limit)

@@ -1,0 +1,201 @@
+"""The coupled plant: exoskeleton and human arm, two pinocchio models joined by cuffs.
+
+Each cuff's wrench (:func:`models.cuffs.cuff_wrench`) acts on the robot at
+the robot-side cuff frame and, equal and opposite, on the human at the
+strapped human-side frame.  Both arms advance by forward dynamics with
+external forces (the articulated-body algorithm, ``pinocchio.aba`` with
+``fext``; Featherstone, *Rigid Body Dynamics Algorithms*, 2008, ch. 7) and
+semi-implicit (symplectic) Euler,
+
+.. math:: v_{k+1} = v_k + h\\,\\ddot q(q_k, v_k), \\qquad
+          q_{k+1} = q_k \\oplus h\\,v_{k+1}
+
+(``pinocchio.integrate``; Hairer, Lubich & Wanner, *Geometric Numerical
+Integration*, 2006, section VI.3).  The plant owns its pinocchio ``Data``;
+the controller never shares it.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+import pinocchio as pin
+
+from models._checks import in_range, nonnegative, positive
+from models.arm import ArmModel
+from models.coupling import Assembly
+from models.cuffs import cuff_wrench
+
+__all__ = ["PlantParams", "CoupledPlant", "PlantMode"]
+
+PlantMode = Literal["coupled", "human_alone", "exo_alone"]
+
+
+@dataclass(frozen=True)
+class PlantParams:
+    """Physics switches and the plant's model error.
+
+    ``model_mass_scale`` multiplies every exoskeleton link mass and rotational
+    inertia of the plant (1.1 = the real robot is 10 % heavier than the
+    controller's model).  Coulomb friction is smoothed as
+    :math:`\\tau_c \\tanh(v / v_s)` with ``coulomb_smoothing_rad_s`` = v_s
+    (common practice for friction in simulation).
+    """
+
+    gravity_m_s2: float = 9.81
+    exo_friction: bool = True
+    cuff_damping: bool = True
+    model_mass_scale: float = 1.0
+    coulomb_smoothing_rad_s: float = 0.01
+
+    def __post_init__(self) -> None:
+        o = "PlantParams"
+        object.__setattr__(self, "gravity_m_s2", nonnegative(o, "gravity_m_s2", self.gravity_m_s2, "m/s^2"))
+        object.__setattr__(self, "model_mass_scale",
+                           in_range(o, "model_mass_scale", self.model_mass_scale, 0.1, 10.0))
+        object.__setattr__(self, "coulomb_smoothing_rad_s",
+                           positive(o, "coulomb_smoothing_rad_s", self.coulomb_smoothing_rad_s, "rad/s"))
+
+
+def _scaled(arm: ArmModel, scale: float, gravity: float) -> ArmModel:
+    model = arm.model.copy()
+    for i in range(model.njoints):
+        Y = model.inertias[i]
+        model.inertias[i] = pin.Inertia(Y.mass * scale, Y.lever, Y.inertia * scale)
+    model.gravity.linear = np.array([0.0, 0.0, -gravity])
+    return dataclasses.replace(arm, model=model)
+
+
+class CoupledPlant:
+    """State and dynamics of the exoskeleton, the human arm and the cuffs.
+
+    Parameters
+    ----------
+    assembly : Assembly
+        Models, registration and strapped cuffs (:func:`models.assemble`).
+    params : PlantParams
+        Physics switches and model error.
+    mode : {"coupled", "human_alone", "exo_alone"}
+        ``human_alone`` simulates the arm with no robot and no cuffs (the
+        transparency baseline); ``exo_alone`` the robot with no wearer.
+    """
+
+    def __init__(self, assembly: Assembly, params: PlantParams | None = None, mode: PlantMode = "coupled") -> None:
+        self.params = PlantParams() if params is None else params
+        self.mode = mode
+        p = self.params
+        self.exo = _scaled(assembly.exo, p.model_mass_scale, p.gravity_m_s2)
+        self.human = _scaled(assembly.human, 1.0, p.gravity_m_s2)
+        self.cuffs = assembly.cuffs if mode == "coupled" else ()
+        self.has_exo = mode != "human_alone"
+        self.has_human = mode != "exo_alone"
+        self._de = self.exo.model.createData()
+        self._dh = self.human.model.createData()
+        self._cuff_params = [
+            c.spec.params if p.cuff_damping else dataclasses.replace(
+                c.spec.params, damping_N_s_per_m=(0.0, 0.0, 0.0), rot_damping_Nm_s_per_rad=(0.0, 0.0, 0.0))
+            for c in self.cuffs
+        ]
+        me, mh = self.exo.model, self.human.model
+        # joint and placement of each cuff's application frame, and its human-side placement
+        self._exo_joint = [me.frames[c.exo_frame_id].parentJoint for c in self.cuffs]
+        self._exo_place = [me.frames[c.exo_frame_id].placement for c in self.cuffs]
+        self._hum_joint = [mh.frames[c.human_frame_id].parentJoint for c in self.cuffs]
+        self._hum_place = [mh.frames[c.human_frame_id].placement * c.human_offset for c in self.cuffs]
+        self._fext_e = pin.StdVec_Force()
+        self._fext_h = pin.StdVec_Force()
+        for _ in range(me.njoints):
+            self._fext_e.append(pin.Force.Zero())
+        for _ in range(mh.njoints):
+            self._fext_h.append(pin.Force.Zero())
+        self.q_exo = assembly.q_exo0.copy()
+        self.v_exo = np.zeros(me.nv)
+        self.q_human = assembly.q_human0.copy()
+        self.v_human = np.zeros(mh.nv)
+        #: Per cuff, the last wrench on the human [f; tau] in the human cuff frame, and on the robot in its frame.
+        self.wrench_on_human = np.zeros((len(self.cuffs), 6))
+        self.wrench_on_exo = np.zeros((len(self.cuffs), 6))
+        self.cuff_energy_J = 0.0
+        self.cuff_power_W = 0.0
+        self._zero_e = np.zeros(me.nv)
+
+    # -- kinematics and cuff forces ---------------------------------------------------
+    def _kinematics(self) -> None:
+        if self.has_exo:
+            pin.forwardKinematics(self.exo.model, self._de, self.q_exo, self.v_exo)
+        if self.has_human:
+            pin.forwardKinematics(self.human.model, self._dh, self.q_human, self.v_human)
+
+    def update_cuffs(self) -> None:
+        """Compute every cuff wrench from the current state (kinematics updated here)."""
+        self._kinematics()
+        energy = power = 0.0
+        de, dh = self._de, self._dh
+        for k in range(len(self.cuffs)):
+            je, jh = self._exo_joint[k], self._hum_joint[k]
+            pe, ph = self._exo_place[k], self._hum_place[k]
+            oMa = de.oMi[je] * pe
+            oMb = dh.oMi[jh] * ph
+            va = pe.actInv(de.v[je]).vector
+            vb = ph.actInv(dh.v[jh]).vector
+            w = cuff_wrench(oMa, oMb, va, vb, self._cuff_params[k])
+            self.wrench_on_exo[k] = w.on_a
+            self.wrench_on_human[k] = w.on_b
+            energy += w.energy_J
+            power += w.power_W
+        self.cuff_energy_J, self.cuff_power_W = energy, power
+
+    def _friction(self) -> np.ndarray:
+        if not self.params.exo_friction:
+            return self._zero_e
+        m = self.exo.model
+        return -m.damping * self.v_exo - m.friction * np.tanh(self.v_exo / self.params.coulomb_smoothing_rad_s)
+
+    # -- dynamics ----------------------------------------------------------------------
+    def substep(self, tau_exo_Nm: np.ndarray, tau_human_Nm: np.ndarray, dt_s: float) -> None:
+        """Advance both arms by ``dt_s`` with the given joint torques held constant."""
+        self.update_cuffs()
+        for f in self._fext_e:
+            f.setZero()
+        for f in self._fext_h:
+            f.setZero()
+        for k in range(len(self.cuffs)):
+            self._fext_e[self._exo_joint[k]] += self._exo_place[k].act(pin.Force(self.wrench_on_exo[k]))
+            self._fext_h[self._hum_joint[k]] += self._hum_place[k].act(pin.Force(self.wrench_on_human[k]))
+        if self.has_exo:
+            me = self.exo.model
+            a = pin.aba(me, self._de, self.q_exo, self.v_exo, tau_exo_Nm + self._friction(), self._fext_e)
+            self.v_exo = self.v_exo + dt_s * a
+            self.q_exo = pin.integrate(me, self.q_exo, self.v_exo * dt_s)
+        if self.has_human:
+            mh = self.human.model
+            a = pin.aba(mh, self._dh, self.q_human, self.v_human, tau_human_Nm, self._fext_h)
+            self.v_human = self.v_human + dt_s * a
+            self.q_human = pin.integrate(mh, self.q_human, self.v_human * dt_s)
+
+    # -- energy ------------------------------------------------------------------------
+    def energy_J(self) -> dict[str, float]:
+        """Kinetic (links and rotors), gravitational potential and cuff spring energy [J]."""
+        out = {"kinetic_J": 0.0, "potential_J": 0.0, "cuff_J": 0.0}
+        for on, arm, data, q, v in ((self.has_exo, self.exo, self._de, self.q_exo, self.v_exo),
+                                    (self.has_human, self.human, self._dh, self.q_human, self.v_human)):
+            if not on:
+                continue
+            M = pin.crba(arm.model, data, q)
+            M = np.triu(M) + np.triu(M, 1).T
+            out["kinetic_J"] += 0.5 * float(v @ M @ v)
+            out["potential_J"] += float(pin.computePotentialEnergy(arm.model, data, q))
+        self.update_cuffs()
+        out["cuff_J"] = self.cuff_energy_J
+        out["total_J"] = out["kinetic_J"] + out["potential_J"] + out["cuff_J"]
+        return out
+
+    def state_is_finite(self) -> str | None:
+        """Name of the first non-finite state vector, or None."""
+        for name in ("q_exo", "v_exo", "q_human", "v_human"):
+            if not np.all(np.isfinite(getattr(self, name))):
+                return name
+        return None
