@@ -62,6 +62,13 @@ def build_parser() -> argparse.ArgumentParser:
                    help="a cuff site and the frame (link) that carries it; repeat for each cuff")
     c.add_argument("--hand", metavar="FRAME", help="frame of the hand point")
     c.set_defaults(func=_cmd_check)
+
+    r = sub.add_parser("run", help="run a scenario and write a run folder with its log and metrics")
+    r.add_argument("scenario", metavar="SCENARIO", help="scenario file, e.g. scenarios/reach.py")
+    r.add_argument("--controller", metavar="NAME", help="controller variant (default: the scenario's first)")
+    r.add_argument("--seed", type=int, metavar="N", help="random seed (default: the scenario's)")
+    r.add_argument("--out", metavar="DIR", help="run folder (default: runs/SCENARIO-CONTROLLER-seedN)")
+    r.set_defaults(func=_cmd_run)
     return p
 
 
@@ -123,6 +130,69 @@ def _cmd_check(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     if args.hand:
         lines.append(f"  hand point -> frame {args.hand!r}")
     return "\n".join(lines)
+
+
+def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    from .scenario import load_scenario
+    from .simulate import SimulationError, run_scenario
+
+    scenario = load_scenario(args.scenario)
+    controller = args.controller or scenario.controllers[0]
+    if controller not in scenario.controllers:
+        raise _UserError(f"scenario {scenario.name!r} supports the controllers {', '.join(scenario.controllers)}; "
+                         f"got {controller!r}")
+    if args.seed is not None and args.seed < 0:
+        parser.error(f"--seed must be >= 0, got {args.seed}")
+    seed = scenario.seed if args.seed is None else args.seed
+    if args.out:
+        out = Path(args.out)
+        if out.exists() and (not out.is_dir() or any(out.iterdir())):
+            raise _UserError(f"run folder {str(out)!r} already holds something; choose another --out")
+    else:
+        base = Path("runs") / f"{scenario.name}-{controller}-seed{seed}"
+        out, k = base, 1
+        while out.exists():
+            k += 1
+            out = base.with_name(f"{base.name}-{k}")
+    bar = _progress_bar(f"{scenario.name}/{controller}")
+    try:
+        result = run_scenario(scenario, controller, out, seed=seed, progress=bar.update if bar else None)
+    except KeyboardInterrupt:
+        raise _UserError(f"interrupted; the finished part of the log is kept in {out}") from None
+    except SimulationError as e:
+        raise _UserError(f"{e}; the log up to that tick is kept in {out}") from e
+    finally:
+        if bar:
+            bar.close()
+    m = result.metrics
+    return (f"results in {out}: interaction_force_rms_N = {m['interaction_force_rms_N']:.2f}, "
+            f"human_effort_ratio = {m['human_effort_ratio']:.3f}, realtime_factor = {m['realtime_factor']:.2f} "
+            f"(all metrics in {out / 'metrics.json'})")
+
+
+class _Bar:
+    """tqdm progress bar fed with (done, total) ticks; shown only after 2 s of wall time."""
+
+    def __init__(self, label: str) -> None:
+        from tqdm import tqdm
+
+        self._tqdm = tqdm(total=None, desc=label, unit="tick", delay=2.0, leave=False, file=sys.stderr)
+
+    def update(self, done: int, total: int) -> None:
+        if self._tqdm.total != total:
+            self._tqdm.total = total
+        if done % 100 == 0 or done == total:
+            self._tqdm.update(done - self._tqdm.n)
+
+    def close(self) -> None:
+        self._tqdm.close()
+
+
+def _progress_bar(label: str) -> _Bar | None:
+    try:
+        return _Bar(label)
+    except ImportError:  # tqdm is a declared dependency; a bare checkout may lack it
+        return None
 
 
 class _UserError(Exception):

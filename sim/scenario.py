@@ -1,0 +1,127 @@
+"""Scenarios: what a run simulates, declared in a short Python file.
+
+A scenario file defines ``SCENARIO = Scenario(...)``.  Required fields have
+no default, so a file that forgets one fails with a message naming it.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from models._checks import positive
+from models.coupling import DEFAULT_CUFFS, CuffSpec, Registration
+from models.errors import ParameterError, SandboxError
+from models.exo import ExoParams
+from models.human import HumanParams
+
+from .actuators import ActuatorParams
+from .human import HumanMotorParams
+from .intent import JointIntent
+from .plant import PlantParams
+from .sensors import EncoderParams, ForceSensorParams
+
+__all__ = ["Scenario", "ScenarioError", "load_scenario"]
+
+
+class ScenarioError(SandboxError, ValueError):
+    """A scenario file is missing, malformed or inconsistent."""
+
+
+@dataclass(frozen=True, kw_only=True)
+class Scenario:
+    """Everything one run needs, SI units.
+
+    Required: ``name``, ``subject``, ``intent``, ``duration_s``,
+    ``controllers`` (the controller names the scenario supports; the first is
+    the default).  Everything else has a documented default.
+    """
+
+    name: str
+    subject: str | HumanParams
+    intent: JointIntent
+    duration_s: float
+    controllers: tuple[str, ...]
+    description: str = ""
+    exo: ExoParams | None = None
+    cuffs: tuple[CuffSpec, ...] = DEFAULT_CUFFS
+    registration: Registration = field(default_factory=Registration)
+    motor: HumanMotorParams = field(default_factory=HumanMotorParams)
+    plant: PlantParams = field(default_factory=PlantParams)
+    encoder: EncoderParams = field(default_factory=EncoderParams)
+    force_sensor: ForceSensorParams = field(default_factory=ForceSensorParams)
+    actuators: ActuatorParams = field(default_factory=ActuatorParams)
+    #: Control period [s] (1 kHz by default) and physics substeps per period.
+    control_period_s: float = 1e-3
+    substeps: int = 4
+    seed: int = 0
+
+    def __post_init__(self) -> None:
+        o = f"Scenario({self.name!r})"
+        if not self.name or not str(self.name).replace("_", "").replace("-", "").isalnum():
+            raise ParameterError(f"Scenario.name must be a short identifier, got {self.name!r}")
+        if isinstance(self.subject, str):
+            object.__setattr__(self, "subject", HumanParams(self.subject))
+        elif not isinstance(self.subject, HumanParams):
+            raise ParameterError(f"{o}.subject must be a subject name or HumanParams, got {self.subject!r}")
+        if not isinstance(self.intent, JointIntent):
+            raise ParameterError(f"{o}.intent must be a JointIntent, got {type(self.intent).__name__}")
+        object.__setattr__(self, "duration_s", positive(o, "duration_s", self.duration_s, "s"))
+        ctrl = (self.controllers,) if isinstance(self.controllers, str) else tuple(self.controllers)
+        if not ctrl or not all(isinstance(c, str) and c for c in ctrl):
+            raise ParameterError(f"{o}.controllers must name at least one controller, got {self.controllers!r}")
+        object.__setattr__(self, "controllers", ctrl)
+        object.__setattr__(self, "cuffs", tuple(self.cuffs))
+        object.__setattr__(self, "control_period_s",
+                           positive(o, "control_period_s", self.control_period_s, "s"))
+        if not (isinstance(self.substeps, int) and self.substeps >= 1):
+            raise ParameterError(f"{o}.substeps must be an integer >= 1, got {self.substeps!r}")
+        if not (isinstance(self.seed, int) and self.seed >= 0):
+            raise ParameterError(f"{o}.seed must be an integer >= 0, got {self.seed!r}")
+
+    @property
+    def human(self) -> HumanParams:
+        """The wearer's parameters."""
+        return self.subject  # normalised to HumanParams in __post_init__
+
+    @property
+    def n_ticks(self) -> int:
+        """Number of control ticks."""
+        return int(round(self.duration_s / self.control_period_s))
+
+
+def load_scenario(path: str | Path) -> Scenario:
+    """Execute a scenario file and return its ``SCENARIO``.
+
+    Any error while the file runs (a missing required field, a bad value, a
+    typo) becomes a :class:`ScenarioError` whose one-line message names the
+    file and the culprit.
+    """
+    p = Path(path)
+    if not p.is_file():
+        raise ScenarioError(f"scenario file {str(p)!r} does not exist")
+    mod_name = f"_exosandbox_scenario_{p.stem}"
+    spec = importlib.util.spec_from_file_location(mod_name, p)
+    if spec is None or spec.loader is None:
+        raise ScenarioError(f"{p}: not a Python scenario file")
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[mod_name] = module
+    try:
+        spec.loader.exec_module(module)
+    except SandboxError as e:
+        raise ScenarioError(f"{p}: {e}") from e
+    except TypeError as e:
+        # a missing or unknown field of Scenario(...) or another record
+        raise ScenarioError(f"{p}: {e}") from e
+    except Exception as e:  # a user's file: report in one line, whatever it is
+        raise ScenarioError(f"{p}: {type(e).__name__}: {e}") from e
+    finally:
+        sys.modules.pop(mod_name, None)
+    scenario = getattr(module, "SCENARIO", None)
+    if scenario is None:
+        raise ScenarioError(f"{p}: defines no SCENARIO = Scenario(...)")
+    if not isinstance(scenario, Scenario):
+        raise ScenarioError(f"{p}: SCENARIO must be a Scenario, got {type(scenario).__name__}")
+    return scenario

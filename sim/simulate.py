@@ -1,0 +1,255 @@
+"""The fixed-step loop: sensors, controller, actuators, human and plant, logged tick by tick.
+
+One control tick of period T (default 1 ms):
+
+1. the sensors read the plant (encoders, joint torque, cuff force/torque);
+2. the controller maps that :class:`~models.records.Measurement` to a
+   torque command, held for the period (zero-order hold);
+3. the human's torque is computed from their intent and own state;
+4. the plant advances by ``substeps`` semi-implicit Euler steps of T/substeps
+   (:class:`~sim.plant.CoupledPlant`), the actuators' lag integrated alongside;
+5. the tick is logged (:class:`~sim.runlog.RunLog`).
+
+Runs are deterministic: all randomness comes from one seed through
+``numpy.random.SeedSequence``; the same seed gives bit-identical logs.
+Wall-clock timings are kept out of the log (in ``timing.npz``) for that reason.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from controllers.base import ControllerContext
+from controllers.registry import make_controller
+from models.coupling import Assembly, assemble
+from models.errors import SandboxError
+from models.human import girdle_posture
+from models.records import Measurement
+
+from .actuators import TorqueSourceActuators
+from .human import HumanMotor
+from .metrics import run_metrics
+from .plant import CoupledPlant, PlantMode
+from .runlog import RunLog, environment_metadata, load_run
+from .scenario import Scenario
+from .sensors import ForceTorqueSensor, JointSensing
+
+__all__ = ["SimulationError", "RunResult", "build_assembly", "simulate", "run_scenario"]
+
+Progress = Callable[[int, int], None]
+
+
+class SimulationError(SandboxError, RuntimeError):
+    """The simulation cannot go on (a non-finite state or command)."""
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """Where a run was written, its metrics, and whether it finished."""
+
+    folder: Path
+    metrics: dict
+    complete: bool
+
+
+def build_assembly(scenario: Scenario) -> Assembly:
+    """Models, registration and cuffs of a scenario, strapped at the intent's start posture."""
+    hp = scenario.human
+    q0 = np.asarray(scenario.intent.start_rad, dtype=float)
+    if hp.girdle:
+        q0 = girdle_posture(hp, q0)
+    return assemble(hp, exo=scenario.exo, registration=scenario.registration, cuffs=scenario.cuffs, q_human0=q0)
+
+
+def _jsonable(obj):
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return {f.name: _jsonable(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
+    if isinstance(obj, dict):
+        return {str(k): _jsonable(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_jsonable(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    if isinstance(obj, (np.floating, np.integer)):
+        return obj.item()
+    if isinstance(obj, (str, int, float, bool)) or obj is None:
+        return obj
+    return repr(obj)
+
+
+def _columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple[str, ...]) -> dict:
+    cols: dict = {"t": ()}
+    if mode != "exo_alone":
+        cols |= {"q_human": (nq_h,), "dq_human": (nq_h,), "tau_human": (nq_h,), "q_human_intent": (nq_h,)}
+    if mode != "human_alone":
+        cols |= {
+            "q_exo": (nq_e,), "dq_exo": (nq_e,), "q_exo_meas": (nq_e,), "dq_exo_meas": (nq_e,),
+            "tau_cmd": (nq_e,), "tau_applied": (nq_e,), "saturated": ((nq_e,), "bool"),
+        }
+        cols |= {f"diag_{d}": () for d in diag}
+    if mode == "coupled":
+        cols |= {"cuff_wrench_human": (n_cuffs, 6), "cuff_wrench_exo": (n_cuffs, 6),
+                 "cuff_wrench_meas": (n_cuffs, 6)}
+    return cols
+
+
+def simulate(
+    scenario: Scenario,
+    controller_name: str,
+    folder: str | Path,
+    *,
+    seed: int | None = None,
+    mode: PlantMode = "coupled",
+    progress: Progress | None = None,
+) -> RunResult:
+    """Run one scenario with one controller and write the run folder.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    controller_name : str
+        A name known to :func:`controllers.registry.make_controller` (ignored
+        for ``mode="human_alone"``).
+    folder : path
+        Run folder to create (must not hold a run already).
+    seed : int, optional
+        Overrides ``scenario.seed``.
+    mode : {"coupled", "human_alone", "exo_alone"}
+    progress : callable(done_ticks, total_ticks), optional
+
+    Raises
+    ------
+    SimulationError
+        On a non-finite state or command; the log up to the last finished
+        tick stays loadable, and its ``meta.json`` says why it stopped.
+    """
+    seed = scenario.seed if seed is None else int(seed)
+    controller = make_controller(controller_name) if mode != "human_alone" else None
+    asm = build_assembly(scenario)
+    plant = CoupledPlant(asm, scenario.plant, mode)
+    T, n_sub = scenario.control_period_s, scenario.substeps
+    h = T / n_sub
+    rng_joint, *rng_cuffs = (np.random.default_rng(s) for s in
+                             np.random.SeedSequence(seed).spawn(1 + len(asm.cuffs)))
+    cuff_names = [c.name for c in asm.cuffs]
+    if controller is not None:
+        context = ControllerContext(
+            arm=asm.exo, cuff_frames={c.name: asm.exo.model.frames[c.exo_frame_id].name for c in asm.cuffs},
+            dt_s=T)
+        controller.reset(context)
+        diag_names = tuple(controller.diagnostic_names())
+        joints = JointSensing(scenario.encoder, asm.exo.nv, T, rng_joint)
+        joints.reset(plant.q_exo)
+        fts = [ForceTorqueSensor(scenario.force_sensor, T, r) for r in rng_cuffs]
+        for s in fts:
+            s.reset()
+        actuators = TorqueSourceActuators(asm.exo.model.effortLimit, scenario.actuators)
+        actuators.reset(np.zeros(asm.exo.nv))
+    else:
+        diag_names = ()
+    human = HumanMotor(plant.human, scenario.human, scenario.intent, scenario.motor) if plant.has_human else None
+    n = scenario.n_ticks
+    meta = {
+        "scenario": scenario.name, "controller": controller_name if controller else None, "mode": mode,
+        "seed": seed, "dt_s": T, "substeps": n_sub, "n_ticks_planned": n, "cuffs": cuff_names,
+        "exo_joints": list(asm.exo.joint_names), "human_joints": list(asm.human.joint_names),
+        "parameters": _jsonable(scenario), "exo_params": _jsonable(asm.exo_params),
+        "environment": environment_metadata(),
+    }
+    cols = _columns(mode, asm.exo.nq, asm.human.nq, len(asm.cuffs), diag_names)
+    folder = Path(folder)
+    tick_times = np.zeros(n)
+    zero_e, zero_h = np.zeros(asm.exo.nv), np.zeros(asm.human.nv)
+    meas_wrench = np.zeros((len(asm.cuffs), 6))
+    with RunLog(folder, cols, metadata=meta) as log:
+        row: dict = {}
+        tau_cmd = zero_e
+        for k in range(n):
+            t = k * T
+            t0 = time.perf_counter()
+            plant.update_cuffs()
+            if controller is not None:
+                tau_applied = actuators.substep(plant.q_exo, plant.v_exo, 0.0)
+                qm, dqm, taum = joints.measure(plant.q_exo, tau_applied)
+                for i, s in enumerate(fts):
+                    meas_wrench[i] = s.measure(plant.wrench_on_exo[i])
+                m = Measurement(t, qm, dqm, taum, {name: meas_wrench[i] for i, name in enumerate(cuff_names)})
+                tau_cmd = np.asarray(controller.step(m), dtype=float)
+                if tau_cmd.shape != (asm.exo.nv,) or not np.all(np.isfinite(tau_cmd)):
+                    raise SimulationError(
+                        f"controller {controller_name!r} returned a non-finite or mis-shaped torque at t = {t:.4f} s: "
+                        f"{tau_cmd!r}")
+                saturated = actuators.hold(tau_cmd)
+            tau_h = human.torque(t, plant.q_human, plant.v_human) if human is not None else zero_h
+            row["t"] = t
+            if human is not None:
+                row["q_human"], row["dq_human"] = plant.q_human, plant.v_human
+                row["tau_human"], row["q_human_intent"] = tau_h, human.desired(t)[0]
+            if controller is not None:
+                row["q_exo"], row["dq_exo"], row["q_exo_meas"], row["dq_exo_meas"] = plant.q_exo, plant.v_exo, qm, dqm
+                row["tau_cmd"], row["tau_applied"], row["saturated"] = tau_cmd, tau_applied.copy(), saturated
+                diag = controller.diagnostics()
+                for d in diag_names:
+                    row[f"diag_{d}"] = float(diag.get(d, np.nan))
+            if mode == "coupled":
+                row["cuff_wrench_human"] = plant.wrench_on_human
+                row["cuff_wrench_exo"] = plant.wrench_on_exo
+                row["cuff_wrench_meas"] = meas_wrench
+            log.append(**row)
+            for _ in range(n_sub):
+                tau_e = actuators.substep(plant.q_exo, plant.v_exo, h) if controller is not None else zero_e
+                plant.substep(tau_e, tau_h, h)
+            bad = plant.state_is_finite()
+            tick_times[k] = time.perf_counter() - t0
+            if bad is not None:
+                raise SimulationError(f"non-finite plant state {bad} at t = {t + T:.4f} s "
+                                      f"(scenario {scenario.name!r}, controller {controller_name!r})")
+            if progress is not None:
+                progress(k + 1, n)
+        np.savez(folder / "timing.npz", tick_time_s=tick_times)
+        metrics = {"sim_duration_s": n * T, "tick_time_median_us": float(np.median(tick_times) * 1e6)}
+        log.close("complete", metrics=None if mode == "coupled" else metrics)
+    return RunResult(folder, metrics, True)
+
+
+def run_scenario(
+    scenario: Scenario,
+    controller_name: str,
+    out_dir: str | Path,
+    *,
+    seed: int | None = None,
+    progress: Progress | None = None,
+) -> RunResult:
+    """A coupled run plus its human-alone baseline (same scenario and seed), with metrics.
+
+    Writes the coupled run to ``out_dir`` (log, ``meta.json``,
+    ``metrics.json``) and the baseline to ``out_dir/human_alone``.
+    """
+    out = Path(out_dir)
+    make_controller(controller_name)  # fail on an unknown name before anything is written
+    n = scenario.n_ticks
+    coupled_progress = (lambda k, _n: progress(k, 2 * n)) if progress else None
+    base_progress = (lambda k, _n: progress(n + k, 2 * n)) if progress else None
+    simulate(scenario, controller_name, out, seed=seed, progress=coupled_progress)
+    simulate(scenario, controller_name, out / "human_alone", seed=seed, mode="human_alone", progress=base_progress)
+    run, base = load_run(out), load_run(out / "human_alone")
+    with np.load(out / "timing.npz", allow_pickle=False) as f:
+        tick_times = f["tick_time_s"]
+    metrics = run_metrics(run.arrays, cuff_names=run.meta["cuffs"], baseline=base.arrays,
+                          dt_s=scenario.control_period_s, tick_times_s=tick_times)
+    write_json(out / "metrics.json", metrics)
+    return RunResult(out, metrics, True)
+
+
+def write_json(path: Path, obj) -> None:
+    """Write JSON atomically (temporary file, then rename)."""
+    tmp = path.with_name(path.name + ".tmp")
+    tmp.write_text(json.dumps(obj, indent=2, allow_nan=False) + "\n", encoding="utf-8")
+    tmp.replace(path)
