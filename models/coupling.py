@@ -146,36 +146,54 @@ def matching_exo_posture(
     r"""Exoskeleton posture that lines its segments up with the wearer's.
 
     Joints 4 to 7 of both arms share axes and signs, so they are copied from
-    the human's (the last 7 entries of ``q_human``, girdle or not).  The three
+    the human's (the last 4 entries of ``q_human``, girdle or not).  The three
     shoulder angles are solved so that the robot's upper-arm frame has the
     orientation of the human's: Newton iterations on
     :math:`\log_3(R(q)^T R^*)` with the frame's local angular Jacobian
-    (pinocchio ``log3``, ``computeFrameJacobian``).  Raises
-    :class:`ParameterError` if the shoulder is singular there or the
-    solution leaves the robot's joint limits.
+    (pinocchio ``log3``, ``computeFrameJacobian``), started from a grid of
+    shoulder postures.  A spherical shoulder has two solutions in general;
+    the one inside the joint limits with the largest margin to them is
+    returned.  Raises :class:`ParameterError` if no solution lies inside the
+    robot's limits.
     """
     qh = np.asarray(q_human, dtype=float)
     dh = human.model.createData()
     pin.framesForwardKinematics(human.model, dh, qh)
     target = dh.oMf[human.frame_id("human_upper_arm")].rotation
     model, data = exo.model, exo.model.createData()
-    q = exo.neutral()
-    q[3:] = qh[-4:]
     fid = exo.frame_id("exo_upper_arm")
-    for _ in range(max_iter):
-        pin.framesForwardKinematics(model, data, q)
-        err = pin.log3(data.oMf[fid].rotation.T @ target)
-        if np.linalg.norm(err) < tol_rad:
-            break
-        J = pin.computeFrameJacobian(model, data, q, fid, pin.LOCAL)[3:, :3]
-        if np.linalg.svd(J, compute_uv=False)[-1] < 1e-6:
-            raise ParameterError("matching_exo_posture: the robot shoulder is singular at this posture")
-        q[:3] += np.linalg.solve(J, err)
-        q[:3] = (q[:3] + np.pi) % (2 * np.pi) - np.pi
-    else:
-        raise ParameterError("matching_exo_posture: the shoulder angles did not converge")
-    _posture(exo, q, "q_exo")
-    return q
+    lo, hi = exo.position_limits()
+    best, best_margin = None, -np.inf
+    for seed in _SHOULDER_SEEDS:
+        q = exo.neutral()
+        q[:3] = seed
+        q[3:] = qh[-(model.nq - 3):]
+        for _ in range(max_iter):
+            pin.framesForwardKinematics(model, data, q)
+            err = pin.log3(data.oMf[fid].rotation.T @ target)
+            if np.linalg.norm(err) < tol_rad:
+                break
+            J = pin.computeFrameJacobian(model, data, q, fid, pin.LOCAL)[3:, :3]
+            if np.linalg.svd(J, compute_uv=False)[-1] < 1e-9:
+                break
+            q[:3] += np.linalg.lstsq(J, err, rcond=None)[0]
+            q[:3] = (q[:3] + np.pi) % (2 * np.pi) - np.pi
+        else:
+            continue
+        if np.linalg.norm(err) >= 1e-9:
+            continue
+        margin = float(np.min(np.minimum(q - lo, hi - q) / (hi - lo)))
+        if margin > best_margin:
+            best, best_margin = q.copy(), margin
+    if best is None:
+        raise ParameterError("matching_exo_posture: no shoulder posture lines the robot up with the wearer")
+    return _posture(exo, best, "q_exo")  # raises, naming the joint, when even the best is outside the limits
+
+
+#: Start points of the shoulder search [rad] (a coarse grid over the joint ranges).
+_SHOULDER_SEEDS = tuple(
+    np.array([a, b, c]) for a in (-0.5, 0.5, 1.5, 2.5) for b in (-0.4, 0.4, 1.0) for c in (-1.0, 0.0, 1.0)
+)
 
 
 def matching_exo_velocity(

@@ -1,1 +1,12 @@
-"""How the world evolves: the coupled exoskeleton-human loop, sensors, logging and the CLI."""
+"""How the world evolves: the coupled exoskeleton-human loop, sensors, logging and the CLI.
+
+Main entry points: :func:`sim.load_scenario`, :func:`sim.run_scenario`,
+:func:`sim.simulate` and :func:`sim.load_run`.
+"""
+
+from .runlog import Run, RunLog, load_run
+from .scenario import Scenario, ScenarioError, load_scenario
+from .simulate import RunResult, SimulationError, run_scenario, simulate
+
+__all__ = ["Run", "RunLog", "load_run", "Scenario", "ScenarioError", "load_scenario", "RunResult",
+           "SimulationError", "run_scenario", "simulate"]

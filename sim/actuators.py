@@ -52,6 +52,11 @@ class Actuators(ABC):
     def substep(self, q: np.ndarray, v: np.ndarray, dt_s: float) -> np.ndarray:
         """Advance by ``dt_s``; returns the applied joint torque (nv,) [N m]."""
 
+    @property
+    @abstractmethod
+    def applied_Nm(self) -> np.ndarray:
+        """The joint torque applied now (nv,) [N m] (a copy)."""
+
 
 class TorqueSourceActuators(Actuators):
     """Saturation at the torque limits followed by a first-order lag.
@@ -75,6 +80,10 @@ class TorqueSourceActuators(Actuators):
     def hold(self, command_Nm: np.ndarray) -> np.ndarray:
         np.clip(command_Nm, -self._limit, self._limit, out=self._u)
         return np.abs(command_Nm) > self._limit
+
+    @property
+    def applied_Nm(self) -> np.ndarray:
+        return self._tau.copy()
 
     def substep(self, q: np.ndarray, v: np.ndarray, dt_s: float) -> np.ndarray:
         a = self._alpha.get(dt_s)

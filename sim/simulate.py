@@ -168,6 +168,7 @@ def simulate(
     tick_times = np.zeros(n)
     zero_e, zero_h = np.zeros(asm.exo.nv), np.zeros(asm.human.nv)
     meas_wrench = np.zeros((len(asm.cuffs), 6))
+    zero_w = np.zeros(6)
     with RunLog(folder, cols, metadata=meta) as log:
         row: dict = {}
         tau_cmd = zero_e
@@ -176,10 +177,10 @@ def simulate(
             t0 = time.perf_counter()
             plant.update_cuffs()
             if controller is not None:
-                tau_applied = actuators.substep(plant.q_exo, plant.v_exo, 0.0)
+                tau_applied = actuators.applied_Nm
                 qm, dqm, taum = joints.measure(plant.q_exo, tau_applied)
-                for i, s in enumerate(fts):
-                    meas_wrench[i] = s.measure(plant.wrench_on_exo[i])
+                for i, s in enumerate(fts):  # with no wearer the sensors read their noise and bias alone
+                    meas_wrench[i] = s.measure(plant.wrench_on_exo[i] if plant.cuffs else zero_w)
                 m = Measurement(t, qm, dqm, taum, {name: meas_wrench[i] for i, name in enumerate(cuff_names)})
                 tau_cmd = np.asarray(controller.step(m), dtype=float)
                 if tau_cmd.shape != (asm.exo.nv,) or not np.all(np.isfinite(tau_cmd)):
@@ -187,6 +188,9 @@ def simulate(
                         f"controller {controller_name!r} returned a non-finite or mis-shaped torque at t = {t:.4f} s: "
                         f"{tau_cmd!r}")
                 saturated = actuators.hold(tau_cmd)
+                if k == 0:  # the run starts in steady state: the drives already apply the first command
+                    actuators.reset(np.clip(tau_cmd, -asm.exo.model.effortLimit, asm.exo.model.effortLimit))
+                    tau_applied = actuators.applied_Nm
             tau_h = human.torque(t, plant.q_human, plant.v_human) if human is not None else zero_h
             row["t"] = t
             if human is not None:
@@ -194,7 +198,7 @@ def simulate(
                 row["tau_human"], row["q_human_intent"] = tau_h, human.desired(t)[0]
             if controller is not None:
                 row["q_exo"], row["dq_exo"], row["q_exo_meas"], row["dq_exo_meas"] = plant.q_exo, plant.v_exo, qm, dqm
-                row["tau_cmd"], row["tau_applied"], row["saturated"] = tau_cmd, tau_applied.copy(), saturated
+                row["tau_cmd"], row["tau_applied"], row["saturated"] = tau_cmd, tau_applied, saturated
                 diag = controller.diagnostics()
                 for d in diag_names:
                     row[f"diag_{d}"] = float(diag.get(d, np.nan))
