@@ -169,7 +169,8 @@ def simulate(
     zero_e, zero_h = np.zeros(asm.exo.nv), np.zeros(asm.human.nv)
     meas_wrench = np.zeros((len(asm.cuffs), 6))
     zero_w = np.zeros(6)
-    with RunLog(folder, cols, metadata=meta) as log:
+    # a blow-up is detected below and reported as SimulationError, not as numpy warnings
+    with RunLog(folder, cols, metadata=meta) as log, np.errstate(over="ignore", invalid="ignore"):
         row: dict = {}
         tau_cmd = zero_e
         for k in range(n):
