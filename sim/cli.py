@@ -176,7 +176,8 @@ class _Bar:
     def __init__(self, label: str) -> None:
         from tqdm import tqdm
 
-        self._tqdm = tqdm(total=None, desc=label, unit="tick", delay=2.0, leave=False, file=sys.stderr)
+        self._tqdm = tqdm(total=None, desc=label, unit="tick", delay=2.0, leave=False, file=sys.stderr,
+                          disable=not sys.stderr.isatty())
 
     def update(self, done: int, total: int) -> None:
         if self._tqdm.total != total:
