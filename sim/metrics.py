@@ -99,6 +99,7 @@ def run_metrics(
         "human_effort_ratio": None,
         "path_deviation_rms_rad": None,
         "torque_saturation_fraction": torque_saturation_fraction(arrays["saturated"]),
+        "torque_saturated_ticks": int(np.count_nonzero(np.any(np.asarray(arrays["saturated"], bool), axis=-1))),
         "tick_time_median_us": float(np.median(tick_times_s) * 1e6) if len(tick_times_s) else 0.0,
         "realtime_factor": (n * dt_s / wall) if wall > 0 else None,
     }

@@ -165,7 +165,7 @@ def simulate(
     }
     cols = _columns(mode, asm.exo.nq, asm.human.nq, len(asm.cuffs), diag_names)
     folder = Path(folder)
-    tick_times = np.zeros(n)
+    tick_times, controller_times = np.zeros(n), np.zeros(n)
     zero_e, zero_h = np.zeros(asm.exo.nv), np.zeros(asm.human.nv)
     meas_wrench = np.zeros((len(asm.cuffs), 6))
     zero_w = np.zeros(6)
@@ -183,7 +183,9 @@ def simulate(
                 for i, s in enumerate(fts):  # with no wearer the sensors read their noise and bias alone
                     meas_wrench[i] = s.measure(plant.wrench_on_exo[i] if plant.cuffs else zero_w)
                 m = Measurement(t, qm, dqm, taum, {name: meas_wrench[i] for i, name in enumerate(cuff_names)})
+                tc = time.perf_counter()
                 tau_cmd = np.asarray(controller.step(m), dtype=float)
+                controller_times[k] = time.perf_counter() - tc
                 if tau_cmd.shape != (asm.exo.nv,) or not np.all(np.isfinite(tau_cmd)):
                     raise SimulationError(
                         f"controller {controller_name!r} returned a non-finite or mis-shaped torque at t = {t:.4f} s: "
@@ -218,7 +220,7 @@ def simulate(
                                       f"(scenario {scenario.name!r}, controller {controller_name!r})")
             if progress is not None:
                 progress(k + 1, n)
-        np.savez(folder / "timing.npz", tick_time_s=tick_times)
+        np.savez(folder / "timing.npz", tick_time_s=tick_times, controller_time_s=controller_times)
         metrics = {"sim_duration_s": n * T, "tick_time_median_us": float(np.median(tick_times) * 1e6)}
         log.close("complete", metrics=None if mode == "coupled" else metrics)
     return RunResult(folder, metrics, True)
