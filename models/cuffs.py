@@ -29,6 +29,7 @@ straps slide, so the cuff is soft along z.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import pinocchio as pin
@@ -96,12 +97,26 @@ class CuffParams:
     @property
     def K(self) -> np.ndarray:
         """(6, 6) stiffness, [N/m] on the linear and [N m/rad] on the angular block."""
-        return np.diag(self.stiffness_N_per_m + self.rot_stiffness_Nm_per_rad)
+        return np.diag(self.k_diag)
 
     @property
     def D(self) -> np.ndarray:
         """(6, 6) damping, [N s/m] and [N m s/rad]."""
-        return np.diag(self.damping_N_s_per_m + self.rot_damping_Nm_s_per_rad)
+        return np.diag(self.d_diag)
+
+    @cached_property
+    def k_diag(self) -> np.ndarray:
+        """(6,) diagonal of :attr:`K` (read-only)."""
+        a = np.array(self.stiffness_N_per_m + self.rot_stiffness_Nm_per_rad)
+        a.setflags(write=False)
+        return a
+
+    @cached_property
+    def d_diag(self) -> np.ndarray:
+        """(6,) diagonal of :attr:`D` (read-only)."""
+        a = np.array(self.damping_N_s_per_m + self.rot_damping_Nm_s_per_rad)
+        a.setflags(write=False)
+        return a
 
 
 #: The hand grip uses the same interface law (no separate measurement; common practice).
@@ -144,19 +159,20 @@ def cuff_wrench(
     params : CuffParams
         Stiffness and damping.
     """
+    v_a = np.asarray(v_a, dtype=float)
+    v_b = np.asarray(v_b, dtype=float)
     aMb = oMa.actInv(oMb)
     e = pin.log6(aMb).vector
     J = pin.Jlog6(aMb)
-    nu = np.asarray(v_b, dtype=float) - aMb.actInv(pin.Motion(np.asarray(v_a, dtype=float))).vector
-    e_dot = J @ nu
-    K, D = params.K, params.D
-    w_b = -J.T @ (K @ e + D @ e_dot)
+    e_dot = J @ (v_b - aMb.actInv(pin.Motion(v_a)).vector)
+    ke = params.k_diag * e  # K and D are diagonal in the cuff frame
+    w_b = -J.T @ (ke + params.d_diag * e_dot)
     w_a = -aMb.act(pin.Force(w_b)).vector
-    power = -(float(w_a @ np.asarray(v_a, float)) + float(w_b @ np.asarray(v_b, float)))
-    return CuffWrench(on_a=w_a, on_b=w_b, error=e, energy_J=0.5 * float(e @ K @ e), power_W=power)
+    power = -(float(w_a @ v_a) + float(w_b @ v_b))
+    return CuffWrench(on_a=w_a, on_b=w_b, error=e, energy_J=0.5 * float(e @ ke), power_W=power)
 
 
 def cuff_energy(oMa: pin.SE3, oMb: pin.SE3, params: CuffParams) -> float:
     """Spring energy :math:`\\tfrac12 e^T K e` [J] of a cuff at the given placements."""
     e = pin.log6(oMa.actInv(oMb)).vector
-    return 0.5 * float(e @ params.K @ e)
+    return 0.5 * float(e @ (params.k_diag * e))

@@ -94,6 +94,8 @@ class HumanMotor:
         self.K = np.array([g[0]] * extra + list(self.motor.stiffness_Nm_per_rad))
         self.B = np.array([g[1]] * extra + list(self.motor.damping_Nm_s_per_rad))
         self._limit = arm.model.effortLimit.copy()
+        #: Intended posture used by the last :meth:`torque` call [rad].
+        self.last_desired_q = np.zeros(arm.nq)
 
     def desired(self, t_s: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Intended (q, dq, ddq) of every joint of the model at ``t_s``."""
@@ -107,6 +109,7 @@ class HumanMotor:
     def torque(self, t_s: float, q: np.ndarray, v: np.ndarray) -> np.ndarray:
         """Joint torques (nv,) [N m] at time ``t_s`` and state (q, v)."""
         qd, dqd, ddqd = self.desired(t_s)
+        self.last_desired_q = qd
         m = self.motor
         if m.inertial_feedforward and m.gravity_feedforward:
             ff = pin.rnea(self._model, self._data, qd, dqd, ddqd)

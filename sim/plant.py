@@ -81,6 +81,9 @@ class CoupledPlant:
     mode : {"coupled", "human_alone", "exo_alone"}
         ``human_alone`` simulates the arm with no robot and no cuffs (the
         transparency baseline); ``exo_alone`` the robot with no wearer.
+
+    The state vectors ``q_exo``, ``v_exo``, ``q_human``, ``v_human`` are
+    public; after changing one in place, call :meth:`invalidate`.
     """
 
     def __init__(self, assembly: Assembly, params: PlantParams | None = None, mode: PlantMode = "coupled") -> None:
@@ -121,6 +124,11 @@ class CoupledPlant:
         self.cuff_energy_J = 0.0
         self.cuff_power_W = 0.0
         self._zero_e = np.zeros(me.nv)
+        self._cuffs_fresh = False
+
+    def invalidate(self) -> None:
+        """Mark the cuff wrenches stale; call after changing a state vector in place."""
+        self._cuffs_fresh = False
 
     # -- kinematics and cuff forces ---------------------------------------------------
     def _kinematics(self) -> None:
@@ -130,7 +138,13 @@ class CoupledPlant:
             pin.forwardKinematics(self.human.model, self._dh, self.q_human, self.v_human)
 
     def update_cuffs(self) -> None:
-        """Compute every cuff wrench from the current state (kinematics updated here)."""
+        """Compute every cuff wrench from the current state (kinematics updated here).
+
+        Does nothing when the state has not changed since the last call.
+        """
+        if self._cuffs_fresh:
+            return
+        self._cuffs_fresh = True
         self._kinematics()
         energy = power = 0.0
         de, dh = self._de, self._dh
@@ -170,11 +184,13 @@ class CoupledPlant:
             a = pin.aba(me, self._de, self.q_exo, self.v_exo, tau_exo_Nm + self._friction(), self._fext_e)
             self.v_exo = self.v_exo + dt_s * a
             self.q_exo = pin.integrate(me, self.q_exo, self.v_exo * dt_s)
+            self._cuffs_fresh = False
         if self.has_human:
             mh = self.human.model
             a = pin.aba(mh, self._dh, self.q_human, self.v_human, tau_human_Nm, self._fext_h)
             self.v_human = self.v_human + dt_s * a
             self.q_human = pin.integrate(mh, self.q_human, self.v_human * dt_s)
+            self._cuffs_fresh = False
 
     # -- energy ------------------------------------------------------------------------
     def energy_J(self) -> dict[str, float]:

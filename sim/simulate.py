@@ -198,7 +198,7 @@ def simulate(
             row["t"] = t
             if human is not None:
                 row["q_human"], row["dq_human"] = plant.q_human, plant.v_human
-                row["tau_human"], row["q_human_intent"] = tau_h, human.desired(t)[0]
+                row["tau_human"], row["q_human_intent"] = tau_h, human.last_desired_q
             if controller is not None:
                 row["q_exo"], row["dq_exo"], row["q_exo_meas"], row["dq_exo_meas"] = plant.q_exo, plant.v_exo, qm, dqm
                 row["tau_cmd"], row["tau_applied"], row["saturated"] = tau_cmd, tau_applied, saturated

@@ -34,6 +34,7 @@ def _moving_plant(damping: bool) -> CoupledPlant:
     plant.v_human[:] = [0.5, 0.2, 0.3, -0.8, 0.5, 0.3, 0.2]  # [rad/s]
     # the robot moves with the wearer, so the cuffs start unstretched and at rest relative to each other
     plant.v_exo[:] = matching_exo_velocity(asm.exo, asm.human, plant.q_exo, plant.q_human, plant.v_human)
+    plant.invalidate()
     return plant
 
 
