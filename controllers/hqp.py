@@ -1,0 +1,909 @@
+r"""Strict-priority (lexicographic) hierarchical least squares with inequalities.
+
+A hierarchy is a list of :class:`Level` objects, highest priority first, above
+which sit hard constraints (rigid-body dynamics, torque limits, bounds) that
+must hold exactly. :func:`solve_hierarchy` solves one QP per level (Kanoun,
+Lamiraux & Wieber 2011). Level :math:`k` minimises its own weighted squared
+error while every higher level keeps the optimum it found:
+
+.. math::
+
+    \min_{x,\,v_k} \;\; & \tfrac12 \sum_i w_{k,i} \|A_{k,i} x - b_{k,i}\|^2
+                         + \tfrac12 \sum_j \omega_{k,j} \|v_{k,j}\|^2 \\
+    \text{s.t.} \;\;     & C_{k,j} x - d_{k,j} \le v_{k,j}
+                           \quad \text{(own inequality rows, slack } v_k) \\
+                         & A_l x - b_l = e_l^\star, \quad
+                           C_l x - d_l \le v_l^\star \quad (l < k)
+                           \quad \text{(higher levels frozen)} \\
+                         & A_H x = b_H, \quad C_H x \le d_H, \quad lb \le x \le ub
+                           \quad \text{(hard, slack } 0)
+
+where :math:`e_l^\star` and :math:`v_l^\star` are the optimal slacks of level
+:math:`l`. Both are unique (the cost is strictly convex in :math:`(A_l x,
+v_l)`), so freezing them keeps exactly the optimal set of level :math:`l`: a
+satisfied inequality row stays satisfied, a violated one stays at its least
+violation.
+
+Higher equality rows are not passed to the solver as constraints: they are
+eliminated exactly (Escande, Mansard & Wieber 2014). With :math:`x_{k-1}` the
+solution of level :math:`k-1` and :math:`N_{k-1}` an orthonormal basis of the
+null space of the stacked hard and higher equality rows, level :math:`k`
+searches :math:`x = x_{k-1} + N_{k-1} z`. After the solve, the singular value
+decomposition of :math:`W_k^{1/2} A_k N_{k-1}` gives
+:math:`N_k = N_{k-1} V_2` (the right singular vectors of zero singular value),
+so rank-deficient levels and levels that contradict a higher one stay exact:
+what a level cannot change is simply not in its search space.
+
+Two kinds of inequality rows hold with equality at *every* optimum of level
+:math:`k`, and are eliminated the same way instead of being frozen as
+inequalities (which would leave lower levels with degenerate QPs whose active
+rows are dependent, where both DAQP and OSQP were seen to fail):
+
+* a violated row of level :math:`k`: its slack :math:`v^\star > 0` is unique,
+  so :math:`C x = d + v^\star` on the whole optimal set;
+* a frozen, hard or bound row with a positive multiplier at the level's
+  optimum: complementary slackness holds for every optimal primal-dual pair,
+  so every optimal point keeps it active (the same reasoning by which the
+  active set of Escande et al. 2014 enters the null-space basis).
+
+The thresholds that tell "positive" from solver noise are
+:attr:`HQPParams.slack_tol` and :attr:`HQPParams.multiplier_tol`; below them a
+row stays a frozen inequality, which is always correct.
+
+A level whose only constraints are satisfied by its unconstrained least-squares
+point (the minimum-norm :math:`z` from the same SVD) is solved in closed form,
+without the QP backend; that point is then optimal for the QP too (the
+equality cost is at its minimum and every slack is zero). Otherwise the level
+is a QP in :math:`(z, v_k)` handed to a backend of
+:mod:`controllers.qp_backends`.
+
+**Regularization.** With ``regularization > 0`` a last level
+:math:`\min \tfrac12\|x\|^2` over the freedom that remains makes ``x``
+unique; it cannot change any level's optimum. For the equality-only case this
+gives the minimum-norm solution of the classical recursive projection
+(Siciliano & Slotine 1991). The same number ε is the proximal weight that
+backends needing a strictly convex Hessian (DAQP) use on levels whose
+cost does not involve every variable: they iterate
+:math:`y_{j+1} = \arg\min f(y) + \tfrac{\varepsilon}{2}\|y - y_j\|^2` to a fixed
+point, which is an exact minimiser of :math:`f`; a single such step would be
+suboptimal by at most :math:`\tfrac{\varepsilon}{2}\,\mathrm{dist}(y_j,
+Y^\star)^2` (proximal-point method, Rockafellar 1976). No damping term stays
+in any level's answer.
+
+References
+----------
+.. [Kanoun2011] O. Kanoun, F. Lamiraux, P.-B. Wieber, "Kinematic control of
+   redundant manipulators: generalizing the task-priority framework to
+   inequality tasks", IEEE Trans. Robotics 27(4):785-792, 2011.
+.. [Escande2014] A. Escande, N. Mansard, P.-B. Wieber, "Hierarchical quadratic
+   programming: fast online humanoid-robot motion generation", Int. J.
+   Robotics Research 33(7):1006-1028, 2014.
+.. [Siciliano1991] B. Siciliano, J.-J. E. Slotine, "A general framework for
+   managing multiple tasks in highly redundant robotic systems", Proc. 5th
+   ICAR, Pisa, 1991.
+.. [Rockafellar1976] R. T. Rockafellar, "Monotone operators and the proximal
+   point algorithm", SIAM J. Control and Optimization 14(5):877-898, 1976.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from functools import lru_cache
+
+import numpy as np
+
+from models.errors import ParameterError, SandboxError
+
+from .qp_backends import DEFAULT_BACKEND, QPSolveError, QPTolerances, get_backend
+
+__all__ = [
+    "Level",
+    "HierarchyResult",
+    "HQPParams",
+    "HQPInfeasibleError",
+    "QPSolveError",
+    "solve_hierarchy",
+]
+
+
+class HQPInfeasibleError(SandboxError, RuntimeError):
+    """The hard constraints (hard level, bounds) cannot all hold."""
+
+
+# --------------------------------------------------------------------------------------------
+# Levels
+
+
+def _read_only(arr: np.ndarray) -> np.ndarray:
+    arr.flags.writeable = False
+    return arr
+
+
+def _level_label(name: str) -> str:
+    return f"Level {name!r}" if name else "Level (unnamed)"
+
+
+_EMPTY = np.zeros(0)
+_EMPTY.flags.writeable = False
+
+
+def _check_entry(label: str, kind: str, i: int, entry) -> tuple[np.ndarray, np.ndarray, float]:
+    where = f"{label}: {kind}[{i}]"
+    if not isinstance(entry, (tuple, list)) or len(entry) not in (2, 3):
+        raise ParameterError(f"{where} must be a pair (M, v) or a triple (M, v, w), got {type(entry).__name__}")
+    try:
+        M = np.asarray(entry[0], dtype=float)
+        v = np.asarray(entry[1], dtype=float)
+    except (TypeError, ValueError) as e:
+        raise ParameterError(f"{where} must hold numeric arrays: {e}") from e
+    if M.ndim == 1:
+        M = M.reshape(1, -1)
+    if v.ndim == 0:
+        v = v.reshape(1)
+    if M.ndim != 2:
+        raise ParameterError(f"{where} matrix must be 2-D (m, n), got shape {M.shape}")
+    if v.shape != (M.shape[0],):
+        raise ParameterError(f"{where} vector must have shape ({M.shape[0]},) to match its matrix {M.shape}, "
+                             f"got {v.shape}")
+    if not np.isfinite(M.sum() + v.sum()):  # cheap test first; locate the culprit only if it fails
+        if not np.isfinite(M).all():
+            r, c = np.argwhere(~np.isfinite(M))[0]
+            raise ParameterError(f"{where} matrix must be finite, got {M[r, c]} at [{r}, {c}]")
+        if not np.isfinite(v).all():
+            r = int(np.flatnonzero(~np.isfinite(v))[0])
+            raise ParameterError(f"{where} vector must be finite, got {v[r]} at [{r}]")
+    w = 1.0
+    if len(entry) == 3:
+        w = entry[2]
+        if isinstance(w, bool) or not isinstance(w, (int, float, np.integer, np.floating)) or not (
+            np.isfinite(w) and w > 0
+        ):
+            raise ParameterError(f"{where} weight must be a finite scalar > 0, got {w!r}")
+    return M, v, float(w)
+
+
+@lru_cache(maxsize=32)
+def _no_rows(n: int) -> np.ndarray:
+    return _read_only(np.zeros((0, n)))
+
+
+def _stack(label: str, kind: str, entries):
+    """Checked entries stacked into read-only (M, v, w per row); entries become views of them."""
+    if type(entries) not in (list, tuple) and (
+        isinstance(entries, (np.ndarray, str)) or not isinstance(entries, Sequence)
+    ):
+        raise ParameterError(f"{label}: {kind} must be a list of (M, v[, w]) entries, got {type(entries).__name__}")
+    if not entries:
+        return (), None, _EMPTY, _EMPTY, (0,), None
+    checked = [_check_entry(label, kind, i, e) for i, e in enumerate(entries)]
+    n = checked[0][0].shape[1]
+    for i, (M, _, _) in enumerate(checked):
+        if M.shape[1] != n:
+            raise ParameterError(f"{label}: {kind}[{i}] matrix has {M.shape[1]} columns, earlier entries have {n}")
+    if len(checked) == 1:
+        M0, v0, w0 = checked[0]
+        M, v = np.array(M0), np.array(v0)  # own copies: callers may reuse their buffers
+        w = np.full(M.shape[0], w0)
+        starts = (0, M.shape[0])
+    else:
+        M = np.vstack([c[0] for c in checked])
+        v = np.concatenate([c[1] for c in checked])
+        w = np.concatenate([np.full(c[0].shape[0], c[2]) for c in checked])
+        starts = (0, *np.cumsum([c[0].shape[0] for c in checked]).tolist())
+    M.flags.writeable = v.flags.writeable = w.flags.writeable = False
+    views = tuple((M[starts[i] : starts[i + 1]], v[starts[i] : starts[i + 1]], c[2]) for i, c in enumerate(checked))
+    return views, M, v, w, starts, n
+
+
+@dataclass(frozen=True, eq=False)
+class Level:
+    r"""One priority level: weighted equality and inequality tasks.
+
+    Parameters
+    ----------
+    eq : sequence of (A, b) or (A, b, w)
+        Equality tasks :math:`A x \approx b`, ``A`` (m, n), ``b`` (m,); a 1-D
+        ``A`` (n,) is one row. The level's equality cost is
+        :math:`\sum_i w_i \|A_i x - b_i\|^2` (weighted least squares).
+    ineq : sequence of (C, d) or (C, d, w)
+        Inequality tasks :math:`C x \le d`, ``C`` (m, n), ``d`` (m,). A row
+        that cannot hold costs :math:`w_j \|v_j\|^2` with
+        :math:`v_j = \max(C_j x - d_j, 0)` (weighted slack norm).
+    name : str
+        Shown in error messages and diagnostics.
+
+    Weights ``w`` are finite scalars > 0, default 1. They rank tasks only
+    within this level; between levels priority is strict. In the ``hard``
+    level of :func:`solve_hierarchy` weights are meaningless: any weight
+    other than 1 is rejected there. After construction ``eq`` and ``ineq``
+    hold ``(M, v, w)`` triples of read-only arrays, so
+    ``Level(eq=level.eq, ineq=level.ineq)`` rebuilds the same level.
+
+    Attributes
+    ----------
+    A : (m_e, n) ndarray
+        The equality rows of all entries, stacked (read-only).
+    b : (m_e,) ndarray
+    weights_eq : (m_e,) ndarray
+        The weight of each equality row.
+    C : (m_i, n) ndarray
+        The inequality rows, stacked (read-only).
+    d : (m_i,) ndarray
+    weights_ineq : (m_i,) ndarray
+    n_cols : int or None
+        Number of columns, ``None`` for a level without rows.
+
+    Raises
+    ------
+    ParameterError
+        Naming the level, the entry (``eq[1]``) and what is wrong with it.
+    """
+
+    eq: Sequence = ()
+    ineq: Sequence = ()
+    name: str = ""
+    A: np.ndarray = field(init=False, repr=False)
+    b: np.ndarray = field(init=False, repr=False)
+    weights_eq: np.ndarray = field(init=False, repr=False)
+    C: np.ndarray = field(init=False, repr=False)
+    d: np.ndarray = field(init=False, repr=False)
+    weights_ineq: np.ndarray = field(init=False, repr=False)
+    n_cols: int | None = field(init=False, repr=False)
+    _eq_starts: tuple = field(init=False, repr=False)
+    _ineq_starts: tuple = field(init=False, repr=False)
+    _weighted: bool = field(init=False, repr=False)
+    _unit_eq: bool = field(init=False, repr=False)
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.name, str):
+            raise ParameterError(f"Level.name must be a str, got {self.name!r}")
+        label = _level_label(self.name)
+        eq, A, b, we, eq_starts, n_eq = _stack(label, "eq", self.eq)
+        ineq, C, d, wi, in_starts, n_in = _stack(label, "ineq", self.ineq)
+        if n_eq is not None and n_in is not None and n_eq != n_in:
+            raise ParameterError(f"{label}: ineq matrices have {n_in} columns, eq matrices have {n_eq}")
+        n = n_eq if n_eq is not None else n_in
+        if A is None:
+            A = _no_rows(n or 0)
+        if C is None:
+            C = _no_rows(n or 0)
+        weighted = any(w != 1.0 for *_, w in (*eq, *ineq))
+        for key, value in (
+            ("eq", eq), ("ineq", ineq), ("A", A), ("b", b), ("weights_eq", we), ("C", C), ("d", d),
+            ("weights_ineq", wi), ("n_cols", n), ("_eq_starts", eq_starts), ("_ineq_starts", in_starts),
+            ("_weighted", weighted), ("_unit_eq", all(w == 1.0 for *_, w in eq)),
+        ):
+            object.__setattr__(self, key, value)
+
+    def row_label(self, kind: str, row: int) -> str:
+        """``"eq[1] row 2"``: the entry and row of stacked row ``row`` of ``kind`` ("eq" or "ineq")."""
+        starts = self._eq_starts if kind == "eq" else self._ineq_starts
+        entry = int(np.searchsorted(starts, row, side="right")) - 1
+        return f"{kind}[{entry}] row {row - starts[entry]}"
+
+    def slack(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        r"""Slacks at ``x``: :math:`(A x - b,\; \max(C x - d, 0))`, shapes (m_e,), (m_i,)."""
+        if self.n_cols is None:
+            return np.zeros(0), np.zeros(0)
+        x = np.asarray(x, dtype=float)
+        return self.A @ x - self.b, np.maximum(self.C @ x - self.d, 0.0)
+
+    def residual(self, x: np.ndarray) -> float:
+        r"""Weighted squared error at ``x``: :math:`\sum w_i e_i^2 + \sum \omega_j v_j^2` (slacks of :meth:`slack`)."""
+        e, v = self.slack(x)
+        return float(self.weights_eq @ (e * e) + self.weights_ineq @ (v * v))
+
+
+# --------------------------------------------------------------------------------------------
+# Parameters and result
+
+
+@dataclass(frozen=True)
+class HQPParams:
+    r"""Numerical parameters of :func:`solve_hierarchy`.
+
+    Attributes
+    ----------
+    tolerances : QPTolerances
+        Passed to the QP backend (explicit solver tolerances).
+    rank_tol : float, default 1e-10
+        A singular value of :math:`W_k^{1/2} A_k N_{k-1}` counts as zero when
+        it is at most ``rank_tol`` times the Frobenius norm of
+        :math:`W_k^{1/2} A_k` (scale-free). Directions below it are left to
+        lower levels; they can change level :math:`k`'s error by at most
+        that singular value times the step.
+    feasibility_tol : float, default 1e-9
+        Tolerance on hard and frozen constraints when accepting a
+        closed-form level and when checking the returned point, relative to
+        ``1 + `` the largest magnitude among the hard right-hand sides and
+        finite bounds (OSQP's primal tolerance is relative in the same way);
+        hard equalities are checked against ``feasibility_tol * (1 + max|b|)``.
+    slack_tol : float, default 1e-7
+        An inequality row whose optimal slack exceeds ``slack_tol * (1 +
+        |d|)`` is violated at every optimum of its level, so it is frozen as
+        an equality (eliminated with the equality rows); rows below it stay
+        frozen inequalities :math:`C x \le d + v^\star`. Above the
+        backends' accuracy, so noise is not mistaken for a violation.
+    multiplier_tol : float, default 1e-6
+        A frozen, hard or bound row whose multiplier at a level's optimum
+        exceeds ``multiplier_tol`` times the largest multiplier (at least 1)
+        is active at every optimum of that level (complementary slackness), so
+        it too is frozen as an equality; smaller multipliers are treated as
+        zero and the row stays an inequality.
+    closed_form : bool, default True
+        Solve a level without the backend when its unconstrained
+        least-squares point satisfies every constraint (exact; see the module
+        docstring). False sends every level with freedom left to the backend.
+    """
+
+    tolerances: QPTolerances = field(default_factory=QPTolerances)
+    rank_tol: float = 1e-10
+    feasibility_tol: float = 1e-9
+    slack_tol: float = 1e-7
+    multiplier_tol: float = 1e-6
+    closed_form: bool = True
+
+    def __post_init__(self) -> None:
+        if not isinstance(self.tolerances, QPTolerances):
+            raise ParameterError(f"HQPParams.tolerances must be a QPTolerances, got {self.tolerances!r}")
+        for name in ("rank_tol", "feasibility_tol", "slack_tol", "multiplier_tol"):
+            value = getattr(self, name)
+            if not (isinstance(value, (int, float)) and np.isfinite(value) and 0 < value < 1):
+                raise ParameterError(f"HQPParams.{name} must be in (0, 1), got {value!r}")
+        if not isinstance(self.closed_form, bool):
+            raise ParameterError(f"HQPParams.closed_form must be a bool, got {self.closed_form!r}")
+
+
+_DEFAULT_PARAMS = HQPParams()
+
+
+@dataclass(frozen=True, eq=False)
+class HierarchyResult:
+    """The solution of a hierarchy.
+
+    Attributes
+    ----------
+    x : (n,) ndarray
+        The lexicographic optimum (minimum norm among them if
+        ``regularization > 0``).
+    level_residuals : (p,) ndarray
+        One float per level, :meth:`Level.residual` at ``x``: weighted
+        squared equality error plus weighted squared inequality violation.
+    level_slacks : tuple of p pairs of ndarray
+        Each level's optimal slacks ``(e*, v*)``, shapes (m_e,), (m_i,), as
+        frozen for the levels below (:meth:`slack`).
+    found : bool
+        True: a failed solve raises instead of returning.
+    solve_time_s : float
+        Wall time of the whole call [s].
+    level_times_s : (p,) ndarray
+        Wall time per level [s].
+    solver : str
+        Name of the QP backend used.
+    level_methods : tuple of str
+        Per level: ``"closed-form"``, ``"qp"``, ``"no freedom"`` (nothing
+        left to move, or nothing in the level depends on what is left) or
+        ``"empty"`` (a level without rows).
+    free_dims : tuple of int
+        Dimension of the freedom left after each level.
+    level_x : tuple of (n,) ndarray
+        The solution after each level; a later call uses it to warm-start
+        the same level.
+    qp_solves : int
+        Number of backend calls.
+    """
+
+    x: np.ndarray
+    level_residuals: np.ndarray
+    level_slacks: tuple
+    found: bool
+    solve_time_s: float
+    level_times_s: np.ndarray
+    solver: str
+    level_methods: tuple = ()
+    free_dims: tuple = ()
+    level_x: tuple = ()
+    qp_solves: int = 0
+
+    def slack(self, level: int) -> tuple[np.ndarray, np.ndarray]:
+        """Optimal slacks ``(e*, v*)`` of level ``level`` (its index in ``levels``)."""
+        return self.level_slacks[level]
+
+
+# --------------------------------------------------------------------------------------------
+# The solver
+
+
+class _Constraints:
+    """Inequality rows ``G x <= h`` (hard, then frozen levels) and bounds, in x-space.
+
+    The finite bounds are also kept as rows ``B x <= hB`` (``ub`` rows, then
+    ``lb`` rows) for when the freedom is a proper subspace.
+    """
+
+    def __init__(self, G, h, lb, ub, hard_labels, tol_rel):
+        n = G.shape[1]
+        self.G, self.h, self.lb, self.ub = G, h, lb, ub
+        self.n_hard = G.shape[0]
+        self._hard_labels = hard_labels  # callable: names of the hard rows, built only for a message
+        rows, rhs, self._bound_idx = [np.zeros((0, n))], [np.zeros(0)], []
+        for name, bound, sign in (("ub", ub, 1.0), ("lb", lb, -1.0)):
+            if bound is not None:
+                idx = np.flatnonzero(np.isfinite(bound))
+                rows.append(sign * np.eye(n)[idx])
+                rhs.append(sign * bound[idx])
+                self._bound_idx.append((name, idx))
+        self.B, self.hB = np.vstack(rows), np.concatenate(rhs)
+        scale = max(float(np.abs(h).max(initial=0.0)), float(np.abs(self.hB).max(initial=0.0)))
+        self.tol = tol_rel * (1.0 + scale)  # absolute feasibility tolerance
+
+    def labels(self) -> list[str]:
+        """Names of the hard rows, then of the bound rows (``"ub[3]"``)."""
+        return self._hard_labels() + [f"{name}[{i}]" for name, idx in self._bound_idx for i in idx]
+
+    def violation(self, x: np.ndarray) -> float:
+        worst = float((self.G @ x - self.h).max(initial=0.0)) if self.G.shape[0] else 0.0
+        if self.hB.size:
+            worst = max(worst, float((self.B @ x - self.hB).max()))
+        return worst
+
+
+def _bounds(name: str, value, n: int, bad: float) -> np.ndarray | None:
+    if value is None:
+        return None
+    arr = np.asarray(value, dtype=float)
+    if arr.shape != (n,):
+        raise ParameterError(f"solve_hierarchy: {name} must have shape ({n},), got {arr.shape}")
+    total = arr.sum()  # NaN or `bad` anywhere makes the sum NaN or `bad`
+    if (total != total or total == bad) and (np.isnan(arr).any() or (arr == bad).any()):
+        i = int(np.flatnonzero(np.isnan(arr) | (arr == bad))[0])
+        raise ParameterError(f"solve_hierarchy: {name}[{i}] must be a number or {-bad}, got {arr[i]}")
+    if total == -bad and np.isinf(arr).all():
+        return None
+    return arr
+
+
+class _Solver:
+    """One call of :func:`solve_hierarchy`: the state carried from level to level.
+
+    The current point is ``x`` and the remaining freedom ``x + N z`` (``N``
+    orthonormal, ``None`` for the identity). ``cons`` holds the inequality
+    rows that lower levels must keep (hard rows first, then frozen rows).
+    """
+
+    def __init__(self, n, backend, solver_name, params, regularization, cons, x_hard, N_hard, hard_label):
+        self.n = n
+        self.backend = backend
+        self.solver_name = solver_name
+        self.params = params
+        self.regularization = regularization
+        self.cons = cons
+        self.x = x_hard
+        self.N = N_hard
+        self.x_hard, self.N_hard, self.hard_label = x_hard, N_hard, hard_label
+        self.qp_solves = 0
+
+    @property
+    def r(self) -> int:
+        return self.n if self.N is None else self.N.shape[1]
+
+    def _proj(self, M: np.ndarray) -> np.ndarray:
+        return M if self.N is None else M @ self.N
+
+    def _lift(self, z: np.ndarray) -> np.ndarray:
+        return self.x + (z if self.N is None else self.N @ z)
+
+    def _feasible(self, x: np.ndarray, C: np.ndarray | None = None, d: np.ndarray | None = None) -> bool:
+        tol = self.cons.tol
+        if C is not None and C.shape[0] and np.max(C @ x - d) > tol:
+            return False
+        return self.cons.violation(x) <= tol
+
+    def _eliminate(self, rows: np.ndarray) -> None:
+        """Restrict the freedom to the null space of ``rows`` (x-space, (m, n)): N <- N V2."""
+        if rows.shape[0] == 0 or self.r == 0:
+            return
+        unit = rows / np.maximum(np.linalg.norm(rows, axis=1, keepdims=True), 1e-300)
+        _, s, Vt = np.linalg.svd(self._proj(unit), full_matrices=True)
+        rank = int(np.count_nonzero(s > self.params.rank_tol * np.sqrt(unit.shape[0])))
+        V2 = Vt[rank:].T
+        self.N = V2 if self.N is None else self.N @ V2
+
+    def _qp_constraints(self):
+        """Rows of the frozen/hard inequalities and bounds in z.
+
+        Returns ``(Gz, hz, Gx, lbz, ubz)``: ``Gz z <= hz`` with ``Gx`` the
+        same rows in x-space (for the multipliers), and box bounds on z when
+        ``N`` is the identity. Rows the null space has made constant are
+        left out (they cannot change; the returned point is checked).
+        """
+        x, N, cons = self.x, self.N, self.cons
+        G, h = cons.G, cons.h
+        lbz = ubz = None
+        if N is None:
+            lbz = None if cons.lb is None else cons.lb - x
+            ubz = None if cons.ub is None else cons.ub - x
+        elif cons.hB.size:
+            G, h = np.vstack([G, cons.B]), np.concatenate([h, cons.hB])
+        Gz = self._proj(G)
+        hz = h - G @ x
+        if N is not None and Gz.shape[0]:
+            keep = np.abs(Gz).max(axis=1) > self.params.rank_tol * np.maximum(np.abs(G).max(axis=1), 1e-300)
+            if not keep.all():
+                Gz, hz, G = Gz[keep], hz[keep], G[keep]
+        return Gz, hz, G, lbz, ubz
+
+    def _call_backend(self, P, q, G, h, lb, ub, warm, where: str):
+        self.qp_solves += 1
+        res = self.backend(
+            P, q, G if G.shape[0] else None, h if G.shape[0] else None, None, None, lb, ub,
+            warm_start=warm, tolerances=self.params.tolerances, regularization=self.regularization,
+        )
+        if res.found:
+            return res
+        self._raise_if_hard_infeasible()
+        raise QPSolveError(f"QP backend {self.solver_name!r} failed at {where}: status {res.status!r}")
+
+    def _strictly_active(self, res, Gx: np.ndarray, skip: int) -> np.ndarray:
+        """x-space rows with a clearly positive multiplier (rows ``skip:`` of G, then the box)."""
+        lam = res.z[skip:] if res.z is not None else np.zeros(0)
+        box = np.abs(res.z_box[: self.n]) if res.z_box is not None else np.zeros(0)
+        thr = self.params.multiplier_tol * max(1.0, float(lam.max(initial=0.0)), float(box.max(initial=0.0)))
+        rows = Gx[lam > thr] if lam.size else np.zeros((0, self.n))
+        if box.size and (box > thr).any():
+            rows = np.vstack([rows, np.eye(self.n)[box > thr]])
+        return rows
+
+    # -- levels ---------------------------------------------------------------------------
+
+    def solve_level(self, level: Level, label: str, warm_x: np.ndarray | None):
+        """Solve one level; return (method, e*, v*) and move (x, N) to the level's optimum."""
+        n_eq, n_in = level.A.shape[0], level.C.shape[0]
+        if n_eq + n_in == 0:
+            return "empty", np.zeros(0), np.zeros(0)
+        if self.r == 0:
+            e, v = level.slack(self.x)
+            return "no freedom", e, v
+        z_ls = np.zeros(self.r)
+        V1 = s1 = c1 = V2 = None
+        if n_eq:
+            # W^1/2 A N = U S V^T, truncated at the rank: the cost is 1/2 ||S1 V1^T z - c1||^2 + const
+            err = level.b - level.A @ self.x
+            if level._unit_eq:
+                Aw = level.A
+            else:
+                sw = np.sqrt(level.weights_eq)
+                Aw, err = level.A * sw[:, None], sw * err
+            U, s, Vt = np.linalg.svd(self._proj(Aw), full_matrices=True)
+            rank = int(np.count_nonzero(s > self.params.rank_tol * np.linalg.norm(Aw)))
+            V1, s1, V2 = Vt[:rank].T, s[:rank], Vt[rank:].T
+            c1 = U[:, :rank].T @ err
+            z_ls = V1 @ (c1 / s1)
+        x_ls = self._lift(z_ls)
+        active = np.zeros((0, self.n))
+        if self.params.closed_form and self._feasible(x_ls, level.C if n_in else None, level.d):
+            method, x_new = "closed-form", x_ls
+        elif n_in == 0 and (V1 is None or V1.shape[1] == 0):
+            method, x_new = "no freedom", self.x  # nothing here depends on the remaining freedom
+        else:
+            method = "qp"
+            x_new, active = self._level_qp(level, label, V1, s1, c1, warm_x)
+        e, v = level.slack(x_new)
+        self.x = x_new
+        # Freeze the level's optimum for the levels below. Rows that hold with equality at every
+        # optimum are eliminated through the null space, together with the equality rows:
+        # a violated row (its slack v* > 0 is unique) and a row with a positive multiplier
+        # (complementary slackness holds for every optimal primal-dual pair).
+        if V2 is not None:  # the equality rows: null space from the SVD above
+            self.N = V2 if self.N is None else self.N @ V2
+        if n_in:
+            tight = v > self.params.slack_tol * (1.0 + np.abs(level.d))
+            if tight.any():
+                active = np.vstack([level.C[tight], active])
+            keep = ~tight
+            if keep.any():
+                self.cons.G = np.vstack([self.cons.G, level.C[keep]])
+                self.cons.h = np.concatenate([self.cons.h, level.d[keep] + v[keep]])
+        if active.shape[0]:  # then, within it, the rows that are tight at every optimum
+            self._eliminate(active)
+        return method, e, v
+
+    def _level_qp(self, level, label, V1, s1, c1, warm_x):
+        r, m_i = self.r, level.C.shape[0]
+        nv = r + m_i
+        P = np.zeros((nv, nv))
+        q = np.zeros(nv)
+        if V1 is not None and V1.shape[1]:
+            # rank-truncated, so directions the level cannot change have exactly zero curvature
+            P[:r, :r] = (V1 * s1**2) @ V1.T
+            q[:r] = -(V1 @ (s1 * c1))
+        Gc, hc, Gx, lbz, ubz = self._qp_constraints()
+        if m_i:
+            P[r:, r:].flat[:: m_i + 1] = level.weights_ineq
+            G = np.zeros((m_i + Gc.shape[0], nv))
+            G[:m_i, :r] = self._proj(level.C)
+            G[:m_i, r:].flat[:: m_i + 1] = -1.0
+            G[m_i:, :r] = Gc
+            h = np.concatenate([level.d - level.C @ self.x, hc])
+            if lbz is not None:
+                lbz = np.concatenate([lbz, np.full(m_i, -np.inf)])
+            if ubz is not None:
+                ubz = np.concatenate([ubz, np.full(m_i, np.inf)])
+        else:
+            G, h = Gc, hc
+        warm = None
+        if warm_x is not None:
+            dz = warm_x - self.x
+            z0 = dz if self.N is None else self.N.T @ dz
+            v0 = np.maximum(level.C @ self._lift(z0) - level.d, 0.0)
+            warm = np.concatenate([z0, v0])
+        res = self._call_backend(P, q, G, h, lbz, ubz, warm, label)
+        return self._lift(res.x[:r]), self._strictly_active(res, Gx, m_i)
+
+    def solve_min_norm(self, warm_x: np.ndarray | None) -> str:
+        r"""Final level :math:`\min \frac12\|x\|^2` over :math:`x = x_p + N_p z`."""
+        if self.r == 0:
+            return "no freedom"
+        z_c = -self.x if self.N is None else -(self.N.T @ self.x)
+        x_c = self._lift(z_c)
+        if self.params.closed_form and self._feasible(x_c):
+            self.x = x_c
+            return "closed-form"
+        G, h, _, lbz, ubz = self._qp_constraints()
+        warm = None
+        if warm_x is not None:
+            dz = warm_x - self.x
+            warm = dz if self.N is None else self.N.T @ dz
+        res = self._call_backend(np.eye(self.r), -z_c, G, h, lbz, ubz, warm, "the final minimum-norm level")
+        self.x = self._lift(res.x)
+        return "qp"
+
+    # -- hard constraints -------------------------------------------------------------------
+
+    def _raise_if_hard_infeasible(self) -> None:
+        r"""Raise :class:`HQPInfeasibleError` if the hard rows cannot hold together.
+
+        Solves :math:`\min \frac12\|s\|^2` s.t. :math:`G_H (x_H + N_H z) - h_H \le s`
+        over the hard inequality rows and bounds, on the hard equalities'
+        solution set; rows with :math:`s >` the feasibility tolerance are named.
+        """
+        cons = self.cons
+        G = np.vstack([cons.G[: cons.n_hard], cons.B])
+        h = np.concatenate([cons.h[: cons.n_hard], cons.hB])
+        labels = cons.labels()
+        m = G.shape[0]
+        if m == 0:
+            return
+        x0, N = self.x_hard, self.N_hard
+        Gz = G if N is None else G @ N
+        r = Gz.shape[1]
+        P = np.zeros((r + m, r + m))
+        P[r:, r:] = np.eye(m)
+        Gs = np.hstack([Gz, -np.eye(m)])
+        self.qp_solves += 1
+        res = self.backend(
+            P, np.zeros(r + m), Gs, h - G @ x0, None, None, None, None,
+            tolerances=self.params.tolerances, regularization=max(self.regularization, 1e-8),
+        )
+        if not res.found:
+            raise QPSolveError(
+                f"QP backend {self.solver_name!r} failed, and so did the check of the hard constraints "
+                f"(status {res.status!r})"
+            )
+        x = x0 + (res.x[:r] if N is None else N @ res.x[:r])
+        s = G @ x - h
+        bad = np.flatnonzero(s > cons.tol)
+        if bad.size:
+            named = ", ".join(f"{labels[i]} (violated by {s[i]:.3g})" for i in bad[:8])
+            more = f" and {bad.size - 8} more" if bad.size > 8 else ""
+            eq = f" given {self.hard_label} equalities" if self.N_hard is not None else ""
+            raise HQPInfeasibleError(
+                f"hard constraints cannot all hold{eq}: at the least-violation point {named}{more}"
+            )
+
+
+def _eliminate_hard_eq(hard: Level, n: int, params: HQPParams, label: str):
+    """Minimum-norm solution and null-space basis of the hard equalities, or raise."""
+    A, b = hard.A, hard.b
+    if A.shape[0] == 0:
+        return np.zeros(n), None
+    U, s, Vt = np.linalg.svd(A, full_matrices=True)
+    rank = int(np.count_nonzero(s > params.rank_tol * np.linalg.norm(A)))
+    x0 = Vt[:rank].T @ ((U[:, :rank].T @ b) / s[:rank]) if rank else np.zeros(n)
+    res = A @ x0 - b
+    tol = params.feasibility_tol * (1.0 + float(np.abs(b).max()))
+    bad = np.flatnonzero(np.abs(res) > tol)
+    if bad.size:
+        named = ", ".join(f"{label}.{hard.row_label('eq', int(i))} (residual {res[i]:.3g})" for i in bad[:8])
+        raise HQPInfeasibleError(f"hard equality constraints are inconsistent: least-squares residual at {named}")
+    return x0, Vt[rank:].T
+
+
+def _warm_points(warm_start, n: int, p: int) -> list:
+    """The warm-start point of each of the p levels and the final level."""
+    if warm_start is None:
+        return [None] * (p + 1)
+    if isinstance(warm_start, HierarchyResult):
+        if warm_start.x.shape != (n,):
+            raise ParameterError(f"solve_hierarchy: warm_start result has x of shape {warm_start.x.shape}, "
+                                 f"expected ({n},)")
+        if len(warm_start.level_x) == p:
+            return [*warm_start.level_x, warm_start.x]
+        return [warm_start.x] * (p + 1)
+    ws = np.asarray(warm_start, dtype=float)
+    if ws.shape != (n,) or not np.isfinite(ws).all():
+        raise ParameterError(f"solve_hierarchy: warm_start must be a finite ({n},) array or a HierarchyResult, "
+                             f"got shape {ws.shape}")
+    return [ws] * (p + 1)
+
+
+def solve_hierarchy(
+    levels: Sequence[Level],
+    n: int,
+    solver: str | None = None,
+    *,
+    hard: Level | None = None,
+    lb: np.ndarray | None = None,
+    ub: np.ndarray | None = None,
+    regularization: float = 1e-8,
+    warm_start: np.ndarray | HierarchyResult | None = None,
+    params: HQPParams | None = None,
+) -> HierarchyResult:
+    r"""Solve a strict-priority hierarchy of levels, one QP per level.
+
+    Level :math:`k` solves the QP of the module docstring,
+
+    .. math::
+
+        \min_{x, v_k} \tfrac12 \|W_k^{1/2}(A_k x - b_k)\|^2 + \tfrac12 \|\Omega_k^{1/2} v_k\|^2
+        \;\; \text{s.t.} \;\; C_k x - d_k \le v_k,\;
+        A_l x - b_l = e_l^\star,\; C_l x - d_l \le v_l^\star \;(l < k),\;
+        \text{hard}
+
+    (Kanoun, Lamiraux & Wieber 2011), with the higher equality rows
+    eliminated exactly through a null-space basis (Escande, Mansard & Wieber
+    2014).
+
+    Parameters
+    ----------
+    levels : sequence of Level
+        Highest priority first. Each level's matrices have ``n`` columns.
+    n : int
+        Number of decision variables (e.g. 14 for :math:`x = [\ddot q; \tau]`
+        of a 7-DOF arm).
+    solver : str or None
+        QP backend name (:func:`controllers.qp_backends.get_backend`);
+        ``None``: the default backend (daqp if installed, else osqp).
+    hard : Level or None
+        Constraints that must hold exactly (slack 0): its eq rows
+        :math:`A_H x = b_H` and ineq rows :math:`C_H x \le d_H`. Weights are
+        not allowed here.
+    lb, ub : (n,) array_like or None
+        Hard bounds on ``x``; entries may be :math:`\mp\infty`.
+    regularization : float, default 1e-8
+        ε ≥ 0. If > 0, a final level :math:`\min \frac12 \|x\|^2` over the
+        remaining freedom makes ``x`` unique (minimum norm), and ε is the
+        proximal weight of backends that need a strictly convex Hessian
+        (module docstring; exact at convergence). 0: no final level, and no
+        proximal iterations (DAQP then fails on a level whose cost leaves a
+        variable free).
+    warm_start : (n,) array_like, HierarchyResult or None
+        The previous control tick's solution. A previous result warm-starts
+        each level from that level's previous solution.
+    params : HQPParams or None
+        Tolerances; ``None``: :class:`HQPParams` defaults.
+
+    Returns
+    -------
+    HierarchyResult
+
+    Raises
+    ------
+    ParameterError
+        If an argument has the wrong type, shape or value (naming it).
+    HQPInfeasibleError
+        If the hard constraints (hard level, bounds) cannot all hold; the
+        message names the rows, e.g. ``hard.ineq[0] row 3`` or ``ub[9]``.
+    QPSolveError
+        If the backend fails on a level (the message gives the level and the
+        backend's status). No made-up solution is ever returned.
+    BackendNotFound
+        If ``solver`` is not installed.
+    """
+    t_start = time.perf_counter()
+    params = _DEFAULT_PARAMS if params is None else params
+    if not isinstance(params, HQPParams):
+        raise ParameterError(f"solve_hierarchy: params must be an HQPParams, got {type(params).__name__}")
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1:
+        raise ParameterError(f"solve_hierarchy: n must be an int >= 1, got {n!r}")
+    n = int(n)
+    levels = tuple(levels)
+    labels = []
+    for k, level in enumerate(levels):
+        if not isinstance(level, Level):
+            raise ParameterError(f"solve_hierarchy: levels[{k}] must be a Level, got {type(level).__name__}")
+        label = f"level {k} ({level.name!r})" if level.name else f"level {k}"
+        if level.n_cols not in (None, n):
+            raise ParameterError(f"solve_hierarchy: {label} has {level.n_cols} columns, expected n = {n}")
+        labels.append(label)
+    hard_label = "hard"
+    if hard is not None:
+        if not isinstance(hard, Level):
+            raise ParameterError(f"solve_hierarchy: hard must be a Level, got {type(hard).__name__}")
+        hard_label = f"hard ({hard.name!r})" if hard.name else "hard"
+        if hard.n_cols not in (None, n):
+            raise ParameterError(f"solve_hierarchy: {hard_label} has {hard.n_cols} columns, expected n = {n}")
+        if hard._weighted:
+            raise ParameterError(f"solve_hierarchy: {hard_label} entries must not carry weights: "
+                                 "hard constraints hold exactly")
+    if not (isinstance(regularization, (int, float)) and np.isfinite(regularization) and regularization >= 0):
+        raise ParameterError(f"solve_hierarchy: regularization must be a finite float >= 0, got {regularization!r}")
+    lb = _bounds("lb", lb, n, np.inf)
+    ub = _bounds("ub", ub, n, -np.inf)
+    if lb is not None and ub is not None and (lb > ub).any():
+        i = int(np.flatnonzero(lb > ub)[0])
+        raise HQPInfeasibleError(f"hard bounds cannot hold: lb[{i}] = {lb[i]} > ub[{i}] = {ub[i]}")
+    warm = _warm_points(warm_start, n, len(levels))
+    backend = get_backend(solver)
+    solver_name = DEFAULT_BACKEND if solver is None else solver
+
+    if hard is not None:
+        x0, N0 = _eliminate_hard_eq(hard, n, params, hard_label)
+        G0, h0 = hard.C, hard.d
+
+        def hard_rows():
+            return [f"{hard_label}.{hard.row_label('ineq', i)}" for i in range(hard.C.shape[0])]
+    else:
+        x0, N0 = np.zeros(n), None
+        G0, h0 = _no_rows(n), _EMPTY
+
+        def hard_rows():
+            return []
+    cons = _Constraints(G0, h0, lb, ub, hard_rows, params.feasibility_tol)
+    work = _Solver(n, backend, solver_name, params, float(regularization), cons, x0, N0, hard_label)
+
+    methods, slacks, times, free_dims, level_x = [], [], [], [], []
+    for k, level in enumerate(levels):
+        t_level = time.perf_counter()
+        method, e, v = work.solve_level(level, labels[k], warm[k])
+        methods.append(method)
+        slacks.append((_read_only(e), _read_only(v)))
+        free_dims.append(work.r)
+        level_x.append(work.x)
+        times.append(time.perf_counter() - t_level)
+    if regularization > 0:
+        work.solve_min_norm(warm[-1])
+    x = work.x
+
+    # Safety net: the returned point satisfies every hard constraint, or we raise.
+    hard_eq_res = 0.0
+    if hard is not None and hard.A.shape[0]:
+        hard_eq_res = float(np.abs(hard.A @ x - hard.b).max()) / (1.0 + float(np.abs(hard.b).max()))
+    G_hard, h_hard = cons.G[: cons.n_hard], cons.h[: cons.n_hard]
+    viol = max(float((G_hard @ x - h_hard).max(initial=0.0)), float((cons.B @ x - cons.hB).max(initial=0.0)))
+    if viol > cons.tol or hard_eq_res > params.feasibility_tol:
+        work._raise_if_hard_infeasible()
+        raise QPSolveError(
+            f"solve_hierarchy: the solution violates a hard constraint by {max(viol, hard_eq_res):.3g} "
+            f"(backend {solver_name!r}, tolerance {cons.tol:.3g})"
+        )
+
+    x = _read_only(x.copy())
+    for xk in level_x:
+        xk.flags.writeable = False
+    residuals = _read_only(np.array([level.residual(x) for level in levels], dtype=float))
+    return HierarchyResult(
+        x=x,
+        level_residuals=residuals,
+        level_slacks=tuple(slacks),
+        found=True,
+        solve_time_s=time.perf_counter() - t_start,
+        level_times_s=_read_only(np.array(times, dtype=float)),
+        solver=solver_name,
+        level_methods=tuple(methods),
+        free_dims=tuple(free_dims),
+        level_x=tuple(level_x),
+        qp_solves=work.qp_solves,
+    )
