@@ -1,27 +1,102 @@
-"""Controllers by name, as the command line and scenario files refer to them."""
+"""Controllers by name, as the command line and scenario files refer to them.
+
+Shipped variants, usable in every scenario:
+
+* ``zero``: zero torque;
+* ``gravity``: model gravity compensation only;
+* ``transparent``: dynamics + force-feedback transparency (half the inertia
+  compensated) > joint damping;
+* ``walls``: joint position and velocity limits > the scenario's virtual
+  walls > transparency > joint damping.
+
+A scenario may declare its own variants as an ordered list of levels, each a
+list of tasks given by name (see :data:`controllers.tasks.TASKS`), by
+``(name, {parameter: value})`` or as Task objects.
+"""
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Mapping, Sequence
 
-from models.errors import UnknownNameError
+from models.errors import ParameterError, UnknownNameError
 
 from .base import Controller
 from .basic import GravityCompensation, ZeroTorque
+from .hqp_controller import HQPController
+from .tasks import TASKS, JointDamping, JointPositionLimits, JointVelocityLimits, Task, Transparency
 
-__all__ = ["CONTROLLERS", "make_controller"]
+__all__ = ["CONTROLLERS", "SHIPPED", "make_controller", "build_levels"]
 
-#: Name -> factory of a fresh controller.
+TaskSpec = str | tuple | Task
+LevelsSpec = Sequence[Sequence[TaskSpec]]
+
+
+def _transparent() -> Controller:
+    return HQPController([[Transparency()], [JointDamping()]], name="transparent")
+
+
+def _walls(walls: Sequence[TaskSpec]) -> Controller:
+    levels = [[JointPositionLimits(), JointVelocityLimits()]]
+    if walls:
+        levels.append([_task(w, "walls") for w in walls])
+    levels += [[Transparency()], [JointDamping()]]
+    return HQPController(levels, name="walls")
+
+
+def _walls_default() -> Controller:
+    return _walls(())
+
+
+#: Name -> factory of a fresh controller (no arguments).
 CONTROLLERS: dict[str, Callable[[], Controller]] = {
     "zero": ZeroTorque,
     "gravity": GravityCompensation,
+    "transparent": _transparent,
+    "walls": _walls_default,
 }
+#: Shipped factories that take the scenario's wall specs.
+_WITH_WALLS: dict[Callable[[], Controller], Callable[[Sequence[TaskSpec]], Controller]] = {_walls_default: _walls}
+SHIPPED = tuple(CONTROLLERS)
 
 
-def make_controller(name: str) -> Controller:
-    """A new controller by name; an unknown name lists the known ones."""
+def _task(spec: TaskSpec, where: str) -> Task:
+    if isinstance(spec, Task):
+        return spec
+    name, params = (spec, {}) if isinstance(spec, str) else (spec[0], dict(spec[1]) if len(spec) > 1 else {})
+    cls = TASKS.get(name)
+    if cls is None:
+        raise UnknownNameError(f"{where}: unknown task {name!r}; tasks are {', '.join(TASKS)}")
     try:
-        factory = CONTROLLERS[name]
-    except KeyError as e:
-        raise UnknownNameError(f"unknown controller {name!r}; controllers are {', '.join(CONTROLLERS)}") from e
-    return factory()
+        return cls(**params)
+    except TypeError as e:
+        raise ParameterError(f"{where}: task {name!r}: {e}") from e
+
+
+def build_levels(spec: LevelsSpec, variant: str = "variant") -> list[list[Task]]:
+    """Tasks of a declared variant, level by level (fresh Task objects)."""
+    if isinstance(spec, (str, bytes)) or not spec:
+        raise ParameterError(f"variant {variant!r} must be a list of levels, got {spec!r}")
+    out = []
+    for i, level in enumerate(spec):
+        if isinstance(level, (str, Task)) or (isinstance(level, tuple) and level and isinstance(level[0], str)
+                                               and len(level) == 2 and isinstance(level[1], Mapping)):
+            level = [level]
+        out.append([_task(t, f"variant {variant!r} level {i}") for t in level])
+    return out
+
+
+def make_controller(name: str, variants: Mapping[str, LevelsSpec] | None = None,
+                    walls: Sequence[TaskSpec] = ()) -> Controller:
+    """A new controller by name: a scenario's own variant first, then the shipped ones.
+
+    ``walls`` (task specs, e.g. ``("wall_plane", {...})``) are the scenario's
+    virtual walls, used by the ``walls`` variant; each call builds fresh tasks.
+    """
+    if variants and name in variants:
+        return HQPController(build_levels(variants[name], name), name=name)
+    factory = CONTROLLERS.get(name)
+    if factory is None:
+        known = list(CONTROLLERS) + [v for v in (variants or {}) if v not in CONTROLLERS]
+        raise UnknownNameError(f"unknown controller {name!r}; controllers are {', '.join(known)}")
+    with_walls = _WITH_WALLS.get(factory)
+    return with_walls(walls) if with_walls is not None else factory()

@@ -1,0 +1,330 @@
+"""The task library: gravity, limits, virtual walls, transparency, damping, posture.
+
+Every task writes rows in x = [q̈; τ] (see :mod:`controllers.tasks.base`).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pinocchio as pin
+
+from models._checks import in_range, nonnegative, positive, vector
+from models.errors import ParameterError
+
+from ._common import TickState
+from .base import Task
+
+__all__ = [
+    "GravityTorque", "JointPositionLimits", "JointVelocityLimits", "Transparency", "JointDamping", "Posture",
+    "PlaneWall", "BoxWall", "SphereWall",
+]
+
+
+def _q_part(state: TickState, rows: np.ndarray) -> np.ndarray:
+    """Embed (m, nv) rows on q̈ into (m, 2 nv)."""
+    A = np.zeros((rows.shape[0], 2 * state.nv))
+    A[:, : state.nv] = rows
+    return A
+
+
+class GravityTorque(Task):
+    """Gravity compensation as a torque task: :math:`\\tau = g(q)` (model feed-forward)."""
+
+    name, kind = "gravity", "eq"
+
+    def __init__(self, weight: float = 1.0) -> None:
+        self.weight = positive("GravityTorque", "weight", weight)
+
+    def rows(self, state: TickState):
+        A = np.zeros((state.nv, 2 * state.nv))
+        A[:, state.nv:] = np.eye(state.nv)
+        return A, state.g.copy()
+
+
+class JointPositionLimits(Task):
+    """Keep each joint inside its range with room to stop.
+
+    Two bounds on :math:`\\ddot q` per joint, upper side shown (lower is
+    symmetric), with the remaining distance :math:`d = q_{max} - m - q`
+    (margin m) and the deceleration :math:`a_{brk}` the joint may use:
+
+    * braking distance: the velocity after one tick must still allow a stop,
+      :math:`\\dot q + \\ddot q\\,\\Delta t \\le \\sqrt{2 a_{brk} \\max(d, 0)}`
+      (from :math:`v^2 = 2 a d`, uniform deceleration);
+    * position: :math:`q + \\dot q \\Delta t + \\ddot q \\Delta t^2 \\le q_{max} - m`
+      (the factor 1 on :math:`\\ddot q \\Delta t^2`, not 1/2, keeps the bound
+      safe for semi-implicit Euler, which moves a held acceleration by up to
+      :math:`\\ddot q \\Delta t^2` in one period).
+
+    The tighter of the two is used.  ``braking_accel_rad_s2`` defaults to
+    20 rad/s^2 (common practice: well within the drives' capability at the
+    model inertia), ``margin_rad`` to 0.02 rad.
+    """
+
+    name, kind = "joint_limits", "ineq"
+
+    def __init__(self, braking_accel_rad_s2: float = 20.0, margin_rad: float = 0.02, weight: float = 1.0) -> None:
+        self.a = positive("JointPositionLimits", "braking_accel_rad_s2", braking_accel_rad_s2, "rad/s^2")
+        self.margin = nonnegative("JointPositionLimits", "margin_rad", margin_rad, "rad")
+        self.weight = positive("JointPositionLimits", "weight", weight)
+
+    def bind(self, state: TickState) -> None:
+        self.lo, self.hi = state.arm.position_limits()
+
+    def rows(self, state: TickState):
+        dt, q, v = state.dt_s, state.q, state.dq
+        up = np.maximum(self.hi - self.margin - q, 0.0)
+        dn = np.maximum(q - (self.lo + self.margin), 0.0)
+        amax_up = np.minimum((np.sqrt(2 * self.a * up) - v) / dt, (up - v * dt) / dt**2)
+        amax_dn = np.minimum((np.sqrt(2 * self.a * dn) + v) / dt, (dn + v * dt) / dt**2)
+        n = state.nv
+        C = np.zeros((2 * n, 2 * n))
+        C[:n, :n] = np.eye(n)
+        C[n:, :n] = -np.eye(n)
+        return C, np.concatenate([amax_up, amax_dn])
+
+
+class JointVelocityLimits(Task):
+    """:math:`|\\dot q + \\ddot q \\Delta t| \\le \\dot q_{max}` with the model's velocity limits (× ``fraction``)."""
+
+    name, kind = "velocity_limits", "ineq"
+
+    def __init__(self, fraction: float = 1.0, weight: float = 1.0) -> None:
+        self.fraction = in_range("JointVelocityLimits", "fraction", fraction, 0.01, 1.0)
+        self.weight = positive("JointVelocityLimits", "weight", weight)
+
+    def bind(self, state: TickState) -> None:
+        self.vmax = state.model.velocityLimit * self.fraction
+
+    def rows(self, state: TickState):
+        n, dt, v = state.nv, state.dt_s, state.dq
+        C = np.zeros((2 * n, 2 * n))
+        C[:n, :n] = np.eye(n)
+        C[n:, :n] = -np.eye(n)
+        return C, np.concatenate([(self.vmax - v) / dt, (self.vmax + v) / dt])
+
+
+class Transparency(Task):
+    """Force-feedback transparency normalised by the mass matrix.
+
+    The robot should move under the wearer's measured cuff wrenches as if its
+    inertia were a fraction :math:`\\alpha = 1 - c` of the real one, gravity
+    being compensated:
+
+    .. math:: \\alpha M(q)\\,\\ddot q = \\sum_c J_c^T w_c
+
+    With the dynamics :math:`M\\ddot q + h = \\tau + \\sum_c J_c^T w_c` this is
+    the torque :math:`\\tau = h + \\tfrac{1-\\alpha}{\\alpha} \\sum_c J_c^T w_c`:
+    force feedback whose gain, expressed through M, is the same in every
+    posture and for every wearer (the joint-space form of the operational-space
+    normalisation of Khatib 1987; REFERENCES.md section 12).
+    ``inertia_compensation`` c = 0.5 halves the felt inertia.
+    """
+
+    name, kind = "transparency", "eq"
+
+    def __init__(self, inertia_compensation: float = 0.5, weight: float = 1.0) -> None:
+        self.c = in_range("Transparency", "inertia_compensation", inertia_compensation, 0.0, 0.9)
+        self.weight = positive("Transparency", "weight", weight)
+
+    def rows(self, state: TickState):
+        return _q_part(state, (1.0 - self.c) * state.M), state.cuff_force.copy()
+
+
+class JointDamping(Task):
+    """Joint damping on acceleration level: :math:`\\ddot q = -\\dot q / T_d` (time constant ``time_constant_s``)."""
+
+    name, kind = "damping", "eq"
+
+    def __init__(self, time_constant_s: float = 0.2, weight: float = 1e-3) -> None:
+        self.T = positive("JointDamping", "time_constant_s", time_constant_s, "s")
+        self.weight = positive("JointDamping", "weight", weight)
+
+    def rows(self, state: TickState):
+        return _q_part(state, np.eye(state.nv)), -state.dq / self.T
+
+
+class Posture(Task):
+    """Joint-space PD towards a posture: :math:`\\ddot q = \\omega^2 (q^* - q) - 2\\zeta\\omega \\dot q`."""
+
+    name, kind = "posture", "eq"
+
+    def __init__(self, posture_rad, frequency_Hz: float = 1.0, damping_ratio: float = 1.0, weight: float = 1e-3):
+        self.q_ref = np.array(posture_rad, dtype=float)
+        self.w = 2 * math.pi * positive("Posture", "frequency_Hz", frequency_Hz, "Hz")
+        self.z = nonnegative("Posture", "damping_ratio", damping_ratio)
+        self.weight = positive("Posture", "weight", weight)
+
+    def bind(self, state: TickState) -> None:
+        if self.q_ref.shape != (state.nv,):
+            raise ParameterError(f"Posture.posture_rad must have {state.nv} entries, got {self.q_ref.shape}")
+
+    def rows(self, state: TickState):
+        b = self.w**2 * pin.difference(state.model, state.q, self.q_ref) - 2 * self.z * self.w * state.dq
+        return _q_part(state, np.eye(state.nv)), b
+
+
+# -- virtual walls -------------------------------------------------------------------------
+@dataclass(frozen=True)
+class WallLaw:
+    """Spring-damper of a virtual wall: stiffness [N/m], damping [N s/m]."""
+
+    stiffness_N_per_m: float = 1000.0
+    damping_N_s_per_m: float = 10.0
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "stiffness_N_per_m",
+                           positive("WallLaw", "stiffness_N_per_m", self.stiffness_N_per_m, "N/m"))
+        object.__setattr__(self, "damping_N_s_per_m",
+                           nonnegative("WallLaw", "damping_N_s_per_m", self.damping_N_s_per_m, "N s/m"))
+
+
+class _Wall(Task):
+    """Shared one-sided wall law on a frame (the hand point by default).
+
+    For each touched face with unit normal n pointing into the wall and
+    penetration p > 0, one row makes the frame move along n as a mass
+    :math:`m_n` pushed by the wearer's force and held back by the wall:
+
+    .. math::
+        m_n\\, n^T (J \\ddot q + \\dot J \\dot q) = n^T f_{hand} - K p - B\\, n^T \\dot x
+
+    with :math:`m_n = \\alpha / (n^T J M^{-1} J^T n)` the robot's own
+    operational-space mass along n (Khatib 1987) scaled like the
+    transparency task.  In quasi-static contact the wearer then feels
+    :math:`K p + B \\dot p`: the commanded spring-damper.  ``f_hand`` is the
+    wrench measured by the hand cuff sensor, rotated to the world.
+
+    The wearer's hand sits ahead of the robot's by the cuff's deflection.  With
+    ``cuff_stiffness_N_per_m`` (the sensor-frame translational stiffness of the
+    hand cuff) the penetration is taken at the estimated human hand point,
+    :math:`p = n^T(x + R K_c^{-1} f - x_0)`, so that the wearer feels K
+    against their own penetration; the robot then renders the series
+    stiffness :math:`K/(1 - K/k_c)`, which bounds K below the cuff stiffness
+    :math:`k_c` along n (documented maximum: K <= k_c / 2).
+    """
+
+    kind = "eq"
+
+    def __init__(self, law: WallLaw, frame: str, sensor: str, inertia_compensation: float, weight: float,
+                 cuff_stiffness_N_per_m=None) -> None:
+        self.law = law if isinstance(law, WallLaw) else WallLaw(*law)
+        self.frame, self.sensor = frame, sensor
+        self.cuff_compliance = None
+        if cuff_stiffness_N_per_m is not None:
+            k = np.array(vector(type(self).__name__, "cuff_stiffness_N_per_m", cuff_stiffness_N_per_m, 3))
+            if np.any(k <= 0):
+                raise ParameterError(f"{type(self).__name__}.cuff_stiffness_N_per_m must be > 0, got {k}")
+            self.cuff_compliance = 1.0 / k
+        self.alpha = 1.0 - in_range(type(self).__name__, "inertia_compensation", inertia_compensation, 0.0, 0.9)
+        self.weight = positive(type(self).__name__, "weight", weight)
+
+    def bind(self, state: TickState) -> None:
+        self.fid = state.arm.frame_id(self.frame)
+        if self.sensor not in state.cuff_ids:
+            raise ParameterError(
+                f"{self.name}: no cuff sensor named {self.sensor!r}; sensors are {sorted(state.cuff_ids)}")
+        self.sid = state.cuff_ids[self.sensor]
+
+    def faces(self, p: np.ndarray) -> list[tuple[np.ndarray, float]]:
+        """(normal into the wall, penetration [m]) of every touched face at position p."""
+        raise NotImplementedError
+
+    def rows(self, state: TickState):
+        w = state.measurement.cuff_wrench[self.sensor]
+        R = state.rotation(self.sid)
+        f_world = R @ w[:3]
+        p = state.position(self.fid)
+        if self.cuff_compliance is not None:
+            p = p + R @ (self.cuff_compliance * w[:3])  # the wearer's hand point
+        touched = self.faces(p)
+        if not touched:
+            return None
+        J = state.jacobian(self.fid)[:3]
+        drift = state.drift(self.fid)[:3]
+        v = J @ state.dq
+        Minv_JT = np.linalg.solve(state.M, J.T)
+        A = np.zeros((len(touched), 2 * state.nv))
+        b = np.zeros(len(touched))
+        K, B = self.law.stiffness_N_per_m, self.law.damping_N_s_per_m
+        for i, (n, pen) in enumerate(touched):
+            m_n = self.alpha / float(n @ J @ Minv_JT @ n)
+            A[i, : state.nv] = m_n * (n @ J)
+            b[i] = float(n @ f_world) - K * pen - B * float(n @ v) - m_n * float(n @ drift)
+        return A, b
+
+
+class PlaneWall(_Wall):
+    """Half-space wall: the frame may not go beyond the plane through ``point_m`` with normal ``normal``.
+
+    ``normal`` points into the wall; penetration :math:`p = n^T (x - x_0)`.
+    """
+
+    name = "wall_plane"
+
+    def __init__(self, point_m, normal, law: WallLaw = WallLaw(), *, frame: str = "exo_hand_point",
+                 sensor: str = "hand", inertia_compensation: float = 0.5, weight: float = 1.0,
+                 cuff_stiffness_N_per_m=None) -> None:
+        super().__init__(law, frame, sensor, inertia_compensation, weight, cuff_stiffness_N_per_m)
+        self.x0 = np.array(vector("PlaneWall", "point_m", point_m, 3))
+        n = np.array(vector("PlaneWall", "normal", normal, 3))
+        if not np.linalg.norm(n) > 0:
+            raise ParameterError("PlaneWall.normal must be non-zero")
+        self.n = n / np.linalg.norm(n)
+
+    def faces(self, p):
+        pen = float(self.n @ (p - self.x0))
+        return [(self.n, pen)] if pen > 0.0 else []
+
+
+class BoxWall(_Wall):
+    """Keep the frame inside an axis-aligned box ``[lower_m, upper_m]`` (world frame)."""
+
+    name = "wall_box"
+
+    def __init__(self, lower_m, upper_m, law: WallLaw = WallLaw(), *, frame: str = "exo_hand_point",
+                 sensor: str = "hand", inertia_compensation: float = 0.5, weight: float = 1.0,
+                 cuff_stiffness_N_per_m=None) -> None:
+        super().__init__(law, frame, sensor, inertia_compensation, weight, cuff_stiffness_N_per_m)
+        self.lo = np.array(vector("BoxWall", "lower_m", lower_m, 3))
+        self.hi = np.array(vector("BoxWall", "upper_m", upper_m, 3))
+        if not np.all(self.lo < self.hi):
+            raise ParameterError(f"BoxWall: lower_m {self.lo} must be below upper_m {self.hi} on every axis")
+
+    def faces(self, p):
+        out = []
+        for k in range(3):
+            e = np.zeros(3)
+            e[k] = 1.0
+            if p[k] > self.hi[k]:
+                out.append((e, float(p[k] - self.hi[k])))
+            if p[k] < self.lo[k]:
+                out.append((-e, float(self.lo[k] - p[k])))
+        return out
+
+
+class SphereWall(_Wall):
+    """Keep the frame out of (``inside=False``) or inside (``inside=True``) a sphere."""
+
+    name = "wall_sphere"
+
+    def __init__(self, center_m, radius_m: float, law: WallLaw = WallLaw(), *, inside: bool = False,
+                 frame: str = "exo_hand_point", sensor: str = "hand", inertia_compensation: float = 0.5,
+                 weight: float = 1.0, cuff_stiffness_N_per_m=None) -> None:
+        super().__init__(law, frame, sensor, inertia_compensation, weight, cuff_stiffness_N_per_m)
+        self.c = np.array(vector("SphereWall", "center_m", center_m, 3))
+        self.r = positive("SphereWall", "radius_m", radius_m, "m")
+        self.inside = bool(inside)
+
+    def faces(self, p):
+        d = p - self.c
+        dist = float(np.linalg.norm(d))
+        if dist < 1e-12:
+            return []
+        u = d / dist
+        if self.inside:
+            return [(u, dist - self.r)] if dist > self.r else []
+        return [(-u, self.r - dist)] if dist < self.r else []
