@@ -34,5 +34,5 @@ SCENARIO = Scenario(
         ),
     ),
     duration_s=3.1,
-    controllers=("gravity", "zero"),
+    controllers=("gravity", "zero", "transparent", "walls"),
 )

@@ -108,3 +108,60 @@ def run_metrics(
         out["human_effort_ratio"] = effort / base if base > 0 else None
         out["path_deviation_rms_rad"] = path_deviation_rms_rad(arrays["q_human"], baseline["q_human"])
     return out
+
+
+# -- walls and limits -----------------------------------------------------------------------
+def plane_penetration_m(p: np.ndarray, point_m, normal) -> np.ndarray:
+    """:math:`n^T (p - x_0)` per tick [m], n the unit normal pointing into the wall."""
+    n = np.asarray(normal, dtype=float)
+    n = n / np.linalg.norm(n)
+    return (np.asarray(p) - np.asarray(point_m, dtype=float)) @ n
+
+
+def rendered_wall_stiffness_N_per_m(
+    force_N: np.ndarray, penetration_m: np.ndarray, dt_s: float, *,
+    min_penetration_m: float = 1e-3, max_speed_m_s: float = 0.02,
+) -> float | None:
+    """Least-squares slope of wall-normal force against penetration over the quasi-static contact.
+
+    Samples count when the penetration exceeds ``min_penetration_m`` and its
+    rate (central difference) is below ``max_speed_m_s`` (quasi-static part;
+    common practice); the fit is :math:`F = k p + c` (``numpy.polyfit``).
+    Returns None when fewer than 20 samples qualify.
+    """
+    p = np.asarray(penetration_m, dtype=float)
+    F = np.asarray(force_N, dtype=float)
+    v = np.gradient(p, dt_s) if len(p) > 2 else np.zeros_like(p)
+    sel = (p > min_penetration_m) & (np.abs(v) < max_speed_m_s)
+    if np.count_nonzero(sel) < 20 or np.ptp(p[sel]) < 1e-4:
+        return None
+    return float(np.polyfit(p[sel], F[sel], 1)[0])
+
+
+def joint_limit_violation_count(q: np.ndarray, lower: np.ndarray, upper: np.ndarray, tol_rad: float = 1e-9) -> int:
+    """Number of ticks in which any joint is outside ``[lower - tol, upper + tol]``."""
+    q = np.asarray(q)
+    return int(np.count_nonzero(np.any((q < np.asarray(lower) - tol_rad) | (q > np.asarray(upper) + tol_rad), axis=-1)))
+
+
+def wall_metrics(arrays: Mapping[str, np.ndarray], *, point_m, normal, stiffness_N_per_m: float,
+                 hand_cuff: int, dt_s: float, lower, upper) -> dict:
+    """The wall keys of ``metrics.json`` for a plane wall.
+
+    The force the human feels is the hand cuff's force on the human along
+    :math:`-n` (the wall pushes back); the penetration is the human hand
+    point's (``wall_stiffness_rendered_N_per_m``) or the robot hand point's
+    (``wall_stiffness_rendered_robot_N_per_m``).
+    """
+    n = np.asarray(normal, dtype=float)
+    n = n / np.linalg.norm(n)
+    felt = -(np.asarray(arrays["cuff_force_human_world"])[:, hand_cuff, :] @ n)
+    pen_h = plane_penetration_m(arrays["p_hand_human"], point_m, n)
+    pen_r = plane_penetration_m(arrays["p_hand_exo"], point_m, n)
+    return {
+        "wall_stiffness_commanded_N_per_m": float(stiffness_N_per_m),
+        "wall_stiffness_rendered_N_per_m": rendered_wall_stiffness_N_per_m(felt, pen_h, dt_s),
+        "wall_stiffness_rendered_robot_N_per_m": rendered_wall_stiffness_N_per_m(felt, pen_r, dt_s),
+        "wall_penetration_max_m": float(max(0.0, pen_h.max())),
+        "joint_limit_violation_count": joint_limit_violation_count(arrays["q_exo"], lower, upper),
+    }

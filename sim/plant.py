@@ -121,10 +121,16 @@ class CoupledPlant:
         #: Per cuff, the last wrench on the human [f; tau] in the human cuff frame, and on the robot in its frame.
         self.wrench_on_human = np.zeros((len(self.cuffs), 6))
         self.wrench_on_exo = np.zeros((len(self.cuffs), 6))
+        #: Per cuff, the force on the human in world axes [N].
+        self.force_on_human_world = np.zeros((len(self.cuffs), 3))
         self.cuff_energy_J = 0.0
         self.cuff_power_W = 0.0
         self._zero_e = np.zeros(me.nv)
         self._cuffs_fresh = False
+        self._hand = {}
+        for which, arm in (("exo", self.exo), ("human", self.human)):
+            f = arm.model.frames[arm.frame_id(arm.hand_frame)]
+            self._hand[which] = (f.parentJoint, f.placement.translation.copy())
 
     def invalidate(self) -> None:
         """Mark the cuff wrenches stale; call after changing a state vector in place."""
@@ -158,9 +164,16 @@ class CoupledPlant:
             w = cuff_wrench(oMa, oMb, va, vb, self._cuff_params[k])
             self.wrench_on_exo[k] = w.on_a
             self.wrench_on_human[k] = w.on_b
+            self.force_on_human_world[k] = oMb.rotation @ w.on_b[:3]
             energy += w.energy_J
             power += w.power_W
         self.cuff_energy_J, self.cuff_power_W = energy, power
+
+    def hand_position(self, which: str) -> np.ndarray:
+        """World position [m] of the hand point of ``"exo"`` or ``"human"`` (kinematics of the last update)."""
+        self.update_cuffs()
+        joint, offset = self._hand[which]
+        return (self._de if which == "exo" else self._dh).oMi[joint].act(offset)
 
     def _friction(self) -> np.ndarray:
         if not self.params.exo_friction:

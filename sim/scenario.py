@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import importlib.util
 import sys
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -57,6 +58,11 @@ class Scenario:
     control_period_s: float = 1e-3
     substeps: int = 4
     seed: int = 0
+    #: Virtual walls used by the ``walls`` variant: task specs such as
+    #: ``("wall_plane", {"point_m": (0.45, 0, 0), "normal": (1, 0, 0)})``.
+    walls: tuple = ()
+    #: The scenario's own controller variants: name -> ordered levels of task specs.
+    variants: Mapping[str, Sequence] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         o = f"Scenario({self.name!r})"
@@ -74,6 +80,8 @@ class Scenario:
             raise ParameterError(f"{o}.controllers must name at least one controller, got {self.controllers!r}")
         object.__setattr__(self, "controllers", ctrl)
         object.__setattr__(self, "cuffs", tuple(self.cuffs))
+        object.__setattr__(self, "walls", tuple(self.walls))
+        object.__setattr__(self, "variants", dict(self.variants))
         object.__setattr__(self, "control_period_s",
                            positive(o, "control_period_s", self.control_period_s, "s"))
         if not (isinstance(self.substeps, int) and self.substeps >= 1):

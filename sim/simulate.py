@@ -35,7 +35,7 @@ from models.records import Measurement
 
 from .actuators import TorqueSourceActuators
 from .human import HumanMotor
-from .metrics import run_metrics
+from .metrics import run_metrics, wall_metrics
 from .plant import CoupledPlant, PlantMode
 from .runlog import RunLog, environment_metadata, load_run
 from .scenario import Scenario
@@ -87,16 +87,17 @@ def _jsonable(obj):
 def _columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple[str, ...]) -> dict:
     cols: dict = {"t": ()}
     if mode != "exo_alone":
-        cols |= {"q_human": (nq_h,), "dq_human": (nq_h,), "tau_human": (nq_h,), "q_human_intent": (nq_h,)}
+        cols |= {"q_human": (nq_h,), "dq_human": (nq_h,), "tau_human": (nq_h,), "q_human_intent": (nq_h,),
+                 "p_hand_human": (3,)}
     if mode != "human_alone":
         cols |= {
             "q_exo": (nq_e,), "dq_exo": (nq_e,), "q_exo_meas": (nq_e,), "dq_exo_meas": (nq_e,),
-            "tau_cmd": (nq_e,), "tau_applied": (nq_e,), "saturated": ((nq_e,), "bool"),
+            "tau_cmd": (nq_e,), "tau_applied": (nq_e,), "saturated": ((nq_e,), "bool"), "p_hand_exo": (3,),
         }
         cols |= {f"diag_{d}": () for d in diag}
     if mode == "coupled":
         cols |= {"cuff_wrench_human": (n_cuffs, 6), "cuff_wrench_exo": (n_cuffs, 6),
-                 "cuff_wrench_meas": (n_cuffs, 6)}
+                 "cuff_wrench_meas": (n_cuffs, 6), "cuff_force_human_world": (n_cuffs, 3)}
     return cols
 
 
@@ -131,7 +132,8 @@ def simulate(
         tick stays loadable, and its ``meta.json`` says why it stopped.
     """
     seed = scenario.seed if seed is None else int(seed)
-    controller = make_controller(controller_name) if mode != "human_alone" else None
+    controller = (make_controller(controller_name, scenario.variants, scenario.walls)
+                  if mode != "human_alone" else None)
     asm = build_assembly(scenario)
     plant = CoupledPlant(asm, scenario.plant, mode)
     T, n_sub = scenario.control_period_s, scenario.substeps
@@ -144,7 +146,10 @@ def simulate(
             arm=asm.exo, cuff_frames={c.name: asm.exo.model.frames[c.exo_frame_id].name for c in asm.cuffs},
             dt_s=T)
         controller.reset(context)
-        diag_names = tuple(controller.diagnostic_names())
+        all_diag = tuple(controller.diagnostic_names())
+        # wall-clock diagnostics would break bit-identical logs: they go to timing.npz
+        diag_names = tuple(d for d in all_diag if not d.endswith("_time_s"))
+        timing_diag = tuple(d for d in all_diag if d.endswith("_time_s"))
         joints = JointSensing(scenario.encoder, asm.exo.nv, T, rng_joint)
         joints.reset(plant.q_exo)
         fts = [ForceTorqueSensor(scenario.force_sensor, T, r) for r in rng_cuffs]
@@ -153,7 +158,7 @@ def simulate(
         actuators = TorqueSourceActuators(asm.exo.model.effortLimit, scenario.actuators)
         actuators.reset(np.zeros(asm.exo.nv))
     else:
-        diag_names = ()
+        diag_names = timing_diag = ()
     human = HumanMotor(plant.human, scenario.human, scenario.intent, scenario.motor) if plant.has_human else None
     n = scenario.n_ticks
     meta = {
@@ -166,6 +171,7 @@ def simulate(
     cols = _columns(mode, asm.exo.nq, asm.human.nq, len(asm.cuffs), diag_names)
     folder = Path(folder)
     tick_times, controller_times = np.zeros(n), np.zeros(n)
+    timing = {d: np.zeros(n) for d in timing_diag}
     zero_e, zero_h = np.zeros(asm.exo.nv), np.zeros(asm.human.nv)
     meas_wrench = np.zeros((len(asm.cuffs), 6))
     zero_w = np.zeros(6)
@@ -205,10 +211,17 @@ def simulate(
                 diag = controller.diagnostics()
                 for d in diag_names:
                     row[f"diag_{d}"] = float(diag.get(d, np.nan))
+                for d in timing_diag:
+                    timing[d][k] = float(diag.get(d, np.nan))
+            if human is not None:
+                row["p_hand_human"] = plant.hand_position("human")
+            if controller is not None:
+                row["p_hand_exo"] = plant.hand_position("exo")
             if mode == "coupled":
                 row["cuff_wrench_human"] = plant.wrench_on_human
                 row["cuff_wrench_exo"] = plant.wrench_on_exo
                 row["cuff_wrench_meas"] = meas_wrench
+                row["cuff_force_human_world"] = plant.force_on_human_world
             log.append(**row)
             for _ in range(n_sub):
                 tau_e = actuators.substep(plant.q_exo, plant.v_exo, h) if controller is not None else zero_e
@@ -220,7 +233,8 @@ def simulate(
                                       f"(scenario {scenario.name!r}, controller {controller_name!r})")
             if progress is not None:
                 progress(k + 1, n)
-        np.savez(folder / "timing.npz", tick_time_s=tick_times, controller_time_s=controller_times)
+        np.savez(folder / "timing.npz", tick_time_s=tick_times, controller_time_s=controller_times,
+                 **{f"diag_{d}": v for d, v in timing.items()})
         metrics = {"sim_duration_s": n * T, "tick_time_median_us": float(np.median(tick_times) * 1e6)}
         log.close("complete", metrics=None if mode == "coupled" else metrics)
     return RunResult(folder, metrics, True)
@@ -240,7 +254,7 @@ def run_scenario(
     ``metrics.json``) and the baseline to ``out_dir/human_alone``.
     """
     out = Path(out_dir)
-    make_controller(controller_name)  # fail on an unknown name before anything is written
+    make_controller(controller_name, scenario.variants, scenario.walls)  # fail on a bad name before writing
     n = scenario.n_ticks
     coupled_progress = (lambda k, _n: progress(k, 2 * n)) if progress else None
     base_progress = (lambda k, _n: progress(n + k, 2 * n)) if progress else None
@@ -251,8 +265,31 @@ def run_scenario(
         tick_times = f["tick_time_s"]
     metrics = run_metrics(run.arrays, cuff_names=run.meta["cuffs"], baseline=base.arrays,
                           dt_s=scenario.control_period_s, tick_times_s=tick_times)
+    plane = next((w for w in scenario.walls if isinstance(w, tuple) and w and w[0] == "wall_plane"), None)
+    if plane is not None:
+        spec = dict(plane[1])
+        law = spec.get("law", (1000.0, 10.0))
+        stiffness = law.stiffness_N_per_m if hasattr(law, "stiffness_N_per_m") else float(law[0])
+        if not _renders_walls(scenario, controller_name):
+            stiffness = 0.0  # this variant commands no wall
+        asm = build_assembly(scenario)
+        lo, hi = asm.exo.position_limits()
+        hand = run.meta["cuffs"].index(spec.get("sensor", "hand"))
+        metrics |= wall_metrics(run.arrays, point_m=spec["point_m"], normal=spec["normal"],
+                                stiffness_N_per_m=stiffness, hand_cuff=hand,
+                                dt_s=scenario.control_period_s, lower=lo, upper=hi)
     write_json(out / "metrics.json", metrics)
     return RunResult(out, metrics, True)
+
+
+def _renders_walls(scenario: Scenario, controller_name: str) -> bool:
+    """Whether the variant holds a wall task (the shipped ``walls`` or a scenario variant)."""
+    if controller_name in scenario.variants:
+        from controllers.registry import build_levels
+        from controllers.tasks.library import _Wall
+
+        return any(isinstance(t, _Wall) for level in build_levels(scenario.variants[controller_name]) for t in level)
+    return controller_name == "walls"
 
 
 def write_json(path: Path, obj) -> None:

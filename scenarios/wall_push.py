@@ -1,0 +1,57 @@
+"""Pushing into a virtual wall: a seated wearer presses the hand toward a target behind a plane.
+
+Our own clinic-like setting: a vertical virtual plane stands in front of the
+wearer, a little closer than arm's length, as a boundary a therapist might set
+so that a reach stops short of a table edge.  The wearer pushes the hand toward
+a point behind it, holds, and releases, three times: slowly, fast and at a
+medium pace.  Under the ``walls`` variant the robot renders the plane as a
+spring-damper on the hand point; the other variants let the hand pass.
+"""
+
+import math
+
+from models.cuffs import CuffParams
+from sim.intent import JointIntent, Via
+from sim.scenario import Scenario
+
+
+def deg(*angles):
+    """Degrees to radians (joint order of models.human)."""
+    return tuple(math.radians(a) for a in angles)
+
+
+READY = deg(60, 0, 0, 80, 0, 0, 0)  # hand 5-6 cm in front of the wall
+BEHIND_WALL = deg(80, 0, 0, 25, 0, 0, 0)  # hand target about 9 cm behind it
+
+WALL_X_M = 0.52  # plane x = 0.52 m in front of the shoulder centre, normal pointing forward
+WALL_STIFFNESS_N_PER_M = 600.0
+WALL_DAMPING_N_S_PER_M = 5.0
+# along-limb stiffness of the hand cuff: the wall is rendered at the wearer's hand, not the robot's
+HAND_CUFF_STIFFNESS = CuffParams().stiffness_N_per_m
+
+SCENARIO = Scenario(
+    name="wall_push",
+    description="push the hand into a virtual plane and release, slow, fast and medium",
+    subject="m50",
+    intent=JointIntent(
+        start_rad=READY,
+        start_hold_s=0.5,
+        vias=(
+            Via(BEHIND_WALL, move_s=1.2, hold_s=1.0),
+            Via(READY, move_s=1.0, hold_s=0.5),
+            Via(BEHIND_WALL, move_s=0.5, hold_s=1.0),
+            Via(READY, move_s=0.5, hold_s=0.5),
+            Via(BEHIND_WALL, move_s=0.8, hold_s=1.0),
+            Via(READY, move_s=0.8, hold_s=0.3),
+        ),
+    ),
+    duration_s=9.6,
+    controllers=("walls", "transparent", "gravity", "zero"),
+    walls=(
+        ("wall_plane", {
+            "point_m": (WALL_X_M, 0.0, 0.0), "normal": (1.0, 0.0, 0.0),
+            "law": (WALL_STIFFNESS_N_PER_M, WALL_DAMPING_N_S_PER_M),
+            "cuff_stiffness_N_per_m": HAND_CUFF_STIFFNESS,
+        }),
+    ),
+)
