@@ -270,7 +270,8 @@ def run_scenario(
         spec = dict(plane[1])
         law = spec.get("law", (1000.0, 10.0))
         stiffness = law.stiffness_N_per_m if hasattr(law, "stiffness_N_per_m") else float(law[0])
-        if not _renders_walls(scenario, controller_name):
+        renders = _renders_walls(scenario, controller_name)
+        if not renders:
             stiffness = 0.0  # this variant commands no wall
         asm = build_assembly(scenario)
         lo, hi = asm.exo.position_limits()
@@ -278,6 +279,8 @@ def run_scenario(
         metrics |= wall_metrics(run.arrays, point_m=spec["point_m"], normal=spec["normal"],
                                 stiffness_N_per_m=stiffness, hand_cuff=hand,
                                 dt_s=scenario.control_period_s, lower=lo, upper=hi)
+        if not renders:  # a slope of force on penetration means nothing without a wall
+            metrics["wall_stiffness_rendered_N_per_m"] = metrics["wall_stiffness_rendered_robot_N_per_m"] = None
     write_json(out / "metrics.json", metrics)
     return RunResult(out, metrics, True)
 

@@ -122,3 +122,18 @@ def test_unknown_task_or_parameter_in_a_variant_names_it():
         build_levels([["wal_plane"]], "typo")
     with pytest.raises(ParameterError, match="task 'transparency'.*stiffness"):
         build_levels([[("transparency", {"stiffness": 3})]], "typo")
+
+
+def test_wall_push_metrics_json_holds_the_wall_keys_under_walls(tmp_path):
+    # the keys the wall_push scenario adds to metrics.json (names exactly as in the issue)
+    import json
+
+    sc = load_scenario(SCENARIOS / "wall_push.py")
+    run_scenario(sc, "walls", tmp_path / "run")
+    m = json.loads((tmp_path / "run" / "metrics.json").read_text())
+    for key in ("wall_stiffness_commanded_N_per_m", "wall_stiffness_rendered_N_per_m", "wall_penetration_max_m",
+                "joint_limit_violation_count"):
+        assert key in m
+    assert m["wall_stiffness_commanded_N_per_m"] == 600.0  # scenarios/wall_push.py
+    assert m["wall_stiffness_rendered_N_per_m"] == pytest.approx(600.0, rel=0.15)
+    assert m["joint_limit_violation_count"] == 0
