@@ -17,6 +17,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from _scenario_files import write_scenario
 
 import sim
 from controllers.base import Controller
@@ -38,27 +39,6 @@ METRIC_KEYS = (
     "torque_saturation_fraction", "tick_time_median_us", "realtime_factor",
 )
 
-_FIELDS = {
-    "name": '"short"',
-    "subject": '"m50"',
-    "intent": "JointIntent(start_rad=deg(15, 10, 0, 80, 0, 0, 0), start_hold_s=0.05,"
-              " vias=(Via(deg(40, 10, 0, 60, 10, 0, 0), move_s=0.5),))",
-    "duration_s": "0.2",
-    "controllers": '("gravity", "zero")',
-}
-
-
-def write_scenario(path: Path, **fields: str | None) -> Path:
-    """A small scenario file; each keyword overrides a field's source text (None leaves it out)."""
-    items = {**_FIELDS, **fields}
-    body = "".join(f"    {k}={v},\n" for k, v in items.items() if v is not None)
-    path.write_text(
-        "import math\n\nfrom sim.intent import JointIntent, Via\nfrom sim.scenario import Scenario\n\n\n"
-        "def deg(*a):\n    return tuple(math.radians(x) for x in a)\n\n\n"
-        f"SCENARIO = Scenario(\n{body})\n",
-        encoding="utf-8",
-    )
-    return path
 
 
 # ----------------------------------------------------------------------------------------------

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 import pinocchio as pin
+import pytest
 
 import models
 from controllers.tasks import JointPositionLimits, TickState
@@ -96,3 +97,46 @@ def test_braking_distance_bound_stops_a_fast_joint_inside_its_range():
         assert np.all(q <= hi - 0.02 + 1e-9)  # inside the range, margin included
         assert np.all(v <= np.sqrt(2 * 20.0 * room) + 1e-9)  # the next tick can still brake in time
     assert np.all(q > hi - 0.03)  # and it used the room it had
+
+
+def _wall_state(q):
+    arm = models.build_exo()
+    s = TickState(arm, {"hand": "exo_cuff_hand"}, 1e-3)
+    s.update(Measurement(0.0, q, np.zeros(7), np.zeros(7), {"hand": np.zeros(6)}))
+    return arm, s
+
+
+def test_walls_are_one_sided_and_their_faces_follow_the_geometry():
+    # closed-form geometry: plane n.(x - x0), box faces per axis, sphere |x - c| - r
+    from controllers.tasks import BoxWall, PlaneWall, SphereWall
+
+    p = np.array([0.3, -0.1, -0.4])
+    plane = PlaneWall((0.25, 0, 0), (2.0, 0, 0))
+    assert plane.faces(p)[0][1] == pytest.approx(0.05) and np.allclose(plane.faces(p)[0][0], [1, 0, 0])
+    assert PlaneWall((0.35, 0, 0), (1, 0, 0)).faces(p) == []  # not touched: no rows
+    box = BoxWall((-0.2, -0.05, -0.5), (0.2, 0.2, 0.0))
+    faces = {tuple(n): d for n, d in box.faces(p)}
+    assert faces == {(1.0, 0.0, 0.0): pytest.approx(0.1), (0.0, -1.0, 0.0): pytest.approx(0.05)}
+    keep_out = SphereWall((0.3, -0.1, -0.3), 0.15)
+    (n, d), = keep_out.faces(p)
+    assert d == pytest.approx(0.05) and np.allclose(n, [0, 0, 1])  # pushed back out, along -(outward)
+    keep_in = SphereWall((0.3, -0.1, -0.3), 0.05, inside=True)
+    (n, d), = keep_in.faces(p)
+    assert d == pytest.approx(0.05) and np.allclose(n, [0, 0, -1])
+
+
+def test_plane_wall_row_holds_the_robot_still_when_the_wearer_pushes_with_the_spring_force():
+    # quasi-static equilibrium of m_n a = f_n - K p - B v: zero acceleration when f_n = K p (Hooke)
+    from controllers.tasks import PlaneWall
+    from controllers.tasks.library import WallLaw
+
+    q = np.radians([100, 5, -60, 20, 20, 0, 0])
+    arm, s = _wall_state(q)
+    x = s.position(arm.frame_id("exo_hand_point"))
+    wall = PlaneWall(x - np.array([0.01, 0, 0]), (1, 0, 0), WallLaw(800.0, 0.0))  # 1 cm inside the wall
+    wall.bind(s)
+    R = s.rotation(arm.frame_id("exo_cuff_hand"))
+    f_world = np.array([800.0 * 0.01, 0, 0])  # the wearer pushes with exactly K p along n
+    s.update(Measurement(0.0, q, np.zeros(7), np.zeros(7), {"hand": np.concatenate([R.T @ f_world, np.zeros(3)])}))
+    A, b = wall.rows(s)
+    assert A.shape == (1, 14) and b[0] == pytest.approx(0.0, abs=1e-9)
