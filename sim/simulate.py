@@ -165,6 +165,11 @@ def simulate(
         "scenario": scenario.name, "controller": controller_name if controller else None, "mode": mode,
         "seed": seed, "dt_s": T, "substeps": n_sub, "n_ticks_planned": n, "cuffs": cuff_names,
         "exo_joints": list(asm.exo.joint_names), "human_joints": list(asm.human.joint_names),
+        "models": {"exo_urdf": "exo.urdf", "human_urdf": "human.urdf", "exo_hand_frame": asm.exo.hand_frame,
+                   "human_hand_frame": asm.human.hand_frame,
+                   "cuff_frames": {c.name: [asm.exo.model.frames[c.exo_frame_id].name,
+                                            asm.human.model.frames[c.human_frame_id].name] for c in asm.cuffs}},
+        "walls": _jsonable(scenario.walls),
         "parameters": _jsonable(scenario), "exo_params": _jsonable(asm.exo_params),
         "environment": environment_metadata(),
     }
@@ -177,6 +182,9 @@ def simulate(
     zero_w = np.zeros(6)
     # a blow-up is detected below and reported as SimulationError, not as numpy warnings
     with RunLog(folder, cols, metadata=meta) as log, np.errstate(over="ignore", invalid="ignore"):
+        # the very models of the run, for viewers and for reproducing it with any URDF tool
+        (folder / "exo.urdf").write_text(plant.exo.urdf, encoding="utf-8")
+        (folder / "human.urdf").write_text(plant.human.urdf, encoding="utf-8")
         row: dict = {}
         tau_cmd = zero_e
         for k in range(n):
