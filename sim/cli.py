@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+import time
 from collections.abc import Sequence
 from pathlib import Path
 
@@ -68,7 +69,14 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--controller", metavar="NAME", help="controller variant (default: the scenario's first)")
     r.add_argument("--seed", type=int, metavar="N", help="random seed (default: the scenario's)")
     r.add_argument("--out", metavar="DIR", help="run folder (default: runs/SCENARIO-CONTROLLER-seedN)")
+    r.add_argument("--view", action="store_true", help="watch the run live in the browser (meshcat on 127.0.0.1)")
     r.set_defaults(func=_cmd_run)
+
+    v = sub.add_parser("replay", help="replay a run folder in the browser, or write it as a self-contained HTML file")
+    v.add_argument("run_dir", metavar="RUN_DIR", help="a run folder written by 'exosandbox run'")
+    v.add_argument("--html", metavar="FILE", help="write a self-contained HTML replay instead of serving it")
+    v.add_argument("--fps", type=float, default=30.0, help="frames per second of the replay (default 30)")
+    v.set_defaults(func=_cmd_replay)
     return p
 
 
@@ -155,8 +163,10 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
             k += 1
             out = base.with_name(f"{base.name}-{k}")
     bar = _progress_bar(f"{scenario.name}/{controller}")
+    viewer = _LazyViewer(out) if args.view else None
     try:
-        result = run_scenario(scenario, controller, out, seed=seed, progress=bar.update if bar else None)
+        result = run_scenario(scenario, controller, out, seed=seed, progress=bar.update if bar else None,
+                              observer=viewer)
     except KeyboardInterrupt:
         raise _UserError(f"interrupted; the finished part of the log is kept in {out}") from None
     except SimulationError as e:
@@ -164,10 +174,51 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     finally:
         if bar:
             bar.close()
+        if viewer is not None:
+            viewer.close()
     m = result.metrics
     return (f"results in {out}: interaction_force_rms_N = {m['interaction_force_rms_N']:.2f}, "
             f"human_effort_ratio = {m['human_effort_ratio']:.3f}, realtime_factor = {m['realtime_factor']:.2f} "
             f"(all metrics in {out / 'metrics.json'})")
+
+
+class _LazyViewer:
+    """Opens the live viewer on the first tick, once the run folder holds its models."""
+
+    def __init__(self, folder: Path) -> None:
+        self.folder, self.viewer = folder, None
+
+    def __call__(self, t_s, q_exo, q_human, forces_world) -> None:
+        if self.viewer is None:
+            from .viz import LiveViewer
+
+            self.viewer = LiveViewer(self.folder)
+            print(f"live view at {self.viewer.url}", file=sys.stderr, flush=True)
+        self.viewer.update(t_s, q_exo, q_human, forces_world)
+
+    def close(self) -> None:
+        if self.viewer is not None:
+            self.viewer.close()
+
+
+def _cmd_replay(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    from . import viz
+    from .runlog import load_run
+
+    run_dir = Path(args.run_dir)
+    load_run(run_dir)  # a clear error for a missing or broken run folder
+    if not args.fps > 0:
+        parser.error(f"--fps must be > 0, got {args.fps}")
+    if args.html:
+        path = viz.write_replay_html(run_dir, Path(args.html), fps=args.fps)
+        return f"wrote {path} (open it in any browser; it needs no connection)"
+    vis, url = viz.replay(run_dir, fps=args.fps)
+    print(f"replay at {url} (Ctrl-C to stop)", flush=True)
+    try:
+        while True:
+            time.sleep(1.0)
+    except KeyboardInterrupt:
+        return "stopped"
 
 
 class _Bar:

@@ -44,6 +44,8 @@ from .sensors import ForceTorqueSensor, JointSensing
 __all__ = ["SimulationError", "RunResult", "build_assembly", "simulate", "run_scenario"]
 
 Progress = Callable[[int, int], None]
+#: Called after every tick with (t_s, q_exo, q_human, cuff forces on the human in world axes (n_cuffs, 3)).
+Observer = Callable[[float, np.ndarray, np.ndarray, np.ndarray], None]
 
 
 class SimulationError(SandboxError, RuntimeError):
@@ -109,6 +111,7 @@ def simulate(
     seed: int | None = None,
     mode: PlantMode = "coupled",
     progress: Progress | None = None,
+    observer: Observer | None = None,
 ) -> RunResult:
     """Run one scenario with one controller and write the run folder.
 
@@ -124,6 +127,8 @@ def simulate(
         Overrides ``scenario.seed``.
     mode : {"coupled", "human_alone", "exo_alone"}
     progress : callable(done_ticks, total_ticks), optional
+    observer : callable(t_s, q_exo, q_human, forces_world), optional
+        Called after every tick (a live viewer; it must throttle itself).
 
     Raises
     ------
@@ -241,6 +246,8 @@ def simulate(
                                       f"(scenario {scenario.name!r}, controller {controller_name!r})")
             if progress is not None:
                 progress(k + 1, n)
+            if observer is not None:
+                observer(t + T, plant.q_exo, plant.q_human, plant.force_on_human_world)
         np.savez(folder / "timing.npz", tick_time_s=tick_times, controller_time_s=controller_times,
                  **{f"diag_{d}": v for d, v in timing.items()})
         metrics = {"sim_duration_s": n * T, "tick_time_median_us": float(np.median(tick_times) * 1e6)}
@@ -255,6 +262,7 @@ def run_scenario(
     *,
     seed: int | None = None,
     progress: Progress | None = None,
+    observer: Observer | None = None,
 ) -> RunResult:
     """A coupled run plus its human-alone baseline (same scenario and seed), with metrics.
 
@@ -266,7 +274,7 @@ def run_scenario(
     n = scenario.n_ticks
     coupled_progress = (lambda k, _n: progress(k, 2 * n)) if progress else None
     base_progress = (lambda k, _n: progress(n + k, 2 * n)) if progress else None
-    simulate(scenario, controller_name, out, seed=seed, progress=coupled_progress)
+    simulate(scenario, controller_name, out, seed=seed, progress=coupled_progress, observer=observer)
     simulate(scenario, controller_name, out / "human_alone", seed=seed, mode="human_alone", progress=base_progress)
     run, base = load_run(out), load_run(out / "human_alone")
     with np.load(out / "timing.npz", allow_pickle=False) as f:
