@@ -192,7 +192,7 @@ class _LazyViewer:
         if self.viewer is None:
             from .viz import LiveViewer
 
-            self.viewer = LiveViewer(self.folder)
+            self.viewer = LiveViewer(self.folder, max_fps=30, background=True)
             print(f"live view at {self.viewer.url}", file=sys.stderr, flush=True)
         self.viewer.update(t_s, q_exo, q_human, forces_world)
 
