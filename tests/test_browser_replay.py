@@ -10,7 +10,9 @@ Skipped, with the reason, when no Chromium is installed.
 from __future__ import annotations
 
 import dataclasses
+import os
 import shutil
+import signal
 import struct
 import subprocess
 import zlib
@@ -102,13 +104,28 @@ def html(tmp_path_factory):
 
 
 def _screenshot(chromium: str, html: Path, png: Path, budget_ms: int, profile: Path) -> np.ndarray:
-    cmd = [chromium, "--headless", "--no-sandbox", "--disable-gpu", "--enable-unsafe-swiftshader",
-           "--disable-background-networking", "--disable-component-update", "--disable-sync", "--no-first-run",
-           f"--user-data-dir={profile}", "--window-size=1024,768", f"--screenshot={png}",
-           f"--virtual-time-budget={budget_ms}", html.resolve().as_uri()]
-    proc = subprocess.run(cmd, capture_output=True, timeout=60, check=False)
-    assert png.is_file(), f"no screenshot (exit {proc.returncode}): {proc.stderr.decode(errors='replace')[-800:]}"
-    return read_png(png)
+    """One headless screenshot; a browser that hangs (before or after writing it) is killed and retried."""
+    errors = []
+    for attempt in range(3):
+        png.unlink(missing_ok=True)
+        cmd = [chromium, "--headless", "--no-sandbox", "--disable-gpu", "--enable-unsafe-swiftshader",
+               "--disable-background-networking", "--disable-component-update", "--disable-sync", "--no-first-run",
+               f"--user-data-dir={profile}-{attempt}", "--window-size=1024,768", f"--screenshot={png}",
+               f"--virtual-time-budget={budget_ms}", html.resolve().as_uri()]
+        proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, start_new_session=True)
+        try:
+            _, err = proc.communicate(timeout=90)
+        except subprocess.TimeoutExpired:
+            os.killpg(proc.pid, signal.SIGKILL)  # the browser and every helper process it started
+            _, err = proc.communicate()
+        if png.is_file():
+            try:
+                return read_png(png)
+            except Exception as e:  # a file cut short by the kill: take another shot
+                errors.append(f"attempt {attempt}: unreadable screenshot ({e})")
+                continue
+        errors.append(f"attempt {attempt}: exit {proc.returncode}: {err.decode(errors='replace')[-300:]}")
+    raise AssertionError("no screenshot after 3 attempts: " + " | ".join(errors))
 
 
 def test_html_replay_renders_and_plays(html, tmp_path):
