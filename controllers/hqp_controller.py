@@ -10,7 +10,7 @@ wrenches and the torque limits,
 
 then the levels, highest first (:func:`controllers.hqp.solve_hierarchy`;
 Kanoun, Lamiraux & Wieber 2011).  The command is the τ part of the solution.
-If a solve fails or the hard constraints cannot hold, the controller never
+If a solve fails, a task's linear algebra fails or the hard constraints cannot hold, the controller never
 uses a made-up answer: it commands the safe fallback
 :math:`\\tau = g(q) - D \\dot q` (gravity compensation and joint damping),
 counts the event and keeps its reason.
@@ -122,7 +122,7 @@ class HQPController(Controller):
             self._prev = res
             fallback = 0.0
             residuals = list(res.level_residuals)
-        except SandboxError as e:
+        except (SandboxError, np.linalg.LinAlgError) as e:  # a singular task matrix is a failed tick too
             tau = s.g - self.fallback_damping * s.dq
             self.fallback_count += 1
             self.last_fallback_reason = f"t = {measurement.t_s:.3f} s: {e}"

@@ -305,9 +305,9 @@ def _renders_walls(scenario: Scenario, controller_name: str) -> bool:
     """Whether the variant holds a wall task (the shipped ``walls`` or a scenario variant)."""
     if controller_name in scenario.variants:
         from controllers.registry import build_levels
-        from controllers.tasks.library import _Wall
+        from controllers.tasks import WallTask
 
-        return any(isinstance(t, _Wall) for level in build_levels(scenario.variants[controller_name]) for t in level)
+        return any(isinstance(t, WallTask) for level in build_levels(scenario.variants[controller_name]) for t in level)
     return controller_name == "walls"
 
 

@@ -13,6 +13,7 @@ from .library import (
     SphereWall,
     Transparency,
     WallLaw,
+    WallTask,
 )
 
 #: Task classes by the names scenario files use.
@@ -29,4 +30,4 @@ TASKS = {
 }
 
 __all__ = ["TickState", "Task", "TASKS", "BoxWall", "GravityTorque", "JointDamping", "JointPositionLimits",
-           "JointVelocityLimits", "PlaneWall", "Posture", "SphereWall", "Transparency", "WallLaw"]
+           "JointVelocityLimits", "PlaneWall", "Posture", "SphereWall", "Transparency", "WallLaw", "WallTask"]

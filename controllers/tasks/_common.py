@@ -46,7 +46,7 @@ class TickState:
         self.measurement = m
         self.q, self.dq = m.q_rad, m.dq_rad_s
         pin.forwardKinematics(model, data, self.q, self.dq, self._zero)  # a = 0: frame accelerations are J'q'
-        pin.computeJointJacobians(model, data, self.q)
+        pin.computeJointJacobians(model, data)  # reuses the placements just computed
         pin.updateFramePlacements(model, data)
         M = pin.crba(model, data, self.q)
         self.M = np.triu(M) + np.triu(M, 1).T

@@ -19,7 +19,7 @@ from .base import Task
 
 __all__ = [
     "GravityTorque", "JointPositionLimits", "JointVelocityLimits", "Transparency", "JointDamping", "Posture",
-    "PlaneWall", "BoxWall", "SphereWall",
+    "PlaneWall", "BoxWall", "SphereWall", "WallTask", "WallLaw",
 ]
 
 
@@ -182,7 +182,7 @@ class WallLaw:
                            nonnegative("WallLaw", "damping_N_s_per_m", self.damping_N_s_per_m, "N s/m"))
 
 
-class _Wall(Task):
+class WallTask(Task):
     """Shared one-sided wall law on a frame (the hand point by default).
 
     For each touched face with unit normal n pointing into the wall and
@@ -257,7 +257,7 @@ class _Wall(Task):
         return A, b
 
 
-class PlaneWall(_Wall):
+class PlaneWall(WallTask):
     """Half-space wall: the frame may not go beyond the plane through ``point_m`` with normal ``normal``.
 
     ``normal`` points into the wall; penetration :math:`p = n^T (x - x_0)`.
@@ -280,7 +280,7 @@ class PlaneWall(_Wall):
         return [(self.n, pen)] if pen > 0.0 else []
 
 
-class BoxWall(_Wall):
+class BoxWall(WallTask):
     """Keep the frame inside an axis-aligned box ``[lower_m, upper_m]`` (world frame)."""
 
     name = "wall_box"
@@ -306,7 +306,7 @@ class BoxWall(_Wall):
         return out
 
 
-class SphereWall(_Wall):
+class SphereWall(WallTask):
     """Keep the frame out of (``inside=False``) or inside (``inside=True``) a sphere."""
 
     name = "wall_sphere"
