@@ -61,6 +61,7 @@ __all__ = [
     "SegmentRow",
     "ShoulderRhythm",
     "HumanParams",
+    "hand_position_m",
     "HUMAN_ARM_JOINTS",
     "HUMAN_GIRDLE_JOINTS",
     "human_description",
@@ -472,6 +473,23 @@ def build_human(p: HumanParams | None = None, **placement) -> ArmModel:
         joint_names=p.joint_names,
         source="exosandbox_human_arm",
     )
+
+
+def hand_position_m(p: HumanParams | str, q_rad) -> np.ndarray:
+    """Position [m] of the hand point at posture ``q_rad``, thorax frame (origin: glenohumeral centre at rest).
+
+    Forward kinematics with pinocchio (``framesForwardKinematics``) on the
+    model of :func:`build_human`; with the girdle on, ``q_rad`` has 9 entries.
+    Scenario files use it to place targets and walls relative to the wearer.
+    """
+    hp = HumanParams(p) if isinstance(p, str) else p
+    arm = build_human(hp)
+    q = np.asarray(q_rad, dtype=float)
+    if q.shape != (arm.nq,):
+        raise ParameterError(f"hand_position_m: q_rad must have {arm.nq} entries for {hp.subject}, got shape {q.shape}")
+    data = arm.model.createData()
+    pin.framesForwardKinematics(arm.model, data, q)
+    return data.oMf[arm.frame_id(arm.hand_frame)].translation.copy()
 
 
 def humeral_elevation_rad(R_humerus: np.ndarray) -> float:

@@ -2,10 +2,17 @@
 
 A scenario file defines ``SCENARIO = Scenario(...)``.  Required fields have
 no default, so a file that forgets one fails with a message naming it.
+
+A file whose settings depend on the wearer (a wall placed relative to the
+hand, a target within reach) may also define
+``for_subject(subject: str) -> Scenario``; :func:`load_scenario` calls it when
+a subject is asked for (``exosandbox sweep --subjects``).  Without it, the
+subject is simply replaced.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import importlib.util
 import sys
 from collections.abc import Mapping, Sequence
@@ -100,8 +107,12 @@ class Scenario:
         return int(round(self.duration_s / self.control_period_s))
 
 
-def load_scenario(path: str | Path) -> Scenario:
+def load_scenario(path: str | Path, *, subject: str | None = None) -> Scenario:
     """Execute a scenario file and return its ``SCENARIO``.
+
+    With ``subject`` (a built-in subject name such as ``"f5"``), return the
+    file's ``for_subject(subject)`` if it defines one, else ``SCENARIO`` with
+    that subject.
 
     Any error while the file runs (a missing required field, a bad value, a
     typo) becomes a :class:`ScenarioError` whose one-line message names the
@@ -132,4 +143,17 @@ def load_scenario(path: str | Path) -> Scenario:
         raise ScenarioError(f"{p}: defines no SCENARIO = Scenario(...)")
     if not isinstance(scenario, Scenario):
         raise ScenarioError(f"{p}: SCENARIO must be a Scenario, got {type(scenario).__name__}")
+    if subject is None:
+        return scenario
+    try:
+        factory = getattr(module, "for_subject", None)
+        if factory is None:
+            return dataclasses.replace(scenario, subject=subject)
+        scenario = factory(subject)
+    except SandboxError as e:
+        raise ScenarioError(f"{p}: subject {subject!r}: {e}") from e
+    except Exception as e:  # a user's for_subject: report in one line, whatever it is
+        raise ScenarioError(f"{p}: for_subject({subject!r}): {type(e).__name__}: {e}") from e
+    if not isinstance(scenario, Scenario):
+        raise ScenarioError(f"{p}: for_subject({subject!r}) must return a Scenario, got {type(scenario).__name__}")
     return scenario
