@@ -90,7 +90,9 @@ class HQPController(Controller):
         return self._prev
 
     def diagnostic_names(self) -> tuple[str, ...]:
-        return ("solve_time_s", "fallback", "active_rows") + tuple(f"residual_{i}" for i in range(len(self.levels)))
+        p = range(len(self.levels))
+        return (("solve_time_s", "fallback", "active_rows") + tuple(f"residual_{i}" for i in p)
+                + tuple(f"level_{i}_time_s" for i in p))
 
     def diagnostics(self):
         return self._diag
@@ -122,6 +124,7 @@ class HQPController(Controller):
             self._prev = res
             fallback = 0.0
             residuals = list(res.level_residuals)
+            level_times = list(res.level_times_s)
         except (SandboxError, np.linalg.LinAlgError) as e:  # a singular task matrix is a failed tick too
             tau = s.g - self.fallback_damping * s.dq
             self.fallback_count += 1
@@ -130,9 +133,12 @@ class HQPController(Controller):
             self._prev = None
             fallback = 1.0
             residuals = [np.nan] * len(self.levels)
+            level_times = [np.nan] * len(self.levels)
         self._diag["solve_time_s"] = time.perf_counter() - t0
         self._diag["fallback"] = fallback
         self._diag["active_rows"] = float(rows)
         for i, r in enumerate(residuals):
             self._diag[f"residual_{i}"] = float(r)
+        for i, dt in enumerate(level_times):
+            self._diag[f"level_{i}_time_s"] = float(dt)
         return tau
