@@ -44,6 +44,7 @@ __all__ = [
     "MetricInfo",
     "METRICS",
     "TIMING_KEYS",
+    "is_timing_key",
     "flat_metrics",
 ]
 
@@ -570,6 +571,11 @@ METRICS: dict[str, MetricInfo] = {
 #: function of (scenario, controller, subject, seed) alone.
 TIMING_KEYS = frozenset({"hqp_solve_median_us", "hqp_solve_p99_us", "tick_time_median_us", "tick_time_p99_us",
                          "realtime_factor"})
+
+
+def is_timing_key(key: str) -> bool:
+    """Whether a (flat) metric key measures wall-clock time: :data:`TIMING_KEYS` and the per-level solve times."""
+    return key in TIMING_KEYS or key.startswith("hqp_levels.")
 
 
 def flat_metrics(metrics: Mapping) -> dict:
