@@ -206,7 +206,7 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     m = result.metrics
     return (f"results in {out}: interaction_force_rms_N = {m['interaction_force_rms_N']:.2f}, "
             f"human_effort_ratio = {m['human_effort_ratio']:.3f}, realtime_factor = {m['realtime_factor']:.2f} "
-            f"(all metrics in {out / 'metrics.json'})")
+            f"(all metrics in {out / 'metrics.json'}, report with plots in {out / 'report.md'})")
 
 
 class _LazyViewer:
