@@ -15,7 +15,7 @@ import numpy as np
 
 from .metrics import METRICS, flat_metrics, interaction_force_norm_N, plane_penetration_m
 
-__all__ = ["CAUTION", "best_index", "comparison_rows", "markdown_table", "write_run_report",
+__all__ = ["CAUTION", "best_index", "key_info", "comparison_rows", "markdown_table", "write_run_report",
            "compare_runs", "write_sweep_report"]
 
 #: Printed in every report.
@@ -78,6 +78,22 @@ def best_index(values: Sequence, better: str | None, commanded: Sequence | None 
     return min(valid)[1]
 
 
+def key_info(key: str) -> tuple[str, str | None, str]:
+    """Unit, better side and label of a flat metric key, per-cuff (``cuffs.NAME.KEY``) and per-level keys too."""
+    info = METRICS.get(key)
+    if info is not None:
+        return info.unit, info.better, info.label
+    if key.startswith("cuffs."):
+        _, cuff, tail = key.split(".", 2)
+        unit = "N" if tail.endswith("_N") else "N m" if tail.endswith("_Nm") else "-"
+        better = None if tail == "force_limit_N" else "lower" if tail.endswith(("_N", "_Nm", "_ratio")) else None
+        return unit, better, f"{cuff} cuff: {tail.replace('_', ' ')}"
+    if key.startswith("hqp_levels."):
+        _, level, tail = key.split(".", 2)
+        return "us", "lower", f"level {level}: {tail.replace('_', ' ')}"
+    return "", None, ""
+
+
 def comparison_rows(labels: Sequence[str], metrics: Sequence[Mapping]) -> list[dict]:
     """One row per metric key present in any run: ``key``, ``unit``, one value per label and ``best`` (a label or
     empty).  Known keys come in :data:`sim.metrics.METRICS` order, per-cuff and per-level keys after them."""
@@ -87,15 +103,7 @@ def comparison_rows(labels: Sequence[str], metrics: Sequence[Mapping]) -> list[d
     commanded = [f.get("wall_stiffness_commanded_N_per_m") for f in flats]
     rows = []
     for k in keys:
-        info = METRICS.get(k)
-        if info is None and k.startswith("cuffs."):
-            tail = k.rsplit(".", 1)[-1]
-            unit = "N" if tail.endswith("_N") else "N m" if tail.endswith("_Nm") else "-"
-            better = None if tail == "force_limit_N" else "lower" if tail.endswith(("_N", "_Nm", "_ratio")) else None
-        elif info is None and k.startswith("hqp_levels."):
-            unit, better = "us", "lower"
-        else:
-            unit, better = (info.unit, info.better) if info else ("", None)
+        unit, better, _ = key_info(k)
         values = [f.get(k) for f in flats]
         b = best_index(values, better, commanded)
         rows.append({"key": k, "unit": unit, **dict(zip(labels, values)), "best": labels[b] if b is not None else ""})
@@ -178,8 +186,7 @@ def write_run_report(folder: str | Path, metrics: Mapping | None = None) -> Path
                                                     folder / "plots" / "wall_force_penetration.png",
                                                     commanded_N_per_m=m.get("wall_stiffness_commanded_N_per_m")))
     flat = flat_metrics(m)
-    rows = [[k, METRICS[k].unit if k in METRICS else "", fmt(v), METRICS[k].label if k in METRICS else ""]
-            for k, v in flat.items()]
+    rows = [[k, key_info(k)[0], fmt(v), key_info(k)[2]] for k, v in flat.items()]
     text = [f"# Run report: {meta['scenario']} / {meta['controller']} / seed {meta['seed']}", "",
             f"Status: {meta.get('status', 'unknown')}, {fmt(m.get('sim_duration_s'))} s simulated at "
             f"{1.0 / float(meta['dt_s']):g} Hz control, {meta['substeps']} physics substeps.", "", CAUTION, "",
