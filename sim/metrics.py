@@ -381,6 +381,7 @@ def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: 
     out["cuff_twist"] = np.zeros(w.shape)
     out["kinetic_J"], out["potential_J"] = np.zeros(n), np.zeros(n)
     local = pin.ReferenceFrame.LOCAL
+    lower = np.tril_indices(nv, -1)  # crba fills the upper triangle only
     for k in range(n):
         pin.computeJointJacobians(model, data, q[k])
         pin.forwardKinematics(model, data, q[k], dq[k])
@@ -392,7 +393,7 @@ def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: 
         out["tau_interaction"][k] = tau
         out["tau_gravity"][k] = pin.computeGeneralizedGravity(model, data, q[k])
         M = pin.crba(model, data, q[k])
-        M = np.triu(M) + np.triu(M, 1).T
+        M[lower] = M.T[lower]
         out["tau_inertia"][k] = M @ ddq[k]
         out["kinetic_J"][k] = 0.5 * dq[k] @ M @ dq[k]
         out["potential_J"][k] = pin.computePotentialEnergy(model, data, q[k])
