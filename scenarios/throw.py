@@ -1,6 +1,6 @@
 """A fast overhand toss: a seated wearer cocks the hand beside the ear and throws a soft ball forward.
 
-Our own clinic-like setting: in a late-stage session the wearer tosses a foam
+Our own clinic-like setting: late in rehabilitation, the wearer tosses a foam
 ball to a therapist sitting opposite.  They lift the hand to beside the head
 (shoulder flexed 110 deg, elbow folded), then sweep the arm forward and down in
 0.45 s, extending the elbow and pronating the forearm, and let the arm settle
