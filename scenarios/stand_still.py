@@ -1,0 +1,31 @@
+"""A long stand-still: a seated wearer holds the forearm level for 25 s, as if carrying a tray.
+
+Our own clinic-like setting: a holding exercise.  The wearer keeps the upper
+arm slightly forward and the elbow at a right angle, forearm level, and does
+not move for 25 s.  Nothing should happen: the run checks that the controller
+neither drifts nor feeds the force sensors' noise back as motion the wearer
+would feel (the sensors have 0.3 N and 0.01 N m of noise by default).
+"""
+
+import math
+
+from sim.intent import JointIntent
+from sim.scenario import Scenario
+
+
+def deg(*angles):
+    """Degrees to radians, for writing postures (joint order of models.human)."""
+    return tuple(math.radians(a) for a in angles)
+
+
+# joints: gh flexion, gh abduction, gh rotation, elbow flexion, pronation, wrist flexion, wrist deviation
+HOLDING_TRAY = deg(20, 10, 0, 90, 0, 0, 0)
+
+SCENARIO = Scenario(
+    name="stand_still",
+    description="hold the forearm level for 25 s without moving",
+    subject="m50",
+    intent=JointIntent(start_rad=HOLDING_TRAY, vias=(), start_hold_s=25.0),
+    duration_s=25.0,
+    controllers=("transparent", "walls", "gravity", "zero"),
+)
