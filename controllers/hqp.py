@@ -197,6 +197,28 @@ def _stack(label: str, kind: str, entries):
     return views, M, v, w, starts, n
 
 
+@lru_cache(maxsize=256)
+def _weight_vector(m: int, w: float) -> np.ndarray:
+    return _read_only(np.full(m, w))
+
+
+def _stack_unchecked(entries):
+    """(M, v, w per row, entries, starts, n) of trusted (M, v, w) entries (see :meth:`Level.unchecked`)."""
+    if not entries:
+        return None, _EMPTY, _EMPTY, (), (0,), None
+    if len(entries) == 1:
+        M, v, w0 = entries[0]
+        w0 = float(w0)
+        return M, v, _weight_vector(M.shape[0], w0), ((M, v, w0),), (0, M.shape[0]), M.shape[1]
+    M = np.vstack([e[0] for e in entries])
+    v = np.concatenate([e[1] for e in entries])
+    w = np.concatenate([_weight_vector(e[0].shape[0], float(e[2])) for e in entries])
+    starts = (0, *np.cumsum([e[0].shape[0] for e in entries]).tolist())
+    views = tuple((M[starts[i]: starts[i + 1]], v[starts[i]: starts[i + 1]], float(e[2]))
+                  for i, e in enumerate(entries))
+    return M, v, w, views, starts, M.shape[1]
+
+
 @dataclass(frozen=True, eq=False)
 class Level:
     r"""One priority level: weighted equality and inequality tasks.
@@ -276,6 +298,28 @@ class Level:
             ("_weighted", weighted), ("_unit_eq", all(w == 1.0 for *_, w in eq)),
         ):
             object.__setattr__(self, key, value)
+
+    @classmethod
+    def unchecked(cls, eq: Sequence = (), ineq: Sequence = (), name: str = "") -> Level:
+        """A level from ``(M, v, w)`` triples, without the entry checks of the constructor.
+
+        For a caller that builds its rows itself every control tick: each
+        ``M`` is a 2-D float array (m, n), ``v`` a 1-D float array (m,) and
+        ``w`` a float > 0, every ``M`` with the same n. The arrays are used
+        as given (the caller must not change them while the level is in use).
+        Nothing is validated, not even finiteness: use the constructor to
+        find what is wrong with a suspicious entry.
+        """
+        self = object.__new__(cls)
+        A, b, we, eq_entries, eq_starts, n_eq = _stack_unchecked(eq)
+        C, d, wi, in_entries, in_starts, n_in = _stack_unchecked(ineq)
+        n = n_eq if n_eq is not None else n_in
+        self.__dict__.update(
+            eq=eq_entries, ineq=in_entries, name=name, A=_no_rows(n or 0) if A is None else A, b=b, weights_eq=we,
+            C=_no_rows(n or 0) if C is None else C, d=d, weights_ineq=wi, n_cols=n, _eq_starts=eq_starts,
+            _ineq_starts=in_starts, _weighted=any(e[2] != 1.0 for e in (*eq_entries, *in_entries)),
+            _unit_eq=all(e[2] == 1.0 for e in eq_entries))
+        return self
 
     def row_label(self, kind: str, row: int) -> str:
         """``"eq[1] row 2"``: the entry and row of stacked row ``row`` of ``kind`` ("eq" or "ineq")."""
