@@ -18,6 +18,7 @@ the controller never shares it.
 from __future__ import annotations
 
 import dataclasses
+import math
 from dataclasses import dataclass
 from typing import Literal
 
@@ -243,6 +244,8 @@ class CoupledPlant:
 
     def state_is_finite(self) -> str | None:
         """Name of the first non-finite state vector, or None."""
+        if math.isfinite(self.q_exo.sum() + self.v_exo.sum() + self.q_human.sum() + self.v_human.sum()):
+            return None  # one sum: a NaN or inf in any vector makes it non-finite (overflow too, then checked)
         for name in ("q_exo", "v_exo", "q_human", "v_human"):
             if not np.all(np.isfinite(getattr(self, name))):
                 return name
