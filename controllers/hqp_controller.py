@@ -44,7 +44,7 @@ from models.errors import ParameterError, SandboxError
 from models.records import Measurement
 
 from .base import Controller, ControllerContext
-from .hqp import Level, solve_hierarchy
+from .hqp import HQPParams, Level, solve_hierarchy
 from .tasks import Task, TickState
 
 __all__ = ["HQPController"]
@@ -69,10 +69,13 @@ class HQPController(Controller):
         Solve in q̈ alone with τ eliminated through the dynamics (module
         docstring); False solves in x = [q̈; τ] with the dynamics as hard
         equalities. Both give the same torques.
+    params : HQPParams, optional
+        Tolerances and switches of the hierarchical solver (default: its defaults).
     """
 
     def __init__(self, levels: Sequence[Sequence[Task]], *, name: str = "hqp", solver: str | None = None,
-                 fallback_damping_Nm_s_per_rad: float = 1.0, eliminate_torque: bool = True) -> None:
+                 fallback_damping_Nm_s_per_rad: float = 1.0, eliminate_torque: bool = True,
+                 params: HQPParams | None = None) -> None:
         super().__init__()
         self.name = name
         self.levels = [list(level) for level in levels]
@@ -84,6 +87,9 @@ class HQPController(Controller):
                     raise ParameterError(f"controller {name!r}: level {i} holds {t!r}, not a Task")
         if not isinstance(eliminate_torque, bool):
             raise ParameterError(f"controller {name!r}: eliminate_torque must be a bool, got {eliminate_torque!r}")
+        if params is not None and not isinstance(params, HQPParams):
+            raise ParameterError(f"controller {name!r}: params must be an HQPParams, got {type(params).__name__}")
+        self.params = params
         self.solver = solver
         self.eliminate_torque = eliminate_torque
         self.fallback_damping = float(fallback_damping_Nm_s_per_rad)
@@ -180,14 +186,14 @@ class HQPController(Controller):
                 A_reg[:n], A_reg[n:] = np.eye(n), M
                 levels.append(Level.unchecked(eq=[(A_reg, np.concatenate([np.zeros(n), -c]), 1.0)],
                                               name="minimum norm of [qdd; tau]"))
-                res = solve_hierarchy(levels, n, self.solver, hard=hard, warm_start=self._prev)
+                res = solve_hierarchy(levels, n, self.solver, hard=hard, warm_start=self._prev, params=self.params)
                 tau = np.clip(M @ res.x + c, -self._tau_max, self._tau_max)
             else:
                 self._A_dyn[:, :n] = s.M
                 hard = Level(eq=[(self._A_dyn, s.cuff_force - s.h)], name="dynamics")
                 levels, rows = self._task_levels(s, None)
                 res = solve_hierarchy(levels, 2 * n, self.solver, hard=hard, lb=self._lb, ub=self._ub,
-                                      warm_start=self._prev)
+                                      warm_start=self._prev, params=self.params)
                 tau = np.asarray(res.x[n:], dtype=float)
             if not np.all(np.isfinite(tau)):
                 raise SandboxError("the solver returned non-finite torques")

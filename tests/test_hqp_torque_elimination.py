@@ -89,3 +89,22 @@ def test_a_task_row_on_the_torques_is_carried_through_the_elimination():
 
         g = pin.computeGeneralizedGravity(arm.model, arm.model.createData(), q)  # pinocchio's RNEA gravity
         np.testing.assert_allclose(tau, g, atol=1e-8)
+
+
+def test_working_set_step_gives_the_backends_torques_and_is_used():
+    # the checked active-set step replaces backend calls; it must give the backend's answer (and cvxpy's, above)
+    from controllers.hqp import HQPParams
+
+    arm, ctx = _context()
+    step = make_controller("walls", walls=WALL)
+    backend = make_controller("walls", walls=WALL)
+    backend.params = HQPParams(working_set_step=False)
+    for c in (step, backend):
+        c.reset(ctx)
+    used = 0
+    for m in _states(arm, 12, seed=21):
+        tau_step, tau_backend = step.step(m), backend.step(m)
+        assert np.abs(tau_step - tau_backend).max() < TOL_NM
+        used += "working-set" in step.last_result.level_methods
+        assert "working-set" not in backend.last_result.level_methods
+    assert used >= 1
