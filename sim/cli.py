@@ -86,6 +86,33 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--profile", type=int, metavar="N", default=0,
                    help="only profile the reference case (cProfile) and print its top N entries")
     b.set_defaults(func=_cmd_bench)
+
+    k = sub.add_parser("compare", help="compare runs side by side: table, Markdown, CSV and plots",
+                       description="Compare run folders (exosandbox compare RUN_DIR RUN_DIR ...), or run one "
+                       "scenario under several controllers and compare them (exosandbox compare SCENARIO "
+                       "--controller a --controller b).")
+    k.add_argument("inputs", nargs="+", metavar="RUN_DIR|SCENARIO",
+                   help="run folders, or one scenario file (.py) with --controller")
+    k.add_argument("--controller", action="append", default=[], metavar="NAME",
+                   help="with a scenario: a controller variant to run (repeat; default: all the scenario's)")
+    k.add_argument("--seed", type=int, metavar="N", help="with a scenario: random seed (default: the scenario's)")
+    k.add_argument("--out", metavar="DIR", help="output folder (default: runs/compare-N)")
+    k.set_defaults(func=_cmd_compare)
+
+    w = sub.add_parser("sweep", help="run a scenario for every controller x subject x seed, in parallel",
+                       description="Run every combination of controller, subject and seed of a scenario, and "
+                       "write one results table (CSV and Markdown), plots and a report.")
+    w.add_argument("scenario", metavar="SCENARIO", help="scenario file")
+    w.add_argument("--controllers", metavar="A,B", help="comma-separated controller variants "
+                   "(default: all the scenario's)")
+    w.add_argument("--subjects", metavar="S1,S2", default="m50",
+                   help="comma-separated built-in subjects (default: m50; all: f5,f50,f95,m5,m50,m95)")
+    w.add_argument("--seeds", type=int, default=1, metavar="N", help="seeds per combination (default 1)")
+    w.add_argument("--jobs", type=int, metavar="N", help="local worker processes (default: all cores)")
+    w.add_argument("--dask", metavar="ADDRESS", help="run on an existing Dask scheduler, e.g. tcp://host:8786")
+    w.add_argument("--duration", type=float, metavar="S", help="override the scenario's duration [s]")
+    w.add_argument("--out", metavar="DIR", help="output folder (default: runs/sweep-SCENARIO-N)")
+    w.set_defaults(func=_cmd_sweep)
     return p
 
 
@@ -188,7 +215,7 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     m = result.metrics
     return (f"results in {out}: interaction_force_rms_N = {m['interaction_force_rms_N']:.2f}, "
             f"human_effort_ratio = {m['human_effort_ratio']:.3f}, realtime_factor = {m['realtime_factor']:.2f} "
-            f"(all metrics in {out / 'metrics.json'})")
+            f"(all metrics in {out / 'metrics.json'}, report with plots in {out / 'report.md'})")
 
 
 class _LazyViewer:
@@ -250,6 +277,111 @@ def _cmd_bench(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
         except OSError as e:
             raise _UserError(f"cannot write {args.json!r}: {e.strerror or e}") from e
     return format_report(report)
+
+def _fresh_folder(base: Path) -> Path:
+    out, k = base, 1
+    while out.exists():
+        k += 1
+        out = base.with_name(f"{base.name}-{k}")
+    return out
+
+
+def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    from .report import compare_runs, text_table
+    from .runlog import load_run
+
+    first = Path(args.inputs[0])
+    scenario_mode = first.suffix == ".py"
+    if args.out:
+        out = Path(args.out)
+        if out.exists() and (not out.is_dir() or any(out.iterdir())):
+            raise _UserError(f"output folder {str(out)!r} already holds something; choose another --out")
+    else:
+        out = _fresh_folder(Path("runs") / "compare")
+    if scenario_mode:
+        from .scenario import load_scenario
+        from .simulate import SimulationError, run_scenario
+
+        if len(args.inputs) > 1:
+            parser.error("give one scenario file, or run folders only")
+        if args.seed is not None and args.seed < 0:
+            parser.error(f"--seed must be >= 0, got {args.seed}")
+        scenario = load_scenario(first)
+        controllers = list(dict.fromkeys(args.controller)) or list(scenario.controllers)
+        for c in controllers:
+            if c not in scenario.controllers:
+                raise _UserError(f"scenario {scenario.name!r} supports the controllers "
+                                 f"{', '.join(scenario.controllers)}; got {c!r}")
+        run_dirs = []
+        for c in controllers:
+            bar = _progress_bar(f"{scenario.name}/{c}")
+            try:
+                run_scenario(scenario, c, out / c, seed=args.seed, progress=bar.update if bar else None)
+            except SimulationError as e:
+                raise _UserError(f"{e}; the runs so far are kept in {out}") from e
+            finally:
+                if bar:
+                    bar.close()
+            run_dirs.append(out / c)
+    else:
+        if args.controller or args.seed is not None:
+            parser.error("--controller and --seed go with a scenario file, not with run folders")
+        if len(args.inputs) < 2:
+            parser.error("give at least two run folders to compare (or one scenario file)")
+        run_dirs = [Path(d) for d in args.inputs]
+        for d in run_dirs:
+            load_run(d)  # a clear error for a missing or broken folder, before anything is written
+    rows, labels, md = compare_runs(run_dirs, out)
+    table = text_table(["metric", "unit", *labels], [[r["key"], r["unit"]] + [
+        _fmt(r[lab]) + (" *" if r["best"] == lab else "") for lab in labels] for r in rows])
+    return f"{table}\n(* the better value)\nreport {md}, table {out / 'compare.csv'}, plots in {out / 'plots'}"
+
+
+def _fmt(v) -> str:
+    from .report import fmt
+
+    return fmt(v)
+
+
+#: Columns of the sweep table printed on the terminal (summary.md and summary.csv hold every summary metric).
+_SWEEP_COLUMNS = ("interaction_force_rms_N", "apparent_mass_hand_kg", "human_effort_ratio",
+                  "wall_stiffness_rendered_N_per_m", "hqp_fallback_count")
+
+
+def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    from .report import headline, text_table
+    from .scenario import load_scenario
+    from .sweep import run_sweep
+
+    scenario = load_scenario(args.scenario)
+    controllers = [c.strip() for c in args.controllers.split(",") if c.strip()] if args.controllers \
+        else list(scenario.controllers)
+    subjects = [s.strip() for s in args.subjects.split(",") if s.strip()]
+    if args.seeds < 1:
+        parser.error(f"--seeds must be >= 1, got {args.seeds}")
+    if args.jobs is not None and args.jobs < 1:
+        parser.error(f"--jobs must be >= 1, got {args.jobs}")
+    if args.duration is not None and not args.duration > 0:
+        parser.error(f"--duration must be > 0, got {args.duration}")
+    out = Path(args.out) if args.out else _fresh_folder(Path("runs") / f"sweep-{scenario.name}")
+    try:
+        result = run_sweep(args.scenario, controllers, subjects, args.seeds, out_dir=out, jobs=args.jobs,
+                           dask_address=args.dask, progress=True, duration_s=args.duration)
+    except KeyboardInterrupt:
+        raise _UserError(f"interrupted; the runs finished so far are in {out / 'runs.csv'}") from None
+    keys = [k for k in _SWEEP_COLUMNS if any(r.get(f"{k}_mean") is not None for r in result.summary)]
+    table = text_table(["controller", "subject", "ok", *keys], [
+        [r["controller"], r["subject"], f"{r['n_ok']}/{r['n_ok'] + r['n_failed']}"]
+        + [_fmt(r[f"{k}_mean"]) + " ± " + _fmt(r[f"{k}_std"]) if r.get(f"{k}_mean") is not None else "n/a"
+           for k in keys] for r in result.summary])
+    lines = [table, "(mean ± standard deviation over seeds; 'all' pools every subject; the full table is in "
+             f"{out / 'summary.md'})", ""]
+    lines += headline(result.summary)
+    if result.failed:
+        lines.append(f"{len(result.failed)} of {len(result.results)} runs failed:")
+        lines += [f"  {r.case.label}: {r.error}" for r in result.failed]
+    lines.append(f"report {out / 'report.md'}, tables {out / 'summary.csv'} and {out / 'runs.csv'}")
+    return "\n".join(lines)
 
 
 class _Bar:

@@ -10,6 +10,7 @@ meaning.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -21,7 +22,30 @@ __all__ = [
     "human_effort_rms_Nm",
     "path_deviation_rms_rad",
     "torque_saturation_fraction",
+    "interaction_torque_norm_Nm",
+    "plane_penetration_m",
+    "rendered_wall_stiffness_N_per_m",
+    "joint_limit_violation_count",
+    "joint_limit_excursion_max_rad",
+    "wall_contacts",
+    "wall_cycle_energy_returned_J",
+    "rest_to_rest",
+    "wall_bounce_count",
+    "wall_metrics",
+    "interaction_power_W",
+    "interaction_work_J",
+    "apparent_mass_kg",
+    "compensation_shares",
+    "robot_interaction_terms",
+    "BODY_REGION_FORCE_LIMITS_N",
+    "force_limit_exceed_count",
+    "solver_metrics",
     "run_metrics",
+    "MetricInfo",
+    "METRICS",
+    "TIMING_KEYS",
+    "is_timing_key",
+    "flat_metrics",
 ]
 
 
@@ -47,12 +71,30 @@ def interaction_force_peak_N(cuff_wrench: np.ndarray) -> float:
 
 
 def cuff_force_metrics(cuff_wrench: np.ndarray, names: Sequence[str]) -> dict[str, dict[str, float]]:
-    """Per cuff: ``force_rms_N`` and ``force_peak_N`` of :math:`\\lVert f_c(t_k) \\rVert` [N]."""
-    f = np.linalg.norm(np.asarray(cuff_wrench)[..., :3], axis=-1)
+    """Per cuff: RMS and peak over time of :math:`\\lVert f_c(t_k) \\rVert` [N] and of the torque part
+    :math:`\\lVert m_c(t_k) \\rVert` [N m] (``force_rms_N``, ``force_peak_N``, ``torque_rms_Nm``,
+    ``torque_peak_Nm``)."""
+    w = np.asarray(cuff_wrench)
+    f = np.linalg.norm(w[..., :3], axis=-1)
+    m = np.linalg.norm(w[..., 3:], axis=-1)
+
+    def rms(x):
+        return float(np.sqrt(np.mean(x * x))) if x.size else 0.0
+
+    def peak(x):
+        return float(x.max()) if x.size else 0.0
+
     return {
-        name: {"force_rms_N": float(np.sqrt(np.mean(f[:, i] ** 2))), "force_peak_N": float(f[:, i].max())}
+        name: {"force_rms_N": rms(f[:, i]), "force_peak_N": peak(f[:, i]),
+               "torque_rms_Nm": rms(m[:, i]), "torque_peak_Nm": peak(m[:, i])}
         for i, name in enumerate(names)
     }
+
+
+def interaction_torque_norm_Nm(cuff_wrench: np.ndarray) -> np.ndarray:
+    """Per tick :math:`M(t_k) = \\sqrt{\\sum_c \\lVert m_c(t_k) \\rVert^2}` [N m], m_c the cuff torques."""
+    m = np.asarray(cuff_wrench)[..., 3:]
+    return np.sqrt(np.sum(m * m, axis=(-1, -2)))
 
 
 def human_effort_rms_Nm(tau_human: np.ndarray) -> float:
@@ -76,38 +118,6 @@ def torque_saturation_fraction(saturated: np.ndarray) -> float:
     """Fraction of ticks in which at least one joint command was saturated."""
     s = np.asarray(saturated, dtype=bool)
     return float(np.mean(np.any(s, axis=-1))) if s.size else 0.0
-
-
-def run_metrics(
-    arrays: Mapping[str, np.ndarray],
-    *,
-    cuff_names: Sequence[str],
-    baseline: Mapping[str, np.ndarray] | None,
-    dt_s: float,
-    tick_times_s: np.ndarray,
-) -> dict:
-    """The ``metrics.json`` of a coupled run (keys exactly as documented in the README)."""
-    n = len(arrays["t"])
-    wall = float(np.sum(tick_times_s))
-    effort = human_effort_rms_Nm(arrays["tau_human"])
-    out = {
-        "sim_duration_s": n * dt_s,
-        "interaction_force_rms_N": interaction_force_rms_N(arrays["cuff_wrench_human"]),
-        "interaction_force_peak_N": interaction_force_peak_N(arrays["cuff_wrench_human"]),
-        "cuffs": cuff_force_metrics(arrays["cuff_wrench_human"], cuff_names),
-        "human_effort_rms_Nm": effort,
-        "human_effort_ratio": None,
-        "path_deviation_rms_rad": None,
-        "torque_saturation_fraction": torque_saturation_fraction(arrays["saturated"]),
-        "torque_saturated_ticks": int(np.count_nonzero(np.any(np.asarray(arrays["saturated"], bool), axis=-1))),
-        "tick_time_median_us": float(np.median(tick_times_s) * 1e6) if len(tick_times_s) else 0.0,
-        "realtime_factor": (n * dt_s / wall) if wall > 0 else None,
-    }
-    if baseline is not None:
-        base = human_effort_rms_Nm(baseline["tau_human"])
-        out["human_effort_ratio"] = effort / base if base > 0 else None
-        out["path_deviation_rms_rad"] = path_deviation_rms_rad(arrays["q_human"], baseline["q_human"])
-    return out
 
 
 # -- walls and limits -----------------------------------------------------------------------
@@ -144,24 +154,444 @@ def joint_limit_violation_count(q: np.ndarray, lower: np.ndarray, upper: np.ndar
     return int(np.count_nonzero(np.any((q < np.asarray(lower) - tol_rad) | (q > np.asarray(upper) + tol_rad), axis=-1)))
 
 
+def joint_limit_excursion_max_rad(q: np.ndarray, lower: np.ndarray, upper: np.ndarray) -> float:
+    """Largest distance [rad] by which any joint went past a limit over the run (0 if never)."""
+    q = np.asarray(q)
+    if not q.size:
+        return 0.0
+    over = np.maximum(q - np.asarray(upper), np.asarray(lower) - q)
+    return float(max(0.0, over.max()))
+
+
+def wall_contacts(penetration_m: np.ndarray) -> list[tuple[int, int]]:
+    """Contact episodes: ``(first, last)`` tick index pairs of each maximal run with penetration > 0."""
+    inside = np.asarray(penetration_m) > 0.0
+    if not inside.size:
+        return []
+    edges = np.diff(np.concatenate(([0], inside.astype(np.int8), [0])))
+    starts, ends = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1
+    return list(zip(starts.tolist(), ends.tolist()))
+
+
+def wall_cycle_energy_returned_J(force_N: np.ndarray, penetration_m: np.ndarray, first: int, last: int) -> float:
+    """Energy a wall gave back beyond what it absorbed over one push-release cycle [J].
+
+    .. math:: E_{ret} = -\\sum_{k=a}^{b-1} F_k \\, (p_{k+1} - p_k)
+
+    F the wall-normal force on the hand (positive pushing it out), p the
+    penetration, over the ticks a..b given by ``first`` and ``last`` (the
+    caller's cycle, see :func:`rest_to_rest`).  Pairing the force held at tick
+    k with the displacement over the following interval is the exact work of a
+    zero-order-hold force under piecewise-constant velocity, the worst case of
+    Colgate & Schenkel (1997) (REFERENCES.md section 4).  Positive: the wall
+    returned net energy, i.e. it was active (a passivity violation); a passive
+    spring-damper returns :math:`-\\int B \\dot p^2 dt \\le 0`.
+    """
+    F = np.asarray(force_N, dtype=float)
+    p = np.asarray(penetration_m, dtype=float)
+    a, b = max(first, 0), min(last, len(p) - 1)
+    return float(-np.sum(F[a:b] * np.diff(p[a:b + 1])))
+
+
+def rest_to_rest(speed_m_s: np.ndarray, first: int, last: int, rest_speed_m_s: float = 0.01) -> tuple[int, int]:
+    """Widen a contact ``(first, last)`` to the last tick at rest before it and the first at rest after it.
+
+    Measured from rest to rest, the kinetic energy of whatever mass the hand
+    feels cancels out of :func:`wall_cycle_energy_returned_J`, which then holds
+    only what the wall (and any dissipation on the way) did.  A contact with
+    no rest on a side keeps its own bound there (one tick outside the wall).
+    ``rest_speed_m_s``: 0.01 m/s, common practice.
+    """
+    v = np.asarray(speed_m_s)
+    before = np.flatnonzero(v[:first] < rest_speed_m_s)
+    after = np.flatnonzero(v[last + 1:] < rest_speed_m_s)
+    a = int(before[-1]) if before.size else max(first - 1, 0)
+    b = int(last + 1 + after[0]) if after.size else min(last + 1, len(v) - 1)
+    return a, b
+
+
+def wall_bounce_count(penetration_m: np.ndarray, dt_s: float, window_s: float = 0.1) -> int:
+    """Contact bounces: make events that come less than ``window_s`` after the previous break [-].
+
+    A hand that pushes into a wall once makes one contact; a wall that throws it
+    out and catches it again within ``window_s`` (0.1 s, common practice: well
+    below the time a person takes to decide on a new push) counts one bounce
+    per extra make.
+    """
+    contacts = wall_contacts(penetration_m)
+    gap = int(round(window_s / dt_s))
+    return sum(1 for (s0, _), (_, e1) in zip(contacts[1:], contacts[:-1]) if s0 - e1 <= gap)
+
+
 def wall_metrics(arrays: Mapping[str, np.ndarray], *, point_m, normal, stiffness_N_per_m: float,
-                 hand_cuff: int, dt_s: float, lower, upper) -> dict:
+                 hand_cuff: int, dt_s: float) -> dict:
     """The wall keys of ``metrics.json`` for a plane wall.
 
-    The force the human feels is the hand cuff's force on the human along
-    :math:`-n` (the wall pushes back); the penetration is the human hand
-    point's (``wall_stiffness_rendered_N_per_m``) or the robot hand point's
-    (``wall_stiffness_rendered_robot_N_per_m``).
+    The force is the one the human feels: the hand cuff's force on the human
+    along :math:`-n` (the wall pushes back).  Stiffness is fitted against the
+    penetration of the human's hand point (``wall_stiffness_rendered_N_per_m``)
+    and of the robot's (``wall_stiffness_rendered_robot_N_per_m``); the energy
+    and bounce keys use the human's hand, since they are what the wearer meets.
+    ``wall_energy_returned_J`` is the largest :func:`wall_cycle_energy_returned_J`
+    over the finished contacts (None if there is none).
     """
     n = np.asarray(normal, dtype=float)
     n = n / np.linalg.norm(n)
     felt = -(np.asarray(arrays["cuff_force_human_world"])[:, hand_cuff, :] @ n)
     pen_h = plane_penetration_m(arrays["p_hand_human"], point_m, n)
     pen_r = plane_penetration_m(arrays["p_hand_exo"], point_m, n)
+    speed = np.linalg.norm(np.gradient(np.asarray(arrays["p_hand_human"]), dt_s, axis=0), axis=1) \
+        if len(pen_h) > 2 else np.zeros(len(pen_h))
+    cycles = []
+    for a, b in wall_contacts(pen_h):
+        if b >= len(pen_h) - 1:
+            continue  # still in contact at the end of the run: not a finished cycle
+        lo, hi = rest_to_rest(speed, a, b)
+        cycles.append({"start_s": a * dt_s, "duration_s": (b - a + 1) * dt_s,
+                       "penetration_max_m": float(pen_h[a:b + 1].max()),
+                       "energy_returned_J": wall_cycle_energy_returned_J(felt, pen_h, lo, hi)})
     return {
         "wall_stiffness_commanded_N_per_m": float(stiffness_N_per_m),
         "wall_stiffness_rendered_N_per_m": rendered_wall_stiffness_N_per_m(felt, pen_h, dt_s),
         "wall_stiffness_rendered_robot_N_per_m": rendered_wall_stiffness_N_per_m(felt, pen_r, dt_s),
-        "wall_penetration_max_m": float(max(0.0, pen_h.max())),
-        "joint_limit_violation_count": joint_limit_violation_count(arrays["q_exo"], lower, upper),
+        "wall_penetration_max_m": float(max(0.0, pen_h.max())) if len(pen_h) else 0.0,
+        "wall_energy_returned_J": max((c["energy_returned_J"] for c in cycles), default=None),
+        "wall_bounce_count": wall_bounce_count(pen_h, dt_s),
+        "wall_contact_count": len(wall_contacts(pen_h)),
+        "wall_cycles": cycles,
     }
+
+
+# -- transparency: work, felt mass, what is left to carry -----------------------------------------
+def interaction_power_W(wrench: np.ndarray, twist: np.ndarray) -> np.ndarray:
+    """Per tick :math:`P(t_k) = \\sum_c w_c \\cdot V_c` [W]: power the cuffs deliver to the robot.
+
+    ``wrench`` and ``twist`` (N, n_cuffs, 6) in the same frame, each cuff's wrench
+    on the robot and the robot cuff frame's spatial velocity ``[v; omega]``
+    (power of a wrench on a moving body, Featherstone 2008, section 2.7).
+    """
+    return np.einsum("kci,kci->k", np.asarray(wrench, dtype=float), np.asarray(twist, dtype=float))
+
+
+def interaction_work_J(power_W: np.ndarray, dt_s: float) -> float:
+    """Net work the human does on the robot through the cuffs, :math:`W = \\sum_k P(t_k) T` [J].
+
+    Positive: the human fed energy into the robot (pushed it along); a perfectly
+    transparent robot at rest at both ends of a movement takes none.
+    """
+    return float(np.sum(power_W) * dt_s)
+
+
+def _moving_average(x: np.ndarray, n: int) -> np.ndarray:
+    if n <= 1:
+        return x
+    k = np.ones(n) / n
+    pad = n // 2
+    xp = np.pad(x, [(pad, n - 1 - pad)] + [(0, 0)] * (x.ndim - 1), mode="edge")
+    return np.apply_along_axis(lambda c: np.convolve(c, k, mode="valid"), 0, xp)
+
+
+def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: float, *,
+                     min_speed_m_s: float = 0.05, smooth_s: float = 0.01) -> float | None:
+    """Felt mass at the hand [kg]: least-squares slope of force on acceleration along the movement.
+
+    With :math:`u_k = v_k / \\lVert v_k \\rVert` the movement direction (ticks
+    faster than ``min_speed_m_s``; 0.05 m/s, common practice),
+    :math:`F_k = -f_k \\cdot u_k` the hand-cuff force the human feels against
+    the motion and :math:`a_k = \\ddot p_k \\cdot u_k`, fit
+    :math:`F = m\\,a + m_g\\, g\\, (\\hat z \\cdot u) + c` (``numpy.linalg.lstsq``): a point mass
+    m moved along u needs :math:`m (a + g \\hat z) \\cdot u`; the separate
+    :math:`m_g` keeps an uncompensated (or compensated) weight from passing for
+    inertia, and c absorbs a steady offset.  The gravity column is used only when
+    the movement has a vertical part (std of :math:`\\hat z \\cdot u` > 0.05).
+    A robot that feels like a point mass m at the hand gives m; a transparent
+    one gives 0.  Velocity and acceleration are central differences of the
+    hand position (``numpy.gradient``), force and acceleration both smoothed by
+    the same centred moving average of ``smooth_s`` (so that noise in the
+    regressor does not bias the slope toward zero).  None when fewer than 50
+    ticks move or the acceleration does not vary.
+    """
+    p = np.asarray(p_hand_m, dtype=float)
+    f = np.asarray(force_on_human_N, dtype=float)
+    if len(p) < 5:
+        return None
+    v = np.gradient(p, dt_s, axis=0)
+    a = np.gradient(v, dt_s, axis=0)
+    n = max(1, int(round(smooth_s / dt_s)))
+    a, f = _moving_average(a, n), _moving_average(f, n)
+    speed = np.linalg.norm(v, axis=1)
+    sel = speed > min_speed_m_s
+    if np.count_nonzero(sel) < 50:
+        return None
+    u = v[sel] / speed[sel, None]
+    acc = np.einsum("ki,ki->k", a[sel], u)
+    F = -np.einsum("ki,ki->k", f[sel], u)
+    if np.ptp(acc) < 1e-6:
+        return None
+    cols = [acc, np.ones_like(acc)]
+    if np.std(u[:, 2]) > 0.05:
+        cols.append(9.81 * u[:, 2])
+    return float(np.linalg.lstsq(np.column_stack(cols), F, rcond=None)[0][0])
+
+
+def compensation_shares(tau_interaction: np.ndarray, tau_gravity: np.ndarray, tau_inertia: np.ndarray
+                        ) -> tuple[float | None, float | None]:
+    """Shares of the robot's gravity and inertia left for the human to carry [-].
+
+    The robot's dynamics :math:`M\\ddot q + C\\dot q + g = \\tau_{act} + \\tau_{int}`
+    with :math:`\\tau_{int} = \\sum_c J_c^T w_c` the torque the human applies
+    through the cuffs.  Least squares over every tick and joint of
+
+    .. math:: \\tau_{int} \\approx \\alpha\\, g(q) + \\beta\\, M(q)\\ddot q
+
+    gives :math:`\\alpha` (share of gravity left: 1 with no compensation, 0
+    with perfect gravity compensation) and :math:`\\beta` (share of inertia
+    left: 1 uncompensated, 0.5 when half the inertia is compensated).
+    Returns (None, None) if the two regressors are not independent.
+    """
+    y = np.asarray(tau_interaction, dtype=float).ravel()
+    X = np.column_stack([np.asarray(tau_gravity, dtype=float).ravel(), np.asarray(tau_inertia, dtype=float).ravel()])
+    if len(y) < 4 or np.linalg.matrix_rank(X) < 2:
+        return None, None
+    alpha, beta = np.linalg.lstsq(X, y, rcond=None)[0]
+    return float(alpha), float(beta)
+
+
+def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: Sequence[str], dt_s: float
+                            ) -> dict[str, np.ndarray]:
+    """Per-tick robot-side quantities for the transparency metrics, from the logged true state.
+
+    With pinocchio on the run's own robot model ``arm`` (:class:`models.arm.ArmModel`):
+    the cuff frames' spatial velocities (``getFrameVelocity``, LOCAL, the frame
+    of ``cuff_wrench_exo``), :math:`\\tau_{int} = \\sum_c J_c^T w_c`
+    (``getFrameJacobian``, LOCAL), :math:`g(q)` (``computeGeneralizedGravity``),
+    :math:`M(q)\\ddot q` (``crba``; :math:`\\ddot q` the central difference of
+    ``dq_exo``), and the kinetic and potential energy.
+    """
+    import pinocchio as pin
+
+    model = arm.model
+    data = model.createData()
+    q, dq = np.asarray(arrays["q_exo"]), np.asarray(arrays["dq_exo"])
+    w = np.asarray(arrays["cuff_wrench_exo"])
+    n, nv = q.shape[0], model.nv
+    ddq = np.gradient(dq, dt_s, axis=0) if n > 2 else np.zeros_like(dq)
+    fids = [model.getFrameId(f) for f in cuff_frames]
+    out = {k: np.zeros((n, nv)) for k in ("tau_interaction", "tau_gravity", "tau_inertia")}
+    out["cuff_twist"] = np.zeros(w.shape)
+    out["kinetic_J"], out["potential_J"] = np.zeros(n), np.zeros(n)
+    local = pin.ReferenceFrame.LOCAL
+    for k in range(n):
+        pin.computeJointJacobians(model, data, q[k])
+        pin.forwardKinematics(model, data, q[k], dq[k])
+        pin.updateFramePlacements(model, data)
+        tau = np.zeros(nv)
+        for c, fid in enumerate(fids):
+            out["cuff_twist"][k, c] = pin.getFrameVelocity(model, data, fid, local).vector
+            tau += pin.getFrameJacobian(model, data, fid, local).T @ w[k, c]
+        out["tau_interaction"][k] = tau
+        out["tau_gravity"][k] = pin.computeGeneralizedGravity(model, data, q[k])
+        M = pin.crba(model, data, q[k])
+        M = np.triu(M) + np.triu(M, 1).T
+        out["tau_inertia"][k] = M @ ddq[k]
+        out["kinetic_J"][k] = 0.5 * dq[k] @ M @ dq[k]
+        out["potential_J"][k] = pin.computePotentialEnergy(model, data, q[k])
+    return out
+
+
+# -- safety -------------------------------------------------------------------------------------
+#: Quasi-static force limits [N] per body region, ISO/TS 15066:2016 Annex A (REFERENCES.md section 9):
+#: hand and fingers 140 N (confirmed); upper arm and elbow 150 N, lower arm and wrist 160 N (from memory,
+#: unconfirmed).  Keyed by the default cuff names; a scenario may override or add (``force_limits_N``).
+BODY_REGION_FORCE_LIMITS_N: dict[str, float] = {"upper_arm": 150.0, "forearm": 160.0, "hand": 140.0}
+
+
+def force_limit_exceed_count(cuff_wrench: np.ndarray, names: Sequence[str], limits_N: Mapping[str, float]) -> int:
+    """Number of ticks in which any cuff's force magnitude exceeds its body-region limit (cuffs without a limit
+    are not counted)."""
+    f = np.linalg.norm(np.asarray(cuff_wrench)[..., :3], axis=-1)
+    lim = np.array([limits_N.get(nm, np.inf) for nm in names], dtype=float)
+    return int(np.count_nonzero(np.any(f > lim, axis=-1))) if f.size else 0
+
+
+# -- solver -------------------------------------------------------------------------------------
+def _median_p99_us(x) -> tuple[float | None, float | None]:
+    x = np.asarray(x, dtype=float)
+    x = x[np.isfinite(x)]
+    if not x.size:
+        return None, None
+    return float(np.median(x) * 1e6), float(np.percentile(x, 99) * 1e6)
+
+
+def solver_metrics(timing: Mapping[str, np.ndarray], fallback: np.ndarray | None) -> dict:
+    """Solve-time median and 99th percentile per tick [us] (``diag_solve_time_s`` of ``timing.npz``) and per
+    level (``diag_level_i_time_s``), and the number of fallback ticks; None for a controller without a QP."""
+    if "diag_solve_time_s" not in timing:
+        return {"hqp_solve_median_us": None, "hqp_solve_p99_us": None, "hqp_fallback_count": None,
+                "hqp_levels": []}
+    med, p99 = _median_p99_us(timing["diag_solve_time_s"])
+    levels = []
+    i = 0
+    while f"diag_level_{i}_time_s" in timing:
+        lm, lp = _median_p99_us(timing[f"diag_level_{i}_time_s"])
+        levels.append({"level": i, "solve_median_us": lm, "solve_p99_us": lp})
+        i += 1
+    n_fb = int(np.count_nonzero(np.asarray(fallback) > 0.5)) if fallback is not None else 0
+    return {"hqp_solve_median_us": med, "hqp_solve_p99_us": p99, "hqp_fallback_count": n_fb, "hqp_levels": levels}
+
+
+# -- one run ------------------------------------------------------------------------------------
+def run_metrics(
+    arrays: Mapping[str, np.ndarray],
+    *,
+    cuff_names: Sequence[str],
+    baseline: Mapping[str, np.ndarray] | None,
+    dt_s: float,
+    tick_times_s: np.ndarray,
+    timing: Mapping[str, np.ndarray] | None = None,
+    robot_terms: Mapping[str, np.ndarray] | None = None,
+    limits_rad: tuple[np.ndarray, np.ndarray] | None = None,
+    force_limits_N: Mapping[str, float] | None = None,
+    hand_cuff: int | None = None,
+) -> dict:
+    """The ``metrics.json`` of a coupled run (keys exactly as documented in the README).
+
+    ``robot_terms`` (:func:`robot_interaction_terms`) adds the work and
+    compensation-share keys; ``limits_rad`` the joint-limit keys; the others
+    default as documented.
+    """
+    n = len(arrays["t"])
+    wall = float(np.sum(tick_times_s))
+    effort = human_effort_rms_Nm(arrays["tau_human"])
+    w_h = arrays["cuff_wrench_human"]
+    limits = dict(BODY_REGION_FORCE_LIMITS_N if force_limits_N is None else force_limits_N)
+    cuffs = cuff_force_metrics(w_h, cuff_names)
+    for name, c in cuffs.items():
+        lim = limits.get(name)
+        c["force_limit_N"] = lim
+        c["force_limit_ratio"] = c["force_peak_N"] / lim if lim else None
+    hand = (cuff_names.index("hand") if "hand" in cuff_names else len(cuff_names) - 1) if hand_cuff is None \
+        else hand_cuff
+    torque = interaction_torque_norm_Nm(w_h)
+    out = {
+        "sim_duration_s": n * dt_s,
+        "interaction_force_rms_N": interaction_force_rms_N(w_h),
+        "interaction_force_peak_N": interaction_force_peak_N(w_h),
+        "interaction_torque_rms_Nm": float(np.sqrt(np.mean(torque * torque))) if n else 0.0,
+        "interaction_torque_peak_Nm": float(torque.max()) if n else 0.0,
+        "cuffs": cuffs,
+        "interaction_work_J": None,
+        "interaction_power_peak_W": None,
+        "apparent_mass_hand_kg": apparent_mass_kg(np.asarray(arrays["cuff_force_human_world"])[:, hand],
+                                                  arrays["p_hand_human"], dt_s),
+        "gravity_share_left": None,
+        "inertia_share_left": None,
+        "human_effort_rms_Nm": effort,
+        "human_effort_ratio": None,
+        "path_deviation_rms_rad": None,
+        "torque_saturation_fraction": torque_saturation_fraction(arrays["saturated"]),
+        "torque_saturated_ticks": int(np.count_nonzero(np.any(np.asarray(arrays["saturated"], bool), axis=-1))),
+        "joint_limit_violation_count": None,
+        "joint_limit_excursion_max_rad": None,
+        "force_limit_exceed_count": force_limit_exceed_count(w_h, cuff_names, limits),
+        "tick_time_median_us": float(np.median(tick_times_s) * 1e6) if len(tick_times_s) else 0.0,
+        "tick_time_p99_us": float(np.percentile(tick_times_s, 99) * 1e6) if len(tick_times_s) else 0.0,
+        "realtime_factor": (n * dt_s / wall) if wall > 0 else None,
+    }
+    out |= solver_metrics(timing or {}, arrays.get("diag_fallback"))
+    if robot_terms is not None:
+        P = interaction_power_W(arrays["cuff_wrench_exo"], robot_terms["cuff_twist"])
+        out["interaction_work_J"] = interaction_work_J(P, dt_s)
+        out["interaction_power_peak_W"] = float(np.abs(P).max()) if n else 0.0
+        out["gravity_share_left"], out["inertia_share_left"] = compensation_shares(
+            robot_terms["tau_interaction"], robot_terms["tau_gravity"], robot_terms["tau_inertia"])
+    if limits_rad is not None:
+        lo, hi = limits_rad
+        out["joint_limit_violation_count"] = joint_limit_violation_count(arrays["q_exo"], lo, hi)
+        out["joint_limit_excursion_max_rad"] = joint_limit_excursion_max_rad(arrays["q_exo"], lo, hi)
+    if baseline is not None:
+        base = human_effort_rms_Nm(baseline["tau_human"])
+        out["human_effort_ratio"] = effort / base if base > 0 else None
+        out["path_deviation_rms_rad"] = path_deviation_rms_rad(arrays["q_human"], baseline["q_human"])
+    return out
+
+
+# -- the key registry ---------------------------------------------------------------------------
+@dataclass(frozen=True)
+class MetricInfo:
+    """What a metric key means for a comparison.
+
+    ``better``: ``"lower"``, ``"higher"``, ``"zero"`` (closest to 0), ``"one"``
+    (closest to 1), ``"commanded"`` (closest to the commanded wall stiffness)
+    or None (no better side).  ``summary``: shown in sweep summaries.
+    """
+
+    unit: str
+    better: str | None
+    label: str
+    summary: bool = False
+
+
+#: Every top-level scalar key of ``metrics.json``, in the order tables show them.
+METRICS: dict[str, MetricInfo] = {
+    "interaction_force_rms_N": MetricInfo("N", "lower", "interaction force, RMS", True),
+    "interaction_force_peak_N": MetricInfo("N", "lower", "interaction force, peak", True),
+    "interaction_torque_rms_Nm": MetricInfo("N m", "lower", "interaction torque, RMS"),
+    "interaction_torque_peak_Nm": MetricInfo("N m", "lower", "interaction torque, peak"),
+    "interaction_work_J": MetricInfo("J", "zero", "net work of the human on the robot", True),
+    "interaction_power_peak_W": MetricInfo("W", "lower", "interaction power, peak"),
+    "apparent_mass_hand_kg": MetricInfo("kg", "zero", "felt mass at the hand", True),
+    "gravity_share_left": MetricInfo("-", "zero", "share of robot gravity left to the human", True),
+    "inertia_share_left": MetricInfo("-", "zero", "share of robot inertia left to the human", True),
+    "human_effort_rms_Nm": MetricInfo("N m", "lower", "human joint effort, RMS"),
+    "human_effort_ratio": MetricInfo("-", "one", "human effort / human alone", True),
+    "path_deviation_rms_rad": MetricInfo("rad", "lower", "path deviation from human alone, RMS", True),
+    "wall_stiffness_commanded_N_per_m": MetricInfo("N/m", None, "wall stiffness, commanded"),
+    "wall_stiffness_rendered_N_per_m": MetricInfo("N/m", "commanded", "wall stiffness at the hand", True),
+    "wall_stiffness_rendered_robot_N_per_m": MetricInfo("N/m", "commanded", "wall stiffness at the robot"),
+    "wall_penetration_max_m": MetricInfo("m", "lower", "wall penetration, max", True),
+    "wall_energy_returned_J": MetricInfo("J", "lower", "wall energy returned, worst cycle", True),
+    "wall_bounce_count": MetricInfo("-", "lower", "wall contact bounces"),
+    "wall_contact_count": MetricInfo("-", None, "wall contacts"),
+    "torque_saturation_fraction": MetricInfo("-", "lower", "ticks with a saturated joint", True),
+    "torque_saturated_ticks": MetricInfo("-", "lower", "saturated ticks"),
+    "joint_limit_violation_count": MetricInfo("-", "lower", "ticks past a joint limit", True),
+    "joint_limit_excursion_max_rad": MetricInfo("rad", "lower", "joint-limit excursion, max"),
+    "force_limit_exceed_count": MetricInfo("-", "lower", "ticks above a body-region force limit", True),
+    "hqp_solve_median_us": MetricInfo("us", "lower", "HQP solve time, median", True),
+    "hqp_solve_p99_us": MetricInfo("us", "lower", "HQP solve time, 99th percentile"),
+    "hqp_fallback_count": MetricInfo("-", "lower", "fallback ticks", True),
+    "tick_time_median_us": MetricInfo("us", "lower", "whole tick, median"),
+    "tick_time_p99_us": MetricInfo("us", "lower", "whole tick, 99th percentile"),
+    "realtime_factor": MetricInfo("-", "higher", "realtime factor", True),
+    "sim_duration_s": MetricInfo("s", None, "simulated time"),
+}
+
+#: Keys that measure this machine's wall clock: they differ between executors and runs; every other key is a
+#: function of (scenario, controller, subject, seed) alone.
+TIMING_KEYS = frozenset({"hqp_solve_median_us", "hqp_solve_p99_us", "tick_time_median_us", "tick_time_p99_us",
+                         "realtime_factor"})
+
+
+def is_timing_key(key: str) -> bool:
+    """Whether a (flat) metric key measures wall-clock time: :data:`TIMING_KEYS` and the per-level solve times."""
+    return key in TIMING_KEYS or key.startswith("hqp_levels.")
+
+
+def flat_metrics(metrics: Mapping) -> dict:
+    """Scalar metrics as one flat dict: top-level scalars as they are, per-cuff values as ``cuffs.NAME.KEY``,
+    per-level solve times as ``hqp_levels.I.KEY``; lists of cycles are left out."""
+    out = {}
+    for k, v in metrics.items():
+        if k == "cuffs" and isinstance(v, Mapping):
+            for name, d in v.items():
+                for kk, vv in d.items():
+                    out[f"cuffs.{name}.{kk}"] = vv
+        elif k == "hqp_levels" and isinstance(v, list):
+            for d in v:
+                for kk, vv in d.items():
+                    if kk != "level":
+                        out[f"hqp_levels.{d['level']}.{kk}"] = vv
+        elif v is None or isinstance(v, (int, float, bool, str)):
+            out[k] = v
+    return out

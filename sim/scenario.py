@@ -70,6 +70,9 @@ class Scenario:
     walls: tuple = ()
     #: The scenario's own controller variants: name -> ordered levels of task specs.
     variants: Mapping[str, Sequence] = field(default_factory=dict)
+    #: Body-region force limits [N] per cuff name, over the defaults of
+    #: :data:`sim.metrics.BODY_REGION_FORCE_LIMITS_N` (ISO/TS 15066 Annex A).
+    force_limits_N: Mapping[str, float] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         o = f"Scenario({self.name!r})"
@@ -89,6 +92,10 @@ class Scenario:
         object.__setattr__(self, "cuffs", tuple(self.cuffs))
         object.__setattr__(self, "walls", tuple(self.walls))
         object.__setattr__(self, "variants", dict(self.variants))
+        limits = dict(self.force_limits_N)
+        for cuff, lim in limits.items():
+            positive(o, f"force_limits_N[{cuff!r}]", lim, "N")
+        object.__setattr__(self, "force_limits_N", {k: float(v) for k, v in limits.items()})
         object.__setattr__(self, "control_period_s",
                            positive(o, "control_period_s", self.control_period_s, "s"))
         if not (isinstance(self.substeps, int) and self.substeps >= 1):

@@ -41,7 +41,8 @@ from .runlog import RunLog, environment_metadata, load_run
 from .scenario import Scenario
 from .sensors import ForceTorqueSensor, JointSensing
 
-__all__ = ["SimulationError", "RunResult", "build_assembly", "controller_context", "simulate", "run_scenario"]
+__all__ = ["SimulationError", "RunResult", "build_assembly", "controller_context", "simulate", "run_scenario",
+           "evaluate_run"]
 
 Progress = Callable[[int, int], None]
 #: Called after every tick with (t_s, q_exo, q_human, cuff forces on the human in world axes (n_cuffs, 3)).
@@ -266,11 +267,13 @@ def run_scenario(
     seed: int | None = None,
     progress: Progress | None = None,
     observer: Observer | None = None,
+    report: bool = True,
 ) -> RunResult:
     """A coupled run plus its human-alone baseline (same scenario and seed), with metrics.
 
     Writes the coupled run to ``out_dir`` (log, ``meta.json``,
-    ``metrics.json``) and the baseline to ``out_dir/human_alone``.
+    ``metrics.json``, and with ``report`` a ``report.md`` with plots, see
+    :func:`sim.report.write_run_report`) and the baseline to ``out_dir/human_alone``.
     """
     out = Path(out_dir)
     make_controller(controller_name, scenario.variants, scenario.walls)  # fail on a bad name before writing
@@ -279,29 +282,73 @@ def run_scenario(
     base_progress = (lambda k, _n: progress(n + k, 2 * n)) if progress else None
     simulate(scenario, controller_name, out, seed=seed, progress=coupled_progress, observer=observer)
     simulate(scenario, controller_name, out / "human_alone", seed=seed, mode="human_alone", progress=base_progress)
-    run, base = load_run(out), load_run(out / "human_alone")
-    with np.load(out / "timing.npz", allow_pickle=False) as f:
-        tick_times = f["tick_time_s"]
-    metrics = run_metrics(run.arrays, cuff_names=run.meta["cuffs"], baseline=base.arrays,
-                          dt_s=scenario.control_period_s, tick_times_s=tick_times)
+    wall = None
     plane = next((w for w in scenario.walls if isinstance(w, tuple) and w and w[0] == "wall_plane"), None)
     if plane is not None:
         spec = dict(plane[1])
         law = spec.get("law", (1000.0, 10.0))
         stiffness = law.stiffness_N_per_m if hasattr(law, "stiffness_N_per_m") else float(law[0])
-        renders = _renders_walls(scenario, controller_name)
-        if not renders:
-            stiffness = 0.0  # this variant commands no wall
-        asm = build_assembly(scenario)
-        lo, hi = asm.exo.position_limits()
-        hand = run.meta["cuffs"].index(spec.get("sensor", "hand"))
-        metrics |= wall_metrics(run.arrays, point_m=spec["point_m"], normal=spec["normal"],
-                                stiffness_N_per_m=stiffness, hand_cuff=hand,
-                                dt_s=scenario.control_period_s, lower=lo, upper=hi)
-        if not renders:  # a slope of force on penetration means nothing without a wall
-            metrics["wall_stiffness_rendered_N_per_m"] = metrics["wall_stiffness_rendered_robot_N_per_m"] = None
+        wall = {"point_m": spec["point_m"], "normal": spec["normal"], "sensor": spec.get("sensor", "hand"),
+                "stiffness_N_per_m": stiffness, "rendered": _renders_walls(scenario, controller_name)}
+    metrics = evaluate_run(out, wall=wall, force_limits_N=scenario.force_limits_N)
     write_json(out / "metrics.json", metrics)
+    if report:
+        from .report import write_run_report
+
+        write_run_report(out, metrics)
     return RunResult(out, metrics, True)
+
+
+def evaluate_run(folder: str | Path, *, wall: dict | None = None,
+                 force_limits_N: dict[str, float] | None = None) -> dict:
+    """The metrics of a finished coupled run folder (and its ``human_alone`` baseline, if present).
+
+    Reads the log, ``timing.npz`` and the run's own robot model (``exo.urdf``
+    with the armature of ``meta.json``), so it works on any run folder.
+
+    Parameters
+    ----------
+    wall : dict, optional
+        A plane wall: ``point_m``, ``normal``, ``stiffness_N_per_m``,
+        ``sensor`` (cuff name) and ``rendered`` (False: the variant commands no
+        wall, so the stiffness keys are None and the commanded one 0).
+    force_limits_N : dict, optional
+        Body-region force limit per cuff name, over
+        :data:`sim.metrics.BODY_REGION_FORCE_LIMITS_N`.
+    """
+    from models.arm import load_arm
+
+    from .metrics import BODY_REGION_FORCE_LIMITS_N, robot_interaction_terms
+
+    out = Path(folder)
+    run = load_run(out)
+    base_dir = out / "human_alone"
+    base = load_run(base_dir) if base_dir.is_dir() else None
+    meta = run.meta
+    dt = float(meta["dt_s"])
+    timing_path = out / "timing.npz"
+    timing = {}
+    if timing_path.is_file():
+        with np.load(timing_path, allow_pickle=False) as f:
+            timing = {k: f[k] for k in f.files}
+    models_meta = meta["models"]
+    arm = load_arm((out / models_meta["exo_urdf"]).read_text(encoding="utf-8"),
+                   hand_frame=models_meta["exo_hand_frame"],
+                   armature_kg_m2=meta.get("exo_params", {}).get("armature_kg_m2"), source=str(out / "exo.urdf"))
+    cuff_names = list(meta["cuffs"])
+    terms = robot_interaction_terms(arm, run.arrays, [models_meta["cuff_frames"][c][0] for c in cuff_names], dt)
+    limits = dict(BODY_REGION_FORCE_LIMITS_N) | dict(force_limits_N or {})
+    hand = cuff_names.index(wall["sensor"]) if wall and wall.get("sensor") in cuff_names else None
+    metrics = run_metrics(run.arrays, cuff_names=cuff_names, baseline=base.arrays if base else None, dt_s=dt,
+                          tick_times_s=timing.get("tick_time_s", np.zeros(0)), timing=timing, robot_terms=terms,
+                          limits_rad=arm.position_limits(), force_limits_N=limits, hand_cuff=hand)
+    if wall is not None:
+        metrics |= wall_metrics(run.arrays, point_m=wall["point_m"], normal=wall["normal"],
+                                stiffness_N_per_m=wall["stiffness_N_per_m"] if wall.get("rendered", True) else 0.0,
+                                hand_cuff=cuff_names.index(wall.get("sensor", "hand")), dt_s=dt)
+        if not wall.get("rendered", True):  # a slope of force on penetration means nothing without a wall
+            metrics["wall_stiffness_rendered_N_per_m"] = metrics["wall_stiffness_rendered_robot_N_per_m"] = None
+    return metrics
 
 
 def _renders_walls(scenario: Scenario, controller_name: str) -> bool:

@@ -1,0 +1,139 @@
+"""Plots of runs, comparisons and sweeps (matplotlib, PNG files, no display needed).
+
+Computing and drawing stay apart: every function here takes arrays or metric
+dicts already computed (:mod:`sim.metrics`) and only draws.  Each returns the
+path it wrote.  matplotlib is imported on first use with the non-interactive
+``Agg`` backend, so plotting works on a machine with no display.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["force_over_time", "force_against_penetration", "bars", "solve_time_histograms", "sweep_bars"]
+
+
+def _plt():
+    import matplotlib
+
+    matplotlib.use("Agg", force=True)
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _save(fig, path: Path) -> Path:
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    _plt().close(fig)
+    return path
+
+
+def force_over_time(series: Mapping[str, tuple[np.ndarray, np.ndarray]], path: Path, *,
+                    title: str = "interaction force") -> Path:
+    """One line per label: (t [s], F [N]), e.g. the overall interaction force of each variant or each cuff."""
+    plt = _plt()
+    fig, ax = plt.subplots(figsize=(8, 3.6))
+    for label, (t, f) in series.items():
+        ax.plot(t, f, lw=1.0, label=label)
+    ax.set_xlabel("time [s]")
+    ax.set_ylabel("force [N]")
+    ax.set_title(title)
+    ax.grid(alpha=0.3)
+    ax.legend(loc="upper right", fontsize=8)
+    return _save(fig, path)
+
+
+def force_against_penetration(series: Mapping[str, tuple[np.ndarray, np.ndarray]], path: Path, *,
+                              commanded_N_per_m: float | None = None) -> Path:
+    """Wall-normal force [N] against penetration [mm] per label, with the commanded spring as a dashed line."""
+    plt = _plt()
+    fig, ax = plt.subplots(figsize=(6, 4.2))
+    pmax = 0.0
+    for label, (p, f) in series.items():
+        sel = p > -0.005
+        ax.plot(1e3 * p[sel], f[sel], ".", ms=1.5, label=label)
+        if np.any(sel):
+            pmax = max(pmax, float(p[sel].max()))
+    if commanded_N_per_m:
+        x = np.linspace(0.0, max(pmax, 1e-3), 2)
+        ax.plot(1e3 * x, commanded_N_per_m * x, "k--", lw=1, label=f"commanded {commanded_N_per_m:g} N/m")
+    ax.axvline(0.0, color="0.5", lw=0.8)
+    ax.set_xlabel("penetration of the hand [mm]")
+    ax.set_ylabel("wall-normal force felt [N]")
+    ax.set_title("force against penetration")
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize=8, markerscale=6)
+    return _save(fig, path)
+
+
+def bars(values: Mapping[str, float | None], path: Path, *, ylabel: str, title: str) -> Path:
+    """One bar per label (a missing value is shown as 'n/a')."""
+    plt = _plt()
+    fig, ax = plt.subplots(figsize=(max(4.0, 1.2 * len(values) + 2), 3.6))
+    labels = list(values)
+    y = [np.nan if values[k] is None else float(values[k]) for k in labels]
+    ax.bar(range(len(labels)), np.nan_to_num(y), color="tab:blue")
+    for i, v in enumerate(y):
+        ax.annotate("n/a" if np.isnan(v) else f"{v:.3g}", (i, 0 if np.isnan(v) else v), ha="center",
+                    va="bottom", fontsize=8)
+    ax.set_xticks(range(len(labels)), labels, rotation=20, ha="right")
+    ax.axhline(0.0, color="k", lw=0.8)
+    ax.set_ylabel(ylabel)
+    ax.set_title(title)
+    ax.grid(axis="y", alpha=0.3)
+    return _save(fig, path)
+
+
+def solve_time_histograms(times_s: Mapping[str, np.ndarray], path: Path) -> Path:
+    """Histogram of the per-tick QP solve time [us] per label, logarithmic bins."""
+    plt = _plt()
+    fig, ax = plt.subplots(figsize=(7, 3.6))
+    data = {k: 1e6 * np.asarray(v)[np.isfinite(v)] for k, v in times_s.items()}
+    data = {k: v[v > 0] for k, v in data.items() if np.any(v > 0)}
+    if data:
+        lo = min(v.min() for v in data.values())
+        hi = max(v.max() for v in data.values())
+        edges = np.geomspace(max(lo, 1e-3), max(hi, lo * 1.01), 60)
+        for label, v in data.items():
+            ax.hist(v, bins=edges, histtype="step", lw=1.2, label=f"{label} (median {np.median(v):.0f} us)")
+        ax.set_xscale("log")
+        ax.legend(fontsize=8)
+    else:
+        ax.text(0.5, 0.5, "no QP in these controllers", ha="center", va="center", transform=ax.transAxes)
+    ax.set_xlabel("solve time per tick [us]")
+    ax.set_ylabel("ticks")
+    ax.set_title("hierarchical QP solve time")
+    ax.grid(alpha=0.3)
+    return _save(fig, path)
+
+
+def sweep_bars(rows: Sequence[Mapping], key: str, path: Path, *, ylabel: str, title: str) -> Path:
+    """Grouped bars of ``KEY_mean`` with ``KEY_std`` error bars: one group per subject, one bar per controller.
+
+    ``rows`` are :func:`sim.sweep.summarize` rows; the ``"all"`` group comes first.
+    """
+    plt = _plt()
+    controllers = list(dict.fromkeys(r["controller"] for r in rows))
+    subjects = list(dict.fromkeys(r["subject"] for r in rows))
+    by = {(r["controller"], r["subject"]): r for r in rows}
+    fig, ax = plt.subplots(figsize=(max(5.0, 1.1 * len(subjects) * max(1, len(controllers)) * 0.5 + 2), 3.8))
+    width = 0.8 / max(1, len(controllers))
+    for j, c in enumerate(controllers):
+        m = [by.get((c, s), {}).get(f"{key}_mean") for s in subjects]
+        e = [by.get((c, s), {}).get(f"{key}_std") for s in subjects]
+        x = np.arange(len(subjects)) + (j - (len(controllers) - 1) / 2) * width
+        ax.bar(x, [np.nan if v is None else v for v in m], width, yerr=[0 if v is None else v for v in e],
+               capsize=3, label=c)
+    ax.set_xticks(range(len(subjects)), subjects)
+    ax.axhline(0.0, color="k", lw=0.8)
+    ax.set_ylabel(ylabel)
+    ax.set_title(title)
+    ax.legend(fontsize=8)
+    ax.grid(axis="y", alpha=0.3)
+    return _save(fig, path)

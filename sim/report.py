@@ -1,0 +1,356 @@
+"""Markdown and CSV reports of a run, a comparison of runs, and a sweep.
+
+Each report holds the metrics, the plots (:mod:`sim.plots`) and the cautions.
+The "better" value of a row follows :data:`sim.metrics.METRICS`: lower, higher,
+closest to zero, to one, or to the commanded wall stiffness.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+import numpy as np
+
+from .metrics import METRICS, flat_metrics, interaction_force_norm_N, plane_penetration_m
+
+__all__ = ["CAUTION", "best_index", "key_info", "comparison_rows", "markdown_table", "write_run_report",
+           "compare_runs", "write_sweep_report"]
+
+#: Printed in every report.
+CAUTION = (
+    "**Caution.** These are results of a simulation. They are no evidence that a controller is safe on a person. "
+    "Anything prototyped here must be verified on the real device under IEC 80601-2-78 (medical robots for "
+    "rehabilitation), ISO 13482 where it applies, and local regulation, and used with patients only under "
+    "clinical supervision and licensed practice. The body-region force limits used here (ISO/TS 15066 Annex A) "
+    "were set for industrial collaborative robots; some of their values are unconfirmed (see the run's metrics)."
+)
+
+
+def fmt(v, digits: int = 4) -> str:
+    """A number for a table: 4 significant digits, ``n/a`` for None."""
+    if v is None:
+        return "n/a"
+    if isinstance(v, bool):
+        return str(v)
+    if isinstance(v, int):
+        return str(v)
+    if isinstance(v, float):
+        if not math.isfinite(v):
+            return str(v)
+        return f"{v:.{digits}g}"
+    return str(v)
+
+
+def best_index(values: Sequence, better: str | None, commanded: Sequence | None = None) -> int | None:
+    """Index of the better value under ``better`` (see :class:`sim.metrics.MetricInfo`), None if no winner.
+
+    Missing values never win; a tie (every value equal) has no winner.
+    """
+    if better is None:
+        return None
+    score = []
+    for i, v in enumerate(values):
+        if v is None or isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+            score.append(None)
+            continue
+        if better == "lower":
+            s = v
+        elif better == "higher":
+            s = -v
+        elif better == "zero":
+            s = abs(v)
+        elif better == "one":
+            s = abs(v - 1.0)
+        elif better == "commanded":
+            c = commanded[i] if commanded is not None else None
+            if not c:
+                score.append(None)
+                continue
+            s = abs(v - c)
+        else:
+            raise ValueError(f"unknown 'better' rule {better!r}")
+        score.append(s)
+    valid = [(s, i) for i, s in enumerate(score) if s is not None]
+    if len(valid) < 2 or len({s for s, _ in valid}) == 1:
+        return None
+    return min(valid)[1]
+
+
+def key_info(key: str) -> tuple[str, str | None, str]:
+    """Unit, better side and label of a flat metric key, per-cuff (``cuffs.NAME.KEY``) and per-level keys too."""
+    info = METRICS.get(key)
+    if info is not None:
+        return info.unit, info.better, info.label
+    if key.startswith("cuffs."):
+        _, cuff, tail = key.split(".", 2)
+        unit = "N" if tail.endswith("_N") else "N m" if tail.endswith("_Nm") else "-"
+        better = None if tail == "force_limit_N" else "lower" if tail.endswith(("_N", "_Nm", "_ratio")) else None
+        return unit, better, f"{cuff} cuff: {tail.replace('_', ' ')}"
+    if key.startswith("hqp_levels."):
+        _, level, tail = key.split(".", 2)
+        return "us", "lower", f"level {level}: {tail.replace('_', ' ')}"
+    return "", None, ""
+
+
+def comparison_rows(labels: Sequence[str], metrics: Sequence[Mapping]) -> list[dict]:
+    """One row per metric key present in any run: ``key``, ``unit``, one value per label and ``best`` (a label or
+    empty).  Known keys come in :data:`sim.metrics.METRICS` order, per-cuff and per-level keys after them."""
+    flats = [flat_metrics(m) for m in metrics]
+    keys = [k for k in METRICS if any(k in f for f in flats)]
+    keys += [k for k in dict.fromkeys(k for f in flats for k in f) if k not in METRICS]
+    commanded = [f.get("wall_stiffness_commanded_N_per_m") for f in flats]
+    rows = []
+    for k in keys:
+        unit, better, _ = key_info(k)
+        values = [f.get(k) for f in flats]
+        b = best_index(values, better, commanded)
+        rows.append({"key": k, "unit": unit, **dict(zip(labels, values)), "best": labels[b] if b is not None else ""})
+    return rows
+
+
+def markdown_table(header: Sequence[str], rows: Sequence[Sequence]) -> str:
+    """A GitHub-flavoured Markdown table (cells already formatted as text)."""
+    def esc(c):
+        return str(c).replace("|", "\\|")
+
+    lines = ["| " + " | ".join(esc(h) for h in header) + " |", "|" + "---|" * len(header)]
+    lines += ["| " + " | ".join(esc(c) for c in r) + " |" for r in rows]
+    return "\n".join(lines)
+
+
+def text_table(header: Sequence[str], rows: Sequence[Sequence]) -> str:
+    """A plain-text table with aligned columns, for the terminal."""
+    cells = [list(map(str, header))] + [list(map(str, r)) for r in rows]
+    widths = [max(len(r[i]) for r in cells) for i in range(len(header))]
+    out = []
+    for j, r in enumerate(cells):
+        out.append("  ".join(c.ljust(w) if i == 0 else c.rjust(w) for i, (c, w) in enumerate(zip(r, widths))))
+        if j == 0:
+            out.append("  ".join("-" * w for w in widths))
+    return "\n".join(out)
+
+
+def _marked(rows: Sequence[Mapping], labels: Sequence[str], mark: str) -> list[list[str]]:
+    """Rows of text cells, the better value wrapped in ``mark`` (``**`` for Markdown, ``*`` suffix for text)."""
+    out = []
+    for r in rows:
+        cells = [r["key"], r["unit"]]
+        for lab in labels:
+            s = fmt(r[lab])
+            if r["best"] == lab:
+                s = f"**{s}**" if mark == "md" else f"{s} *"
+            cells.append(s)
+        out.append(cells)
+    return out
+
+
+def _wall_spec(meta: Mapping) -> dict | None:
+    for w in meta.get("walls") or []:
+        if isinstance(w, list) and len(w) == 2 and w[0] == "wall_plane":
+            return w[1]
+    return None
+
+
+def _wall_series(run, spec: Mapping) -> tuple[np.ndarray, np.ndarray]:
+    names = list(run.meta["cuffs"])
+    hand = names.index(spec.get("sensor", "hand")) if spec.get("sensor", "hand") in names else len(names) - 1
+    n = np.asarray(spec["normal"], dtype=float)
+    n = n / np.linalg.norm(n)
+    felt = -(np.asarray(run["cuff_force_human_world"])[:, hand, :] @ n)
+    pen = plane_penetration_m(run["p_hand_human"], spec["point_m"], n)
+    return pen, felt
+
+
+def write_run_report(folder: str | Path, metrics: Mapping | None = None) -> Path:
+    """``report.md`` and ``plots/*.png`` of one coupled run folder: key metrics, force plots, cautions."""
+    from . import plots
+    from .runlog import load_run
+
+    folder = Path(folder)
+    run = load_run(folder)
+    m = dict(run.metrics if metrics is None else metrics)
+    meta = run.meta
+    t = np.asarray(run["t"])
+    w = np.asarray(run["cuff_wrench_human"])
+    series = {"all cuffs": (t, interaction_force_norm_N(w))}
+    for i, name in enumerate(meta["cuffs"]):
+        series[name] = (t, np.linalg.norm(w[:, i, :3], axis=-1))
+    figs = [plots.force_over_time(series, folder / "plots" / "interaction_force.png",
+                                  title=f"{meta['scenario']} / {meta['controller']}: interaction force")]
+    spec = _wall_spec(meta)
+    if spec is not None:
+        pen, felt = _wall_series(run, spec)
+        figs.append(plots.force_against_penetration({meta["controller"]: (pen, felt)},
+                                                    folder / "plots" / "wall_force_penetration.png",
+                                                    commanded_N_per_m=m.get("wall_stiffness_commanded_N_per_m")))
+    flat = flat_metrics(m)
+    rows = [[k, key_info(k)[0], fmt(v), key_info(k)[2]] for k, v in flat.items()]
+    text = [f"# Run report: {meta['scenario']} / {meta['controller']} / seed {meta['seed']}", "",
+            f"Status: {meta.get('status', 'unknown')}, {fmt(m.get('sim_duration_s'))} s simulated at "
+            f"{1.0 / float(meta['dt_s']):g} Hz control, {meta['substeps']} physics substeps.", "", CAUTION, "",
+            "## Metrics", "", markdown_table(["key", "unit", "value", "meaning"], rows), "", "## Plots", ""]
+    text += [f"![{p.stem}](plots/{p.name})" for p in figs]
+    out = folder / "report.md"
+    out.write_text("\n".join(text) + "\n", encoding="utf-8")
+    return out
+
+
+def compare_runs(run_dirs: Sequence[str | Path], out_dir: str | Path, labels: Sequence[str] | None = None
+                 ) -> tuple[list[dict], list[str], Path]:
+    """Compare run folders side by side: ``compare.md``, ``compare.csv`` and plots in ``out_dir``.
+
+    Labels default to each run's controller name (made unique with the
+    folder's name when two runs share one).  Returns the comparison rows, the
+    labels and the Markdown report's path.
+    """
+    from . import plots
+    from .runlog import load_run
+    from .sweep import write_csv
+
+    runs = [load_run(d) for d in run_dirs]
+    for d, r in zip(run_dirs, runs):
+        if not r.metrics:
+            from .runlog import RunLogError
+
+            raise RunLogError(f"{d}: no metrics.json (not a finished 'exosandbox run' folder)")
+    if labels is None:
+        labels = [str(r.meta.get("controller")) for r in runs]
+        if len(set(labels)) < len(labels):
+            labels = [f"{lab} ({Path(d).name})" for lab, d in zip(labels, run_dirs)]
+    labels = list(labels)
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    rows = comparison_rows(labels, [r.metrics for r in runs])
+    write_csv(out / "compare.csv", rows)
+    figs = []
+    figs.append(plots.force_over_time(
+        {lab: (np.asarray(r["t"]), interaction_force_norm_N(r["cuff_wrench_human"])) for lab, r in zip(labels, runs)},
+        out / "plots" / "interaction_force.png", title="interaction force, all cuffs"))
+    walls = {lab: (r, _wall_spec(r.meta)) for lab, r in zip(labels, runs)}
+    if any(spec is not None for _, spec in walls.values()):
+        commanded = max((r.metrics.get("wall_stiffness_commanded_N_per_m") or 0.0) for r in runs) or None
+        figs.append(plots.force_against_penetration(
+            {lab: _wall_series(r, spec) for lab, (r, spec) in walls.items() if spec is not None},
+            out / "plots" / "wall_force_penetration.png", commanded_N_per_m=commanded))
+    figs.append(plots.bars({lab: r.metrics.get("apparent_mass_hand_kg") for lab, r in zip(labels, runs)},
+                           out / "plots" / "felt_mass.png", ylabel="felt mass at the hand [kg]",
+                           title="apparent (felt) mass at the hand"))
+    solve = {}
+    for lab, d in zip(labels, run_dirs):
+        p = Path(d) / "timing.npz"
+        if p.is_file():
+            with np.load(p, allow_pickle=False) as f:
+                if "diag_solve_time_s" in f.files:
+                    solve[lab] = f["diag_solve_time_s"]
+    figs.append(plots.solve_time_histograms(solve, out / "plots" / "solve_time.png"))
+    header = ["metric", "unit", *labels]
+    scen = sorted({str(r.meta.get("scenario")) for r in runs})
+    text = ["# Comparison: " + ", ".join(labels), "",
+            f"Scenario(s): {', '.join(scen)}. Runs: " + ", ".join(f"`{Path(d).name}`" for d in run_dirs) + ".", "",
+            "The better value of each row is in bold (lower, higher, closest to zero or one, or closest to the "
+            "commanded wall stiffness, as the metric calls for; timing rows depend on this machine).", "",
+            CAUTION, "", markdown_table(header, _marked(rows, labels, "md")), "", "## Plots", ""]
+    text += [f"![{p.stem}](plots/{p.name})" for p in figs]
+    md = out / "compare.md"
+    md.write_text("\n".join(text) + "\n", encoding="utf-8")
+    return rows, labels, md
+
+
+def headline(summary: Sequence[Mapping], key: str = "interaction_force_rms_N") -> list[str]:
+    """Sentences saying which controller has the better overall mean of ``key`` and by how much."""
+    info = METRICS[key]
+    overall = [r for r in summary if r["subject"] == "all" and r.get(f"{key}_mean") is not None]
+    if len(overall) < 2:
+        return []
+    b = best_index([r[f"{key}_mean"] for r in overall], info.better,
+                   [r.get("wall_stiffness_commanded_N_per_m_mean") for r in overall])
+    if b is None:
+        return []
+    best = overall[b]
+    out = []
+    for r in overall:
+        if r is best:
+            continue
+        other, mine = r[f"{key}_mean"], best[f"{key}_mean"]
+        rel = f" ({100 * (mine - other) / abs(other):+.0f} %)" if other else ""
+        out.append(f"`{best['controller']}` is better than `{r['controller']}` on {info.label}: "
+                   f"{fmt(mine)} ± {fmt(best[f'{key}_std'], 2)} {info.unit} against {fmt(other)} ± "
+                   f"{fmt(r[f'{key}_std'], 2)} {info.unit}{rel}, over {best['n_ok']} and {r['n_ok']} runs.")
+    return out
+
+
+def summary_cells(summary: Sequence[Mapping], keys: Sequence[str]) -> tuple[list[str], list[list[str]]]:
+    """Header and text cells of a sweep summary: ``mean ± std`` per key; the better overall mean in bold."""
+    header = ["controller", "subject", "runs ok", "failed"] + [f"{k} [{METRICS[k].unit}]" for k in keys]
+    best = {}
+    for k in keys:
+        for subject in dict.fromkeys(r["subject"] for r in summary):
+            group = [r for r in summary if r["subject"] == subject]
+            i = best_index([r.get(f"{k}_mean") for r in group], METRICS[k].better,
+                           [r.get("wall_stiffness_commanded_N_per_m_mean") for r in group])
+            if i is not None:
+                best[(k, subject)] = group[i]["controller"]
+    rows = []
+    for r in summary:
+        cells = [r["controller"], r["subject"], str(r["n_ok"]), str(r["n_failed"])]
+        for k in keys:
+            m, s = r.get(f"{k}_mean"), r.get(f"{k}_std")
+            c = "n/a" if m is None else f"{fmt(m)} ± {fmt(s, 2)}"
+            if best.get((k, r["subject"])) == r["controller"]:
+                c = f"**{c}**"
+            cells.append(c)
+        rows.append(cells)
+    return header, rows
+
+
+def write_sweep_report(result, settings: Mapping) -> Path:
+    """``summary.csv``, ``summary.md``, ``runs.md``, ``sweep.json``, ``report.md`` and plots of a sweep."""
+    import json
+
+    from . import plots
+    from .sweep import run_rows, write_csv
+
+    out = Path(result.out_dir)
+    summary = list(result.summary)
+    keys = [k for k, m in METRICS.items() if m.summary and any(r.get(f"{k}_mean") is not None for r in summary)]
+    write_csv(out / "summary.csv", summary)
+    header, cells = summary_cells(summary, keys)
+    (out / "summary.md").write_text(markdown_table(header, cells) + "\n", encoding="utf-8")
+    rows = run_rows(result.results)
+    write_csv(out / "runs.csv", rows)
+    run_keys = ["controller", "subject", "seed", "status", "interaction_force_rms_N", "error"]
+    (out / "runs.md").write_text(markdown_table(run_keys, [[fmt(r.get(k, "")) for k in run_keys] for r in rows])
+                                 + "\n", encoding="utf-8")
+    doc = {"settings": dict(settings), "wall_time_s": result.wall_time_s,
+           "runs": [{"controller": r.case.controller, "subject": r.case.subject, "seed": r.case.seed,
+                     "folder": str(Path(r.case.folder).relative_to(out.resolve()))
+                     if Path(r.case.folder).is_relative_to(out.resolve()) else r.case.folder,
+                     "error": r.error, "metrics": r.metrics} for r in result.results]}
+    (out / "sweep.json").write_text(json.dumps(doc, indent=1, allow_nan=False) + "\n", encoding="utf-8")
+    figs = []
+    for k in ("interaction_force_rms_N", "apparent_mass_hand_kg", "human_effort_ratio",
+              "wall_stiffness_rendered_N_per_m", "hqp_solve_median_us"):
+        if k in keys:
+            figs.append(plots.sweep_bars(summary, k, out / "plots" / f"{k}.png",
+                                         ylabel=f"{METRICS[k].label} [{METRICS[k].unit}]",
+                                         title=f"{METRICS[k].label}: mean ± std (all: over subjects and seeds)"))
+    failed = result.failed
+    text = [f"# Sweep report: {Path(settings['scenario']).name}", "",
+            f"Controllers {', '.join(settings['controllers'])}; subjects {', '.join(settings['subjects'])}; "
+            f"seeds {', '.join(map(str, settings['seeds']))}; executor: {settings['executor']}; "
+            f"{len(result.results)} runs, {len(failed)} failed, {result.wall_time_s:.1f} s wall time.", "",
+            CAUTION, ""]
+    lines = headline(summary)
+    if lines:
+        text += ["## Which is more transparent", ""] + [f"- {s}" for s in lines] + [""]
+    text += ["## Summary (mean ± standard deviation; subject 'all' pools every subject and seed)", "",
+             "The better value per subject group is in bold.", "", markdown_table(header, cells), ""]
+    if failed:
+        text += ["## Failed runs", ""] + [f"- `{r.case.label}`: {r.error}" for r in failed] + [""]
+    text += ["## Plots", ""] + [f"![{p.stem}](plots/{p.name})" for p in figs]
+    text += ["", "Every run's metrics: `runs.csv`; every run's folder: `CONTROLLER/SUBJECT/seedN/`."]
+    md = out / "report.md"
+    md.write_text("\n".join(text) + "\n", encoding="utf-8")
+    return md

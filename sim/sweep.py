@@ -1,0 +1,357 @@
+"""Sweeps: one scenario run for every combination of controller variant, wearer and seed.
+
+Every run is independent (its own process, its own seed), so a sweep is an
+embarrassingly parallel map.  Two executors run the same function,
+:func:`run_case`:
+
+* local processes (:class:`concurrent.futures.ProcessPoolExecutor`, ``jobs``
+  workers, started with ``spawn`` so that a worker inherits nothing from the
+  parent); ``jobs=1`` runs in this process;
+* an existing Dask distributed cluster (``dask_address``), for users who
+  outgrow one machine.  The workers must see the scenario file and ``out_dir``
+  at the same paths (a shared file system).
+
+A run's numbers depend only on its scenario, controller, subject and seed,
+never on the executor (the logs are bit-identical per seed), except the
+wall-clock figures (:data:`sim.metrics.TIMING_KEYS`).  A run that fails is
+recorded with its error; the others go on.
+
+Output folder::
+
+    runs.csv, runs.md          one row per run (status, error, every scalar metric)
+    summary.csv, summary.md    mean ± standard deviation per controller, over all
+                               subjects and seeds, and per (controller, subject)
+    report.md, plots/*.png     the summary, the plots and the cautions
+    sweep.json                 the sweep's settings and every run's metrics
+    CONTROLLER/SUBJECT/seedN/  the run folders (each with its human-alone baseline)
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+import os
+import time
+import traceback
+from collections.abc import Callable, Iterable, Sequence
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+
+import numpy as np
+
+from models.errors import ParameterError, SandboxError, UnknownNameError
+from models.human import SUBJECTS
+
+from .metrics import METRICS, flat_metrics
+from .scenario import load_scenario
+
+__all__ = ["SweepCase", "CaseResult", "SweepResult", "SweepError", "run_case", "run_sweep", "summarize"]
+
+
+class SweepError(SandboxError, ValueError):
+    """A sweep cannot start (a bad option, an unknown name, an output folder in use)."""
+
+
+@dataclass(frozen=True)
+class SweepCase:
+    """One run of a sweep (plain values, so that it pickles to any worker)."""
+
+    scenario_path: str
+    controller: str
+    subject: str
+    seed: int
+    folder: str
+    duration_s: float | None = None
+
+    @property
+    def label(self) -> str:
+        """``controller/subject/seedN``."""
+        return f"{self.controller}/{self.subject}/seed{self.seed}"
+
+
+@dataclass(frozen=True)
+class CaseResult:
+    """What came back from one run: its metrics, or the error that stopped it."""
+
+    case: SweepCase
+    metrics: dict | None
+    error: str | None
+    wall_time_s: float
+
+    @property
+    def ok(self) -> bool:
+        return self.error is None
+
+
+@dataclass(frozen=True)
+class SweepResult:
+    """Every run's result (in the order of the combinations) and the summary rows."""
+
+    out_dir: Path
+    results: tuple[CaseResult, ...]
+    summary: tuple[dict, ...] = field(default_factory=tuple)
+    wall_time_s: float = 0.0
+
+    @property
+    def failed(self) -> tuple[CaseResult, ...]:
+        return tuple(r for r in self.results if not r.ok)
+
+
+def run_case(case: SweepCase) -> CaseResult:
+    """Run one case (:func:`sim.simulate.run_scenario`) and return its metrics or its error.
+
+    Never raises for a failing run: the error (type and message, plus the last
+    traceback line for an unexpected one) is returned, so one bad combination
+    does not stop a sweep.
+    """
+    from .simulate import run_scenario
+
+    t0 = time.perf_counter()
+    try:
+        scenario = load_scenario(case.scenario_path, subject=case.subject)
+        if case.duration_s is not None:
+            scenario = replace(scenario, duration_s=case.duration_s)
+        result = run_scenario(scenario, case.controller, case.folder, seed=case.seed)
+        return CaseResult(case, result.metrics, None, time.perf_counter() - t0)
+    except SandboxError as e:
+        return CaseResult(case, None, f"{type(e).__name__}: {e}", time.perf_counter() - t0)
+    except Exception as e:  # an unexpected failure is reported, never allowed to stop the sweep
+        where = traceback.extract_tb(e.__traceback__)[-1]
+        return CaseResult(case, None, f"{type(e).__name__}: {e} (at {Path(where.filename).name}:{where.lineno})",
+                          time.perf_counter() - t0)
+
+
+def _seeds(seeds: int | Sequence[int], first: int) -> tuple[int, ...]:
+    if isinstance(seeds, (int, np.integer)) and not isinstance(seeds, bool):
+        if seeds < 1:
+            raise SweepError(f"seeds must be >= 1, got {seeds}")
+        return tuple(range(first, first + int(seeds)))
+    out = tuple(int(s) for s in seeds)
+    if not out or any(s < 0 for s in out) or len(set(out)) != len(out):
+        raise SweepError(f"seeds must be distinct integers >= 0, got {seeds!r}")
+    return out
+
+
+def plan_sweep(scenario_path: str | Path, controllers: Sequence[str], subjects: Sequence[str],
+               seeds: int | Sequence[int], out_dir: str | Path, *, duration_s: float | None = None
+               ) -> list[SweepCase]:
+    """Check the options and list the cases, controllers outermost, then subjects, then seeds."""
+    scenario = load_scenario(scenario_path)  # a broken file fails here, once, with its own message
+    controllers, subjects = list(dict.fromkeys(controllers)), list(dict.fromkeys(subjects))
+    if not controllers:
+        raise SweepError("give at least one controller")
+    if not subjects:
+        raise SweepError("give at least one subject")
+    for c in controllers:
+        if c not in scenario.controllers:
+            raise UnknownNameError(f"scenario {scenario.name!r} supports the controllers "
+                                   f"{', '.join(scenario.controllers)}; got {c!r}")
+    for s in subjects:
+        if s not in SUBJECTS:
+            raise UnknownNameError(f"unknown subject {s!r}; built-in subjects are {', '.join(SUBJECTS)}")
+    if duration_s is not None and not (isinstance(duration_s, (int, float)) and math.isfinite(duration_s)
+                                       and duration_s > 0):
+        raise ParameterError(f"duration_s must be a finite number > 0, got {duration_s!r}")
+    out = Path(out_dir)
+    path = str(Path(scenario_path).resolve())
+    return [SweepCase(path, c, s, seed, str((out / c / s / f"seed{seed}").resolve()), duration_s)
+            for c in controllers for s in subjects for seed in _seeds(seeds, scenario.seed)]
+
+
+def _local(cases: Sequence[SweepCase], jobs: int) -> Iterable[CaseResult]:
+    if jobs == 1:
+        for c in cases:
+            yield run_case(c)
+        return
+    import multiprocessing
+
+    with ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context("spawn")) as pool:
+        pending = {pool.submit(run_case, c) for c in cases}
+        try:
+            while pending:
+                done, pending = wait(pending, return_when=FIRST_COMPLETED)
+                for f in done:
+                    yield f.result()
+        finally:
+            for f in pending:
+                f.cancel()
+
+
+def _dask(cases: Sequence[SweepCase], address: str) -> Iterable[CaseResult]:
+    try:
+        from dask.distributed import Client, as_completed
+    except ImportError as e:
+        raise SweepError("--dask needs Dask distributed: pip install 'exosandbox[dask]'") from e
+    try:
+        client = Client(address, timeout="10s")
+    except Exception as e:  # connection refused, timeout, bad address: one line naming the address
+        raise SweepError(f"cannot connect to the Dask scheduler at {address!r}: {e}") from e
+    try:
+        futures = client.map(run_case, list(cases), pure=False)
+        for f in as_completed(futures):
+            yield f.result()
+    finally:
+        client.close()
+
+
+def run_sweep(
+    scenario_path: str | Path,
+    controllers: Sequence[str],
+    subjects: Sequence[str],
+    seeds: int | Sequence[int],
+    *,
+    out_dir: str | Path,
+    jobs: int | None = None,
+    dask_address: str | None = None,
+    progress: bool = False,
+    duration_s: float | None = None,
+    on_result: Callable[[CaseResult], None] | None = None,
+) -> SweepResult:
+    """Run every (controller, subject, seed) of a scenario and write the tables, plots and report.
+
+    Parameters
+    ----------
+    scenario_path : path
+        Scenario file; subjects are applied with :func:`sim.scenario.load_scenario`
+        (``subject=``), so a file's ``for_subject`` hook is honoured.
+    controllers, subjects : sequence of str
+        Controller variants (each must be listed by the scenario) and built-in subject names.
+    seeds : int or sequence of int
+        A count n (seeds ``scenario.seed`` ... ``scenario.seed + n - 1``) or the seeds themselves.
+    out_dir : path
+        Output folder; created, and must be empty if it exists.
+    jobs : int, optional
+        Local worker processes (default: all cores).  Ignored with ``dask_address``.
+    dask_address : str, optional
+        Address of a running Dask scheduler (``tcp://host:8786``) to run on instead.
+    progress : bool
+        Show a progress bar (tqdm) on standard error.
+    duration_s : float, optional
+        Override the scenario's duration [s] (short trial sweeps).
+    on_result : callable(CaseResult), optional
+        Called as each run finishes, in completion order.
+
+    Returns
+    -------
+    SweepResult
+        Results in the order of the combinations; ``runs.csv`` is rewritten
+        after every finished run, so an interrupted sweep keeps its table.
+    """
+    out = Path(out_dir)
+    if out.exists() and (not out.is_dir() or any(out.iterdir())):
+        raise SweepError(f"output folder {str(out)!r} already holds something; choose another")
+    if jobs is None:
+        jobs = os.cpu_count() or 1
+    if not (isinstance(jobs, int) and jobs >= 1):
+        raise SweepError(f"jobs must be an integer >= 1, got {jobs!r}")
+    cases = plan_sweep(scenario_path, controllers, subjects, seeds, out, duration_s=duration_s)
+    out.mkdir(parents=True, exist_ok=True)
+    bar = _bar(len(cases)) if progress else None
+    done: dict[str, CaseResult] = {}
+    t0 = time.perf_counter()
+    runner = _dask(cases, dask_address) if dask_address else _local(cases, min(jobs, len(cases)))
+    try:
+        for r in runner:
+            done[r.case.label] = r
+            _write_runs(out, [done[c.label] for c in cases if c.label in done])
+            if bar is not None:
+                bar.update(1)
+                bar.set_postfix_str(f"{len(done) - sum(x.ok for x in done.values())} failed", refresh=False)
+            if on_result is not None:
+                on_result(r)
+    finally:
+        if bar is not None:
+            bar.close()
+    results = tuple(done[c.label] for c in cases)
+    summary = tuple(summarize(results))
+    result = SweepResult(out, results, summary, time.perf_counter() - t0)
+    settings = {"scenario": str(Path(scenario_path)), "controllers": list(dict.fromkeys(controllers)),
+                "subjects": list(dict.fromkeys(subjects)), "seeds": sorted({c.seed for c in cases}),
+                "duration_s": duration_s, "executor": f"dask {dask_address}" if dask_address else f"local, {jobs} jobs"}
+    from .report import write_sweep_report
+
+    write_sweep_report(result, settings)
+    return result
+
+
+def _bar(total: int):
+    try:
+        import sys
+
+        from tqdm import tqdm
+
+        return tqdm(total=total, desc="sweep", unit="run", file=sys.stderr, disable=not sys.stderr.isatty())
+    except ImportError:
+        return None
+
+
+# -- tables ---------------------------------------------------------------------------------
+def run_rows(results: Sequence[CaseResult]) -> list[dict]:
+    """One flat row per run: controller, subject, seed, status, error, then every scalar metric."""
+    rows = []
+    for r in results:
+        row = {"controller": r.case.controller, "subject": r.case.subject, "seed": r.case.seed,
+               "status": "ok" if r.ok else "failed", "error": r.error or "", "wall_time_s": round(r.wall_time_s, 3)}
+        if r.metrics is not None:
+            row |= flat_metrics(r.metrics)
+        rows.append(row)
+    return rows
+
+
+def _write_runs(out: Path, results: Sequence[CaseResult]) -> None:
+    rows = run_rows(results)
+    write_csv(out / "runs.csv", rows)
+
+
+def write_csv(path: Path, rows: Sequence[dict]) -> None:
+    """Write rows (dicts) as CSV with the union of their keys as header, in first-seen order; atomically."""
+    keys = list(dict.fromkeys(k for row in rows for k in row))
+    tmp = path.with_name(path.name + ".tmp")
+    with tmp.open("w", newline="", encoding="utf-8") as f:
+        w = csv.DictWriter(f, fieldnames=keys, restval="")
+        w.writeheader()
+        for row in rows:
+            w.writerow({k: ("" if v is None else v) for k, v in row.items()})
+    tmp.replace(path)
+
+
+def _stats(values: list[float]) -> tuple[float | None, float | None, int]:
+    v = [x for x in values if x is not None and math.isfinite(x)]
+    if not v:
+        return None, None, 0
+    a = np.asarray(v, dtype=float)
+    return float(a.mean()), float(a.std(ddof=1)) if len(a) > 1 else 0.0, len(a)
+
+
+def summarize(results: Sequence[CaseResult], keys: Sequence[str] | None = None) -> list[dict]:
+    """Mean and sample standard deviation (ddof = 1) of each summary metric.
+
+    One row per controller over all its subjects and seeds (``subject`` =
+    ``"all"``), then one per (controller, subject) over seeds.  Each row holds
+    ``n_ok`` / ``n_failed`` and, per metric key, ``KEY_mean``, ``KEY_std``.
+    """
+    keys = list(keys) if keys is not None else [k for k, m in METRICS.items() if m.summary]
+    groups: dict[tuple[str, str], list[CaseResult]] = {}
+    for r in results:
+        groups.setdefault((r.case.controller, "all"), []).append(r)
+    for r in results:
+        groups.setdefault((r.case.controller, r.case.subject), []).append(r)
+    rows = []
+    for (controller, subject), rs in groups.items():
+        ok = [r for r in rs if r.ok]
+        row = {"controller": controller, "subject": subject, "n_ok": len(ok), "n_failed": len(rs) - len(ok)}
+        for k in keys:
+            mean, std, n = _stats([flat_metrics(r.metrics).get(k) for r in ok])
+            row[f"{k}_mean"], row[f"{k}_std"] = mean, std
+        rows.append(row)
+    return rows
+
+
+def load_sweep(out_dir: str | Path) -> dict:
+    """The ``sweep.json`` of a finished sweep (settings and every run's metrics)."""
+    p = Path(out_dir) / "sweep.json"
+    if not p.is_file():
+        raise SweepError(f"no sweep.json in {str(out_dir)!r}")
+    return json.loads(p.read_text(encoding="utf-8"))

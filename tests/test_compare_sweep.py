@@ -1,0 +1,126 @@
+"""``exosandbox compare`` and ``exosandbox sweep`` on a tiny scenario: tables, reports, executors, failures."""
+
+from __future__ import annotations
+
+import csv
+import json
+
+import pytest
+from _scenario_files import write_scenario
+
+from sim.cli import main
+from sim.metrics import flat_metrics, is_timing_key
+from sim.sweep import SweepError, run_sweep
+
+
+@pytest.fixture(scope="module")
+def tiny(tmp_path_factory):
+    d = tmp_path_factory.mktemp("tiny")
+    return write_scenario(d / "tiny.py", duration_s="0.25", controllers='("gravity", "transparent", "zero")')
+
+
+def _numbers(result):
+    """Every run's non-timing scalar metrics, keyed by controller/subject/seed."""
+    return {r.case.label: {k: v for k, v in flat_metrics(r.metrics).items() if not is_timing_key(k)}
+            for r in result.results}
+
+
+def test_compare_scenario_marks_the_better_value_and_writes_markdown_csv_and_plots(tiny, tmp_path, capsys):
+    out = tmp_path / "cmp"
+    assert main(["compare", str(tiny), "--controller", "gravity", "--controller", "zero", "--out", str(out)]) == 0
+    printed = capsys.readouterr().out
+    assert "interaction_force_rms_N" in printed and "(* the better value)" in printed
+    rows = {r["key"]: r for r in csv.DictReader((out / "compare.csv").open())}
+    f = rows["interaction_force_rms_N"]
+    # gravity compensation carries the robot's weight: the wearer feels less than with an unpowered robot
+    assert float(f["gravity"]) < float(f["zero"]) and f["best"] == "gravity"
+    md = (out / "compare.md").read_text()
+    assert "| interaction_force_rms_N | N | **" in md and "IEC 80601-2-78" in md
+    for png in ("interaction_force", "felt_mass", "solve_time"):
+        assert (out / "plots" / f"{png}.png").stat().st_size > 1000
+    # the same two run folders compare again from disk, with the same table
+    out2 = tmp_path / "cmp2"
+    assert main(["compare", str(out / "gravity"), str(out / "zero"), "--out", str(out2)]) == 0
+    assert (out2 / "compare.csv").read_text() == (out / "compare.csv").read_text()
+
+
+def test_compare_errors_name_the_culprit(tiny, tmp_path, capsys):
+    assert main(["compare", str(tiny), "--controller", "walls"]) == 1
+    assert "supports the controllers gravity, transparent, zero; got 'walls'" in capsys.readouterr().err
+    assert main(["compare", str(tmp_path / "nowhere"), str(tmp_path / "nothing")]) == 1
+    assert "no run folder" in capsys.readouterr().err
+    with pytest.raises(SystemExit):
+        main(["compare", str(tmp_path)])
+    assert "at least two run folders" in capsys.readouterr().err
+
+
+def test_sweep_same_numbers_with_one_or_two_jobs_and_a_table_per_subject(tiny, tmp_path):
+    args = (tiny, ["gravity", "transparent"], ["f5", "m95"], 2)
+    a = run_sweep(*args, out_dir=tmp_path / "j1", jobs=1)
+    b = run_sweep(*args, out_dir=tmp_path / "j2", jobs=2)
+    assert not a.failed and not b.failed and len(a.results) == 8
+    assert _numbers(a) == _numbers(b)
+    summary = list(csv.DictReader((tmp_path / "j2" / "summary.csv").open()))
+    assert {(r["controller"], r["subject"]) for r in summary} == {
+        (c, s) for c in ("gravity", "transparent") for s in ("all", "f5", "m95")}
+    pooled = next(r for r in summary if r["controller"] == "transparent" and r["subject"] == "all")
+    values = [r.metrics["interaction_force_rms_N"] for r in b.results if r.case.controller == "transparent"]
+    import numpy as np
+
+    assert float(pooled["interaction_force_rms_N_mean"]) == pytest.approx(np.mean(values))
+    assert float(pooled["interaction_force_rms_N_std"]) == pytest.approx(np.std(values, ddof=1))
+    report = (tmp_path / "j2" / "report.md").read_text()
+    assert "Which is more transparent" in report and "IEC 80601-2-78" in report
+    assert (tmp_path / "j2" / "plots" / "interaction_force_rms_N.png").is_file()
+    doc = json.loads((tmp_path / "j2" / "sweep.json").read_text())
+    assert len(doc["runs"]) == 8 and doc["runs"][0]["folder"] == "gravity/f5/seed0"
+
+
+def test_dask_local_cluster_gives_the_same_numbers_as_the_local_pool(tiny, tmp_path):
+    distributed = pytest.importorskip("dask.distributed")  # the test extra installs it
+    args = (tiny, ["transparent"], ["m50"], 2)
+    local = run_sweep(*args, out_dir=tmp_path / "local", jobs=2)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as lc:
+        remote = run_sweep(*args, out_dir=tmp_path / "dask", dask_address=lc.scheduler_address)
+    assert not remote.failed
+    assert _numbers(local) == _numbers(remote)
+
+
+def test_a_failing_run_is_reported_and_the_others_complete(tmp_path):
+    path = write_scenario(tmp_path / "picky.py", duration_s="0.2")
+    path.write_text(path.read_text() + "\n\ndef for_subject(subject):\n"
+                    "    if subject == 'f5':\n"
+                    "        raise ValueError('no cuff fits this arm')\n"
+                    "    import dataclasses\n"
+                    "    return dataclasses.replace(SCENARIO, subject=subject)\n")
+    result = run_sweep(path, ["gravity"], ["f5", "m50"], 1, out_dir=tmp_path / "out", jobs=2)
+    assert [r.ok for r in result.results] == [False, True]
+    assert "no cuff fits this arm" in result.results[0].error
+    rows = list(csv.DictReader((tmp_path / "out" / "runs.csv").open()))
+    assert rows[0]["status"] == "failed" and "no cuff fits this arm" in rows[0]["error"]
+    assert rows[1]["status"] == "ok" and float(rows[1]["interaction_force_rms_N"]) > 0
+    assert "## Failed runs" in (tmp_path / "out" / "report.md").read_text()
+
+
+def test_sweep_options_are_checked_before_anything_runs(tiny, tmp_path, capsys):
+    with pytest.raises(SweepError, match="seeds must be >= 1"):
+        run_sweep(tiny, ["gravity"], ["m50"], 0, out_dir=tmp_path / "a")
+    assert main(["sweep", str(tiny), "--controllers", "gravity,walls", "--out", str(tmp_path / "b")]) == 1
+    assert "got 'walls'" in capsys.readouterr().err
+    assert main(["sweep", str(tiny), "--subjects", "m50,x7", "--out", str(tmp_path / "c")]) == 1
+    assert "unknown subject 'x7'" in capsys.readouterr().err
+    (tmp_path / "d").mkdir()
+    (tmp_path / "d" / "keep.txt").write_text("data")
+    assert main(["sweep", str(tiny), "--out", str(tmp_path / "d")]) == 1
+    assert "already holds something" in capsys.readouterr().err
+    assert (tmp_path / "d" / "keep.txt").read_text() == "data"
+    assert not (tmp_path / "b").exists() and not (tmp_path / "c").exists()
+
+
+def test_sweep_cli_prints_the_table_and_the_verdict(tiny, tmp_path, capsys):
+    out = tmp_path / "s"
+    assert main(["sweep", str(tiny), "--controllers", "gravity,transparent", "--subjects", "m50", "--seeds", "1",
+                 "--jobs", "1", "--out", str(out)]) == 0
+    printed = capsys.readouterr().out
+    assert "interaction_force_rms_N" in printed and "is better than" in printed
+    assert (out / "summary.md").is_file() and (out / "runs.md").is_file()

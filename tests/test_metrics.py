@@ -1,0 +1,240 @@
+"""Metrics on synthetic signals with known answers, and on runs against physical laws.
+
+Sources of the known answers are named beside each check.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import numpy as np
+import pytest
+from _scenario_files import write_scenario
+
+from sim.metrics import (
+    METRICS,
+    apparent_mass_kg,
+    compensation_shares,
+    flat_metrics,
+    force_limit_exceed_count,
+    interaction_power_W,
+    interaction_work_J,
+    joint_limit_excursion_max_rad,
+    rendered_wall_stiffness_N_per_m,
+    rest_to_rest,
+    solver_metrics,
+    wall_bounce_count,
+    wall_contacts,
+    wall_cycle_energy_returned_J,
+)
+from sim.plant import PlantParams
+from sim.report import best_index, comparison_rows
+from sim.scenario import load_scenario
+from sim.simulate import evaluate_run, simulate
+
+DT = 1e-3
+
+
+def _min_jerk(t, T, d):
+    """Minimum-jerk position, velocity and acceleration from 0 to d in T (Flash & Hogan 1985, closed form)."""
+    s = np.clip(t / T, 0.0, 1.0)
+    x = d * (10 * s**3 - 15 * s**4 + 6 * s**5)
+    v = d / T * (30 * s**2 - 60 * s**3 + 30 * s**4)
+    a = d / T**2 * (60 * s - 180 * s**2 + 120 * s**3)
+    return x, v, a
+
+
+# -- walls ----------------------------------------------------------------------------------------
+def test_pure_spring_yields_its_stiffness():
+    # Hooke's law F = k p on a slow (quasi-static) push: the fitted slope is k
+    t = np.arange(0, 4, DT)
+    p = 0.03 * np.sin(np.pi * t / 4) - 0.005
+    F = np.where(p > 0, 750.0 * p, 0.0)
+    assert rendered_wall_stiffness_N_per_m(F, p, DT) == pytest.approx(750.0, rel=1e-9)
+
+
+def _push_release(T_push=0.6, depth=0.02, hold=0.3, rest=0.2):
+    """Hand at rest outside (-5 mm), minimum-jerk in to depth, hold, and back out to rest."""
+    seg1 = np.arange(0, rest, DT)
+    tm = np.linspace(0.0, T_push, int(round(T_push / DT)) + 1)  # ends exactly at the depth
+    x_in, v_in, _ = _min_jerk(tm, T_push, depth + 0.005)
+    p = np.concatenate([np.full(len(seg1), -0.005), -0.005 + x_in, np.full(int(hold / DT), depth),
+                        depth - x_in, np.full(len(seg1), -0.005)])
+    v = np.concatenate([np.zeros(len(seg1)), v_in, np.zeros(int(hold / DT)), -v_in, np.zeros(len(seg1))])
+    return p, v
+
+
+def test_passive_spring_damper_cycle_returns_no_net_energy():
+    # F = K p + B dp/dt (p > 0), held over each tick: over a rest-to-rest cycle the spring's energy comes back and
+    # the damper dissipates; sampling makes the held spring give back K T / 2 * int v^2 dt more (Colgate & Schenkel
+    # 1997, the d = 0 case of REFERENCES.md section 4), so E_returned = -(B - K T / 2) int v^2 dt <= 0 for B > K T/2
+    K, B = 800.0, 6.0
+    p, v = _push_release()
+    F = np.where(p > 0, K * p + B * v, 0.0)
+    (a, b), = wall_contacts(p)
+    lo, hi = rest_to_rest(np.abs(v), a, b)
+    int_v2 = np.sum(np.where(p > 0, v * v, 0.0)) * DT
+    e = wall_cycle_energy_returned_J(F, p, lo, hi)
+    assert e < 0.0
+    assert e == pytest.approx(-(B - K * DT / 2) * int_v2, rel=0.01)
+    # the held spring alone is (slightly) active, by K T / 2 * int v^2
+    e_spring = wall_cycle_energy_returned_J(np.where(p > 0, K * p, 0.0), p, lo, hi)
+    assert e_spring == pytest.approx(K * DT / 2 * int_v2, rel=0.05)
+
+
+@pytest.mark.parametrize("delay", [0, 1, 2])
+def test_delayed_spring_with_piecewise_constant_velocity_is_active_below_the_passivity_bound(delay):
+    # Colgate & Schenkel (1997) with a d-sample delay: passive iff b > K T (2d + 1) / 2 (REFERENCES.md section 4,
+    # re-derived there). Drive with piecewise-constant velocity (the worst case, not a sinusoid), at low frequency.
+    K, T = 2000.0, DT
+    bound = K * T * (2 * delay + 1) / 2
+    n = 4000
+    v = 0.05 * np.cos(2 * np.pi * np.arange(n) / 400)  # held over each interval
+    p = 0.01 + np.concatenate([[0.0], np.cumsum(v * T)])  # always inside the wall
+    energies = {}
+    for b in (0.8 * bound, 1.2 * bound):
+        F = np.array([K * p[max(k - delay, 0)] + b * v[k] for k in range(n)] + [K * p[n - delay]])
+        energies[b] = wall_cycle_energy_returned_J(F, p, 0, n)
+    assert energies[0.8 * bound] > 0.0  # active: returns more than it absorbed
+    assert energies[1.2 * bound] < 0.0  # passive
+
+
+def test_bounces_count_makes_soon_after_a_break():
+    p = -np.ones(3000)
+    p[100:300] = 1.0  # first contact
+    p[350:400] = 1.0  # back in after 50 ms: a bounce
+    p[1500:1600] = 1.0  # a new push 1.1 s later: not a bounce
+    assert wall_contacts(p) == [(100, 299), (350, 399), (1500, 1599)]
+    assert wall_bounce_count(p, DT, window_s=0.1) == 1
+
+
+# -- transparency -----------------------------------------------------------------------------------
+@pytest.mark.parametrize("mass", [0.5, 2.0])
+def test_known_mass_pushed_by_known_force_yields_that_mass(mass):
+    # Newton's second law along a straight, horizontal minimum-jerk path: the force on the hand is -m a
+    t = np.arange(0, 1.2, DT)
+    x, _, a = _min_jerk(t, 1.0, 0.3)
+    u = np.array([0.6, 0.8, 0.0])
+    p_hand = x[:, None] * u
+    force_on_human = -mass * a[:, None] * u + np.array([0.0, 0.0, 3.0])  # plus a steady offset
+    assert apparent_mass_kg(force_on_human, p_hand, DT) == pytest.approx(mass, rel=0.02)
+
+
+def test_felt_mass_is_not_confused_by_a_felt_weight():
+    # a point mass m moved along u needs m (a + g z) . u; a separately felt weight m_g g z . u stays out of m
+    t = np.arange(0, 1.2, DT)
+    x, _, a = _min_jerk(t, 1.0, 0.3)
+    u = np.array([0.6, 0.0, 0.8])
+    m, m_g = 1.5, 4.0
+    force_on_human = -(m * a[:, None] * u + m_g * 9.81 * np.array([0.0, 0.0, 1.0]))
+    assert apparent_mass_kg(force_on_human, x[:, None] * u, DT) == pytest.approx(m, rel=0.02)
+
+
+def test_compensation_shares_recover_known_mixture():
+    rng = np.random.default_rng(3)
+    g, mddq = rng.normal(size=(500, 7)), rng.normal(size=(500, 7))
+    alpha, beta = compensation_shares(0.3 * g + 0.7 * mddq, g, mddq)
+    assert (alpha, beta) == pytest.approx((0.3, 0.7), abs=1e-12)
+
+
+def test_power_of_a_wrench_on_a_moving_body():
+    # P = f . v + m . w (Featherstone 2008, section 2.7)
+    w = np.array([[[1.0, 2.0, 3.0, 0.1, 0.2, 0.3]]])
+    V = np.array([[[0.5, 0.0, -1.0, 2.0, 0.0, 1.0]]])
+    assert interaction_power_W(w, V)[0] == pytest.approx(0.5 - 3.0 + 0.2 + 0.3)
+    assert interaction_work_J(np.full(1000, 2.0), DT) == pytest.approx(2.0)
+
+
+def test_work_of_the_cuffs_equals_the_robots_energy_change(tmp_path):
+    # work-energy theorem: with no actuator torque and no friction, the work the cuffs do on the robot is the
+    # change of its kinetic plus potential energy (kinetic and potential energy from pinocchio on the run's model)
+    path = write_scenario(tmp_path / "s.py", duration_s="0.6", controllers='("zero",)')
+    sc = dataclasses.replace(load_scenario(path), plant=PlantParams(exo_friction=False))
+    simulate(sc, "zero", tmp_path / "run")
+    from models.arm import load_arm
+    from sim.metrics import robot_interaction_terms
+    from sim.runlog import load_run
+
+    run = load_run(tmp_path / "run")
+    meta = run.meta
+    arm = load_arm((tmp_path / "run" / "exo.urdf").read_text(), armature_kg_m2=meta["exo_params"]["armature_kg_m2"])
+    terms = robot_interaction_terms(arm, run.arrays, [meta["models"]["cuff_frames"][c][0] for c in meta["cuffs"]],
+                                    DT)
+    P = interaction_power_W(run["cuff_wrench_exo"], terms["cuff_twist"])
+    E = terms["kinetic_J"] + terms["potential_J"]
+    W = np.cumsum(P[:-1]) * DT
+    dE = E[1:] - E[0]
+    assert np.max(np.abs(dE)) > 0.2  # the human really moved the robot
+    assert np.max(np.abs(W - dE)) < 0.02 * np.max(np.abs(dE))
+
+
+# -- safety and solver ----------------------------------------------------------------------------
+def test_force_limit_counts_ticks_over_the_region_limit():
+    w = np.zeros((5, 2, 6))
+    w[1, 0, 0] = 151.0  # upper arm over 150 N
+    w[2, 1, 1] = 139.0  # hand under 140 N
+    w[3, 1, 2] = 141.0  # hand over
+    w[4, 0, 0], w[4, 1, 0] = 200.0, 200.0  # both: one tick
+    assert force_limit_exceed_count(w, ["upper_arm", "hand"], {"upper_arm": 150.0, "hand": 140.0}) == 3
+    assert force_limit_exceed_count(w, ["strap", "hand"], {"hand": 140.0}) == 2  # no limit for an unknown cuff
+
+
+def test_joint_limit_excursion():
+    q = np.array([[0.0, 0.0], [1.2, -0.1], [0.5, -0.35]])
+    assert joint_limit_excursion_max_rad(q, np.array([-1.0, -0.3]), np.array([1.0, 0.3])) == pytest.approx(0.2)
+
+
+def test_solver_metrics_median_p99_and_fallbacks():
+    t = np.linspace(1e-5, 1e-4, 101)
+    m = solver_metrics({"diag_solve_time_s": t, "diag_level_0_time_s": t / 2}, np.array([0, 1, 0, 1.0]))
+    assert m["hqp_solve_median_us"] == pytest.approx(55.0)
+    assert m["hqp_solve_p99_us"] == pytest.approx(np.percentile(t, 99) * 1e6)
+    assert m["hqp_fallback_count"] == 2
+    assert m["hqp_levels"][0]["solve_median_us"] == pytest.approx(27.5)
+    assert solver_metrics({}, None)["hqp_solve_median_us"] is None
+
+
+# -- tables -----------------------------------------------------------------------------------------
+def test_best_value_rules():
+    assert best_index([3.0, 1.0, None], "lower") == 1
+    assert best_index([3.0, 1.0], "higher") == 0
+    assert best_index([-0.2, 0.5], "zero") == 0
+    assert best_index([0.8, 1.1], "one") == 1
+    assert best_index([590.0, 700.0], "commanded", [600.0, 600.0]) == 0
+    assert best_index([2.0, 2.0], "lower") is None  # a tie has no winner
+    assert best_index([2.0, None], "lower") is None
+
+
+def test_comparison_rows_mark_the_better_value_and_keep_per_cuff_keys():
+    a = {"interaction_force_rms_N": 8.0, "human_effort_ratio": 1.3, "cuffs": {"hand": {"force_rms_N": 2.0}}}
+    b = {"interaction_force_rms_N": 12.0, "human_effort_ratio": 1.05, "cuffs": {"hand": {"force_rms_N": 1.0}}}
+    rows = {r["key"]: r for r in comparison_rows(["A", "B"], [a, b])}
+    assert rows["interaction_force_rms_N"]["best"] == "A"
+    assert rows["human_effort_ratio"]["best"] == "B"
+    assert rows["cuffs.hand.force_rms_N"]["best"] == "B"
+    assert flat_metrics(a)["cuffs.hand.force_rms_N"] == 2.0
+
+
+def test_every_metric_key_documented_in_the_readme():
+    from pathlib import Path
+
+    readme = (Path(__file__).parents[1] / "README.md").read_text()
+    missing = [k for k in METRICS if f"`{k}`" not in readme]
+    assert not missing, f"metric keys not in the README: {missing}"
+
+
+def test_run_folder_metrics_hold_every_issue_key(tmp_path):
+    from sim.simulate import run_scenario
+
+    path = write_scenario(tmp_path / "s.py", duration_s="0.3", controllers='("transparent",)')
+    r = run_scenario(load_scenario(path), "transparent", tmp_path / "run")
+    for key in ("interaction_work_J", "apparent_mass_hand_kg", "force_limit_exceed_count", "hqp_solve_median_us",
+                "hqp_solve_p99_us", "hqp_fallback_count", "interaction_force_rms_N", "human_effort_ratio"):
+        assert key in r.metrics
+    assert r.metrics["hqp_fallback_count"] == 0 and r.metrics["hqp_solve_median_us"] > 0
+    assert (tmp_path / "run" / "report.md").is_file()
+    assert "IEC 80601-2-78" in (tmp_path / "run" / "report.md").read_text()
+    again = evaluate_run(tmp_path / "run")
+    assert {k: v for k, v in again.items()} == {k: v for k, v in r.metrics.items()}
+    assert not math.isnan(r.metrics["interaction_work_J"])
