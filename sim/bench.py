@@ -25,8 +25,9 @@ machines differ).  Cases:
   reference stack growing one level at a time) and against the number of
   joints (7, 14, 28: :func:`models.chain.build_chain` chains without a
   wearer, under the same kind of stack).
-* **Sweep throughput**: the same small sweep with one and with two worker
-  processes (``jobs2_speedup`` = wall time with 1 / wall time with 2).
+* **Sweep throughput**: the same small sweep (:func:`sim.sweep.run_sweep`)
+  with one and with two worker processes (``jobs2_speedup`` = wall time with
+  1 / wall time with 2; with 2 the workers' start-up counts, as for a user).
 * **Memory**: peak resident memory of a long run (coupled run, human-alone
   baseline and metrics) measured in a child process with
   :func:`resource.getrusage`, and the size of its log per simulated minute.
@@ -122,7 +123,9 @@ class BenchParams:
         Control ticks of each point of the joint series.
     sweep_subjects : tuple of str
         Wearers of the small sweep (with the ``walls`` and ``transparent``
-        variants, one seed each).
+        variants).
+    sweep_seeds : int
+        Seeds per (controller, subject) of the sweep.
     sweep_duration_s : float [s]
         Simulated time of each sweep run.
     memory_duration_s : float [s]
@@ -136,6 +139,7 @@ class BenchParams:
     chain_joints: tuple[int, ...] = (7, 14, 28)
     chain_ticks: int = 2000
     sweep_subjects: tuple[str, ...] = ("m50", "f50")
+    sweep_seeds: int = 2
     sweep_duration_s: float = 2.0
     memory_duration_s: float = 60.0
 
@@ -146,7 +150,7 @@ class BenchParams:
             value = getattr(self, name)
             if not (isinstance(value, (int, float)) and np.isfinite(value) and value > 0):
                 raise ParameterError(f"{o}.{name} must be a finite number > 0, got {value!r}")
-        for name in ("compare_ticks", "chain_ticks"):
+        for name in ("compare_ticks", "chain_ticks", "sweep_seeds"):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, int) or value < 1:
                 raise ParameterError(f"{o}.{name} must be an int >= 1, got {value!r}")
@@ -163,7 +167,7 @@ class BenchParams:
     def quick(cls) -> BenchParams:
         """The same cases, shorter (under a minute on a laptop core when a tick is about 1 ms)."""
         return cls(reference_duration_s=3.0, compare_ticks=30, series_duration_s=0.5, chain_ticks=300,
-                   sweep_duration_s=0.5, memory_duration_s=6.0)
+                   sweep_seeds=1, sweep_duration_s=0.5, memory_duration_s=6.0)
 
 
 # --------------------------------------------------------------------------------------------
@@ -503,57 +507,25 @@ def chain_tick_times(n_joints: int, n_ticks: int, folder: str | Path, *, dt_s: f
 # sweep throughput and memory (child processes)
 
 
-def _sweep_one(scenario_path: str, subject: str, controller: str, duration_s: float, out: str) -> str:
-    scenario = dataclasses.replace(load_scenario(scenario_path, subject=subject), duration_s=duration_s)
-    run_scenario(scenario, controller, out)
-    return out
-
-
-def _warm_worker() -> None:
-    from . import simulate as _  # noqa: F401 - import the models and solvers before the clock starts
-
-
-def _hold(seconds: float) -> int:
-    time.sleep(seconds)
-    return os.getpid()
-
-
-def sweep_throughput(scenario_path: str | Path, subjects: Sequence[str], controllers: Sequence[str],
+def sweep_throughput(scenario_path: str | Path, subjects: Sequence[str], controllers: Sequence[str], seeds: int,
                      duration_s: float, out_dir: str | Path, jobs: int) -> dict:
-    """Wall time of a small sweep (subjects × controllers, one seed) with ``jobs`` worker processes.
+    """Wall time of a small sweep (controllers × subjects × seeds) with ``jobs`` worker processes.
 
-    Uses ``sim.sweep.run_sweep`` when the package has it; otherwise a
-    :class:`concurrent.futures.ProcessPoolExecutor` over
-    :func:`sim.simulate.run_scenario`, one process per run, workers started
-    before the clock starts.
+    Runs :func:`sim.sweep.run_sweep` as ``exosandbox sweep --jobs`` does:
+    with ``jobs=1`` in this process, otherwise in freshly spawned workers
+    (their start-up is part of the wall time, as for a user).
     """
-    out_dir = Path(out_dir)
-    runs = [(s, c) for s in subjects for c in controllers]
-    try:
-        from .sweep import run_sweep  # the sweep module, once it is part of the package
-    except ImportError:
-        run_sweep = None
-    if run_sweep is not None:
-        t0 = time.perf_counter()
-        run_sweep(str(scenario_path), list(controllers), list(subjects), 1, out_dir=out_dir, jobs=jobs,
-                  duration_s=duration_s)
-        wall = time.perf_counter() - t0
-        how = "sim.sweep.run_sweep"
-    else:
-        ctx = multiprocessing.get_context("spawn")
-        with concurrent.futures.ProcessPoolExecutor(max_workers=jobs, mp_context=ctx,
-                                                    initializer=_warm_worker) as pool:
-            pids = set(pool.map(_hold, [0.5] * jobs))  # every worker started and warm
-            if len(pids) != jobs:
-                raise BenchError(f"sweep: asked for {jobs} workers, {len(pids)} started")
-            t0 = time.perf_counter()
-            futures = [pool.submit(_sweep_one, str(scenario_path), s, c, duration_s, str(out_dir / f"{s}-{c}"))
-                       for s, c in runs]
-            for f in futures:
-                f.result()
-            wall = time.perf_counter() - t0
-        how = "ProcessPoolExecutor over run_scenario"
-    return {"jobs": jobs, "runs": len(runs), "wall_s": wall, "runs_per_min": 60.0 * len(runs) / wall, "how": how}
+    from .sweep import run_sweep
+
+    t0 = time.perf_counter()
+    result = run_sweep(str(scenario_path), list(controllers), list(subjects), seeds, out_dir=Path(out_dir), jobs=jobs,
+                       duration_s=duration_s)
+    wall = time.perf_counter() - t0
+    runs = len(controllers) * len(subjects) * seeds
+    failed = [c for c in result.results if c.error]
+    if failed:
+        raise BenchError(f"sweep with {jobs} jobs: {len(failed)} runs failed, e.g. {failed[0].error}")
+    return {"jobs": jobs, "runs": runs, "wall_s": wall, "runs_per_min": 60.0 * runs / wall}
 
 
 def _memory_child(scenario_path: str, duration_s: float, out: str) -> dict:
@@ -647,7 +619,7 @@ def run_bench(scenario_path: str | Path, params: BenchParams | None = None, *, w
         for nj in params.chain_joints:
             report["joints_series"].append(chain_tick_times(nj, params.chain_ticks, work / f"chain{nj}"))
             say(f"joints {nj}: tick {report['joints_series'][-1]['tick_time_median_us']:.0f} us")
-        sweeps = [sweep_throughput(scenario_path, params.sweep_subjects, ("walls", "transparent"),
+        sweeps = [sweep_throughput(scenario_path, params.sweep_subjects, ("walls", "transparent"), params.sweep_seeds,
                                    params.sweep_duration_s, work / f"sweep_jobs{j}", j) for j in (1, 2)]
         report["sweep"] = sweeps
         report["jobs2_speedup"] = sweeps[0]["wall_s"] / sweeps[1]["wall_s"]
@@ -701,7 +673,7 @@ def format_report(report: dict) -> str:
     lines += ["", f"{'sweep jobs':<10} {'runs':>6} {'wall s':>10} {'runs/min':>10}"]
     for s in r["sweep"]:
         lines.append(f"{s['jobs']:<10} {s['runs']:>6} {s['wall_s']:>10.2f} {s['runs_per_min']:>10.1f}")
-    lines.append(f"  ({r['sweep'][0]['how']})")
+    lines.append("  (sim.sweep.run_sweep; with 2 jobs the worker start-up counts)")
     lines += ["", f"memory run of {r['memory_duration_s']:g} s: peak RSS {r['peak_rss_MB']:.0f} MB, log "
               f"{r['log_MB_per_min']:.1f} MB per simulated minute (human-alone baseline "
               f"{r['baseline_log_MB_per_min']:.1f} MB more)"]
