@@ -1006,10 +1006,13 @@ def solve_hierarchy(
             f"(backend {solver_name!r}, tolerance {cons.tol:.3g})"
         )
 
+    # A level whose own solution is the returned point (no later level moved it) has its residual in its slacks
+    residuals = _read_only(np.array([
+        float(level.weights_eq @ (e * e) + level.weights_ineq @ (v * v)) if xk is x and level.n_cols is not None
+        else level.residual(x) for level, xk, (e, v) in zip(levels, level_x, slacks)], dtype=float))
     x = _read_only(x.copy())
     for xk in level_x:
         xk.flags.writeable = False
-    residuals = _read_only(np.array([level.residual(x) for level in levels], dtype=float))
     return HierarchyResult(
         x=x,
         level_residuals=residuals,

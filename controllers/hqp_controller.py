@@ -111,6 +111,7 @@ class HQPController(Controller):
         self._A_dyn = np.zeros((n, 2 * n))
         self._A_dyn[:, n:] = -np.eye(n)
         self._prev = None
+        self._constant_rows: dict = {}  # (level, task) -> (read-only rows, their q part, their tau part or None)
         self.fallback_count = 0
         self.last_fallback_reason = None
         self._diag = dict.fromkeys(self.diagnostic_names(), 0.0)
@@ -139,13 +140,25 @@ class HQPController(Controller):
         the entry (or normalise it, e.g. a 1-D row).
         """
         n, rows, levels = s.nv, 0, []
+        cache = self._constant_rows
         for i, tasks in enumerate(self.levels):
             eq, ineq = [], []
-            for t in tasks:
+            for j, t in enumerate(tasks):
                 r = t.rows(s)
                 if r is None:
                     continue
                 A, b = r[0], r[1]
+                hit = cache.get((i, j))
+                if (c is not None and hit is not None and hit[0] is A and type(b) is np.ndarray and b.dtype == float
+                        and b.shape == (A.shape[0],) and np.isfinite(b.sum())):
+                    # the same read-only rows as at an earlier tick: checked and split then
+                    _, A_q, A_t = hit
+                    rows += b.shape[0]
+                    if A_t is None:
+                        (eq if t.kind == "eq" else ineq).append((A_q, b, t.weight))
+                    else:
+                        (eq if t.kind == "eq" else ineq).append((A_q + A_t @ s.M, b - A_t @ c, t.weight))
+                    continue
                 if not (type(A) is np.ndarray and type(b) is np.ndarray and A.dtype == float and b.dtype == float
                         and A.ndim == 2 and b.ndim == 1 and A.shape == (b.shape[0], 2 * n)
                         and np.isfinite(A.sum() + b.sum())):
@@ -158,7 +171,10 @@ class HQPController(Controller):
                 rows += b.shape[0]
                 if c is not None:
                     At = A[:, n:]
-                    if At.any():  # a row on the torques: tau = M qdd + c
+                    has_tau = bool(At.any())
+                    if type(r[0]) is np.ndarray and not r[0].flags.writeable:  # constant rows: split them once
+                        cache[(i, j)] = (r[0], A[:, :n], At if has_tau else None)
+                    if has_tau:  # a row on the torques: tau = M qdd + c
                         A, b = A[:, :n] + At @ s.M, b - At @ c
                     else:
                         A = A[:, :n]
