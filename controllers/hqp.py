@@ -683,7 +683,7 @@ class _Solver:
         and the point is kept if it satisfies every row and
         :math:`\lambda \ge 0` (the KKT conditions of the level's QP, so it is
         an optimum; e.g. Nocedal & Wright, *Numerical Optimization*, 2nd ed.,
-        2006, section 16.5). Rows with a clearly positive multiplier are
+        2006, section 16.5, section number from memory). Rows with a clearly positive multiplier are
         returned for elimination, as after a backend solve. Anything else
         (a level with both kinds of rows, bounds on the free variables, a
         failed check) returns None and the level goes to the backend.
