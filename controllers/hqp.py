@@ -197,6 +197,28 @@ def _stack(label: str, kind: str, entries):
     return views, M, v, w, starts, n
 
 
+@lru_cache(maxsize=256)
+def _weight_vector(m: int, w: float) -> np.ndarray:
+    return _read_only(np.full(m, w))
+
+
+def _stack_unchecked(entries):
+    """(M, v, w per row, entries, starts, n) of trusted (M, v, w) entries (see :meth:`Level.unchecked`)."""
+    if not entries:
+        return None, _EMPTY, _EMPTY, (), (0,), None
+    if len(entries) == 1:
+        M, v, w0 = entries[0]
+        w0 = float(w0)
+        return M, v, _weight_vector(M.shape[0], w0), ((M, v, w0),), (0, M.shape[0]), M.shape[1]
+    M = np.vstack([e[0] for e in entries])
+    v = np.concatenate([e[1] for e in entries])
+    w = np.concatenate([_weight_vector(e[0].shape[0], float(e[2])) for e in entries])
+    starts = (0, *np.cumsum([e[0].shape[0] for e in entries]).tolist())
+    views = tuple((M[starts[i]: starts[i + 1]], v[starts[i]: starts[i + 1]], float(e[2]))
+                  for i, e in enumerate(entries))
+    return M, v, w, views, starts, M.shape[1]
+
+
 @dataclass(frozen=True, eq=False)
 class Level:
     r"""One priority level: weighted equality and inequality tasks.
@@ -277,6 +299,28 @@ class Level:
         ):
             object.__setattr__(self, key, value)
 
+    @classmethod
+    def unchecked(cls, eq: Sequence = (), ineq: Sequence = (), name: str = "") -> Level:
+        """A level from ``(M, v, w)`` triples, without the entry checks of the constructor.
+
+        For a caller that builds its rows itself every control tick: each
+        ``M`` is a 2-D float array (m, n), ``v`` a 1-D float array (m,) and
+        ``w`` a float > 0, every ``M`` with the same n. The arrays are used
+        as given (the caller must not change them while the level is in use).
+        Nothing is validated, not even finiteness: use the constructor to
+        find what is wrong with a suspicious entry.
+        """
+        self = object.__new__(cls)
+        A, b, we, eq_entries, eq_starts, n_eq = _stack_unchecked(eq)
+        C, d, wi, in_entries, in_starts, n_in = _stack_unchecked(ineq)
+        n = n_eq if n_eq is not None else n_in
+        self.__dict__.update(
+            eq=eq_entries, ineq=in_entries, name=name, A=_no_rows(n or 0) if A is None else A, b=b, weights_eq=we,
+            C=_no_rows(n or 0) if C is None else C, d=d, weights_ineq=wi, n_cols=n, _eq_starts=eq_starts,
+            _ineq_starts=in_starts, _weighted=any(e[2] != 1.0 for e in (*eq_entries, *in_entries)),
+            _unit_eq=all(e[2] == 1.0 for e in eq_entries))
+        return self
+
     def row_label(self, kind: str, row: int) -> str:
         """``"eq[1] row 2"``: the entry and row of stacked row ``row`` of ``kind`` ("eq" or "ineq")."""
         starts = self._eq_starts if kind == "eq" else self._ineq_starts
@@ -336,6 +380,11 @@ class HQPParams:
         Solve a level without the backend when its unconstrained
         least-squares point satisfies every constraint (exact; see the module
         docstring). False sends every level with freedom left to the backend.
+    working_set_step : bool, default True
+        Before calling the backend on a level whose least-squares point
+        violates rows, try one active-set step with the violated rows held
+        as equalities and keep it only if it satisfies the level's optimality
+        conditions (:meth:`_Solver._working_set_step`); exact when kept.
     """
 
     tolerances: QPTolerances = field(default_factory=QPTolerances)
@@ -344,6 +393,7 @@ class HQPParams:
     slack_tol: float = 1e-7
     multiplier_tol: float = 1e-6
     closed_form: bool = True
+    working_set_step: bool = True
 
     def __post_init__(self) -> None:
         if not isinstance(self.tolerances, QPTolerances):
@@ -352,8 +402,9 @@ class HQPParams:
             value = getattr(self, name)
             if not (isinstance(value, (int, float)) and np.isfinite(value) and 0 < value < 1):
                 raise ParameterError(f"HQPParams.{name} must be in (0, 1), got {value!r}")
-        if not isinstance(self.closed_form, bool):
-            raise ParameterError(f"HQPParams.closed_form must be a bool, got {self.closed_form!r}")
+        for name in ("closed_form", "working_set_step"):
+            if not isinstance(getattr(self, name), bool):
+                raise ParameterError(f"HQPParams.{name} must be a bool, got {getattr(self, name)!r}")
 
 
 _DEFAULT_PARAMS = HQPParams()
@@ -383,7 +434,8 @@ class HierarchyResult:
     solver : str
         Name of the QP backend used.
     level_methods : tuple of str
-        Per level: ``"closed-form"``, ``"qp"``, ``"no freedom"`` (nothing
+        Per level: ``"closed-form"``, ``"working-set"`` (one checked active-set
+        step, :attr:`HQPParams.working_set_step`), ``"qp"``, ``"no freedom"`` (nothing
         left to move, or nothing in the level depends on what is left) or
         ``"empty"`` (a level without rows).
     free_dims : tuple of int
@@ -588,8 +640,12 @@ class _Solver:
         elif n_in == 0 and (V1 is None or V1.shape[1] == 0):
             method, x_new = "no freedom", self.x  # nothing here depends on the remaining freedom
         else:
-            method = "qp"
-            x_new, active = self._level_qp(level, label, V1, s1, c1, warm_x)
+            guess = self._working_set_step(level, V1, s1, c1, z_ls) if self.params.working_set_step else None
+            if guess is not None:
+                method, (x_new, active) = "working-set", guess
+            else:
+                method = "qp"
+                x_new, active = self._level_qp(level, label, V1, s1, c1, warm_x)
         e, v = level.slack(x_new)
         self.x = x_new
         # Freeze the level's optimum for the levels below. Rows that hold with equality at every
@@ -609,6 +665,66 @@ class _Solver:
         if active.shape[0]:  # then, within it, the rows that are tight at every optimum
             self._eliminate(active)
         return method, e, v
+
+    def _working_set_step(self, level, V1, s1, c1, z_ls):
+        r"""One primal active-set step from the least-squares point, kept only if it is provably optimal.
+
+        The rows violated at the unconstrained point :math:`z_{ls}` form a
+        working set W, held with equality. An inequality-only level is then
+        at its optimum (slack 0) at any point that satisfies every row, so the
+        minimum-norm correction onto W is kept if it is feasible. An
+        equality-only level solves its KKT system with W,
+
+        .. math:: \begin{bmatrix} H & G_W^T \\ G_W & 0 \end{bmatrix}
+                  \begin{bmatrix} z \\ \lambda \end{bmatrix} =
+                  \begin{bmatrix} V_1 S_1 c_1 \\ h_W \end{bmatrix},
+                  \qquad H = V_1 S_1^2 V_1^T,
+
+        and the point is kept if it satisfies every row and
+        :math:`\lambda \ge 0` (the KKT conditions of the level's QP, so it is
+        an optimum; e.g. Nocedal & Wright, *Numerical Optimization*, 2nd ed.,
+        2006, section 16.5, section number from memory). Rows with a clearly positive multiplier are
+        returned for elimination, as after a backend solve. Anything else
+        (a level with both kinds of rows, bounds on the free variables, a
+        failed check) returns None and the level goes to the backend.
+        """
+        n_eq, n_in = level.A.shape[0], level.C.shape[0]
+        if n_eq and n_in:
+            return None
+        Gz, hz, Gx, lbz, ubz = self._qp_constraints()
+        if lbz is not None or ubz is not None:
+            return None
+        tol = self.cons.tol
+        if n_in:  # the level's own rows join the frozen and hard ones; the cost is the slack alone
+            Gz = np.vstack([self._proj(level.C), Gz])
+            hz = np.concatenate([level.d - level.C @ self.x, hz])
+        viol = Gz @ z_ls - hz
+        W = viol > tol
+        if not W.any():
+            return None
+        GW, hW = Gz[W], hz[W]
+        if n_in:
+            z = z_ls + np.linalg.lstsq(GW, hW - GW @ z_ls, rcond=None)[0]
+            if np.max(Gz @ z - hz) > tol:
+                return None
+            return self._lift(z), np.zeros((0, self.n))
+        r, m = self.r, GW.shape[0]
+        K = np.zeros((r + m, r + m))
+        K[:r, :r] = (V1 * s1**2) @ V1.T
+        K[:r, r:] = GW.T
+        K[r:, :r] = GW
+        rhs = np.concatenate([V1 @ (s1 * c1), hW])
+        sol = np.linalg.lstsq(K, rhs, rcond=None)[0]
+        scale = 1.0 + float(np.abs(rhs).max())
+        if np.abs(K @ sol - rhs).max() > self.params.feasibility_tol * scale:
+            return None  # inconsistent working set
+        z, lam = sol[:r], sol[r:]
+        lam_scale = max(1.0, float(np.abs(lam).max()))
+        if lam.min() < -self.params.multiplier_tol * lam_scale or np.max(Gz @ z - hz) > tol:
+            return None
+        # the x-space rows of W with a clearly positive multiplier are active at every optimum
+        rows_x = Gx[W] if not n_in else None
+        return self._lift(z), rows_x[lam > self.params.multiplier_tol * lam_scale]
 
     def _level_qp(self, level, label, V1, s1, c1, warm_x):
         r, m_i = self.r, level.C.shape[0]
@@ -890,10 +1006,13 @@ def solve_hierarchy(
             f"(backend {solver_name!r}, tolerance {cons.tol:.3g})"
         )
 
+    # A level whose own solution is the returned point (no later level moved it) has its residual in its slacks
+    residuals = _read_only(np.array([
+        float(level.weights_eq @ (e * e) + level.weights_ineq @ (v * v)) if xk is x and level.n_cols is not None
+        else level.residual(x) for level, xk, (e, v) in zip(levels, level_x, slacks)], dtype=float))
     x = _read_only(x.copy())
     for xk in level_x:
         xk.flags.writeable = False
-    residuals = _read_only(np.array([level.residual(x) for level in levels], dtype=float))
     return HierarchyResult(
         x=x,
         level_residuals=residuals,

@@ -9,7 +9,23 @@ wrenches and the torque limits,
     |\\tau| \\le \\tau_{max},
 
 then the levels, highest first (:func:`controllers.hqp.solve_hierarchy`;
-Kanoun, Lamiraux & Wieber 2011).  The command is the τ part of the solution.
+Kanoun, Lamiraux & Wieber 2011), then the minimum-norm level
+:math:`\\min \\tfrac12 \\|x\\|^2` that makes the answer unique.  The command is
+the τ part of the solution.
+
+**Eliminating τ.**  The dynamics give τ as an affine function of q̈,
+:math:`\\tau = M \\ddot q + c` with :math:`c = h - \\sum_c J_c^T w_c`, so by
+default (``eliminate_torque=True``) the controller solves the *same* QP in
+q̈ alone (nv variables instead of 2 nv): a task row :math:`A_q \\ddot q + A_\\tau
+\\tau = b` becomes :math:`(A_q + A_\\tau M)\\ddot q = b - A_\\tau c`, the torque limits
+become the hard rows :math:`\\pm (M \\ddot q + c) \\le \\tau_{max}`, and the
+minimum-norm level becomes the equality level
+:math:`[I; M]\\,\\ddot q \\approx [0; -c]` (the same
+:math:`\\tfrac12\\|\\ddot q\\|^2 + \\tfrac12\\|\\tau\\|^2`).  Every level then has the same
+feasible set and cost as a function of q̈, hence the same optimum; the
+difference to the 2 nv form is rounding and solver tolerance (tested against
+it and against cvxpy).  The torque is clipped to its limits to remove the
+rounding of the hard rows (at most the feasibility tolerance).
 If a solve fails, a task's linear algebra fails or the hard constraints cannot hold, the controller never
 uses a made-up answer: it commands the safe fallback
 :math:`\\tau = g(q) - D \\dot q` (gravity compensation and joint damping),
@@ -28,7 +44,7 @@ from models.errors import ParameterError, SandboxError
 from models.records import Measurement
 
 from .base import Controller, ControllerContext
-from .hqp import Level, solve_hierarchy
+from .hqp import HQPParams, Level, solve_hierarchy
 from .tasks import Task, TickState
 
 __all__ = ["HQPController"]
@@ -49,10 +65,17 @@ class HQPController(Controller):
         QP backend name (:mod:`controllers.qp_backends`); default: the fastest installed.
     fallback_damping_Nm_s_per_rad : float
         D of the safe fallback command.
+    eliminate_torque : bool, default True
+        Solve in q̈ alone with τ eliminated through the dynamics (module
+        docstring); False solves in x = [q̈; τ] with the dynamics as hard
+        equalities. Both give the same torques.
+    params : HQPParams, optional
+        Tolerances and switches of the hierarchical solver (default: its defaults).
     """
 
     def __init__(self, levels: Sequence[Sequence[Task]], *, name: str = "hqp", solver: str | None = None,
-                 fallback_damping_Nm_s_per_rad: float = 1.0) -> None:
+                 fallback_damping_Nm_s_per_rad: float = 1.0, eliminate_torque: bool = True,
+                 params: HQPParams | None = None) -> None:
         super().__init__()
         self.name = name
         self.levels = [list(level) for level in levels]
@@ -62,10 +85,17 @@ class HQPController(Controller):
             for t in level:
                 if not isinstance(t, Task):
                     raise ParameterError(f"controller {name!r}: level {i} holds {t!r}, not a Task")
+        if not isinstance(eliminate_torque, bool):
+            raise ParameterError(f"controller {name!r}: eliminate_torque must be a bool, got {eliminate_torque!r}")
+        if params is not None and not isinstance(params, HQPParams):
+            raise ParameterError(f"controller {name!r}: params must be an HQPParams, got {type(params).__name__}")
+        self.params = params
         self.solver = solver
+        self.eliminate_torque = eliminate_torque
         self.fallback_damping = float(fallback_damping_Nm_s_per_rad)
         self.fallback_count = 0
         self.last_fallback_reason: str | None = None
+        self._level_names = [f"level {i} ({', '.join(t.name for t in tasks)})" for i, tasks in enumerate(self.levels)]
 
     def reset(self, context: ControllerContext) -> None:
         super().reset(context)
@@ -74,19 +104,24 @@ class HQPController(Controller):
             for t in level:
                 t.bind(self.state)
         n = context.arm.nv
-        tau_max = context.arm.model.effortLimit
+        tau_max = np.array(context.arm.model.effortLimit, dtype=float)
+        self._tau_max = tau_max
         self._lb = np.concatenate([np.full(n, -np.inf), -tau_max])
         self._ub = np.concatenate([np.full(n, np.inf), tau_max])
         self._A_dyn = np.zeros((n, 2 * n))
         self._A_dyn[:, n:] = -np.eye(n)
         self._prev = None
+        self._constant_rows: dict = {}  # (level, task) -> (read-only rows, their q part, their tau part or None)
         self.fallback_count = 0
         self.last_fallback_reason = None
         self._diag = dict.fromkeys(self.diagnostic_names(), 0.0)
 
     @property
     def last_result(self):
-        """The :class:`~controllers.hqp.HierarchyResult` of the last successful tick (None after a fallback)."""
+        """The :class:`~controllers.hqp.HierarchyResult` of the last successful tick (None after a fallback).
+
+        Its ``x`` is q̈ (nv,) when the torque is eliminated, else [q̈; τ] (2 nv,).
+        """
         return self._prev
 
     def diagnostic_names(self) -> tuple[str, ...]:
@@ -97,34 +132,91 @@ class HQPController(Controller):
     def diagnostics(self):
         return self._diag
 
+    def _task_levels(self, s: TickState, c: np.ndarray | None) -> tuple[list[Level], int]:
+        """The levels of this tick (rows in q̈ when ``c`` is given, else in [q̈; τ]) and their row count.
+
+        Rows that are 2-D and 1-D float arrays of matching shapes and finite go in as they are; any other
+        entry goes through the checks of :class:`~controllers.hqp.Level`, which raise naming the level and
+        the entry (or normalise it, e.g. a 1-D row).
+        """
+        n, rows, levels = s.nv, 0, []
+        cache = self._constant_rows
+        for i, tasks in enumerate(self.levels):
+            eq, ineq = [], []
+            for j, t in enumerate(tasks):
+                r = t.rows(s)
+                if r is None:
+                    continue
+                A, b = r[0], r[1]
+                hit = cache.get((i, j))
+                if (c is not None and hit is not None and hit[0] is A and type(b) is np.ndarray and b.dtype == float
+                        and b.shape == (A.shape[0],) and np.isfinite(b.sum())):
+                    # the same read-only rows as at an earlier tick: checked and split then
+                    _, A_q, A_t = hit
+                    rows += b.shape[0]
+                    if A_t is None:
+                        (eq if t.kind == "eq" else ineq).append((A_q, b, t.weight))
+                    else:
+                        (eq if t.kind == "eq" else ineq).append((A_q + A_t @ s.M, b - A_t @ c, t.weight))
+                    continue
+                if not (type(A) is np.ndarray and type(b) is np.ndarray and A.dtype == float and b.dtype == float
+                        and A.ndim == 2 and b.ndim == 1 and A.shape == (b.shape[0], 2 * n)
+                        and np.isfinite(A.sum() + b.sum())):
+                    kind = "eq" if t.kind == "eq" else "ineq"
+                    checked = Level(**{kind: [(A, b, t.weight)]}, name=self._level_names[i])
+                    A, b = (checked.A, checked.b) if kind == "eq" else (checked.C, checked.d)
+                    if A.shape[1] != 2 * n:
+                        raise ParameterError(f"{self._level_names[i]}: task {t.name!r} returned {A.shape[1]} "
+                                             f"columns, expected 2 nv = {2 * n}")
+                rows += b.shape[0]
+                if c is not None:
+                    At = A[:, n:]
+                    has_tau = bool(At.any())
+                    if type(r[0]) is np.ndarray and not r[0].flags.writeable:  # constant rows: split them once
+                        cache[(i, j)] = (r[0], A[:, :n], At if has_tau else None)
+                    if has_tau:  # a row on the torques: tau = M qdd + c
+                        A, b = A[:, :n] + At @ s.M, b - At @ c
+                    else:
+                        A = A[:, :n]
+                (eq if t.kind == "eq" else ineq).append((A, b, t.weight))
+            levels.append(Level.unchecked(eq=eq, ineq=ineq, name=self._level_names[i]))
+        return levels, rows
+
     def step(self, measurement: Measurement) -> np.ndarray:
         s = self.state
         s.update(measurement)
         n = s.nv
-        self._A_dyn[:, :n] = s.M
         t0 = time.perf_counter()
         rows = 0
+        p = len(self.levels)
         try:
-            hard = Level(eq=[(self._A_dyn, s.cuff_force - s.h)], name="dynamics")
-            levels = []
-            for i, tasks in enumerate(self.levels):
-                eq, ineq = [], []
-                for t in tasks:
-                    r = t.rows(s)
-                    if r is None:
-                        continue
-                    rows += len(r[1])
-                    (eq if t.kind == "eq" else ineq).append((r[0], r[1], t.weight))
-                levels.append(Level(eq=eq, ineq=ineq, name=f"level {i} ({', '.join(t.name for t in tasks)})"))
-            res = solve_hierarchy(levels, 2 * n, self.solver, hard=hard, lb=self._lb, ub=self._ub,
-                                  warm_start=self._prev)
-            tau = np.asarray(res.x[n:], dtype=float)
+            if self.eliminate_torque:
+                M = s.M
+                c = s.h - s.cuff_force  # tau = M qdd + c
+                G = np.empty((2 * n, n))
+                G[:n], G[n:] = M, -M
+                hard = Level.unchecked(ineq=[(G, np.concatenate([self._tau_max - c, self._tau_max + c]), 1.0)],
+                                       name="torque limits")
+                levels, rows = self._task_levels(s, c)
+                A_reg = np.empty((2 * n, n))
+                A_reg[:n], A_reg[n:] = np.eye(n), M
+                levels.append(Level.unchecked(eq=[(A_reg, np.concatenate([np.zeros(n), -c]), 1.0)],
+                                              name="minimum norm of [qdd; tau]"))
+                res = solve_hierarchy(levels, n, self.solver, hard=hard, warm_start=self._prev, params=self.params)
+                tau = np.clip(M @ res.x + c, -self._tau_max, self._tau_max)
+            else:
+                self._A_dyn[:, :n] = s.M
+                hard = Level(eq=[(self._A_dyn, s.cuff_force - s.h)], name="dynamics")
+                levels, rows = self._task_levels(s, None)
+                res = solve_hierarchy(levels, 2 * n, self.solver, hard=hard, lb=self._lb, ub=self._ub,
+                                      warm_start=self._prev, params=self.params)
+                tau = np.asarray(res.x[n:], dtype=float)
             if not np.all(np.isfinite(tau)):
                 raise SandboxError("the solver returned non-finite torques")
             self._prev = res
             fallback = 0.0
-            residuals = list(res.level_residuals)
-            level_times = list(res.level_times_s)
+            residuals = res.level_residuals[:p].tolist()
+            level_times = res.level_times_s[:p].tolist()
         except (SandboxError, np.linalg.LinAlgError) as e:  # a singular task matrix is a failed tick too
             tau = s.g - self.fallback_damping * s.dq
             self.fallback_count += 1
@@ -132,13 +224,13 @@ class HQPController(Controller):
             _log.warning("controller %s fell back to gravity + damping: %s", self.name, self.last_fallback_reason)
             self._prev = None
             fallback = 1.0
-            residuals = [np.nan] * len(self.levels)
-            level_times = [np.nan] * len(self.levels)
-        self._diag["solve_time_s"] = time.perf_counter() - t0
-        self._diag["fallback"] = fallback
-        self._diag["active_rows"] = float(rows)
-        for i, r in enumerate(residuals):
-            self._diag[f"residual_{i}"] = float(r)
-        for i, dt in enumerate(level_times):
-            self._diag[f"level_{i}_time_s"] = float(dt)
+            residuals = [np.nan] * p
+            level_times = [np.nan] * p
+        d = self._diag
+        d["solve_time_s"] = time.perf_counter() - t0
+        d["fallback"] = fallback
+        d["active_rows"] = float(rows)
+        for i in range(p):
+            d[f"residual_{i}"] = residuals[i]
+            d[f"level_{i}_time_s"] = level_times[i]
         return tau

@@ -36,7 +36,7 @@ import pinocchio as pin
 
 from ._checks import nonnegative, positive, vector
 
-__all__ = ["CuffParams", "CuffWrench", "cuff_wrench", "cuff_energy", "HAND_GRIP"]
+__all__ = ["CuffParams", "CuffWrench", "cuff_wrench", "cuff_wrenches", "cuff_energy", "HAND_GRIP"]
 
 
 def _triple(owner: str, field: str, value, strict: bool) -> tuple[float, float, float]:
@@ -170,6 +170,49 @@ def cuff_wrench(
     w_a = -aMb.act(pin.Force(w_b)).vector
     power = -(float(w_a @ v_a) + float(w_b @ v_b))
     return CuffWrench(on_a=w_a, on_b=w_b, error=e, energy_J=0.5 * float(e @ ke), power_W=power)
+
+
+def cuff_wrenches(
+    aMb: list[pin.SE3],
+    v_a: np.ndarray,
+    v_b: np.ndarray,
+    k_diag: np.ndarray,
+    d_diag: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The law of :func:`cuff_wrench` for several cuffs at once (same equations, stacked arrays).
+
+    Parameters
+    ----------
+    aMb : list of k pinocchio.SE3
+        Placement of each cuff's frame B in its frame A.
+    v_a, v_b : (k, 6) ndarray
+        Spatial velocities of A and B in their own frames [m/s, rad/s].
+    k_diag, d_diag : (k, 6) ndarray
+        Diagonal stiffness and damping of each cuff (:attr:`CuffParams.k_diag`, ``d_diag``).
+
+    Returns
+    -------
+    on_a, on_b : (k, 6) ndarray
+        Wrenches ``[f; tau]`` on A (in A) and on B (in B) [N, N m].
+    energy_J, power_W : (k,) ndarray
+        Spring energy and power drawn from the bodies, as in :class:`CuffWrench`.
+    """
+    k = len(aMb)
+    e = np.empty((k, 6))
+    J = np.empty((k, 6, 6))
+    X_ba = np.empty((k, 6, 6))  # motion action of B<-A: b-frame twist of an a-frame twist
+    for i, M in enumerate(aMb):
+        e[i] = pin.log6(M).vector
+        J[i] = pin.Jlog6(M)
+        X_ba[i] = M.actionInverse
+    v_rel = v_b - (X_ba @ v_a[:, :, None])[:, :, 0]
+    e_dot = (J @ v_rel[:, :, None])[:, :, 0]
+    ke = k_diag * e
+    w_b = -(np.swapaxes(J, 1, 2) @ (ke + d_diag * e_dot)[:, :, None])[:, :, 0]
+    # force action A<-B is the transpose of the motion action B<-A
+    w_a = -(np.swapaxes(X_ba, 1, 2) @ w_b[:, :, None])[:, :, 0]
+    power = -(np.einsum("ij,ij->i", w_a, v_a) + np.einsum("ij,ij->i", w_b, v_b))
+    return w_a, w_b, 0.5 * np.einsum("ij,ij->i", e, ke), power
 
 
 def cuff_energy(oMa: pin.SE3, oMb: pin.SE3, params: CuffParams) -> float:

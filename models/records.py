@@ -19,6 +19,8 @@ __all__ = ["Measurement"]
 
 
 def _frozen(a) -> np.ndarray:
+    if type(a) is np.ndarray and a.dtype == np.float64 and not a.flags.writeable and a.base is None:
+        return a  # already a read-only array that owns its data (as the sensors return): nothing can change it
     arr = np.array(a, dtype=float)
     arr.setflags(write=False)
     return arr

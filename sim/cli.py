@@ -78,6 +78,15 @@ def build_parser() -> argparse.ArgumentParser:
     v.add_argument("--fps", type=float, default=30.0, help="frames per second of the replay (default 30)")
     v.set_defaults(func=_cmd_replay)
 
+    b = sub.add_parser("bench", help="measure tick time, solver speed, growth, sweep throughput and memory")
+    b.add_argument("--quick", action="store_true", help="the same cases, shorter (under a minute)")
+    b.add_argument("--json", metavar="FILE", help="also write the figures to FILE as JSON")
+    b.add_argument("--scenario", metavar="FILE", default="scenarios/wall_push.py",
+                   help="the wall-push scenario file (default: scenarios/wall_push.py)")
+    b.add_argument("--profile", type=int, metavar="N", default=0,
+                   help="only profile the reference case (cProfile) and print its top N entries")
+    b.set_defaults(func=_cmd_bench)
+
     k = sub.add_parser("compare", help="compare runs side by side: table, Markdown, CSV and plots",
                        description="Compare run folders (exosandbox compare RUN_DIR RUN_DIR ...), or run one "
                        "scenario under several controllers and compare them (exosandbox compare SCENARIO "
@@ -247,6 +256,27 @@ def _cmd_replay(args: argparse.Namespace, parser: argparse.ArgumentParser) -> st
     except KeyboardInterrupt:
         return "stopped"
 
+
+def _cmd_bench(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    import json
+
+    from .bench import BenchParams, format_report, profile_reference, run_bench
+
+    if not Path(args.scenario).is_file():
+        raise _UserError(f"scenario file {args.scenario!r} does not exist (run from the repository root "
+                         "or give --scenario)")
+    if args.profile < 0:
+        parser.error(f"--profile must be >= 0, got {args.profile}")
+    params = BenchParams.quick() if args.quick else BenchParams()
+    if args.profile:
+        return profile_reference(args.scenario, min(params.reference_duration_s, 3.0), top=args.profile)
+    report = run_bench(args.scenario, params, progress=lambda msg: print(msg, file=sys.stderr, flush=True))
+    if args.json:
+        try:
+            Path(args.json).write_text(json.dumps(report, indent=2) + "\n", encoding="utf-8")
+        except OSError as e:
+            raise _UserError(f"cannot write {args.json!r}: {e.strerror or e}") from e
+    return format_report(report)
 
 def _fresh_folder(base: Path) -> Path:
     out, k = base, 1

@@ -18,6 +18,7 @@ the controller never shares it.
 from __future__ import annotations
 
 import dataclasses
+import math
 from dataclasses import dataclass
 from typing import Literal
 
@@ -27,7 +28,7 @@ import pinocchio as pin
 from models._checks import in_range, nonnegative, positive
 from models.arm import ArmModel
 from models.coupling import Assembly
-from models.cuffs import cuff_wrench
+from models.cuffs import cuff_wrenches
 
 __all__ = ["PlantParams", "CoupledPlant", "PlantMode"]
 
@@ -108,6 +109,19 @@ class CoupledPlant:
         self._exo_place = [me.frames[c.exo_frame_id].placement for c in self.cuffs]
         self._hum_joint = [mh.frames[c.human_frame_id].parentJoint for c in self.cuffs]
         self._hum_place = [mh.frames[c.human_frame_id].placement * c.human_offset for c in self.cuffs]
+        # constant per cuff: action matrices of the frame placements in their joints, stacked (k, 6, 6)
+        nc = len(self.cuffs)
+        self._exo_place_inv = np.array([P.toActionMatrixInverse() for P in self._exo_place]).reshape(nc, 6, 6)
+        self._hum_place_inv = np.array([P.toActionMatrixInverse() for P in self._hum_place]).reshape(nc, 6, 6)
+        self._exo_place_dual = np.array([P.toDualActionMatrix() for P in self._exo_place]).reshape(nc, 6, 6)
+        self._hum_place_dual = np.array([P.toDualActionMatrix() for P in self._hum_place]).reshape(nc, 6, 6)
+        self._k_diag = np.array([cp.k_diag for cp in self._cuff_params]).reshape(nc, 6)
+        self._d_diag = np.array([cp.d_diag for cp in self._cuff_params]).reshape(nc, 6)
+        # joints that carry a cuff, with the cuffs on each (their wrenches add up in the joint frame)
+        self._exo_groups = [(j, [k for k in range(nc) if self._exo_joint[k] == j])
+                            for j in sorted(set(self._exo_joint))]
+        self._hum_groups = [(j, [k for k in range(nc) if self._hum_joint[k] == j])
+                            for j in sorted(set(self._hum_joint))]
         self._fext_e = pin.StdVec_Force()
         self._fext_h = pin.StdVec_Force()
         for _ in range(me.njoints):
@@ -152,22 +166,30 @@ class CoupledPlant:
             return
         self._cuffs_fresh = True
         self._kinematics()
-        energy = power = 0.0
+        if not self.cuffs:
+            self.cuff_energy_J = self.cuff_power_W = 0.0
+            return
         de, dh = self._de, self._dh
+        aMb, oMb_rot = [], []
+        v_je = np.empty((len(self.cuffs), 6))
+        v_jh = np.empty((len(self.cuffs), 6))
         for k in range(len(self.cuffs)):
             je, jh = self._exo_joint[k], self._hum_joint[k]
-            pe, ph = self._exo_place[k], self._hum_place[k]
-            oMa = de.oMi[je] * pe
-            oMb = dh.oMi[jh] * ph
-            va = pe.actInv(de.v[je]).vector
-            vb = ph.actInv(dh.v[jh]).vector
-            w = cuff_wrench(oMa, oMb, va, vb, self._cuff_params[k])
-            self.wrench_on_exo[k] = w.on_a
-            self.wrench_on_human[k] = w.on_b
-            self.force_on_human_world[k] = oMb.rotation @ w.on_b[:3]
-            energy += w.energy_J
-            power += w.power_W
-        self.cuff_energy_J, self.cuff_power_W = energy, power
+            oMb = dh.oMi[jh] * self._hum_place[k]
+            aMb.append((de.oMi[je] * self._exo_place[k]).actInv(oMb))
+            oMb_rot.append(oMb.rotation)
+            v_je[k] = de.v[je].vector
+            v_jh[k] = dh.v[jh].vector
+        v_a = (self._exo_place_inv @ v_je[:, :, None])[:, :, 0]  # each cuff frame's own (LOCAL) velocity
+        v_b = (self._hum_place_inv @ v_jh[:, :, None])[:, :, 0]
+        w_a, w_b, energy, power = cuff_wrenches(aMb, v_a, v_b, self._k_diag, self._d_diag)
+        self.wrench_on_exo[:] = w_a
+        self.wrench_on_human[:] = w_b
+        self.force_on_human_world[:] = (np.array(oMb_rot) @ w_b[:, :3, None])[:, :, 0]
+        # the same wrenches in the joint frames, where aba takes them
+        self._fj_e = (self._exo_place_dual @ w_a[:, :, None])[:, :, 0]
+        self._fj_h = (self._hum_place_dual @ w_b[:, :, None])[:, :, 0]
+        self.cuff_energy_J, self.cuff_power_W = float(energy.sum()), float(power.sum())
 
     def hand_position(self, which: str) -> np.ndarray:
         """World position [m] of the hand point of ``"exo"`` or ``"human"`` (kinematics of the last update)."""
@@ -185,13 +207,11 @@ class CoupledPlant:
     def substep(self, tau_exo_Nm: np.ndarray, tau_human_Nm: np.ndarray, dt_s: float) -> None:
         """Advance both arms by ``dt_s`` with the given joint torques held constant."""
         self.update_cuffs()
-        for f in self._fext_e:
-            f.setZero()
-        for f in self._fext_h:
-            f.setZero()
-        for k in range(len(self.cuffs)):
-            self._fext_e[self._exo_joint[k]] += self._exo_place[k].act(pin.Force(self.wrench_on_exo[k]))
-            self._fext_h[self._hum_joint[k]] += self._hum_place[k].act(pin.Force(self.wrench_on_human[k]))
+        # only joints that carry a cuff ever hold an external force; the others stay zero
+        for j, ks in self._exo_groups:
+            self._fext_e[j] = pin.Force(self._fj_e[ks[0]] if len(ks) == 1 else self._fj_e[ks].sum(axis=0))
+        for j, ks in self._hum_groups:
+            self._fext_h[j] = pin.Force(self._fj_h[ks[0]] if len(ks) == 1 else self._fj_h[ks].sum(axis=0))
         if self.has_exo:
             me = self.exo.model
             a = pin.aba(me, self._de, self.q_exo, self.v_exo, tau_exo_Nm + self._friction(), self._fext_e)
@@ -224,6 +244,8 @@ class CoupledPlant:
 
     def state_is_finite(self) -> str | None:
         """Name of the first non-finite state vector, or None."""
+        if math.isfinite(self.q_exo.sum() + self.v_exo.sum() + self.q_human.sum() + self.v_human.sum()):
+            return None  # one sum: a NaN or inf in any vector makes it non-finite (overflow too, then checked)
         for name in ("q_exo", "v_exo", "q_human", "v_human"):
             if not np.all(np.isfinite(getattr(self, name))):
                 return name

@@ -367,7 +367,15 @@ class RunLog:
             raise RunLogError(f"missing column(s) {missing} in append; every column must be given once per tick")
         arrays = {}
         for name, col in self._columns.items():
-            arr = np.asarray(values[name])
+            arr = values[name]
+            # the common case first: an array of the column's exact shape and dtype, or a float for a float scalar
+            if type(arr) is np.ndarray and arr.dtype == col.dtype and arr.shape == col.shape:
+                arrays[name] = arr
+                continue
+            if type(arr) is float and col.shape == () and col.dtype.kind == "f":
+                arrays[name] = arr
+                continue
+            arr = np.asarray(arr)
             if arr.shape != col.shape:
                 raise RunLogError(f"column {name!r} expects shape {col.shape}, got {arr.shape}")
             if not np.can_cast(arr.dtype, col.dtype, casting="same_kind"):

@@ -41,7 +41,8 @@ from .runlog import RunLog, environment_metadata, load_run
 from .scenario import Scenario
 from .sensors import ForceTorqueSensor, JointSensing
 
-__all__ = ["SimulationError", "RunResult", "build_assembly", "simulate", "run_scenario", "evaluate_run"]
+__all__ = ["SimulationError", "RunResult", "build_assembly", "controller_context", "simulate", "run_scenario",
+           "evaluate_run"]
 
 Progress = Callable[[int, int], None]
 #: Called after every tick with (t_s, q_exo, q_human, cuff forces on the human in world axes (n_cuffs, 3)).
@@ -68,6 +69,12 @@ def build_assembly(scenario: Scenario) -> Assembly:
     if hp.girdle:
         q0 = girdle_posture(hp, q0)
     return assemble(hp, exo=scenario.exo, registration=scenario.registration, cuffs=scenario.cuffs, q_human0=q0)
+
+
+def controller_context(asm: Assembly, dt_s: float) -> ControllerContext:
+    """What the controller of a run knows: its model of the robot, its cuff sensor frames, the period [s]."""
+    return ControllerContext(
+        arm=asm.exo, cuff_frames={c.name: asm.exo.model.frames[c.exo_frame_id].name for c in asm.cuffs}, dt_s=dt_s)
 
 
 def _jsonable(obj):
@@ -147,10 +154,7 @@ def simulate(
                              np.random.SeedSequence(seed).spawn(1 + len(asm.cuffs)))
     cuff_names = [c.name for c in asm.cuffs]
     if controller is not None:
-        context = ControllerContext(
-            arm=asm.exo, cuff_frames={c.name: asm.exo.model.frames[c.exo_frame_id].name for c in asm.cuffs},
-            dt_s=T)
-        controller.reset(context)
+        controller.reset(controller_context(asm, T))
         all_diag = tuple(controller.diagnostic_names())
         # wall-clock diagnostics would break bit-identical logs: they go to timing.npz
         diag_names = tuple(d for d in all_diag if not d.endswith("_time_s"))

@@ -25,13 +25,16 @@ from models.errors import ParameterError
 
 BACKENDS = available_backends()
 #: (closed_form, backend): the closed-form path, then every backend with every level sent to it.
-PATHS = [(True, None)] + [(False, b) for b in BACKENDS]
-PATH_IDS = ["closed-form"] + [f"qp-{b}" for b in BACKENDS]
+# (closed form, working-set step, backend): every level through the closed form where it applies, through the
+# checked working-set step where it applies, or through each backend
+PATHS = [(True, True, None), (False, True, None)] + [(False, False, b) for b in BACKENDS]
+PATH_IDS = ["closed-form", "working-set"] + [f"qp-{b}" for b in BACKENDS]
 
 
 def _solve(levels, n, path, **kw):
-    closed_form, backend = path
-    return solve_hierarchy(levels, n, backend, params=HQPParams(closed_form=closed_form), **kw)
+    closed_form, working_set, backend = path
+    return solve_hierarchy(levels, n, backend, params=HQPParams(closed_form=closed_form, working_set_step=working_set),
+                           **kw)
 
 
 # ------------------------------------------------------------------------------------------
@@ -303,7 +306,7 @@ def test_rows_tight_at_every_higher_optimum_stay_tight_below(path):
     np.testing.assert_allclose(res.level_residuals, [2.0, 25.0], atol=1e-6)
 
 
-@pytest.mark.parametrize("path", [(True, None)] + [(False, b) for b in BACKENDS if b != "daqp"],
+@pytest.mark.parametrize("path", [(True, True, None)] + [(False, False, b) for b in BACKENDS if b != "daqp"],
                          ids=["closed-form"] + [f"qp-{b}" for b in BACKENDS if b != "daqp"])
 def test_without_regularization_every_level_keeps_its_optimum(path):
     tasks = _equality_stack(3)
@@ -357,7 +360,7 @@ def test_backend_failure_raises_qpsolveerror_with_the_backend_status():
     # DAQP without proximal iterations rejects a singular Hessian (exit flag -5, DAQP's daqp.h)
     levels = [Level(ineq=[(np.array([[1.0, 1.0]]), [-1.0])])]
     with pytest.raises(QPSolveError, match=r"level 0.*nonconvex.*exitflag -5"):
-        solve_hierarchy(levels, 2, "daqp", regularization=0.0)
+        solve_hierarchy(levels, 2, "daqp", regularization=0.0, params=HQPParams(working_set_step=False))
 
 
 # ------------------------------------------------------------------------------------------

@@ -27,6 +27,7 @@ import pinocchio as pin
 import pytest
 
 from models.arm import ArmModel, load_arm
+from models.chain import ChainParams, build_chain
 from models.exo import EXO_JOINTS, ExoParams, build_exo
 from models.human import HumanParams, build_human
 from models.inertia import Inertial
@@ -93,7 +94,9 @@ HUMAN_CASES = {
     for s in ("f5", "m50", "m95")
     for g in (False, True)
 }
-ALL_CASES = {**EXO_CASES, **HUMAN_CASES}
+#: Serial test chains of the benchmark's joint series (models.chain).
+CHAIN_CASES = {f"chain-{n}": (lambda n=n: build_chain(ChainParams(n_joints=n))) for n in (7, 28)}
+ALL_CASES = {**EXO_CASES, **HUMAN_CASES, **CHAIN_CASES}
 
 
 @pytest.fixture(scope="module", params=sorted(ALL_CASES), ids=sorted(ALL_CASES))

@@ -240,7 +240,7 @@ def check_qp(P, q, G=None, h=None, A=None, b=None, lb=None, ub=None):
 # Registry, filled once at import by guarded imports -------------------------------------------
 
 #: Adapter modules tried at import, in order of preference for the default -> install command.
-_ADAPTER_MODULES = {"daqp_": "pip install daqp qpsolvers", "osqp_": "pip install osqp"}
+_ADAPTER_MODULES = {"daqp_": "pip install daqp", "osqp_": "pip install osqp"}
 
 _registry: dict[str, Callable[..., QPResult]] = {}
 _missing: dict[str, str] = {}

@@ -1,4 +1,4 @@
-r"""DAQP, a dense dual active-set QP solver [Arnstrom2022]_, through qpsolvers.
+r"""DAQP, a dense dual active-set QP solver [Arnstrom2022]_, called directly.
 
 Solves
 
@@ -7,7 +7,9 @@ Solves
     \min_y \; \tfrac12 y^\top P y + q^\top y
     \quad \text{s.t.} \quad G y \le h, \quad A y = b, \quad lb \le y \le ub
 
-with ``qpsolvers.solve_problem(..., solver="daqp")``. DAQP factorises ``P``
+with ``daqp.solve``, the data laid out as DAQP takes them (bounds first,
+then ``G y <= h``, then ``A y = b`` with sense 5), as qpsolvers' DAQP
+interface lays them out, without its per-call overhead. DAQP factorises ``P``
 and so needs it positive definite; a semidefinite ``P`` (a hierarchy level
 whose cost does not involve every variable) is handled by DAQP's
 proximal-point iterations [Rockafellar1976]_: it minimises
@@ -33,9 +35,8 @@ regularization ε   ``eps_prox``          −ε (automatic: proximal     −1e-6
 ``eps_prox = 0`` (``regularization=0``) turns the proximal iterations off, and
 DAQP then rejects a singular ``P`` (exit flag −5).
 
-qpsolvers does not pass DAQP's exit flag or iteration count on. When a solve
-fails, the adapter runs DAQP once more directly on the same data only to read
-the exit flag for the status; ``iterations`` is always ``None``.
+The exit flag is read from the same call; ``iterations`` is DAQP's
+iteration count.
 
 References
 ----------
@@ -52,7 +53,6 @@ from ctypes import c_int
 
 import daqp
 import numpy as np
-import qpsolvers
 
 from models.errors import ParameterError
 
@@ -61,9 +61,6 @@ from . import QPResult, QPSolveError, QPTolerances, check_qp
 __all__ = ["NAME", "solve"]
 
 NAME = "daqp"
-
-if "daqp" not in qpsolvers.available_solvers:  # pragma: no cover - depends on the install
-    raise ImportError("qpsolvers does not list daqp among its available solvers")
 
 #: DAQP exit flags (``daqp.h``, ``EXIT_*``).
 _EXIT_FLAGS = {
@@ -90,24 +87,30 @@ def _settings(tolerances: QPTolerances, regularization: float) -> dict:
     }
 
 
-def _exit_flag(P, q, G, h, A, b, lb, ub, settings: dict) -> int:
-    """DAQP's exit flag for the same problem, from a direct call (failure path only)."""
+def _layout(P, q, G, h, A, b, lb, ub):
+    """``(A_all, bupper, blower, sense, ms, mi)``: bounds first (``ms`` of them), then ``mi`` rows of G, then A."""
     n = q.size
-    rows = [M for M in (G, A) if M is not None]
-    C = np.vstack(rows) if rows else np.zeros((0, n))
-    upper = np.concatenate([v for v in (h, b) if v is not None] or [np.zeros(0)])
-    lower = np.full(upper.size, -_BIG)
-    sense = np.zeros(upper.size, dtype=c_int)
-    if A is not None:
-        sense[upper.size - A.shape[0] :] = 5  # DAQP: equality constraint
-        lower[upper.size - A.shape[0] :] = b
-    if lb is not None or ub is not None:
-        bu = np.full(n, _BIG) if ub is None else np.minimum(ub, _BIG)
-        bl = np.full(n, -_BIG) if lb is None else np.maximum(lb, -_BIG)
-        upper, lower = np.concatenate([bu, upper]), np.concatenate([bl, lower])
-        sense = np.concatenate([np.zeros(n, dtype=c_int), sense])
-    _, _, flag, _ = daqp.solve(P, q, C, upper, lower, sense, **settings)
-    return int(flag)
+    mi = 0 if G is None else G.shape[0]
+    me = 0 if A is None else A.shape[0]
+    ms = n if (lb is not None or ub is not None) else 0
+    m = ms + mi + me
+    bupper = np.empty(m)
+    blower = np.full(m, -_BIG)
+    if ms:
+        bupper[:ms] = _BIG if ub is None else ub
+        if lb is not None:
+            blower[:ms] = lb
+    if mi:
+        bupper[ms: ms + mi] = h
+    if me:
+        bupper[ms + mi:] = b
+    if mi and me:
+        A_all = np.vstack([G, A])
+    else:
+        A_all = G if mi else (A if me else np.zeros((0, n)))
+    sense = np.zeros(m, dtype=c_int)
+    sense[ms + mi:] = 5  # DAQP: equality constraint
+    return A_all, bupper, blower, sense, ms, mi
 
 
 def solve(
@@ -156,7 +159,7 @@ def solve(
     ParameterError
         If the QP data have wrong shapes or non-finite values.
     QPSolveError
-        If DAQP or qpsolvers raises.
+        If DAQP raises.
     """
     start = time.perf_counter()
     P, q, G, h, A, b, lb, ub = check_qp(P, q, G, h, A, b, lb, ub)
@@ -164,15 +167,17 @@ def solve(
         raise ParameterError(f"daqp: regularization must be a finite float >= 0, got {regularization!r}")
     settings = _settings(tolerances, regularization)
     initvals = None if warm_start is None else np.array(warm_start, dtype=float).reshape(q.shape)  # writable copy
+    A_all, bupper, blower, sense, ms, mi = _layout(P, q, G, h, A, b, lb, ub)
     try:
-        problem = qpsolvers.Problem(P, q, G, h, A, b, lb, ub)
-        solution = qpsolvers.solve_problem(problem, solver="daqp", initvals=initvals, verbose=False, **settings)
-    except Exception as e:  # qpsolvers and DAQP raise several types; re-raise as ours
-        raise QPSolveError(f"daqp through qpsolvers raised {type(e).__name__}: {e}") from e
-    if solution.found and solution.x is not None:
-        z = None if G is None else np.asarray(solution.z, dtype=float).copy()
-        z_box = None if (lb is None and ub is None) else np.asarray(solution.z_box, dtype=float).copy()
-        return QPResult(solution.x.copy(), True, "optimal", time.perf_counter() - start, None, z, z_box)
-    flag = _exit_flag(P, q, G, h, A, b, lb, ub, settings)
+        x, _, flag, info = daqp.solve(P, q, A_all, bupper, blower, sense, primal_start=initvals, **settings)
+    except Exception as e:  # DAQP raises several types; re-raise as ours
+        raise QPSolveError(f"daqp raised {type(e).__name__}: {e}") from e
+    flag = int(flag)
+    iterations = int(info["iterations"]) if "iterations" in info else None
+    if flag > 0:
+        lam = np.asarray(info["lam"], dtype=float)
+        z = None if G is None else lam[ms: ms + mi].copy()
+        z_box = None if (lb is None and ub is None) else lam[:ms].copy()
+        return QPResult(np.array(x, dtype=float), True, "optimal", time.perf_counter() - start, iterations, z, z_box)
     status = f"{_EXIT_FLAGS.get(flag, 'unknown')} (exitflag {flag})"
-    return QPResult(None, False, status, time.perf_counter() - start)
+    return QPResult(None, False, status, time.perf_counter() - start, iterations)

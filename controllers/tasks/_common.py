@@ -36,6 +36,7 @@ class TickState:
         self.dt_s = float(dt_s)
         self.cuff_ids = {name: arm.frame_id(frame) for name, frame in cuff_frames.items()}
         self._zero = np.zeros(self.nv)
+        self._lower = np.tril_indices(self.nv, -1)
         self._jac: dict[tuple[int, object], np.ndarray] = {}
         self._drift: dict[int, np.ndarray] = {}
         self.measurement: Measurement | None = None
@@ -48,8 +49,9 @@ class TickState:
         pin.forwardKinematics(model, data, self.q, self.dq, self._zero)  # a = 0: frame accelerations are J'q'
         pin.computeJointJacobians(model, data)  # reuses the placements just computed
         pin.updateFramePlacements(model, data)
-        M = pin.crba(model, data, self.q)
-        self.M = np.triu(M) + np.triu(M, 1).T
+        M = np.array(pin.crba(model, data, self.q))  # crba fills the upper triangle: mirror it
+        M[self._lower] = M.T[self._lower]
+        self.M = M
         self.h = pin.nonLinearEffects(model, data, self.q, self.dq).copy()
         self.g = pin.computeGeneralizedGravity(model, data, self.q).copy()
         self._jac.clear()

@@ -30,6 +30,20 @@ def _q_part(state: TickState, rows: np.ndarray) -> np.ndarray:
     return A
 
 
+def _constant(A: np.ndarray) -> np.ndarray:
+    """``A`` made read-only, to be returned every tick (rows that do not depend on the state)."""
+    A.setflags(write=False)
+    return A
+
+
+def _limit_rows(nv: int) -> np.ndarray:
+    r"""(2 nv, 2 nv) rows :math:`[I\; 0; -I\; 0]`: upper then lower bounds on q̈ (read-only)."""
+    C = np.zeros((2 * nv, 2 * nv))
+    C[:nv, :nv] = np.eye(nv)
+    C[nv:, :nv] = -np.eye(nv)
+    return _constant(C)
+
+
 class GravityTorque(Task):
     """Gravity compensation as a torque task: :math:`\\tau = g(q)` (model feed-forward)."""
 
@@ -38,10 +52,13 @@ class GravityTorque(Task):
     def __init__(self, weight: float = 1.0) -> None:
         self.weight = positive("GravityTorque", "weight", weight)
 
-    def rows(self, state: TickState):
+    def bind(self, state: TickState) -> None:
         A = np.zeros((state.nv, 2 * state.nv))
         A[:, state.nv:] = np.eye(state.nv)
-        return A, state.g.copy()
+        self._A = _constant(A)
+
+    def rows(self, state: TickState):
+        return self._A, state.g.copy()
 
 
 class JointPositionLimits(Task):
@@ -73,6 +90,7 @@ class JointPositionLimits(Task):
 
     def bind(self, state: TickState) -> None:
         self.lo, self.hi = state.arm.position_limits()
+        self._C = _limit_rows(state.nv)
 
     def rows(self, state: TickState):
         dt, q, v = state.dt_s, state.q, state.dq
@@ -80,11 +98,7 @@ class JointPositionLimits(Task):
         dn = np.maximum(q - (self.lo + self.margin), 0.0)
         amax_up = np.minimum((np.sqrt(2 * self.a * up) - v) / dt, (up - v * dt) / dt**2)
         amax_dn = np.minimum((np.sqrt(2 * self.a * dn) + v) / dt, (dn + v * dt) / dt**2)
-        n = state.nv
-        C = np.zeros((2 * n, 2 * n))
-        C[:n, :n] = np.eye(n)
-        C[n:, :n] = -np.eye(n)
-        return C, np.concatenate([amax_up, amax_dn])
+        return self._C, np.concatenate([amax_up, amax_dn])
 
 
 class JointVelocityLimits(Task):
@@ -98,13 +112,11 @@ class JointVelocityLimits(Task):
 
     def bind(self, state: TickState) -> None:
         self.vmax = state.model.velocityLimit * self.fraction
+        self._C = _limit_rows(state.nv)
 
     def rows(self, state: TickState):
-        n, dt, v = state.nv, state.dt_s, state.dq
-        C = np.zeros((2 * n, 2 * n))
-        C[:n, :n] = np.eye(n)
-        C[n:, :n] = -np.eye(n)
-        return C, np.concatenate([(self.vmax - v) / dt, (self.vmax + v) / dt])
+        dt, v = state.dt_s, state.dq
+        return self._C, np.concatenate([(self.vmax - v) / dt, (self.vmax + v) / dt])
 
 
 class Transparency(Task):
@@ -143,8 +155,11 @@ class JointDamping(Task):
         self.T = positive("JointDamping", "time_constant_s", time_constant_s, "s")
         self.weight = positive("JointDamping", "weight", weight)
 
+    def bind(self, state: TickState) -> None:
+        self._A = _constant(_q_part(state, np.eye(state.nv)))
+
     def rows(self, state: TickState):
-        return _q_part(state, np.eye(state.nv)), -state.dq / self.T
+        return self._A, -state.dq / self.T
 
 
 class Posture(Task):
@@ -161,10 +176,11 @@ class Posture(Task):
     def bind(self, state: TickState) -> None:
         if self.q_ref.shape != (state.nv,):
             raise ParameterError(f"Posture.posture_rad must have {state.nv} entries, got {self.q_ref.shape}")
+        self._A = _constant(_q_part(state, np.eye(state.nv)))
 
     def rows(self, state: TickState):
         b = self.w**2 * pin.difference(state.model, state.q, self.q_ref) - 2 * self.z * self.w * state.dq
-        return _q_part(state, np.eye(state.nv)), b
+        return self._A, b
 
 
 # -- virtual walls -------------------------------------------------------------------------

@@ -1,0 +1,680 @@
+r"""Speed and memory benchmark of the sandbox (``exosandbox bench``).
+
+The benchmark runs the same library code a user runs and reports figures; it
+asserts no speed target (those are in the README and the issue tracker, and
+machines differ).  Cases:
+
+* **Reference case**: the 7-DOF exoskeleton on the ``m50`` wearer with the
+  default three cuffs, 1 kHz control with 4 physics substeps, the ``walls``
+  variant (dynamics and torque limits hard; joint limits; one virtual wall;
+  transparency; damping; minimum-norm regularization) on the wall-push
+  scenario.  Per control tick: median and 99th percentile of the wall time of
+  the whole tick (plant substeps, sensors, controller, logging) and of the
+  HQP part of the controller (task rows and solve: the ``solve_time_s``
+  diagnostic), and the realtime factor (simulated time over the summed tick
+  wall time, as in ``metrics.json``).
+* **Against cvxpy**: the measurements of the reference run are replayed; on a
+  sample of ticks the same stack is solved level by level with cvxpy
+  (:func:`solve_levels_cvxpy`, the lexicographic formulation of Kanoun,
+  Lamiraux & Wieber 2011 with an interior-point solver), in the same process;
+  the torques must agree to ``agreement_tol_Nm``; the ratio of the median
+  solve times is ``cvxpy_speedup``.
+* **Against the QP backends**: each installed backend on the same ticks, its
+  largest torque difference to the default backend and its solve times.
+* **Growth**: tick time against the number of priority levels (1 to 6, the
+  reference stack growing one level at a time) and against the number of
+  joints (7, 14, 28: :func:`models.chain.build_chain` chains without a
+  wearer, under the same kind of stack).
+* **Sweep throughput**: the same small sweep (:func:`sim.sweep.run_sweep`)
+  with one and with two worker processes (``jobs2_speedup`` = wall time with
+  1 / wall time with 2; with 2 the workers' start-up counts, as for a user).
+* **Memory**: peak resident memory of a long run (coupled run, human-alone
+  baseline and metrics) measured in a child process with
+  :func:`resource.getrusage`, and the size of its log per simulated minute.
+
+References
+----------
+.. [Kanoun2011] O. Kanoun, F. Lamiraux, P.-B. Wieber, "Kinematic control of
+   redundant manipulators: generalizing the task-priority framework to
+   inequality tasks", IEEE Trans. Robotics 27(4):785-792, 2011.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures
+import cProfile
+import dataclasses
+import io
+import multiprocessing
+import os
+import pstats
+import resource
+import tempfile
+import time
+import warnings
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pinocchio as pin
+
+from controllers.base import ControllerContext
+from controllers.hqp_controller import HQPController
+from controllers.qp_backends import available_backends
+from controllers.registry import make_controller
+from controllers.tasks import JointDamping, JointPositionLimits, JointVelocityLimits, Transparency
+from models.chain import ChainParams, build_chain
+from models.errors import ParameterError, SandboxError
+from models.records import Measurement
+
+from .runlog import RunLog, load_run
+from .scenario import Scenario, load_scenario
+from .sensors import EncoderParams, JointSensing
+from .simulate import build_assembly, controller_context, run_scenario, simulate
+
+__all__ = [
+    "BenchParams",
+    "BenchError",
+    "StackRows",
+    "reference_scenario",
+    "tick_statistics",
+    "measurements_from_run",
+    "replay",
+    "stack_rows",
+    "solve_levels_cvxpy",
+    "compare_cvxpy",
+    "compare_backends",
+    "level_stacks",
+    "chain_tick_times",
+    "sweep_throughput",
+    "memory_run",
+    "profile_reference",
+    "run_bench",
+    "format_report",
+]
+
+#: Reference stack, growing one level at a time for the level series (names of controllers.tasks.TASKS).
+_SERIES_LEVELS = ("joint_limits", "velocity_limits", "wall", "transparency", "damping", "posture")
+
+
+class BenchError(SandboxError, RuntimeError):
+    """A benchmark case could not run (a missing optional package, a disagreement between solvers)."""
+
+
+@dataclass(frozen=True)
+class BenchParams:
+    """Sizes of the benchmark cases.
+
+    Attributes
+    ----------
+    reference_duration_s : float [s]
+        Simulated time of the reference case (10 s).
+    compare_ticks : int
+        Ticks of the reference run, evenly spaced, replayed through cvxpy and
+        every backend.
+    agreement_tol_Nm : float [N m]
+        Largest torque difference accepted between our solver and cvxpy.
+    series_duration_s : float [s]
+        Simulated time of each point of the level series.
+    chain_joints : tuple of int
+        Joint counts of the joint series.
+    chain_ticks : int
+        Control ticks of each point of the joint series.
+    sweep_subjects : tuple of str
+        Wearers of the small sweep (with the ``walls`` and ``transparent``
+        variants).
+    sweep_seeds : int
+        Seeds per (controller, subject) of the sweep.
+    sweep_duration_s : float [s]
+        Simulated time of each sweep run.
+    memory_duration_s : float [s]
+        Simulated time of the memory run (60 s).
+    """
+
+    reference_duration_s: float = 10.0
+    compare_ticks: int = 200
+    agreement_tol_Nm: float = 1e-5
+    series_duration_s: float = 2.0
+    chain_joints: tuple[int, ...] = (7, 14, 28)
+    chain_ticks: int = 2000
+    sweep_subjects: tuple[str, ...] = ("m50", "f50")
+    sweep_seeds: int = 2
+    sweep_duration_s: float = 2.0
+    memory_duration_s: float = 60.0
+
+    def __post_init__(self) -> None:
+        o = "BenchParams"
+        for name in ("reference_duration_s", "agreement_tol_Nm", "series_duration_s", "sweep_duration_s",
+                     "memory_duration_s"):
+            value = getattr(self, name)
+            if not (isinstance(value, (int, float)) and np.isfinite(value) and value > 0):
+                raise ParameterError(f"{o}.{name} must be a finite number > 0, got {value!r}")
+        for name in ("compare_ticks", "chain_ticks", "sweep_seeds"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+                raise ParameterError(f"{o}.{name} must be an int >= 1, got {value!r}")
+        joints = tuple(self.chain_joints)
+        if not joints or any(isinstance(j, bool) or not isinstance(j, int) or j < 1 for j in joints):
+            raise ParameterError(f"{o}.chain_joints must be ints >= 1, got {self.chain_joints!r}")
+        object.__setattr__(self, "chain_joints", joints)
+        subjects = tuple(self.sweep_subjects)
+        if not subjects or not all(isinstance(s, str) and s for s in subjects):
+            raise ParameterError(f"{o}.sweep_subjects must name at least one subject, got {self.sweep_subjects!r}")
+        object.__setattr__(self, "sweep_subjects", subjects)
+
+    @classmethod
+    def quick(cls) -> BenchParams:
+        """The same cases, shorter (under a minute on a laptop core when a tick is about 1 ms)."""
+        return cls(reference_duration_s=3.0, compare_ticks=30, series_duration_s=0.5, chain_ticks=300,
+                   sweep_seeds=1, sweep_duration_s=0.5, memory_duration_s=6.0)
+
+
+# --------------------------------------------------------------------------------------------
+# reference case
+
+
+def reference_scenario(scenario_path: str | Path, duration_s: float) -> Scenario:
+    """The reference scenario file with its duration set to ``duration_s`` [s]."""
+    return dataclasses.replace(load_scenario(scenario_path), duration_s=float(duration_s))
+
+
+def tick_statistics(folder: str | Path, dt_s: float) -> dict:
+    """Tick and HQP solve figures of a run folder's ``timing.npz``.
+
+    Returns ``tick_time_median_us``, ``tick_time_p99_us``,
+    ``hqp_solve_median_us``, ``hqp_solve_p99_us`` (None without an HQP
+    controller), ``controller_time_median_us`` and ``realtime_factor``
+    :math:`= n\\,\\Delta t / \\sum_k t_k` (simulated over wall time).
+    """
+    with np.load(Path(folder) / "timing.npz", allow_pickle=False) as f:
+        tick = f["tick_time_s"]
+        ctrl = f["controller_time_s"]
+        solve = f["diag_solve_time_s"] if "diag_solve_time_s" in f.files else None
+    out = {
+        "tick_time_median_us": float(np.median(tick) * 1e6),
+        "tick_time_p99_us": float(np.percentile(tick, 99) * 1e6),
+        "controller_time_median_us": float(np.median(ctrl) * 1e6),
+        "hqp_solve_median_us": None if solve is None else float(np.median(solve) * 1e6),
+        "hqp_solve_p99_us": None if solve is None else float(np.percentile(solve, 99) * 1e6),
+        "realtime_factor": float(len(tick) * dt_s / np.sum(tick)),
+    }
+    return out
+
+
+# --------------------------------------------------------------------------------------------
+# replaying the measurements of a run
+
+
+def measurements_from_run(folder: str | Path) -> list[Measurement]:
+    """The controller's measurements of every tick of a coupled run, rebuilt from its log.
+
+    Uses the logged encoder positions, velocity estimates, applied torques
+    (the joint torque reading; the shipped sensors add no torque noise) and
+    measured cuff wrenches.
+    """
+    run = load_run(folder)
+    a, names = run.arrays, run.meta["cuffs"]
+    return [Measurement(float(a["t"][k]), a["q_exo_meas"][k], a["dq_exo_meas"][k], a["tau_applied"][k],
+                        {name: a["cuff_wrench_meas"][k, i] for i, name in enumerate(names)})
+            for k in range(len(a["t"]))]
+
+
+def replay(controller: HQPController, context: ControllerContext, measurements: Sequence[Measurement]):
+    """Reset ``controller`` and feed it ``measurements`` in order.
+
+    Returns
+    -------
+    tau : (n_ticks, nv) ndarray [N m]
+    solve_time_s : (n_ticks,) ndarray [s]
+        The controller's ``solve_time_s`` diagnostic per tick.
+    """
+    controller.reset(context)
+    nv = context.arm.nv
+    tau, times = np.zeros((len(measurements), nv)), np.zeros(len(measurements))
+    for k, m in enumerate(measurements):
+        tau[k] = controller.step(m)
+        times[k] = controller.diagnostics()["solve_time_s"]
+    if controller.fallback_count:
+        raise BenchError(f"controller {controller.name!r} fell back {controller.fallback_count} times in the "
+                         f"replay: {controller.last_fallback_reason}")
+    return tau, times
+
+
+# --------------------------------------------------------------------------------------------
+# the level-by-level cvxpy formulation
+
+
+@dataclass(frozen=True, eq=False)
+class StackRows:
+    r"""One tick of an HQP stack, as rows in :math:`x = [\ddot q; \tau]`.
+
+    Attributes
+    ----------
+    M : (nv, nv) ndarray
+        Joint-space inertia [kg m^2].
+    h : (nv,) ndarray
+        Bias torques [N m].
+    cuff_force : (nv,) ndarray
+        Generalized force of the measured cuff wrenches [N m].
+    tau_max : (nv,) ndarray
+        Torque limits [N m].
+    levels : list of (eq, ineq)
+        Per level, lists of ``(A, b, w)`` equality and ``(C, d, w)``
+        inequality entries, each A of shape (m, 2 nv).
+    """
+
+    M: np.ndarray
+    h: np.ndarray
+    cuff_force: np.ndarray
+    tau_max: np.ndarray
+    levels: list = field(default_factory=list)
+
+
+def stack_rows(controller: HQPController, measurement: Measurement) -> StackRows:
+    """The rows of ``controller``'s stack at ``measurement`` (the controller must have been reset).
+
+    Only the controller's tick state and tasks are used, not its solver.
+    """
+    s = controller.state
+    s.update(measurement)
+    levels = []
+    for tasks in controller.levels:
+        eq, ineq = [], []
+        for t in tasks:
+            r = t.rows(s)
+            if r is None:
+                continue
+            (eq if t.kind == "eq" else ineq).append((np.array(r[0], dtype=float), np.array(r[1], dtype=float),
+                                                      float(t.weight)))
+        levels.append((eq, ineq))
+    return StackRows(s.M.copy(), s.h.copy(), s.cuff_force.copy(), controller.context.arm.model.effortLimit.copy(),
+                     levels)
+
+
+def solve_levels_cvxpy(rows: StackRows, *, freeze_tol: float = 1e-9, solver: str = "CLARABEL") -> np.ndarray:
+    r"""Solve a stack level by level with cvxpy, as a user would write it by hand.
+
+    Hard constraints :math:`M \ddot q - \tau = \sum_c J_c^T w_c - h` and
+    :math:`|\tau| \le \tau_{max}`.  Level k solves
+
+    .. math::
+        \min_{x, v} \tfrac12 \sum_i w_i \|A_i x - b_i\|^2 + \tfrac12 \sum_j \omega_j \|v_j\|^2
+        \;\text{s.t.}\; C_j x - d_j \le v_j,\ \text{hard},\ \text{levels above frozen},
+
+    then freezes its optimum: :math:`|A_i x - b_i - e_i^\star| \le \epsilon` and
+    :math:`C_j x - d_j \le v_j^\star + \epsilon` with
+    :math:`e^\star = A x^\star - b`, :math:`v^\star = \max(C x^\star - d, 0)`
+    and :math:`\epsilon` = ``freeze_tol`` :math:`(1 + |b|)` (a small band so
+    that rounding cannot make a frozen level infeasible).  A last level
+    :math:`\min \tfrac12 \|x\|^2` makes the answer unique (Kanoun, Lamiraux &
+    Wieber 2011).
+
+    Returns
+    -------
+    (2 nv,) ndarray
+        :math:`x = [\ddot q; \tau]`.
+
+    Raises
+    ------
+    BenchError
+        If cvxpy is not installed or a level does not solve to optimality.
+    """
+    try:
+        import cvxpy as cp
+    except ImportError as e:
+        raise BenchError("the cvxpy comparison needs cvxpy: pip install cvxpy (part of the test extra)") from e
+    n = rows.M.shape[0]
+    x = cp.Variable(2 * n)
+    hard = [rows.M @ x[:n] - x[n:] == rows.cuff_force - rows.h, x[n:] <= rows.tau_max, x[n:] >= -rows.tau_max]
+    frozen: list = []
+
+    def solve(cost, cons, what):
+        prob = cp.Problem(cp.Minimize(cost), hard + frozen + cons)
+        try:
+            with warnings.catch_warnings():  # "solution may be inaccurate": the agreement check decides
+                warnings.simplefilter("ignore", UserWarning)
+                prob.solve(solver=solver)
+        except cp.error.SolverError as e:
+            raise BenchError(f"cvxpy ({solver}) failed on {what}: {e}") from e
+        if prob.status not in (cp.OPTIMAL, cp.OPTIMAL_INACCURATE) or x.value is None:
+            raise BenchError(f"cvxpy ({solver}) did not solve {what}: status {prob.status}")
+        return np.array(x.value)  # an inaccurate level is judged by the torque agreement of the caller
+
+    for k, (eq, ineq) in enumerate(rows.levels):
+        if not eq and not ineq:
+            continue
+        cost, cons = 0.0, []
+        for A, b, w in eq:
+            cost = cost + 0.5 * w * cp.sum_squares(A @ x - b)
+        for C, d, w in ineq:
+            v = cp.Variable(len(d))
+            cons.append(C @ x - d <= v)
+            cost = cost + 0.5 * w * cp.sum_squares(v)
+        xs = solve(cost, cons, f"level {k}")
+        for A, b, _ in eq:
+            e = A @ xs - b
+            frozen.append(cp.abs(A @ x - b - e) <= freeze_tol * (1.0 + np.abs(b)))
+        for C, d, _ in ineq:
+            v = np.maximum(C @ xs - d, 0.0)
+            frozen.append(C @ x - d <= v + freeze_tol * (1.0 + np.abs(d)))
+    return solve(0.5 * cp.sum_squares(x), [], "the minimum-norm level")
+
+
+def _context_and_measurements(scenario: Scenario, folder: Path):
+    asm = build_assembly(scenario)
+    return controller_context(asm, scenario.control_period_s), measurements_from_run(folder)
+
+
+def _sample(n: int, k: int) -> np.ndarray:
+    return np.unique(np.linspace(0, n - 1, min(k, n)).round().astype(int))
+
+
+def compare_cvxpy(scenario: Scenario, folder: str | Path, ticks: int, agreement_tol_Nm: float = 1e-5) -> dict:
+    """Our solver against :func:`solve_levels_cvxpy` on ``ticks`` evenly spaced ticks of a run.
+
+    Both see the same measurements; ours is replayed in order over the
+    sampled ticks (warm-starting from the previous sampled tick).  Our time is
+    the ``solve_time_s`` diagnostic (task rows included); cvxpy's is the
+    level-by-level build and solve (task rows excluded).
+
+    Raises
+    ------
+    BenchError
+        If the torques differ by more than ``agreement_tol_Nm`` on any tick.
+    """
+    context, meas = _context_and_measurements(scenario, Path(folder))
+    idx = _sample(len(meas), ticks)
+    sampled = [meas[k] for k in idx]
+    ours = make_controller("walls", scenario.variants, scenario.walls)
+    tau_ours, t_ours = replay(ours, context, sampled)
+    ref = make_controller("walls", scenario.variants, scenario.walls)
+    ref.reset(context)
+    n, n_tasks = context.arm.nv, sum(len(tasks) for tasks in ref.levels)
+    tau_cvx, t_cvx, wall_ticks = np.zeros_like(tau_ours), np.zeros(len(sampled)), 0
+    for i, m in enumerate(sampled):
+        rows = stack_rows(ref, m)
+        wall_ticks += sum(len(eq) + len(ineq) for eq, ineq in rows.levels) == n_tasks  # the wall is touched
+        t0 = time.perf_counter()
+        tau_cvx[i] = solve_levels_cvxpy(rows)[n:]
+        t_cvx[i] = time.perf_counter() - t0
+    diff = float(np.abs(tau_cvx - tau_ours).max())
+    if diff > agreement_tol_Nm:
+        k = int(np.unravel_index(np.argmax(np.abs(tau_cvx - tau_ours)), tau_ours.shape)[0])
+        raise BenchError(f"cvxpy and the HQP solver disagree by {diff:.3g} N m (tolerance {agreement_tol_Nm:g}) "
+                         f"at t = {sampled[k].t_s:.3f} s")
+    return {
+        "cvxpy_ticks": len(sampled),
+        "cvxpy_wall_contact_ticks": int(wall_ticks),
+        "cvxpy_max_torque_diff_Nm": diff,
+        "cvxpy_solve_median_us": float(np.median(t_cvx) * 1e6),
+        "hqp_solve_median_same_ticks_us": float(np.median(t_ours) * 1e6),
+        "cvxpy_speedup": float(np.median(t_cvx) / np.median(t_ours)),
+    }
+
+
+def compare_backends(scenario: Scenario, folder: str | Path, ticks: int) -> dict:
+    """Every installed QP backend on the same sampled ticks: solve times and agreement with the default."""
+    context, meas = _context_and_measurements(scenario, Path(folder))
+    sampled = [meas[k] for k in _sample(len(meas), ticks)]
+    out, ref = {}, None
+    for name in available_backends():
+        ctrl = make_controller("walls", scenario.variants, scenario.walls)
+        ctrl.solver = name
+        try:
+            tau, t = replay(ctrl, context, sampled)
+        except BenchError as e:
+            out[name] = {"error": str(e)}
+            continue
+        if ref is None:
+            ref = tau
+        out[name] = {"solve_median_us": float(np.median(t) * 1e6), "solve_p99_us": float(np.percentile(t, 99) * 1e6),
+                     "max_torque_diff_to_default_Nm": float(np.abs(tau - ref).max())}
+    return out
+
+
+# --------------------------------------------------------------------------------------------
+# growth with levels and joints
+
+
+def level_stacks(scenario: Scenario) -> dict[str, list]:
+    """Variants ``levels1`` .. ``levels6``: the reference stack growing one level at a time.
+
+    Level order: joint position limits, velocity limits, the scenario's
+    first wall, transparency, damping, a posture task (towards the start
+    posture).
+    """
+    wall = scenario.walls[0] if scenario.walls else None
+    spec = {"joint_limits": ["joint_limits"], "velocity_limits": ["velocity_limits"],
+            "wall": [wall] if wall is not None else ["damping"], "transparency": ["transparency"],
+            "damping": ["damping"],
+            "posture": [("posture", {"posture_rad": tuple(build_assembly(scenario).q_exo0)})]}
+    return {f"levels{k}": [spec[name] for name in _SERIES_LEVELS[:k]] for k in range(1, 7)}
+
+
+def _level_series(scenario: Scenario, work: Path, progress) -> list[dict]:
+    stacks = level_stacks(scenario)
+    sc = dataclasses.replace(scenario, variants=stacks, controllers=tuple(stacks))
+    out = []
+    for k, name in enumerate(stacks, start=1):
+        folder = work / f"levels{k}"
+        simulate(sc, name, folder)
+        st = tick_statistics(folder, sc.control_period_s)
+        out.append({"levels": k, "tick_time_median_us": st["tick_time_median_us"],
+                    "hqp_solve_median_us": st["hqp_solve_median_us"]})
+        progress(f"levels {k}: tick {st['tick_time_median_us']:.0f} us")
+    return out
+
+
+def chain_tick_times(n_joints: int, n_ticks: int, folder: str | Path, *, dt_s: float = 1e-3,
+                     substeps: int = 4) -> dict:
+    """Whole-tick wall times of an HQP controller on a serial chain without a wearer.
+
+    Tick: encoder sensing (:class:`~sim.sensors.JointSensing`), the controller
+    (joint position and velocity limits > transparency > damping, the
+    ``walls`` stack without a wall), ``substeps`` semi-implicit Euler steps of
+    the articulated-body algorithm under gravity, and logging of ``t``, q,
+    q̇ and τ (:class:`~sim.runlog.RunLog`).  The chain starts at 0.3 rad on
+    every joint, at rest.
+    """
+    arm = build_chain(ChainParams(n_joints=n_joints))
+    model, data = arm.model, arm.model.createData()
+    ctrl = HQPController([[JointPositionLimits(), JointVelocityLimits()], [Transparency()], [JointDamping()]],
+                         name=f"chain{n_joints}")
+    ctrl.reset(ControllerContext(arm=arm, cuff_frames={}, dt_s=dt_s))
+    sensing = JointSensing(EncoderParams(), arm.nv, dt_s, np.random.default_rng(0))
+    q, v = np.full(arm.nq, 0.3), np.zeros(arm.nv)
+    sensing.reset(q)
+    h = dt_s / substeps
+    times = np.zeros(n_ticks)
+    cols = {"t": (), "q": (arm.nq,), "dq": (arm.nv,), "tau_cmd": (arm.nv,)}
+    with RunLog(folder, cols) as log:
+        for k in range(n_ticks):
+            t0 = time.perf_counter()
+            qm, dqm, taum = sensing.measure(q, np.zeros(arm.nv))
+            tau = ctrl.step(Measurement(k * dt_s, qm, dqm, taum, {}))
+            log.append(t=k * dt_s, q=q, dq=v, tau_cmd=tau)
+            for _ in range(substeps):
+                a = pin.aba(model, data, q, v, tau)
+                v = v + h * a
+                q = pin.integrate(model, q, v * h)
+            times[k] = time.perf_counter() - t0
+    return {"joints": n_joints, "tick_time_median_us": float(np.median(times) * 1e6),
+            "tick_time_p99_us": float(np.percentile(times, 99) * 1e6), "fallbacks": ctrl.fallback_count}
+
+
+# --------------------------------------------------------------------------------------------
+# sweep throughput and memory (child processes)
+
+
+def sweep_throughput(scenario_path: str | Path, subjects: Sequence[str], controllers: Sequence[str], seeds: int,
+                     duration_s: float, out_dir: str | Path, jobs: int) -> dict:
+    """Wall time of a small sweep (controllers × subjects × seeds) with ``jobs`` worker processes.
+
+    Runs :func:`sim.sweep.run_sweep` as ``exosandbox sweep --jobs`` does:
+    with ``jobs=1`` in this process, otherwise in freshly spawned workers
+    (their start-up is part of the wall time, as for a user).
+    """
+    from .sweep import run_sweep
+
+    t0 = time.perf_counter()
+    result = run_sweep(str(scenario_path), list(controllers), list(subjects), seeds, out_dir=Path(out_dir), jobs=jobs,
+                       duration_s=duration_s)
+    wall = time.perf_counter() - t0
+    runs = len(controllers) * len(subjects) * seeds
+    failed = [c for c in result.results if c.error]
+    if failed:
+        raise BenchError(f"sweep with {jobs} jobs: {len(failed)} runs failed, e.g. {failed[0].error}")
+    return {"jobs": jobs, "runs": runs, "wall_s": wall, "runs_per_min": 60.0 * runs / wall}
+
+
+def _memory_child(scenario_path: str, duration_s: float, out: str) -> dict:
+    scenario = reference_scenario(scenario_path, duration_s)
+    run_scenario(scenario, "walls", out)
+    peak_kib = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss  # Linux: KiB
+    log = sum(p.stat().st_size for p in (Path(out) / "log").glob("*.npz"))
+    base = sum(p.stat().st_size for p in (Path(out) / "human_alone" / "log").glob("*.npz"))
+    return {"peak_kib": int(peak_kib), "log_bytes": int(log), "baseline_log_bytes": int(base)}
+
+
+def memory_run(scenario_path: str | Path, duration_s: float, out: str | Path) -> dict:
+    """Peak resident memory and log size of a reference run of ``duration_s``, in a fresh child process.
+
+    The child runs :func:`sim.simulate.run_scenario` (coupled run, human-alone
+    baseline, metrics) and reports ``resource.getrusage(RUSAGE_SELF).ru_maxrss``
+    (KiB on Linux), so the benchmark process itself does not count.
+    """
+    ctx = multiprocessing.get_context("spawn")
+    with concurrent.futures.ProcessPoolExecutor(max_workers=1, mp_context=ctx) as pool:
+        r = pool.submit(_memory_child, str(scenario_path), float(duration_s), str(out)).result()
+    per_min = 60.0 / duration_s
+    return {"memory_duration_s": duration_s, "peak_rss_MB": r["peak_kib"] * 1024 / 1e6,
+            "log_MB_per_min": r["log_bytes"] / 1e6 * per_min,
+            "baseline_log_MB_per_min": r["baseline_log_bytes"] / 1e6 * per_min}
+
+
+# --------------------------------------------------------------------------------------------
+# profile and the whole benchmark
+
+
+def profile_reference(scenario_path: str | Path, duration_s: float = 2.0, top: int = 25,
+                      folder: str | Path | None = None) -> str:
+    """cProfile of the reference case: the ``top`` entries by own time, as text."""
+    scenario = reference_scenario(scenario_path, duration_s)
+    with tempfile.TemporaryDirectory() as tmp:
+        prof = cProfile.Profile()
+        prof.enable()
+        simulate(scenario, "walls", Path(folder) if folder is not None else Path(tmp) / "profile")
+        prof.disable()
+    buf = io.StringIO()
+    pstats.Stats(prof, stream=buf).sort_stats("tottime").print_stats(top)
+    return buf.getvalue()
+
+
+def run_bench(scenario_path: str | Path, params: BenchParams | None = None, *, work_dir: str | Path | None = None,
+              progress: Callable[[str], None] | None = None) -> dict:
+    """Run every case and return the figures (keys as documented in the module docstring).
+
+    Parameters
+    ----------
+    scenario_path : path
+        The wall-push scenario file (``scenarios/wall_push.py``).
+    params : BenchParams, optional
+        Case sizes; default :class:`BenchParams` (``BenchParams.quick()`` for
+        a short run).
+    work_dir : path, optional
+        Where the run folders go; a temporary folder (removed) by default.
+    progress : callable(str), optional
+        Called with a short line after each case.
+    """
+    params = BenchParams() if params is None else params
+    if not isinstance(params, BenchParams):
+        raise ParameterError(f"run_bench: params must be a BenchParams, got {type(params).__name__}")
+    say = progress or (lambda _msg: None)
+    scenario_path = Path(scenario_path)
+    with tempfile.TemporaryDirectory() as tmp:
+        work = Path(work_dir) if work_dir is not None else Path(tmp)
+        work.mkdir(parents=True, exist_ok=True)
+        ref = reference_scenario(scenario_path, params.reference_duration_s)
+        report: dict = {"params": dataclasses.asdict(params), "scenario": ref.name, "cpu_count": os.cpu_count(),
+                        "substeps": ref.substeps, "control_period_s": ref.control_period_s}
+        ref_dir = work / "reference"
+        t0 = time.perf_counter()
+        simulate(ref, "walls", ref_dir)
+        report |= tick_statistics(ref_dir, ref.control_period_s)
+        report["reference_wall_s"] = time.perf_counter() - t0
+        say(f"reference: tick median {report['tick_time_median_us']:.0f} us, "
+            f"HQP median {report['hqp_solve_median_us']:.0f} us")
+        try:
+            report |= compare_cvxpy(ref, ref_dir, params.compare_ticks, params.agreement_tol_Nm)
+            say(f"cvxpy: speedup {report['cvxpy_speedup']:.0f}x")
+        except BenchError as e:
+            report |= {"cvxpy_speedup": None, "cvxpy_error": str(e)}
+            say(f"cvxpy: {e}")
+        report["backends"] = compare_backends(ref, ref_dir, params.compare_ticks)
+        say("backends: " + ", ".join(report["backends"]))
+        report["levels_series"] = _level_series(dataclasses.replace(ref, duration_s=params.series_duration_s),
+                                                work / "levels", say)
+        report["joints_series"] = []
+        for nj in params.chain_joints:
+            report["joints_series"].append(chain_tick_times(nj, params.chain_ticks, work / f"chain{nj}"))
+            say(f"joints {nj}: tick {report['joints_series'][-1]['tick_time_median_us']:.0f} us")
+        sweeps = [sweep_throughput(scenario_path, params.sweep_subjects, ("walls", "transparent"), params.sweep_seeds,
+                                   params.sweep_duration_s, work / f"sweep_jobs{j}", j) for j in (1, 2)]
+        report["sweep"] = sweeps
+        report["jobs2_speedup"] = sweeps[0]["wall_s"] / sweeps[1]["wall_s"]
+        say(f"sweep: jobs 2 speedup {report['jobs2_speedup']:.2f}")
+        report |= memory_run(scenario_path, params.memory_duration_s, work / "memory")
+        say(f"memory: peak {report['peak_rss_MB']:.0f} MB")
+    return report
+
+
+def _fmt(value, spec: str = ".1f") -> str:
+    return "n/a" if value is None else format(value, spec)
+
+
+def format_report(report: dict) -> str:
+    """The figures of :func:`run_bench` as a text table."""
+    r = report
+    lines = [
+        f"exosandbox bench: scenario {r['scenario']}, {r['params']['reference_duration_s']:g} s, "
+        f"{1 / r['control_period_s']:.0f} Hz control, {r['substeps']} substeps, {r['cpu_count']} CPUs",
+        "",
+        f"{'figure':<34} {'value':>12}",
+        f"{'tick_time_median_us':<34} {_fmt(r['tick_time_median_us']):>12}",
+        f"{'tick_time_p99_us':<34} {_fmt(r['tick_time_p99_us']):>12}",
+        f"{'hqp_solve_median_us':<34} {_fmt(r['hqp_solve_median_us']):>12}",
+        f"{'hqp_solve_p99_us':<34} {_fmt(r['hqp_solve_p99_us']):>12}",
+        f"{'realtime_factor':<34} {_fmt(r['realtime_factor'], '.2f'):>12}",
+        f"{'cvxpy_speedup':<34} {_fmt(r['cvxpy_speedup'], '.0f'):>12}",
+        f"{'jobs2_speedup':<34} {_fmt(r['jobs2_speedup'], '.2f'):>12}",
+        f"{'peak_rss_MB':<34} {_fmt(r['peak_rss_MB']):>12}",
+        f"{'log_MB_per_min':<34} {_fmt(r['log_MB_per_min']):>12}",
+    ]
+    if r.get("cvxpy_error"):
+        lines.append(f"  cvxpy: {r['cvxpy_error']}")
+    else:
+        lines.append(f"  cvxpy on {r['cvxpy_ticks']} ticks: median {r['cvxpy_solve_median_us']:.0f} us against "
+                     f"{r['hqp_solve_median_same_ticks_us']:.0f} us, largest torque difference "
+                     f"{r['cvxpy_max_torque_diff_Nm']:.2g} N m")
+    lines += ["", f"{'backend':<10} {'median us':>10} {'p99 us':>10} {'max |dtau| to default N m':>28}"]
+    for name, b in r["backends"].items():
+        if "error" in b:
+            lines.append(f"{name:<10} {b['error']}")
+        else:
+            lines.append(f"{name:<10} {b['solve_median_us']:>10.1f} {b['solve_p99_us']:>10.1f} "
+                         f"{b['max_torque_diff_to_default_Nm']:>28.2g}")
+    lines += ["", f"{'levels':<10} {'tick median us':>15} {'HQP median us':>15}"]
+    for p in r["levels_series"]:
+        lines.append(f"{p['levels']:<10} {p['tick_time_median_us']:>15.1f} {_fmt(p['hqp_solve_median_us']):>15}")
+    lines += ["", f"{'joints':<10} {'tick median us':>15} {'tick p99 us':>15}"]
+    for p in r["joints_series"]:
+        lines.append(f"{p['joints']:<10} {p['tick_time_median_us']:>15.1f} {p['tick_time_p99_us']:>15.1f}")
+    lines += ["", f"{'sweep jobs':<10} {'runs':>6} {'wall s':>10} {'runs/min':>10}"]
+    for s in r["sweep"]:
+        lines.append(f"{s['jobs']:<10} {s['runs']:>6} {s['wall_s']:>10.2f} {s['runs_per_min']:>10.1f}")
+    lines.append("  (sim.sweep.run_sweep; with 2 jobs the worker start-up counts)")
+    lines += ["", f"memory run of {r['memory_duration_s']:g} s: peak RSS {r['peak_rss_MB']:.0f} MB, log "
+              f"{r['log_MB_per_min']:.1f} MB per simulated minute (human-alone baseline "
+              f"{r['baseline_log_MB_per_min']:.1f} MB more)"]
+    return "\n".join(lines)

@@ -1,0 +1,107 @@
+"""The pieces of ``exosandbox bench`` on tiny inputs (no speed is asserted anywhere).
+
+* Order statistics of the tick times against numpy's own median and
+  percentile (linear interpolation, Hyndman & Fan 1996 definition 7, numpy's
+  default).
+* The replay of a run's logged measurements reproduces the logged torques bit
+  for bit (the benchmark's comparisons really run on the run's ticks).
+* The level-by-level cvxpy formulation agrees with our solver on a few ticks
+  (cvxpy with Clarabel as the independent optimiser).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from controllers.registry import make_controller
+from models.errors import ParameterError
+from sim.bench import (
+    BenchParams,
+    chain_tick_times,
+    compare_cvxpy,
+    level_stacks,
+    measurements_from_run,
+    replay,
+    tick_statistics,
+)
+from sim.cli import main
+from sim.runlog import load_run
+from sim.scenario import load_scenario
+from sim.simulate import build_assembly, controller_context, simulate
+
+SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
+
+
+@pytest.fixture(scope="module")
+def short_wall_run(tmp_path_factory):
+    sc = dataclasses.replace(load_scenario(SCENARIOS / "wall_push.py"), duration_s=0.05)
+    folder = tmp_path_factory.mktemp("bench") / "run"
+    simulate(sc, "walls", folder)
+    return sc, folder
+
+
+def test_tick_statistics_are_the_median_and_99th_percentile_of_the_timing_file(tmp_path):
+    tick = np.arange(1, 101) * 1e-6  # 1 .. 100 us
+    solve = tick / 2
+    np.savez(tmp_path / "timing.npz", tick_time_s=tick, controller_time_s=solve, diag_solve_time_s=solve)
+    st = tick_statistics(tmp_path, 1e-3)
+    assert st["tick_time_median_us"] == pytest.approx(50.5)  # mean of the 50th and 51st values
+    assert st["tick_time_p99_us"] == pytest.approx(99.01)  # 1 + 0.99 * 99, definition 7
+    assert st["hqp_solve_median_us"] == pytest.approx(25.25)
+    assert st["realtime_factor"] == pytest.approx(100 * 1e-3 / tick.sum())
+
+
+def test_replaying_a_runs_measurements_reproduces_its_logged_torques(short_wall_run):
+    sc, folder = short_wall_run
+    meas = measurements_from_run(folder)
+    ctx = controller_context(build_assembly(sc), sc.control_period_s)
+    tau, times = replay(make_controller("walls", sc.variants, sc.walls), ctx, meas)
+    logged = load_run(folder)["tau_cmd"]
+    assert len(meas) == sc.n_ticks
+    np.testing.assert_array_equal(tau, logged)
+    assert np.all(times > 0)
+
+
+def test_cvxpy_level_by_level_gives_the_same_torques_on_a_few_ticks(short_wall_run):
+    pytest.importorskip("cvxpy")
+    sc, folder = short_wall_run
+    out = compare_cvxpy(sc, folder, ticks=4, agreement_tol_Nm=1e-5)
+    assert out["cvxpy_ticks"] == 4
+    assert out["cvxpy_max_torque_diff_Nm"] < 1e-5
+
+
+def test_level_series_stacks_grow_by_one_level_in_the_documented_order():
+    sc = load_scenario(SCENARIOS / "wall_push.py")
+    stacks = level_stacks(sc)
+    assert list(stacks) == [f"levels{k}" for k in range(1, 7)]
+    assert [len(v) for v in stacks.values()] == [1, 2, 3, 4, 5, 6]
+    assert stacks["levels6"][2][0][0] == "wall_plane" and stacks["levels6"][5][0][0] == "posture"
+    for name in stacks:  # every stack builds into a controller
+        make_controller(name, stacks)
+
+
+def test_chain_ticks_run_the_hqp_stack_without_a_fallback(tmp_path):
+    out = chain_tick_times(14, 5, tmp_path / "chain")
+    assert out["joints"] == 14 and out["fallbacks"] == 0
+    assert out["tick_time_median_us"] > 0
+    assert load_run(tmp_path / "chain")["q"].shape == (5, 14)
+
+
+@pytest.mark.parametrize(("kwargs", "field"), [
+    ({"reference_duration_s": 0.0}, "reference_duration_s"),
+    ({"compare_ticks": 0}, "compare_ticks"),
+    ({"chain_joints": (7, 0)}, "chain_joints"),
+    ({"sweep_subjects": ()}, "sweep_subjects"),
+])
+def test_bad_bench_parameters_name_the_field(kwargs, field):
+    with pytest.raises(ParameterError, match=f"BenchParams.{field}"):
+        BenchParams(**kwargs)
+
+
+def test_bench_command_names_a_missing_scenario_file(tmp_path, capsys):
+    assert main(["bench", "--quick", "--scenario", str(tmp_path / "nope.py")]) == 1
+    assert "nope.py" in capsys.readouterr().err

@@ -1,0 +1,110 @@
+"""The HQP controller in q̈ alone (τ eliminated through the dynamics) against the 2 nv form and cvxpy.
+
+Eliminating τ = M q̈ + c leaves every level's feasible set and cost the same
+as functions of q̈, so the torques must agree with
+
+* the same controller in x = [q̈; τ] with the dynamics as hard equalities, and
+* an independent optimiser: the stack solved level by level with cvxpy
+  (:func:`sim.bench.solve_levels_cvxpy`, Kanoun, Lamiraux & Wieber 2011,
+  interior-point solver Clarabel),
+
+on random states that touch the wall, sit near joint limits and saturate
+torques. Tolerance 1e-5 N m (the issue's agreement figure).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import models
+from controllers.base import ControllerContext
+from controllers.registry import make_controller
+from models.records import Measurement
+
+pytest.importorskip("cvxpy")
+from sim.bench import solve_levels_cvxpy, stack_rows  # noqa: E402
+
+TOL_NM = 1e-5
+WALL = (("wall_plane", {"point_m": (0.40, 0.0, 0.0), "normal": (1.0, 0.0, 0.0), "law": (600.0, 5.0)}),)
+
+
+def _context():
+    arm = models.build_exo()
+    cuffs = {"upper_arm": "exo_cuff_upper_arm", "forearm": "exo_cuff_forearm", "hand": "exo_cuff_hand"}
+    return arm, ControllerContext(arm=arm, cuff_frames=cuffs)
+
+
+def _states(arm, n, seed):
+    rng = np.random.default_rng(seed)
+    lo, hi = arm.position_limits()
+    for k in range(n):
+        q = rng.uniform(lo, hi)
+        if k % 3 == 0:  # close to a joint limit, moving towards it
+            j = rng.integers(7)
+            q[j] = hi[j] - 0.03
+        dq = rng.normal(scale=1.0, size=7)
+        w = {c: rng.normal(scale=15.0 if k % 4 == 0 else 3.0, size=6) for c in ("upper_arm", "forearm", "hand")}
+        yield Measurement(0.0, q, dq, np.zeros(7), w)
+
+
+def test_eliminated_torque_form_gives_the_torques_of_the_two_nv_form_and_of_cvxpy():
+    arm, ctx = _context()
+    fast = make_controller("walls", walls=WALL)
+    full = make_controller("walls", walls=WALL)
+    full.eliminate_torque = False
+    ref = make_controller("walls", walls=WALL)
+    for c in (fast, full, ref):
+        c.reset(ctx)
+    touched = saturated = 0
+    for m in _states(arm, 12, seed=7):
+        tau_fast = fast.step(m)
+        tau_full = full.step(m)
+        rows = stack_rows(ref, m)
+        tau_cvx = solve_levels_cvxpy(rows)[7:]
+        assert fast.diagnostics()["fallback"] == 0.0 and full.diagnostics()["fallback"] == 0.0
+        assert np.abs(tau_fast - tau_full).max() < TOL_NM
+        assert np.abs(tau_fast - tau_cvx).max() < TOL_NM
+        assert np.all(np.abs(tau_fast) <= arm.model.effortLimit)
+        touched += bool(rows.levels[1][0])
+        saturated += bool(np.any(np.abs(tau_cvx) > arm.model.effortLimit - 1e-6))
+    assert touched >= 1  # the wall row took part at least once
+    assert saturated >= 1  # and a torque limit bound
+
+
+def test_a_task_row_on_the_torques_is_carried_through_the_elimination():
+    # gravity as a torque task (A acts on tau only): tau = g(q) exactly in both forms
+    from controllers.hqp_controller import HQPController
+    from controllers.tasks import GravityTorque, JointDamping
+
+    arm, ctx = _context()
+    rng = np.random.default_rng(3)
+    for eliminate in (True, False):
+        c = HQPController([[GravityTorque()], [JointDamping()]], eliminate_torque=eliminate)
+        c.reset(ctx)
+        q = rng.uniform(*arm.position_limits())
+        m = Measurement(0.0, q, np.zeros(7), np.zeros(7), {k: np.zeros(6) for k in ("upper_arm", "forearm", "hand")})
+        tau = c.step(m)
+        import pinocchio as pin
+
+        g = pin.computeGeneralizedGravity(arm.model, arm.model.createData(), q)  # pinocchio's RNEA gravity
+        np.testing.assert_allclose(tau, g, atol=1e-8)
+
+
+def test_working_set_step_gives_the_backends_torques_and_is_used():
+    # the checked active-set step replaces backend calls; it must give the backend's answer (and cvxpy's, above)
+    from controllers.hqp import HQPParams
+
+    arm, ctx = _context()
+    step = make_controller("walls", walls=WALL)
+    backend = make_controller("walls", walls=WALL)
+    backend.params = HQPParams(working_set_step=False)
+    for c in (step, backend):
+        c.reset(ctx)
+    used = 0
+    for m in _states(arm, 12, seed=21):
+        tau_step, tau_backend = step.step(m), backend.step(m)
+        assert np.abs(tau_step - tau_backend).max() < TOL_NM
+        used += "working-set" in step.last_result.level_methods
+        assert "working-set" not in backend.last_result.level_methods
+    assert used >= 1
