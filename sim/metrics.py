@@ -233,7 +233,11 @@ def wall_metrics(arrays: Mapping[str, np.ndarray], *, point_m, normal, stiffness
     and of the robot's (``wall_stiffness_rendered_robot_N_per_m``); the energy
     and bounce keys use the human's hand, since they are what the wearer meets.
     ``wall_energy_returned_J`` is the largest :func:`wall_cycle_energy_returned_J`
-    over the finished contacts (None if there is none).
+    over the finished contacts, each taken from rest to rest
+    (:func:`rest_to_rest`); None if there is none.  It is the energy along the
+    wall normal only: for a push it tells an active wall, but when the hand also
+    moves along the wall (a slide) the robot's coupled inertia can move energy
+    between directions, so read it against a variant without the wall.
     """
     n = np.asarray(normal, dtype=float)
     n = n / np.linalg.norm(n)
