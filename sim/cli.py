@@ -81,8 +81,8 @@ def build_parser() -> argparse.ArgumentParser:
     b = sub.add_parser("bench", help="measure tick time, solver speed, growth, sweep throughput and memory")
     b.add_argument("--quick", action="store_true", help="the same cases, shorter (under a minute)")
     b.add_argument("--json", metavar="FILE", help="also write the figures to FILE as JSON")
-    b.add_argument("--scenario", metavar="FILE", default="scenarios/wall_push.py",
-                   help="the wall-push scenario file (default: scenarios/wall_push.py)")
+    b.add_argument("--scenario", metavar="FILE",
+                   help="the wall-push scenario file (default: the shipped scenarios/wall_push.py)")
     b.add_argument("--profile", type=int, metavar="N", default=0,
                    help="only profile the reference case (cProfile) and print its top N entries")
     b.set_defaults(func=_cmd_bench)
@@ -262,9 +262,12 @@ def _cmd_bench(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
 
     from .bench import BenchParams, format_report, profile_reference, run_bench
 
+    if args.scenario is None:
+        import scenarios
+
+        args.scenario = str(Path(scenarios.__file__).parent / "wall_push.py")
     if not Path(args.scenario).is_file():
-        raise _UserError(f"scenario file {args.scenario!r} does not exist (run from the repository root "
-                         "or give --scenario)")
+        raise _UserError(f"scenario file {args.scenario!r} does not exist")
     if args.profile < 0:
         parser.error(f"--profile must be >= 0, got {args.profile}")
     params = BenchParams.quick() if args.quick else BenchParams()
@@ -277,6 +280,7 @@ def _cmd_bench(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
         except OSError as e:
             raise _UserError(f"cannot write {args.json!r}: {e.strerror or e}") from e
     return format_report(report)
+
 
 def _fresh_folder(base: Path) -> Path:
     out, k = base, 1
