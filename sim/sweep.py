@@ -289,11 +289,14 @@ def _bar(total: int):
 
 # -- tables ---------------------------------------------------------------------------------
 def run_rows(results: Sequence[CaseResult]) -> list[dict]:
-    """One flat row per run: controller, subject, seed, status, error, then every scalar metric."""
+    """One flat row per run: controller, subject, seed, status, error, folder (relative to the sweep's), then every
+    scalar metric."""
     rows = []
     for r in results:
         row = {"controller": r.case.controller, "subject": r.case.subject, "seed": r.case.seed,
-               "status": "ok" if r.ok else "failed", "error": r.error or "", "wall_time_s": round(r.wall_time_s, 3)}
+               "status": "ok" if r.ok else "failed", "error": r.error or "",
+               "folder": f"{r.case.controller}/{r.case.subject}/seed{r.case.seed}",
+               "wall_time_s": round(r.wall_time_s, 3)}
         if r.metrics is not None:
             row |= flat_metrics(r.metrics)
         rows.append(row)
