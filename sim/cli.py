@@ -96,7 +96,7 @@ def build_parser() -> argparse.ArgumentParser:
     k.add_argument("--controller", action="append", default=[], metavar="NAME",
                    help="with a scenario: a controller variant to run (repeat; default: all the scenario's)")
     k.add_argument("--seed", type=int, metavar="N", help="with a scenario: random seed (default: the scenario's)")
-    k.add_argument("--out", metavar="DIR", help="output folder (default: runs/compare-N)")
+    k.add_argument("--out", metavar="DIR", help="output folder (default: runs/compare, then runs/compare-2, ...)")
     k.set_defaults(func=_cmd_compare)
 
     w = sub.add_parser("sweep", help="run a scenario for every controller x subject x seed, in parallel",
@@ -111,7 +111,7 @@ def build_parser() -> argparse.ArgumentParser:
     w.add_argument("--jobs", type=int, metavar="N", help="local worker processes (default: all cores)")
     w.add_argument("--dask", metavar="ADDRESS", help="run on an existing Dask scheduler, e.g. tcp://host:8786")
     w.add_argument("--duration", type=float, metavar="S", help="override the scenario's duration [s]")
-    w.add_argument("--out", metavar="DIR", help="output folder (default: runs/sweep-SCENARIO-N)")
+    w.add_argument("--out", metavar="DIR", help="output folder (default: runs/sweep-SCENARIO, then -2, -3, ...)")
     w.set_defaults(func=_cmd_sweep)
     return p
 
