@@ -302,26 +302,18 @@ def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: f
     With :math:`u_k = v_k / \\lVert v_k \\rVert` the movement direction (ticks
     faster than ``min_speed_m_s``; 0.05 m/s, common practice),
     :math:`F_k = -f_k \\cdot u_k` the hand-cuff force the human feels against
-    the motion and :math:`a_k = \\ddot p_k \\cdot u_k`, fit the model of a point
-    mass m in a static force field linear in the hand position
-    (``numpy.linalg.lstsq``):
-
-    .. math:: F_k = m\\, a_k + (f_0 + G (p_k - \\bar p)) \\cdot u_k
-
-    The field :math:`f_0 + G (p - \\bar p)` (3 + 9 coefficients) takes up every
-    force that depends on where the hand is rather than on how it accelerates:
-    a weight left uncompensated (which varies with the posture), a wall's
-    spring, a preload; so m is the felt inertia alone.  This is the usual
-    mass-spring regression of impedance identification, with the spring
-    generalised to a linear field (common practice).  A felt viscous drag is not
-    separated (a drag column made the fit unstable on coupled runs) and biases m
-    where speed and acceleration along the path are correlated.  A robot that feels like a
-    point mass m at the hand gives m; a transparent one gives 0.  Velocity and
-    acceleration are central differences of the hand position
-    (``numpy.gradient``), force and acceleration both smoothed by the same
-    centred moving average of ``smooth_s`` (so that noise in the regressor does
-    not bias the slope toward zero).  None when fewer than 50 ticks move or the
-    acceleration does not vary.
+    the motion and :math:`a_k = \\ddot p_k \\cdot u_k`, fit
+    :math:`F = m\\,a + m_g\\, g\\, (\\hat z \\cdot u) + c` (``numpy.linalg.lstsq``): a point mass
+    m moved along u needs :math:`m (a + g \\hat z) \\cdot u`; the separate
+    :math:`m_g` keeps an uncompensated (or compensated) weight from passing for
+    inertia, and c absorbs a steady offset.  The gravity column is used only when
+    the movement has a vertical part (std of :math:`\\hat z \\cdot u` > 0.05).
+    A robot that feels like a point mass m at the hand gives m; a transparent
+    one gives 0.  Velocity and acceleration are central differences of the
+    hand position (``numpy.gradient``), force and acceleration both smoothed by
+    the same centred moving average of ``smooth_s`` (so that noise in the
+    regressor does not bias the slope toward zero).  None when fewer than 50
+    ticks move or the acceleration does not vary.
     """
     p = np.asarray(p_hand_m, dtype=float)
     f = np.asarray(force_on_human_N, dtype=float)
@@ -340,8 +332,9 @@ def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: f
     F = -np.einsum("ki,ki->k", f[sel], u)
     if np.ptp(acc) < 1e-6:
         return None
-    dp = p[sel] - p[sel].mean(axis=0)
-    cols = [acc, *u.T, *(u[:, i] * dp[:, j] for i in range(3) for j in range(3))]
+    cols = [acc, np.ones_like(acc)]
+    if np.std(u[:, 2]) > 0.05:
+        cols.append(9.81 * u[:, 2])
     return float(np.linalg.lstsq(np.column_stack(cols), F, rcond=None)[0][0])
 
 

@@ -131,19 +131,6 @@ def test_felt_mass_is_not_confused_by_a_felt_weight():
     assert apparent_mass_kg(force_on_human, x[:, None] * u, DT) == pytest.approx(m, rel=0.02)
 
 
-def test_felt_mass_out_and_back_through_a_spring():
-    # Newton with Hooke: F = m a + k x along an out-and-back reach; the position-dependent (spring) force must not
-    # pass for inertia
-    t = np.arange(0, 2.4, DT)
-    x = np.where(t < 1.2, _min_jerk(t, 1.0, 0.3)[0], 0.3 - _min_jerk(t - 1.2, 1.0, 0.3)[0])
-    v = np.gradient(x, DT)
-    a = np.gradient(v, DT)
-    u = np.array([0.0, 0.6, 0.8])
-    m, k = 0.8, 40.0
-    force_on_human = -(m * a + k * x)[:, None] * u
-    assert apparent_mass_kg(force_on_human, x[:, None] * u, DT) == pytest.approx(m, rel=0.02)
-
-
 def test_compensation_shares_recover_known_mixture():
     rng = np.random.default_rng(3)
     g, mddq = rng.normal(size=(500, 7)), rng.normal(size=(500, 7))
