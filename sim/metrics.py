@@ -314,6 +314,12 @@ def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: f
     the same centred moving average of ``smooth_s`` (so that noise in the
     regressor does not bias the slope toward zero).  None when fewer than 50
     ticks move or the acceleration does not vary.
+
+    The weight column holds a constant felt weight only.  A weight that varies
+    with the posture (a robot left uncompensated) is confounded with inertia on
+    paths that go out and back the same way, so :func:`run_metrics` reports
+    None when more than half the robot's weight is left to the wearer
+    (``gravity_share_left > 0.5``); inside a wall, the wall's spring counts too.
     """
     p = np.asarray(p_hand_m, dtype=float)
     f = np.asarray(force_on_human_N, dtype=float)
@@ -510,6 +516,10 @@ def run_metrics(
         out["interaction_power_peak_W"] = float(np.abs(P).max()) if n else 0.0
         out["gravity_share_left"], out["inertia_share_left"] = compensation_shares(
             robot_terms["tau_interaction"], robot_terms["tau_gravity"], robot_terms["tau_inertia"])
+        if out["gravity_share_left"] is not None and out["gravity_share_left"] > 0.5:
+            # most of the robot's weight is left to the wearer: that posture-dependent force is confounded with
+            # inertia on out-and-back paths, and the fit of apparent_mass_kg means nothing (see its docstring)
+            out["apparent_mass_hand_kg"] = None
     if limits_rad is not None:
         lo, hi = limits_rad
         out["joint_limit_violation_count"] = joint_limit_violation_count(arrays["q_exo"], lo, hi)
