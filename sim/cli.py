@@ -262,10 +262,8 @@ def _cmd_bench(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
 
     from .bench import BenchParams, format_report, profile_reference, run_bench
 
-    if args.scenario is None:
-        import scenarios
-
-        args.scenario = str(Path(scenarios.__file__).parent / "wall_push.py")
+    if args.scenario is None:  # the shipped file, installed beside this package (not imported: sim never imports it)
+        args.scenario = str(Path(__file__).resolve().parents[1] / "scenarios" / "wall_push.py")
     if not Path(args.scenario).is_file():
         raise _UserError(f"scenario file {args.scenario!r} does not exist")
     if args.profile < 0:
