@@ -206,14 +206,12 @@ def compare_runs(run_dirs: Sequence[str | Path], out_dir: str | Path, labels: Se
     labels and the Markdown report's path.
     """
     from . import plots
-    from .runlog import load_run
+    from .runlog import RunLogError, load_run
     from .sweep import write_csv
 
     runs = [load_run(d) for d in run_dirs]
     for d, r in zip(run_dirs, runs):
         if not r.metrics:
-            from .runlog import RunLogError
-
             raise RunLogError(f"{d}: no metrics.json (not a finished 'exosandbox run' folder)")
     if labels is None:
         labels = [str(r.meta.get("controller")) for r in runs]
