@@ -103,6 +103,11 @@ def solve_time_histograms(times_s: Mapping[str, np.ndarray], path: Path) -> Path
         for label, v in data.items():
             ax.hist(v, bins=edges, histtype="step", lw=1.2, label=f"{label} (median {np.median(v):.0f} us)")
         ax.set_xscale("log")
+        from matplotlib.ticker import LogLocator, NullFormatter, StrMethodFormatter
+
+        ax.xaxis.set_major_locator(LogLocator(subs=(1.0, 2.0, 5.0)))  # 100, 200, 500, 1000 ... in plain numbers
+        ax.xaxis.set_major_formatter(StrMethodFormatter("{x:g}"))
+        ax.xaxis.set_minor_formatter(NullFormatter())
         ax.legend(fontsize=8)
     else:
         ax.text(0.5, 0.5, "no QP in these controllers", ha="center", va="center", transform=ax.transAxes)
