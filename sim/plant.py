@@ -128,6 +128,16 @@ class CoupledPlant:
             self._fext_e.append(pin.Force.Zero())
         for _ in range(mh.njoints):
             self._fext_h.append(pin.Force.Zero())
+        # live references into the Data: each joint placement and velocity of a cuff's parent joint, and the
+        # vector of each external force that aba reads (fixed-size storage, so they stay valid)
+        self._oMi_e = [self._de.oMi[j] for j in self._exo_joint]
+        self._oMi_h = [self._dh.oMi[j] for j in self._hum_joint]
+        self._v_je = [self._de.v[j].vector for j in self._exo_joint]
+        self._v_jh = [self._dh.v[j].vector for j in self._hum_joint]
+        self._fext_e_vec = [(self._fext_e[j].vector, ks) for j, ks in self._exo_groups]
+        self._fext_h_vec = [(self._fext_h[j].vector, ks) for j, ks in self._hum_groups]
+        self._damping = np.array(me.damping)  # constant: read once
+        self._coulomb = np.array(me.friction)
         self.q_exo = assembly.q_exo0.copy()
         self.v_exo = np.zeros(me.nv)
         self.q_human = assembly.q_human0.copy()
@@ -169,17 +179,13 @@ class CoupledPlant:
         if not self.cuffs:
             self.cuff_energy_J = self.cuff_power_W = 0.0
             return
-        de, dh = self._de, self._dh
         aMb, oMb_rot = [], []
-        v_je = np.empty((len(self.cuffs), 6))
-        v_jh = np.empty((len(self.cuffs), 6))
-        for k in range(len(self.cuffs)):
-            je, jh = self._exo_joint[k], self._hum_joint[k]
-            oMb = dh.oMi[jh] * self._hum_place[k]
-            aMb.append((de.oMi[je] * self._exo_place[k]).actInv(oMb))
+        for oMi_e, P_e, oMi_h, P_h in zip(self._oMi_e, self._exo_place, self._oMi_h, self._hum_place):
+            oMb = oMi_h * P_h
+            aMb.append((oMi_e * P_e).actInv(oMb))
             oMb_rot.append(oMb.rotation)
-            v_je[k] = de.v[je].vector
-            v_jh[k] = dh.v[jh].vector
+        v_je = np.array(self._v_je)
+        v_jh = np.array(self._v_jh)
         v_a = (self._exo_place_inv @ v_je[:, :, None])[:, :, 0]  # each cuff frame's own (LOCAL) velocity
         v_b = (self._hum_place_inv @ v_jh[:, :, None])[:, :, 0]
         w_a, w_b, energy, power = cuff_wrenches(aMb, v_a, v_b, self._k_diag, self._d_diag)
@@ -200,18 +206,17 @@ class CoupledPlant:
     def _friction(self) -> np.ndarray:
         if not self.params.exo_friction:
             return self._zero_e
-        m = self.exo.model
-        return -m.damping * self.v_exo - m.friction * np.tanh(self.v_exo / self.params.coulomb_smoothing_rad_s)
+        return -self._damping * self.v_exo - self._coulomb * np.tanh(self.v_exo / self.params.coulomb_smoothing_rad_s)
 
     # -- dynamics ----------------------------------------------------------------------
     def substep(self, tau_exo_Nm: np.ndarray, tau_human_Nm: np.ndarray, dt_s: float) -> None:
         """Advance both arms by ``dt_s`` with the given joint torques held constant."""
         self.update_cuffs()
         # only joints that carry a cuff ever hold an external force; the others stay zero
-        for j, ks in self._exo_groups:
-            self._fext_e[j] = pin.Force(self._fj_e[ks[0]] if len(ks) == 1 else self._fj_e[ks].sum(axis=0))
-        for j, ks in self._hum_groups:
-            self._fext_h[j] = pin.Force(self._fj_h[ks[0]] if len(ks) == 1 else self._fj_h[ks].sum(axis=0))
+        for f, ks in self._fext_e_vec:  # written in place into the force vectors aba reads
+            f[:] = self._fj_e[ks[0]] if len(ks) == 1 else self._fj_e[ks].sum(axis=0)
+        for f, ks in self._fext_h_vec:
+            f[:] = self._fj_h[ks[0]] if len(ks) == 1 else self._fj_h[ks].sum(axis=0)
         if self.has_exo:
             me = self.exo.model
             a = pin.aba(me, self._de, self.q_exo, self.v_exo, tau_exo_Nm + self._friction(), self._fext_e)
