@@ -28,7 +28,7 @@ import pinocchio as pin
 from models._checks import in_range, nonnegative, positive
 from models.arm import ArmModel
 from models.coupling import Assembly
-from models.cuffs import cuff_wrenches
+from models.cuffs import _cuff_energy_terms, _cuff_power_terms, _cuff_wrench_terms
 
 __all__ = ["PlantParams", "CoupledPlant", "PlantMode"]
 
@@ -145,10 +145,11 @@ class CoupledPlant:
         #: Per cuff, the last wrench on the human [f; tau] in the human cuff frame, and on the robot in its frame.
         self.wrench_on_human = np.zeros((len(self.cuffs), 6))
         self.wrench_on_exo = np.zeros((len(self.cuffs), 6))
-        #: Per cuff, the force on the human in world axes [N].
-        self.force_on_human_world = np.zeros((len(self.cuffs), 3))
-        self.cuff_energy_J = 0.0
-        self.cuff_power_W = 0.0
+        # per cuff, the force on the human in world axes [N]; it, the spring energy and the power are
+        # computed from the terms of the last update when first read (see the properties below)
+        self._force_world = np.zeros((len(self.cuffs), 3))
+        self._terms = None  # (oMb rotations, w_a, w_b, e, K e, v_a, v_b) of the last update, or None
+        self._world_fresh, self._energy_J, self._power_W = True, 0.0, 0.0
         self._zero_e = np.zeros(me.nv)
         self._cuffs_fresh = False
         self._hand = {}
@@ -177,7 +178,7 @@ class CoupledPlant:
         self._cuffs_fresh = True
         self._kinematics()
         if not self.cuffs:
-            self.cuff_energy_J = self.cuff_power_W = 0.0
+            self._terms, self._world_fresh, self._energy_J, self._power_W = None, True, 0.0, 0.0
             return
         aMb, oMb_rot = [], []
         for oMi_e, P_e, oMi_h, P_h in zip(self._oMi_e, self._exo_place, self._oMi_h, self._hum_place):
@@ -188,14 +189,39 @@ class CoupledPlant:
         v_jh = np.array(self._v_jh)
         v_a = (self._exo_place_inv @ v_je[:, :, None])[:, :, 0]  # each cuff frame's own (LOCAL) velocity
         v_b = (self._hum_place_inv @ v_jh[:, :, None])[:, :, 0]
-        w_a, w_b, energy, power = cuff_wrenches(aMb, v_a, v_b, self._k_diag, self._d_diag)
+        w_a, w_b, e, ke = _cuff_wrench_terms(aMb, v_a, v_b, self._k_diag, self._d_diag)
         self.wrench_on_exo[:] = w_a
         self.wrench_on_human[:] = w_b
-        self.force_on_human_world[:] = (np.array(oMb_rot) @ w_b[:, :3, None])[:, :, 0]
+        self._terms = (oMb_rot, w_a, w_b, e, ke, v_a, v_b)
+        self._world_fresh = self._energy_J = self._power_W = None
         # the same wrenches in the joint frames, where aba takes them
         self._fj_e = (self._exo_place_dual @ w_a[:, :, None])[:, :, 0]
         self._fj_h = (self._hum_place_dual @ w_b[:, :, None])[:, :, 0]
-        self.cuff_energy_J, self.cuff_power_W = float(energy.sum()), float(power.sum())
+
+    @property
+    def force_on_human_world(self) -> np.ndarray:
+        """(n_cuffs, 3) per cuff, the force on the human in world axes [N] (of the last cuff update)."""
+        if not self._world_fresh and self._terms is not None:
+            oMb_rot, _, w_b = self._terms[:3]
+            self._force_world[:] = (np.array(oMb_rot) @ w_b[:, :3, None])[:, :, 0]
+        self._world_fresh = True
+        return self._force_world
+
+    @property
+    def cuff_energy_J(self) -> float:
+        """Spring energy of all cuffs [J] at the last cuff update (:func:`models.cuffs.cuff_wrenches`)."""
+        if self._energy_J is None:
+            _, _, _, e, ke, _, _ = self._terms
+            self._energy_J = float(_cuff_energy_terms(e, ke).sum())
+        return self._energy_J
+
+    @property
+    def cuff_power_W(self) -> float:
+        """Power all cuffs draw from the two arms [W] at the last cuff update (:func:`models.cuffs.cuff_wrenches`)."""
+        if self._power_W is None:
+            _, w_a, w_b, _, _, v_a, v_b = self._terms
+            self._power_W = float(_cuff_power_terms(w_a, w_b, v_a, v_b).sum())
+        return self._power_W
 
     def hand_position(self, which: str) -> np.ndarray:
         """World position [m] of the hand point of ``"exo"`` or ``"human"`` (kinematics of the last update)."""
