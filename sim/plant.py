@@ -136,6 +136,9 @@ class CoupledPlant:
         self._v_jh = [self._dh.v[j].vector for j in self._hum_joint]
         self._fext_e_vec = [(self._fext_e[j].vector, ks) for j, ks in self._exo_groups]
         self._fext_h_vec = [(self._fext_h[j].vector, ks) for j, ks in self._hum_groups]
+        self._v_j = self._v_je + self._v_jh  # robot side first, then human side: as in the stacks below
+        self._place_inv = np.concatenate([self._exo_place_inv, self._hum_place_inv])
+        self._place_dual = np.concatenate([self._exo_place_dual, self._hum_place_dual])
         self._damping = np.array(me.damping)  # constant: read once
         self._coulomb = np.array(me.friction)
         self.q_exo = assembly.q_exo0.copy()
@@ -185,18 +188,17 @@ class CoupledPlant:
             oMb = oMi_h * P_h
             aMb.append((oMi_e * P_e).actInv(oMb))
             oMb_rot.append(oMb.rotation)
-        v_je = np.array(self._v_je)
-        v_jh = np.array(self._v_jh)
-        v_a = (self._exo_place_inv @ v_je[:, :, None])[:, :, 0]  # each cuff frame's own (LOCAL) velocity
-        v_b = (self._hum_place_inv @ v_jh[:, :, None])[:, :, 0]
+        nc = len(aMb)
+        v = (self._place_inv @ np.array(self._v_j)[:, :, None])[:, :, 0]  # each cuff frame's own (LOCAL) velocity
+        v_a, v_b = v[:nc], v[nc:]
         w_a, w_b, e, ke = _cuff_wrench_terms(aMb, v_a, v_b, self._k_diag, self._d_diag)
         self.wrench_on_exo[:] = w_a
         self.wrench_on_human[:] = w_b
         self._terms = (oMb_rot, w_a, w_b, e, ke, v_a, v_b)
         self._world_fresh = self._energy_J = self._power_W = None
         # the same wrenches in the joint frames, where aba takes them
-        self._fj_e = (self._exo_place_dual @ w_a[:, :, None])[:, :, 0]
-        self._fj_h = (self._hum_place_dual @ w_b[:, :, None])[:, :, 0]
+        fj = (self._place_dual @ np.concatenate((w_a, w_b))[:, :, None])[:, :, 0]
+        self._fj_e, self._fj_h = fj[:nc], fj[nc:]
 
     @property
     def force_on_human_world(self) -> np.ndarray:
