@@ -197,6 +197,12 @@ def cuff_wrenches(
     energy_J, power_W : (k,) ndarray
         Spring energy and power drawn from the bodies, as in :class:`CuffWrench`.
     """
+    w_a, w_b, e, ke = _cuff_wrench_terms(aMb, v_a, v_b, k_diag, d_diag)
+    return w_a, w_b, _cuff_energy_terms(e, ke), _cuff_power_terms(w_a, w_b, v_a, v_b)
+
+
+def _cuff_wrench_terms(aMb, v_a, v_b, k_diag, d_diag):
+    """Wrenches of :func:`cuff_wrenches` with the pose errors e and K e, (k, 6) each: energy and power left out."""
     k = len(aMb)
     e = np.empty((k, 6))
     J = np.empty((k, 6, 6))
@@ -211,8 +217,17 @@ def cuff_wrenches(
     w_b = -(np.swapaxes(J, 1, 2) @ (ke + d_diag * e_dot)[:, :, None])[:, :, 0]
     # force action A<-B is the transpose of the motion action B<-A
     w_a = -(np.swapaxes(X_ba, 1, 2) @ w_b[:, :, None])[:, :, 0]
-    power = -(np.einsum("ij,ij->i", w_a, v_a) + np.einsum("ij,ij->i", w_b, v_b))
-    return w_a, w_b, 0.5 * np.einsum("ij,ij->i", e, ke), power
+    return w_a, w_b, e, ke
+
+
+def _cuff_energy_terms(e, ke):
+    """(k,) spring energy of each cuff [J], :math:`\\tfrac12 e^T K e`, from e and K e."""
+    return 0.5 * np.einsum("ij,ij->i", e, ke)
+
+
+def _cuff_power_terms(w_a, w_b, v_a, v_b):
+    """(k,) power each cuff draws from its bodies [W], :math:`-(w_A \\cdot v_A + w_B \\cdot v_B)`."""
+    return -(np.einsum("ij,ij->i", w_a, v_a) + np.einsum("ij,ij->i", w_b, v_b))
 
 
 def cuff_energy(oMa: pin.SE3, oMb: pin.SE3, params: CuffParams) -> float:

@@ -28,7 +28,7 @@ import pinocchio as pin
 from models._checks import in_range, nonnegative, positive
 from models.arm import ArmModel
 from models.coupling import Assembly
-from models.cuffs import cuff_wrenches
+from models.cuffs import _cuff_energy_terms, _cuff_power_terms, _cuff_wrench_terms
 
 __all__ = ["PlantParams", "CoupledPlant", "PlantMode"]
 
@@ -128,6 +128,19 @@ class CoupledPlant:
             self._fext_e.append(pin.Force.Zero())
         for _ in range(mh.njoints):
             self._fext_h.append(pin.Force.Zero())
+        # live references into the Data: each joint placement and velocity of a cuff's parent joint, and the
+        # vector of each external force that aba reads (fixed-size storage, so they stay valid)
+        self._oMi_e = [self._de.oMi[j] for j in self._exo_joint]
+        self._oMi_h = [self._dh.oMi[j] for j in self._hum_joint]
+        self._v_je = [self._de.v[j].vector for j in self._exo_joint]
+        self._v_jh = [self._dh.v[j].vector for j in self._hum_joint]
+        self._fext_e_vec = [(self._fext_e[j].vector, ks) for j, ks in self._exo_groups]
+        self._fext_h_vec = [(self._fext_h[j].vector, ks) for j, ks in self._hum_groups]
+        self._v_j = self._v_je + self._v_jh  # robot side first, then human side: as in the stacks below
+        self._place_inv = np.concatenate([self._exo_place_inv, self._hum_place_inv])
+        self._place_dual = np.concatenate([self._exo_place_dual, self._hum_place_dual])
+        self._damping = np.array(me.damping)  # constant: read once
+        self._coulomb = np.array(me.friction)
         self.q_exo = assembly.q_exo0.copy()
         self.v_exo = np.zeros(me.nv)
         self.q_human = assembly.q_human0.copy()
@@ -135,10 +148,11 @@ class CoupledPlant:
         #: Per cuff, the last wrench on the human [f; tau] in the human cuff frame, and on the robot in its frame.
         self.wrench_on_human = np.zeros((len(self.cuffs), 6))
         self.wrench_on_exo = np.zeros((len(self.cuffs), 6))
-        #: Per cuff, the force on the human in world axes [N].
-        self.force_on_human_world = np.zeros((len(self.cuffs), 3))
-        self.cuff_energy_J = 0.0
-        self.cuff_power_W = 0.0
+        # per cuff, the force on the human in world axes [N]; it, the spring energy and the power are
+        # computed from the terms of the last update when first read (see the properties below)
+        self._force_world = np.zeros((len(self.cuffs), 3))
+        self._terms = None  # (oMb rotations, w_a, w_b, e, K e, v_a, v_b) of the last update, or None
+        self._world_fresh, self._energy_J, self._power_W = True, 0.0, 0.0
         self._zero_e = np.zeros(me.nv)
         self._cuffs_fresh = False
         self._hand = {}
@@ -167,29 +181,49 @@ class CoupledPlant:
         self._cuffs_fresh = True
         self._kinematics()
         if not self.cuffs:
-            self.cuff_energy_J = self.cuff_power_W = 0.0
+            self._terms, self._world_fresh, self._energy_J, self._power_W = None, True, 0.0, 0.0
             return
-        de, dh = self._de, self._dh
         aMb, oMb_rot = [], []
-        v_je = np.empty((len(self.cuffs), 6))
-        v_jh = np.empty((len(self.cuffs), 6))
-        for k in range(len(self.cuffs)):
-            je, jh = self._exo_joint[k], self._hum_joint[k]
-            oMb = dh.oMi[jh] * self._hum_place[k]
-            aMb.append((de.oMi[je] * self._exo_place[k]).actInv(oMb))
+        for oMi_e, P_e, oMi_h, P_h in zip(self._oMi_e, self._exo_place, self._oMi_h, self._hum_place):
+            oMb = oMi_h * P_h
+            aMb.append((oMi_e * P_e).actInv(oMb))
             oMb_rot.append(oMb.rotation)
-            v_je[k] = de.v[je].vector
-            v_jh[k] = dh.v[jh].vector
-        v_a = (self._exo_place_inv @ v_je[:, :, None])[:, :, 0]  # each cuff frame's own (LOCAL) velocity
-        v_b = (self._hum_place_inv @ v_jh[:, :, None])[:, :, 0]
-        w_a, w_b, energy, power = cuff_wrenches(aMb, v_a, v_b, self._k_diag, self._d_diag)
+        nc = len(aMb)
+        v = (self._place_inv @ np.array(self._v_j)[:, :, None])[:, :, 0]  # each cuff frame's own (LOCAL) velocity
+        v_a, v_b = v[:nc], v[nc:]
+        w_a, w_b, e, ke = _cuff_wrench_terms(aMb, v_a, v_b, self._k_diag, self._d_diag)
         self.wrench_on_exo[:] = w_a
         self.wrench_on_human[:] = w_b
-        self.force_on_human_world[:] = (np.array(oMb_rot) @ w_b[:, :3, None])[:, :, 0]
+        self._terms = (oMb_rot, w_a, w_b, e, ke, v_a, v_b)
+        self._world_fresh = self._energy_J = self._power_W = None
         # the same wrenches in the joint frames, where aba takes them
-        self._fj_e = (self._exo_place_dual @ w_a[:, :, None])[:, :, 0]
-        self._fj_h = (self._hum_place_dual @ w_b[:, :, None])[:, :, 0]
-        self.cuff_energy_J, self.cuff_power_W = float(energy.sum()), float(power.sum())
+        fj = (self._place_dual @ np.concatenate((w_a, w_b))[:, :, None])[:, :, 0]
+        self._fj_e, self._fj_h = fj[:nc], fj[nc:]
+
+    @property
+    def force_on_human_world(self) -> np.ndarray:
+        """(n_cuffs, 3) per cuff, the force on the human in world axes [N] (of the last cuff update)."""
+        if not self._world_fresh and self._terms is not None:
+            oMb_rot, _, w_b = self._terms[:3]
+            self._force_world[:] = (np.array(oMb_rot) @ w_b[:, :3, None])[:, :, 0]
+        self._world_fresh = True
+        return self._force_world
+
+    @property
+    def cuff_energy_J(self) -> float:
+        """Spring energy of all cuffs [J] at the last cuff update (:func:`models.cuffs.cuff_wrenches`)."""
+        if self._energy_J is None:
+            _, _, _, e, ke, _, _ = self._terms
+            self._energy_J = float(_cuff_energy_terms(e, ke).sum())
+        return self._energy_J
+
+    @property
+    def cuff_power_W(self) -> float:
+        """Power all cuffs draw from the two arms [W] at the last cuff update (:func:`models.cuffs.cuff_wrenches`)."""
+        if self._power_W is None:
+            _, w_a, w_b, _, _, v_a, v_b = self._terms
+            self._power_W = float(_cuff_power_terms(w_a, w_b, v_a, v_b).sum())
+        return self._power_W
 
     def hand_position(self, which: str) -> np.ndarray:
         """World position [m] of the hand point of ``"exo"`` or ``"human"`` (kinematics of the last update)."""
@@ -200,18 +234,17 @@ class CoupledPlant:
     def _friction(self) -> np.ndarray:
         if not self.params.exo_friction:
             return self._zero_e
-        m = self.exo.model
-        return -m.damping * self.v_exo - m.friction * np.tanh(self.v_exo / self.params.coulomb_smoothing_rad_s)
+        return -self._damping * self.v_exo - self._coulomb * np.tanh(self.v_exo / self.params.coulomb_smoothing_rad_s)
 
     # -- dynamics ----------------------------------------------------------------------
     def substep(self, tau_exo_Nm: np.ndarray, tau_human_Nm: np.ndarray, dt_s: float) -> None:
         """Advance both arms by ``dt_s`` with the given joint torques held constant."""
         self.update_cuffs()
         # only joints that carry a cuff ever hold an external force; the others stay zero
-        for j, ks in self._exo_groups:
-            self._fext_e[j] = pin.Force(self._fj_e[ks[0]] if len(ks) == 1 else self._fj_e[ks].sum(axis=0))
-        for j, ks in self._hum_groups:
-            self._fext_h[j] = pin.Force(self._fj_h[ks[0]] if len(ks) == 1 else self._fj_h[ks].sum(axis=0))
+        for f, ks in self._fext_e_vec:  # written in place into the force vectors aba reads
+            f[:] = self._fj_e[ks[0]] if len(ks) == 1 else self._fj_e[ks].sum(axis=0)
+        for f, ks in self._fext_h_vec:
+            f[:] = self._fj_h[ks[0]] if len(ks) == 1 else self._fj_h[ks].sum(axis=0)
         if self.has_exo:
             me = self.exo.model
             a = pin.aba(me, self._de, self.q_exo, self.v_exo, tau_exo_Nm + self._friction(), self._fext_e)
