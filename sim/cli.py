@@ -193,11 +193,7 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
         if out.exists() and (not out.is_dir() or any(out.iterdir())):
             raise _UserError(f"run folder {str(out)!r} already holds something; choose another --out")
     else:
-        base = Path("runs") / f"{scenario.name}-{controller}-seed{seed}"
-        out, k = base, 1
-        while out.exists():
-            k += 1
-            out = base.with_name(f"{base.name}-{k}")
+        out = _fresh_folder(Path("runs") / f"{scenario.name}-{controller}-seed{seed}")
     bar = _progress_bar(f"{scenario.name}/{controller}")
     viewer = _LazyViewer(out) if args.view else None
     try:
@@ -281,6 +277,7 @@ def _cmd_bench(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
 
 
 def _fresh_folder(base: Path) -> Path:
+    """``base``, or ``base-2``, ``base-3``, ... the first that does not exist yet."""
     out, k = base, 1
     while out.exists():
         k += 1
@@ -289,7 +286,7 @@ def _fresh_folder(base: Path) -> Path:
 
 
 def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
-    from .report import compare_runs, text_table
+    from .report import compare_runs, fmt, text_table
     from .runlog import load_run
 
     first = Path(args.inputs[0])
@@ -335,14 +332,8 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
             load_run(d)  # a clear error for a missing or broken folder, before anything is written
     rows, labels, md = compare_runs(run_dirs, out)
     table = text_table(["metric", "unit", *labels], [[r["key"], r["unit"]] + [
-        _fmt(r[lab]) + (" *" if r["best"] == lab else "") for lab in labels] for r in rows])
+        fmt(r[lab]) + (" *" if r["best"] == lab else "") for lab in labels] for r in rows])
     return f"{table}\n(* the better value)\nreport {md}, table {out / 'compare.csv'}, plots in {out / 'plots'}"
-
-
-def _fmt(v) -> str:
-    from .report import fmt
-
-    return fmt(v)
 
 
 #: Columns of the sweep table printed on the terminal (summary.md and summary.csv hold every summary metric).
@@ -351,7 +342,7 @@ _SWEEP_COLUMNS = ("interaction_force_rms_N", "apparent_mass_hand_kg", "human_eff
 
 
 def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
-    from .report import headline, text_table
+    from .report import fmt, headline, text_table
     from .scenario import load_scenario
     from .sweep import run_sweep
 
@@ -374,7 +365,7 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     keys = [k for k in _SWEEP_COLUMNS if any(r.get(f"{k}_mean") is not None for r in result.summary)]
     table = text_table(["controller", "subject", "ok", *keys], [
         [r["controller"], r["subject"], f"{r['n_ok']}/{r['n_ok'] + r['n_failed']}"]
-        + [_fmt(r[f"{k}_mean"]) + " ± " + _fmt(r[f"{k}_std"]) if r.get(f"{k}_mean") is not None else "n/a"
+        + [fmt(r[f"{k}_mean"]) + " ± " + fmt(r[f"{k}_std"]) if r.get(f"{k}_mean") is not None else "n/a"
            for k in keys] for r in result.summary])
     lines = [table, "(mean ± standard deviation over seeds; 'all' pools every subject; the full table is in "
              f"{out / 'summary.md'})", ""]

@@ -31,6 +31,8 @@ __all__ = [
     "wall_cycle_energy_returned_J",
     "rest_to_rest",
     "wall_bounce_count",
+    "hand_cuff_index",
+    "wall_normal_series",
     "wall_metrics",
     "interaction_power_W",
     "interaction_work_J",
@@ -223,6 +225,26 @@ def wall_bounce_count(penetration_m: np.ndarray, dt_s: float, window_s: float = 
     return sum(1 for (s0, _), (_, e1) in zip(contacts[1:], contacts[:-1]) if s0 - e1 <= gap)
 
 
+def hand_cuff_index(cuff_names: Sequence[str], sensor: str = "hand") -> int:
+    """Index of the cuff named ``sensor`` (the hand cuff by default); the last cuff if there is none so named."""
+    names = list(cuff_names)
+    return names.index(sensor) if sensor in names else len(names) - 1
+
+
+def wall_normal_series(arrays: Mapping[str, np.ndarray], point_m, normal, hand_cuff: int
+                       ) -> tuple[np.ndarray, np.ndarray]:
+    """Per tick, the human hand's penetration [m] of a plane and the wall-normal force it feels [N].
+
+    Penetration :func:`plane_penetration_m` of ``p_hand_human``; force
+    :math:`-n^T f` with f the hand cuff's force on the human in world axes
+    (positive when it pushes the hand out of the wall).
+    """
+    n = np.asarray(normal, dtype=float)
+    n = n / np.linalg.norm(n)
+    felt = -(np.asarray(arrays["cuff_force_human_world"])[:, hand_cuff, :] @ n)
+    return plane_penetration_m(arrays["p_hand_human"], point_m, n), felt
+
+
 def wall_metrics(arrays: Mapping[str, np.ndarray], *, point_m, normal, stiffness_N_per_m: float,
                  hand_cuff: int, dt_s: float) -> dict:
     """The wall keys of ``metrics.json`` for a plane wall.
@@ -239,11 +261,8 @@ def wall_metrics(arrays: Mapping[str, np.ndarray], *, point_m, normal, stiffness
     moves along the wall (a slide) the robot's coupled inertia can move energy
     between directions, so read it against a variant without the wall.
     """
-    n = np.asarray(normal, dtype=float)
-    n = n / np.linalg.norm(n)
-    felt = -(np.asarray(arrays["cuff_force_human_world"])[:, hand_cuff, :] @ n)
-    pen_h = plane_penetration_m(arrays["p_hand_human"], point_m, n)
-    pen_r = plane_penetration_m(arrays["p_hand_exo"], point_m, n)
+    pen_h, felt = wall_normal_series(arrays, point_m, normal, hand_cuff)
+    pen_r = plane_penetration_m(arrays["p_hand_exo"], point_m, normal)
     speed = np.linalg.norm(np.gradient(np.asarray(arrays["p_hand_human"]), dt_s, axis=0), axis=1) \
         if len(pen_h) > 2 else np.zeros(len(pen_h))
     cycles = []
@@ -481,8 +500,7 @@ def run_metrics(
         lim = limits.get(name)
         c["force_limit_N"] = lim
         c["force_limit_ratio"] = c["force_peak_N"] / lim if lim else None
-    hand = (cuff_names.index("hand") if "hand" in cuff_names else len(cuff_names) - 1) if hand_cuff is None \
-        else hand_cuff
+    hand = hand_cuff_index(cuff_names) if hand_cuff is None else hand_cuff
     torque = interaction_torque_norm_Nm(w_h)
     out = {
         "sim_duration_s": n * dt_s,

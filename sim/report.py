@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .metrics import METRICS, flat_metrics, interaction_force_norm_N, plane_penetration_m
+from .metrics import METRICS, flat_metrics, hand_cuff_index, interaction_force_norm_N, wall_normal_series
 
 __all__ = ["CAUTION", "best_index", "key_info", "comparison_rows", "markdown_table", "write_run_report",
            "compare_runs", "write_sweep_report"]
@@ -154,13 +154,8 @@ def _wall_spec(meta: Mapping) -> dict | None:
 
 
 def _wall_series(run, spec: Mapping) -> tuple[np.ndarray, np.ndarray]:
-    names = list(run.meta["cuffs"])
-    hand = names.index(spec.get("sensor", "hand")) if spec.get("sensor", "hand") in names else len(names) - 1
-    n = np.asarray(spec["normal"], dtype=float)
-    n = n / np.linalg.norm(n)
-    felt = -(np.asarray(run["cuff_force_human_world"])[:, hand, :] @ n)
-    pen = plane_penetration_m(run["p_hand_human"], spec["point_m"], n)
-    return pen, felt
+    hand = hand_cuff_index(run.meta["cuffs"], spec.get("sensor", "hand"))
+    return wall_normal_series(run.arrays, spec["point_m"], spec["normal"], hand)
 
 
 def write_run_report(folder: str | Path, metrics: Mapping | None = None) -> Path:

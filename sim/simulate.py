@@ -318,7 +318,7 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     """
     from models.arm import load_arm
 
-    from .metrics import BODY_REGION_FORCE_LIMITS_N, robot_interaction_terms
+    from .metrics import BODY_REGION_FORCE_LIMITS_N, hand_cuff_index, robot_interaction_terms
 
     out = Path(folder)
     run = load_run(out)
@@ -338,14 +338,14 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     cuff_names = list(meta["cuffs"])
     terms = robot_interaction_terms(arm, run.arrays, [models_meta["cuff_frames"][c][0] for c in cuff_names], dt)
     limits = dict(BODY_REGION_FORCE_LIMITS_N) | dict(force_limits_N or {})
-    hand = cuff_names.index(wall["sensor"]) if wall and wall.get("sensor") in cuff_names else None
+    hand = hand_cuff_index(cuff_names, wall.get("sensor", "hand") if wall else "hand")
     metrics = run_metrics(run.arrays, cuff_names=cuff_names, baseline=base.arrays if base else None, dt_s=dt,
                           tick_times_s=timing.get("tick_time_s", np.zeros(0)), timing=timing, robot_terms=terms,
                           limits_rad=arm.position_limits(), force_limits_N=limits, hand_cuff=hand)
     if wall is not None:
         metrics |= wall_metrics(run.arrays, point_m=wall["point_m"], normal=wall["normal"],
                                 stiffness_N_per_m=wall["stiffness_N_per_m"] if wall.get("rendered", True) else 0.0,
-                                hand_cuff=cuff_names.index(wall.get("sensor", "hand")), dt_s=dt)
+                                hand_cuff=hand, dt_s=dt)
         if not wall.get("rendered", True):  # a slope of force on penetration means nothing without a wall
             metrics["wall_stiffness_rendered_N_per_m"] = metrics["wall_stiffness_rendered_robot_N_per_m"] = None
     return metrics

@@ -255,7 +255,7 @@ def run_sweep(
     try:
         for r in runner:
             done[r.case.label] = r
-            _write_runs(out, [done[c.label] for c in cases if c.label in done])
+            write_csv(out / "runs.csv", run_rows([done[c.label] for c in cases if c.label in done]))
             if bar is not None:
                 bar.update(1)
                 bar.set_postfix_str(f"{len(done) - sum(x.ok for x in done.values())} failed", refresh=False)
@@ -301,11 +301,6 @@ def run_rows(results: Sequence[CaseResult]) -> list[dict]:
             row |= flat_metrics(r.metrics)
         rows.append(row)
     return rows
-
-
-def _write_runs(out: Path, results: Sequence[CaseResult]) -> None:
-    rows = run_rows(results)
-    write_csv(out / "runs.csv", rows)
 
 
 def write_csv(path: Path, rows: Sequence[dict]) -> None:
