@@ -96,6 +96,7 @@ import numpy as np
 
 from models.errors import ParameterError, SandboxError
 
+from . import _hqp_kernels as _kernels
 from .qp_backends import DEFAULT_BACKEND, QPSolveError, QPTolerances, get_backend
 
 __all__ = [
@@ -385,6 +386,11 @@ class HQPParams:
         violates rows, try one active-set step with the violated rows held
         as equalities and keep it only if it satisfies the level's optimality
         conditions (:meth:`_Solver._working_set_step`); exact when kept.
+    compiled : bool, default True
+        Take the closed-form and active-set paths of a level in one compiled
+        call (:mod:`controllers._hqp_kernels`, numba) when there are no box
+        bounds ``lb``/``ub``; the same arithmetic as the Python path, which
+        False selects (and which every level needing the backend takes).
     """
 
     tolerances: QPTolerances = field(default_factory=QPTolerances)
@@ -394,6 +400,7 @@ class HQPParams:
     multiplier_tol: float = 1e-6
     closed_form: bool = True
     working_set_step: bool = True
+    compiled: bool = True
 
     def __post_init__(self) -> None:
         if not isinstance(self.tolerances, QPTolerances):
@@ -402,7 +409,7 @@ class HQPParams:
             value = getattr(self, name)
             if not (isinstance(value, (int, float)) and np.isfinite(value) and 0 < value < 1):
                 raise ParameterError(f"HQPParams.{name} must be in (0, 1), got {value!r}")
-        for name in ("closed_form", "working_set_step"):
+        for name in ("closed_form", "working_set_step", "compiled"):
             if not isinstance(getattr(self, name), bool):
                 raise ParameterError(f"HQPParams.{name} must be a bool, got {getattr(self, name)!r}")
 
@@ -480,15 +487,21 @@ class _Constraints:
         self.G, self.h, self.lb, self.ub = G, h, lb, ub
         self.n_hard = G.shape[0]
         self._hard_labels = hard_labels  # callable: names of the hard rows, built only for a message
-        rows, rhs, self._bound_idx = [np.zeros((0, n))], [np.zeros(0)], []
-        for name, bound, sign in (("ub", ub, 1.0), ("lb", lb, -1.0)):
-            if bound is not None:
-                idx = np.flatnonzero(np.isfinite(bound))
-                rows.append(sign * np.eye(n)[idx])
-                rhs.append(sign * bound[idx])
-                self._bound_idx.append((name, idx))
-        self.B, self.hB = np.vstack(rows), np.concatenate(rhs)
-        scale = max(float(np.abs(h).max(initial=0.0)), float(np.abs(self.hB).max(initial=0.0)))
+        self._bound_idx = []
+        if lb is None and ub is None:
+            self.B, self.hB = _no_rows(n), _EMPTY
+        else:
+            rows, rhs = [np.zeros((0, n))], [np.zeros(0)]
+            for name, bound, sign in (("ub", ub, 1.0), ("lb", lb, -1.0)):
+                if bound is not None:
+                    idx = np.flatnonzero(np.isfinite(bound))
+                    rows.append(sign * np.eye(n)[idx])
+                    rhs.append(sign * bound[idx])
+                    self._bound_idx.append((name, idx))
+            self.B, self.hB = np.vstack(rows), np.concatenate(rhs)
+        scale = float(np.abs(h).max(initial=0.0))
+        if self.hB.size:
+            scale = max(scale, float(np.abs(self.hB).max()))
         self.tol = tol_rel * (1.0 + scale)  # absolute feasibility tolerance
 
     def labels(self) -> list[str]:
@@ -517,6 +530,15 @@ def _bounds(name: str, value, n: int, bad: float) -> np.ndarray | None:
     return arr
 
 
+_NO_WEIGHTS = np.zeros(0)
+
+
+def _writable(a: np.ndarray) -> np.ndarray:
+    """``a`` itself if C-ordered, writable float64, else such a copy (one compiled signature per kernel)."""
+    f = a.flags
+    return a if f.c_contiguous and f.writeable and a.dtype == np.float64 else np.array(a, dtype=float)
+
+
 class _Solver:
     """One call of :func:`solve_hierarchy`: the state carried from level to level.
 
@@ -536,6 +558,11 @@ class _Solver:
         self.N = N_hard
         self.x_hard, self.N_hard, self.hard_label = x_hard, N_hard, hard_label
         self.qp_solves = 0
+        # the compiled path (no box bounds): its arrays must be C-ordered and writable, as the kernel was compiled
+        self.fast = params.compiled and cons.lb is None and cons.ub is None
+        if self.fast:
+            cons.G, cons.h, self.x = _writable(cons.G), _writable(cons.h), _writable(x_hard)
+            self._no_N = np.zeros((n, 0))
 
     @property
     def r(self) -> int:
@@ -618,6 +645,19 @@ class _Solver:
         if self.r == 0:
             e, v = level.slack(self.x)
             return "no freedom", e, v
+        if self.fast:
+            p, cons = self.params, self.cons
+            sw = _NO_WEIGHTS if level._unit_eq or not n_eq else np.sqrt(level.weights_eq)
+            out = _kernels.solve_level_fast(
+                _writable(self.x), self._no_N if self.N is None else _writable(self.N), self.N is not None,
+                cons.G, cons.h,
+                _writable(level.A), _writable(level.b), sw, level._unit_eq, _writable(level.C), _writable(level.d),
+                cons.tol, p.rank_tol, p.feasibility_tol, p.slack_tol, p.multiplier_tol, p.closed_form,
+                p.working_set_step)
+            if out[0] != _kernels.NEEDS_QP:
+                method, self.x, N, has_N, cons.G, cons.h, e, v = out
+                self.N = N if has_N else None
+                return _kernels.METHODS[method], e, v
         z_ls = np.zeros(self.r)
         V1 = s1 = c1 = V2 = None
         if n_eq:

@@ -27,14 +27,16 @@ BACKENDS = available_backends()
 #: (closed_form, backend): the closed-form path, then every backend with every level sent to it.
 # (closed form, working-set step, backend): every level through the closed form where it applies, through the
 # checked working-set step where it applies, or through each backend
-PATHS = [(True, True, None), (False, True, None)] + [(False, False, b) for b in BACKENDS]
-PATH_IDS = ["closed-form", "working-set"] + [f"qp-{b}" for b in BACKENDS]
+# -- the first two compiled (numba kernel, where there are no bounds) and in Python
+PATHS = ([(True, True, None, True), (False, True, None, True), (True, True, None, False), (False, True, None, False)]
+         + [(False, False, b, False) for b in BACKENDS])
+PATH_IDS = ["closed-form", "working-set", "closed-form-python", "working-set-python"] + [f"qp-{b}" for b in BACKENDS]
 
 
 def _solve(levels, n, path, **kw):
-    closed_form, working_set, backend = path
-    return solve_hierarchy(levels, n, backend, params=HQPParams(closed_form=closed_form, working_set_step=working_set),
-                           **kw)
+    closed_form, working_set, backend, compiled = path
+    params = HQPParams(closed_form=closed_form, working_set_step=working_set, compiled=compiled)
+    return solve_hierarchy(levels, n, backend, params=params, **kw)
 
 
 # ------------------------------------------------------------------------------------------
@@ -219,8 +221,25 @@ def _saturating_stack(seed):
     return _random_levels(np.random.default_rng(seed), n, 5), n, None, np.full(n, -2.0), np.full(n, 2.0)
 
 
+def _bounds_as_hard_rows(make, seed):
+    """The same stack with its box bounds written as hard inequality rows (no lb/ub: the compiled path)."""
+    levels, n, hard, lb, ub = make(seed)
+    rows, rhs = [], []
+    for sign, bound in ((1.0, ub), (-1.0, lb)):
+        if bound is not None:
+            idx = np.flatnonzero(np.isfinite(bound))
+            rows.append(sign * np.eye(n)[idx])
+            rhs.append(sign * bound[idx])
+    eq = hard.eq if hard is not None else []
+    ineq = list(hard.ineq if hard is not None else []) + [(np.vstack(rows), np.concatenate(rhs))]
+    return levels, n, Level(eq=eq, ineq=ineq, name="hard and box"), None, None
+
+
 STACKS = {
     **{f"exo-{s}": functools.partial(_exo_like_stack, s) for s in (0, 1)},
+    **{f"exo-rows-{s}": functools.partial(_bounds_as_hard_rows, _exo_like_stack, s) for s in (0, 1)},
+    **{f"saturating-rows-{s}": functools.partial(_bounds_as_hard_rows, _saturating_stack, s) for s in (75, 77)},
+    **{f"random-rows-{s}": functools.partial(_bounds_as_hard_rows, _random_stack, s) for s in (10, 11)},
     **{f"saturating-{s}": functools.partial(_saturating_stack, s) for s in (75, 77, 79)},
     **{f"random-{s}": functools.partial(_random_stack, s) for s in (10, 11, 12)},
     **{f"degenerate-{s}": functools.partial(_degenerate_stack, s) for s in (20, 21)},
@@ -246,6 +265,21 @@ def test_inequality_stack_equals_level_by_level_cvxpy_solution(stack, path):
             np.testing.assert_allclose(A @ res.x, b, atol=1e-8)
         for C, d, _ in hard.ineq:
             assert np.all(C @ res.x <= d + 1e-8)
+
+
+@pytest.mark.parametrize("stack", sorted(k for k in STACKS if "-rows-" in k))
+def test_compiled_levels_take_the_same_path_to_the_same_point_as_python(stack):
+    from controllers import _hqp_kernels
+
+    (levels, n, hard, lb, ub), _ = _stack_and_reference(stack)
+    fast = solve_hierarchy(levels, n, hard=hard, params=HQPParams(compiled=True))
+    slow = solve_hierarchy(levels, n, hard=hard, params=HQPParams(compiled=False))
+    assert _hqp_kernels.solve_level_fast.signatures  # the kernel ran
+    # the same arithmetic as the Python path (which the cvxpy test above checks): same methods, same point
+    assert fast.level_methods == slow.level_methods
+    np.testing.assert_allclose(fast.x, slow.x, atol=1e-9)
+    np.testing.assert_allclose(fast.level_residuals, slow.level_residuals, rtol=1e-9, atol=1e-12)
+    assert fast.free_dims == slow.free_dims
 
 
 # ------------------------------------------------------------------------------------------
@@ -306,8 +340,9 @@ def test_rows_tight_at_every_higher_optimum_stay_tight_below(path):
     np.testing.assert_allclose(res.level_residuals, [2.0, 25.0], atol=1e-6)
 
 
-@pytest.mark.parametrize("path", [(True, True, None)] + [(False, False, b) for b in BACKENDS if b != "daqp"],
-                         ids=["closed-form"] + [f"qp-{b}" for b in BACKENDS if b != "daqp"])
+@pytest.mark.parametrize("path", [(True, True, None, True), (True, True, None, False)]
+                         + [(False, False, b, False) for b in BACKENDS if b != "daqp"],
+                         ids=["closed-form", "closed-form-python"] + [f"qp-{b}" for b in BACKENDS if b != "daqp"])
 def test_without_regularization_every_level_keeps_its_optimum(path):
     tasks = _equality_stack(3)
     res = _solve([Level(eq=[t]) for t in tasks], 14, path, regularization=0.0)

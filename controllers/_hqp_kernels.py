@@ -1,0 +1,246 @@
+r"""Compiled (numba) form of one level of :func:`controllers.hqp.solve_hierarchy`.
+
+:func:`solve_level_fast` does, in one compiled call, what
+:meth:`controllers.hqp._Solver.solve_level` does in Python for the two cheap
+ways a level is solved -- the closed-form least-squares point and the checked
+active-set step -- and then freezes the level's optimum for the levels below
+(null-space update, frozen inequality rows, elimination of rows active at
+every optimum). The mathematics, its sources and every threshold are those of
+:mod:`controllers.hqp` (Kanoun, Lamiraux & Wieber 2011; Escande, Mansard &
+Wieber 2014; the KKT conditions of a convex QP, Nocedal & Wright 2006); this
+module only removes the Python call overhead of some thirty small NumPy
+calls per level. When neither cheap way holds it returns
+:data:`NEEDS_QP` without changing anything, and the Python path solves the
+level with the QP backend.
+
+Only the case without box bounds on ``x`` is compiled (the controller's
+default, torque eliminated); with bounds every level takes the Python path.
+"""
+
+from __future__ import annotations
+
+import numba as nb
+import numpy as np
+
+__all__ = ["CLOSED_FORM", "WORKING_SET", "NO_FREEDOM", "NEEDS_QP", "METHODS", "solve_level_fast"]
+
+CLOSED_FORM, WORKING_SET, NO_FREEDOM, NEEDS_QP = 0, 1, 2, 3
+METHODS = ("closed-form", "working-set", "no freedom")
+
+_EPS = float(np.finfo(float).eps)
+
+
+@nb.njit(cache=True)
+def _proj(M, N, has_N):
+    if has_N:
+        return M @ N
+    return M.copy()
+
+
+@nb.njit(cache=True)
+def _lift(x, z, N, has_N):
+    if has_N:
+        return x + N @ z
+    return x + z
+
+
+@nb.njit(cache=True)
+def _max_or(values, initial):
+    worst = initial
+    for k in range(values.shape[0]):
+        if values[k] > worst:
+            worst = values[k]
+    return worst
+
+
+@nb.njit(cache=True)
+def _lstsq(M, rhs):
+    """``numpy.linalg.lstsq(M, rhs, rcond=None)[0]``: the same cut-off, eps * max(m, n)."""
+    return np.linalg.lstsq(M, rhs, rcond=_EPS * max(M.shape[0], M.shape[1]))[0]
+
+
+@nb.njit(cache=True)
+def _rows(M, mask):
+    out = np.empty((int(mask.sum()), M.shape[1]))
+    k = 0
+    for i in range(M.shape[0]):
+        if mask[i]:
+            out[k] = M[i]
+            k += 1
+    return out
+
+
+@nb.njit(cache=True)
+def _entries(v, mask):
+    out = np.empty(int(mask.sum()))
+    k = 0
+    for i in range(v.shape[0]):
+        if mask[i]:
+            out[k] = v[i]
+            k += 1
+    return out
+
+
+@nb.njit(cache=True)
+def _vstack(P, Q):
+    out = np.empty((P.shape[0] + Q.shape[0], P.shape[1] if P.shape[0] else Q.shape[1]))
+    out[: P.shape[0]] = P
+    out[P.shape[0]:] = Q
+    return out
+
+
+@nb.njit(cache=True)
+def _concat(p, q):
+    out = np.empty(p.shape[0] + q.shape[0])
+    out[: p.shape[0]] = p
+    out[p.shape[0]:] = q
+    return out
+
+
+@nb.njit(cache=True)
+def _constraint_rows(x, N, has_N, G, h, rank_tol):
+    """``_Solver._qp_constraints`` without bounds: (Gz, hz, Gx), rows made constant by N left out."""
+    Gz = _proj(G, N, has_N)
+    hz = h - G @ x
+    if has_N and Gz.shape[0]:
+        keep = np.empty(Gz.shape[0], dtype=np.bool_)
+        for i in range(Gz.shape[0]):
+            keep[i] = np.abs(Gz[i]).max() > rank_tol * max(np.abs(G[i]).max(), 1e-300)
+        if not keep.all():
+            return _rows(Gz, keep), _entries(hz, keep), _rows(G, keep)
+    return Gz, hz, G.copy()
+
+
+@nb.njit(cache=True)
+def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol, feas_tol, mult_tol):
+    """``_Solver._working_set_step``: (kept, x, rows active at every optimum)."""
+    n = x.shape[0]
+    none = np.zeros((0, n))
+    n_in = C.shape[0]
+    if n_eq and n_in:
+        return False, x, none
+    Gz, hz, Gx = _constraint_rows(x, N, has_N, G, h, rank_tol)
+    if n_in:
+        Gz = _vstack(_proj(C, N, has_N), Gz)
+        hz = _concat(d - C @ x, hz)
+    if Gz.shape[0] == 0:
+        return False, x, none
+    W = Gz @ z_ls - hz > tol
+    if not W.any():
+        return False, x, none
+    GW, hW = _rows(Gz, W), _entries(hz, W)
+    if n_in:
+        z = z_ls + _lstsq(GW, hW - GW @ z_ls)
+        if (Gz @ z - hz).max() > tol:
+            return False, x, none
+        return True, _lift(x, z, N, has_N), none
+    r, m = z_ls.shape[0], GW.shape[0]
+    K = np.zeros((r + m, r + m))
+    K[:r, :r] = (V1 * s1**2) @ V1.T
+    K[:r, r:] = GW.T
+    K[r:, :r] = GW
+    rhs = _concat(V1 @ (s1 * c1), hW)
+    sol = _lstsq(K, rhs)
+    scale = 1.0 + np.abs(rhs).max()
+    if np.abs(K @ sol - rhs).max() > feas_tol * scale:
+        return False, x, none  # inconsistent working set
+    z, lam = sol[:r], sol[r:]
+    lam_scale = max(1.0, np.abs(lam).max())
+    if lam.min() < -mult_tol * lam_scale or (Gz @ z - hz).max() > tol:
+        return False, x, none
+    return True, _lift(x, z, N, has_N), _rows(_rows(Gx, W), lam > mult_tol * lam_scale)
+
+
+@nb.njit(cache=True)
+def _eliminate(rows, N, has_N, rank_tol):
+    """``_Solver._eliminate``: the freedom restricted to the null space of ``rows``: (N, has_N)."""
+    r = N.shape[1] if has_N else rows.shape[1]
+    if rows.shape[0] == 0 or r == 0:
+        return N, has_N
+    unit = np.empty_like(rows)
+    for i in range(rows.shape[0]):
+        unit[i] = rows[i] / max(np.sqrt((rows[i] ** 2).sum()), 1e-300)
+    _, s, Vt = np.linalg.svd(_proj(unit, N, has_N), full_matrices=True)
+    rank = int((s > rank_tol * np.sqrt(unit.shape[0])).sum())
+    V2 = np.ascontiguousarray(Vt[rank:].T)
+    if has_N:
+        return N @ V2, True
+    return V2, True
+
+
+@nb.njit(cache=True)
+def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, feas_tol, slack_tol, mult_tol,
+                     closed_form, working_set_step):
+    r"""One level of the hierarchy, closed form or one checked active-set step, compiled.
+
+    Inputs are the state of :class:`controllers.hqp._Solver` (``x`` (n,),
+    the null-space basis ``N`` (n, r) if ``has_N`` else ignored, the frozen
+    and hard rows ``G x <= h``), the level's equality rows ``A x ~ b`` with
+    the square roots ``sw`` of their weights (ignored if ``unit_eq``), its
+    inequality rows ``C x <= d``, and the thresholds of
+    :class:`controllers.hqp.HQPParams` (``tol`` is the absolute feasibility
+    tolerance of the constraints). The level must have rows and freedom
+    (r > 0).
+
+    Returns ``(method, x, N, has_N, G, h, e, v)``: the method code
+    (:data:`CLOSED_FORM`, :data:`WORKING_SET`, :data:`NO_FREEDOM`) and the
+    state after the level, with the optimal slacks ``e = A x - b`` and
+    ``v = max(C x - d, 0)``; or :data:`NEEDS_QP` and the inputs unchanged.
+    """
+    n = x.shape[0]
+    n_eq, n_in = A.shape[0], C.shape[0]
+    r = N.shape[1] if has_N else n
+    z_ls = np.zeros(r)
+    rank = 0
+    V1, s1, c1, V2 = np.zeros((r, 0)), np.zeros(0), np.zeros(0), np.zeros((r, 0))
+    if n_eq:
+        # W^1/2 A N = U S V^T, truncated at the rank: the cost is 1/2 ||S1 V1^T z - c1||^2 + const
+        err = b - A @ x
+        if unit_eq:
+            Aw = A
+        else:
+            Aw = A * sw.reshape(-1, 1)
+            err = sw * err
+        U, s, Vt = np.linalg.svd(_proj(Aw, N, has_N), full_matrices=True)
+        thr = rank_tol * np.sqrt((Aw**2).sum())
+        rank = int((s > thr).sum())
+        V1 = np.ascontiguousarray(Vt[:rank].T)
+        s1 = s[:rank].copy()
+        V2 = np.ascontiguousarray(Vt[rank:].T)
+        c1 = np.ascontiguousarray(U[:, :rank].T) @ err
+        z_ls = V1 @ (c1 / s1)
+    x_ls = _lift(x, z_ls, N, has_N)
+    active = np.zeros((0, n))
+    feasible = closed_form and _max_or(G @ x_ls - h, 0.0) <= tol
+    if feasible and n_in:
+        feasible = (C @ x_ls - d).max() <= tol
+    if feasible:
+        method, x_new = CLOSED_FORM, x_ls
+    elif n_in == 0 and rank == 0:
+        method, x_new = NO_FREEDOM, x.copy()
+    else:
+        kept = False
+        x_new = x
+        if working_set_step:
+            kept, x_new, active = _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
+                                               feas_tol, mult_tol)
+        if not kept:
+            return NEEDS_QP, x, N, has_N, G, h, np.zeros(0), np.zeros(0)
+        method = WORKING_SET
+    e = A @ x_new - b
+    v = np.maximum(C @ x_new - d, 0.0)
+    # freeze the optimum: equality rows through the null space, then the level's inequality rows
+    if n_eq:
+        N = N @ V2 if has_N else V2
+        has_N = True
+    if n_in:
+        tight = v > slack_tol * (1.0 + np.abs(d))
+        if tight.any():
+            active = _vstack(_rows(C, tight), active)
+        keep = ~tight
+        if keep.any():
+            G = _vstack(G, _rows(C, keep))
+            h = _concat(h, _entries(d, keep) + _entries(v, keep))
+    if active.shape[0]:
+        N, has_N = _eliminate(active, N, has_N, rank_tol)
+    return method, x_new, N, has_N, G, h, e, v
