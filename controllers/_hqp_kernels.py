@@ -60,6 +60,77 @@ def _lstsq(M, rhs):
 
 
 @nb.njit(cache=True)
+def _svd_right(P):
+    r"""Singular values and a full set of right singular vectors of a small ``P`` (m, r), one-sided Jacobi.
+
+    Rotates pairs of columns of :math:`P` until all are orthogonal (Hestenes
+    1958; the rotation of Golub & Van Loan, *Matrix Computations*, 4th ed.,
+    2013, section 8.6.3, Algorithm 8.6.1 for the symmetric 2-by-2 Schur
+    decomposition), so that :math:`P V = [\sigma_1 u_1, \dots, \sigma_r u_r]` with
+    :math:`V` (r, r) orthogonal. Accurate to a few ulps of
+    :math:`\|P\|` in every singular value (Demmel & Veselic 1992), it needs no
+    LAPACK workspace, which for these 7-by-7 problems is most of the cost of
+    ``numpy.linalg.svd``. Returns ``(s, V, PV)`` sorted by decreasing
+    :math:`\sigma`; columns with :math:`\sigma = 0` span the null space.
+    """
+    m, r = P.shape
+    Wc = np.ascontiguousarray(P.T)  # row j: column j of P V
+    V = np.eye(r)  # row j: column j of V
+    for _ in range(64):
+        rotated = False
+        for i in range(r - 1):
+            for j in range(i + 1, r):
+                a = b = c = 0.0
+                for k in range(m):
+                    a += Wc[i, k] * Wc[i, k]
+                    b += Wc[j, k] * Wc[j, k]
+                    c += Wc[i, k] * Wc[j, k]
+                if c == 0.0 or abs(c) <= _EPS * np.sqrt(a * b):
+                    continue
+                rotated = True
+                zeta = (b - a) / (2.0 * c)
+                t = (1.0 if zeta >= 0.0 else -1.0) / (abs(zeta) + np.sqrt(1.0 + zeta * zeta))
+                cs = 1.0 / np.sqrt(1.0 + t * t)
+                sn = cs * t
+                for k in range(m):
+                    wi, wj = Wc[i, k], Wc[j, k]
+                    Wc[i, k] = cs * wi - sn * wj
+                    Wc[j, k] = sn * wi + cs * wj
+                for k in range(r):
+                    vi, vj = V[i, k], V[j, k]
+                    V[i, k] = cs * vi - sn * vj
+                    V[j, k] = sn * vi + cs * vj
+        if not rotated:
+            break
+    s = np.sqrt((Wc**2).sum(axis=1))
+    order = np.argsort(-s)
+    return s[order], np.ascontiguousarray(V[order].T), np.ascontiguousarray(Wc[order].T)
+
+
+@nb.njit(cache=True)
+def _spd_solve(S, rhs):
+    """(ok, x) with S x = rhs by Cholesky (Golub & Van Loan 2013, Algorithm 4.2.2); ok False if S is not
+    clearly positive definite (a pivot below 1e-12 times the largest diagonal entry)."""
+    m = S.shape[0]
+    L = np.zeros((m, m))
+    floor = 1e-12 * max(np.abs(np.diag(S)).max(), 1e-300) if m else 0.0
+    for j in range(m):
+        d = S[j, j] - (L[j, :j] ** 2).sum()
+        if not d > floor:
+            return False, rhs
+        L[j, j] = np.sqrt(d)
+        for i in range(j + 1, m):
+            L[i, j] = (S[i, j] - (L[i, :j] * L[j, :j]).sum()) / L[j, j]
+    y = np.empty(m)
+    for i in range(m):
+        y[i] = (rhs[i] - (L[i, :i] * y[:i]).sum()) / L[i, i]
+    x = np.empty(m)
+    for i in range(m - 1, -1, -1):
+        x[i] = (y[i] - (L[i + 1:, i] * x[i + 1:]).sum()) / L[i, i]
+    return True, x
+
+
+@nb.njit(cache=True)
 def _rows(M, mask):
     out = np.empty((int(mask.sum()), M.shape[1]))
     k = 0
@@ -130,17 +201,35 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
         return False, x, none
     GW, hW = _rows(Gz, W), _entries(hz, W)
     if n_in:
-        z = z_ls + _lstsq(GW, hW - GW @ z_ls)
+        # minimum-norm correction onto W: GW^T (GW GW^T)^-1 res if GW has full row rank, else least squares
+        res = hW - GW @ z_ls
+        GWT = np.ascontiguousarray(GW.T)
+        ok, y = _spd_solve(GW @ GWT, res)
+        dz = GWT @ y if ok else _lstsq(GW, res)
+        z = z_ls + dz
         if (Gz @ z - hz).max() > tol:
             return False, x, none
         return True, _lift(x, z, N, has_N), none
     r, m = z_ls.shape[0], GW.shape[0]
+    GWT = np.ascontiguousarray(GW.T)
     K = np.zeros((r + m, r + m))
-    K[:r, :r] = (V1 * s1**2) @ V1.T
-    K[:r, r:] = GW.T
+    K[:r, :r] = (V1 * s1**2) @ np.ascontiguousarray(V1.T)
+    K[:r, r:] = GWT
     K[r:, :r] = GW
     rhs = _concat(V1 @ (s1 * c1), hW)
-    sol = _lstsq(K, rhs)
+    # the KKT system by its Schur complement when H = V1 S1^2 V1^T is definite (the unique solution), else
+    # by least squares: z = H^-1 (g - GW^T lam), (GW H^-1 GW^T) lam = GW H^-1 g - hW (Nocedal & Wright 2006, 16.1)
+    ok = False
+    sol = rhs
+    if s1.shape[0] == r:
+        Hi = (V1 / s1**2) @ np.ascontiguousarray(V1.T)
+        g = rhs[:r].copy()
+        HiGT = Hi @ GWT
+        ok, lam = _spd_solve(GW @ HiGT, GW @ (Hi @ g) - hW)
+        if ok:
+            sol = _concat(Hi @ g - HiGT @ lam, lam)
+    if not ok:
+        sol = _lstsq(K, rhs)
     scale = 1.0 + np.abs(rhs).max()
     if np.abs(K @ sol - rhs).max() > feas_tol * scale:
         return False, x, none  # inconsistent working set
@@ -160,9 +249,9 @@ def _eliminate(rows, N, has_N, rank_tol):
     unit = np.empty_like(rows)
     for i in range(rows.shape[0]):
         unit[i] = rows[i] / max(np.sqrt((rows[i] ** 2).sum()), 1e-300)
-    _, s, Vt = np.linalg.svd(_proj(unit, N, has_N), full_matrices=True)
+    s, V, _ = _svd_right(_proj(unit, N, has_N))
     rank = int((s > rank_tol * np.sqrt(unit.shape[0])).sum())
-    V2 = np.ascontiguousarray(Vt[rank:].T)
+    V2 = np.ascontiguousarray(V[:, rank:])
     if has_N:
         return N @ V2, True
     return V2, True
@@ -201,13 +290,13 @@ def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, 
         else:
             Aw = A * sw.reshape(-1, 1)
             err = sw * err
-        U, s, Vt = np.linalg.svd(_proj(Aw, N, has_N), full_matrices=True)
+        s, V, PV = _svd_right(_proj(Aw, N, has_N))
         thr = rank_tol * np.sqrt((Aw**2).sum())
         rank = int((s > thr).sum())
-        V1 = np.ascontiguousarray(Vt[:rank].T)
+        V1 = np.ascontiguousarray(V[:, :rank])
         s1 = s[:rank].copy()
-        V2 = np.ascontiguousarray(Vt[rank:].T)
-        c1 = np.ascontiguousarray(U[:, :rank].T) @ err
+        V2 = np.ascontiguousarray(V[:, rank:])
+        c1 = (np.ascontiguousarray(PV[:, :rank].T) @ err) / s1  # U1^T err, U1 = P V1 / s1
         z_ls = V1 @ (c1 / s1)
     x_ls = _lift(x, z_ls, N, has_N)
     active = np.zeros((0, n))
