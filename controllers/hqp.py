@@ -211,13 +211,32 @@ def _stack_unchecked(entries):
         M, v, w0 = entries[0]
         w0 = float(w0)
         return M, v, _weight_vector(M.shape[0], w0), ((M, v, w0),), (0, M.shape[0]), M.shape[1]
-    M = np.vstack([e[0] for e in entries])
+    mats = tuple(e[0] for e in entries)
+    weights = tuple(float(e[2]) for e in entries)
+    key = (tuple(map(id, mats)), weights)
+    hit = _STACKED.get(key)
+    if hit is not None and all(a is b for a, b in zip(hit[0], mats)):
+        _, M, w, starts = hit  # the same read-only matrices as before: stacked then
+    else:
+        M = np.concatenate(mats)
+        w = np.concatenate([_weight_vector(a.shape[0], wk) for a, wk in zip(mats, weights)])
+        starts, k = [0], 0
+        for a in mats:
+            k += a.shape[0]
+            starts.append(k)
+        starts = tuple(starts)
+        if not any(a.flags.writeable for a in mats):  # read-only matrices cannot change: keep the stack
+            if len(_STACKED) >= 64:
+                _STACKED.clear()
+            M.flags.writeable = w.flags.writeable = False
+            _STACKED[key] = (mats, M, w, starts)  # holds the matrices, so their ids stay theirs
     v = np.concatenate([e[1] for e in entries])
-    w = np.concatenate([_weight_vector(e[0].shape[0], float(e[2])) for e in entries])
-    starts = (0, *np.cumsum([e[0].shape[0] for e in entries]).tolist())
-    views = tuple((M[starts[i]: starts[i + 1]], v[starts[i]: starts[i + 1]], float(e[2]))
-                  for i, e in enumerate(entries))
+    views = tuple((M[starts[i]: starts[i + 1]], v[starts[i]: starts[i + 1]], weights[i]) for i in range(len(mats)))
     return M, v, w, views, starts, M.shape[1]
+
+
+#: stacks of read-only matrices built by :func:`_stack_unchecked`, by the matrices' ids and the weights
+_STACKED: dict = {}
 
 
 @dataclass(frozen=True, eq=False)
@@ -315,11 +334,18 @@ class Level:
         A, b, we, eq_entries, eq_starts, n_eq = _stack_unchecked(eq)
         C, d, wi, in_entries, in_starts, n_in = _stack_unchecked(ineq)
         n = n_eq if n_eq is not None else n_in
+        unit_eq = True
+        for e in eq_entries:
+            if e[2] != 1.0:
+                unit_eq = False
+        weighted = not unit_eq
+        for e in in_entries:
+            if e[2] != 1.0:
+                weighted = True
         self.__dict__.update(
             eq=eq_entries, ineq=in_entries, name=name, A=_no_rows(n or 0) if A is None else A, b=b, weights_eq=we,
             C=_no_rows(n or 0) if C is None else C, d=d, weights_ineq=wi, n_cols=n, _eq_starts=eq_starts,
-            _ineq_starts=in_starts, _weighted=any(e[2] != 1.0 for e in (*eq_entries, *in_entries)),
-            _unit_eq=all(e[2] == 1.0 for e in eq_entries))
+            _ineq_starts=in_starts, _weighted=weighted, _unit_eq=unit_eq)
         return self
 
     def row_label(self, kind: str, row: int) -> str:

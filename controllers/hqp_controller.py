@@ -35,6 +35,7 @@ counts the event and keeps its reason.
 from __future__ import annotations
 
 import logging
+import math
 import time
 from collections.abc import Sequence
 
@@ -110,6 +111,9 @@ class HQPController(Controller):
         self._ub = np.concatenate([np.full(n, np.inf), tau_max])
         self._A_dyn = np.zeros((n, 2 * n))
         self._A_dyn[:, n:] = -np.eye(n)
+        self._A_reg = np.zeros((2 * n, n))  # [I; M]: rows of the minimum-norm level, M written each tick
+        self._A_reg[:n] = np.eye(n)
+        self._b_reg = np.zeros(2 * n)
         self._prev = None
         self._constant_rows: dict = {}  # (level, task) -> (read-only rows, their q part, their tau part or None)
         self.fallback_count = 0
@@ -198,12 +202,14 @@ class HQPController(Controller):
                 hard = Level.unchecked(ineq=[(G, np.concatenate([self._tau_max - c, self._tau_max + c]), 1.0)],
                                        name="torque limits")
                 levels, rows = self._task_levels(s, c)
-                A_reg = np.empty((2 * n, n))
-                A_reg[:n], A_reg[n:] = np.eye(n), M
-                levels.append(Level.unchecked(eq=[(A_reg, np.concatenate([np.zeros(n), -c]), 1.0)],
+                A_reg = self._A_reg
+                A_reg[n:] = M
+                b_reg = self._b_reg
+                np.negative(c, out=b_reg[n:])
+                levels.append(Level.unchecked(eq=[(A_reg.copy(), b_reg.copy(), 1.0)],
                                               name="minimum norm of [qdd; tau]"))
                 res = solve_hierarchy(levels, n, self.solver, hard=hard, warm_start=self._prev, params=self.params)
-                tau = np.clip(M @ res.x + c, -self._tau_max, self._tau_max)
+                tau = np.minimum(np.maximum(M @ res.x + c, -self._tau_max), self._tau_max)
             else:
                 self._A_dyn[:, :n] = s.M
                 hard = Level(eq=[(self._A_dyn, s.cuff_force - s.h)], name="dynamics")
@@ -211,7 +217,7 @@ class HQPController(Controller):
                 res = solve_hierarchy(levels, 2 * n, self.solver, hard=hard, lb=self._lb, ub=self._ub,
                                       warm_start=self._prev, params=self.params)
                 tau = np.asarray(res.x[n:], dtype=float)
-            if not np.all(np.isfinite(tau)):
+            if not math.isfinite(tau.sum()):
                 raise SandboxError("the solver returned non-finite torques")
             self._prev = res
             fallback = 0.0

@@ -36,7 +36,7 @@ class TickState:
         self.dt_s = float(dt_s)
         self.cuff_ids = {name: arm.frame_id(frame) for name, frame in cuff_frames.items()}
         self._zero = np.zeros(self.nv)
-        self._lower = np.tril_indices(self.nv, -1)
+        self._lower = np.tri(self.nv, k=-1, dtype=bool)  # strictly lower triangle
         self._jac: dict[tuple[int, object], np.ndarray] = {}
         self._drift: dict[int, np.ndarray] = {}
         self.measurement: Measurement | None = None
@@ -49,9 +49,8 @@ class TickState:
         pin.forwardKinematics(model, data, self.q, self.dq, self._zero)  # a = 0: frame accelerations are J'q'
         pin.computeJointJacobians(model, data)  # reuses the placements just computed
         pin.updateFramePlacements(model, data)
-        M = np.array(pin.crba(model, data, self.q))  # crba fills the upper triangle: mirror it
-        M[self._lower] = M.T[self._lower]
-        self.M = M
+        U = pin.crba(model, data, self.q)  # crba fills the upper triangle: mirror it
+        self.M = np.where(self._lower, U.T, U)
         self.h = pin.nonLinearEffects(model, data, self.q, self.dq).copy()
         self.g = pin.computeGeneralizedGravity(model, data, self.q).copy()
         self._jac.clear()
