@@ -13,19 +13,55 @@ calls per level. When neither cheap way holds it returns
 :data:`NEEDS_QP` without changing anything, and the Python path solves the
 level with the QP backend.
 
+:func:`solve_levels_fast` runs that over consecutive levels in one call,
+timing each level with the same monotonic clock as :func:`time.perf_counter`
+on Linux (``clock_gettime``; :data:`HAVE_CLOCK` is False where there is none,
+and the caller then calls :func:`solve_level_fast` once per level instead).
+
 Only the case without box bounds on ``x`` is compiled (the controller's
 default, torque eliminated); with bounds every level takes the Python path.
 """
 
 from __future__ import annotations
 
+import sys
+import time
+
 import numba as nb
 import numpy as np
+from llvmlite import ir
+from numba.core import cgutils, types
+from numba.extending import intrinsic
 
-__all__ = ["CLOSED_FORM", "WORKING_SET", "NO_FREEDOM", "NEEDS_QP", "METHODS", "solve_level_fast"]
+__all__ = ["CLOSED_FORM", "WORKING_SET", "NO_FREEDOM", "NEEDS_QP", "EMPTY", "METHODS", "HAVE_CLOCK",
+           "solve_level_fast", "solve_levels_fast"]
 
-CLOSED_FORM, WORKING_SET, NO_FREEDOM, NEEDS_QP = 0, 1, 2, 3
-METHODS = ("closed-form", "working-set", "no freedom")
+CLOSED_FORM, WORKING_SET, NO_FREEDOM, NEEDS_QP, EMPTY = 0, 1, 2, 3, 4
+METHODS = ("closed-form", "working-set", "no freedom", "qp", "empty")
+
+#: the compiled code can read the monotonic clock (POSIX clock_gettime)
+HAVE_CLOCK = sys.platform.startswith("linux") and hasattr(time, "CLOCK_MONOTONIC")
+_CLOCK_ID = int(getattr(time, "CLOCK_MONOTONIC", 1))
+
+
+@intrinsic
+def _clock_gettime(typingctx, clock_id, timespec):
+    """POSIX ``int clock_gettime(clockid_t, struct timespec *)``, called from compiled code."""
+    sig = types.int32(types.int32, types.voidptr)
+
+    def codegen(context, builder, signature, args):
+        fnty = ir.FunctionType(ir.IntType(32), [ir.IntType(32), ir.IntType(8).as_pointer()])
+        fn = cgutils.get_or_insert_function(builder.module, fnty, "clock_gettime")
+        return builder.call(fn, args)
+
+    return sig, codegen
+
+
+@nb.njit(cache=True)
+def _now_s(buf):
+    """Seconds of the monotonic clock; ``buf`` is an int64 (2,) scratch array (a struct timespec)."""
+    _clock_gettime(np.int32(_CLOCK_ID), buf.ctypes.data)
+    return buf[0] + 1e-9 * buf[1]
 
 _EPS = float(np.finfo(float).eps)
 
@@ -333,3 +369,64 @@ def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, 
     if active.shape[0]:
         N, has_N = _eliminate(active, N, has_N, rank_tol)
     return method, x_new, N, has_N, G, h, e, v
+
+
+@nb.njit(cache=True)
+def solve_levels_fast(start, x, N, has_N, G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, tol, rank_tol,
+                      feas_tol, slack_tol, mult_tol, closed_form, working_set_step, methods, X, e_all, v_all, free,
+                      seconds, residuals, clock):
+    r"""Levels ``start, start + 1, ...`` of a hierarchy with :func:`solve_level_fast`, until one needs the backend.
+
+    The levels' rows are stacked: level k's equality rows are
+    ``A[eq_off[k]:eq_off[k + 1]]`` (with ``b``, the square roots ``sw`` of
+    their weights and ``unit_eq[k]``), its inequality rows
+    ``C[in_off[k]:in_off[k + 1]]`` (with ``d`` and weights ``wi``). Per level
+    it writes the method code, the point after the level ``X[k]``, the
+    optimal slacks into ``e_all`` and ``v_all``, the freedom left
+    ``free[k]`` and the wall time ``seconds[k]`` [s]; a level without rows is
+    :data:`EMPTY`, one without freedom :data:`NO_FREEDOM`.
+
+    Returns ``(stop, x, N, has_N, G, h)``: ``stop`` is the first level that
+    needs the QP backend (its outputs unwritten, the state that of the levels
+    above it), or the number of levels. When ``stop`` is the number of
+    levels, ``residuals[k]`` holds every level's weighted squared error
+    :math:`\sum w e^2 + \sum \omega v^2` at the final ``x``.
+    """
+    p = methods.shape[0]
+    n = x.shape[0]
+    k = start
+    while k < p:
+        t0 = _now_s(clock)
+        Ak = np.ascontiguousarray(A[eq_off[k]: eq_off[k + 1]])
+        bk = np.ascontiguousarray(b[eq_off[k]: eq_off[k + 1]])
+        swk = np.ascontiguousarray(sw[eq_off[k]: eq_off[k + 1]])
+        Ck = np.ascontiguousarray(C[in_off[k]: in_off[k + 1]])
+        dk = np.ascontiguousarray(d[in_off[k]: in_off[k + 1]])
+        r = N.shape[1] if has_N else n
+        if Ak.shape[0] + Ck.shape[0] == 0:
+            method = EMPTY
+        elif r == 0:
+            method = NO_FREEDOM
+            e_all[eq_off[k]: eq_off[k + 1]] = Ak @ x - bk
+            v_all[in_off[k]: in_off[k + 1]] = np.maximum(Ck @ x - dk, 0.0)
+        else:
+            method, x2, N2, has_N2, G2, h2, e, v = solve_level_fast(
+                x, N, has_N, G, h, Ak, bk, swk, unit_eq[k], Ck, dk, tol, rank_tol, feas_tol, slack_tol, mult_tol,
+                closed_form, working_set_step)
+            if method == NEEDS_QP:
+                return k, x, N, has_N, G, h
+            x, N, has_N, G, h = x2, N2, has_N2, G2, h2
+            e_all[eq_off[k]: eq_off[k + 1]] = e
+            v_all[in_off[k]: in_off[k + 1]] = v
+        methods[k] = method
+        X[k] = x
+        free[k] = N.shape[1] if has_N else n
+        seconds[k] = _now_s(clock) - t0
+        k += 1
+    for k in range(p):
+        e = A[eq_off[k]: eq_off[k + 1]] @ x - b[eq_off[k]: eq_off[k + 1]]
+        v = np.maximum(C[in_off[k]: in_off[k + 1]] @ x - d[in_off[k]: in_off[k + 1]], 0.0)
+        w = sw[eq_off[k]: eq_off[k + 1]]
+        residuals[k] = ((e * e).sum() if unit_eq[k] else (w * w * e * e).sum()) + (wi[in_off[k]: in_off[k + 1]]
+                                                                                    * v * v).sum()
+    return p, x, N, has_N, G, h

@@ -886,6 +886,73 @@ class _Solver:
             )
 
 
+_METHOD_CODE = {name: code for code, name in enumerate(_kernels.METHODS)}
+_INT_EMPTY = np.zeros(0, dtype=np.int64)
+
+
+def _solve_compiled(work: _Solver, levels: tuple, labels: list, warm: list):
+    """Every level through :func:`controllers._hqp_kernels.solve_levels_fast`, the backend's in Python.
+
+    Returns ``(methods, slacks, times, free_dims, level_x, residuals)`` as the
+    per-level loop of :func:`solve_hierarchy` builds them; ``residuals`` are
+    each level's weighted squared error at the point after the last level.
+    """
+    n, p = work.n, len(levels)
+    eq_off, in_off = np.zeros(p + 1, dtype=np.int64), np.zeros(p + 1, dtype=np.int64)
+    As, bs, ws, Cs, ds, wis = [], [], [], [], [], []
+    unit = np.empty(p, dtype=np.bool_)
+    m_e = m_i = 0
+    for k, level in enumerate(levels):
+        if level.n_cols is not None:
+            As.append(level.A)
+            bs.append(level.b)
+            ws.append(level.weights_eq)
+            Cs.append(level.C)
+            ds.append(level.d)
+            wis.append(level.weights_ineq)
+            m_e += level.A.shape[0]
+            m_i += level.C.shape[0]
+        eq_off[k + 1], in_off[k + 1] = m_e, m_i
+        unit[k] = level._unit_eq
+    A = np.concatenate(As) if m_e else np.zeros((0, n))
+    C = np.concatenate(Cs) if m_i else np.zeros((0, n))
+    b = np.concatenate(bs) if m_e else np.zeros(0)
+    d = np.concatenate(ds) if m_i else np.zeros(0)
+    sw = np.sqrt(np.concatenate(ws)) if m_e else np.zeros(0)
+    wi = np.concatenate(wis) if m_i else np.zeros(0)
+    codes, free = np.empty(p, dtype=np.int64), np.empty(p, dtype=np.int64)
+    X, e_all, v_all = np.empty((p, n)), np.empty(m_e), np.empty(m_i)
+    seconds, residuals, clock = np.empty(p), np.empty(p), np.zeros(2, dtype=np.int64)
+    prm, cons = work.params, work.cons
+    k = 0
+    while True:
+        stop, x, N, has_N, cons.G, cons.h = _kernels.solve_levels_fast(
+            k, _writable(work.x), work._no_N if work.N is None else _writable(work.N), work.N is not None,
+            _writable(cons.G), _writable(cons.h), A, b, sw, eq_off, unit, C, d, wi, in_off, cons.tol, prm.rank_tol,
+            prm.feasibility_tol, prm.slack_tol, prm.multiplier_tol, prm.closed_form, prm.working_set_step,
+            codes, X, e_all, v_all, free, seconds, residuals, clock)
+        work.x, work.N = x, (N if has_N else None)
+        if stop == p:
+            break
+        t_level = time.perf_counter()  # this level needs the backend: the Python path
+        work.fast = False
+        try:
+            method, e, v = work.solve_level(levels[stop], labels[stop], warm[stop])
+        finally:
+            work.fast = True
+        codes[stop] = _METHOD_CODE[method]
+        e_all[eq_off[stop]: eq_off[stop + 1]] = e
+        v_all[in_off[stop]: in_off[stop + 1]] = v
+        X[stop], free[stop] = work.x, work.r
+        seconds[stop] = time.perf_counter() - t_level
+        k = stop + 1
+    e_all.flags.writeable = v_all.flags.writeable = X.flags.writeable = residuals.flags.writeable = False
+    eo, io = eq_off.tolist(), in_off.tolist()
+    slacks = [(e_all[eo[k]: eo[k + 1]], v_all[io[k]: io[k + 1]]) for k in range(p)]
+    methods = [_kernels.METHODS[c] for c in codes.tolist()]
+    return methods, slacks, seconds, free.tolist(), list(X), residuals
+
+
 def _eliminate_hard_eq(hard: Level, n: int, params: HQPParams, label: str):
     """Minimum-norm solution and null-space basis of the hard equalities, or raise."""
     A, b = hard.A, hard.b
@@ -1046,18 +1113,25 @@ def solve_hierarchy(
     cons = _Constraints(G0, h0, lb, ub, hard_rows, params.feasibility_tol)
     work = _Solver(n, backend, solver_name, params, float(regularization), cons, x0, N0, hard_label)
 
-    methods, slacks, times, free_dims, level_x = [], [], [], [], []
-    for k, level in enumerate(levels):
-        t_level = time.perf_counter()
-        method, e, v = work.solve_level(level, labels[k], warm[k])
-        methods.append(method)
-        slacks.append((_read_only(e), _read_only(v)))
-        free_dims.append(work.r)
-        level_x.append(work.x)
-        times.append(time.perf_counter() - t_level)
+    residuals = None
+    if work.fast and _kernels.HAVE_CLOCK and levels:
+        methods, slacks, times, free_dims, level_x, residuals = _solve_compiled(work, levels, labels, warm)
+        x_levels = work.x
+    else:
+        methods, slacks, times, free_dims, level_x = [], [], [], [], []
+        for k, level in enumerate(levels):
+            t_level = time.perf_counter()
+            method, e, v = work.solve_level(level, labels[k], warm[k])
+            methods.append(method)
+            slacks.append((_read_only(e), _read_only(v)))
+            free_dims.append(work.r)
+            level_x.append(work.x)
+            times.append(time.perf_counter() - t_level)
     if regularization > 0:
         work.solve_min_norm(warm[-1])
     x = work.x
+    if residuals is not None and x is not x_levels:
+        residuals = None  # the minimum-norm level moved x: recompute below
 
     # Safety net: the returned point satisfies every hard constraint, or we raise.
     hard_eq_res = 0.0
@@ -1072,10 +1146,11 @@ def solve_hierarchy(
             f"(backend {solver_name!r}, tolerance {cons.tol:.3g})"
         )
 
-    # A level whose own solution is the returned point (no later level moved it) has its residual in its slacks
-    residuals = _read_only(np.array([
-        float(level.weights_eq @ (e * e) + level.weights_ineq @ (v * v)) if xk is x and level.n_cols is not None
-        else level.residual(x) for level, xk, (e, v) in zip(levels, level_x, slacks)], dtype=float))
+    if residuals is None:
+        # a level whose own solution is the returned point (no later level moved it) has its residual in its slacks
+        residuals = _read_only(np.array([
+            float(level.weights_eq @ (e * e) + level.weights_ineq @ (v * v)) if xk is x and level.n_cols is not None
+            else level.residual(x) for level, xk, (e, v) in zip(levels, level_x, slacks)], dtype=float))
     x = _read_only(x.copy())
     for xk in level_x:
         xk.flags.writeable = False
