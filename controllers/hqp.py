@@ -886,6 +886,19 @@ class _Solver:
             )
 
 
+class _LevelLabels:
+    """``labels[k]``: "level k ('name')", the name of a level in messages, built only when asked for."""
+
+    __slots__ = ("_levels",)
+
+    def __init__(self, levels):
+        self._levels = levels
+
+    def __getitem__(self, k: int) -> str:
+        name = self._levels[k].name
+        return f"level {k} ({name!r})" if name else f"level {k}"
+
+
 _METHOD_CODE = {name: code for code, name in enumerate(_kernels.METHODS)}
 _INT_EMPTY = np.zeros(0, dtype=np.int64)
 
@@ -1069,14 +1082,13 @@ def solve_hierarchy(
         raise ParameterError(f"solve_hierarchy: n must be an int >= 1, got {n!r}")
     n = int(n)
     levels = tuple(levels)
-    labels = []
     for k, level in enumerate(levels):
-        if not isinstance(level, Level):
+        if type(level) is not Level and not isinstance(level, Level):
             raise ParameterError(f"solve_hierarchy: levels[{k}] must be a Level, got {type(level).__name__}")
-        label = f"level {k} ({level.name!r})" if level.name else f"level {k}"
-        if level.n_cols not in (None, n):
-            raise ParameterError(f"solve_hierarchy: {label} has {level.n_cols} columns, expected n = {n}")
-        labels.append(label)
+        if level.n_cols != n and level.n_cols is not None:
+            raise ParameterError(f"solve_hierarchy: {_LevelLabels(levels)[k]} has {level.n_cols} columns, "
+                                 f"expected n = {n}")
+    labels = _LevelLabels(levels)
     hard_label = "hard"
     if hard is not None:
         if not isinstance(hard, Level):
