@@ -20,7 +20,9 @@ machines differ).  Cases:
   the torques must agree to ``agreement_tol_Nm``; the ratio of the median
   solve times is ``cvxpy_speedup``.
 * **Against the QP backends**: each installed backend on the same ticks, its
-  largest torque difference to the default backend and its solve times.
+  largest torque difference to the default backend and its solve times; and
+  the row ``python``: the default backend with every level solved by the
+  Python path instead of the compiled kernel (``HQPParams(compiled=False)``).
 * **Growth**: tick time against the number of priority levels (1 to 6, the
   reference stack growing one level at a time) and against the number of
   joints (7, 14, 28: :func:`models.chain.build_chain` chains without a
@@ -60,6 +62,7 @@ import numpy as np
 import pinocchio as pin
 
 from controllers.base import ControllerContext
+from controllers.hqp import HQPParams
 from controllers.hqp_controller import HQPController
 from controllers.qp_backends import available_backends
 from controllers.registry import make_controller
@@ -430,7 +433,18 @@ def compare_backends(scenario: Scenario, folder: str | Path, ticks: int) -> dict
             ref = tau
         out[name] = {"solve_median_us": float(np.median(t) * 1e6), "solve_p99_us": float(np.percentile(t, 99) * 1e6),
                      "max_torque_diff_to_default_Nm": float(np.abs(tau - ref).max())}
+    # the default backend with every level in Python (HQPParams.compiled=False): what the compiled levels buy
+    ctrl = make_controller("walls", scenario.variants, scenario.walls)
+    ctrl.params = HQPParams(compiled=False)
+    tau, t = replay(ctrl, context, sampled)
+    out[PYTHON_LEVELS] = {"solve_median_us": float(np.median(t) * 1e6),
+                          "solve_p99_us": float(np.percentile(t, 99) * 1e6),
+                          "max_torque_diff_to_default_Nm": float(np.abs(tau - ref).max()) if ref is not None else None}
     return out
+
+
+#: the row of :func:`compare_backends` with the levels solved in Python instead of the compiled kernel
+PYTHON_LEVELS = "python"
 
 
 # --------------------------------------------------------------------------------------------
@@ -663,7 +677,9 @@ def format_report(report: dict) -> str:
             lines.append(f"{name:<10} {b['error']}")
         else:
             lines.append(f"{name:<10} {b['solve_median_us']:>10.1f} {b['solve_p99_us']:>10.1f} "
-                         f"{b['max_torque_diff_to_default_Nm']:>28.2g}")
+                         f"{_fmt(b['max_torque_diff_to_default_Nm'], '.2g'):>28}")
+    lines.append(f"  ({PYTHON_LEVELS}: the default backend with every level solved in Python, "
+                 "HQPParams(compiled=False))")
     lines += ["", f"{'levels':<10} {'tick median us':>15} {'HQP median us':>15}"]
     for p in r["levels_series"]:
         lines.append(f"{p['levels']:<10} {p['tick_time_median_us']:>15.1f} {_fmt(p['hqp_solve_median_us']):>15}")
