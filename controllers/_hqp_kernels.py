@@ -220,7 +220,7 @@ def _constraint_rows(x, N, has_N, G, h, rank_tol):
 
 @nb.njit(cache=True)
 def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol, feas_tol, mult_tol):
-    """``_Solver._working_set_step``: (kept, x, rows active at every optimum)."""
+    """``_Solver._working_set_step``, with its iterations: (kept, x, rows active at every optimum)."""
     n = x.shape[0]
     none = np.zeros((0, n))
     n_in = C.shape[0]
@@ -246,34 +246,53 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
         if (Gz @ z - hz).max() > tol:
             return False, x, none
         return True, _lift(x, z, N, has_N), none
-    r, m = z_ls.shape[0], GW.shape[0]
-    GWT = np.ascontiguousarray(GW.T)
-    K = np.zeros((r + m, r + m))
-    K[:r, :r] = (V1 * s1**2) @ np.ascontiguousarray(V1.T)
-    K[:r, r:] = GWT
-    K[r:, :r] = GW
-    rhs = _concat(V1 @ (s1 * c1), hW)
-    # the KKT system by its Schur complement when H = V1 S1^2 V1^T is definite (the unique solution), else
-    # by least squares: z = H^-1 (g - GW^T lam), (GW H^-1 GW^T) lam = GW H^-1 g - hW (Nocedal & Wright 2006, 16.1)
-    ok = False
-    sol = rhs
-    if s1.shape[0] == r:
-        Hi = (V1 / s1**2) @ np.ascontiguousarray(V1.T)
-        g = rhs[:r].copy()
-        HiGT = Hi @ GWT
-        ok, lam = _spd_solve(GW @ HiGT, GW @ (Hi @ g) - hW)
-        if ok:
-            sol = _concat(Hi @ g - HiGT @ lam, lam)
-    if not ok:
-        sol = _lstsq(K, rhs)
-    scale = 1.0 + np.abs(rhs).max()
-    if np.abs(K @ sol - rhs).max() > feas_tol * scale:
-        return False, x, none  # inconsistent working set
-    z, lam = sol[:r], sol[r:]
-    lam_scale = max(1.0, np.abs(lam).max())
-    if lam.min() < -mult_tol * lam_scale or (Gz @ z - hz).max() > tol:
-        return False, x, none
-    return True, _lift(x, z, N, has_N), _rows(_rows(Gx, W), lam > mult_tol * lam_scale)
+    r = z_ls.shape[0]
+    H = (V1 * s1**2) @ np.ascontiguousarray(V1.T)
+    g = V1 @ (s1 * c1)
+    definite = s1.shape[0] == r
+    Hi = (V1 / s1**2) @ np.ascontiguousarray(V1.T) if definite else H
+    for _ in range(min(2 * Gz.shape[0] + 2, 50)):  # controllers.hqp._working_set_iterations
+        GW, hW = _rows(Gz, W), _entries(hz, W)
+        m = GW.shape[0]
+        GWT = np.ascontiguousarray(GW.T)
+        K = np.zeros((r + m, r + m))
+        K[:r, :r] = H
+        K[:r, r:] = GWT
+        K[r:, :r] = GW
+        rhs = _concat(g, hW)
+        # the KKT system by its Schur complement when H = V1 S1^2 V1^T is definite (the unique solution), else
+        # by least squares: z = H^-1 (g - GW^T lam), (GW H^-1 GW^T) lam = GW H^-1 g - hW (Nocedal & Wright
+        # 2006, section 16.1)
+        ok = False
+        sol = rhs
+        if definite:
+            HiGT = Hi @ GWT
+            ok, lam = _spd_solve(GW @ HiGT, GW @ (Hi @ g) - hW)
+            if ok:
+                sol = _concat(Hi @ g - HiGT @ lam, lam)
+        if not ok:
+            sol = _lstsq(K, rhs)
+        scale = 1.0 + np.abs(rhs).max()
+        if np.abs(K @ sol - rhs).max() > feas_tol * scale:
+            return False, x, none  # inconsistent working set
+        z, lam = sol[:r].copy(), sol[r:].copy()
+        lam_scale = max(1.0, np.abs(lam).max()) if m else 1.0
+        viol = Gz @ z - hz
+        worst = int(np.argmax(viol))
+        if viol[worst] > tol:  # a row the step crossed: add it
+            W[worst] = True
+            continue
+        if m and lam.min() < -mult_tol * lam_scale:  # a row that pulls the wrong way: drop it
+            drop = int(np.argmin(lam))
+            for i in range(W.shape[0]):
+                if W[i]:
+                    if drop == 0:
+                        W[i] = False
+                        break
+                    drop -= 1
+            continue
+        return True, _lift(x, z, N, has_N), _rows(_rows(Gx, W), lam > mult_tol * lam_scale)
+    return False, x, none
 
 
 @nb.njit(cache=True)

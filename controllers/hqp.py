@@ -733,7 +733,7 @@ class _Solver:
         return method, e, v
 
     def _working_set_step(self, level, V1, s1, c1, z_ls):
-        r"""One primal active-set step from the least-squares point, kept only if it is provably optimal.
+        r"""Active-set steps from the least-squares point, kept only if the result is provably optimal.
 
         The rows violated at the unconstrained point :math:`z_{ls}` form a
         working set W, held with equality. An inequality-only level is then
@@ -746,13 +746,17 @@ class _Solver:
                   \begin{bmatrix} V_1 S_1 c_1 \\ h_W \end{bmatrix},
                   \qquad H = V_1 S_1^2 V_1^T,
 
-        and the point is kept if it satisfies every row and
-        :math:`\lambda \ge 0` (the KKT conditions of the level's QP, so it is
-        an optimum; e.g. Nocedal & Wright, *Numerical Optimization*, 2nd ed.,
-        2006, section 16.5, section number from memory). Rows with a clearly positive multiplier are
-        returned for elimination, as after a backend solve. Anything else
-        (a level with both kinds of rows, bounds on the free variables, a
-        failed check) returns None and the level goes to the backend.
+        then adds the most violated row to W, or else drops the row of the
+        most negative multiplier, and solves again (the working-set updates of
+        the primal active-set method, without its step-length rule; Nocedal &
+        Wright, *Numerical Optimization*, 2nd ed., 2006, Algorithm 16.3), at
+        most :func:`_working_set_iterations` times. The point is kept once it
+        satisfies every row with :math:`\lambda \ge 0`: the KKT conditions of
+        the level's QP, so it is an optimum whatever path led there. Rows with
+        a clearly positive multiplier are returned for elimination, as after a
+        backend solve. Anything else (a level with both kinds of rows, bounds
+        on the free variables, no verified point within the iterations)
+        returns None and the level goes to the backend.
         """
         n_eq, n_in = level.A.shape[0], level.C.shape[0]
         if n_eq and n_in:
@@ -774,23 +778,35 @@ class _Solver:
             if np.max(Gz @ z - hz) > tol:
                 return None
             return self._lift(z), np.zeros((0, self.n))
-        r, m = self.r, GW.shape[0]
-        K = np.zeros((r + m, r + m))
-        K[:r, :r] = (V1 * s1**2) @ V1.T
-        K[:r, r:] = GW.T
-        K[r:, :r] = GW
-        rhs = np.concatenate([V1 @ (s1 * c1), hW])
-        sol = np.linalg.lstsq(K, rhs, rcond=None)[0]
-        scale = 1.0 + float(np.abs(rhs).max())
-        if np.abs(K @ sol - rhs).max() > self.params.feasibility_tol * scale:
-            return None  # inconsistent working set
-        z, lam = sol[:r], sol[r:]
-        lam_scale = max(1.0, float(np.abs(lam).max()))
-        if lam.min() < -self.params.multiplier_tol * lam_scale or np.max(Gz @ z - hz) > tol:
-            return None
-        # the x-space rows of W with a clearly positive multiplier are active at every optimum
-        rows_x = Gx[W] if not n_in else None
-        return self._lift(z), rows_x[lam > self.params.multiplier_tol * lam_scale]
+        r = self.r
+        H, g = (V1 * s1**2) @ V1.T, V1 @ (s1 * c1)
+        mult_tol = self.params.multiplier_tol
+        for _ in range(_working_set_iterations(Gz.shape[0])):
+            GW, hW = Gz[W], hz[W]
+            m = GW.shape[0]
+            K = np.zeros((r + m, r + m))
+            K[:r, :r] = H
+            K[:r, r:] = GW.T
+            K[r:, :r] = GW
+            rhs = np.concatenate([g, hW])
+            sol = np.linalg.lstsq(K, rhs, rcond=None)[0]
+            scale = 1.0 + float(np.abs(rhs).max())
+            if np.abs(K @ sol - rhs).max() > self.params.feasibility_tol * scale:
+                return None  # inconsistent working set
+            z, lam = sol[:r], sol[r:]
+            lam_scale = max(1.0, float(np.abs(lam).max(initial=0.0)))
+            viol = Gz @ z - hz
+            worst = int(np.argmax(viol))
+            if viol[worst] > tol:  # a row the step crossed: add it
+                W[worst] = True
+                continue
+            if m and lam.min() < -mult_tol * lam_scale:  # a row that pulls the wrong way: drop it
+                W[np.flatnonzero(W)[int(np.argmin(lam))]] = False
+                continue
+            # the KKT conditions hold: the x-space rows of W with a clearly positive multiplier are active
+            # at every optimum
+            return self._lift(z), Gx[W][lam > mult_tol * lam_scale]
+        return None
 
     def _level_qp(self, level, label, V1, s1, c1, warm_x):
         r, m_i = self.r, level.C.shape[0]
@@ -964,6 +980,11 @@ def _solve_compiled(work: _Solver, levels: tuple, labels: list, warm: list):
     slacks = [(e_all[eo[k]: eo[k + 1]], v_all[io[k]: io[k + 1]]) for k in range(p)]
     methods = [_kernels.METHODS[c] for c in codes.tolist()]
     return methods, slacks, seconds, free.tolist(), list(X), residuals
+
+
+def _working_set_iterations(m: int) -> int:
+    """Active-set iterations tried on a level with ``m`` constraint rows before the backend takes it."""
+    return min(2 * m + 2, 50)
 
 
 def _eliminate_hard_eq(hard: Level, n: int, params: HQPParams, label: str):

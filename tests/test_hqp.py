@@ -285,6 +285,25 @@ def test_compiled_levels_take_the_same_path_to_the_same_point_as_python(stack, w
     assert fast.free_dims == slow.free_dims
 
 
+@pytest.mark.parametrize("compiled", [True, False], ids=["compiled", "python"])
+@pytest.mark.parametrize("case", ["drop", "add"])
+def test_working_set_iterations_reach_the_constrained_optimum(case, compiled):
+    """min ||x - t||^2 under two hard rows, where the rows violated at t are not the active set at the optimum:
+    one must be dropped (negative multiplier), or one satisfied at t must be added (crossed by the first step)."""
+    if case == "drop":  # both rows violated at t = (2, 2); at the optimum (1, 1) only x1 + x2 <= 2 is active
+        t, G, h = np.array([2.0, 2.0]), np.array([[1.0, 1.0], [1.0, 0.0]]), np.array([2.0, 1.5])
+    else:  # only x1 <= 1 violated at t = (3, 0); its projection (1, 0) breaks x1 + x2 >= 1.5
+        t, G, h = np.array([3.0, 0.0]), np.array([[1.0, 0.0], [-1.0, -1.0]]), np.array([1.0, -1.5])
+    res = solve_hierarchy([Level(eq=[(np.eye(2), t)])], 2, hard=Level(ineq=[(G, h)]),
+                          params=HQPParams(compiled=compiled))
+    x = cp.Variable(2)  # reference: cvxpy + Clarabel on the same QP
+    cp.Problem(cp.Minimize(cp.sum_squares(x - t)), [G @ x <= h]).solve(solver=cp.CLARABEL)
+    np.testing.assert_allclose(res.x, x.value, atol=1e-7)
+    # closed form of the KKT point (projection onto the active row): (1, 1) and (1, 0.5)
+    np.testing.assert_allclose(res.x, [1.0, 1.0] if case == "drop" else [1.0, 0.5], atol=1e-9)
+    assert res.level_methods[0] == "working-set" and res.qp_solves == 0
+
+
 # ------------------------------------------------------------------------------------------
 # Strict priority (REFERENCES.md section 8)
 
