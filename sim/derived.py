@@ -14,7 +14,7 @@ format version 2 of :mod:`sim.runlog`):
 
   with :math:`{}^A M_B = ({}^o M_A)^{-1}\\, {}^o M_B = (R, p)` and
   :math:`{}^A X_B^{*}` its action on wrenches (Featherstone, *Rigid Body
-  Dynamics Algorithms*, 2008, section 2.8), the law of
+  Dynamics Algorithms*, 2008, ch. 2), the law of
   :func:`models.cuffs.cuff_wrench` and of :meth:`sim.plant.CoupledPlant.update_cuffs`;
 * ``cuff_force_human_world`` (n, n_cuffs, 3): the force on the human in world
   axes, :math:`f_o = R_{oB}\\, f_B`.
@@ -30,8 +30,8 @@ pinocchio models of the run's URDFs: per joint,
 :math:`{}^o M_i = {}^o M_{\\lambda(i)}\\, {}^{\\lambda(i)} M_{i,0}\\, \\exp(\\hat a_i q_i)`
 with the joint placement of the model and, for a revolute joint of unit axis
 a, the Rodrigues rotation :math:`\\cos q\\, I + \\sin q\\, [a]_\\times + (1 - \\cos q)\\, a a^T`
-(Featherstone 2008, section 4.4; Murray, Li & Sastry, *A Mathematical
-Introduction to Robotic Manipulation*, 1994, eq. 2.14).  A model with other
+(Featherstone 2008, ch. 4; Murray, Li & Sastry, *A Mathematical
+Introduction to Robotic Manipulation*, 1994, ch. 2: the exponential of a twist).  A model with other
 joint types falls back to ``pinocchio.forwardKinematics`` tick by tick.
 """
 
@@ -49,6 +49,7 @@ __all__ = ["DERIVED_CUFF_COLUMNS", "cuff_columns", "joint_placements"]
 #: The columns :func:`cuff_columns` returns.
 DERIVED_CUFF_COLUMNS = ("cuff_wrench_exo", "cuff_force_human_world")
 
+_BLOCK_TICKS = 4096  # ticks per block of the vectorised kinematics
 _UNIT_AXES = {"JointModelRX": (1.0, 0.0, 0.0), "JointModelRY": (0.0, 1.0, 0.0), "JointModelRZ": (0.0, 0.0, 1.0)}
 
 
@@ -193,18 +194,22 @@ def cuff_columns(run: Run) -> dict[str, np.ndarray]:
     je, pe = _frames(exo_model, [frames[c][0] for c in cuffs], f"{where}, exo model")
     jh, ph = _frames(human_model, [frames[c][1] for c in cuffs], f"{where}, human model")
     ph = [P * _offset(offsets[c], f"{where}: meta.json models.cuff_human_offsets[{c!r}]") for P, c in zip(ph, cuffs)]
-    Ra, pa = _cuff_placements(exo_model, arrays["q_exo"], je, pe)
-    Rb, pb = _cuff_placements(human_model, arrays["q_human"], jh, ph)
-    w_b = np.asarray(arrays["cuff_wrench_human"], dtype=float)
-    f_b, tau_b = w_b[..., :3, None], w_b[..., 3:, None]
-    RaT = np.swapaxes(Ra, -1, -2)
-    R = RaT @ Rb  # aMb = oMa^-1 oMb
-    p = (RaT @ (pb - pa)[..., None])[..., 0]
-    f = (R @ f_b)[..., 0]
-    w_a = np.empty_like(w_b)
-    w_a[..., :3] = -f
-    w_a[..., 3:] = -((R @ tau_b)[..., 0] + np.cross(p, f))
-    return {"cuff_wrench_exo": w_a, "cuff_force_human_world": (Rb @ f_b)[..., 0]}
+    w_h = np.asarray(arrays["cuff_wrench_human"], dtype=float)
+    q_e, q_h = np.asarray(arrays["q_exo"], dtype=float), np.asarray(arrays["q_human"], dtype=float)
+    w_a, f_o = np.empty_like(w_h), np.empty(w_h.shape[:-1] + (3,))
+    for k in range(0, len(w_h), _BLOCK_TICKS):  # in blocks: the temporaries stay small
+        ticks = slice(k, k + _BLOCK_TICKS)
+        Ra, pa = _cuff_placements(exo_model, q_e[ticks], je, pe)
+        Rb, pb = _cuff_placements(human_model, q_h[ticks], jh, ph)
+        f_b, tau_b = w_h[ticks, :, :3, None], w_h[ticks, :, 3:, None]
+        RaT = np.swapaxes(Ra, -1, -2)
+        R = RaT @ Rb  # aMb = oMa^-1 oMb
+        p = (RaT @ (pb - pa)[..., None])[..., 0]
+        f = (R @ f_b)[..., 0]
+        w_a[ticks, :, :3] = -f
+        w_a[ticks, :, 3:] = -((R @ tau_b)[..., 0] + np.cross(p, f))
+        f_o[ticks] = (Rb @ f_b)[..., 0]
+    return {"cuff_wrench_exo": w_a, "cuff_force_human_world": f_o}
 
 
 def _model(run: Run, name: str):

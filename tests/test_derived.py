@@ -75,8 +75,10 @@ def test_log_stores_neither_derived_column_but_the_strap_offsets(wall_run):
     assert sorted(offsets) == sorted(run.meta["cuffs"]) and np.shape(offsets["hand"]) == (4, 4)
 
 
-def test_recomputed_columns_equal_the_plants_values(wall_run):
+@pytest.mark.parametrize("block_ticks", [4096, 97], ids=["one-block", "many-blocks"])
+def test_recomputed_columns_equal_the_plants_values(wall_run, monkeypatch, block_ticks):
     _, _, run, plant = wall_run
+    monkeypatch.setattr(importlib.import_module("sim.derived"), "_BLOCK_TICKS", block_ticks)
     derived = cuff_columns(run)
     for name in DERIVED_CUFF_COLUMNS:
         expected = plant[name]
