@@ -546,8 +546,8 @@ def _memory_child(scenario_path: str, duration_s: float, out: str) -> dict:
     scenario = reference_scenario(scenario_path, duration_s)
     run_scenario(scenario, "walls", out)
     peak_kib = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss  # Linux: KiB
-    log = sum(p.stat().st_size for p in (Path(out) / "log").glob("*.npz"))
-    base = sum(p.stat().st_size for p in (Path(out) / "human_alone" / "log").glob("*.npz"))
+    log = sum(p.stat().st_size for p in (Path(out) / "log").glob("chunk_*"))
+    base = sum(p.stat().st_size for p in (Path(out) / "human_alone" / "log").glob("chunk_*"))
     return {"peak_kib": int(peak_kib), "log_bytes": int(log), "baseline_log_bytes": int(base)}
 
 

@@ -2,9 +2,11 @@
 
 Notation: :math:`f_{c}(t_k)` is the force part of cuff c's wrench on the
 human at tick k, :math:`\\tau_h(t_k)` the human's joint torques, N the number
-of ticks.  Every function takes the arrays of :func:`sim.runlog.load_run`.
-The keys of :func:`run_metrics` are a contract: they keep their names and
-meaning.
+of ticks.  Every function takes the arrays of :func:`sim.runlog.load_run`;
+those that read ``cuff_wrench_exo`` or ``cuff_force_human_world``, which a
+run log does not store, take them with the logged ones:
+``run.arrays | sim.derived.cuff_columns(run)``.  The keys of
+:func:`run_metrics` are a contract: they keep their names and meaning.
 """
 
 from __future__ import annotations
@@ -241,7 +243,7 @@ def wall_normal_series(arrays: Mapping[str, np.ndarray], point_m, normal, hand_c
     """
     n = np.asarray(normal, dtype=float)
     n = n / np.linalg.norm(n)
-    felt = -(np.asarray(arrays["cuff_force_human_world"])[:, hand_cuff, :] @ n)
+    felt = -(_derived_column(arrays, "cuff_force_human_world")[:, hand_cuff, :] @ n)
     return plane_penetration_m(arrays["p_hand_human"], point_m, n), felt
 
 
@@ -402,7 +404,7 @@ def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: 
     model = arm.model
     data = model.createData()
     q, dq = np.asarray(arrays["q_exo"]), np.asarray(arrays["dq_exo"])
-    w = np.asarray(arrays["cuff_wrench_exo"])
+    w = _derived_column(arrays, "cuff_wrench_exo")
     n, nv = q.shape[0], model.nv
     ddq = np.gradient(dq, dt_s, axis=0) if n > 2 else np.zeros_like(dq)
     fids = [model.getFrameId(f) for f in cuff_frames]
@@ -427,6 +429,15 @@ def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: 
         out["kinetic_J"][k] = 0.5 * dq[k] @ M @ dq[k]
         out["potential_J"][k] = pin.computePotentialEnergy(model, data, q[k])
     return out
+
+
+def _derived_column(arrays: Mapping[str, np.ndarray], name: str) -> np.ndarray:
+    """A column of :func:`sim.derived.cuff_columns`, with an error that says where to get it."""
+    try:
+        return np.asarray(arrays[name])
+    except KeyError:
+        raise KeyError(f"no column {name!r} in the arrays: the run log does not store it; pass "
+                       "run.arrays | sim.derived.cuff_columns(run)") from None
 
 
 # -- safety -------------------------------------------------------------------------------------
@@ -511,7 +522,7 @@ def run_metrics(
         "cuffs": cuffs,
         "interaction_work_J": None,
         "interaction_power_peak_W": None,
-        "apparent_mass_hand_kg": apparent_mass_kg(np.asarray(arrays["cuff_force_human_world"])[:, hand],
+        "apparent_mass_hand_kg": apparent_mass_kg(_derived_column(arrays, "cuff_force_human_world")[:, hand],
                                                   arrays["p_hand_human"], dt_s),
         "gravity_share_left": None,
         "inertia_share_left": None,
@@ -529,7 +540,7 @@ def run_metrics(
     }
     out |= solver_metrics(timing or {}, arrays.get("diag_fallback"))
     if robot_terms is not None:
-        P = interaction_power_W(arrays["cuff_wrench_exo"], robot_terms["cuff_twist"])
+        P = interaction_power_W(_derived_column(arrays, "cuff_wrench_exo"), robot_terms["cuff_twist"])
         out["interaction_work_J"] = interaction_work_J(P, dt_s)
         out["interaction_power_peak_W"] = float(np.abs(P).max()) if n else 0.0
         out["gravity_share_left"], out["inertia_share_left"] = compensation_shares(

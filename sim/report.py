@@ -154,8 +154,10 @@ def _wall_spec(meta: Mapping) -> dict | None:
 
 
 def _wall_series(run, spec: Mapping) -> tuple[np.ndarray, np.ndarray]:
+    from .derived import cuff_columns
+
     hand = hand_cuff_index(run.meta["cuffs"], spec.get("sensor", "hand"))
-    return wall_normal_series(run.arrays, spec["point_m"], spec["normal"], hand)
+    return wall_normal_series(run.arrays | cuff_columns(run), spec["point_m"], spec["normal"], hand)
 
 
 def write_run_report(folder: str | Path, metrics: Mapping | None = None) -> Path:

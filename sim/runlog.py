@@ -2,17 +2,49 @@
 
 A run folder looks like this::
 
-    meta.json                  status, column shapes/dtypes, chunk size, user metadata
+    meta.json                  status, column shapes/dtypes/encodings, chunk size, user metadata
     metrics.json               optional, written by :meth:`RunLog.close`
-    log/chunk_000000.npz       ticks 0 .. chunk_ticks-1, one ``.npy`` entry per column
-    log/chunk_000001.npz       ...
+    log/chunk_000000.zip       ticks 0 .. chunk_ticks-1, one entry per column
+    log/chunk_000001.zip       ...
 
-Every tick is one row of every column.  :class:`RunLog` keeps one preallocated
-buffer of ``chunk_ticks`` rows per column; a full buffer is written as one chunk
-file and then reused, so a crash loses at most the ticks of the current chunk.
-``meta.json`` is written when the log is created (``"status": "running"``) and
-rewritten by :meth:`RunLog.close` with the final status, so a folder whose
-status is still ``"running"`` is the trace of a process that died.
+Every tick is one row of every column.  :class:`RunLog` keeps two preallocated
+buffers of ``chunk_ticks`` rows per column: a full buffer is handed to a
+background thread, which encodes it and writes it as one chunk file, while the
+other buffer fills.  A crash loses at most the ticks of the current chunk and
+of the one being written.  ``meta.json`` is written when the log is created
+(``"status": "running"``) and rewritten by :meth:`RunLog.close` with the final
+status, so a folder whose status is still ``"running"`` is the trace of a
+process that died.
+
+Chunk format (``format_version`` 2)
+-----------------------------------
+A chunk is a zip archive (deflate, level 1) holding ``ticks.json``
+(``{"ticks": n}``, the rows of this chunk) and one entry ``<column>.bin`` per
+column: a byte stream of ``n * prod(shape)`` values, lossless, encoded as
+named by the column's ``encoding`` in ``meta.json``:
+
+* ``"xor_shuffle"`` (float and complex columns; complex as its real and
+  imaginary parts).  Each value's bit pattern is read as a little-endian
+  unsigned integer of its width w (2, 4 or 8 bytes) and, from the second row
+  on, XOR-ed with the same value of the previous row,
+  :math:`x'_k = x_k \\oplus x_{k-1}` (the first row is kept as it is): slowly
+  changing values share sign, exponent and leading mantissa bits, which the XOR
+  turns into zero bits (the XOR with the previous value of Pelkonen et al.,
+  "Gorilla: a fast, scalable, in-memory time series database", Proc. VLDB
+  Endowment 8(12), 2015).  The integers are then byte-shuffled
+  -- byte 0 (least significant) of every value first, then byte 1, ... --
+  so that bytes of the same significance, which are alike, stand together (the
+  shuffle filter of HDF5 and Blosc), here ordered byte plane, then element of
+  the row, then row: the stream is the ``(w, elements, n)`` transpose of the
+  ``(n, elements, w)`` bytes.  Decoding undoes the shuffle and takes the
+  running XOR along the rows (``numpy.bitwise_xor.accumulate``).
+* ``"raw"`` (bool and integer columns): the little-endian bytes in C order.
+
+The zip deflate compresses every entry; the zip CRC-32 catches a damaged one.
+
+Format version 1 (read, no longer written) stored each chunk as
+``log/chunk_NNNNNN.npz``, an uncompressed :func:`numpy.savez` archive with one
+``.npy`` entry per column; :func:`load_run` reads both.
 
 Design notes
 ------------
@@ -20,14 +52,15 @@ Design notes
   name in the same directory and moved into place with :func:`os.replace`, so a
   reader never sees half a file.  This protects against the process dying; it
   does not ``fsync`` and so gives no guarantee against power loss.
-* **Bit-for-bit determinism.**  Chunks are written with :mod:`zipfile` and
-  :func:`numpy.lib.format.write_array` -- the layout of an uncompressed
-  :func:`numpy.savez` archive, ``allow_pickle=False`` -- with every zip entry
-  stamped with a fixed date (1980-01-01).  :func:`numpy.savez` happens to get
-  the same fixed date from :class:`zipfile.ZipInfo`'s default on current
-  CPython; setting it explicitly makes "same data, same bytes" a property of
-  this module rather than of that implementation detail.  Chunks load with
-  ``numpy.load(..., allow_pickle=False)``.
+* **Background writes.**  Encoding and compressing a chunk (zlib and numpy
+  release the GIL) run on a writer thread, so on a second core they overlap
+  the simulation.  At most one chunk is in flight: handing over the next one
+  first waits for it.  An error of the writer is raised in the caller's thread
+  by the next hand-over, :meth:`RunLog.sync` or :meth:`RunLog.close`; the
+  chunk stays buffered and is written again by the next of these calls.
+* **Bit-for-bit determinism.**  Every zip entry is stamped with a fixed date
+  (1980-01-01) and fixed attributes, and the encoding has no state beyond the
+  chunk, so the same data gives the same bytes (with the same zlib).
 * **JSON policy.**  Metadata and metrics are converted to plain JSON (numpy
   scalars and arrays, tuples and relative :class:`~pathlib.PurePath` objects are
   converted).  Non-finite numbers (NaN, inf), absolute paths and
@@ -46,7 +79,9 @@ import os
 import platform
 import re
 import subprocess
+import threading
 import zipfile
+import zlib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from importlib import import_module
@@ -70,13 +105,19 @@ __all__ = [
 
 _log = logging.getLogger(__name__)
 
-FORMAT_VERSION = 1
-"""Version of the run-folder layout, stored in ``meta.json`` as ``format_version``."""
+FORMAT_VERSION = 2
+"""Version of the run-folder layout written, stored in ``meta.json`` as ``format_version``."""
+READ_FORMAT_VERSIONS = (1, 2)
+"""Versions :func:`load_run` reads (1: uncompressed ``.npz`` chunks; 2: encoded ``.zip`` chunks)."""
 
 META_FILE = "meta.json"
 METRICS_FILE = "metrics.json"
 CHUNK_DIR = "log"
-_CHUNK_RE = re.compile(r"^chunk_(\d{6})\.npz$")
+_CHUNK_SUFFIX = {1: ".npz", 2: ".zip"}  # format version -> chunk file suffix
+_CHUNK_RE = {v: re.compile(rf"^chunk_(\d{{6}}){re.escape(sfx)}$") for v, sfx in _CHUNK_SUFFIX.items()}
+_TICKS_ENTRY = "ticks.json"  # rows of a version-2 chunk
+_ENTRY_SUFFIX = ".bin"  # column entries of a version-2 chunk
+_ENCODINGS = ("xor_shuffle", "raw")
 _FINAL_STATUSES = ("complete", "failed", "interrupted")
 _RESERVED_META_KEYS = frozenset(
     {"format_version", "status", "reason", "columns", "chunk_ticks", "ticks", "chunks"}
@@ -100,13 +141,28 @@ class RunLogError(SandboxError, RuntimeError):
 # ----------------------------------------------------------------------------------------------
 
 
+def _word_bytes(dtype: np.dtype) -> int | None:
+    """Width [bytes] of the words XOR-ed by the ``xor_shuffle`` encoding, or None if it does not apply."""
+    width = dtype.itemsize if dtype.kind == "f" else dtype.itemsize // 2 if dtype.kind == "c" else 0
+    return width if width in (2, 4, 8) else None
+
+
 @dataclass(frozen=True)
 class _Column:
     shape: tuple[int, ...]
     dtype: np.dtype
+    encoding: str | None = None  # None: a version-1 column (a plain .npy entry)
 
     def to_json(self) -> dict[str, Any]:
-        return {"shape": list(self.shape), "dtype": self.dtype.name}
+        out = {"shape": list(self.shape), "dtype": self.dtype.name}
+        if self.encoding is not None:
+            out["encoding"] = self.encoding
+        return out
+
+    @property
+    def row_values(self) -> int:
+        """Scalars per tick."""
+        return math.prod(self.shape)
 
 
 def _parse_shape(name: str, shape: Any) -> tuple[int, ...]:
@@ -143,12 +199,11 @@ def _parse_column(name: Any, spec: Any) -> _Column:
         and isinstance(spec[0], (tuple, list))
         and not isinstance(spec[1], (int, np.integer))
     )
-    if is_pair:
-        return _Column(_parse_shape(name, spec[0]), _parse_dtype(name, spec[1]))
-    return _Column(_parse_shape(name, spec), np.dtype(np.float64))
+    shape, dtype = (spec[0], _parse_dtype(name, spec[1])) if is_pair else (spec, np.dtype(np.float64))
+    return _Column(_parse_shape(name, shape), dtype, "xor_shuffle" if _word_bytes(dtype) else "raw")
 
 
-def _columns_from_meta(meta: Mapping[str, Any], where: str) -> dict[str, _Column]:
+def _columns_from_meta(meta: Mapping[str, Any], where: str, version: int) -> dict[str, _Column]:
     cols = meta.get("columns")
     if not isinstance(cols, Mapping) or not cols:
         raise RunLogError(f"{where} has no 'columns' table")
@@ -156,7 +211,14 @@ def _columns_from_meta(meta: Mapping[str, Any], where: str) -> dict[str, _Column
     for name, spec in cols.items():
         if not isinstance(spec, Mapping) or "shape" not in spec or "dtype" not in spec:
             raise RunLogError(f"{where}: column {name!r} needs 'shape' and 'dtype', got {spec!r}")
-        out[name] = _Column(_parse_shape(name, spec["shape"]), _parse_dtype(name, spec["dtype"]))
+        shape, dtype = _parse_shape(name, spec["shape"]), _parse_dtype(name, spec["dtype"])
+        encoding = None
+        if version >= 2:
+            encoding = spec.get("encoding")
+            if encoding not in _ENCODINGS or (encoding == "xor_shuffle" and not _word_bytes(dtype)):
+                raise RunLogError(f"{where}: column {name!r} of dtype {dtype.name} has no valid encoding"
+                                  f" (one of {list(_ENCODINGS)}; xor_shuffle for floats), got {encoding!r}")
+        out[name] = _Column(shape, dtype, encoding)
     return out
 
 
@@ -203,20 +265,81 @@ def _write_json(path: Path, obj: Mapping[str, Any]) -> None:
     _atomic_write_bytes(path, text.encode("utf-8"))
 
 
-def _write_npz(path: Path, arrays: Mapping[str, np.ndarray]) -> None:
-    """Write ``arrays`` as an uncompressed ``.npz`` with fixed timestamps, atomically."""
+def _encode(arr: np.ndarray, col: _Column) -> bytes:
+    """The ``.bin`` entry of one column of a chunk: ``arr`` of shape (rows, *shape), encoded (module docstring)."""
+    rows = len(arr)
+    if col.encoding == "raw":
+        return np.ascontiguousarray(arr, dtype=col.dtype.newbyteorder("<")).tobytes()
+    w = _word_bytes(col.dtype)
+    words = np.ascontiguousarray(arr).view(f"=u{w}").reshape(rows, -1).astype(f"<u{w}", copy=False)
+    x = words.copy()
+    np.bitwise_xor(words[1:], words[:-1], out=x[1:])  # x_k = u_k XOR u_(k-1); row 0 as it is
+    return np.ascontiguousarray(x.view(np.uint8).reshape(rows, -1, w).transpose(2, 1, 0)).tobytes()
+
+
+def _decode(data: bytes, col: _Column, rows: int) -> np.ndarray:
+    """Inverse of :func:`_encode`: the (rows, *shape) array of one column entry of ``rows`` ticks."""
+    if col.encoding == "raw":
+        arr = np.frombuffer(data, dtype=col.dtype.newbyteorder("<")).astype(col.dtype, copy=False)
+        return arr.reshape(rows, *col.shape)
+    w = _word_bytes(col.dtype)
+    b = np.frombuffer(data, dtype=np.uint8).reshape(w, -1, rows).transpose(2, 1, 0)
+    x = np.ascontiguousarray(b).view(f"<u{w}")[..., 0]
+    words = np.bitwise_xor.accumulate(x, axis=0).astype(f"=u{w}", copy=False)
+    return np.ascontiguousarray(words).view(col.dtype).reshape(rows, *col.shape)
+
+
+def _write_chunk_file(path: Path, arrays: Mapping[str, np.ndarray], columns: Mapping[str, _Column], rows: int
+                      ) -> None:
+    """Write one version-2 chunk of ``rows`` ticks (zip, deflate level 1, fixed timestamps), atomically."""
     tmp = path.with_name(path.name + ".tmp")
-    with zipfile.ZipFile(tmp, mode="w", compression=zipfile.ZIP_STORED, allowZip64=True) as zf:
-        for name, arr in arrays.items():
-            info = zipfile.ZipInfo(name + ".npy", date_time=_ZIP_DATE_TIME)
-            info.compress_type = zipfile.ZIP_STORED
-            with zf.open(info, mode="w", force_zip64=True) as fh:
-                np.lib.format.write_array(fh, np.ascontiguousarray(arr), allow_pickle=False)
-    os.replace(tmp, path)
+    try:
+        with zipfile.ZipFile(tmp, mode="w", compression=zipfile.ZIP_DEFLATED, allowZip64=True) as zf:
+            entries = [(_TICKS_ENTRY, json.dumps({"ticks": rows}).encode("utf-8"))]
+            entries += [(name + _ENTRY_SUFFIX, _encode(arrays[name][:rows], col)) for name, col in columns.items()]
+            for entry, data in entries:
+                info = zipfile.ZipInfo(entry, date_time=_ZIP_DATE_TIME)
+                info.create_system = 3  # the same bytes on every platform
+                info.external_attr = 0o644 << 16
+                zf.writestr(info, data, compress_type=zipfile.ZIP_DEFLATED, compresslevel=1)
+        os.replace(tmp, path)
+    except OSError as e:
+        raise RunLogError(f"could not write chunk file {str(path)!r}: {e}") from e
 
 
-def _chunk_name(index: int) -> str:
-    return f"chunk_{index:06d}.npz"
+def _chunk_name(index: int, version: int = FORMAT_VERSION) -> str:
+    return f"chunk_{index:06d}{_CHUNK_SUFFIX[version]}"
+
+
+class _ChunkJob:
+    """One chunk written on a background thread; :meth:`result` waits for it and re-raises its error.
+
+    After a failure, the next :meth:`result` writes the chunk again, in the calling thread.
+    """
+
+    def __init__(self, path: Path, arrays: Mapping[str, np.ndarray], columns: Mapping[str, _Column],
+                 rows: int) -> None:
+        self.path, self._arrays, self._columns, self.rows = path, arrays, columns, rows
+        self._error: BaseException | None = None
+        self._thread: threading.Thread | None = threading.Thread(
+            target=self._run, name=f"run log writer {path.name}", daemon=False)
+        self._thread.start()
+
+    def _run(self) -> None:
+        try:
+            _write_chunk_file(self.path, self._arrays, self._columns, self.rows)
+        except BaseException as e:  # handed to the caller's thread by result()
+            self._error = e
+
+    def result(self) -> None:
+        if self._thread is not None:
+            self._thread.join()
+            self._thread = None
+        else:  # a retry of a failed write
+            self._run()
+        if self._error is not None:
+            error, self._error = self._error, None
+            raise error
 
 
 # ----------------------------------------------------------------------------------------------
@@ -254,9 +377,10 @@ class RunLog:
 
     Notes
     -----
-    Memory: one buffer of ``chunk_ticks`` rows per column.  :meth:`append`
-    copies each value into its row and allocates nothing else for ndarray
-    inputs.  As a context manager the log closes itself: ``"complete"`` on
+    Memory: two buffers of ``chunk_ticks`` rows per column (one filling, one
+    being written by the writer thread; see the module docstring).
+    :meth:`append` copies each value into its row and allocates nothing else
+    for ndarray inputs.  As a context manager the log closes itself: ``"complete"`` on
     normal exit, ``"failed"`` on an exception, ``"interrupted"`` on
     ``KeyboardInterrupt`` (or another non-``Exception`` such as ``SystemExit``);
     the exception is re-raised.
@@ -312,12 +436,16 @@ class RunLog:
         }
         _write_json(self._folder / META_FILE, self._meta)
 
-        self._buffers = {
-            name: np.empty((self._chunk_ticks, *col.shape), dtype=col.dtype) for name, col in self._columns.items()
-        }
+        # two buffer sets: the writer thread encodes one while append fills the other
+        self._buffer_sets = [
+            {name: np.empty((self._chunk_ticks, *col.shape), dtype=col.dtype) for name, col in self._columns.items()}
+            for _ in range(2)
+        ]
+        self._buffers = self._buffer_sets[0]
+        self._job: _ChunkJob | None = None  # the chunk in flight (or whose write failed), at most one
         self._row = 0
         self._ticks = 0
-        self._chunks = 0
+        self._chunks = 0  # chunks on disk
         self._closed = False
 
     # -- properties ------------------------------------------------------------------------------
@@ -381,26 +509,44 @@ class RunLog:
             if not np.can_cast(arr.dtype, col.dtype, casting="same_kind"):
                 raise RunLogError(f"column {name!r} has dtype {col.dtype.name}, cannot store a {arr.dtype.name} value")
             arrays[name] = arr
-        if self._row == self._chunk_ticks:  # a previous chunk write failed: retry before overwriting
-            self._write_chunk()
+        if self._row == self._chunk_ticks:  # a previous hand-over failed: retry before overwriting
+            self._hand_over()
         row = self._row
+        buffers = self._buffers
         for name, arr in arrays.items():
-            self._buffers[name][row] = arr
+            buffers[name][row] = arr
         self._row += 1
         self._ticks += 1
         if self._row == self._chunk_ticks:
-            self._write_chunk()
+            self._hand_over()
 
-    def _write_chunk(self) -> None:
-        path = self._folder / CHUNK_DIR / _chunk_name(self._chunks)
-        rows = self._row
-        try:
-            _write_npz(path, {name: buf[:rows] for name, buf in self._buffers.items()})
-        except OSError as e:
-            raise RunLogError(f"could not write chunk file {str(path)!r}: {e}") from e
-        _log.debug("wrote %s (%d ticks)", path.name, rows)
+    def _wait_writer(self) -> None:
+        """Wait for the chunk in flight; re-raise its error (it is then written again by the next call)."""
+        if self._job is None:
+            return
+        self._job.result()
+        _log.debug("wrote %s (%d ticks)", self._job.path.name, self._job.rows)
+        self._job = None
         self._chunks += 1
+
+    def _hand_over(self) -> None:
+        """Give the filled rows to the writer thread and continue in the other buffer set."""
+        self._wait_writer()  # at most one chunk in flight: after this the other buffer set is free
+        path = self._folder / CHUNK_DIR / _chunk_name(self._chunks)
+        self._job = _ChunkJob(path, self._buffers, self._columns, self._row)
+        self._buffers = self._buffer_sets[1] if self._buffers is self._buffer_sets[0] else self._buffer_sets[0]
         self._row = 0
+
+    def sync(self) -> None:
+        """Wait until every chunk handed to the writer is on disk (the partial chunk stays buffered).
+
+        Raises
+        ------
+        RunLogError
+            Naming the file, if the writer could not write it; a later call
+            writes it again.
+        """
+        self._wait_writer()
 
     def close(
         self,
@@ -430,7 +576,9 @@ class RunLog:
         -----
         Files are written in the order: last chunk, ``metrics.json``,
         ``meta.json``, so a final status on disk implies the rest is there.
-        A second call does nothing (its arguments are ignored).
+        Waits for the writer thread, and raises its error (the log then stays
+        open, as above).  A second call does nothing (its arguments are
+        ignored).
         """
         if self._closed:
             _log.debug("run log %s already closed; close(%r) ignored", self._folder, status)
@@ -443,7 +591,8 @@ class RunLog:
         if metrics_json is not None and not isinstance(metrics_json, dict):
             raise RunLogError(f"metrics must be a mapping, got {type(metrics).__name__}")
         if self._row > 0:
-            self._write_chunk()
+            self._hand_over()
+        self._wait_writer()
         if metrics_json is not None:
             _write_json(self._folder / METRICS_FILE, metrics_json)
         self._meta.update(status=status, reason=reason, ticks=self._ticks, chunks=self._chunks)
@@ -502,12 +651,16 @@ class Run:
         Contents of ``metrics.json``; empty if there is none.
     complete : bool
         True iff ``meta["status"] == "complete"``.
+    folder : pathlib.Path or None
+        The run folder it was read from (its models, for columns derived
+        from the logged ones: :func:`sim.derived.cuff_columns`).
     """
 
     arrays: dict[str, np.ndarray]
     meta: dict[str, Any]
     metrics: dict[str, Any] = field(default_factory=dict)
     complete: bool = False
+    folder: Path | None = None
 
     @property
     def ticks(self) -> int:
@@ -532,7 +685,44 @@ def _read_json(path: Path) -> dict[str, Any]:
     return obj
 
 
-def _read_chunk(path: Path, columns: Mapping[str, _Column]) -> dict[str, np.ndarray]:
+def _read_chunk(path: Path, columns: Mapping[str, _Column], version: int) -> dict[str, np.ndarray]:
+    return _read_zip_chunk(path, columns) if version >= 2 else _read_npz_chunk(path, columns)
+
+
+def _read_zip_chunk(path: Path, columns: Mapping[str, _Column]) -> dict[str, np.ndarray]:
+    """A version-2 chunk (module docstring)."""
+    try:
+        with zipfile.ZipFile(path) as zf:
+            names = set(zf.namelist())
+            expected = {name + _ENTRY_SUFFIX for name in columns}
+            extra = sorted(names - expected - {_TICKS_ENTRY})
+            if extra:
+                raise RunLogError(f"chunk file {str(path)!r} holds unexpected arrays {extra}")
+            if _TICKS_ENTRY not in names:
+                raise RunLogError(f"chunk file {str(path)!r} has no {_TICKS_ENTRY}")
+            rows = json.loads(zf.read(_TICKS_ENTRY)).get("ticks")
+            if isinstance(rows, bool) or not isinstance(rows, int) or rows < 1:
+                raise RunLogError(f"chunk file {str(path)!r}: {_TICKS_ENTRY} must give ticks >= 1, got {rows!r}")
+            out = {}
+            for name, col in columns.items():
+                if name + _ENTRY_SUFFIX not in names:
+                    raise RunLogError(f"chunk file {str(path)!r} has no column {name!r}")
+                data = zf.read(name + _ENTRY_SUFFIX)
+                size = rows * col.row_values * col.dtype.itemsize
+                if len(data) != size:
+                    raise RunLogError(
+                        f"chunk file {str(path)!r}: column {name!r} holds {len(data)} bytes, expected {size}"
+                        f" ({rows} ticks of shape {col.shape} and dtype {col.dtype.name})")
+                out[name] = _decode(data, col, rows)
+    except RunLogError:
+        raise
+    except (OSError, ValueError, EOFError, KeyError, AttributeError, zipfile.BadZipFile, zlib.error) as e:
+        raise RunLogError(f"chunk file {str(path)!r} is corrupt or truncated: {type(e).__name__}: {e}") from e
+    return out
+
+
+def _read_npz_chunk(path: Path, columns: Mapping[str, _Column]) -> dict[str, np.ndarray]:
+    """A version-1 chunk: an uncompressed ``.npz`` archive."""
     try:
         with np.load(path, allow_pickle=False) as npz:
             if not isinstance(npz, np.lib.npyio.NpzFile):
@@ -568,7 +758,8 @@ def load_run(path: str | os.PathLike[str]) -> Run:
     Works on finished and unfinished runs: for a run whose status is still
     ``"running"`` (the process died) or ``"failed"``, every chunk file on disk
     is loaded.  Leftover ``*.tmp`` files (a chunk being written when the
-    process died) are ignored with a warning.
+    process died) are ignored with a warning.  Reads every format version of
+    :data:`READ_FORMAT_VERSIONS` (the module docstring describes them).
 
     Parameters
     ----------
@@ -586,8 +777,9 @@ def load_run(path: str | os.PathLike[str]) -> Run:
     RunLogError
         If the folder or ``meta.json`` is missing or unreadable, a chunk file
         is missing from the sequence, corrupt, truncated or inconsistent with
-        ``meta.json`` (the message names the file), or, for a closed run, the
-        tick/chunk counts on disk differ from those recorded.
+        ``meta.json`` (the message names the file), its ``format_version``
+        is unknown, or, for a closed run, the tick/chunk counts on disk differ
+        from those recorded.
     """
     root = Path(path)
     if not root.is_dir():
@@ -596,7 +788,11 @@ def load_run(path: str | os.PathLike[str]) -> Run:
     if not meta_path.is_file():
         raise RunLogError(f"{str(root)!r} is not a run folder: {META_FILE} is missing")
     meta = _read_json(meta_path)
-    columns = _columns_from_meta(meta, str(meta_path))
+    version = meta.get("format_version")
+    if version not in READ_FORMAT_VERSIONS:
+        raise RunLogError(f"{str(meta_path)!r}: format_version {version!r} is not one this version reads"
+                          f" ({list(READ_FORMAT_VERSIONS)})")
+    columns = _columns_from_meta(meta, str(meta_path), version)
     chunk_ticks = meta.get("chunk_ticks")
     if isinstance(chunk_ticks, bool) or not isinstance(chunk_ticks, int) or chunk_ticks < 1:
         raise RunLogError(f"{str(meta_path)!r}: chunk_ticks must be an int >= 1, got {chunk_ticks!r}")
@@ -605,7 +801,7 @@ def load_run(path: str | os.PathLike[str]) -> Run:
     indices = []
     if chunk_dir.is_dir():
         for entry in sorted(chunk_dir.iterdir()):
-            m = _CHUNK_RE.match(entry.name)
+            m = _CHUNK_RE[version].match(entry.name)
             if m:
                 indices.append(int(m.group(1)))
             elif entry.name.endswith(".tmp"):
@@ -613,12 +809,12 @@ def load_run(path: str | os.PathLike[str]) -> Run:
     indices.sort()
     for expected, found in enumerate(indices):
         if found != expected:
-            raise RunLogError(f"chunk file {str(chunk_dir / _chunk_name(expected))!r} is missing")
+            raise RunLogError(f"chunk file {str(chunk_dir / _chunk_name(expected, version))!r} is missing")
 
     parts: dict[str, list[np.ndarray]] = {name: [] for name in columns}
     for i in indices:
-        chunk_path = chunk_dir / _chunk_name(i)
-        chunk = _read_chunk(chunk_path, columns)
+        chunk_path = chunk_dir / _chunk_name(i, version)
+        chunk = _read_chunk(chunk_path, columns, version)
         n = len(next(iter(chunk.values())))
         if i < len(indices) - 1 and n != chunk_ticks:
             raise RunLogError(f"chunk file {str(chunk_path)!r} has {n} ticks; all but the last must have {chunk_ticks}")
@@ -639,7 +835,7 @@ def load_run(path: str | os.PathLike[str]) -> Run:
             )
     metrics_path = root / METRICS_FILE
     metrics = _read_json(metrics_path) if metrics_path.exists() else {}
-    return Run(arrays=arrays, meta=meta, metrics=metrics, complete=status == "complete")
+    return Run(arrays=arrays, meta=meta, metrics=metrics, complete=status == "complete", folder=root)
 
 
 # ----------------------------------------------------------------------------------------------

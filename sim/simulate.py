@@ -104,9 +104,8 @@ def _columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple[st
             "tau_cmd": (nq_e,), "tau_applied": (nq_e,), "saturated": ((nq_e,), "bool"), "p_hand_exo": (3,),
         }
         cols |= {f"diag_{d}": () for d in diag}
-    if mode == "coupled":
-        cols |= {"cuff_wrench_human": (n_cuffs, 6), "cuff_wrench_exo": (n_cuffs, 6),
-                 "cuff_wrench_meas": (n_cuffs, 6), "cuff_force_human_world": (n_cuffs, 3)}
+    if mode == "coupled":  # the cuff wrenches on the robot and the world forces follow from these: sim.derived
+        cols |= {"cuff_wrench_human": (n_cuffs, 6), "cuff_wrench_meas": (n_cuffs, 6)}
     return cols
 
 
@@ -177,7 +176,8 @@ def simulate(
         "models": {"exo_urdf": "exo.urdf", "human_urdf": "human.urdf", "exo_hand_frame": asm.exo.hand_frame,
                    "human_hand_frame": asm.human.hand_frame,
                    "cuff_frames": {c.name: [asm.exo.model.frames[c.exo_frame_id].name,
-                                            asm.human.model.frames[c.human_frame_id].name] for c in asm.cuffs}},
+                                            asm.human.model.frames[c.human_frame_id].name] for c in asm.cuffs},
+                   "cuff_human_offsets": {c.name: c.human_offset.homogeneous for c in asm.cuffs}},
         "walls": _jsonable(scenario.walls),
         "parameters": _jsonable(scenario), "exo_params": _jsonable(asm.exo_params),
         "environment": environment_metadata(),
@@ -236,9 +236,7 @@ def simulate(
                 row["p_hand_exo"] = plant.hand_position("exo")
             if mode == "coupled":
                 row["cuff_wrench_human"] = plant.wrench_on_human
-                row["cuff_wrench_exo"] = plant.wrench_on_exo
                 row["cuff_wrench_meas"] = meas_wrench
-                row["cuff_force_human_world"] = plant.force_on_human_world
             log.append(**row)
             for _ in range(n_sub):
                 tau_e = actuators.substep(plant.q_exo, plant.v_exo, h) if controller is not None else zero_e
@@ -304,7 +302,9 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     """The metrics of a finished coupled run folder (and its ``human_alone`` baseline, if present).
 
     Reads the log, ``timing.npz`` and the run's own robot model (``exo.urdf``
-    with the armature of ``meta.json``), so it works on any run folder.
+    with the armature of ``meta.json``), so it works on any run folder; the
+    cuff wrenches on the robot and the world forces come from
+    :func:`sim.derived.cuff_columns`.
 
     Parameters
     ----------
@@ -318,10 +318,12 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     """
     from models.arm import load_arm
 
+    from .derived import cuff_columns
     from .metrics import BODY_REGION_FORCE_LIMITS_N, hand_cuff_index, robot_interaction_terms
 
     out = Path(folder)
     run = load_run(out)
+    arrays = run.arrays | cuff_columns(run)
     base_dir = out / "human_alone"
     base = load_run(base_dir) if base_dir.is_dir() else None
     meta = run.meta
@@ -336,14 +338,14 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
                    hand_frame=models_meta["exo_hand_frame"],
                    armature_kg_m2=meta.get("exo_params", {}).get("armature_kg_m2"), source=str(out / "exo.urdf"))
     cuff_names = list(meta["cuffs"])
-    terms = robot_interaction_terms(arm, run.arrays, [models_meta["cuff_frames"][c][0] for c in cuff_names], dt)
+    terms = robot_interaction_terms(arm, arrays, [models_meta["cuff_frames"][c][0] for c in cuff_names], dt)
     limits = dict(BODY_REGION_FORCE_LIMITS_N) | dict(force_limits_N or {})
     hand = hand_cuff_index(cuff_names, wall.get("sensor", "hand") if wall else "hand")
-    metrics = run_metrics(run.arrays, cuff_names=cuff_names, baseline=base.arrays if base else None, dt_s=dt,
+    metrics = run_metrics(arrays, cuff_names=cuff_names, baseline=base.arrays if base else None, dt_s=dt,
                           tick_times_s=timing.get("tick_time_s", np.zeros(0)), timing=timing, robot_terms=terms,
                           limits_rad=arm.position_limits(), force_limits_N=limits, hand_cuff=hand)
     if wall is not None:
-        metrics |= wall_metrics(run.arrays, point_m=wall["point_m"], normal=wall["normal"],
+        metrics |= wall_metrics(arrays, point_m=wall["point_m"], normal=wall["normal"],
                                 stiffness_N_per_m=wall["stiffness_N_per_m"] if wall.get("rendered", True) else 0.0,
                                 hand_cuff=hand, dt_s=dt)
         if not wall.get("rendered", True):  # a slope of force on penetration means nothing without a wall

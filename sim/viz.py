@@ -725,9 +725,11 @@ def draw_replay(vis: Any, run_dir: str | Path, fps: float = 30, ghost: bool = Tr
     Scene
         The drawn scene; its ``animation`` attribute holds the animation sent.
     """
+    from .derived import cuff_columns
+
     run, base = _load(run_dir, ghost)
     models = SceneModels.from_run_dir(run_dir)
-    a = run.arrays
+    a = run.arrays | cuff_columns(run)
     pts = [a["p_hand_human"], a["p_hand_exo"], models.human_points(a["q_human"][0])]
     scene = Scene(models, _workspace_centre(*pts), ghost=base is not None)
     q_g0 = base.arrays["q_human"][0] if base is not None else None

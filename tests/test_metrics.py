@@ -159,9 +159,11 @@ def test_work_of_the_cuffs_equals_the_robots_energy_change(tmp_path):
     run = load_run(tmp_path / "run")
     meta = run.meta
     arm = load_arm((tmp_path / "run" / "exo.urdf").read_text(), armature_kg_m2=meta["exo_params"]["armature_kg_m2"])
-    terms = robot_interaction_terms(arm, run.arrays, [meta["models"]["cuff_frames"][c][0] for c in meta["cuffs"]],
-                                    DT)
-    P = interaction_power_W(run["cuff_wrench_exo"], terms["cuff_twist"])
+    from sim.derived import cuff_columns
+
+    arrays = run.arrays | cuff_columns(run)
+    terms = robot_interaction_terms(arm, arrays, [meta["models"]["cuff_frames"][c][0] for c in meta["cuffs"]], DT)
+    P = interaction_power_W(arrays["cuff_wrench_exo"], terms["cuff_twist"])
     E = terms["kinetic_J"] + terms["potential_J"]
     W = np.cumsum(P[:-1]) * DT
     dE = E[1:] - E[0]

@@ -94,7 +94,7 @@ def test_run_folder_holds_log_meta_metrics_and_baseline(run_folder):
     assert (run_folder / "meta.json").is_file()
     assert (run_folder / "metrics.json").is_file()
     assert sorted(p.name for p in (run_folder / "log").iterdir()) == [
-        "chunk_000000.npz", "chunk_000001.npz", "chunk_000002.npz", "chunk_000003.npz"]  # 3100 ticks / 1000
+        "chunk_000000.zip", "chunk_000001.zip", "chunk_000002.zip", "chunk_000003.zip"]  # 3100 ticks / 1000
     assert (run_folder / "human_alone" / "meta.json").is_file()
 
 
@@ -188,7 +188,7 @@ def test_load_run_gives_named_arrays_metadata_and_metrics(run_folder):
 
 
 def _all_logs(folder: Path) -> dict[str, bytes]:
-    return {p.relative_to(folder).as_posix(): p.read_bytes() for p in sorted(folder.rglob("log/*.npz"))}
+    return {p.relative_to(folder).as_posix(): p.read_bytes() for p in sorted(folder.rglob("log/chunk_*"))}
 
 
 def test_same_seed_gives_the_same_log_bit_for_bit_and_another_seed_changes_the_sensed_wrenches(tmp_path):
@@ -203,8 +203,8 @@ def test_same_seed_gives_the_same_log_bit_for_bit_and_another_seed_changes_the_s
         for name in ra.arrays:
             np.testing.assert_array_equal(ra[name], rb[name], err_msg=name)
     logs_a, logs_b = _all_logs(a), _all_logs(b)
-    assert sorted(logs_a) == ["human_alone/log/chunk_000000.npz", "human_alone/log/chunk_000001.npz",
-                              "log/chunk_000000.npz", "log/chunk_000001.npz"]
+    assert sorted(logs_a) == ["human_alone/log/chunk_000000.zip", "human_alone/log/chunk_000001.zip",
+                              "log/chunk_000000.zip", "log/chunk_000001.zip"]
     assert logs_a == logs_b
     ra, rc = sim.load_run(a), sim.load_run(c)
     assert ra.ticks == rc.ticks == 1050

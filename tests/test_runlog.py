@@ -1,4 +1,4 @@
-"""Chunked columnar run logs: round trip, crash traces, strictness and determinism."""
+"""Chunked columnar run logs: round trip, crash traces, strictness, determinism and the chunk encoding."""
 
 from __future__ import annotations
 
@@ -53,7 +53,7 @@ def test_2500_ticks_in_chunks_of_1000_round_trip_bit_identical(tmp_path):
         for tick in ticks:
             log.append(**tick)
         assert log.ticks == 2500
-    assert _chunk_files(tmp_path / "run") == ["chunk_000000.npz", "chunk_000001.npz", "chunk_000002.npz"]
+    assert _chunk_files(tmp_path / "run") == ["chunk_000000.zip", "chunk_000001.zip", "chunk_000002.zip"]
     run = load_run(tmp_path / "run")
     expected = _stacked(ticks)
     assert run.complete and run.ticks == 2500
@@ -79,7 +79,7 @@ def test_exception_in_with_block_keeps_all_ticks_and_records_status(tmp_path, ex
             for tick in ticks:
                 log.append(**tick)
             raise exc
-    assert _chunk_files(tmp_path / "run") == ["chunk_000000.npz", "chunk_000001.npz"]
+    assert _chunk_files(tmp_path / "run") == ["chunk_000000.zip", "chunk_000001.zip"]
     meta = _meta(tmp_path / "run")
     assert meta["status"] == status and meta["reason"] == reason
     run = load_run(tmp_path / "run")
@@ -92,6 +92,7 @@ def test_unclosed_log_stays_running_and_loads_finished_chunks(tmp_path):
     log = RunLog(tmp_path / "run", COLUMNS, chunk_ticks=1000)
     for tick in ticks:
         log.append(**tick)
+    log.sync()  # the first chunk is on disk
     del log  # the process "dies": no close
     run = load_run(tmp_path / "run")
     assert run.meta["status"] == "running" and not run.complete
@@ -103,7 +104,8 @@ def test_leftover_temporary_chunk_is_ignored_on_load(tmp_path):
     log = RunLog(tmp_path / "run", {"t": ()}, chunk_ticks=2)
     for k in range(2):
         log.append(t=float(k))
-    (tmp_path / "run" / "log" / "chunk_000001.npz.tmp").write_bytes(b"PK\x03\x04half a chunk")
+    log.sync()
+    (tmp_path / "run" / "log" / "chunk_000001.zip.tmp").write_bytes(b"PK\x03\x04half a chunk")
     assert np.array_equal(load_run(tmp_path / "run")["t"], [0.0, 1.0])
 
 
@@ -119,14 +121,15 @@ def test_chunks_hold_no_pickles_and_meta_holds_converted_metadata(tmp_path):
         for tick in _ticks(25):
             log.append(**tick)
     for name in _chunk_files(tmp_path / "run"):
-        with np.load(tmp_path / "run" / "log" / name, allow_pickle=False) as npz:
-            assert sorted(npz.files) == sorted(COLUMNS)
-            assert all(npz[c].dtype != object for c in npz.files)
+        with zipfile.ZipFile(tmp_path / "run" / "log" / name) as zf:
+            assert sorted(zf.namelist()) == sorted([f"{c}.bin" for c in COLUMNS] + ["ticks.json"])
+            assert {i.compress_type for i in zf.infolist()} == {zipfile.ZIP_DEFLATED}
     meta = _meta(tmp_path / "run")
     assert meta["seed"] == 7 and meta["dt_s"] == 1e-3 and meta["gains"] == [1.0, 2.5]
     assert meta["levels"] == ["contact", "posture"] and meta["urdf"] == "models/exo.urdf"
-    assert meta["columns"]["cuff_wrench_true"] == {"shape": [3, 6], "dtype": "float64"}
-    assert meta["columns"]["sat"] == {"shape": [7], "dtype": "bool"}
+    assert meta["columns"]["cuff_wrench_true"] == {"shape": [3, 6], "dtype": "float64", "encoding": "xor_shuffle"}
+    assert meta["columns"]["sat"] == {"shape": [7], "dtype": "bool", "encoding": "raw"}
+    assert meta["format_version"] == 2
     assert meta["chunk_ticks"] == 10
     assert str(tmp_path) not in (tmp_path / "run" / "meta.json").read_text(encoding="utf-8")
 
@@ -135,7 +138,7 @@ def test_meta_json_is_written_as_running_at_creation(tmp_path):
     RunLog(tmp_path / "run", {"t": ()}, metadata={"scenario": "reach"})
     meta = _meta(tmp_path / "run")
     assert meta["status"] == "running" and meta["scenario"] == "reach"
-    assert meta["columns"] == {"t": {"shape": [], "dtype": "float64"}}
+    assert meta["columns"] == {"t": {"shape": [], "dtype": "float64", "encoding": "xor_shuffle"}}
 
 
 def test_metrics_written_on_close_and_read_back(tmp_path):
@@ -157,7 +160,7 @@ def test_close_is_idempotent(tmp_path):
     before = (tmp_path / "run" / "meta.json").read_bytes()
     log.close("complete")
     assert (tmp_path / "run" / "meta.json").read_bytes() == before
-    assert _chunk_files(tmp_path / "run") == ["chunk_000000.npz"]
+    assert _chunk_files(tmp_path / "run") == ["chunk_000000.zip"]
 
 
 def test_reentering_or_appending_after_close_is_refused(tmp_path):
@@ -294,9 +297,9 @@ def test_corrupt_chunk_is_reported_naming_the_file(tmp_path, damage):
     with RunLog(tmp_path / "run", {"q": (7,)}, chunk_ticks=10) as log:
         for k in range(25):
             log.append(q=np.full(7, float(k)))
-    path = tmp_path / "run" / "log" / "chunk_000001.npz"
+    path = tmp_path / "run" / "log" / "chunk_000001.zip"
     path.write_bytes(damage(path.read_bytes()))
-    with pytest.raises(RunLogError, match="chunk_000001.npz"):
+    with pytest.raises(RunLogError, match="chunk_000001.zip"):
         load_run(tmp_path / "run")
 
 
@@ -304,8 +307,9 @@ def test_missing_chunk_in_sequence_is_reported(tmp_path):
     log = RunLog(tmp_path / "run", {"t": ()}, chunk_ticks=1)
     for k in range(3):
         log.append(t=float(k))
-    (tmp_path / "run" / "log" / "chunk_000001.npz").unlink()
-    with pytest.raises(RunLogError, match="chunk_000001.npz' is missing"):
+    log.sync()
+    (tmp_path / "run" / "log" / "chunk_000001.zip").unlink()
+    with pytest.raises(RunLogError, match="chunk_000001.zip' is missing"):
         load_run(tmp_path / "run")
 
 
@@ -313,3 +317,192 @@ def test_run_getitem_unknown_column_lists_columns(tmp_path):
     RunLog(tmp_path / "run", {"t": (), "q": (2,)}).close()
     with pytest.raises(KeyError, match="'tau'.*\\['t', 'q'\\]"):
         load_run(tmp_path / "run")["tau"]
+
+
+# -- the chunk encoding (format version 2) ------------------------------------------------------
+def _special_floats(dtype) -> np.ndarray:
+    """NaN with payloads and signs, signed zeros, infinities, subnormals, extremes and ordinary values."""
+    info = np.finfo(dtype)
+    nan_payloads = np.array([np.nan, -np.nan], dtype=dtype)
+    if np.dtype(dtype).itemsize in (2, 4, 8):  # set a low mantissa bit: a NaN with a payload
+        u = np.dtype(f"u{np.dtype(dtype).itemsize}")
+        nan_payloads = (nan_payloads.view(u) | u.type(1)).view(dtype)
+    values = np.array([0.0, -0.0, np.inf, -np.inf, info.tiny / 4, -info.tiny / 8, info.max, -info.max,
+                       info.eps, 1.0, -3.25, 1e-3], dtype=dtype)
+    return np.concatenate([values, nan_payloads])
+
+
+@pytest.mark.parametrize("dtype", ["float64", "float32", "float16", "complex128", "complex64", "longdouble"])
+def test_float_columns_round_trip_bit_for_bit_with_special_values(tmp_path, dtype):
+    # lossless means the bit patterns come back, NaN payloads and the sign of zero included (IEEE 754-2019)
+    rng = np.random.default_rng(4)
+    real = np.dtype(dtype).type(0).real.dtype
+    special = _special_floats(real)
+    data = rng.choice(special, size=(23, 3, 2)).astype(dtype)
+    if np.dtype(dtype).kind == "c":
+        data.imag = rng.choice(special, size=(23, 3, 2))
+    with RunLog(tmp_path / "run", {"x": ((3, 2), dtype), "empty": ((2, 0), dtype)}, chunk_ticks=10) as log:
+        for row in data:
+            log.append(x=row, empty=np.zeros((2, 0), dtype))
+    run = load_run(tmp_path / "run")
+    assert run["x"].dtype == np.dtype(dtype) and run["x"].tobytes() == data.tobytes()
+    assert run["empty"].shape == (23, 2, 0)
+    expected = "raw" if dtype == "longdouble" and np.dtype(dtype).itemsize > 8 else "xor_shuffle"
+    assert run.meta["columns"]["x"]["encoding"] == expected
+
+
+@pytest.mark.parametrize("dtype", ["bool", "int8", "uint16", "int32", "int64", "uint64"])
+def test_integer_and_bool_columns_round_trip_exactly(tmp_path, dtype):
+    rng = np.random.default_rng(5)
+    if dtype == "bool":
+        data = rng.random((17, 4)) < 0.5
+    else:
+        info = np.iinfo(dtype)
+        data = rng.integers(info.min, info.max, size=(17, 4), dtype=dtype, endpoint=True)
+        data[0] = [info.min, info.max, 0, 1]
+    with RunLog(tmp_path / "run", {"x": ((4,), dtype)}, chunk_ticks=5) as log:
+        for row in data:
+            log.append(x=row)
+    run = load_run(tmp_path / "run")
+    assert run.meta["columns"]["x"]["encoding"] == "raw"
+    assert run["x"].dtype == np.dtype(dtype) and np.array_equal(run["x"], data)
+
+
+def test_chunk_entries_follow_the_documented_byte_layout(tmp_path):
+    # an independent decoder written from the module docstring with the standard library only (zipfile, struct):
+    # byte plane b of element e of row k is at offset (b * elements + e) * rows + k; the words are XOR-ed with the
+    # previous row (Pelkonen et al. 2015) and stored least significant byte first
+    import struct
+
+    q = np.array([[1.0, -2.5], [1.0000001, -2.5], [0.999, np.pi], [1e300, -0.0]])
+    with RunLog(tmp_path / "run", {"q": (2,), "n": ((), "int16")}, chunk_ticks=4) as log:
+        for k, row in enumerate(q):
+            log.append(q=row, n=-k)
+    with zipfile.ZipFile(tmp_path / "run" / "log" / "chunk_000000.zip") as zf:
+        assert json.loads(zf.read("ticks.json")) == {"ticks": 4}
+        raw, n_bytes = zf.read("q.bin"), zf.read("n.bin")
+    rows, elements = 4, 2
+    decoded = []
+    for e in range(elements):
+        prev = 0
+        for k in range(rows):
+            word = sum(raw[(b * elements + e) * rows + k] << (8 * b) for b in range(8))
+            prev = word if k == 0 else word ^ prev
+            decoded.append((k, e, struct.unpack("<d", prev.to_bytes(8, "little"))[0]))
+    for k, e, value in decoded:
+        assert struct.pack("<d", value) == struct.pack("<d", q[k, e])
+    assert list(struct.unpack("<4h", n_bytes)) == [0, -1, -2, -3]
+
+
+def test_chunks_are_written_off_the_calling_thread_one_at_a_time(tmp_path, monkeypatch):
+    import threading
+    import time
+
+    import sim.runlog as runlog
+
+    state = {"in_flight": 0, "max_in_flight": 0, "threads": set()}
+    lock = threading.Lock()
+    write = runlog._write_chunk_file
+
+    def slow_write(*args):
+        with lock:
+            state["in_flight"] += 1
+            state["max_in_flight"] = max(state["max_in_flight"], state["in_flight"])
+            state["threads"].add(threading.current_thread().name)
+        time.sleep(0.01)
+        write(*args)
+        with lock:
+            state["in_flight"] -= 1
+
+    monkeypatch.setattr(runlog, "_write_chunk_file", slow_write)
+    ticks = _ticks(95)
+    with RunLog(tmp_path / "run", COLUMNS, chunk_ticks=10) as log:
+        for tick in ticks:
+            log.append(**tick)
+    assert state["max_in_flight"] == 1  # memory: the buffer being filled and at most one being written
+    assert threading.main_thread().name not in state["threads"]
+    assert np.array_equal(load_run(tmp_path / "run")["cuff_wrench_true"], _stacked(ticks)["cuff_wrench_true"])
+
+
+def test_failed_chunk_write_is_raised_in_the_caller_and_written_again(tmp_path):
+    log = RunLog(tmp_path / "run", {"t": ()}, chunk_ticks=2)
+    log_dir = tmp_path / "run" / "log"
+    log_dir.rmdir()
+    log_dir.write_text("not a folder")  # every chunk write now fails with an OSError
+    log.append(t=0.0)
+    log.append(t=1.0)  # handed to the writer, which fails in the background
+    log.append(t=2.0)
+    with pytest.raises(RunLogError, match="could not write chunk file .*chunk_000000.zip"):
+        log.append(t=3.0)  # the next hand-over reports it
+    assert log.ticks == 4
+    with pytest.raises(RunLogError, match="chunk_000000.zip"):
+        log.close()  # still failing: the log stays open
+    log_dir.unlink()
+    log_dir.mkdir()
+    log.append(t=4.0)  # retries chunk 0, then hands over chunk 1
+    log.close()
+    run = load_run(tmp_path / "run")
+    assert run.complete and np.array_equal(run["t"], [0.0, 1.0, 2.0, 3.0, 4.0])
+
+
+def test_any_error_of_the_writer_is_re_raised_by_close(tmp_path, monkeypatch):
+    import sim.runlog as runlog
+
+    def broken(arr, col):
+        raise MemoryError("no room to encode")
+
+    monkeypatch.setattr(runlog, "_encode", broken)
+    log = RunLog(tmp_path / "run", {"t": ()}, chunk_ticks=3)
+    log.append(t=0.0)
+    with pytest.raises(MemoryError, match="no room"):
+        log.close()
+    assert _meta(tmp_path / "run")["status"] == "running"
+
+
+# -- format version 1 (uncompressed .npz chunks): still read ------------------------------------
+def _write_v1_run(folder: Path, ticks: list[dict], chunk_ticks: int, status: str | None = "complete") -> None:
+    """A version-1 run folder as that version wrote it: meta.json and numpy.savez chunks (no compression)."""
+    (folder / "log").mkdir(parents=True)
+    stacked = _stacked(ticks)
+    meta = {"format_version": 1, "status": status or "running",
+            "columns": {name: {"shape": list(arr.shape[1:]), "dtype": arr.dtype.name} for name, arr in stacked.items()},
+            "chunk_ticks": chunk_ticks, "seed": 3}
+    n_chunks = 0
+    for i, start in enumerate(range(0, len(ticks), chunk_ticks)):
+        np.savez(folder / "log" / f"chunk_{i:06d}.npz", **{k: v[start:start + chunk_ticks] for k, v in stacked.items()})
+        n_chunks += 1
+    if status is not None:
+        meta |= {"reason": None, "ticks": len(ticks), "chunks": n_chunks}
+    (folder / "meta.json").write_text(json.dumps(meta, indent=2) + "\n", encoding="utf-8")
+
+
+def test_version_1_folder_loads_as_before(tmp_path):
+    ticks = _ticks(250)
+    _write_v1_run(tmp_path / "old", ticks, chunk_ticks=100)
+    run = load_run(tmp_path / "old")
+    assert run.complete and run.ticks == 250 and run.meta["format_version"] == 1 and run.folder == tmp_path / "old"
+    for name, arr in _stacked(ticks).items():
+        assert run[name].dtype == arr.dtype and run[name].tobytes() == arr.tobytes()
+
+
+def test_version_1_unfinished_or_damaged_folder_is_reported_as_before(tmp_path):
+    ticks = _ticks(250)
+    _write_v1_run(tmp_path / "died", ticks, chunk_ticks=100, status=None)
+    (tmp_path / "died" / "log" / "chunk_000003.npz.tmp").write_bytes(b"PK\x03\x04half")
+    assert load_run(tmp_path / "died").ticks == 250 and not load_run(tmp_path / "died").complete
+    _write_v1_run(tmp_path / "bad", ticks, chunk_ticks=100)
+    path = tmp_path / "bad" / "log" / "chunk_000001.npz"
+    path.write_bytes(path.read_bytes()[:300])
+    with pytest.raises(RunLogError, match="chunk_000001.npz"):
+        load_run(tmp_path / "bad")
+    path.unlink()
+    with pytest.raises(RunLogError, match="chunk_000001.npz' is missing"):
+        load_run(tmp_path / "bad")
+
+
+def test_unknown_format_version_is_refused_naming_meta_json(tmp_path):
+    RunLog(tmp_path / "run", {"t": ()}).close()
+    meta = _meta(tmp_path / "run") | {"format_version": 99}
+    (tmp_path / "run" / "meta.json").write_text(json.dumps(meta), encoding="utf-8")
+    with pytest.raises(RunLogError, match="meta.json.*format_version 99"):
+        load_run(tmp_path / "run")

@@ -22,6 +22,7 @@ from controllers.tasks import JointDamping, Transparency
 from models.errors import ParameterError, UnknownNameError
 from models.records import Measurement
 from sim import load_run, simulate
+from sim.derived import cuff_columns
 from sim.metrics import joint_limit_violation_count, wall_metrics
 from sim.scenario import load_scenario
 from sim.simulate import run_scenario
@@ -52,8 +53,8 @@ def test_walls_render_the_commanded_stiffness_within_15_percent_without_joint_li
     simulate(sc, "walls", tmp_path / "run")
     run = load_run(tmp_path / "run")
     lo, hi = models.assemble("m50").exo.position_limits()
-    m = wall_metrics(run.arrays, point_m=spec["point_m"], normal=spec["normal"], stiffness_N_per_m=stiffness,
-                     hand_cuff=run.meta["cuffs"].index("hand"), dt_s=sc.control_period_s)
+    m = wall_metrics(run.arrays | cuff_columns(run), point_m=spec["point_m"], normal=spec["normal"],
+                     stiffness_N_per_m=stiffness, hand_cuff=run.meta["cuffs"].index("hand"), dt_s=sc.control_period_s)
     assert m["wall_stiffness_rendered_N_per_m"] == pytest.approx(stiffness, rel=0.15)
     assert joint_limit_violation_count(run["q_exo"], lo, hi) == 0
     assert m["wall_penetration_max_m"] > 0.01  # the wearer really pushed into it

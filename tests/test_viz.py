@@ -19,6 +19,7 @@ import pytest
 pytest.importorskip("meshcat")
 
 import sim.viz as viz  # noqa: E402
+from sim.derived import cuff_columns  # noqa: E402
 from sim.runlog import load_run  # noqa: E402
 from sim.scenario import load_scenario  # noqa: E402
 from sim.simulate import run_scenario  # noqa: E402
@@ -140,7 +141,7 @@ def test_live_viewer_throttles_with_fake_clock(run_dir, vis):
     live = viz.LiveViewer(run_dir, max_fps=10, vis=vis, clock=lambda: now[0])
     run = load_run(run_dir)
     q_e, q_h = run.arrays["q_exo"][0], run.arrays["q_human"][0]
-    forces = run.arrays["cuff_force_human_world"][0]
+    forces = cuff_columns(run)["cuff_force_human_world"][0]
     drawn = []
     for t in [0.0, 0.001, 0.05, 0.0999, 0.1, 0.15, 0.2, 0.2005, 0.35]:
         now[0] = t
@@ -158,7 +159,7 @@ def test_background_live_viewer_draws_the_latest_state_off_the_calling_thread(ru
     live = viz.LiveViewer(run_dir, max_fps=10, vis=vis, clock=lambda: now[0], background=True)
     run = load_run(run_dir)
     q_e, q_h = run.arrays["q_exo"][0], run.arrays["q_human"][0]
-    forces = run.arrays["cuff_force_human_world"][0]
+    forces = cuff_columns(run)["cuff_force_human_world"][0]
     assert live.update(0.0, q_e, q_h, forces) is True  # due: handed over to the drawer thread
     assert live.update(0.01, q_e, q_h, forces) is False  # throttled
     live.close()  # joins the drawer, which finishes the pending frame first
