@@ -40,7 +40,8 @@ CLOSED_FORM, WORKING_SET, NO_FREEDOM, NEEDS_QP, EMPTY = 0, 1, 2, 3, 4
 METHODS = ("closed-form", "working-set", "no freedom", "qp", "empty")
 
 #: the compiled code can read the monotonic clock (POSIX clock_gettime)
-HAVE_CLOCK = sys.platform.startswith("linux") and hasattr(time, "CLOCK_MONOTONIC")
+HAVE_CLOCK = (sys.platform.startswith("linux") and hasattr(time, "CLOCK_MONOTONIC")
+              and not nb.config.DISABLE_JIT)  # NUMBA_DISABLE_JIT=1 runs the kernels as Python: no intrinsic
 _CLOCK_ID = int(getattr(time, "CLOCK_MONOTONIC", 1))
 
 
