@@ -270,7 +270,8 @@ class CoupledPlant:
 
 # -- compiled cuff kernel ----------------------------------------------------------------
 # Every numba function the plant calls lives in this file: numba's on-disk cache is keyed on the file of the
-# compiled function and does not see edits to functions it calls in other files.
+# compiled function and does not see edits to functions it calls in other files.  Inside the kernel, 3-vectors
+# are tuples and 3x3 matrices tuples of rows: they live in registers, with no array allocated per cuff.
 
 _EPS = float(np.finfo(np.float64).eps)
 _PREC2 = _EPS ** (1.0 / 3.0)  # bound of a 2nd-order Taylor expansion at machine precision (as pinocchio)
@@ -278,23 +279,66 @@ _PREC3 = _EPS ** (1.0 / 4.0)  # the same for a 3rd-order expansion
 
 
 @numba.njit(cache=True)
+def _cross(a, b):
+    return (a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2], a[0] * b[1] - a[1] * b[0])
+
+
+@numba.njit(cache=True)
+def _dot(a, b):
+    return a[0] * b[0] + a[1] * b[1] + a[2] * b[2]
+
+
+@numba.njit(cache=True)
+def _mul33(X, Y):
+    """(3, 3) product X Y of two matrices given as tuples of rows."""
+    return ((X[0][0] * Y[0][0] + X[0][1] * Y[1][0] + X[0][2] * Y[2][0],
+             X[0][0] * Y[0][1] + X[0][1] * Y[1][1] + X[0][2] * Y[2][1],
+             X[0][0] * Y[0][2] + X[0][1] * Y[1][2] + X[0][2] * Y[2][2]),
+            (X[1][0] * Y[0][0] + X[1][1] * Y[1][0] + X[1][2] * Y[2][0],
+             X[1][0] * Y[0][1] + X[1][1] * Y[1][1] + X[1][2] * Y[2][1],
+             X[1][0] * Y[0][2] + X[1][1] * Y[1][2] + X[1][2] * Y[2][2]),
+            (X[2][0] * Y[0][0] + X[2][1] * Y[1][0] + X[2][2] * Y[2][0],
+             X[2][0] * Y[0][1] + X[2][1] * Y[1][1] + X[2][2] * Y[2][1],
+             X[2][0] * Y[0][2] + X[2][1] * Y[1][2] + X[2][2] * Y[2][2]))
+
+
+@numba.njit(cache=True)
+def _mul33_vec(X, v):
+    return (_dot(X[0], v), _dot(X[1], v), _dot(X[2], v))
+
+
+@numba.njit(cache=True)
+def _mul33t_vec(X, v):
+    """:math:`X^T v`."""
+    return (X[0][0] * v[0] + X[1][0] * v[1] + X[2][0] * v[2],
+            X[0][1] * v[0] + X[1][1] * v[1] + X[2][1] * v[2],
+            X[0][2] * v[0] + X[1][2] * v[1] + X[2][2] * v[2])
+
+
+@numba.njit(cache=True)
+def _unskew(R):
+    """:math:`\\tfrac12 (R - R^T)^\\vee`."""
+    return (0.5 * (R[2][1] - R[1][2]), 0.5 * (R[0][2] - R[2][0]), 0.5 * (R[1][0] - R[0][1]))
+
+
+@numba.njit(cache=True)
 def _theta_axis(i0, val, R):
-    """Angle and axis of R from the row ``i0`` of its quaternion (the near-pi branch of :func:`_log3`)."""
+    """Angle and unit axis of R from its largest diagonal quaternion term ``i0`` (near pi, :func:`_log3`)."""
     i1, i2 = (i0 + 1) % 3, (i0 + 2) % 3
-    sign = 1.0 if R[i2, i1] >= R[i1, i2] else -1.0
+    sign = 1.0 if R[i2][i1] >= R[i1][i2] else -1.0
     s = math.sqrt(val + _EPS + _EPS * _EPS) * sign
-    axis = np.empty(3)
-    axis[i0] = s / 2.0
-    axis[i1] = 1.0 / (2.0 * s) * (R[i1, i0] + R[i0, i1])
-    axis[i2] = 1.0 / (2.0 * s) * (R[i2, i0] + R[i0, i2])
-    w = 1.0 / (2.0 * s) * (R[i2, i1] - R[i1, i2])
-    n = math.sqrt(axis[0] * axis[0] + axis[1] * axis[1] + axis[2] * axis[2])
-    return 2.0 * math.atan2(n, w), axis / n
+    a0 = s / 2.0
+    a1 = 1.0 / (2.0 * s) * (R[i1][i0] + R[i0][i1])
+    a2 = 1.0 / (2.0 * s) * (R[i2][i0] + R[i0][i2])
+    w = 1.0 / (2.0 * s) * (R[i2][i1] - R[i1][i2])
+    axis = (a0, a1, a2) if i0 == 0 else ((a2, a0, a1) if i0 == 1 else (a1, a2, a0))  # entries i0, i1, i2
+    n = math.sqrt(_dot(axis, axis))
+    return 2.0 * math.atan2(n, w), (axis[0] / n, axis[1] / n, axis[2] / n)
 
 
 @numba.njit(cache=True)
 def _log3(R):
-    """Rotation vector w = theta u of a rotation matrix R (3, 3), and theta [rad] in [0, pi].
+    """Rotation vector w = theta u of a rotation matrix R, and theta [rad] in [0, pi].
 
     .. math:: \\theta = \\arccos\\frac{\\operatorname{tr} R - 1}{2}, \\qquad
               w = \\frac{\\theta}{\\sin\\theta}\\,\\tfrac12 (R - R^T)^\\vee,
@@ -305,31 +349,32 @@ def _log3(R):
     pinocchio's ``log3`` (Murray, Li & Sastry, *A Mathematical Introduction to
     Robotic Manipulation*, 1994, section 2.2), so that both agree to rounding.
     """
-    c0 = R[:, 0] / math.sqrt(R[0, 0] * R[0, 0] + R[1, 0] * R[1, 0] + R[2, 0] * R[2, 0])
-    c1 = R[:, 1] / math.sqrt(R[0, 1] * R[0, 1] + R[1, 1] * R[1, 1] + R[2, 1] * R[2, 1])
-    c2 = np.cross(c0, c1)
-    c0 = np.cross(c1, c2)
-    Rn = np.empty((3, 3))
-    Rn[:, 0], Rn[:, 1], Rn[:, 2] = c0, c1, c2
-    tr = Rn[0, 0] + Rn[1, 1] + Rn[2, 2]
+    n0 = math.sqrt(R[0][0] * R[0][0] + R[1][0] * R[1][0] + R[2][0] * R[2][0])
+    n1 = math.sqrt(R[0][1] * R[0][1] + R[1][1] * R[1][1] + R[2][1] * R[2][1])
+    c0 = (R[0][0] / n0, R[1][0] / n0, R[2][0] / n0)
+    c1 = (R[0][1] / n1, R[1][1] / n1, R[2][1] / n1)
+    c2 = _cross(c0, c1)
+    c0 = _cross(c1, c2)
+    Rn = ((c0[0], c1[0], c2[0]), (c0[1], c1[1], c2[1]), (c0[2], c1[2], c2[2]))
+    tr = Rn[0][0] + Rn[1][1] + Rn[2][2]
     cos_value = (tr - 1.0) / 2.0
+    if cos_value < -1.0 + _PREC2:  # near pi: from the largest of the quaternion's squared terms
+        v0, v1, v2 = 2.0 * Rn[0][0] - tr + 1.0, 2.0 * Rn[1][1] - tr + 1.0, 2.0 * Rn[2][2] - tr + 1.0
+        if v0 >= v1:
+            i0, val = (0, v0) if v0 >= v2 else (2, v2)
+        else:
+            i0, val = (1, v1) if v1 >= v2 else (2, v2)
+        theta, axis = _theta_axis(i0, val, Rn)
+        return (theta * axis[0], theta * axis[1], theta * axis[2]), theta
     acos_expansion = math.sqrt(2.0 * (1.0 - cos_value) + _EPS * _EPS)
     if tr <= 3.0 - _PREC2:
         theta = math.acos(cos_value) if tr >= -1.0 + _PREC2 else math.pi - acos_expansion
     else:
         theta = acos_expansion
-    if cos_value < -1.0 + _PREC2:  # near pi: from the largest of the quaternion's squared terms
-        val = 2.0 * np.array([Rn[0, 0], Rn[1, 1], Rn[2, 2]]) - tr + 1.0
-        if val[0] >= val[1]:
-            i0 = 0 if val[0] >= val[2] else 2
-        else:
-            i0 = 1 if val[1] >= val[2] else 2
-        theta_s, axis = _theta_axis(i0, val[i0], Rn)
-        return theta_s * axis, theta_s
-    a = np.array([0.5 * (Rn[2, 1] - Rn[1, 2]), 0.5 * (Rn[0, 2] - Rn[2, 0]), 0.5 * (Rn[1, 0] - Rn[0, 1])])
-    n2 = a[0] * a[0] + a[1] * a[1] + a[2] * a[2]
+    a = _unskew(Rn)
+    n2 = _dot(a, a)
     t = theta / math.sin(theta) if theta >= _PREC2 else 1.0 + n2 / 6.0 + n2 * n2 * 3.0 / 40.0
-    return t * a, theta
+    return (t * a[0], t * a[1], t * a[2]), theta
 
 
 @numba.njit(cache=True)
@@ -343,33 +388,26 @@ def _jlog3(theta, w):
     Chirikjian, *Stochastic Models, Information Theory, and Lie Groups*,
     vol. 2, 2012, chapter 10).
     """
-    st, ct = math.sin(theta), math.cos(theta)
     if theta < _PREC3:
         alpha = 1.0 / 12.0 + theta * theta / 720.0
         diag = 0.5 * (2.0 - theta * theta / 6.0)
     else:
+        st, ct = math.sin(theta), math.cos(theta)
         st_1mct = st / (1.0 - ct)
         alpha = 1.0 / (theta * theta) - st_1mct / (2.0 * theta)
         diag = 0.5 * (theta * st_1mct)
-    J = np.empty((3, 3))
-    for i in range(3):
-        for j in range(3):
-            J[i, j] = alpha * w[i] * w[j]
-        J[i, i] += diag
-    J[0, 1] -= 0.5 * w[2]
-    J[0, 2] += 0.5 * w[1]
-    J[1, 0] += 0.5 * w[2]
-    J[1, 2] -= 0.5 * w[0]
-    J[2, 0] -= 0.5 * w[1]
-    J[2, 1] += 0.5 * w[0]
-    return J
+    aw = (alpha * w[0], alpha * w[1], alpha * w[2])
+    h = (0.5 * w[0], 0.5 * w[1], 0.5 * w[2])
+    return ((aw[0] * w[0] + diag, aw[0] * w[1] - h[2], aw[0] * w[2] + h[1]),
+            (aw[1] * w[0] + h[2], aw[1] * w[1] + diag, aw[1] * w[2] - h[0]),
+            (aw[2] * w[0] - h[1], aw[2] * w[1] + h[0], aw[2] * w[2] + diag))
 
 
 @numba.njit(cache=True)
 def _log6_jlog6(R, p):
     """log6 of the placement (R, p) and the blocks of its right Jacobian Jlog6.
 
-    Returns e (6,) [m, rad] (linear part first) and the blocks A, B (3, 3) of
+    Returns the linear and angular parts of e [m, rad] and the blocks A, B of
 
     .. math:: J_{\\log} = \\begin{bmatrix} A & B \\\\ 0 & A \\end{bmatrix}, \\qquad
               A = J_{\\log 3}(w), \\qquad
@@ -379,23 +417,23 @@ def _log6_jlog6(R, p):
     :math:`\\beta = 1/\\theta^2 - \\sin\\theta / (2 \\theta (1 - \\cos\\theta))`
     and B from the derivative of :math:`\\beta` (Barfoot, *State Estimation
     for Robotics*, 2017, section 7.1.5, the SE(3) Jacobians), with the branches
-    and thresholds of pinocchio's ``log6`` and ``Jlog6``.
+    and thresholds of pinocchio's ``log6`` and ``Jlog6``.  R is a tuple of rows, p a 3-tuple.
     """
     w, theta = _log3(R)
     st, ct = math.sin(theta), math.cos(theta)
-    a = np.array([0.5 * (R[2, 1] - R[1, 2]), 0.5 * (R[0, 2] - R[2, 0]), 0.5 * (R[1, 0] - R[0, 1])])
-    t2 = a[0] * a[0] + a[1] * a[1] + a[2] * a[2]
-    if R[0, 0] + R[1, 1] + R[2, 2] >= 3.0 - _PREC2:
+    a = _unskew(R)
+    t2 = _dot(a, a)
+    if R[0][0] + R[1][1] + R[2][2] >= 3.0 - _PREC2:
         alpha = 1.0 - t2 / 12.0 - t2 * t2 / 720.0
         beta = 1.0 / 12.0 + t2 / 720.0
     else:
         alpha = theta * st / (2.0 * (1.0 - ct))
         beta = 1.0 / (theta * theta) - st / (2.0 * theta * (1.0 - ct))
-    wp = np.cross(w, p)
-    wTp = w[0] * p[0] + w[1] * p[1] + w[2] * p[2]
-    e = np.empty(6)
-    e[:3] = alpha * p - 0.5 * wp + (beta * wTp) * w
-    e[3:] = w
+    wp = _cross(w, p)
+    wTp = _dot(w, p)
+    bw = beta * wTp
+    lin = (alpha * p[0] - 0.5 * wp[0] + bw * w[0], alpha * p[1] - 0.5 * wp[1] + bw * w[1],
+           alpha * p[2] - 0.5 * wp[2] + bw * w[2])
     A = _jlog3(theta, w)
     th2 = theta * theta
     if theta < _PREC3:
@@ -407,37 +445,25 @@ def _log6_jlog6(R, p):
         inv_2_2ct = 1.0 / (2.0 * (1.0 - ct))
         beta_j = t2inv - st * tinv * inv_2_2ct
         beta_dot_over_theta = -2.0 * t2inv * t2inv + (1.0 + st * tinv) * t2inv * inv_2_2ct
-    v3 = (beta_dot_over_theta * wTp) * w - (th2 * beta_dot_over_theta + 2.0 * beta_j) * p
-    C = np.empty((3, 3))
-    for i in range(3):
-        for j in range(3):
-            C[i, j] = v3[i] * w[j] + beta_j * w[i] * p[j]
-        C[i, i] += wTp * beta_j
-    C[0, 1] -= 0.5 * p[2]
-    C[0, 2] += 0.5 * p[1]
-    C[1, 0] += 0.5 * p[2]
-    C[1, 2] -= 0.5 * p[0]
-    C[2, 0] -= 0.5 * p[1]
-    C[2, 1] += 0.5 * p[0]
-    return e, A, _mul33(C, A)
-
-
-@numba.njit(cache=True)
-def _mul33(X, Y):
-    """(3, 3) product X Y, written out (small products cost less inline than through BLAS)."""
-    Z = np.empty((3, 3))
-    for i in range(3):
-        for j in range(3):
-            Z[i, j] = X[i, 0] * Y[0, j] + X[i, 1] * Y[1, j] + X[i, 2] * Y[2, j]
-    return Z
+    s1 = beta_dot_over_theta * wTp
+    s2 = th2 * beta_dot_over_theta + 2.0 * beta_j
+    v3 = (s1 * w[0] - s2 * p[0], s1 * w[1] - s2 * p[1], s1 * w[2] - s2 * p[2])
+    bj = (beta_j * w[0], beta_j * w[1], beta_j * w[2])
+    dg = wTp * beta_j
+    h = (0.5 * p[0], 0.5 * p[1], 0.5 * p[2])
+    C = ((v3[0] * w[0] + bj[0] * p[0] + dg, v3[0] * w[1] + bj[0] * p[1] - h[2], v3[0] * w[2] + bj[0] * p[2] + h[1]),
+         (v3[1] * w[0] + bj[1] * p[0] + h[2], v3[1] * w[1] + bj[1] * p[1] + dg, v3[1] * w[2] + bj[1] * p[2] - h[0]),
+         (v3[2] * w[0] + bj[2] * p[0] - h[1], v3[2] * w[1] + bj[2] * p[1] + h[0], v3[2] * w[2] + bj[2] * p[2] + dg))
+    return lin, w, A, _mul33(C, A)
 
 
 @numba.njit(cache=True)
 def _cuff_law(R, p, v_a, v_b, k, d, w_a, w_b, e_out, ke_out):
     """The cuff law of :mod:`models.cuffs` for one cuff, compiled; writes w_a, w_b, e and K e (6,) each.
 
-    With the placement :math:`{}^A M_B = (R, p)` of B in A, the frames' own
-    velocities :math:`v_A, v_B` and the diagonals k, d of K and D:
+    With the placement :math:`{}^A M_B = (R, p)` of B in A (R a tuple of
+    rows, p a 3-tuple), the frames' own velocities :math:`v_A, v_B` (6,) and
+    the diagonals k, d (6,) of K and D:
 
     .. math::
         e = \\log_6({}^A M_B), \\quad \\nu_{B/A} = v_B - {}^B X_A v_A, \\quad
@@ -447,76 +473,79 @@ def _cuff_law(R, p, v_a, v_b, k, d, w_a, w_b, e_out, ke_out):
     (Bullo & Murray 1999, section 3; :func:`models.cuffs.cuff_wrench` is the
     reference implementation this one must match to rounding).
     """
-    e, A, B = _log6_jlog6(R, p)
-    # relative twist in B: R^T (v_lin - p x w), R^T w of v_A, subtracted from v_B
-    la = v_a[:3] - np.cross(p, v_a[3:])
-    nu = np.empty(6)
+    e_lin, e_ang, A, B = _log6_jlog6(R, p)
+    # relative twist in B: v_B minus (R^T (v - p x omega), R^T omega) of v_A
+    pw = _cross(p, (v_a[3], v_a[4], v_a[5]))
+    la = _mul33t_vec(R, (v_a[0] - pw[0], v_a[1] - pw[1], v_a[2] - pw[2]))
+    aa = _mul33t_vec(R, (v_a[3], v_a[4], v_a[5]))
+    nu_lin = (v_b[0] - la[0], v_b[1] - la[1], v_b[2] - la[2])
+    nu_ang = (v_b[3] - aa[0], v_b[4] - aa[1], v_b[5] - aa[2])
     for i in range(3):
-        nu[i] = v_b[i] - (R[0, i] * la[0] + R[1, i] * la[1] + R[2, i] * la[2])
-        nu[3 + i] = v_b[3 + i] - (R[0, i] * v_a[3] + R[1, i] * v_a[4] + R[2, i] * v_a[5])
-    y = np.empty(6)
+        e_out[i], e_out[3 + i] = e_lin[i], e_ang[i]
+        ke_out[i], ke_out[3 + i] = k[i] * e_lin[i], k[3 + i] * e_ang[i]
+    # y = K e + D e_dot, e_dot = J nu with J = [[A, B], [0, A]]
+    a_lin, b_ang, a_ang = _mul33_vec(A, nu_lin), _mul33_vec(B, nu_ang), _mul33_vec(A, nu_ang)
+    y_lin = (ke_out[0] + d[0] * (a_lin[0] + b_ang[0]), ke_out[1] + d[1] * (a_lin[1] + b_ang[1]),
+             ke_out[2] + d[2] * (a_lin[2] + b_ang[2]))
+    y_ang = (ke_out[3] + d[3] * a_ang[0], ke_out[4] + d[4] * a_ang[1], ke_out[5] + d[5] * a_ang[2])
+    # w_B = -J^T y
+    f_b = _mul33t_vec(A, y_lin)
+    t_b1, t_b2 = _mul33t_vec(B, y_lin), _mul33t_vec(A, y_ang)
     for i in range(3):
-        ed_lin = (A[i, 0] * nu[0] + A[i, 1] * nu[1] + A[i, 2] * nu[2]
-                  + B[i, 0] * nu[3] + B[i, 1] * nu[4] + B[i, 2] * nu[5])
-        ed_ang = A[i, 0] * nu[3] + A[i, 1] * nu[4] + A[i, 2] * nu[5]
-        ke_out[i], ke_out[3 + i] = k[i] * e[i], k[3 + i] * e[3 + i]
-        y[i] = ke_out[i] + d[i] * ed_lin
-        y[3 + i] = ke_out[3 + i] + d[3 + i] * ed_ang
-        e_out[i], e_out[3 + i] = e[i], e[3 + i]
-    for i in range(3):  # w_B = -J^T y, J = [[A, B], [0, A]]
-        w_b[i] = -(A[0, i] * y[0] + A[1, i] * y[1] + A[2, i] * y[2])
-        w_b[3 + i] = -(B[0, i] * y[0] + B[1, i] * y[1] + B[2, i] * y[2]
-                       + A[0, i] * y[3] + A[1, i] * y[4] + A[2, i] * y[5])
+        w_b[i] = -f_b[i]
+        w_b[3 + i] = -(t_b1[i] + t_b2[i])
     # w_A = -(R f, R tau + p x R f) of w_B
+    rf = _mul33_vec(R, (w_b[0], w_b[1], w_b[2]))
+    rt = _mul33_vec(R, (w_b[3], w_b[4], w_b[5]))
+    prf = _cross(p, rf)
     for i in range(3):
-        w_a[i] = -(R[i, 0] * w_b[0] + R[i, 1] * w_b[1] + R[i, 2] * w_b[2])
-        w_a[3 + i] = -(R[i, 0] * w_b[3] + R[i, 1] * w_b[4] + R[i, 2] * w_b[5])
-    pf = np.cross(p, w_a[:3])  # p x (-R f) = -(p x R f)
-    for i in range(3):
-        w_a[3 + i] += pf[i]
+        w_a[i] = -rf[i]
+        w_a[3 + i] = -(rt[i] + prf[i])
+
+
+@numba.njit(cache=True)
+def _se3(M):
+    """(R as a tuple of rows, p) of an SE3 stored as pinocchio stores it (12,): R column by column, then p."""
+    return ((M[0], M[3], M[6]), (M[1], M[4], M[7]), (M[2], M[5], M[8])), (M[9], M[10], M[11])
 
 
 @numba.njit(cache=True)
 def _placement(M, P):
-    """World placement (R, p) of a frame: the joint placement M (12,) times the frame placement P (12,) in it.
+    """World placement (R, p) of a frame: the joint placement M times the frame placement P in it (both (12,)).
 
-    Both are stored as pinocchio stores an SE3: the rotation column by column, then the translation.
     :math:`R = R_M R_P`, :math:`p = R_M p_P + p_M`.
     """
-    R = np.empty((3, 3))
-    p = np.empty(3)
-    for i in range(3):
-        for j in range(3):
-            R[i, j] = M[i] * P[3 * j] + M[3 + i] * P[3 * j + 1] + M[6 + i] * P[3 * j + 2]
-        p[i] = M[i] * P[9] + M[3 + i] * P[10] + M[6 + i] * P[11] + M[9 + i]
-    return R, p
+    R_m, p_m = _se3(M)
+    R_p, p_p = _se3(P)
+    rp = _mul33_vec(R_m, p_p)
+    return _mul33(R_m, R_p), (rp[0] + p_m[0], rp[1] + p_m[1], rp[2] + p_m[2])
 
 
 @numba.njit(cache=True)
 def _frame_twist(P, v, out):
     """The frame's own (LOCAL) twist of the joint twist v (6,): :math:`(R^T (v - p \\times \\omega), R^T \\omega)`.
 
-    P (12,) is the frame's placement in its joint, stored as in :func:`_placement`.
+    P (12,) is the frame's placement in its joint, stored as in :func:`_se3`; writes out (6,).
     """
-    lin0 = v[0] - (P[10] * v[5] - P[11] * v[4])
-    lin1 = v[1] - (P[11] * v[3] - P[9] * v[5])
-    lin2 = v[2] - (P[9] * v[4] - P[10] * v[3])
-    for i in range(3):  # column i of R is P[3i:3i+3]: (R^T x)_i = R[:, i] . x
-        out[i] = P[3 * i] * lin0 + P[3 * i + 1] * lin1 + P[3 * i + 2] * lin2
-        out[3 + i] = P[3 * i] * v[3] + P[3 * i + 1] * v[4] + P[3 * i + 2] * v[5]
+    R, p = _se3(P)
+    om = (v[3], v[4], v[5])
+    pw = _cross(p, om)
+    lin = _mul33t_vec(R, (v[0] - pw[0], v[1] - pw[1], v[2] - pw[2]))
+    ang = _mul33t_vec(R, om)
+    for i in range(3):
+        out[i], out[3 + i] = lin[i], ang[i]
 
 
 @numba.njit(cache=True)
 def _add_joint_wrench(P, w, f):
     """Add to the joint-frame wrench f (6,) the frame wrench w (6,): :math:`(R f_w, R \\tau_w + p \\times R f_w)`."""
-    rf = np.empty(3)
-    for i in range(3):
-        rf[i] = P[i] * w[0] + P[3 + i] * w[1] + P[6 + i] * w[2]
+    R, p = _se3(P)
+    rf = _mul33_vec(R, (w[0], w[1], w[2]))
+    rt = _mul33_vec(R, (w[3], w[4], w[5]))
+    prf = _cross(p, rf)
     for i in range(3):
         f[i] += rf[i]
-    f[3] += P[0] * w[3] + P[3] * w[4] + P[6] * w[5] + (P[10] * rf[2] - P[11] * rf[1])
-    f[4] += P[1] * w[3] + P[4] * w[4] + P[7] * w[5] + (P[11] * rf[0] - P[9] * rf[2])
-    f[5] += P[2] * w[3] + P[5] * w[4] + P[8] * w[5] + (P[9] * rf[1] - P[10] * rf[0])
+        f[3 + i] += rt[i] + prf[i]
 
 
 @numba.njit(cache=True)
@@ -566,20 +595,23 @@ def _cuff_kernel(oMi_e, oMi_h, v_e, v_h, joints, place, kd, w_a, w_b, terms, for
     for c in range(k):
         R_a, p_a = _placement(oMi_e[joints[0, c]], place[0, c])
         R_b, p_b = _placement(oMi_h[joints[1, c]], place[1, c])
-        R = np.empty((3, 3))
-        for i in range(3):
-            for j in range(3):
-                R[i, j] = R_a[0, i] * R_b[0, j] + R_a[1, i] * R_b[1, j] + R_a[2, i] * R_b[2, j]
-        dp = p_b - p_a
-        p = np.empty(3)
-        for i in range(3):
-            p[i] = R_a[0, i] * dp[0] + R_a[1, i] * dp[1] + R_a[2, i] * dp[2]
+        R = ((R_a[0][0] * R_b[0][0] + R_a[1][0] * R_b[1][0] + R_a[2][0] * R_b[2][0],  # R_a^T R_b
+              R_a[0][0] * R_b[0][1] + R_a[1][0] * R_b[1][1] + R_a[2][0] * R_b[2][1],
+              R_a[0][0] * R_b[0][2] + R_a[1][0] * R_b[1][2] + R_a[2][0] * R_b[2][2]),
+             (R_a[0][1] * R_b[0][0] + R_a[1][1] * R_b[1][0] + R_a[2][1] * R_b[2][0],
+              R_a[0][1] * R_b[0][1] + R_a[1][1] * R_b[1][1] + R_a[2][1] * R_b[2][1],
+              R_a[0][1] * R_b[0][2] + R_a[1][1] * R_b[1][2] + R_a[2][1] * R_b[2][2]),
+             (R_a[0][2] * R_b[0][0] + R_a[1][2] * R_b[1][0] + R_a[2][2] * R_b[2][0],
+              R_a[0][2] * R_b[0][1] + R_a[1][2] * R_b[1][1] + R_a[2][2] * R_b[2][1],
+              R_a[0][2] * R_b[0][2] + R_a[1][2] * R_b[1][2] + R_a[2][2] * R_b[2][2]))
+        p = _mul33t_vec(R_a, (p_b[0] - p_a[0], p_b[1] - p_a[1], p_b[2] - p_a[2]))
         _frame_twist(place[0, c], v_e[joints[0, c]], terms[c, 12:18])
         _frame_twist(place[1, c], v_h[joints[1, c]], terms[c, 18:24])
         _cuff_law(R, p, terms[c, 12:18], terms[c, 18:24], kd[0, c], kd[1, c], w_a[c], w_b[c],
                   terms[c, 0:6], terms[c, 6:12])
+        fw = _mul33_vec(R_b, (w_b[c, 0], w_b[c, 1], w_b[c, 2]))
         for i in range(3):
-            force_world[c, i] = R_b[i, 0] * w_b[c, 0] + R_b[i, 1] * w_b[c, 1] + R_b[i, 2] * w_b[c, 2]
+            force_world[c, i] = fw[i]
         _add_joint_wrench(place[0, c], w_a[c], fext_e[joints[0, c]])
         _add_joint_wrench(place[1, c], w_b[c], fext_h[joints[1, c]])
 
