@@ -260,12 +260,8 @@ class CoupledPlant:
 
     def state_is_finite(self) -> str | None:
         """Name of the first non-finite state vector, or None."""
-        if math.isfinite(self.q_exo.sum() + self.v_exo.sum() + self.q_human.sum() + self.v_human.sum()):
-            return None  # one sum: a NaN or inf in any vector makes it non-finite (overflow too, then checked)
-        for name in ("q_exo", "v_exo", "q_human", "v_human"):
-            if not np.all(np.isfinite(getattr(self, name))):
-                return name
-        return None
+        bad = _first_nonfinite(self.q_exo, self.v_exo, self.q_human, self.v_human)
+        return None if bad < 0 else ("q_exo", "v_exo", "q_human", "v_human")[bad]
 
 
 # -- compiled cuff kernel ----------------------------------------------------------------
@@ -614,6 +610,26 @@ def _cuff_kernel(oMi_e, oMi_h, v_e, v_h, joints, place, kd, w_a, w_b, terms, for
             force_world[c, i] = fw[i]
         _add_joint_wrench(place[0, c], w_a[c], fext_e[joints[0, c]])
         _add_joint_wrench(place[1, c], w_b[c], fext_h[joints[1, c]])
+
+
+@numba.njit(cache=True)
+def _any_nonfinite(x):
+    for i in range(x.shape[0]):
+        if not math.isfinite(x[i]):
+            return True
+    return False
+
+
+@numba.njit(cache=True)
+def _first_nonfinite(a, b, c, d):
+    """Index (0-3) of the first of the four vectors that holds a NaN or an infinity, or -1."""
+    if _any_nonfinite(a):
+        return 0
+    if _any_nonfinite(b):
+        return 1
+    if _any_nonfinite(c):
+        return 2
+    return 3 if _any_nonfinite(d) else -1
 
 
 @numba.njit(cache=True)
