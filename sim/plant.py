@@ -149,8 +149,8 @@ class CoupledPlant:
         #: Per cuff, the last wrench on the human [f; tau] in the human cuff frame, and on the robot in its frame.
         self.wrench_on_human = np.zeros((len(self.cuffs), 6))
         self.wrench_on_exo = np.zeros((len(self.cuffs), 6))
-        # per cuff, the force on the human in world axes [N]; it, the spring energy and the power are
-        # computed from the terms of the last update when first read (see the properties below)
+        # per cuff, the force on the human in world axes [N], written by each update; the spring energy and
+        # the power are computed from the terms of the last update when first read (see the properties below)
         self._force_world = np.zeros((len(self.cuffs), 3))
         self._terms = np.zeros((len(self.cuffs), 24))  # per cuff e, K e, v_a, v_b of the last update
         self._energy_J, self._power_W = 0.0, 0.0
@@ -221,11 +221,11 @@ class CoupledPlant:
         self.update_cuffs()  # also writes the cuff wrenches into the joint-frame forces aba reads
         if self.has_exo:
             me = self.exo.model
-            tau = tau_exo_Nm
-            if self.params.exo_friction:
+            tau = np.asarray(tau_exo_Nm, dtype=float)
+            if self.params.exo_friction:  # tau - b v - tau_c tanh(v / v_s) (PlantParams)
+                _friction_torque(tau, self.v_exo, self._damping, self._coulomb, self.params.coulomb_smoothing_rad_s,
+                                 self._tau_e)
                 tau = self._tau_e
-                _friction_torque(tau_exo_Nm, self.v_exo, self._damping, self._coulomb,
-                                 self.params.coulomb_smoothing_rad_s, tau)
             a = pin.aba(me, self._de, self.q_exo, self.v_exo, tau, self._fext_e)
             a *= dt_s
             a += self.v_exo
