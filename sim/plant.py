@@ -343,7 +343,7 @@ def _log3(R):
     :math:`\\theta / \\sin\\theta` near 0 and the angle-axis read off the largest
     diagonal quaternion term near pi: the branches and thresholds of
     pinocchio's ``log3`` (Murray, Li & Sastry, *A Mathematical Introduction to
-    Robotic Manipulation*, 1994, section 2.2), so that both agree to rounding.
+    Robotic Manipulation*, 1994, section 2.2; section from memory), so that both agree to rounding.
     """
     n0 = math.sqrt(R[0][0] * R[0][0] + R[1][0] * R[1][0] + R[2][0] * R[2][0])
     n1 = math.sqrt(R[0][1] * R[0][1] + R[1][1] * R[1][1] + R[2][1] * R[2][1])
@@ -382,7 +382,7 @@ def _jlog3(theta, w):
 
     with Taylor series below the 3rd-order threshold (pinocchio's ``Jlog3``;
     Chirikjian, *Stochastic Models, Information Theory, and Lie Groups*,
-    vol. 2, 2012, chapter 10).
+    vol. 2, 2012, chapter 10; chapter from memory).
     """
     if theta < _PREC3:
         alpha = 1.0 / 12.0 + theta * theta / 720.0
@@ -412,7 +412,7 @@ def _log6_jlog6(R, p):
     with :math:`\\alpha = \\theta \\sin\\theta / (2 (1 - \\cos\\theta))`,
     :math:`\\beta = 1/\\theta^2 - \\sin\\theta / (2 \\theta (1 - \\cos\\theta))`
     and B from the derivative of :math:`\\beta` (Barfoot, *State Estimation
-    for Robotics*, 2017, section 7.1.5, the SE(3) Jacobians), with the branches
+    for Robotics*, 2017, section 7.1.5, the SE(3) Jacobians; section from memory), with the branches
     and thresholds of pinocchio's ``log6`` and ``Jlog6``.  R is a tuple of rows, p a 3-tuple.
     """
     w, theta = _log3(R)
