@@ -13,6 +13,7 @@ import math
 from abc import ABC, abstractmethod
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 
 from models._checks import positive
@@ -58,6 +59,22 @@ class Actuators(ABC):
         """The joint torque applied now (nv,) [N m] (a copy)."""
 
 
+@numba.njit(cache=True)
+def _saturate(command, limit, out, saturated):
+    """``out = clip(command, -limit, limit)`` and ``saturated = |command| > limit`` (numpy semantics)."""
+    for i in range(command.shape[0]):
+        c, lim = command[i], limit[i]
+        out[i] = -lim if c < -lim else (lim if c > lim else c)
+        saturated[i] = abs(c) > lim
+
+
+@numba.njit(cache=True)
+def _lag(tau, u, alpha):
+    """One exact first-order-lag step in place: :math:`\\tau \\mathrel{+}= \\alpha (u - \\tau)`."""
+    for i in range(tau.shape[0]):
+        tau[i] += alpha * (u[i] - tau[i])
+
+
 class TorqueSourceActuators(Actuators):
     """Saturation at the torque limits followed by a first-order lag.
 
@@ -78,8 +95,9 @@ class TorqueSourceActuators(Actuators):
         self._u[:] = tau0_Nm
 
     def hold(self, command_Nm: np.ndarray) -> np.ndarray:
-        np.clip(command_Nm, -self._limit, self._limit, out=self._u)
-        return np.abs(command_Nm) > self._limit
+        saturated = np.empty(self._limit.shape, dtype=np.bool_)
+        _saturate(np.asarray(command_Nm, dtype=float), self._limit, self._u, saturated)
+        return saturated
 
     @property
     def applied_Nm(self) -> np.ndarray:
@@ -89,5 +107,5 @@ class TorqueSourceActuators(Actuators):
         a = self._alpha.get(dt_s)
         if a is None:
             a = self._alpha[dt_s] = 1.0 - math.exp(-dt_s / self.params.torque_time_constant_s)
-        self._tau += a * (self._u - self._tau)
+        _lag(self._tau, self._u, a)
         return self._tau

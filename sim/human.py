@@ -9,7 +9,8 @@ the intent,
     \\tau_h = \\mathrm{ID}(q_d, \\dot q_d, \\ddot q_d)
               + K (q_d - q) + B (\\dot q_d - \\dot q),
 
-saturated at the arm's peak joint torques.  It does not anticipate the robot.
+saturated at the arm's peak joint torques (the sum and the saturation are one
+compiled call, :func:`_impedance_torque`).  It does not anticipate the robot.
 Impedance magnitudes: shoulder and elbow from the standard two-link arm model
 of Shadmehr & Mussa-Ivaldi (1994), diagonal terms (REFERENCES.md section 10,
 from memory); forearm, wrist and girdle values are common practice.
@@ -19,6 +20,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 import pinocchio as pin
 
@@ -30,6 +32,18 @@ from models.human import HumanParams, girdle_posture
 from .intent import JointIntent
 
 __all__ = ["HumanMotorParams", "HumanMotor"]
+
+
+@numba.njit(cache=True)
+def _impedance_torque(ff, K, dq, B, dqd, v, limit, out):
+    """:math:`\\tau = \\mathrm{sat}_{\\pm\\tau_{max}}(\\tau_{ff} + K \\Delta q + B (\\dot q_d - \\dot q))` into out.
+
+    ``dq`` is :math:`q_d \\ominus q` (``pinocchio.difference``); saturation as ``numpy.clip`` (a NaN stays NaN).
+    """
+    for i in range(out.shape[0]):
+        x = (ff[i] + K[i] * dq[i]) + B[i] * (dqd[i] - v[i])
+        lim = limit[i]
+        out[i] = -lim if x < -lim else (lim if x > lim else x)
 
 
 @dataclass(frozen=True)
@@ -120,5 +134,7 @@ class HumanMotor:
                 self._model, self._data, qd)
         else:
             ff = np.zeros(self._model.nv)
-        tau = ff + self.K * pin.difference(self._model, q, qd) + self.B * (dqd - v)
-        return np.clip(tau, -self._limit, self._limit)
+        tau = np.empty(self._model.nv)
+        _impedance_torque(ff, self.K, pin.difference(self._model, q, qd), self.B, dqd, np.asarray(v, dtype=float),
+                          self._limit, tau)
+        return tau

@@ -13,6 +13,14 @@ semi-implicit (symplectic) Euler,
 (``pinocchio.integrate``; Hairer, Lubich & Wanner, *Geometric Numerical
 Integration*, 2006, section VI.3).  The plant owns its pinocchio ``Data``;
 the controller never shares it.
+
+pinocchio runs the rigid-body algorithms (forward kinematics, aba,
+integrate).  Everything between them for all the cuffs (the frame
+placements and twists, the cuff law, the joint-frame wrenches aba takes) is
+one compiled call (:func:`_cuff_kernel`, numba), reading and writing the
+pinocchio ``Data`` and force vectors in place; it restates the law of
+:mod:`models.cuffs`, the reference it is tested against.  The first run
+compiles it (numba ``cache=True``: later processes load it from disk).
 """
 
 from __future__ import annotations
@@ -22,13 +30,15 @@ import math
 from dataclasses import dataclass
 from typing import Literal
 
+import numba
 import numpy as np
 import pinocchio as pin
 
 from models._checks import in_range, nonnegative, positive
 from models.arm import ArmModel
 from models.coupling import Assembly
-from models.cuffs import _cuff_energy_terms, _cuff_power_terms, _cuff_wrench_terms
+from models.cuffs import _cuff_energy_terms, _cuff_power_terms
+from models.errors import SandboxError
 
 __all__ = ["PlantParams", "CoupledPlant", "PlantMode"]
 
@@ -104,43 +114,34 @@ class CoupledPlant:
             for c in self.cuffs
         ]
         me, mh = self.exo.model, self.human.model
-        # joint and placement of each cuff's application frame, and its human-side placement
-        self._exo_joint = [me.frames[c.exo_frame_id].parentJoint for c in self.cuffs]
-        self._exo_place = [me.frames[c.exo_frame_id].placement for c in self.cuffs]
-        self._hum_joint = [mh.frames[c.human_frame_id].parentJoint for c in self.cuffs]
-        self._hum_place = [mh.frames[c.human_frame_id].placement * c.human_offset for c in self.cuffs]
-        # constant per cuff: action matrices of the frame placements in their joints, stacked (k, 6, 6)
         nc = len(self.cuffs)
-        self._exo_place_inv = np.array([P.toActionMatrixInverse() for P in self._exo_place]).reshape(nc, 6, 6)
-        self._hum_place_inv = np.array([P.toActionMatrixInverse() for P in self._hum_place]).reshape(nc, 6, 6)
-        self._exo_place_dual = np.array([P.toDualActionMatrix() for P in self._exo_place]).reshape(nc, 6, 6)
-        self._hum_place_dual = np.array([P.toDualActionMatrix() for P in self._hum_place]).reshape(nc, 6, 6)
-        self._k_diag = np.array([cp.k_diag for cp in self._cuff_params]).reshape(nc, 6)
-        self._d_diag = np.array([cp.d_diag for cp in self._cuff_params]).reshape(nc, 6)
-        # joints that carry a cuff, with the cuffs on each (their wrenches add up in the joint frame)
-        self._exo_groups = [(j, [k for k in range(nc) if self._exo_joint[k] == j])
-                            for j in sorted(set(self._exo_joint))]
-        self._hum_groups = [(j, [k for k in range(nc) if self._hum_joint[k] == j])
-                            for j in sorted(set(self._hum_joint))]
         self._fext_e = pin.StdVec_Force()
         self._fext_h = pin.StdVec_Force()
         for _ in range(me.njoints):
             self._fext_e.append(pin.Force.Zero())
         for _ in range(mh.njoints):
             self._fext_h.append(pin.Force.Zero())
-        # live references into the Data: each joint placement and velocity of a cuff's parent joint, and the
-        # vector of each external force that aba reads (fixed-size storage, so they stay valid)
-        self._oMi_e = [self._de.oMi[j] for j in self._exo_joint]
-        self._oMi_h = [self._dh.oMi[j] for j in self._hum_joint]
-        self._v_je = [self._de.v[j].vector for j in self._exo_joint]
-        self._v_jh = [self._dh.v[j].vector for j in self._hum_joint]
-        self._fext_e_vec = [(self._fext_e[j].vector, ks) for j, ks in self._exo_groups]
-        self._fext_h_vec = [(self._fext_h[j].vector, ks) for j, ks in self._hum_groups]
-        self._v_j = self._v_je + self._v_jh  # robot side first, then human side: as in the stacks below
-        self._place_inv = np.concatenate([self._exo_place_inv, self._hum_place_inv])
-        self._place_dual = np.concatenate([self._exo_place_dual, self._hum_place_dual])
+        # constant per cuff: its two joints, the placements of its frames in them, its K and D diagonals
+        self._joints = np.array([[me.frames[c.exo_frame_id].parentJoint for c in self.cuffs],
+                                 [mh.frames[c.human_frame_id].parentJoint for c in self.cuffs]],
+                                dtype=np.int64).reshape(2, nc)
+        self._place = np.array([[_se3_record(me.frames[c.exo_frame_id].placement) for c in self.cuffs],
+                                [_se3_record(mh.frames[c.human_frame_id].placement * c.human_offset)
+                                 for c in self.cuffs]]).reshape(2, nc, 12)
+        self._kd = np.array([[cp.k_diag for cp in self._cuff_params],
+                             [cp.d_diag for cp in self._cuff_params]]).reshape(2, nc, 6)
+        # in-place views of the Data's joint placements and velocities and of the forces aba reads
+        # (fixed-size storage, so they stay valid): one compiled call reads and writes them all
+        de, dh = self._de, self._dh
+        self._oMi_e = _records([de.oMi[j].rotation for j in range(me.njoints)], 12, "joint placements")
+        self._oMi_h = _records([dh.oMi[j].rotation for j in range(mh.njoints)], 12, "joint placements")
+        self._v_e = _records([de.v[j].vector for j in range(me.njoints)], 6, "joint velocities")
+        self._v_h = _records([dh.v[j].vector for j in range(mh.njoints)], 6, "joint velocities")
+        self._fext_e_rec = _records([f.vector for f in self._fext_e], 6, "external forces")
+        self._fext_h_rec = _records([f.vector for f in self._fext_h], 6, "external forces")
         self._damping = np.array(me.damping)  # constant: read once
         self._coulomb = np.array(me.friction)
+        self._tau_e = np.zeros(me.nv)  # joint torque plus friction, rewritten each substep
         self.q_exo = assembly.q_exo0.copy()
         self.v_exo = np.zeros(me.nv)
         self.q_human = assembly.q_human0.copy()
@@ -148,12 +149,11 @@ class CoupledPlant:
         #: Per cuff, the last wrench on the human [f; tau] in the human cuff frame, and on the robot in its frame.
         self.wrench_on_human = np.zeros((len(self.cuffs), 6))
         self.wrench_on_exo = np.zeros((len(self.cuffs), 6))
-        # per cuff, the force on the human in world axes [N]; it, the spring energy and the power are
-        # computed from the terms of the last update when first read (see the properties below)
+        # per cuff, the force on the human in world axes [N], written by each update; the spring energy and
+        # the power are computed from the terms of the last update when first read (see the properties below)
         self._force_world = np.zeros((len(self.cuffs), 3))
-        self._terms = None  # (oMb rotations, w_a, w_b, e, K e, v_a, v_b) of the last update, or None
-        self._world_fresh, self._energy_J, self._power_W = True, 0.0, 0.0
-        self._zero_e = np.zeros(me.nv)
+        self._terms = np.zeros((len(self.cuffs), 24))  # per cuff e, K e, v_a, v_b of the last update
+        self._energy_J, self._power_W = 0.0, 0.0
         self._cuffs_fresh = False
         self._hand = {}
         for which, arm in (("exo", self.exo), ("human", self.human)):
@@ -181,48 +181,32 @@ class CoupledPlant:
         self._cuffs_fresh = True
         self._kinematics()
         if not self.cuffs:
-            self._terms, self._world_fresh, self._energy_J, self._power_W = None, True, 0.0, 0.0
             return
-        aMb, oMb_rot = [], []
-        for oMi_e, P_e, oMi_h, P_h in zip(self._oMi_e, self._exo_place, self._oMi_h, self._hum_place):
-            oMb = oMi_h * P_h
-            aMb.append((oMi_e * P_e).actInv(oMb))
-            oMb_rot.append(oMb.rotation)
-        nc = len(aMb)
-        v = (self._place_inv @ np.array(self._v_j)[:, :, None])[:, :, 0]  # each cuff frame's own (LOCAL) velocity
-        v_a, v_b = v[:nc], v[nc:]
-        w_a, w_b, e, ke = _cuff_wrench_terms(aMb, v_a, v_b, self._k_diag, self._d_diag)
-        self.wrench_on_exo[:] = w_a
-        self.wrench_on_human[:] = w_b
-        self._terms = (oMb_rot, w_a, w_b, e, ke, v_a, v_b)
-        self._world_fresh = self._energy_J = self._power_W = None
-        # the same wrenches in the joint frames, where aba takes them
-        fj = (self._place_dual @ np.concatenate((w_a, w_b))[:, :, None])[:, :, 0]
-        self._fj_e, self._fj_h = fj[:nc], fj[nc:]
+        _cuff_kernel(self._oMi_e, self._oMi_h, self._v_e, self._v_h, self._joints, self._place, self._kd,
+                     self.wrench_on_exo, self.wrench_on_human, self._terms, self._force_world,
+                     self._fext_e_rec, self._fext_h_rec)
+        self._energy_J = self._power_W = None
 
     @property
     def force_on_human_world(self) -> np.ndarray:
         """(n_cuffs, 3) per cuff, the force on the human in world axes [N] (of the last cuff update)."""
-        if not self._world_fresh and self._terms is not None:
-            oMb_rot, _, w_b = self._terms[:3]
-            self._force_world[:] = (np.array(oMb_rot) @ w_b[:, :3, None])[:, :, 0]
-        self._world_fresh = True
         return self._force_world
 
     @property
     def cuff_energy_J(self) -> float:
         """Spring energy of all cuffs [J] at the last cuff update (:func:`models.cuffs.cuff_wrenches`)."""
         if self._energy_J is None:
-            _, _, _, e, ke, _, _ = self._terms
-            self._energy_J = float(_cuff_energy_terms(e, ke).sum())
+            t = self._terms
+            self._energy_J = float(_cuff_energy_terms(t[:, 0:6], t[:, 6:12]).sum())
         return self._energy_J
 
     @property
     def cuff_power_W(self) -> float:
         """Power all cuffs draw from the two arms [W] at the last cuff update (:func:`models.cuffs.cuff_wrenches`)."""
         if self._power_W is None:
-            _, w_a, w_b, _, _, v_a, v_b = self._terms
-            self._power_W = float(_cuff_power_terms(w_a, w_b, v_a, v_b).sum())
+            t = self._terms
+            self._power_W = float(_cuff_power_terms(self.wrench_on_exo, self.wrench_on_human,
+                                                    t[:, 12:18], t[:, 18:24]).sum())
         return self._power_W
 
     def hand_position(self, which: str) -> np.ndarray:
@@ -231,30 +215,29 @@ class CoupledPlant:
         joint, offset = self._hand[which]
         return (self._de if which == "exo" else self._dh).oMi[joint].act(offset)
 
-    def _friction(self) -> np.ndarray:
-        if not self.params.exo_friction:
-            return self._zero_e
-        return -self._damping * self.v_exo - self._coulomb * np.tanh(self.v_exo / self.params.coulomb_smoothing_rad_s)
-
     # -- dynamics ----------------------------------------------------------------------
     def substep(self, tau_exo_Nm: np.ndarray, tau_human_Nm: np.ndarray, dt_s: float) -> None:
         """Advance both arms by ``dt_s`` with the given joint torques held constant."""
-        self.update_cuffs()
-        # only joints that carry a cuff ever hold an external force; the others stay zero
-        for f, ks in self._fext_e_vec:  # written in place into the force vectors aba reads
-            f[:] = self._fj_e[ks[0]] if len(ks) == 1 else self._fj_e[ks].sum(axis=0)
-        for f, ks in self._fext_h_vec:
-            f[:] = self._fj_h[ks[0]] if len(ks) == 1 else self._fj_h[ks].sum(axis=0)
+        self.update_cuffs()  # also writes the cuff wrenches into the joint-frame forces aba reads
         if self.has_exo:
             me = self.exo.model
-            a = pin.aba(me, self._de, self.q_exo, self.v_exo, tau_exo_Nm + self._friction(), self._fext_e)
-            self.v_exo = self.v_exo + dt_s * a
+            tau = np.asarray(tau_exo_Nm, dtype=float)
+            if self.params.exo_friction:  # tau - b v - tau_c tanh(v / v_s) (PlantParams)
+                _friction_torque(tau, self.v_exo, self._damping, self._coulomb, self.params.coulomb_smoothing_rad_s,
+                                 self._tau_e)
+                tau = self._tau_e
+            a = pin.aba(me, self._de, self.q_exo, self.v_exo, tau, self._fext_e)
+            a *= dt_s
+            a += self.v_exo
+            self.v_exo = a  # v + h a, a new array (aba returns its own)
             self.q_exo = pin.integrate(me, self.q_exo, self.v_exo * dt_s)
             self._cuffs_fresh = False
         if self.has_human:
             mh = self.human.model
             a = pin.aba(mh, self._dh, self.q_human, self.v_human, tau_human_Nm, self._fext_h)
-            self.v_human = self.v_human + dt_s * a
+            a *= dt_s
+            a += self.v_human
+            self.v_human = a
             self.q_human = pin.integrate(mh, self.q_human, self.v_human * dt_s)
             self._cuffs_fresh = False
 
@@ -277,9 +260,402 @@ class CoupledPlant:
 
     def state_is_finite(self) -> str | None:
         """Name of the first non-finite state vector, or None."""
-        if math.isfinite(self.q_exo.sum() + self.v_exo.sum() + self.q_human.sum() + self.v_human.sum()):
-            return None  # one sum: a NaN or inf in any vector makes it non-finite (overflow too, then checked)
-        for name in ("q_exo", "v_exo", "q_human", "v_human"):
-            if not np.all(np.isfinite(getattr(self, name))):
-                return name
-        return None
+        bad = _first_nonfinite(self.q_exo, self.v_exo, self.q_human, self.v_human)
+        return None if bad < 0 else ("q_exo", "v_exo", "q_human", "v_human")[bad]
+
+
+# -- compiled cuff kernel ----------------------------------------------------------------
+# Every numba function the plant calls lives in this file: numba's on-disk cache is keyed on the file of the
+# compiled function and does not see edits to functions it calls in other files.  Inside the kernel, 3-vectors
+# are tuples and 3x3 matrices tuples of rows: they live in registers, with no array allocated per cuff.
+
+_EPS = float(np.finfo(np.float64).eps)
+_PREC2 = _EPS ** (1.0 / 3.0)  # bound of a 2nd-order Taylor expansion at machine precision (as pinocchio)
+_PREC3 = _EPS ** (1.0 / 4.0)  # the same for a 3rd-order expansion
+
+
+@numba.njit(cache=True)
+def _cross(a, b):
+    return (a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2], a[0] * b[1] - a[1] * b[0])
+
+
+@numba.njit(cache=True)
+def _dot(a, b):
+    return a[0] * b[0] + a[1] * b[1] + a[2] * b[2]
+
+
+@numba.njit(cache=True)
+def _mul33(X, Y):
+    """(3, 3) product X Y of two matrices given as tuples of rows."""
+    return ((X[0][0] * Y[0][0] + X[0][1] * Y[1][0] + X[0][2] * Y[2][0],
+             X[0][0] * Y[0][1] + X[0][1] * Y[1][1] + X[0][2] * Y[2][1],
+             X[0][0] * Y[0][2] + X[0][1] * Y[1][2] + X[0][2] * Y[2][2]),
+            (X[1][0] * Y[0][0] + X[1][1] * Y[1][0] + X[1][2] * Y[2][0],
+             X[1][0] * Y[0][1] + X[1][1] * Y[1][1] + X[1][2] * Y[2][1],
+             X[1][0] * Y[0][2] + X[1][1] * Y[1][2] + X[1][2] * Y[2][2]),
+            (X[2][0] * Y[0][0] + X[2][1] * Y[1][0] + X[2][2] * Y[2][0],
+             X[2][0] * Y[0][1] + X[2][1] * Y[1][1] + X[2][2] * Y[2][1],
+             X[2][0] * Y[0][2] + X[2][1] * Y[1][2] + X[2][2] * Y[2][2]))
+
+
+@numba.njit(cache=True)
+def _mul33_vec(X, v):
+    return (_dot(X[0], v), _dot(X[1], v), _dot(X[2], v))
+
+
+@numba.njit(cache=True)
+def _mul33t_vec(X, v):
+    """:math:`X^T v`."""
+    return (X[0][0] * v[0] + X[1][0] * v[1] + X[2][0] * v[2],
+            X[0][1] * v[0] + X[1][1] * v[1] + X[2][1] * v[2],
+            X[0][2] * v[0] + X[1][2] * v[1] + X[2][2] * v[2])
+
+
+@numba.njit(cache=True)
+def _unskew(R):
+    """:math:`\\tfrac12 (R - R^T)^\\vee`."""
+    return (0.5 * (R[2][1] - R[1][2]), 0.5 * (R[0][2] - R[2][0]), 0.5 * (R[1][0] - R[0][1]))
+
+
+@numba.njit(cache=True)
+def _theta_axis(i0, val, R):
+    """Angle and unit axis of R from its largest diagonal quaternion term ``i0`` (near pi, :func:`_log3`)."""
+    i1, i2 = (i0 + 1) % 3, (i0 + 2) % 3
+    sign = 1.0 if R[i2][i1] >= R[i1][i2] else -1.0
+    s = math.sqrt(val + _EPS + _EPS * _EPS) * sign
+    a0 = s / 2.0
+    a1 = 1.0 / (2.0 * s) * (R[i1][i0] + R[i0][i1])
+    a2 = 1.0 / (2.0 * s) * (R[i2][i0] + R[i0][i2])
+    w = 1.0 / (2.0 * s) * (R[i2][i1] - R[i1][i2])
+    axis = (a0, a1, a2) if i0 == 0 else ((a2, a0, a1) if i0 == 1 else (a1, a2, a0))  # entries i0, i1, i2
+    n = math.sqrt(_dot(axis, axis))
+    return 2.0 * math.atan2(n, w), (axis[0] / n, axis[1] / n, axis[2] / n)
+
+
+@numba.njit(cache=True)
+def _log3(R):
+    """Rotation vector w = theta u of a rotation matrix R, and theta [rad] in [0, pi].
+
+    .. math:: \\theta = \\arccos\\frac{\\operatorname{tr} R - 1}{2}, \\qquad
+              w = \\frac{\\theta}{\\sin\\theta}\\,\\tfrac12 (R - R^T)^\\vee,
+
+    on R re-orthonormalised column by column, with a Taylor series of
+    :math:`\\theta / \\sin\\theta` near 0 and the angle-axis read off the largest
+    diagonal quaternion term near pi: the branches and thresholds of
+    pinocchio's ``log3`` (Murray, Li & Sastry, *A Mathematical Introduction to
+    Robotic Manipulation*, 1994, section 2.2; section from memory), so that both agree to rounding.
+    """
+    n0 = math.sqrt(R[0][0] * R[0][0] + R[1][0] * R[1][0] + R[2][0] * R[2][0])
+    n1 = math.sqrt(R[0][1] * R[0][1] + R[1][1] * R[1][1] + R[2][1] * R[2][1])
+    c0 = (R[0][0] / n0, R[1][0] / n0, R[2][0] / n0)
+    c1 = (R[0][1] / n1, R[1][1] / n1, R[2][1] / n1)
+    c2 = _cross(c0, c1)
+    c0 = _cross(c1, c2)
+    Rn = ((c0[0], c1[0], c2[0]), (c0[1], c1[1], c2[1]), (c0[2], c1[2], c2[2]))
+    tr = Rn[0][0] + Rn[1][1] + Rn[2][2]
+    cos_value = (tr - 1.0) / 2.0
+    if cos_value < -1.0 + _PREC2:  # near pi: from the largest of the quaternion's squared terms
+        v0, v1, v2 = 2.0 * Rn[0][0] - tr + 1.0, 2.0 * Rn[1][1] - tr + 1.0, 2.0 * Rn[2][2] - tr + 1.0
+        if v0 >= v1:
+            i0, val = (0, v0) if v0 >= v2 else (2, v2)
+        else:
+            i0, val = (1, v1) if v1 >= v2 else (2, v2)
+        theta, axis = _theta_axis(i0, val, Rn)
+        return (theta * axis[0], theta * axis[1], theta * axis[2]), theta
+    acos_expansion = math.sqrt(2.0 * (1.0 - cos_value) + _EPS * _EPS)
+    if tr <= 3.0 - _PREC2:
+        theta = math.acos(cos_value) if tr >= -1.0 + _PREC2 else math.pi - acos_expansion
+    else:
+        theta = acos_expansion
+    a = _unskew(Rn)
+    n2 = _dot(a, a)
+    t = theta / math.sin(theta) if theta >= _PREC2 else 1.0 + n2 / 6.0 + n2 * n2 * 3.0 / 40.0
+    return (t * a[0], t * a[1], t * a[2]), theta
+
+
+@numba.njit(cache=True)
+def _jlog3(theta, w):
+    """(3, 3) right Jacobian of log3 at the rotation vector w, of angle theta [rad].
+
+    .. math:: J = \\frac{\\theta \\sin\\theta}{2 (1 - \\cos\\theta)} I + \\tfrac12 [w]_\\times
+                  + \\Big(\\frac1{\\theta^2} - \\frac{\\sin\\theta}{2 \\theta (1 - \\cos\\theta)}\\Big) w w^T
+
+    with Taylor series below the 3rd-order threshold (pinocchio's ``Jlog3``;
+    Chirikjian, *Stochastic Models, Information Theory, and Lie Groups*,
+    vol. 2, 2012, chapter 10; chapter from memory).
+    """
+    if theta < _PREC3:
+        alpha = 1.0 / 12.0 + theta * theta / 720.0
+        diag = 0.5 * (2.0 - theta * theta / 6.0)
+    else:
+        st, ct = math.sin(theta), math.cos(theta)
+        st_1mct = st / (1.0 - ct)
+        alpha = 1.0 / (theta * theta) - st_1mct / (2.0 * theta)
+        diag = 0.5 * (theta * st_1mct)
+    aw = (alpha * w[0], alpha * w[1], alpha * w[2])
+    h = (0.5 * w[0], 0.5 * w[1], 0.5 * w[2])
+    return ((aw[0] * w[0] + diag, aw[0] * w[1] - h[2], aw[0] * w[2] + h[1]),
+            (aw[1] * w[0] + h[2], aw[1] * w[1] + diag, aw[1] * w[2] - h[0]),
+            (aw[2] * w[0] - h[1], aw[2] * w[1] + h[0], aw[2] * w[2] + diag))
+
+
+@numba.njit(cache=True)
+def _log6_jlog6(R, p):
+    """log6 of the placement (R, p) and the blocks of its right Jacobian Jlog6.
+
+    Returns the linear and angular parts of e [m, rad] and the blocks A, B of
+
+    .. math:: J_{\\log} = \\begin{bmatrix} A & B \\\\ 0 & A \\end{bmatrix}, \\qquad
+              A = J_{\\log 3}(w), \\qquad
+              e = \\begin{bmatrix} \\alpha p - \\tfrac12 w \\times p + \\beta (w \\cdot p) w \\\\ w \\end{bmatrix}
+
+    with :math:`\\alpha = \\theta \\sin\\theta / (2 (1 - \\cos\\theta))`,
+    :math:`\\beta = 1/\\theta^2 - \\sin\\theta / (2 \\theta (1 - \\cos\\theta))`
+    and B from the derivative of :math:`\\beta` (Barfoot, *State Estimation
+    for Robotics*, 2017, section 7.1.5, the SE(3) Jacobians; section from memory), with the branches
+    and thresholds of pinocchio's ``log6`` and ``Jlog6``.  R is a tuple of rows, p a 3-tuple.
+    """
+    w, theta = _log3(R)
+    st, ct = math.sin(theta), math.cos(theta)
+    a = _unskew(R)
+    t2 = _dot(a, a)
+    if R[0][0] + R[1][1] + R[2][2] >= 3.0 - _PREC2:
+        alpha = 1.0 - t2 / 12.0 - t2 * t2 / 720.0
+        beta = 1.0 / 12.0 + t2 / 720.0
+    else:
+        alpha = theta * st / (2.0 * (1.0 - ct))
+        beta = 1.0 / (theta * theta) - st / (2.0 * theta * (1.0 - ct))
+    wp = _cross(w, p)
+    wTp = _dot(w, p)
+    bw = beta * wTp
+    lin = (alpha * p[0] - 0.5 * wp[0] + bw * w[0], alpha * p[1] - 0.5 * wp[1] + bw * w[1],
+           alpha * p[2] - 0.5 * wp[2] + bw * w[2])
+    A = _jlog3(theta, w)
+    th2 = theta * theta
+    if theta < _PREC3:
+        beta_j = 1.0 / 12.0 + th2 / 720.0
+        beta_dot_over_theta = 1.0 / 360.0
+    else:
+        tinv = 1.0 / theta
+        t2inv = tinv * tinv
+        inv_2_2ct = 1.0 / (2.0 * (1.0 - ct))
+        beta_j = t2inv - st * tinv * inv_2_2ct
+        beta_dot_over_theta = -2.0 * t2inv * t2inv + (1.0 + st * tinv) * t2inv * inv_2_2ct
+    s1 = beta_dot_over_theta * wTp
+    s2 = th2 * beta_dot_over_theta + 2.0 * beta_j
+    v3 = (s1 * w[0] - s2 * p[0], s1 * w[1] - s2 * p[1], s1 * w[2] - s2 * p[2])
+    bj = (beta_j * w[0], beta_j * w[1], beta_j * w[2])
+    dg = wTp * beta_j
+    h = (0.5 * p[0], 0.5 * p[1], 0.5 * p[2])
+    C = ((v3[0] * w[0] + bj[0] * p[0] + dg, v3[0] * w[1] + bj[0] * p[1] - h[2], v3[0] * w[2] + bj[0] * p[2] + h[1]),
+         (v3[1] * w[0] + bj[1] * p[0] + h[2], v3[1] * w[1] + bj[1] * p[1] + dg, v3[1] * w[2] + bj[1] * p[2] - h[0]),
+         (v3[2] * w[0] + bj[2] * p[0] - h[1], v3[2] * w[1] + bj[2] * p[1] + h[0], v3[2] * w[2] + bj[2] * p[2] + dg))
+    return lin, w, A, _mul33(C, A)
+
+
+@numba.njit(cache=True)
+def _cuff_law(R, p, v_a, v_b, k, d, w_a, w_b, e_out, ke_out):
+    """The cuff law of :mod:`models.cuffs` for one cuff, compiled; writes w_a, w_b, e and K e (6,) each.
+
+    With the placement :math:`{}^A M_B = (R, p)` of B in A (R a tuple of
+    rows, p a 3-tuple), the frames' own velocities :math:`v_A, v_B` (6,) and
+    the diagonals k, d (6,) of K and D:
+
+    .. math::
+        e = \\log_6({}^A M_B), \\quad \\nu_{B/A} = v_B - {}^B X_A v_A, \\quad
+        \\dot e = J_{\\log} \\nu_{B/A}, \\quad
+        w_B = -J_{\\log}^T (K e + D \\dot e), \\quad w_A = -{}^A X_B^{*} w_B
+
+    (Bullo & Murray 1999, section 3; :func:`models.cuffs.cuff_wrench` is the
+    reference implementation this one must match to rounding).
+    """
+    e_lin, e_ang, A, B = _log6_jlog6(R, p)
+    # relative twist in B: v_B minus (R^T (v - p x omega), R^T omega) of v_A
+    pw = _cross(p, (v_a[3], v_a[4], v_a[5]))
+    la = _mul33t_vec(R, (v_a[0] - pw[0], v_a[1] - pw[1], v_a[2] - pw[2]))
+    aa = _mul33t_vec(R, (v_a[3], v_a[4], v_a[5]))
+    nu_lin = (v_b[0] - la[0], v_b[1] - la[1], v_b[2] - la[2])
+    nu_ang = (v_b[3] - aa[0], v_b[4] - aa[1], v_b[5] - aa[2])
+    for i in range(3):
+        e_out[i], e_out[3 + i] = e_lin[i], e_ang[i]
+        ke_out[i], ke_out[3 + i] = k[i] * e_lin[i], k[3 + i] * e_ang[i]
+    # y = K e + D e_dot, e_dot = J nu with J = [[A, B], [0, A]]
+    a_lin, b_ang, a_ang = _mul33_vec(A, nu_lin), _mul33_vec(B, nu_ang), _mul33_vec(A, nu_ang)
+    y_lin = (ke_out[0] + d[0] * (a_lin[0] + b_ang[0]), ke_out[1] + d[1] * (a_lin[1] + b_ang[1]),
+             ke_out[2] + d[2] * (a_lin[2] + b_ang[2]))
+    y_ang = (ke_out[3] + d[3] * a_ang[0], ke_out[4] + d[4] * a_ang[1], ke_out[5] + d[5] * a_ang[2])
+    # w_B = -J^T y
+    f_b = _mul33t_vec(A, y_lin)
+    t_b1, t_b2 = _mul33t_vec(B, y_lin), _mul33t_vec(A, y_ang)
+    for i in range(3):
+        w_b[i] = -f_b[i]
+        w_b[3 + i] = -(t_b1[i] + t_b2[i])
+    # w_A = -(R f, R tau + p x R f) of w_B
+    rf = _mul33_vec(R, (w_b[0], w_b[1], w_b[2]))
+    rt = _mul33_vec(R, (w_b[3], w_b[4], w_b[5]))
+    prf = _cross(p, rf)
+    for i in range(3):
+        w_a[i] = -rf[i]
+        w_a[3 + i] = -(rt[i] + prf[i])
+
+
+@numba.njit(cache=True)
+def _se3(M):
+    """(R as a tuple of rows, p) of an SE3 stored as pinocchio stores it (12,): R column by column, then p."""
+    return ((M[0], M[3], M[6]), (M[1], M[4], M[7]), (M[2], M[5], M[8])), (M[9], M[10], M[11])
+
+
+@numba.njit(cache=True)
+def _placement(M, P):
+    """World placement (R, p) of a frame: the joint placement M times the frame placement P in it (both (12,)).
+
+    :math:`R = R_M R_P`, :math:`p = R_M p_P + p_M`.
+    """
+    R_m, p_m = _se3(M)
+    R_p, p_p = _se3(P)
+    rp = _mul33_vec(R_m, p_p)
+    return _mul33(R_m, R_p), (rp[0] + p_m[0], rp[1] + p_m[1], rp[2] + p_m[2])
+
+
+@numba.njit(cache=True)
+def _frame_twist(P, v, out):
+    """The frame's own (LOCAL) twist of the joint twist v (6,): :math:`(R^T (v - p \\times \\omega), R^T \\omega)`.
+
+    P (12,) is the frame's placement in its joint, stored as in :func:`_se3`; writes out (6,).
+    """
+    R, p = _se3(P)
+    om = (v[3], v[4], v[5])
+    pw = _cross(p, om)
+    lin = _mul33t_vec(R, (v[0] - pw[0], v[1] - pw[1], v[2] - pw[2]))
+    ang = _mul33t_vec(R, om)
+    for i in range(3):
+        out[i], out[3 + i] = lin[i], ang[i]
+
+
+@numba.njit(cache=True)
+def _add_joint_wrench(P, w, f):
+    """Add to the joint-frame wrench f (6,) the frame wrench w (6,): :math:`(R f_w, R \\tau_w + p \\times R f_w)`."""
+    R, p = _se3(P)
+    rf = _mul33_vec(R, (w[0], w[1], w[2]))
+    rt = _mul33_vec(R, (w[3], w[4], w[5]))
+    prf = _cross(p, rf)
+    for i in range(3):
+        f[i] += rf[i]
+        f[3 + i] += rt[i] + prf[i]
+
+
+@numba.njit(cache=True)
+def _cuff_kernel(oMi_e, oMi_h, v_e, v_h, joints, place, kd, w_a, w_b, terms, force_world, fext_e, fext_h):
+    """Every cuff's wrenches from the two arms' joint placements and velocities, in one call.
+
+    For cuff c with robot-side frame A on joint i (placement :math:`{}^iM_A`)
+    and human-side frame B on joint j (:math:`{}^jM_B`, the strap offset
+    included):
+
+    .. math::
+        {}^oM_A = {}^oM_i\\,{}^iM_A, \\quad {}^oM_B = {}^oM_j\\,{}^jM_B, \\quad
+        {}^AM_B = ({}^oM_A)^{-1}\\,{}^oM_B, \\quad
+        v_A = {}^AX_i\\, v_i, \\quad v_B = {}^BX_j\\, v_j,
+
+    then the cuff law (:func:`_cuff_law`) gives :math:`w_A, w_B`, and aba
+    takes them in the joint frames, :math:`f_i \\mathrel{+}= {}^iX_A^{*} w_A`,
+    :math:`f_j \\mathrel{+}= {}^jX_B^{*} w_B` (Featherstone 2008, ch. 2, the
+    force transform), summed over the cuffs on one joint.
+
+    Parameters
+    ----------
+    oMi_e, oMi_h : (n_joints, 12) ndarray
+        Joint placements of each arm, as pinocchio stores them (the
+        rotation column by column, then the translation) [m].
+    v_e, v_h : (n_joints, 6) ndarray
+        Joint velocities ``[v; omega]`` in the joint frames [m/s, rad/s].
+    joints : (2, k) int64 ndarray
+        Robot-side and human-side joint of each cuff.
+    place : (2, k, 12) ndarray
+        Placements of A and of B in their joints, stored as ``oMi_e``.
+    kd : (2, k, 6) ndarray
+        Diagonal stiffness and damping of each cuff.
+    w_a, w_b : (k, 6) ndarray, written
+        Wrenches on A (in A) and on B (in B) [N, N m].
+    terms : (k, 24) ndarray, written
+        Per cuff e, K e, v_A, v_B (for the energy and the power).
+    force_world : (k, 3) ndarray, written
+        Force on B in world axes [N].
+    fext_e, fext_h : (n_joints, 6) ndarray, written
+        External wrenches in the joint frames; rows of joints with no cuff are left as they are.
+    """
+    k = joints.shape[1]
+    for c in range(k):
+        fext_e[joints[0, c], :] = 0.0
+        fext_h[joints[1, c], :] = 0.0
+    for c in range(k):
+        R_a, p_a = _placement(oMi_e[joints[0, c]], place[0, c])
+        R_b, p_b = _placement(oMi_h[joints[1, c]], place[1, c])
+        R = ((R_a[0][0] * R_b[0][0] + R_a[1][0] * R_b[1][0] + R_a[2][0] * R_b[2][0],  # R_a^T R_b
+              R_a[0][0] * R_b[0][1] + R_a[1][0] * R_b[1][1] + R_a[2][0] * R_b[2][1],
+              R_a[0][0] * R_b[0][2] + R_a[1][0] * R_b[1][2] + R_a[2][0] * R_b[2][2]),
+             (R_a[0][1] * R_b[0][0] + R_a[1][1] * R_b[1][0] + R_a[2][1] * R_b[2][0],
+              R_a[0][1] * R_b[0][1] + R_a[1][1] * R_b[1][1] + R_a[2][1] * R_b[2][1],
+              R_a[0][1] * R_b[0][2] + R_a[1][1] * R_b[1][2] + R_a[2][1] * R_b[2][2]),
+             (R_a[0][2] * R_b[0][0] + R_a[1][2] * R_b[1][0] + R_a[2][2] * R_b[2][0],
+              R_a[0][2] * R_b[0][1] + R_a[1][2] * R_b[1][1] + R_a[2][2] * R_b[2][1],
+              R_a[0][2] * R_b[0][2] + R_a[1][2] * R_b[1][2] + R_a[2][2] * R_b[2][2]))
+        p = _mul33t_vec(R_a, (p_b[0] - p_a[0], p_b[1] - p_a[1], p_b[2] - p_a[2]))
+        _frame_twist(place[0, c], v_e[joints[0, c]], terms[c, 12:18])
+        _frame_twist(place[1, c], v_h[joints[1, c]], terms[c, 18:24])
+        _cuff_law(R, p, terms[c, 12:18], terms[c, 18:24], kd[0, c], kd[1, c], w_a[c], w_b[c],
+                  terms[c, 0:6], terms[c, 6:12])
+        fw = _mul33_vec(R_b, (w_b[c, 0], w_b[c, 1], w_b[c, 2]))
+        for i in range(3):
+            force_world[c, i] = fw[i]
+        _add_joint_wrench(place[0, c], w_a[c], fext_e[joints[0, c]])
+        _add_joint_wrench(place[1, c], w_b[c], fext_h[joints[1, c]])
+
+
+@numba.njit(cache=True)
+def _any_nonfinite(x):
+    for i in range(x.shape[0]):
+        if not math.isfinite(x[i]):
+            return True
+    return False
+
+
+@numba.njit(cache=True)
+def _first_nonfinite(a, b, c, d):
+    """Index (0-3) of the first of the four vectors that holds a NaN or an infinity, or -1."""
+    if _any_nonfinite(a):
+        return 0
+    if _any_nonfinite(b):
+        return 1
+    if _any_nonfinite(c):
+        return 2
+    return 3 if _any_nonfinite(d) else -1
+
+
+@numba.njit(cache=True)
+def _friction_torque(tau, v, damping, coulomb, smoothing, out):
+    """Joint torque plus friction, :math:`\\tau - b v - \\tau_c \\tanh(v / v_s)` (PlantParams), into out."""
+    for i in range(v.shape[0]):
+        out[i] = tau[i] + (-damping[i] * v[i] - coulomb[i] * math.tanh(v[i] / smoothing))
+
+
+def _records(items: list[np.ndarray], width: int, what: str) -> np.ndarray:
+    """One (n, width) view onto n equally spaced records of float64, given each record's leading array.
+
+    pinocchio keeps ``Data.oMi``, ``Data.v`` and a ``StdVec_Force`` in contiguous fixed-size storage; the
+    view reads (and writes) them in place, so one compiled call sees every joint.  The layout is checked
+    record by record: a pinocchio that stores them otherwise gets a clear error, not wrong numbers.
+    """
+    addr = [a.__array_interface__["data"][0] for a in items]
+    stride = addr[1] - addr[0] if len(items) > 1 else 8 * width
+    first = items[0].ravel(order="K")
+    if (first.__array_interface__["data"][0] != addr[0] or stride < 8 * width
+            or any(b - a != stride for a, b in zip(addr, addr[1:]))):
+        raise SandboxError(f"pinocchio's {what} are not stored as equally spaced records of {width} float64; "
+                           "the plant cannot read them in place")
+    return np.lib.stride_tricks.as_strided(first, shape=(len(items), width), strides=(stride, 8))
+
+
+def _se3_record(M: pin.SE3) -> np.ndarray:
+    """(12,) an SE3 as pinocchio stores it: the rotation column by column, then the translation [m]."""
+    return np.concatenate((M.rotation.ravel(order="F"), M.translation))

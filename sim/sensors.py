@@ -19,7 +19,10 @@ Randomness comes only from the ``numpy.random.Generator`` passed in.  A
 sensor whose noise standard deviations are all zero never draws from it.
 
 Both sensors keep preallocated internal buffers; every array they return is a
-fresh read-only copy, so a controller cannot change the sensor state.
+fresh read-only copy, so a controller cannot change the sensor state.  The
+arithmetic of a tick runs as one compiled call (numba, ``cache=True``); the
+noise is drawn from the ``Generator`` beforehand, so the random stream is
+that of NumPy.
 """
 
 from __future__ import annotations
@@ -29,6 +32,7 @@ import operator
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 
 from models._checks import nonnegative, positive, vector
@@ -76,6 +80,45 @@ def _check_signal(owner: str, name: str, value: object, shape: tuple[int, ...]) 
     if not np.all(np.isfinite(arr)):
         raise ParameterError(f"{owner}.{name} must be finite, got {arr!r}")
     return arr
+
+
+@numba.njit(cache=True)
+def _encoder_tick(q, resolution, dt, alpha, q_meas, q_prev, dq):
+    """One encoder tick in place: ``q_meas = r rint(q / r)``, the low-passed backward difference into ``dq``.
+
+    :math:`\\hat{\\dot q}_k = \\hat{\\dot q}_{k-1} + \\alpha ((q^m_k - q^m_{k-1}) / \\Delta t - \\hat{\\dot q}_{k-1})`
+    (:class:`JointSensing`); ``rint`` rounds ties to even, as ``numpy.round``.
+    """
+    for i in range(q.shape[0]):
+        qm = np.rint(q[i] / resolution) * resolution
+        dq[i] += ((qm - q_prev[i]) / dt - dq[i]) * alpha
+        q_meas[i] = qm
+        q_prev[i] = qm
+
+
+@numba.njit(cache=True)
+def _force_tick(w, bias, noise, std, alpha, mode, y, line, head, out):
+    """One force/torque tick in place (:class:`ForceTorqueSensor`): sample, low-pass, delay line.
+
+    :math:`u = w + b + \\sigma \\circ n`; ``mode`` 0 starts the filter and fills the delay line with u,
+    1 passes u unfiltered, 2 filters :math:`y \\mathrel{+}= \\alpha (u - y)`.  ``out`` gets the output: the
+    delay line's oldest entry (row ``head``, then replaced by y), or y when the line is empty.
+    """
+    for i in range(6):
+        u = (w[i] + bias[i]) + noise[i] * std[i]
+        if mode == 0:
+            y[i] = u
+            for j in range(line.shape[0]):
+                line[j, i] = u
+        elif mode == 1:
+            y[i] = u
+        else:
+            y[i] += (u - y[i]) * alpha
+        if line.shape[0] == 0:
+            out[i] = y[i]
+        else:
+            out[i] = line[head, i]
+            line[head, i] = y[i]
 
 
 @dataclass(frozen=True)
@@ -162,7 +205,6 @@ class JointSensing:
         self._q = np.zeros(n)
         self._q_prev = np.zeros(n)
         self._dq = np.zeros(n)
-        self._diff = np.zeros(n)
         self._tau = np.zeros(n)
         self._noise = np.zeros(n)
         self._started = False
@@ -209,13 +251,7 @@ class JointSensing:
         tau = _check_signal("JointSensing", "measure tau_joint_Nm", tau_joint_Nm, n)
         if not self._started:
             self.reset(q)
-        self._quantise(q, self._q)
-        np.subtract(self._q, self._q_prev, out=self._diff)
-        self._diff /= self.dt_s
-        self._diff -= self._dq
-        self._diff *= self._alpha
-        self._dq += self._diff
-        self._q_prev[:] = self._q
+        _encoder_tick(q, self.params.resolution_rad, self.dt_s, self._alpha, self._q, self._q_prev, self._dq)
         self._tau[:] = tau
         std = self.params.torque_noise_std_Nm
         if std > 0.0:
@@ -318,10 +354,8 @@ class ForceTorqueSensor:
         self._bias = np.array(params.bias_N + params.bias_Nm)
         self._std = np.array((params.noise_std_N,) * 3 + (params.noise_std_Nm,) * 3)
         self._noisy = bool(np.any(self._std > 0.0))
-        self._u = np.zeros(6)
         self._noise = np.zeros(6)
         self._y = np.zeros(6)
-        self._tmp = np.zeros(6)
         self._line = np.zeros((params.delay_ticks, 6))
         self.reset()
 
@@ -346,24 +380,13 @@ class ForceTorqueSensor:
             The measured wrench, a read-only copy.
         """
         w = _check_signal("ForceTorqueSensor", "measure wrench_true", wrench_true, (6,))
-        np.add(w, self._bias, out=self._u)
         if self._noisy:
             self._rng.standard_normal(out=self._noise)
-            self._noise *= self._std
-            self._u += self._noise
-        if not self._started:
-            self._y[:] = self._u
-            self._line[:] = self._u
-            self._started = True
-        elif self.params.cutoff_Hz is None:
-            self._y[:] = self._u
-        else:
-            np.subtract(self._u, self._y, out=self._tmp)
-            self._tmp *= self._alpha
-            self._y += self._tmp
-        if self._line.shape[0] == 0:
-            return _readonly(self._y)
-        out = _readonly(self._line[self._head])
-        self._line[self._head] = self._y
-        self._head = (self._head + 1) % self._line.shape[0]
+        mode = 0 if not self._started else (1 if self.params.cutoff_Hz is None else 2)
+        self._started = True
+        out = np.empty(6)
+        _force_tick(w, self._bias, self._noise, self._std, self._alpha, mode, self._y, self._line, self._head, out)
+        if self._line.shape[0]:
+            self._head = (self._head + 1) % self._line.shape[0]
+        out.setflags(write=False)
         return out

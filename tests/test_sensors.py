@@ -205,6 +205,43 @@ def test_delayed_output_is_the_undelayed_filtered_output_shifted():
     assert np.array_equal(yd[:d], np.repeat(y0[:1], d, axis=0))
 
 
+def test_noisy_biased_filtered_delayed_reading_equals_the_documented_recursion_on_the_same_draws():
+    # The class docstring's equations, u = w + b + sigma n, y_k = y_{k-1} + alpha (u_k - y_{k-1}), output
+    # y_{k-d}, evaluated here with NumPy on the draws of a Generator with the same seed (alpha: ZOH gain).
+    p = ForceSensorParams(noise_std_N=0.3, noise_std_Nm=0.01, bias_N=(0.5, -0.2, 0.1), bias_Nm=(0.01, 0.0, -0.02),
+                          cutoff_Hz=120.0, delay_ticks=2)
+    s = ForceTorqueSensor(p, DT, np.random.default_rng(4))
+    rng = np.random.default_rng(4)
+    alpha = lowpass_alpha(120.0, DT)
+    sigma = np.array([0.3] * 3 + [0.01] * 3)
+    bias = np.array(p.bias_N + p.bias_Nm)
+    w = np.cos(np.arange(40)[:, None] * 0.2 + np.arange(6)) * 10.0  # [N, N m]
+    ys = []
+    for k, x in enumerate(w):
+        u = x + bias + sigma * rng.standard_normal(6)
+        ys.append(u if k == 0 else ys[-1] + alpha * (u - ys[-1]))
+    expected = [ys[0], ys[0]] + ys[:-2]
+    got = [s.measure(x) for x in w]
+    np.testing.assert_allclose(got, expected, rtol=1e-14, atol=1e-14)
+
+
+def test_encoder_reading_equals_the_documented_quantiser_and_filtered_difference():
+    # q_m = r round(q / r), dq_k = dq_{k-1} + alpha ((q_m,k - q_m,k-1) / dt - dq_{k-1}) (class docstring).
+    p = EncoderParams(velocity_cutoff_Hz=80.0)
+    s = _encoder(p, n=3)
+    q = np.stack([np.sin(0.01 * np.arange(50) + j) for j in range(3)], axis=1)  # [rad]
+    s.reset(q[0])
+    r, alpha = p.resolution_rad, lowpass_alpha(80.0, DT)
+    q_prev, dq = np.round(q[0] / r) * r, np.zeros(3)
+    for x in q[1:]:
+        qm, dqm, _ = s.measure(x, np.zeros(3))
+        ref = np.round(x / r) * r
+        dq = dq + alpha * ((ref - q_prev) / DT - dq)
+        q_prev = ref
+        np.testing.assert_array_equal(qm, ref)
+        np.testing.assert_allclose(dqm, dq, rtol=1e-13, atol=1e-12)
+
+
 def test_force_noise_sample_std_matches_the_setting_per_axis():
     # Law of large numbers; tolerance STD_RTOL (10 standard errors); no filter so white noise is seen.
     p = ForceSensorParams(noise_std_N=0.3, noise_std_Nm=0.01, cutoff_Hz=None, delay_ticks=0)
