@@ -65,6 +65,8 @@ def _now_s(buf):
     return buf[0] + 1e-9 * buf[1]
 
 _EPS = float(np.finfo(float).eps)
+#: largest number of columns handed to the Jacobi SVD (measured: faster than LAPACK up to about this size)
+_JACOBI_MAX = 12
 
 
 @nb.njit(cache=True)
@@ -111,6 +113,12 @@ def _svd_right(P):
     :math:`\sigma`; columns with :math:`\sigma = 0` span the null space.
     """
     m, r = P.shape
+    if r > _JACOBI_MAX:  # Jacobi sweeps cost O(r^3) each: LAPACK (gesdd) is faster for larger problems
+        _, s_lapack, Vt = np.linalg.svd(P, full_matrices=True)
+        s = np.zeros(r)
+        s[: s_lapack.shape[0]] = s_lapack
+        V = np.ascontiguousarray(Vt.T)
+        return s, V, P @ V
     Wc = np.ascontiguousarray(P.T)  # row j: column j of P V
     V = np.eye(r)  # row j: column j of V
     for _ in range(64):
@@ -252,7 +260,7 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
     g = V1 @ (s1 * c1)
     definite = s1.shape[0] == r
     Hi = (V1 / s1**2) @ np.ascontiguousarray(V1.T) if definite else H
-    for _ in range(min(2 * Gz.shape[0] + 2, 50)):  # controllers.hqp._working_set_iterations
+    for _ in range(min(2 * Gz.shape[0] + 2, 8)):  # controllers.hqp._working_set_iterations
         GW, hW = _rows(Gz, W), _entries(hz, W)
         m = GW.shape[0]
         GWT = np.ascontiguousarray(GW.T)

@@ -663,8 +663,12 @@ class _Solver:
 
     # -- levels ---------------------------------------------------------------------------
 
-    def solve_level(self, level: Level, label: str, warm_x: np.ndarray | None):
-        """Solve one level; return (method, e*, v*) and move (x, N) to the level's optimum."""
+    def solve_level(self, level: Level, label: str, warm_x: np.ndarray | None, cheap: bool = True):
+        """Solve one level; return (method, e*, v*) and move (x, N) to the level's optimum.
+
+        ``cheap=False`` goes straight to the backend, for a level on which the
+        compiled kernel has already tried the closed form and the working set.
+        """
         n_eq, n_in = level.A.shape[0], level.C.shape[0]
         if n_eq + n_in == 0:
             return "empty", np.zeros(0), np.zeros(0)
@@ -701,12 +705,13 @@ class _Solver:
             z_ls = V1 @ (c1 / s1)
         x_ls = self._lift(z_ls)
         active = np.zeros((0, self.n))
-        if self.params.closed_form and self._feasible(x_ls, level.C if n_in else None, level.d):
+        if cheap and self.params.closed_form and self._feasible(x_ls, level.C if n_in else None, level.d):
             method, x_new = "closed-form", x_ls
         elif n_in == 0 and (V1 is None or V1.shape[1] == 0):
             method, x_new = "no freedom", self.x  # nothing here depends on the remaining freedom
         else:
-            guess = self._working_set_step(level, V1, s1, c1, z_ls) if self.params.working_set_step else None
+            guess = (self._working_set_step(level, V1, s1, c1, z_ls) if cheap and self.params.working_set_step
+                     else None)
             if guess is not None:
                 method, (x_new, active) = "working-set", guess
             else:
@@ -965,8 +970,8 @@ def _solve_compiled(work: _Solver, levels: tuple, labels: list, warm: list):
             break
         t_level = time.perf_counter()  # this level needs the backend: the Python path
         work.fast = False
-        try:
-            method, e, v = work.solve_level(levels[stop], labels[stop], warm[stop])
+        try:  # the kernel has tried the closed form and the working set: the backend
+            method, e, v = work.solve_level(levels[stop], labels[stop], warm[stop], cheap=False)
         finally:
             work.fast = True
         codes[stop] = _METHOD_CODE[method]
@@ -983,8 +988,13 @@ def _solve_compiled(work: _Solver, levels: tuple, labels: list, warm: list):
 
 
 def _working_set_iterations(m: int) -> int:
-    """Active-set iterations tried on a level with ``m`` constraint rows before the backend takes it."""
-    return min(2 * m + 2, 50)
+    """Active-set iterations tried on a level with ``m`` constraint rows before the backend takes it.
+
+    At most 8: on 3000 ticks of the reference run (``scenarios/wall_push.py``
+    under ``walls``) no verified point needed more than 4, while a level that
+    will not verify (dependent rows, cycling) should reach the backend soon.
+    """
+    return min(2 * m + 2, 8)
 
 
 def _eliminate_hard_eq(hard: Level, n: int, params: HQPParams, label: str):
