@@ -94,8 +94,28 @@ def _max_or(values, initial):
 
 @nb.njit(cache=True)
 def _lstsq(M, rhs):
-    """``numpy.linalg.lstsq(M, rhs, rcond=None)[0]``: the same cut-off, eps * max(m, n)."""
-    return np.linalg.lstsq(M, rhs, rcond=_EPS * max(M.shape[0], M.shape[1]))[0]
+    r"""Minimum-norm least squares, as ``numpy.linalg.lstsq(M, rhs, rcond=None)[0]``.
+
+    From the singular value decomposition :math:`M V = U S`:
+    :math:`x = \sum_j v_j\, u_j^T b / \sigma_j` over the
+    :math:`\sigma_j > \varepsilon \max(m, n)\, \sigma_1` (LAPACK's ``gelsd``
+    cut-off with numpy's default ``rcond``; Golub & Van Loan 2013, section
+    5.5.4).
+    """
+    s, V, MV = _svd_right(M)
+    x = np.zeros(M.shape[1])
+    if s.shape[0] == 0 or s[0] == 0.0:
+        return x
+    cut = _EPS * max(M.shape[0], M.shape[1]) * s[0]
+    for j in range(s.shape[0]):
+        if s[j] > cut:
+            c = 0.0
+            for i in range(M.shape[0]):
+                c += MV[i, j] * rhs[i]
+            c /= s[j] * s[j]
+            for i in range(x.shape[0]):
+                x[i] += V[i, j] * c
+    return x
 
 
 @nb.njit(cache=True)

@@ -562,7 +562,7 @@ _NO_WEIGHTS = np.zeros(0)
 def _writable(a: np.ndarray) -> np.ndarray:
     """``a`` itself if C-ordered, writable float64, else such a copy (one compiled signature per kernel)."""
     f = a.flags
-    return a if f.c_contiguous and f.writeable and a.dtype == np.float64 else np.array(a, dtype=float)
+    return a if f.c_contiguous and f.writeable and a.dtype == np.float64 else np.array(a, dtype=float, order="C")
 
 
 class _Solver:
