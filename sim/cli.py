@@ -407,10 +407,31 @@ class _UserError(Exception):
     """A failure to report in one line (file system and the like)."""
 
 
+#: commands that simulate, so run the compiled kernels
+_SIMULATING = ("run", "compare", "sweep", "bench")
+
+
+def _kernels_cached() -> bool:
+    """Whether numba's on-disk cache holds the largest compiled kernels (False only when surely not)."""
+    import os
+
+    from controllers import _hqp_kernels
+    from sim import plant
+
+    try:
+        paths = [k._cache._cache_file._index_path for k in (_hqp_kernels.solve_levels_fast, plant._cuff_kernel)]
+    except AttributeError:  # numba's cache layout changed: say nothing
+        return True
+    return all(os.path.exists(p) for p in paths)
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the console script; returns the exit status."""
     parser = build_parser()
     args = parser.parse_args(argv)
+    if args.command in _SIMULATING and not _kernels_cached():
+        print(f"{PROG}: first run after installation: compiling the numba kernels of the control tick "
+              "(about a minute, once; they are cached)", file=sys.stderr)
     try:
         message = args.func(args, parser)
     except (SandboxError, _UserError) as e:

@@ -139,3 +139,17 @@ def test_check_names_the_missing_frame_in_one_line(tmp_path, extra, text):
                           capture_output=True, text=True)
     assert proc.returncode != 0
     assert proc.stderr.count("\n") == 1 and text in proc.stderr
+
+
+def test_a_simulating_command_says_when_the_kernels_must_first_be_compiled(tmp_path, monkeypatch, capsys):
+    import sim.cli as cli
+
+    monkeypatch.setattr(cli, "_kernels_cached", lambda: False)  # as on a fresh installation
+    main(["urdf", "exo", "-o", str(tmp_path / "a.urdf")])  # not a simulating command: no note
+    assert "compiling" not in capsys.readouterr().err
+    scenario = tmp_path / "short.py"
+    scenario.write_text("from scenarios.stand_still import SCENARIO\nimport dataclasses\n"
+                        "SCENARIO = dataclasses.replace(SCENARIO, duration_s=0.01)\n")
+    assert main(["run", str(scenario), "--out", str(tmp_path / "run")]) == 0
+    assert "first run after installation: compiling the numba kernels" in capsys.readouterr().err
+
