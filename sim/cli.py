@@ -411,6 +411,10 @@ class _UserError(Exception):
 _SIMULATING = ("run", "compare", "sweep", "bench")
 
 
+def _stderr_is_terminal() -> bool:
+    return sys.stderr.isatty()
+
+
 def _kernels_cached() -> bool:
     """Whether numba's on-disk cache holds the largest compiled kernels (False only when surely not)."""
     import os
@@ -429,7 +433,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the console script; returns the exit status."""
     parser = build_parser()
     args = parser.parse_args(argv)
-    if args.command in _SIMULATING and not _kernels_cached():
+    # shown, like the progress bars, only to a person at a terminal: scripts keep one-line errors
+    if args.command in _SIMULATING and _stderr_is_terminal() and not _kernels_cached():
         print(f"{PROG}: first run after installation: compiling the numba kernels of the control tick "
               "(about a minute, once; they are cached)", file=sys.stderr)
     try:

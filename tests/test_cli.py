@@ -145,6 +145,7 @@ def test_a_simulating_command_says_when_the_kernels_must_first_be_compiled(tmp_p
     import sim.cli as cli
 
     monkeypatch.setattr(cli, "_kernels_cached", lambda: False)  # as on a fresh installation
+    monkeypatch.setattr(cli, "_stderr_is_terminal", lambda: True)  # a person at a terminal
     main(["urdf", "exo", "-o", str(tmp_path / "a.urdf")])  # not a simulating command: no note
     assert "compiling" not in capsys.readouterr().err
     scenario = tmp_path / "short.py"
@@ -152,4 +153,7 @@ def test_a_simulating_command_says_when_the_kernels_must_first_be_compiled(tmp_p
                         "SCENARIO = dataclasses.replace(SCENARIO, duration_s=0.01)\n")
     assert main(["run", str(scenario), "--out", str(tmp_path / "run")]) == 0
     assert "first run after installation: compiling the numba kernels" in capsys.readouterr().err
+    monkeypatch.setattr(cli, "_stderr_is_terminal", lambda: False)  # a script: errors stay one line
+    assert main(["run", str(scenario), "--out", str(tmp_path / "run2")]) == 0
+    assert "compiling" not in capsys.readouterr().err
 
