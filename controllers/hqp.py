@@ -55,7 +55,15 @@ point (the minimum-norm :math:`z` from the same SVD) is solved in closed form,
 without the QP backend; that point is then optimal for the QP too (the
 equality cost is at its minimum and every slack is zero). Otherwise the level
 is a QP in :math:`(z, v_k)` handed to a backend of
-:mod:`controllers.qp_backends`.
+:mod:`controllers.qp_backends`; before that, a few active-set iterations
+from the least-squares point are tried and kept only when the level's KKT
+conditions hold (:meth:`_Solver._working_set_step`).
+
+**Compiled path.** Without box bounds, the closed-form and active-set levels
+of a whole hierarchy are solved in one call of a numba kernel
+(:mod:`controllers._hqp_kernels`) with the same arithmetic, and only the
+levels that need the backend return to Python; ``HQPParams(compiled=False)``
+solves every level in Python (the reference the tests compare it with).
 
 **Regularization.** With ``regularization > 0`` a last level
 :math:`\min \tfrac12\|x\|^2` over the freedom that remains makes ``x``
