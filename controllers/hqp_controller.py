@@ -111,9 +111,7 @@ class HQPController(Controller):
         self._ub = np.concatenate([np.full(n, np.inf), tau_max])
         self._A_dyn = np.zeros((n, 2 * n))
         self._A_dyn[:, n:] = -np.eye(n)
-        self._A_reg = np.zeros((2 * n, n))  # [I; M]: rows of the minimum-norm level, M written each tick
-        self._A_reg[:n] = np.eye(n)
-        self._b_reg = np.zeros(2 * n)
+        self._eye, self._zero = np.eye(n), np.zeros(n)  # the constant halves of the minimum-norm rows [I; M], [0; -c]
         self._prev = None
         self._constant_rows: dict = {}  # (level, task) -> (read-only rows, their q part, their tau part or None)
         self.fallback_count = 0
@@ -202,12 +200,8 @@ class HQPController(Controller):
                 hard = Level.unchecked(ineq=[(G, np.concatenate([self._tau_max - c, self._tau_max + c]), 1.0)],
                                        name="torque limits")
                 levels, rows = self._task_levels(s, c)
-                A_reg = self._A_reg
-                A_reg[n:] = M
-                b_reg = self._b_reg
-                np.negative(c, out=b_reg[n:])
-                levels.append(Level.unchecked(eq=[(A_reg.copy(), b_reg.copy(), 1.0)],
-                                              name="minimum norm of [qdd; tau]"))
+                levels.append(Level.unchecked(eq=[(np.concatenate((self._eye, M)), np.concatenate((self._zero, -c)),
+                                                   1.0)], name="minimum norm of [qdd; tau]"))
                 res = solve_hierarchy(levels, n, self.solver, hard=hard, warm_start=self._prev, params=self.params)
                 tau = np.minimum(np.maximum(M @ res.x + c, -self._tau_max), self._tau_max)
             else:
