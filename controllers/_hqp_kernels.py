@@ -16,7 +16,7 @@ level with the QP backend.
 :func:`solve_levels_fast` runs that over consecutive levels in one call,
 timing each level with the same monotonic clock as :func:`time.perf_counter`
 on Linux (``clock_gettime``; :data:`HAVE_CLOCK` is False where there is none,
-and the caller then calls :func:`solve_level_fast` once per level instead).
+and the caller then asks it for one level per call and times the call).
 
 Only the case without box bounds on ``x`` is compiled (the controller's
 default, torque eliminated); with bounds every level takes the Python path.
@@ -420,10 +420,10 @@ def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, 
 
 
 @nb.njit(cache=True)
-def solve_levels_fast(start, x, N, has_N, G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, tol, rank_tol,
-                      feas_tol, slack_tol, mult_tol, closed_form, working_set_step, methods, X, e_all, v_all, free,
-                      seconds, residuals, clock):
-    r"""Levels ``start, start + 1, ...`` of a hierarchy with :func:`solve_level_fast`, until one needs the backend.
+def solve_levels_fast(start, end, timed, x, N, has_N, G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, tol,
+                      rank_tol, feas_tol, slack_tol, mult_tol, closed_form, working_set_step, methods, X, e_all, v_all,
+                      free, seconds, residuals, clock):
+    r"""Levels ``start, ..., end - 1`` of a hierarchy with :func:`solve_level_fast`, until one needs the backend.
 
     The levels' rows are stacked: level k's equality rows are
     ``A[eq_off[k]:eq_off[k + 1]]`` (with ``b``, the square roots ``sw`` of
@@ -431,20 +431,23 @@ def solve_levels_fast(start, x, N, has_N, G, h, A, b, sw, eq_off, unit_eq, C, d,
     ``C[in_off[k]:in_off[k + 1]]`` (with ``d`` and weights ``wi``). Per level
     it writes the method code, the point after the level ``X[k]``, the
     optimal slacks into ``e_all`` and ``v_all``, the freedom left
-    ``free[k]`` and the wall time ``seconds[k]`` [s]; a level without rows is
-    :data:`EMPTY`, one without freedom :data:`NO_FREEDOM`.
+    ``free[k]`` and, if ``timed`` (:data:`HAVE_CLOCK`), the wall time
+    ``seconds[k]`` [s]; a level without rows is :data:`EMPTY`, one without
+    freedom :data:`NO_FREEDOM`.
 
     Returns ``(stop, x, N, has_N, G, h)``: ``stop`` is the first level that
     needs the QP backend (its outputs unwritten, the state that of the levels
-    above it), or the number of levels. When ``stop`` is the number of
-    levels, ``residuals[k]`` holds every level's weighted squared error
+    above it), or ``end``. When ``stop`` is the number of levels,
+    ``residuals[k]`` holds every level's weighted squared error
     :math:`\sum w e^2 + \sum \omega v^2` at the final ``x``.
     """
     p = methods.shape[0]
     n = x.shape[0]
     k = start
-    while k < p:
-        t0 = _now_s(clock)
+    t0 = 0.0
+    while k < end:
+        if timed:
+            t0 = _now_s(clock)
         Ak = np.ascontiguousarray(A[eq_off[k]: eq_off[k + 1]])
         bk = np.ascontiguousarray(b[eq_off[k]: eq_off[k + 1]])
         swk = np.ascontiguousarray(sw[eq_off[k]: eq_off[k + 1]])
@@ -469,8 +472,11 @@ def solve_levels_fast(start, x, N, has_N, G, h, A, b, sw, eq_off, unit_eq, C, d,
         methods[k] = method
         X[k] = x
         free[k] = N.shape[1] if has_N else n
-        seconds[k] = _now_s(clock) - t0
+        if timed:
+            seconds[k] = _now_s(clock) - t0
         k += 1
+    if end < p:
+        return end, x, N, has_N, G, h
     for k in range(p):
         e = A[eq_off[k]: eq_off[k + 1]] @ x - b[eq_off[k]: eq_off[k + 1]]
         v = np.maximum(C[in_off[k]: in_off[k + 1]] @ x - d[in_off[k]: in_off[k + 1]], 0.0)

@@ -221,30 +221,15 @@ def _stack_unchecked(entries):
         return M, v, _weight_vector(M.shape[0], w0), ((M, v, w0),), (0, M.shape[0]), M.shape[1]
     mats = tuple(e[0] for e in entries)
     weights = tuple(float(e[2]) for e in entries)
-    key = (tuple(map(id, mats)), weights)
-    hit = _STACKED.get(key)
-    if hit is not None and all(a is b for a, b in zip(hit[0], mats)):
-        _, M, w, starts = hit  # the same read-only matrices as before: stacked then
-    else:
-        M = np.concatenate(mats)
-        w = np.concatenate([_weight_vector(a.shape[0], wk) for a, wk in zip(mats, weights)])
-        starts, k = [0], 0
-        for a in mats:
-            k += a.shape[0]
-            starts.append(k)
-        starts = tuple(starts)
-        if not any(a.flags.writeable for a in mats):  # read-only matrices cannot change: keep the stack
-            if len(_STACKED) >= 64:
-                _STACKED.clear()
-            M.flags.writeable = w.flags.writeable = False
-            _STACKED[key] = (mats, M, w, starts)  # holds the matrices, so their ids stay theirs
+    M = np.concatenate(mats)
+    w = np.concatenate([_weight_vector(a.shape[0], wk) for a, wk in zip(mats, weights)])
+    starts, k = [0], 0
+    for a in mats:
+        k += a.shape[0]
+        starts.append(k)
     v = np.concatenate([e[1] for e in entries])
     views = tuple((M[starts[i]: starts[i + 1]], v[starts[i]: starts[i + 1]], weights[i]) for i in range(len(mats)))
-    return M, v, w, views, starts, M.shape[1]
-
-
-#: stacks of read-only matrices built by :func:`_stack_unchecked`, by the matrices' ids and the weights
-_STACKED: dict = {}
+    return M, v, w, views, tuple(starts), M.shape[1]
 
 
 @dataclass(frozen=True, eq=False)
@@ -421,8 +406,8 @@ class HQPParams:
         as equalities and keep it only if it satisfies the level's optimality
         conditions (:meth:`_Solver._working_set_step`); exact when kept.
     compiled : bool, default True
-        Take the closed-form and active-set paths of a level in one compiled
-        call (:mod:`controllers._hqp_kernels`, numba) when there are no box
+        Take the closed-form and active-set paths of the levels in a compiled
+        kernel (:mod:`controllers._hqp_kernels`, numba) when there are no box
         bounds ``lb``/``ub``; the same arithmetic as the Python path, which
         False selects (and which every level needing the backend takes).
     """
@@ -564,9 +549,6 @@ def _bounds(name: str, value, n: int, bad: float) -> np.ndarray | None:
     return arr
 
 
-_NO_WEIGHTS = np.zeros(0)
-
-
 def _writable(a: np.ndarray) -> np.ndarray:
     """``a`` itself if C-ordered, writable float64, else such a copy (one compiled signature per kernel)."""
     f = a.flags
@@ -683,19 +665,6 @@ class _Solver:
         if self.r == 0:
             e, v = level.slack(self.x)
             return "no freedom", e, v
-        if self.fast:
-            p, cons = self.params, self.cons
-            sw = _NO_WEIGHTS if level._unit_eq or not n_eq else np.sqrt(level.weights_eq)
-            out = _kernels.solve_level_fast(
-                _writable(self.x), self._no_N if self.N is None else _writable(self.N), self.N is not None,
-                cons.G, cons.h,
-                _writable(level.A), _writable(level.b), sw, level._unit_eq, _writable(level.C), _writable(level.d),
-                cons.tol, p.rank_tol, p.feasibility_tol, p.slack_tol, p.multiplier_tol, p.closed_form,
-                p.working_set_step)
-            if out[0] != _kernels.NEEDS_QP:
-                method, self.x, N, has_N, cons.G, cons.h, e, v = out
-                self.N = N if has_N else None
-                return _kernels.METHODS[method], e, v
         z_ls = np.zeros(self.r)
         V1 = s1 = c1 = V2 = None
         if n_eq:
@@ -966,22 +935,27 @@ def _solve_compiled(work: _Solver, levels: tuple, labels: list, warm: list):
     X, e_all, v_all = np.empty((p, n)), np.empty(m_e), np.empty(m_i)
     seconds, residuals, clock = np.empty(p), np.empty(p), np.zeros(2, dtype=np.int64)
     prm, cons = work.params, work.cons
+    timed = _kernels.HAVE_CLOCK  # the kernel times its levels; else one level per call, timed here
     k = 0
     while True:
+        end = p if timed else min(k + 1, p)
+        t_level = time.perf_counter()
         stop, x, N, has_N, cons.G, cons.h = _kernels.solve_levels_fast(
-            k, _writable(work.x), work._no_N if work.N is None else _writable(work.N), work.N is not None,
-            _writable(cons.G), _writable(cons.h), A, b, sw, eq_off, unit, C, d, wi, in_off, cons.tol, prm.rank_tol,
-            prm.feasibility_tol, prm.slack_tol, prm.multiplier_tol, prm.closed_form, prm.working_set_step,
-            codes, X, e_all, v_all, free, seconds, residuals, clock)
+            k, end, timed, _writable(work.x), work._no_N if work.N is None else _writable(work.N),
+            work.N is not None, _writable(cons.G), _writable(cons.h), A, b, sw, eq_off, unit, C, d, wi, in_off,
+            cons.tol, prm.rank_tol, prm.feasibility_tol, prm.slack_tol, prm.multiplier_tol, prm.closed_form,
+            prm.working_set_step, codes, X, e_all, v_all, free, seconds, residuals, clock)
         work.x, work.N = x, (N if has_N else None)
-        if stop == p:
-            break
+        if stop == end:
+            if not timed and end > k:
+                seconds[k] = time.perf_counter() - t_level
+            if end == p:
+                break
+            k = end
+            continue
         t_level = time.perf_counter()  # this level needs the backend: the Python path
-        work.fast = False
-        try:  # the kernel has tried the closed form and the working set: the backend
-            method, e, v = work.solve_level(levels[stop], labels[stop], warm[stop], cheap=False)
-        finally:
-            work.fast = True
+        # the kernel has tried the closed form and the working set: straight to the backend
+        method, e, v = work.solve_level(levels[stop], labels[stop], warm[stop], cheap=False)
         codes[stop] = _METHOD_CODE[method]
         e_all[eq_off[stop]: eq_off[stop + 1]] = e
         v_all[in_off[stop]: in_off[stop + 1]] = v
@@ -1165,7 +1139,7 @@ def solve_hierarchy(
     work = _Solver(n, backend, solver_name, params, float(regularization), cons, x0, N0, hard_label)
 
     residuals = None
-    if work.fast and _kernels.HAVE_CLOCK and levels:
+    if work.fast and levels:
         methods, slacks, times, free_dims, level_x, residuals = _solve_compiled(work, levels, labels, warm)
         x_levels = work.x
     else:
