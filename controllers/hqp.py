@@ -109,6 +109,7 @@ from .qp_backends import DEFAULT_BACKEND, QPSolveError, QPTolerances, get_backen
 
 __all__ = [
     "Level",
+    "LevelStack",
     "HierarchyResult",
     "HQPParams",
     "HQPInfeasibleError",
@@ -360,6 +361,142 @@ class Level:
         return float(self.weights_eq @ (e * e) + self.weights_ineq @ (v * v))
 
 
+class LevelStack(Sequence):
+    r"""The levels of a hierarchy with all their rows already stacked.
+
+    :func:`solve_hierarchy` takes a ``LevelStack`` in place of a list of
+    :class:`Level` and hands its arrays to the compiled kernel as they are;
+    a controller that builds its rows every control tick builds one stack
+    (:meth:`from_entries`) instead of one :class:`Level` per priority level.
+    Indexing gives level ``k`` as a :class:`Level` (built when first asked
+    for: for a level that needs the QP backend, for a message, for the
+    Python path), so a stack is a sequence of levels like any other.
+
+    Attributes
+    ----------
+    A, b : (m_e, n), (m_e,) ndarray
+        The equality rows of every level, highest level first.
+    sw : (m_e,) ndarray
+        The square root of each equality row's weight.
+    eq_off : (p + 1,) int64 ndarray
+        Level k's equality rows are ``A[eq_off[k]:eq_off[k + 1]]``.
+    unit_eq : (p,) bool ndarray
+        Whether every equality weight of level k is 1.
+    C, d, wi, in_off
+        The same for the inequality rows ``C x <= d`` (weights ``wi``).
+    n_cols : int or None
+        Number of columns (``None`` when no level has rows).
+    names : tuple of str
+        The level names.
+    """
+
+    __slots__ = ("A", "b", "sw", "eq_off", "unit_eq", "C", "d", "wi", "in_off", "n_cols", "names", "_layout",
+                 "_levels")
+
+    def __len__(self) -> int:
+        return len(self.names)
+
+    def __getitem__(self, k):
+        if isinstance(k, slice):
+            return [self[i] for i in range(*k.indices(len(self)))]
+        level = self._levels[k]
+        if level is None:
+            eq_entries, in_entries = self._layout[k]
+            level = self._levels[k] = Level.unchecked(
+                eq=[(self.A[s:e], self.b[s:e], w) for s, e, w in eq_entries],
+                ineq=[(self.C[s:e], self.d[s:e], w) for s, e, w in in_entries], name=self.names[k])
+        return level
+
+    @classmethod
+    def from_entries(cls, levels: Sequence, n: int, names: Sequence[str]) -> LevelStack:
+        """A stack from trusted ``(eq, ineq)`` pairs, one per level, of ``(M, v, w)`` triples.
+
+        The entries follow the contract of :meth:`Level.unchecked` (2-D float
+        ``M`` with ``n`` columns, 1-D float ``v``, float ``w > 0``; nothing is
+        validated, not even finiteness); every ``M`` is copied into the stack.
+        """
+        self = object.__new__(cls)
+        mats_e, rhs_e, mats_i, rhs_i, layout = [], [], [], [], []
+        weights_e, weights_i = [], []
+        eq_off, in_off, unit = [0], [0], []
+        m_e = m_i = 0
+        weighted_e = weighted_i = False
+        for eq, ineq in levels:
+            eq_entries, in_entries = [], []
+            u = True
+            for M, v, w in eq:
+                m = M.shape[0]
+                mats_e.append(M)
+                rhs_e.append(v)
+                weights_e.append((m, w))
+                eq_entries.append((m_e, m_e + m, w))
+                m_e += m
+                if w != 1.0:
+                    u = False
+                    weighted_e = True
+            for M, v, w in ineq:
+                m = M.shape[0]
+                mats_i.append(M)
+                rhs_i.append(v)
+                weights_i.append((m, w))
+                in_entries.append((m_i, m_i + m, w))
+                m_i += m
+                if w != 1.0:
+                    weighted_i = True
+            eq_off.append(m_e)
+            in_off.append(m_i)
+            unit.append(u)
+            layout.append((eq_entries, in_entries))
+        self.A = np.concatenate(mats_e) if m_e else np.zeros((0, n))
+        self.b = np.concatenate(rhs_e) if m_e else np.zeros(0)
+        self.C = np.concatenate(mats_i) if m_i else np.zeros((0, n))
+        self.d = np.concatenate(rhs_i) if m_i else np.zeros(0)
+        self.sw = (np.sqrt(np.concatenate([np.full(m, w) for m, w in weights_e])) if weighted_e else np.ones(m_e))
+        self.wi = np.concatenate([np.full(m, w) for m, w in weights_i]) if weighted_i else np.ones(m_i)
+        self.eq_off = np.array(eq_off, dtype=np.int64)
+        self.in_off = np.array(in_off, dtype=np.int64)
+        self.unit_eq = np.array(unit, dtype=np.bool_)
+        self.n_cols = n if (m_e or m_i) else None
+        self.names = tuple(names)
+        self._layout = layout
+        self._levels = [None] * len(layout)
+        return self
+
+    @classmethod
+    def from_levels(cls, levels: Sequence[Level], n: int) -> LevelStack:
+        """The stack of the given levels (checked or not); indexing returns these very levels."""
+        self = object.__new__(cls)
+        p = len(levels)
+        eq_off, in_off = np.zeros(p + 1, dtype=np.int64), np.zeros(p + 1, dtype=np.int64)
+        As, bs, ws, Cs, ds, wis = [], [], [], [], [], []
+        unit = np.empty(p, dtype=np.bool_)
+        m_e = m_i = 0
+        for k, level in enumerate(levels):
+            if level.n_cols is not None:
+                As.append(level.A)
+                bs.append(level.b)
+                ws.append(level.weights_eq)
+                Cs.append(level.C)
+                ds.append(level.d)
+                wis.append(level.weights_ineq)
+                m_e += level.A.shape[0]
+                m_i += level.C.shape[0]
+            eq_off[k + 1], in_off[k + 1] = m_e, m_i
+            unit[k] = level._unit_eq
+        self.A = np.concatenate(As) if m_e else np.zeros((0, n))
+        self.C = np.concatenate(Cs) if m_i else np.zeros((0, n))
+        self.b = np.concatenate(bs) if m_e else np.zeros(0)
+        self.d = np.concatenate(ds) if m_i else np.zeros(0)
+        self.sw = np.sqrt(np.concatenate(ws)) if m_e else np.zeros(0)
+        self.wi = np.concatenate(wis) if m_i else np.zeros(0)
+        self.eq_off, self.in_off, self.unit_eq = eq_off, in_off, unit
+        self.n_cols = n if (m_e or m_i) else None
+        self.names = tuple(level.name for level in levels)
+        self._layout = None
+        self._levels = list(levels)
+        return self
+
+
 # --------------------------------------------------------------------------------------------
 # Parameters and result
 
@@ -518,7 +655,7 @@ class _Constraints:
                     rhs.append(sign * bound[idx])
                     self._bound_idx.append((name, idx))
             self.B, self.hB = np.vstack(rows), np.concatenate(rhs)
-        scale = float(np.abs(h).max(initial=0.0))
+        scale = float(np.abs(h).max()) if h.shape[0] else 0.0
         if self.hB.size:
             scale = max(scale, float(np.abs(self.hB).max()))
         self.tol = tol_rel * (1.0 + scale)  # absolute feasibility tolerance
@@ -893,7 +1030,8 @@ class _LevelLabels:
         self._levels = levels
 
     def __getitem__(self, k: int) -> str:
-        name = self._levels[k].name
+        levels = self._levels
+        name = levels.names[k] if type(levels) is LevelStack else levels[k].name
         return f"level {k} ({name!r})" if name else f"level {k}"
 
 
@@ -901,36 +1039,17 @@ _METHOD_CODE = {name: code for code, name in enumerate(_kernels.METHODS)}
 _INT_EMPTY = np.zeros(0, dtype=np.int64)
 
 
-def _solve_compiled(work: _Solver, levels: tuple, labels: list, warm: list):
+def _solve_compiled(work: _Solver, stack: LevelStack, labels, warm: list):
     """Every level through :func:`controllers._hqp_kernels.solve_levels_fast`, the backend's in Python.
 
     Returns ``(methods, slacks, times, free_dims, level_x, residuals)`` as the
     per-level loop of :func:`solve_hierarchy` builds them; ``residuals`` are
     each level's weighted squared error at the point after the last level.
     """
-    n, p = work.n, len(levels)
-    eq_off, in_off = np.zeros(p + 1, dtype=np.int64), np.zeros(p + 1, dtype=np.int64)
-    As, bs, ws, Cs, ds, wis = [], [], [], [], [], []
-    unit = np.empty(p, dtype=np.bool_)
-    m_e = m_i = 0
-    for k, level in enumerate(levels):
-        if level.n_cols is not None:
-            As.append(level.A)
-            bs.append(level.b)
-            ws.append(level.weights_eq)
-            Cs.append(level.C)
-            ds.append(level.d)
-            wis.append(level.weights_ineq)
-            m_e += level.A.shape[0]
-            m_i += level.C.shape[0]
-        eq_off[k + 1], in_off[k + 1] = m_e, m_i
-        unit[k] = level._unit_eq
-    A = np.concatenate(As) if m_e else np.zeros((0, n))
-    C = np.concatenate(Cs) if m_i else np.zeros((0, n))
-    b = np.concatenate(bs) if m_e else np.zeros(0)
-    d = np.concatenate(ds) if m_i else np.zeros(0)
-    sw = np.sqrt(np.concatenate(ws)) if m_e else np.zeros(0)
-    wi = np.concatenate(wis) if m_i else np.zeros(0)
+    n, p = work.n, len(stack)
+    A, b, sw, eq_off, unit, C, d, wi, in_off = (stack.A, stack.b, stack.sw, stack.eq_off, stack.unit_eq, stack.C,
+                                               stack.d, stack.wi, stack.in_off)
+    m_e, m_i = A.shape[0], C.shape[0]
     codes, free = np.empty(p, dtype=np.int64), np.empty(p, dtype=np.int64)
     X, e_all, v_all = np.empty((p, n)), np.empty(m_e), np.empty(m_i)
     seconds, residuals, clock = np.empty(p), np.empty(p), np.zeros(2, dtype=np.int64)
@@ -955,7 +1074,7 @@ def _solve_compiled(work: _Solver, levels: tuple, labels: list, warm: list):
             continue
         t_level = time.perf_counter()  # this level needs the backend: the Python path
         # the kernel has tried the closed form and the working set: straight to the backend
-        method, e, v = work.solve_level(levels[stop], labels[stop], warm[stop], cheap=False)
+        method, e, v = work.solve_level(stack[stop], labels[stop], warm[stop], cheap=False)
         codes[stop] = _METHOD_CODE[method]
         e_all[eq_off[stop]: eq_off[stop + 1]] = e
         v_all[in_off[stop]: in_off[stop + 1]] = v
@@ -1094,13 +1213,19 @@ def solve_hierarchy(
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1:
         raise ParameterError(f"solve_hierarchy: n must be an int >= 1, got {n!r}")
     n = int(n)
-    levels = tuple(levels)
-    for k, level in enumerate(levels):
-        if type(level) is not Level and not isinstance(level, Level):
-            raise ParameterError(f"solve_hierarchy: levels[{k}] must be a Level, got {type(level).__name__}")
-        if level.n_cols != n and level.n_cols is not None:
-            raise ParameterError(f"solve_hierarchy: {_LevelLabels(levels)[k]} has {level.n_cols} columns, "
-                                 f"expected n = {n}")
+    if isinstance(levels, LevelStack):
+        stack = levels
+        if stack.n_cols not in (None, n):
+            raise ParameterError(f"solve_hierarchy: the level stack has {stack.n_cols} columns, expected n = {n}")
+    else:
+        stack = None
+        levels = tuple(levels)
+        for k, level in enumerate(levels):
+            if type(level) is not Level and not isinstance(level, Level):
+                raise ParameterError(f"solve_hierarchy: levels[{k}] must be a Level, got {type(level).__name__}")
+            if level.n_cols != n and level.n_cols is not None:
+                raise ParameterError(f"solve_hierarchy: {_LevelLabels(levels)[k]} has {level.n_cols} columns, "
+                                     f"expected n = {n}")
     labels = _LevelLabels(levels)
     hard_label = "hard"
     if hard is not None:
@@ -1139,8 +1264,10 @@ def solve_hierarchy(
     work = _Solver(n, backend, solver_name, params, float(regularization), cons, x0, N0, hard_label)
 
     residuals = None
-    if work.fast and levels:
-        methods, slacks, times, free_dims, level_x, residuals = _solve_compiled(work, levels, labels, warm)
+    if work.fast and len(levels):
+        if stack is None:
+            stack = LevelStack.from_levels(levels, n)
+        methods, slacks, times, free_dims, level_x, residuals = _solve_compiled(work, stack, labels, warm)
         x_levels = work.x
     else:
         methods, slacks, times, free_dims, level_x = [], [], [], [], []
@@ -1162,8 +1289,11 @@ def solve_hierarchy(
     hard_eq_res = 0.0
     if hard is not None and hard.A.shape[0]:
         hard_eq_res = float(np.abs(hard.A @ x - hard.b).max()) / (1.0 + float(np.abs(hard.b).max()))
-    G_hard, h_hard = cons.G[: cons.n_hard], cons.h[: cons.n_hard]
-    viol = max(float((G_hard @ x - h_hard).max(initial=0.0)), float((cons.B @ x - cons.hB).max(initial=0.0)))
+    viol = 0.0
+    if cons.n_hard:
+        viol = float((cons.G[: cons.n_hard] @ x - cons.h[: cons.n_hard]).max())
+    if cons.hB.size:
+        viol = max(viol, float((cons.B @ x - cons.hB).max()))
     if viol > cons.tol or hard_eq_res > params.feasibility_tol:
         work._raise_if_hard_infeasible()
         raise QPSolveError(

@@ -45,7 +45,7 @@ from models.errors import ParameterError, SandboxError
 from models.records import Measurement
 
 from .base import Controller, ControllerContext
-from .hqp import HQPParams, Level, solve_hierarchy
+from .hqp import HQPParams, Level, LevelStack, solve_hierarchy
 from .tasks import Task, TickState
 
 __all__ = ["HQPController"]
@@ -97,6 +97,7 @@ class HQPController(Controller):
         self.fallback_count = 0
         self.last_fallback_reason: str | None = None
         self._level_names = [f"level {i} ({', '.join(t.name for t in tasks)})" for i, tasks in enumerate(self.levels)]
+        self._stack_names = (*self._level_names, "minimum norm of [qdd; tau]")
 
     def reset(self, context: ControllerContext) -> None:
         super().reset(context)
@@ -114,6 +115,7 @@ class HQPController(Controller):
         self._eye, self._zero = np.eye(n), np.zeros(n)  # the constant halves of the minimum-norm rows [I; M], [0; -c]
         self._prev = None
         self._constant_rows: dict = {}  # (level, task) -> (read-only rows, their q part, their tau part or None)
+        self._raw_rows: list = []  # (level, task, A, b) as the tasks returned them this tick
         self.fallback_count = 0
         self.last_fallback_reason = None
         self._diag = dict.fromkeys(self.diagnostic_names(), 0.0)
@@ -134,15 +136,18 @@ class HQPController(Controller):
     def diagnostics(self):
         return self._diag
 
-    def _task_levels(self, s: TickState, c: np.ndarray | None) -> tuple[list[Level], int]:
-        """The levels of this tick (rows in q̈ when ``c`` is given, else in [q̈; τ]) and their row count.
+    def _task_entries(self, s: TickState, c: np.ndarray | None) -> tuple[list, int]:
+        """Per level, the ``(eq, ineq)`` lists of ``(A, b, w)`` of this tick (in q̈ when ``c`` is given) and their rows.
 
-        Rows that are 2-D and 1-D float arrays of matching shapes and finite go in as they are; any other
-        entry goes through the checks of :class:`~controllers.hqp.Level`, which raise naming the level and
-        the entry (or normalise it, e.g. a 1-D row).
+        Rows that are 2-D and 1-D float arrays of matching shapes go in as they are (their finiteness is
+        checked once on the whole stack, :meth:`_check_finite`); any other entry goes through the checks of
+        :class:`~controllers.hqp.Level`, which raise naming the level and the entry (or normalise it, e.g. a
+        1-D row).
         """
         n, rows, levels = s.nv, 0, []
         cache = self._constant_rows
+        raw = self._raw_rows
+        raw.clear()
         for i, tasks in enumerate(self.levels):
             eq, ineq = [], []
             for j, t in enumerate(tasks):
@@ -150,9 +155,10 @@ class HQPController(Controller):
                 if r is None:
                     continue
                 A, b = r[0], r[1]
+                raw.append((i, t, A, b))
                 hit = cache.get((i, j))
                 if (c is not None and hit is not None and hit[0] is A and type(b) is np.ndarray and b.dtype == float
-                        and b.shape == (A.shape[0],) and np.isfinite(b.sum())):
+                        and b.shape == (A.shape[0],)):
                     # the same read-only rows as at an earlier tick: checked and split then
                     _, A_q, A_t = hit
                     rows += b.shape[0]
@@ -162,8 +168,7 @@ class HQPController(Controller):
                         (eq if t.kind == "eq" else ineq).append((A_q + A_t @ s.M, b - A_t @ c, t.weight))
                     continue
                 if not (type(A) is np.ndarray and type(b) is np.ndarray and A.dtype == float and b.dtype == float
-                        and A.ndim == 2 and b.ndim == 1 and A.shape == (b.shape[0], 2 * n)
-                        and np.isfinite(A.sum() + b.sum())):
+                        and A.ndim == 2 and b.ndim == 1 and A.shape == (b.shape[0], 2 * n)):
                     kind = "eq" if t.kind == "eq" else "ineq"
                     checked = Level(**{kind: [(A, b, t.weight)]}, name=self._level_names[i])
                     A, b = (checked.A, checked.b) if kind == "eq" else (checked.C, checked.d)
@@ -174,15 +179,28 @@ class HQPController(Controller):
                 if c is not None:
                     At = A[:, n:]
                     has_tau = bool(At.any())
-                    if type(r[0]) is np.ndarray and not r[0].flags.writeable:  # constant rows: split them once
-                        cache[(i, j)] = (r[0], A[:, :n], At if has_tau else None)
+                    if type(r[0]) is np.ndarray and not r[0].flags.writeable and np.isfinite(A.sum()):
+                        cache[(i, j)] = (r[0], A[:, :n], At if has_tau else None)  # constant rows: split them once
                     if has_tau:  # a row on the torques: tau = M qdd + c
                         A, b = A[:, :n] + At @ s.M, b - At @ c
                     else:
                         A = A[:, :n]
                 (eq if t.kind == "eq" else ineq).append((A, b, t.weight))
-            levels.append(Level.unchecked(eq=eq, ineq=ineq, name=self._level_names[i]))
+            levels.append((eq, ineq))
         return levels, rows
+
+    def _check_finite(self, stack: LevelStack) -> None:
+        """Raise naming the first task whose rows are not finite, if the stacked rows are not.
+
+        One sum over the whole stack in the common case; only a non-finite sum looks at the tasks' rows
+        of this tick (as they returned them).
+        """
+        if math.isfinite(stack.A.sum() + stack.b.sum() + stack.C.sum() + stack.d.sum()):
+            return
+        for i, t, A, b in self._raw_rows:  # the checks of Level name the level, the task and the bad element
+            Level(**{"eq" if t.kind == "eq" else "ineq": [(A, b, t.weight)]},
+                  name=f"{self._level_names[i]}, task {t.name!r}")
+        raise SandboxError("the dynamics terms of this tick (M, h or the cuff forces) are not finite")
 
     def step(self, measurement: Measurement) -> np.ndarray:
         s = self.state
@@ -199,16 +217,19 @@ class HQPController(Controller):
                 G[:n], G[n:] = M, -M
                 hard = Level.unchecked(ineq=[(G, np.concatenate([self._tau_max - c, self._tau_max + c]), 1.0)],
                                        name="torque limits")
-                levels, rows = self._task_levels(s, c)
-                levels.append(Level.unchecked(eq=[(np.concatenate((self._eye, M)), np.concatenate((self._zero, -c)),
-                                                   1.0)], name="minimum norm of [qdd; tau]"))
-                res = solve_hierarchy(levels, n, self.solver, hard=hard, warm_start=self._prev, params=self.params)
+                entries, rows = self._task_entries(s, c)
+                entries.append(([(np.concatenate((self._eye, M)), np.concatenate((self._zero, -c)), 1.0)], ()))
+                stack = LevelStack.from_entries(entries, n, self._stack_names)
+                self._check_finite(stack)
+                res = solve_hierarchy(stack, n, self.solver, hard=hard, warm_start=self._prev, params=self.params)
                 tau = np.minimum(np.maximum(M @ res.x + c, -self._tau_max), self._tau_max)
             else:
                 self._A_dyn[:, :n] = s.M
                 hard = Level(eq=[(self._A_dyn, s.cuff_force - s.h)], name="dynamics")
-                levels, rows = self._task_levels(s, None)
-                res = solve_hierarchy(levels, 2 * n, self.solver, hard=hard, lb=self._lb, ub=self._ub,
+                entries, rows = self._task_entries(s, None)
+                stack = LevelStack.from_entries(entries, 2 * n, self._level_names)
+                self._check_finite(stack)
+                res = solve_hierarchy(stack, 2 * n, self.solver, hard=hard, lb=self._lb, ub=self._ub,
                                       warm_start=self._prev, params=self.params)
                 tau = np.asarray(res.x[n:], dtype=float)
             if not math.isfinite(tau.sum()):
