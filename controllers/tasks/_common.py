@@ -21,7 +21,10 @@ class TickState:
     """Shared per-tick quantities of the controller's model.
 
     After :meth:`update`: ``q``, ``dq`` (nv,), ``M`` (nv, nv) joint-space
-    inertia (rotor inertia included), ``h`` (nv,) Coriolis, centrifugal and
+    inertia (rotor inertia included) and its inverse ``Minv`` (from
+    pinocchio's sparse factorisation :math:`M = U D U^T`, Featherstone,
+    "Efficient factorization of the joint-space inertia matrix for branched
+    kinematic trees", IJRR 24(6), 2005), ``h`` (nv,) Coriolis, centrifugal and
     gravity terms, ``g`` (nv,) gravity, ``cuff_force`` (nv,) the generalized
     force :math:`\\sum_c J_c^T w_c` of the measured cuff wrenches (each
     Jacobian in the sensor's LOCAL frame, where the wrench is measured), and
@@ -51,6 +54,8 @@ class TickState:
         pin.updateFramePlacements(model, data)
         U = pin.crba(model, data, self.q)  # crba fills the upper triangle: mirror it
         self.M = np.where(self._lower, U.T, U)
+        pin.cholesky.decompose(model, data)  # of data.M, just computed: M = U D U^T (sparse, Featherstone 2005)
+        self.Minv = pin.cholesky.computeMinv(model, data).copy()
         self.h = pin.nonLinearEffects(model, data, self.q, self.dq).copy()
         self.g = pin.computeGeneralizedGravity(model, data, self.q).copy()
         self._jac.clear()

@@ -91,14 +91,16 @@ class JointPositionLimits(Task):
     def bind(self, state: TickState) -> None:
         self.lo, self.hi = state.arm.position_limits()
         self._C = _limit_rows(state.nv)
+        # both sides at once: the rows S = [I; -I] and the bounds [q_max - m; -(q_min + m)], so that the
+        # remaining distance of each side is d = bound - S q and its velocity towards the limit S q'
+        self._S = np.vstack([np.eye(state.nv), -np.eye(state.nv)])
+        self._bound = np.concatenate([self.hi - self.margin, -(self.lo + self.margin)])
 
     def rows(self, state: TickState):
-        dt, q, v = state.dt_s, state.q, state.dq
-        up = np.maximum(self.hi - self.margin - q, 0.0)
-        dn = np.maximum(q - (self.lo + self.margin), 0.0)
-        amax_up = np.minimum((np.sqrt(2 * self.a * up) - v) / dt, (up - v * dt) / dt**2)
-        amax_dn = np.minimum((np.sqrt(2 * self.a * dn) + v) / dt, (dn + v * dt) / dt**2)
-        return self._C, np.concatenate([amax_up, amax_dn])
+        dt = state.dt_s
+        d = np.maximum(self._bound - self._S @ state.q, 0.0)
+        v = self._S @ state.dq
+        return self._C, np.minimum((np.sqrt((2.0 * self.a) * d) - v) / dt, (d - v * dt) / (dt * dt))
 
 
 class JointVelocityLimits(Task):
@@ -262,7 +264,7 @@ class WallTask(Task):
         J = state.jacobian(self.fid)[:3]
         drift = state.drift(self.fid)[:3]
         v = J @ state.dq
-        Minv_JT = np.linalg.solve(state.M, J.T)
+        Minv_JT = state.Minv @ J.T
         A = np.zeros((len(touched), 2 * state.nv))
         b = np.zeros(len(touched))
         K, B = self.law.stiffness_N_per_m, self.law.damping_N_s_per_m
