@@ -21,7 +21,9 @@ library are re-raised as :class:`QPSolveError`.
 The registry :data:`BACKENDS` (name -> ``solve``) is filled once, at import, by
 guarded imports: a solver that is not installed is simply absent, and
 :func:`get_backend` says how to add it. The default backend is ``daqp`` if
-installed, else ``osqp``.
+installed, else ``osqp``; the adapters after the default are imported when
+first called (their package is only looked up at import), so a process that
+never calls OSQP does not pay for loading it and SciPy.
 
 Adding a backend
 ----------------
@@ -29,8 +31,8 @@ Adding a backend
    module level, defines ``NAME`` and ``solve`` with the signature above,
    maps :class:`QPTolerances` explicitly to the solver's settings and
    documents them in a table.
-2. Add the module name and its install command to ``_ADAPTER_MODULES``
-   below.
+2. Add the module name, its solver package and its install command to
+   ``_ADAPTER_MODULES`` below.
 3. The shared problems of ``tests/test_qp_backends.py`` then run on it.
 
 References
@@ -46,6 +48,7 @@ References
 from __future__ import annotations
 
 import importlib
+import importlib.util
 import types
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -239,19 +242,48 @@ def check_qp(P, q, G=None, h=None, A=None, b=None, lb=None, ub=None):
 
 # Registry, filled once at import by guarded imports -------------------------------------------
 
-#: Adapter modules tried at import, in order of preference for the default -> install command.
-_ADAPTER_MODULES = {"daqp_": "pip install daqp", "osqp_": "pip install osqp"}
+#: Adapter modules tried at import, in order of preference for the default -> (solver package, install command).
+_ADAPTER_MODULES = {"daqp_": ("daqp", "pip install daqp"), "osqp_": ("osqp", "pip install osqp")}
 
 _registry: dict[str, Callable[..., QPResult]] = {}
 _missing: dict[str, str] = {}
 
 
+def _deferred(module_name: str, install: str) -> Callable[..., QPResult]:
+    """A ``solve`` that imports its adapter on first call (an installed solver that is not the default).
+
+    Importing a solver library can take a second (OSQP brings SciPy's sparse matrices); every process of a
+    sweep would pay it for a backend it never calls.  If the import fails after all, the call raises
+    :class:`BackendNotFound` with the import error.
+    """
+    loaded: list = []
+
+    def solve(*args, **kwargs) -> QPResult:
+        if not loaded:
+            try:
+                loaded.append(importlib.import_module(f"{__name__}.{module_name}").solve)
+            except ImportError as e:
+                raise BackendNotFound(f"QP backend {module_name.rstrip('_')!r} cannot be loaded ({e}); "
+                                      f"`{install}`") from e
+        return loaded[0](*args, **kwargs)
+
+    solve.__doc__ = f"The ``solve`` of :mod:`{__name__}.{module_name}`, imported on first call."
+    return solve
+
+
 def _register_installed() -> None:
-    for module_name, install in _ADAPTER_MODULES.items():
+    for module_name, (package, install) in _ADAPTER_MODULES.items():
+        name = module_name.rstrip("_")
+        if _registry:  # the default is loaded: the others only when first called, if their package is there
+            if importlib.util.find_spec(package) is None:
+                _missing[name] = f"not installed (no module named {package!r}); `{install}`"
+            else:
+                _registry[name] = _deferred(module_name, install)
+            continue
         try:
             module = importlib.import_module(f"{__name__}.{module_name}")
         except ImportError as e:
-            _missing[module_name.rstrip("_")] = f"not installed ({e}); `{install}`"
+            _missing[name] = f"not installed ({e}); `{install}`"
             continue
         _registry[module.NAME] = module.solve
 
