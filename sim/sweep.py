@@ -4,9 +4,11 @@ Every run is independent (its own process, its own seed), so a sweep is an
 embarrassingly parallel map.  Two executors run the same function,
 :func:`run_case`:
 
-* local processes (:class:`concurrent.futures.ProcessPoolExecutor`, ``jobs``
-  workers, started with ``spawn`` so that a worker inherits nothing from the
-  parent); ``jobs=1`` runs in this process;
+* local processes: ``jobs`` runs at a time, in ``jobs - 1`` workers
+  (:class:`concurrent.futures.ProcessPoolExecutor`, started with ``spawn`` so
+  that a worker inherits nothing from the parent) and in this process, which
+  takes the next case whenever it is free (it runs cases while the workers
+  start); ``jobs=1`` runs every case in this process;
 * an existing Dask distributed cluster (``dask_address``), for users who
   outgrow one machine.  The workers must see the scenario file and ``out_dir``
   at the same paths (a shared file system).
@@ -28,6 +30,7 @@ Output folder::
 
 from __future__ import annotations
 
+import collections
 import csv
 import json
 import math
@@ -35,7 +38,7 @@ import os
 import time
 import traceback
 from collections.abc import Callable, Iterable, Sequence
-from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -161,22 +164,70 @@ def plan_sweep(scenario_path: str | Path, controllers: Sequence[str], subjects: 
 
 
 def _local(cases: Sequence[SweepCase], jobs: int) -> Iterable[CaseResult]:
+    """Run the cases ``jobs`` at a time: in ``jobs - 1`` spawned workers and in this process.
+
+    This process takes the next case whenever it is free, so it works while the
+    workers start (imports, loading the compiled kernels: seconds) instead of
+    waiting for them; each worker is handed one case at a time, when it is free.
+    Results come in completion order.
+    """
     if jobs == 1:
         for c in cases:
             yield run_case(c)
         return
     import multiprocessing
+    import queue
+    import threading
 
-    with ProcessPoolExecutor(max_workers=jobs, mp_context=multiprocessing.get_context("spawn")) as pool:
-        pending = {pool.submit(run_case, c) for c in cases}
+    todo = collections.deque(cases)
+    lock = threading.Lock()
+    finished: queue.SimpleQueue = queue.SimpleQueue()
+    submitted = 0
+
+    def next_case() -> SweepCase | None:
+        with lock:
+            return todo.popleft() if todo else None
+
+    with ProcessPoolExecutor(max_workers=jobs - 1, mp_context=multiprocessing.get_context("spawn")) as pool:
+
+        def feed() -> None:  # one case to a free worker (called again from each finished case's callback)
+            nonlocal submitted
+            case = next_case()
+            if case is None:
+                return
+            with lock:
+                submitted += 1
+            try:
+                pool.submit(run_case, case).add_done_callback(done)
+            except RuntimeError:  # the pool is shutting down (the sweep was interrupted)
+                with lock:
+                    submitted -= 1
+
+        def done(f) -> None:
+            finished.put(f)
+            feed()
+
+        received = 0
         try:
-            while pending:
-                done, pending = wait(pending, return_when=FIRST_COMPLETED)
-                for f in done:
-                    yield f.result()
+            for _ in range(jobs - 1):
+                feed()
+            while True:
+                while not finished.empty():
+                    received += 1
+                    yield finished.get().result()
+                case = next_case()
+                if case is None:
+                    break
+                yield run_case(case)
+            while True:
+                with lock:
+                    if received == submitted:
+                        break
+                received += 1
+                yield finished.get().result()
         finally:
-            for f in pending:
-                f.cancel()
+            with lock:
+                todo.clear()  # no new case to the workers; cases already running finish with the pool
 
 
 def _dask(cases: Sequence[SweepCase], address: str) -> Iterable[CaseResult]:
@@ -223,7 +274,8 @@ def run_sweep(
     out_dir : path
         Output folder; created, and must be empty if it exists.
     jobs : int, optional
-        Local worker processes (default: all cores).  Ignored with ``dask_address``.
+        Runs at a time on this machine (default: all cores): ``jobs - 1``
+        worker processes and this one.  Ignored with ``dask_address``.
     dask_address : str, optional
         Address of a running Dask scheduler (``tcp://host:8786``) to run on instead.
     progress : bool

@@ -124,3 +124,17 @@ def test_sweep_cli_prints_the_table_and_the_verdict(tiny, tmp_path, capsys):
     printed = capsys.readouterr().out
     assert "interaction_force_rms_N" in printed and "is better than" in printed
     assert (out / "summary.md").is_file() and (out / "runs.md").is_file()
+
+
+def test_two_jobs_run_cases_in_a_worker_and_in_this_process(tiny, tmp_path, monkeypatch):
+    # jobs=2: one spawned worker (handed the first case at once) and this process, which takes the next case
+    # whenever it is free instead of waiting while the worker starts
+    import os
+
+    import _sweep_probe
+
+    monkeypatch.setattr("sim.sweep.run_case", _sweep_probe.run_case_noting_pid)
+    result = run_sweep(tiny, ["gravity"], ["f5"], 3, out_dir=tmp_path / "out", jobs=2)
+    assert not result.failed and len(result.results) == 3
+    pids = [_sweep_probe.pid_of(r.case) for r in result.results]
+    assert os.getpid() in pids and len(set(pids)) == 2
