@@ -108,7 +108,8 @@ def build_parser() -> argparse.ArgumentParser:
     w.add_argument("--subjects", metavar="S1,S2", default="m50",
                    help="comma-separated built-in subjects (default: m50; all: f5,f50,f95,m5,m50,m95)")
     w.add_argument("--seeds", type=int, default=1, metavar="N", help="seeds per combination (default 1)")
-    w.add_argument("--jobs", type=int, metavar="N", help="local worker processes (default: all cores)")
+    w.add_argument("--jobs", type=int, metavar="N",
+                   help="runs at a time on this machine: N - 1 worker processes and this one (default: all cores)")
     w.add_argument("--dask", metavar="ADDRESS", help="run on an existing Dask scheduler, e.g. tcp://host:8786")
     w.add_argument("--duration", type=float, metavar="S", help="override the scenario's duration [s]")
     w.add_argument("--out", metavar="DIR", help="output folder (default: runs/sweep-SCENARIO, then -2, -3, ...)")
