@@ -142,6 +142,7 @@ class CoupledPlant:
         self._damping = np.array(me.damping)  # constant: read once
         self._coulomb = np.array(me.friction)
         self._tau_e = np.zeros(me.nv)  # joint torque plus friction, rewritten each substep
+        self._vh_e, self._vh_h = np.zeros(me.nv), np.zeros(mh.nv)  # h v+ of each substep, for integrate
         self.q_exo = assembly.q_exo0.copy()
         self.v_exo = np.zeros(me.nv)
         self.q_human = assembly.q_human0.copy()
@@ -176,8 +177,10 @@ class CoupledPlant:
 
         Does nothing when the state has not changed since the last call.
         """
-        if self._cuffs_fresh:
-            return
+        if not self._cuffs_fresh:
+            self._refresh_cuffs()
+
+    def _refresh_cuffs(self) -> None:
         self._cuffs_fresh = True
         self._kinematics()
         if not self.cuffs:
@@ -218,28 +221,47 @@ class CoupledPlant:
     # -- dynamics ----------------------------------------------------------------------
     def substep(self, tau_exo_Nm: np.ndarray, tau_human_Nm: np.ndarray, dt_s: float) -> None:
         """Advance both arms by ``dt_s`` with the given joint torques held constant."""
-        self.update_cuffs()  # also writes the cuff wrenches into the joint-frame forces aba reads
-        if self.has_exo:
-            me = self.exo.model
-            tau = np.asarray(tau_exo_Nm, dtype=float)
-            if self.params.exo_friction:  # tau - b v - tau_c tanh(v / v_s) (PlantParams)
-                _friction_torque(tau, self.v_exo, self._damping, self._coulomb, self.params.coulomb_smoothing_rad_s,
-                                 self._tau_e)
-                tau = self._tau_e
-            a = pin.aba(me, self._de, self.q_exo, self.v_exo, tau, self._fext_e)
-            a *= dt_s
-            a += self.v_exo
-            self.v_exo = a  # v + h a, a new array (aba returns its own)
-            self.q_exo = pin.integrate(me, self.q_exo, self.v_exo * dt_s)
-            self._cuffs_fresh = False
-        if self.has_human:
-            mh = self.human.model
-            a = pin.aba(mh, self._dh, self.q_human, self.v_human, tau_human_Nm, self._fext_h)
-            a *= dt_s
-            a += self.v_human
-            self.v_human = a
-            self.q_human = pin.integrate(mh, self.q_human, self.v_human * dt_s)
-            self._cuffs_fresh = False
+        self.advance(tau_exo_Nm, tau_human_Nm, dt_s, 1)
+
+    def advance(self, exo_torque, tau_human_Nm: np.ndarray, dt_s: float, n_substeps: int) -> None:
+        """Advance both arms by ``n_substeps`` substeps of ``dt_s`` each, in one call.
+
+        The same as ``n_substeps`` calls of :meth:`substep`, to the bit.
+        ``exo_torque`` is either the robot's joint torque (nv,) [N m], held
+        over all the substeps, or an actuator (:class:`sim.actuators.Actuators`,
+        anything with ``substep(q, v, dt_s)``), asked before every substep for
+        the torque it applies over it given the robot's state then.  The
+        human's torque ``tau_human_Nm`` (nv,) [N m] is held over all of them.
+        """
+        if not (isinstance(n_substeps, (int, np.integer)) and n_substeps >= 1):
+            raise SandboxError(f"CoupledPlant.advance: n_substeps must be an integer >= 1, got {n_substeps!r}")
+        actuator = getattr(exo_torque, "substep", None)
+        tau_held = None if actuator is not None else np.asarray(exo_torque, dtype=float)
+        has_exo, has_human = self.has_exo, self.has_human
+        me, mh, de, dh = self.exo.model, self.human.model, self._de, self._dh
+        fext_e, fext_h, vh_e, vh_h = self._fext_e, self._fext_h, self._vh_e, self._vh_h
+        friction = self.params.exo_friction
+        smoothing = self.params.coulomb_smoothing_rad_s
+        aba, integrate = pin.aba, pin.integrate
+        for _ in range(n_substeps):
+            tau = actuator(self.q_exo, self.v_exo, dt_s) if actuator is not None else tau_held
+            if not self._cuffs_fresh:  # also writes the cuff wrenches into the joint-frame forces aba reads
+                self._refresh_cuffs()
+            if has_exo:
+                if friction:  # tau - b v - tau_c tanh(v / v_s) (PlantParams)
+                    _friction_torque(tau, self.v_exo, self._damping, self._coulomb, smoothing, self._tau_e)
+                    tau = self._tau_e
+                a = aba(me, de, self.q_exo, self.v_exo, tau, fext_e)  # a new array: it becomes v
+                _euler_velocity(a, self.v_exo, dt_s, vh_e)
+                self.v_exo = a
+                self.q_exo = integrate(me, self.q_exo, vh_e)
+                self._cuffs_fresh = False
+            if has_human:
+                a = aba(mh, dh, self.q_human, self.v_human, tau_human_Nm, fext_h)
+                _euler_velocity(a, self.v_human, dt_s, vh_h)
+                self.v_human = a
+                self.q_human = integrate(mh, self.q_human, vh_h)
+                self._cuffs_fresh = False
 
     # -- energy ------------------------------------------------------------------------
     def energy_J(self) -> dict[str, float]:
@@ -637,6 +659,17 @@ def _friction_torque(tau, v, damping, coulomb, smoothing, out):
     """Joint torque plus friction, :math:`\\tau - b v - \\tau_c \\tanh(v / v_s)` (PlantParams), into out."""
     for i in range(v.shape[0]):
         out[i] = tau[i] + (-damping[i] * v[i] - coulomb[i] * math.tanh(v[i] / smoothing))
+
+
+@numba.njit(cache=True)
+def _euler_velocity(a, v, h, vh):
+    """The semi-implicit Euler velocity :math:`v_+ = v + h a` into ``a`` (in place), and ``vh`` = :math:`h v_+`.
+
+    The operations of ``a *= h; a += v; vh = a * h`` in numpy, in that order (the module docstring's scheme).
+    """
+    for i in range(a.shape[0]):
+        a[i] = a[i] * h + v[i]
+        vh[i] = a[i] * h
 
 
 def _records(items: list[np.ndarray], width: int, what: str) -> np.ndarray:
