@@ -24,6 +24,7 @@ import pytest
 import models
 from models.cuffs import cuff_wrench
 from models.errors import SandboxError
+from sim import plant as plant_module
 from sim.actuators import ActuatorParams, TorqueSourceActuators
 from sim.plant import CoupledPlant, PlantParams
 
@@ -153,3 +154,26 @@ def test_advance_refuses_a_substep_count_that_is_not_a_positive_integer(bad):
     plant = _plant(7)
     with pytest.raises(SandboxError, match="n_substeps"):
         plant.advance(np.zeros(plant.exo.nv), np.zeros(plant.human.nv), H, bad)
+
+
+def test_the_pair_model_steps_both_arms_as_two_models_do_to_the_bit(monkeypatch):
+    # pinocchio's appendModel (one model of both trees) against the two arms' own models, on the same inputs
+    pair = _plant(8)
+    monkeypatch.setattr(plant_module, "_pair_model", lambda exo, human: None)
+    two = _plant(8)
+    assert pair._pair and not two._pair
+    for p in (pair, two):  # assigning a state vector (not only changing it in place) reaches the dynamics
+        p.v_human = p.v_human + 0.1  # [rad/s]
+        p.invalidate()
+    act_p, act_t = _StateSpring(pair.exo.nv), _StateSpring(two.exo.nv)
+    tau_h = np.linspace(1.0, -1.0, pair.human.nv)  # [N m]
+    for _ in range(5):
+        pair.advance(act_p, tau_h, H, 4)
+        two.advance(act_t, tau_h, H, 4)
+    for x, y in zip(_state(pair), _state(two)):
+        np.testing.assert_array_equal(x, y)
+    for which in ("exo", "human"):
+        np.testing.assert_array_equal(pair.hand_position(which), two.hand_position(which))
+    for x, y in zip(*(sum(p._joint_forces(), []) for p in (pair, two))):
+        np.testing.assert_array_equal(x, y)
+    assert pair.energy_J() == two.energy_J()
