@@ -21,6 +21,13 @@ one compiled call (:func:`_cuff_kernel`, numba), reading and writing the
 pinocchio ``Data`` and force vectors in place; it restates the law of
 :mod:`models.cuffs`, the reference it is tested against.  The first run
 compiles it (numba ``cache=True``: later processes load it from disk).
+
+With both arms simulated, the two models are also held as one
+(``pinocchio.appendModel``, the human's tree beside the robot's), so each
+substep is one forward kinematics, one aba and one integrate; joint by joint
+these do the same arithmetic as two models, and the plant checks this to the
+bit when it is built.  :meth:`CoupledPlant.advance` runs all the substeps of a
+control tick in one call, asking the actuators before each.
 """
 
 from __future__ import annotations
@@ -115,15 +122,33 @@ class CoupledPlant:
         ]
         me, mh = self.exo.model, self.human.model
         nc = len(self.cuffs)
-        self._fext_e = pin.StdVec_Force()
-        self._fext_h = pin.StdVec_Force()
-        for _ in range(me.njoints):
-            self._fext_e.append(pin.Force.Zero())
-        for _ in range(mh.njoints):
-            self._fext_h.append(pin.Force.Zero())
+        # With both arms simulated, one pinocchio model holds the pair (:func:`_pair_model`): one forward
+        # kinematics, one aba and one integrate per substep do, joint by joint, what two of each do.  Its
+        # Data then holds both arms' kinematics, its joint j + off being joint j >= 1 of the human.
+        self._m = _pair_model(me, mh) if self.has_exo and self.has_human else None
+        self._pair = self._m is not None
+        self._nq_e, self._nv_e = me.nq, me.nv
+        if self._pair:
+            self._d = self._m.createData()
+            data_e = data_h = self._d
+            self._fext = pin.StdVec_Force()
+            for _ in range(self._m.njoints):
+                self._fext.append(pin.Force.Zero())
+            fext_e = fext_h = self._fext
+            off = me.njoints - 1
+        else:
+            data_e, data_h = self._de, self._dh
+            fext_e, fext_h = pin.StdVec_Force(), pin.StdVec_Force()
+            for _ in range(me.njoints):
+                fext_e.append(pin.Force.Zero())
+            for _ in range(mh.njoints):
+                fext_h.append(pin.Force.Zero())
+            self._fext_e, self._fext_h = fext_e, fext_h
+            off = 0
+        self._human_joint_offset = off
         # constant per cuff: its two joints, the placements of its frames in them, its K and D diagonals
         self._joints = np.array([[me.frames[c.exo_frame_id].parentJoint for c in self.cuffs],
-                                 [mh.frames[c.human_frame_id].parentJoint for c in self.cuffs]],
+                                 [mh.frames[c.human_frame_id].parentJoint + off for c in self.cuffs]],
                                 dtype=np.int64).reshape(2, nc)
         self._place = np.array([[_se3_record(me.frames[c.exo_frame_id].placement) for c in self.cuffs],
                                 [_se3_record(mh.frames[c.human_frame_id].placement * c.human_offset)
@@ -132,20 +157,27 @@ class CoupledPlant:
                              [cp.d_diag for cp in self._cuff_params]]).reshape(2, nc, 6)
         # in-place views of the Data's joint placements and velocities and of the forces aba reads
         # (fixed-size storage, so they stay valid): one compiled call reads and writes them all
-        de, dh = self._de, self._dh
-        self._oMi_e = _records([de.oMi[j].rotation for j in range(me.njoints)], 12, "joint placements")
-        self._oMi_h = _records([dh.oMi[j].rotation for j in range(mh.njoints)], 12, "joint placements")
-        self._v_e = _records([de.v[j].vector for j in range(me.njoints)], 6, "joint velocities")
-        self._v_h = _records([dh.v[j].vector for j in range(mh.njoints)], 6, "joint velocities")
-        self._fext_e_rec = _records([f.vector for f in self._fext_e], 6, "external forces")
-        self._fext_h_rec = _records([f.vector for f in self._fext_h], 6, "external forces")
+        # (with the pair model, both arms' views are one)
+        self._oMi_e = _records([data_e.oMi[j].rotation for j in range(len(data_e.oMi))], 12, "joint placements")
+        self._oMi_h = _records([data_h.oMi[j].rotation for j in range(len(data_h.oMi))], 12, "joint placements")
+        self._v_e = _records([data_e.v[j].vector for j in range(len(data_e.v))], 6, "joint velocities")
+        self._v_h = _records([data_h.v[j].vector for j in range(len(data_h.v))], 6, "joint velocities")
+        self._fext_e_rec = _records([f.vector for f in fext_e], 6, "external forces")
+        self._fext_h_rec = _records([f.vector for f in fext_h], 6, "external forces")
         self._damping = np.array(me.damping)  # constant: read once
         self._coulomb = np.array(me.friction)
-        self._tau_e = np.zeros(me.nv)  # joint torque plus friction, rewritten each substep
-        self.q_exo = assembly.q_exo0.copy()
-        self.v_exo = np.zeros(me.nv)
-        self.q_human = assembly.q_human0.copy()
-        self.v_human = np.zeros(mh.nv)
+        if self._pair:  # the pair's joint torque: the robot's (plus friction) then the human's, rewritten each substep
+            self._tau = np.zeros(me.nv + mh.nv)
+            self._tau_e, self._tau_h = self._tau[:me.nv], self._tau[me.nv:]
+            self._vh = np.zeros(me.nv + mh.nv)  # h v+ of each substep, for integrate
+            # the state of the pair; q_exo, q_human, v_exo, v_human are views of it (properties below)
+            self._q = np.concatenate((assembly.q_exo0, assembly.q_human0)).astype(float)
+            self._v = np.zeros(me.nv + mh.nv)
+        else:
+            self._tau_e = np.zeros(me.nv)  # joint torque plus friction, rewritten each substep
+            self._vh_e, self._vh_h = np.zeros(me.nv), np.zeros(mh.nv)  # h v+ of each substep, for integrate
+            self._q_exo, self._v_exo = assembly.q_exo0.copy(), np.zeros(me.nv)
+            self._q_human, self._v_human = assembly.q_human0.copy(), np.zeros(mh.nv)
         #: Per cuff, the last wrench on the human [f; tau] in the human cuff frame, and on the robot in its frame.
         self.wrench_on_human = np.zeros((len(self.cuffs), 6))
         self.wrench_on_exo = np.zeros((len(self.cuffs), 6))
@@ -156,9 +188,68 @@ class CoupledPlant:
         self._energy_J, self._power_W = 0.0, 0.0
         self._cuffs_fresh = False
         self._hand = {}
-        for which, arm in (("exo", self.exo), ("human", self.human)):
+        for which, arm, data, shift in (("exo", self.exo, data_e, 0), ("human", self.human, data_h, off)):
             f = arm.model.frames[arm.frame_id(arm.hand_frame)]
-            self._hand[which] = (f.parentJoint, f.placement.translation.copy())
+            self._hand[which] = (data, f.parentJoint + shift, f.placement.translation.copy())
+
+    # -- state -------------------------------------------------------------------------
+    # With the pair model the four vectors are views of its state (each substep makes a new one, as
+    # pinocchio.integrate and aba return new arrays); assigning one copies it into a new pair state.
+    @property
+    def q_exo(self) -> np.ndarray:
+        """Robot joint positions (nq,) [rad]."""
+        return self._q[:self._nq_e] if self._pair else self._q_exo
+
+    @q_exo.setter
+    def q_exo(self, value: np.ndarray) -> None:
+        if self._pair:
+            self._q = np.concatenate((np.asarray(value, dtype=float), self._q[self._nq_e:]))
+        else:
+            self._q_exo = value
+
+    @property
+    def v_exo(self) -> np.ndarray:
+        """Robot joint velocities (nv,) [rad/s]."""
+        return self._v[:self._nv_e] if self._pair else self._v_exo
+
+    @v_exo.setter
+    def v_exo(self, value: np.ndarray) -> None:
+        if self._pair:
+            self._v = np.concatenate((np.asarray(value, dtype=float), self._v[self._nv_e:]))
+        else:
+            self._v_exo = value
+
+    @property
+    def q_human(self) -> np.ndarray:
+        """Human joint positions (nq,) [rad]."""
+        return self._q[self._nq_e:] if self._pair else self._q_human
+
+    @q_human.setter
+    def q_human(self, value: np.ndarray) -> None:
+        if self._pair:
+            self._q = np.concatenate((self._q[:self._nq_e], np.asarray(value, dtype=float)))
+        else:
+            self._q_human = value
+
+    @property
+    def v_human(self) -> np.ndarray:
+        """Human joint velocities (nv,) [rad/s]."""
+        return self._v[self._nv_e:] if self._pair else self._v_human
+
+    @v_human.setter
+    def v_human(self, value: np.ndarray) -> None:
+        if self._pair:
+            self._v = np.concatenate((self._v[:self._nv_e], np.asarray(value, dtype=float)))
+        else:
+            self._v_human = value
+
+    def _joint_forces(self) -> tuple[list[np.ndarray], list[np.ndarray]]:
+        """The joint-frame wrenches aba reads, per arm: one (6,) [N, N m] per joint, universe first (copies)."""
+        if not self._pair:
+            return [f.vector.copy() for f in self._fext_e], [f.vector.copy() for f in self._fext_h]
+        f, nje, off = self._fext, self.exo.model.njoints, self._human_joint_offset
+        return ([f[j].vector.copy() for j in range(nje)],
+                [f[0].vector.copy()] + [f[j + off].vector.copy() for j in range(1, self.human.model.njoints)])
 
     def invalidate(self) -> None:
         """Mark the cuff wrenches stale; call after changing a state vector in place."""
@@ -166,6 +257,9 @@ class CoupledPlant:
 
     # -- kinematics and cuff forces ---------------------------------------------------
     def _kinematics(self) -> None:
+        if self._pair:
+            pin.forwardKinematics(self._m, self._d, self._q, self._v)
+            return
         if self.has_exo:
             pin.forwardKinematics(self.exo.model, self._de, self.q_exo, self.v_exo)
         if self.has_human:
@@ -176,8 +270,10 @@ class CoupledPlant:
 
         Does nothing when the state has not changed since the last call.
         """
-        if self._cuffs_fresh:
-            return
+        if not self._cuffs_fresh:
+            self._refresh_cuffs()
+
+    def _refresh_cuffs(self) -> None:
         self._cuffs_fresh = True
         self._kinematics()
         if not self.cuffs:
@@ -212,33 +308,76 @@ class CoupledPlant:
     def hand_position(self, which: str) -> np.ndarray:
         """World position [m] of the hand point of ``"exo"`` or ``"human"`` (kinematics of the last update)."""
         self.update_cuffs()
-        joint, offset = self._hand[which]
-        return (self._de if which == "exo" else self._dh).oMi[joint].act(offset)
+        data, joint, offset = self._hand[which]
+        return data.oMi[joint].act(offset)
 
     # -- dynamics ----------------------------------------------------------------------
     def substep(self, tau_exo_Nm: np.ndarray, tau_human_Nm: np.ndarray, dt_s: float) -> None:
         """Advance both arms by ``dt_s`` with the given joint torques held constant."""
-        self.update_cuffs()  # also writes the cuff wrenches into the joint-frame forces aba reads
-        if self.has_exo:
-            me = self.exo.model
-            tau = np.asarray(tau_exo_Nm, dtype=float)
-            if self.params.exo_friction:  # tau - b v - tau_c tanh(v / v_s) (PlantParams)
-                _friction_torque(tau, self.v_exo, self._damping, self._coulomb, self.params.coulomb_smoothing_rad_s,
-                                 self._tau_e)
-                tau = self._tau_e
-            a = pin.aba(me, self._de, self.q_exo, self.v_exo, tau, self._fext_e)
-            a *= dt_s
-            a += self.v_exo
-            self.v_exo = a  # v + h a, a new array (aba returns its own)
-            self.q_exo = pin.integrate(me, self.q_exo, self.v_exo * dt_s)
-            self._cuffs_fresh = False
-        if self.has_human:
-            mh = self.human.model
-            a = pin.aba(mh, self._dh, self.q_human, self.v_human, tau_human_Nm, self._fext_h)
-            a *= dt_s
-            a += self.v_human
-            self.v_human = a
-            self.q_human = pin.integrate(mh, self.q_human, self.v_human * dt_s)
+        self.advance(tau_exo_Nm, tau_human_Nm, dt_s, 1)
+
+    def advance(self, exo_torque, tau_human_Nm: np.ndarray, dt_s: float, n_substeps: int) -> None:
+        """Advance both arms by ``n_substeps`` substeps of ``dt_s`` each, in one call.
+
+        The same as ``n_substeps`` calls of :meth:`substep`, to the bit.
+        ``exo_torque`` is either the robot's joint torque (nv,) [N m], held
+        over all the substeps, or an actuator (:class:`sim.actuators.Actuators`,
+        anything with ``substep(q, v, dt_s)``), asked before every substep for
+        the torque it applies over it given the robot's state then.  The
+        human's torque ``tau_human_Nm`` (nv,) [N m] is held over all of them.
+        """
+        if not (isinstance(n_substeps, (int, np.integer)) and n_substeps >= 1):
+            raise SandboxError(f"CoupledPlant.advance: n_substeps must be an integer >= 1, got {n_substeps!r}")
+        actuator = getattr(exo_torque, "substep", None)
+        tau_held = None if actuator is not None else np.asarray(exo_torque, dtype=float)
+        if self._pair:
+            self._advance_pair(actuator, tau_held, tau_human_Nm, dt_s, n_substeps)
+            return
+        has_exo, has_human = self.has_exo, self.has_human
+        me, mh, de, dh = self.exo.model, self.human.model, self._de, self._dh
+        fext_e, fext_h, vh_e, vh_h = self._fext_e, self._fext_h, self._vh_e, self._vh_h
+        friction = self.params.exo_friction
+        smoothing = self.params.coulomb_smoothing_rad_s
+        aba, integrate = pin.aba, pin.integrate
+        for _ in range(n_substeps):
+            tau = actuator(self.q_exo, self.v_exo, dt_s) if actuator is not None else tau_held
+            if not self._cuffs_fresh:  # also writes the cuff wrenches into the joint-frame forces aba reads
+                self._refresh_cuffs()
+            if has_exo:
+                if friction:  # tau - b v - tau_c tanh(v / v_s) (PlantParams)
+                    _friction_torque(tau, self.v_exo, self._damping, self._coulomb, smoothing, self._tau_e)
+                    tau = self._tau_e
+                a = aba(me, de, self.q_exo, self.v_exo, tau, fext_e)  # a new array: it becomes v
+                _euler_velocity(a, self.v_exo, dt_s, vh_e)
+                self.v_exo = a
+                self.q_exo = integrate(me, self.q_exo, vh_e)
+                self._cuffs_fresh = False
+            if has_human:
+                a = aba(mh, dh, self.q_human, self.v_human, tau_human_Nm, fext_h)
+                _euler_velocity(a, self.v_human, dt_s, vh_h)
+                self.v_human = a
+                self.q_human = integrate(mh, self.q_human, vh_h)
+                self._cuffs_fresh = False
+
+    def _advance_pair(self, actuator, tau_held, tau_human_Nm, dt_s: float, n_substeps: int) -> None:
+        """:meth:`advance` of both arms at once, on the pair model."""
+        m, d, fext, vh, tau_all, tau_e = self._m, self._d, self._fext, self._vh, self._tau, self._tau_e
+        friction = self.params.exo_friction
+        smoothing = self.params.coulomb_smoothing_rad_s
+        aba, integrate = pin.aba, pin.integrate
+        self._tau_h[:] = tau_human_Nm  # held over all the substeps
+        for _ in range(n_substeps):
+            tau = actuator(self.q_exo, self.v_exo, dt_s) if actuator is not None else tau_held
+            if not self._cuffs_fresh:  # also writes the cuff wrenches into the joint-frame forces aba reads
+                self._refresh_cuffs()
+            if friction:  # tau - b v - tau_c tanh(v / v_s) (PlantParams), on the robot's joints
+                _friction_torque(tau, self._v, self._damping, self._coulomb, smoothing, tau_e)
+            else:
+                tau_e[:] = tau
+            a = aba(m, d, self._q, self._v, tau_all, fext)  # a new array: it becomes v
+            _euler_velocity(a, self._v, dt_s, vh)
+            self._v = a
+            self._q = integrate(m, self._q, vh)
             self._cuffs_fresh = False
 
     # -- energy ------------------------------------------------------------------------
@@ -634,9 +773,58 @@ def _first_nonfinite(a, b, c, d):
 
 @numba.njit(cache=True)
 def _friction_torque(tau, v, damping, coulomb, smoothing, out):
-    """Joint torque plus friction, :math:`\\tau - b v - \\tau_c \\tanh(v / v_s)` (PlantParams), into out."""
-    for i in range(v.shape[0]):
+    """Joint torque plus friction, :math:`\\tau - b v - \\tau_c \\tanh(v / v_s)` (PlantParams), into out.
+
+    On the first ``len(out)`` joints (v may hold more: the pair model's velocity, the robot's first).
+    """
+    for i in range(out.shape[0]):
         out[i] = tau[i] + (-damping[i] * v[i] - coulomb[i] * math.tanh(v[i] / smoothing))
+
+
+@numba.njit(cache=True)
+def _euler_velocity(a, v, h, vh):
+    """The semi-implicit Euler velocity :math:`v_+ = v + h a` into ``a`` (in place), and ``vh`` = :math:`h v_+`.
+
+    The operations of ``a *= h; a += v; vh = a * h`` in numpy, in that order (the module docstring's scheme).
+    """
+    for i in range(a.shape[0]):
+        a[i] = a[i] * h + v[i]
+        vh[i] = a[i] * h
+
+
+def _pair_model(exo: pin.Model, human: pin.Model) -> pin.Model | None:
+    """One model of both arms, the human's tree appended at the universe (``pinocchio.appendModel``).
+
+    The robot's joints come first, then the human's; the armature, which appendModel leaves at zero, is
+    the two arms' own.  The articulated-body algorithm's passes run joint by joint over each tree
+    (Featherstone 2008, ch. 7), so the pair's forward kinematics, aba and integrate do the two arms'
+    arithmetic.  Checked here on one seeded state: if the pair's accelerations and configuration update
+    differ by a bit from the two arms' (another pinocchio), returns None and the plant steps two models.
+    """
+    pair = pin.appendModel(exo, human, 0, pin.SE3.Identity())
+    if not (pair.nq == exo.nq + human.nq and pair.nv == exo.nv + human.nv
+            and pair.njoints == exo.njoints + human.njoints - 1):
+        return None
+    pair.armature[:] = np.concatenate((np.asarray(exo.armature), np.asarray(human.armature)))
+    rng = np.random.default_rng(0)
+    parts = []
+    for model in (exo, human):
+        q = pin.normalize(model, rng.uniform(-1.0, 1.0, size=model.nq))
+        v, tau = rng.normal(size=model.nv), rng.normal(size=model.nv)
+        f = pin.StdVec_Force()
+        for _ in range(model.njoints):
+            f.append(pin.Force(rng.normal(size=6)))
+        parts.append((model, q, v, tau, f))
+    (_, qe, ve, te, fe), (_, qh, vh, th, fh) = parts
+    f_pair = pin.StdVec_Force()
+    for f in list(fe) + list(fh)[1:]:
+        f_pair.append(f)
+    q, v = np.concatenate((qe, qh)), np.concatenate((ve, vh))
+    a_two = np.concatenate([pin.aba(m, m.createData(), q_, v_, t_, f_) for m, q_, v_, t_, f_ in parts])
+    a_pair = pin.aba(pair, pair.createData(), q, v, np.concatenate((te, th)), f_pair)
+    q_two = np.concatenate([pin.integrate(m, q_, v_) for m, q_, v_, _, _ in parts])
+    same = np.array_equal(a_pair, a_two) and np.array_equal(pin.integrate(pair, q, v), q_two)
+    return pair if same else None
 
 
 def _records(items: list[np.ndarray], width: int, what: str) -> np.ndarray:

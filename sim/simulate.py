@@ -241,9 +241,7 @@ def simulate(
                 row["cuff_wrench_human"] = plant.wrench_on_human
                 row["cuff_wrench_meas"] = meas_wrench
             log.append(**row)
-            for _ in range(n_sub):
-                tau_e = actuators.substep(plant.q_exo, plant.v_exo, h) if controller is not None else zero_e
-                plant.substep(tau_e, tau_h, h)
+            plant.advance(actuators if controller is not None else zero_e, tau_h, h, n_sub)  # lag alongside
             bad = plant.state_is_finite()
             tick_times[k] = time.perf_counter() - t0
             if bad is not None:
