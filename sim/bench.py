@@ -15,6 +15,11 @@ machines differ).  Cases:
   wall time, as in ``metrics.json``).  A 0.05 s run before it loads (on a
   fresh install, compiles) the numba kernels once per process, so these are
   steady-state ticks; its wall time is ``warmup_s``.
+* **Where the time goes**: a separate, instrumented run of the same case (at
+  most 3 s) gives the mean own time per tick of each stage of the loop
+  (plant, actuators, sensing, the controller's model terms, its task rows
+  and solve, the wearer's motor, logging, the rest): ``tick_breakdown_us``
+  (:func:`tick_breakdown`).
 * **Against cvxpy**: the measurements of the reference run are replayed; on a
   sample of ticks the same stack is solved level by level with cvxpy
   (:func:`solve_levels_cvxpy`, the lexicographic formulation of Kanoun,
@@ -208,6 +213,90 @@ def tick_statistics(folder: str | Path, dt_s: float) -> dict:
         "hqp_solve_p99_us": None if solve is None else float(np.percentile(solve, 99) * 1e6),
         "realtime_factor": float(len(tick) * dt_s / np.sum(tick)),
     }
+    return out
+
+
+# --------------------------------------------------------------------------------------------
+# where the time of a tick goes
+
+#: Stages of the control tick and the methods whose own time (without the nested stages) each one counts.
+TICK_STAGES: dict[str, tuple[tuple[str, str, str], ...]] = {
+    "plant": (("sim.plant", "CoupledPlant", "advance"), ("sim.plant", "CoupledPlant", "update_cuffs"),
+              ("sim.plant", "CoupledPlant", "hand_position"), ("sim.plant", "CoupledPlant", "state_is_finite")),
+    "actuators": (("sim.actuators", "TorqueSourceActuators", "hold"),
+                  ("sim.actuators", "TorqueSourceActuators", "substep")),
+    "sensing": (("sim.sensors", "JointSensing", "measure"), ("sim.sensors", "ForceTorqueSensor", "measure")),
+    "controller model terms": (("controllers.tasks._common", "TickState", "update"),),
+    "controller rows and solve": (("controllers.hqp_controller", "HQPController", "step"),),
+    "wearer's motor": (("sim.human", "HumanMotor", "torque"),),
+    "logging": (("sim.runlog", "RunLog", "append"),),
+}
+
+
+class _StageClock:
+    """Own time per stage: a call's wall time less that of the stages it calls (as a profiler's own time)."""
+
+    def __init__(self) -> None:
+        self.totals = dict.fromkeys(TICK_STAGES, 0.0)
+        self._stack: list[list] = []  # [stage, start, time of nested stages]
+
+    def wrap(self, stage: str, fn):
+        import functools
+
+        @functools.wraps(fn)
+        def timed(*args, **kwargs):
+            frame = [stage, time.perf_counter(), 0.0]
+            self._stack.append(frame)
+            try:
+                return fn(*args, **kwargs)
+            finally:
+                elapsed = time.perf_counter() - frame[1]
+                self._stack.pop()
+                self.totals[stage] += elapsed - frame[2]
+                if self._stack:
+                    self._stack[-1][2] += elapsed
+
+        return timed
+
+
+def tick_breakdown(scenario: Scenario, folder: str | Path, controller: str = "walls") -> dict:
+    """Mean wall time per control tick of each stage of the loop [µs], from one instrumented run.
+
+    The methods of :data:`TICK_STAGES` are wrapped, for this run only, by a
+    timer that keeps each stage's own time; ``"rest of the loop"`` is the
+    mean tick less the stages (building the measurement and the log row,
+    the loop itself, and the timers: about a microsecond per timed call).
+    Means, so that the stages add up to the mean tick; the tick median of an
+    instrumented run is not the bench's figure (that is the reference run).
+    """
+    import importlib
+
+    clock = _StageClock()
+    per_tick = {stage: [] for stage in TICK_STAGES}
+    last = dict.fromkeys(TICK_STAGES, 0.0)
+
+    def progress(_done: int, _total: int) -> None:
+        for stage, total in clock.totals.items():
+            per_tick[stage].append(total - last[stage])
+            last[stage] = total
+
+    originals = []
+    try:
+        for stage, methods in TICK_STAGES.items():
+            for module, cls_name, attr in methods:
+                cls = getattr(importlib.import_module(module), cls_name)
+                fn = cls.__dict__[attr]
+                originals.append((cls, attr, fn))
+                setattr(cls, attr, clock.wrap(stage, fn))
+        simulate(scenario, controller, folder, progress=progress)
+    finally:
+        for cls, attr, fn in reversed(originals):
+            setattr(cls, attr, fn)
+    with np.load(Path(folder) / "timing.npz", allow_pickle=False) as f:
+        tick = f["tick_time_s"]
+    out = {stage: float(np.mean(v) * 1e6) for stage, v in per_tick.items()}
+    out["rest of the loop"] = float(np.mean(tick) * 1e6) - sum(out.values())
+    out["tick (mean, instrumented)"] = float(np.mean(tick) * 1e6)
     return out
 
 
@@ -451,6 +540,8 @@ def compare_backends(scenario: Scenario, folder: str | Path, ticks: int) -> dict
 
 #: simulated time of the warm-up run before the reference case [s]
 WARMUP_S = 0.05
+#: Longest instrumented run of the tick breakdown [s].
+BREAKDOWN_MAX_S = 3.0
 
 #: the row of :func:`compare_backends` with the levels solved in Python instead of the compiled kernel
 PYTHON_LEVELS = "python"
@@ -644,6 +735,9 @@ def run_bench(scenario_path: str | Path, params: BenchParams | None = None, *, w
         report["reference_wall_s"] = time.perf_counter() - t0
         say(f"reference: tick median {report['tick_time_median_us']:.0f} us, "
             f"HQP median {report['hqp_solve_median_us']:.0f} us")
+        report["tick_breakdown_us"] = tick_breakdown(
+            dataclasses.replace(ref, duration_s=min(params.reference_duration_s, BREAKDOWN_MAX_S)), work / "breakdown")
+        say("breakdown: " + ", ".join(f"{k} {v:.0f} us" for k, v in report["tick_breakdown_us"].items()))
         try:
             report |= compare_cvxpy(ref, ref_dir, params.compare_ticks, params.agreement_tol_Nm)
             say(f"cvxpy: speedup {report['cvxpy_speedup']:.0f}x")
@@ -698,6 +792,11 @@ def format_report(report: dict) -> str:
         lines.append(f"  cvxpy on {r['cvxpy_ticks']} ticks: median {r['cvxpy_solve_median_us']:.0f} us against "
                      f"{r['hqp_solve_median_same_ticks_us']:.0f} us, largest torque difference "
                      f"{r['cvxpy_max_torque_diff_Nm']:.2g} N m")
+    if r.get("tick_breakdown_us"):
+        lines += ["", f"{'stage of the tick':<30} {'mean us':>10}"]
+        for stage, us in r["tick_breakdown_us"].items():
+            lines.append(f"{stage:<30} {us:>10.1f}")
+        lines.append("  (own time per stage in a separate instrumented run: sim.bench.tick_breakdown)")
     lines += ["", f"{'backend':<10} {'median us':>10} {'p99 us':>10} {'max |dtau| to default N m':>28}"]
     for name, b in r["backends"].items():
         if "error" in b:

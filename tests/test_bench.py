@@ -5,6 +5,9 @@
   default).
 * The replay of a run's logged measurements reproduces the logged torques bit
   for bit (the benchmark's comparisons really run on the run's ticks).
+* The tick breakdown's stages add up to the mean tick of its timing file
+  (an identity of the own-time accounting), and the instrumented run logs
+  the same numbers as an uninstrumented one (the timers change nothing).
 * The level-by-level cvxpy formulation agrees with our solver on a few ticks
   (cvxpy with Clarabel as the independent optimiser).
 """
@@ -26,6 +29,7 @@ from sim.bench import (
     level_stacks,
     measurements_from_run,
     replay,
+    tick_breakdown,
     tick_statistics,
 )
 from sim.cli import main
@@ -105,3 +109,21 @@ def test_bad_bench_parameters_name_the_field(kwargs, field):
 def test_bench_command_names_a_missing_scenario_file(tmp_path, capsys):
     assert main(["bench", "--quick", "--scenario", str(tmp_path / "nope.py")]) == 1
     assert "nope.py" in capsys.readouterr().err
+
+
+def test_tick_breakdown_stages_add_up_to_the_mean_tick_and_change_no_number(short_wall_run, tmp_path):
+    import sim.plant
+
+    sc, folder = short_wall_run
+    advance = sim.plant.CoupledPlant.__dict__["advance"]
+    out = tick_breakdown(sc, tmp_path / "instrumented")
+    assert sim.plant.CoupledPlant.__dict__["advance"] is advance  # the timers are removed afterwards
+    stages = [k for k in out if k not in ("rest of the loop", "tick (mean, instrumented)")]
+    assert len(stages) == 7 and all(out[k] > 0 for k in stages)
+    with np.load(tmp_path / "instrumented" / "timing.npz") as f:
+        mean_tick_us = float(np.mean(f["tick_time_s"]) * 1e6)
+    assert sum(out[k] for k in stages) + out["rest of the loop"] == pytest.approx(mean_tick_us, rel=1e-9)
+    assert out["tick (mean, instrumented)"] == pytest.approx(mean_tick_us, rel=1e-12)
+    plain, timed = load_run(folder), load_run(tmp_path / "instrumented")
+    for name in plain.arrays:
+        np.testing.assert_array_equal(timed[name], plain[name], err_msg=name)
