@@ -395,8 +395,9 @@ class RunLog:
     being written by the writer thread; see the module docstring).
     :meth:`append` (by name) and :meth:`append_row` (by position, the cheaper
     per-tick call) copy each value into its row; ndarray inputs of the
-    column's shape and dtype are not converted.  As a context manager the log closes itself: ``"complete"`` on
-    normal exit, ``"failed"`` on an exception, ``"interrupted"`` on
+    column's shape and dtype are not converted.  As a context manager the
+    log closes itself: ``"complete"`` on normal exit, ``"failed"`` on an
+    exception, ``"interrupted"`` on
     ``KeyboardInterrupt`` (or another non-``Exception`` such as ``SystemExit``);
     the exception is re-raised.
 
