@@ -108,14 +108,14 @@ class HumanMotor:
         self.K = np.array([g[0]] * extra + list(self.motor.stiffness_Nm_per_rad))
         self.B = np.array([g[1]] * extra + list(self.motor.damping_Nm_s_per_rad))
         self._limit = arm.model.effortLimit.copy()
+        self._nv = int(arm.model.nv)
         #: Intended posture used by the last :meth:`torque` call [rad].
         self.last_desired_q = np.zeros(arm.nq)
 
     def desired(self, t_s: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Intended (q, dq, ddq) of every joint of the model at ``t_s``."""
-        q, dq, ddq = self.intent.at(t_s)
         if not self.params.girdle:
-            return q, dq, ddq
+            return self.intent.at(t_s)
         h = self._FD_STEP_S
         qm, q0, qp = (girdle_posture(self.params, self.intent.at(t_s + k * h)[0]) for k in (-1, 0, 1))
         return q0, (qp - qm) / (2 * h), (qp - 2 * q0 + qm) / h**2
@@ -124,17 +124,16 @@ class HumanMotor:
         """Joint torques (nv,) [N m] at time ``t_s`` and state (q, v)."""
         qd, dqd, ddqd = self.desired(t_s)
         self.last_desired_q = qd
-        m = self.motor
+        model, data, m = self._model, self._data, self.motor
         if m.inertial_feedforward and m.gravity_feedforward:
-            ff = pin.rnea(self._model, self._data, qd, dqd, ddqd)
+            ff = pin.rnea(model, data, qd, dqd, ddqd)
         elif m.gravity_feedforward:
-            ff = pin.computeGeneralizedGravity(self._model, self._data, qd)
+            ff = pin.computeGeneralizedGravity(model, data, qd)
         elif m.inertial_feedforward:
-            ff = pin.rnea(self._model, self._data, qd, dqd, ddqd) - pin.computeGeneralizedGravity(
-                self._model, self._data, qd)
+            ff = pin.rnea(model, data, qd, dqd, ddqd) - pin.computeGeneralizedGravity(model, data, qd)
         else:
-            ff = np.zeros(self._model.nv)
-        tau = np.empty(self._model.nv)
-        _impedance_torque(ff, self.K, pin.difference(self._model, q, qd), self.B, dqd, np.asarray(v, dtype=float),
+            ff = np.zeros(self._nv)
+        tau = np.empty(self._nv)
+        _impedance_torque(ff, self.K, pin.difference(model, q, qd), self.B, dqd, np.asarray(v, dtype=float),
                           self._limit, tau)
         return tau

@@ -20,6 +20,7 @@ from bisect import bisect_right
 from collections.abc import Sequence
 from dataclasses import dataclass
 
+import numba
 import numpy as np
 
 from models._checks import nonnegative, positive, vector
@@ -58,6 +59,34 @@ def _mj_eval(
     dq = D * (ds / T)
     ddq = D * (dds / (T * T))
     return q, dq, ddq
+
+
+@numba.njit(cache=True)
+def _mj_rows(q0, D, s, ds_per_T, dds_per_T2, out):
+    """The vector part of :func:`_mj_eval` at one time, into the rows of ``out`` (3, n).
+
+    ``out[0] = q0 + D s``, ``out[1] = D (ds / T)``, ``out[2] = D (dds / T^2)``: the same operations in the same
+    order as the Python reference :func:`_mj_eval`, so the values are the same bit for bit.
+    """
+    for i in range(D.shape[0]):
+        out[0, i] = q0[i] + D[i] * s
+        out[1, i] = D[i] * ds_per_T
+        out[2, i] = D[i] * dds_per_T2
+
+
+def _mj_at(q0: np.ndarray, D: np.ndarray, T: float, t: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`_mj_eval` at one time ``t`` [s] (a float): the scalar profile in Python, the rows compiled.
+
+    Returns three rows of one new (3, n) array; bit-identical to :func:`_mj_eval` (tests compare them).
+    """
+    tau = min(max(t / T, 0.0), 1.0)
+    t2 = tau * tau
+    s = t2 * tau * (10.0 + tau * (-15.0 + 6.0 * tau))  # 10 tau^3 - 15 tau^4 + 6 tau^5
+    ds = 30.0 * t2 * (1.0 - tau) ** 2  # 30 tau^2 - 60 tau^3 + 30 tau^4
+    dds = 60.0 * tau * (1.0 - tau) * (1.0 - 2.0 * tau)  # 60 tau - 180 tau^2 + 120 tau^3
+    out = np.empty((3, D.shape[0]))
+    _mj_rows(q0, D, s, ds / T, dds / (T * T), out)
+    return out[0], out[1], out[2]
 
 
 def minimum_jerk(
@@ -161,7 +190,9 @@ class JointIntent:
     Notes
     -----
     Segment start times are precomputed, so :meth:`at` costs one bisection
-    and one polynomial evaluation (it runs every control tick).  A hold is
+    and one polynomial evaluation (it runs every control tick; its joint
+    rows are one compiled call, :func:`_mj_rows`, checked against the
+    Python reference :func:`_mj_eval` that :meth:`sample` uses).  A hold is
     evaluated as a minimum-jerk "move" of zero amplitude, which is constant.
     """
 
@@ -215,6 +246,9 @@ class JointIntent:
             add(v.move_s, q, target - q)
             add(v.hold_s, target, zero)
             q = target
+        # writable copies for the compiled rows of at() (numba: a read-only array is another, slower signature)
+        object.__setattr__(self, "_q_from_rows", [a.copy() for a in q_from])
+        object.__setattr__(self, "_amplitude_rows", [a.copy() for a in amplitude])
         for arr in (*q_from, *amplitude, q):
             arr.setflags(write=False)
         object.__setattr__(self, "_starts", starts)
@@ -257,7 +291,7 @@ class JointIntent:
             z = np.zeros(q.shape)
             return q.copy(), z, z.copy()
         i = bisect_right(self._starts, t) - 1
-        return _mj_eval(self._q_from[i], self._amplitude[i], self._durations[i], t - self._starts[i])
+        return _mj_at(self._q_from_rows[i], self._amplitude_rows[i], self._durations[i], t - self._starts[i])
 
     def sample(self, t_s: Sequence[float] | np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Evaluate :meth:`at` on a time grid, vectorised.

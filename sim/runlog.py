@@ -82,7 +82,7 @@ import subprocess
 import threading
 import zipfile
 import zlib
-from collections.abc import Mapping
+from collections.abc import Collection, Iterable, Mapping
 from dataclasses import dataclass, field
 from importlib import import_module
 from importlib import metadata as importlib_metadata
@@ -201,6 +201,20 @@ def _parse_column(name: Any, spec: Any) -> _Column:
     )
     shape, dtype = (spec[0], _parse_dtype(name, spec[1])) if is_pair else (spec, np.dtype(np.float64))
     return _Column(_parse_shape(name, shape), dtype, "xor_shuffle" if _word_bytes(dtype) else "raw")
+
+
+def _converted(name: str, col: _Column, value: Any) -> np.ndarray:
+    """``value`` as an array to store into column ``col``, or a RunLogError naming the column.
+
+    It must have the column's shape and a dtype that casts to the column's within its kind
+    (``numpy.can_cast(..., casting="same_kind")``).
+    """
+    arr = np.asarray(value)
+    if arr.shape != col.shape:
+        raise RunLogError(f"column {name!r} expects shape {col.shape}, got {arr.shape}")
+    if not np.can_cast(arr.dtype, col.dtype, casting="same_kind"):
+        raise RunLogError(f"column {name!r} has dtype {col.dtype.name}, cannot store a {arr.dtype.name} value")
+    return arr
 
 
 def _columns_from_meta(meta: Mapping[str, Any], where: str, version: int) -> dict[str, _Column]:
@@ -379,9 +393,11 @@ class RunLog:
     -----
     Memory: two buffers of ``chunk_ticks`` rows per column (one filling, one
     being written by the writer thread; see the module docstring).
-    :meth:`append` copies each value into its row and allocates nothing else
-    for ndarray inputs.  As a context manager the log closes itself: ``"complete"`` on
-    normal exit, ``"failed"`` on an exception, ``"interrupted"`` on
+    :meth:`append` (by name) and :meth:`append_row` (by position, the cheaper
+    per-tick call) copy each value into its row; ndarray inputs of the
+    column's shape and dtype are not converted.  As a context manager the
+    log closes itself: ``"complete"`` on normal exit, ``"failed"`` on an
+    exception, ``"interrupted"`` on
     ``KeyboardInterrupt`` (or another non-``Exception`` such as ``SystemExit``);
     the exception is re-raised.
 
@@ -442,6 +458,10 @@ class RunLog:
             for _ in range(2)
         ]
         self._buffers = self._buffer_sets[0]
+        self._buffer_list = list(self._buffers.values())  # the filling buffers in column order
+        # (shape, dtype, is a float scalar) per column: the checks of append_row's common case
+        self._fast_specs = tuple((col.shape, col.dtype, col.shape == () and col.dtype.kind == "f")
+                                 for col in self._columns.values())
         self._job: _ChunkJob | None = None  # the chunk in flight (or whose write failed), at most one
         self._row = 0
         self._ticks = 0
@@ -493,28 +513,63 @@ class RunLog:
                 raise RunLogError(f"unknown column(s) {unknown}; the columns are {list(self._columns)}")
             missing = [n for n in self._columns if n not in values]
             raise RunLogError(f"missing column(s) {missing} in append; every column must be given once per tick")
-        arrays = {}
+        arrays = []
         for name, col in self._columns.items():
             arr = values[name]
-            # the common case first: an array of the column's exact shape and dtype, or a float for a float scalar
-            if type(arr) is np.ndarray and arr.dtype == col.dtype and arr.shape == col.shape:
-                arrays[name] = arr
+            # the common case as it is: an array of the column's exact shape and dtype, or a float for a float scalar
+            if not ((type(arr) is np.ndarray and arr.dtype == col.dtype and arr.shape == col.shape)
+                    or (type(arr) is float and col.shape == () and col.dtype.kind == "f")):
+                arr = _converted(name, col, arr)
+            arrays.append(arr)
+        self._store(arrays)
+
+    def append_row(self, values: Collection[Any], /) -> None:
+        """Append one tick given by position: one value per column, in the order of :attr:`column_names`.
+
+        The per-tick path of a simulation loop: the same checks and the same
+        stored values as :meth:`append`, without naming every column in a
+        keyword dictionary.
+
+        Parameters
+        ----------
+        values : sized iterable of array_like
+            ``len(column_names)`` values in column order (a list, a tuple, or
+            the ``values()`` of a dict whose keys are the columns in that
+            order, e.g. one made by ``dict.fromkeys(log.column_names)``).
+            Each value as for :meth:`append`.
+
+        Raises
+        ------
+        RunLogError
+            If the number of values differs from the number of columns; naming
+            the column, if a value has the wrong shape or an incompatible
+            dtype; or if the log is closed.  On error nothing of this tick is
+            stored.
+        """
+        if self._closed:
+            raise RunLogError(f"run log {str(self._folder)!r} is closed; cannot append")
+        if len(values) != len(self._columns):
+            raise RunLogError(f"append_row takes one value per column, {len(self._columns)} in the order"
+                              f" {list(self._columns)}; got {len(values)}")
+        for value, (shape, dtype, float_scalar) in zip(values, self._fast_specs):
+            # the common case: an array of the column's exact shape and dtype, or a float for a float scalar
+            if type(value) is np.ndarray:
+                if value.shape == shape and value.dtype == dtype:
+                    continue
+            elif type(value) is float and float_scalar:
                 continue
-            if type(arr) is float and col.shape == () and col.dtype.kind == "f":
-                arrays[name] = arr
-                continue
-            arr = np.asarray(arr)
-            if arr.shape != col.shape:
-                raise RunLogError(f"column {name!r} expects shape {col.shape}, got {arr.shape}")
-            if not np.can_cast(arr.dtype, col.dtype, casting="same_kind"):
-                raise RunLogError(f"column {name!r} has dtype {col.dtype.name}, cannot store a {arr.dtype.name} value")
-            arrays[name] = arr
+            # not all in the common case: check and convert every value as append does
+            values = [_converted(name, col, v) for v, (name, col) in zip(values, self._columns.items())]
+            break
+        self._store(values)
+
+    def _store(self, values: Iterable[Any]) -> None:
+        """Copy one tick of checked values (in column order) into the filling buffers; hand a full chunk over."""
         if self._row == self._chunk_ticks:  # a previous hand-over failed: retry before overwriting
             self._hand_over()
         row = self._row
-        buffers = self._buffers
-        for name, arr in arrays.items():
-            buffers[name][row] = arr
+        for buffer, value in zip(self._buffer_list, values):
+            buffer[row] = value
         self._row += 1
         self._ticks += 1
         if self._row == self._chunk_ticks:
@@ -535,6 +590,7 @@ class RunLog:
         path = self._folder / CHUNK_DIR / _chunk_name(self._chunks)
         self._job = _ChunkJob(path, self._buffers, self._columns, self._row)
         self._buffers = self._buffer_sets[1] if self._buffers is self._buffer_sets[0] else self._buffer_sets[0]
+        self._buffer_list = list(self._buffers.values())
         self._row = 0
 
     def sync(self) -> None:

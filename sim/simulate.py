@@ -197,7 +197,7 @@ def simulate(
         # the very models of the run, for viewers and for reproducing it with any URDF tool
         (folder / "exo.urdf").write_text(plant.exo.urdf, encoding="utf-8")
         (folder / "human.urdf").write_text(plant.human.urdf, encoding="utf-8")
-        row: dict = {}
+        row = dict.fromkeys(log.column_names)  # filled by name, logged by position (append_row: column order)
         tau_cmd = zero_e
         for k in range(n):
             t = k * T
@@ -240,7 +240,7 @@ def simulate(
             if mode == "coupled":
                 row["cuff_wrench_human"] = plant.wrench_on_human
                 row["cuff_wrench_meas"] = meas_wrench
-            log.append(**row)
+            log.append_row(row.values())
             plant.advance(actuators if controller is not None else zero_e, tau_h, h, n_sub)  # lag alongside
             bad = plant.state_is_finite()
             tick_times[k] = time.perf_counter() - t0

@@ -143,6 +143,27 @@ def test_move_segment_equals_the_standalone_minimum_jerk_profile():
         assert np.allclose(got, exp, atol=1e-12)
 
 
+def test_at_equals_the_python_minimum_jerk_bit_for_bit_on_every_segment():
+    # at() computes its joint rows in a compiled kernel; its reference is the closed form of Flash & Hogan
+    # (1985) as evaluated by minimum_jerk (Python, scalar time), segment by segment: the same operations in
+    # the same order, so the same bits (DEVELOPERS.md: each kernel against its Python reference).
+    segments = [(START, START, 0.3), (START, (0.5, -0.3), 0.8), ((0.5, -0.3), (0.5, -0.3), 0.25),
+                ((0.5, -0.3), (0.1, 0.6), 0.5)]  # (from, to, duration [s]) of INTENT: hold, move, hold, move
+    start_s, checked = 0.0, 0
+    for q_from, q_to, duration_s in segments:
+        for t in start_s + np.linspace(0.0, duration_s, 157, endpoint=False)[1:]:
+            t = float(t)
+            expected = minimum_jerk(q_from, q_to, duration_s, t - start_s)
+            for got, exp in zip(INTENT.at(t), expected):
+                assert got.tobytes() == exp.tobytes(), (t, got, exp)
+            checked += 1
+        start_s += duration_s
+    assert checked == 4 * 156
+    q, v, a = INTENT.at(0.7)  # the rows are new arrays: writing them changes nothing in the intent
+    q[:], v[:], a[:] = 9.0, 9.0, 9.0
+    assert all(np.array_equal(x, y) for x, y in zip(INTENT.at(0.7), minimum_jerk(START, (0.5, -0.3), 0.8, 0.7 - 0.3)))
+
+
 def test_sample_matches_at_on_a_grid_including_outside_times():
     t = np.concatenate([np.linspace(-0.2, 2.2, 241), np.array(BOUNDARIES)])
     Q, dQ, ddQ = INTENT.sample(t)

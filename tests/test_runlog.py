@@ -209,6 +209,55 @@ def test_bad_append_names_the_column_and_stores_nothing(tmp_path, values, match)
     assert np.array_equal(load_run(tmp_path / "run")["t"], [1.0])
 
 
+def test_append_row_writes_the_same_files_as_append(tmp_path):
+    # Reference: the keyword path append (its round trip is checked above against the data appended).  The
+    # rows mix the common case (exact-shape arrays, Python floats) with values append converts (a numpy
+    # integer scalar, lists, an int array into a float column), over several chunks and a partial one.
+    ticks = _ticks(250, seed=4)
+    ticks[7] = {**ticks[7], "q_exo": ticks[7]["q_exo"].tolist(), "sat": ticks[7]["sat"].tolist()}
+    ticks[8] = {**ticks[8], "t": np.float64(ticks[8]["t"]), "cuff_wrench_true": np.arange(18).reshape(3, 6)}
+    with RunLog(tmp_path / "kw", COLUMNS, chunk_ticks=100) as log:
+        for tick in ticks:
+            log.append(**tick)
+    with RunLog(tmp_path / "pos", COLUMNS, chunk_ticks=100) as log:
+        row = dict.fromkeys(log.column_names)
+        for i, tick in enumerate(ticks):
+            row.update(tick)
+            log.append_row(row.values() if i % 2 else [row[name] for name in COLUMNS])
+    files = _chunk_files(tmp_path / "kw")
+    assert files == _chunk_files(tmp_path / "pos") and len(files) == 3
+    for f in [*("log/" + f for f in files), "meta.json"]:
+        assert (tmp_path / "kw" / f).read_bytes() == (tmp_path / "pos" / f).read_bytes(), f
+    assert np.array_equal(load_run(tmp_path / "pos")["cuff_wrench_true"][8], np.arange(18.0).reshape(3, 6))
+
+
+@pytest.mark.parametrize(
+    ("values", "match"),
+    [
+        ([0.0, np.zeros(6), np.zeros(7, dtype=bool)], "column 'q' expects shape \\(7,\\), got \\(6,\\)"),
+        ([0.0, np.zeros((7, 1)), np.zeros(7, dtype=bool)], "column 'q' expects shape \\(7,\\), got \\(7, 1\\)"),
+        ([np.zeros(1), np.zeros(7), np.zeros(7, dtype=bool)], "column 't' expects shape \\(\\), got \\(1,\\)"),
+        ([0.0, 1.0, np.zeros(7, dtype=bool)], "column 'q' expects shape \\(7,\\), got \\(\\)"),
+        ([0.0, np.zeros(7), np.full(7, 0.5)], "column 'sat' has dtype bool"),
+        ([0.0, np.zeros(7)], "append_row takes one value per column, 3 in the order \\['t', 'q', 'sat'\\]; got 2"),
+        ([0.0, np.zeros(7), np.zeros(7, dtype=bool), 1.0], "3 in the order .*; got 4"),
+    ],
+    ids=["wrong-shape", "extra-axis", "array-for-scalar", "scalar-for-vector", "float-into-bool", "too-few",
+         "too-many"],
+)
+def test_bad_append_row_names_the_column_and_stores_nothing(tmp_path, values, match):
+    # The same checks as append (test_bad_append_names_the_column_and_stores_nothing), by position.
+    log = RunLog(tmp_path / "run", {"t": (), "q": (7,), "sat": ((7,), bool)}, chunk_ticks=2)
+    with pytest.raises(RunLogError, match=match):
+        log.append_row(values)
+    assert log.ticks == 0
+    log.append_row((1.0, np.ones(7), np.ones(7, dtype=bool)))
+    log.close()
+    assert np.array_equal(load_run(tmp_path / "run")["t"], [1.0])
+    with pytest.raises(RunLogError, match="closed"):
+        log.append_row((2.0, np.ones(7), np.ones(7, dtype=bool)))
+
+
 def test_run_log_error_is_a_sandbox_error():
     assert issubclass(RunLogError, SandboxError) and issubclass(RunLogError, RuntimeError)
 
