@@ -229,7 +229,7 @@ TICK_STAGES: dict[str, tuple[tuple[str, str, str], ...]] = {
     "controller model terms": (("controllers.tasks._common", "TickState", "update"),),
     "controller rows and solve": (("controllers.hqp_controller", "HQPController", "step"),),
     "wearer's motor": (("sim.human", "HumanMotor", "torque"),),
-    "logging": (("sim.runlog", "RunLog", "append"),),
+    "logging": (("sim.runlog", "RunLog", "append_row"), ("sim.runlog", "RunLog", "append")),
 }
 
 
