@@ -130,7 +130,7 @@ class HQPController(Controller):
 
     def diagnostic_names(self) -> tuple[str, ...]:
         p = range(len(self.levels))
-        return (("solve_time_s", "fallback", "active_rows") + tuple(f"residual_{i}" for i in p)
+        return (("solve_time_s", "rows_time_s", "fallback", "active_rows") + tuple(f"residual_{i}" for i in p)
                 + tuple(f"level_{i}_time_s" for i in p))
 
     def diagnostics(self):
@@ -207,6 +207,7 @@ class HQPController(Controller):
         s.update(measurement)
         n = s.nv
         t0 = time.perf_counter()
+        t_solve = None  # when the hierarchical solve started (after the task rows and the stack)
         rows = 0
         p = len(self.levels)
         try:
@@ -221,6 +222,7 @@ class HQPController(Controller):
                 entries.append(([(np.concatenate((self._eye, M)), np.concatenate((self._zero, -c)), 1.0)], ()))
                 stack = LevelStack.from_entries(entries, n, self._stack_names)
                 self._check_finite(stack)
+                t_solve = time.perf_counter()
                 res = solve_hierarchy(stack, n, self.solver, hard=hard, warm_start=self._prev, params=self.params)
                 tau = np.minimum(np.maximum(M @ res.x + c, -self._tau_max), self._tau_max)
             else:
@@ -229,6 +231,7 @@ class HQPController(Controller):
                 entries, rows = self._task_entries(s, None)
                 stack = LevelStack.from_entries(entries, 2 * n, self._level_names)
                 self._check_finite(stack)
+                t_solve = time.perf_counter()
                 res = solve_hierarchy(stack, 2 * n, self.solver, hard=hard, lb=self._lb, ub=self._ub,
                                       warm_start=self._prev, params=self.params)
                 tau = np.asarray(res.x[n:], dtype=float)
@@ -248,7 +251,11 @@ class HQPController(Controller):
             residuals = [np.nan] * p
             level_times = [np.nan] * p
         d = self._diag
-        d["solve_time_s"] = time.perf_counter() - t0
+        t_end = time.perf_counter()
+        if t_solve is None:  # the rows failed: no solve this tick
+            d["rows_time_s"], d["solve_time_s"] = t_end - t0, math.nan
+        else:
+            d["rows_time_s"], d["solve_time_s"] = t_solve - t0, t_end - t_solve
         d["fallback"] = fallback
         d["active_rows"] = float(rows)
         for i in range(p):

@@ -10,8 +10,10 @@ machines differ).  Cases:
   transparency; damping; minimum-norm regularization) on the wall-push
   scenario.  Per control tick: median and 99th percentile of the wall time of
   the whole tick (plant substeps, sensors, controller, logging) and of the
-  HQP part of the controller (task rows and solve: the ``solve_time_s``
-  diagnostic), and the realtime factor (simulated time over the summed tick
+  HQP solve alone (:func:`controllers.hqp.solve_hierarchy` on the tick's
+  stacked levels: the ``solve_time_s`` diagnostic), the median time the
+  controller's tasks take to give their rows and have them stacked
+  (``rows_time_s``: ``task_rows_median_us``), and the realtime factor (simulated time over the summed tick
   wall time, as in ``metrics.json``).  A 0.05 s run before it loads (on a
   fresh install, compiles) the numba kernels once per process, so these are
   steady-state ticks; its wall time is ``warmup_s``.
@@ -197,20 +199,23 @@ def tick_statistics(folder: str | Path, dt_s: float) -> dict:
     """Tick and HQP solve figures of a run folder's ``timing.npz``.
 
     Returns ``tick_time_median_us``, ``tick_time_p99_us``,
-    ``hqp_solve_median_us``, ``hqp_solve_p99_us`` (None without an HQP
-    controller), ``controller_time_median_us`` and ``realtime_factor``
+    ``hqp_solve_median_us``, ``hqp_solve_p99_us``, ``task_rows_median_us``
+    (None without an HQP controller), ``controller_time_median_us`` and ``realtime_factor``
     :math:`= n\\,\\Delta t / \\sum_k t_k` (simulated over wall time).
     """
     with np.load(Path(folder) / "timing.npz", allow_pickle=False) as f:
         tick = f["tick_time_s"]
         ctrl = f["controller_time_s"]
         solve = f["diag_solve_time_s"] if "diag_solve_time_s" in f.files else None
+        rows = f["diag_rows_time_s"] if "diag_rows_time_s" in f.files else None
     out = {
         "tick_time_median_us": float(np.median(tick) * 1e6),
         "tick_time_p99_us": float(np.percentile(tick, 99) * 1e6),
         "controller_time_median_us": float(np.median(ctrl) * 1e6),
-        "hqp_solve_median_us": None if solve is None else float(np.median(solve) * 1e6),
-        "hqp_solve_p99_us": None if solve is None else float(np.percentile(solve, 99) * 1e6),
+        # a tick whose rows failed has no solve (NaN): left out
+        "hqp_solve_median_us": None if solve is None else float(np.nanmedian(solve) * 1e6),
+        "hqp_solve_p99_us": None if solve is None else float(np.nanpercentile(solve, 99) * 1e6),
+        "task_rows_median_us": None if rows is None else float(np.median(rows) * 1e6),
         "realtime_factor": float(len(tick) * dt_s / np.sum(tick)),
     }
     return out
@@ -473,8 +478,9 @@ def compare_cvxpy(scenario: Scenario, folder: str | Path, ticks: int, agreement_
 
     Both see the same measurements; ours is replayed in order over the
     sampled ticks (warm-starting from the previous sampled tick).  Our time is
-    the ``solve_time_s`` diagnostic (task rows included); cvxpy's is the
-    level-by-level build and solve (task rows excluded).
+    the ``solve_time_s`` diagnostic (the hierarchical solve of the stacked
+    rows); cvxpy's is the level-by-level build and solve; neither includes the
+    tasks' rows.
 
     Raises
     ------
@@ -778,6 +784,7 @@ def format_report(report: dict) -> str:
         f"{'tick_time_p99_us':<34} {_fmt(r['tick_time_p99_us']):>12}",
         f"{'hqp_solve_median_us':<34} {_fmt(r['hqp_solve_median_us']):>12}",
         f"{'hqp_solve_p99_us':<34} {_fmt(r['hqp_solve_p99_us']):>12}",
+        f"{'task_rows_median_us':<34} {_fmt(r.get('task_rows_median_us')):>12}",
         f"{'realtime_factor':<34} {_fmt(r['realtime_factor'], '.2f'):>12}",
         f"{'cvxpy_speedup':<34} {_fmt(r['cvxpy_speedup'], '.0f'):>12}",
         f"{'jobs2_speedup':<34} {_fmt(r['jobs2_speedup'], '.2f'):>12}",

@@ -51,11 +51,19 @@ def short_wall_run(tmp_path_factory):
 def test_tick_statistics_are_the_median_and_99th_percentile_of_the_timing_file(tmp_path):
     tick = np.arange(1, 101) * 1e-6  # 1 .. 100 us
     solve = tick / 2
-    np.savez(tmp_path / "timing.npz", tick_time_s=tick, controller_time_s=solve, diag_solve_time_s=solve)
+    rows = tick / 4
+    np.savez(tmp_path / "timing.npz", tick_time_s=tick, controller_time_s=solve, diag_solve_time_s=solve,
+             diag_rows_time_s=rows)
     st = tick_statistics(tmp_path, 1e-3)
     assert st["tick_time_median_us"] == pytest.approx(50.5)  # mean of the 50th and 51st values
     assert st["tick_time_p99_us"] == pytest.approx(99.01)  # 1 + 0.99 * 99, definition 7
     assert st["hqp_solve_median_us"] == pytest.approx(25.25)
+    assert st["task_rows_median_us"] == pytest.approx(12.625)
+    # a tick whose rows failed has no solve time (NaN): the statistics leave it out
+    solve[-1] = np.nan
+    np.savez(tmp_path / "timing.npz", tick_time_s=tick, controller_time_s=solve, diag_solve_time_s=solve)
+    st = tick_statistics(tmp_path, 1e-3)
+    assert st["hqp_solve_median_us"] == pytest.approx(25.0) and st["task_rows_median_us"] is None
     assert st["realtime_factor"] == pytest.approx(100 * 1e-3 / tick.sum())
 
 
