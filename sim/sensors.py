@@ -16,7 +16,12 @@ Powell & Workman, *Digital Control of Dynamic Systems*, 3rd ed., 1998,
 the chapter on discrete equivalents; chapter from memory).
 
 Randomness comes only from the ``numpy.random.Generator`` passed in.  A
-sensor whose noise standard deviations are all zero never draws from it.
+sensor whose noise standard deviations are all zero never draws from it.  A
+force/torque sensor draws its noise :data:`NOISE_BLOCK_TICKS` ticks at a time
+(a Generator gives the same numbers in the same order drawn in one block as
+drawn one tick at a time), so give each sensor a Generator of its own, as
+:func:`sim.simulate.simulate` does: a stream shared with another consumer
+would be read in a different order.
 
 Both sensors keep preallocated internal buffers; every array they return is
 new, read-only and owns its data, so a controller cannot change the sensor
@@ -41,7 +46,11 @@ from models._checks import nonnegative, positive, vector
 from models.errors import ParameterError
 
 __all__ = ["EncoderParams", "JointSensing", "ForceSensorParams", "ForceTorqueSensor", "ForceSensorBank",
-           "lowpass_alpha"]
+           "NOISE_BLOCK_TICKS", "lowpass_alpha"]
+
+
+#: Ticks of noise a force/torque sensor draws from its Generator at once (the same stream as one draw a tick).
+NOISE_BLOCK_TICKS = 128
 
 
 def lowpass_alpha(cutoff_Hz: float, dt_s: float) -> float:
@@ -129,19 +138,21 @@ def _encoder_tick(q, tau, resolution, dt, alpha, q_prev, dq, q_out, dq_out, tau_
 
 
 @numba.njit(cache=True)
-def _force_tick(w, bias, noise, std, alpha, filtered, y, line, delay, state, out):
+def _force_tick(w, bias, noise, std, alpha, filtered, noisy, y, line, delay, state, out):
     """One force/torque tick in place (:class:`ForceTorqueSensor`): sample, low-pass, delay line.
 
-    :math:`u = w + b + \\sigma \\circ n`.  ``state`` is ``[head, started]``: the first tick after a reset
-    (``started`` 0) starts the filter and fills the delay line with u; later ticks filter
-    :math:`y \\mathrel{+}= \\alpha (u - y)`, or pass u unfiltered if ``filtered`` is false.  The delay line is
-    the first ``delay`` rows of ``line``.  ``out`` gets the output: the delay line's oldest entry (row ``head``,
-    then replaced by y), or y when ``delay`` is 0.
+    :math:`u = w + b + \\sigma \\circ n` with n the row ``pos`` of the block of draws ``noise``.  ``state`` is
+    ``[head, started, pos]``: the first tick after a reset (``started`` 0) starts the filter and fills the delay
+    line with u; later ticks filter :math:`y \\mathrel{+}= \\alpha (u - y)`, or pass u unfiltered if
+    ``filtered`` is false.  The delay line is the first ``delay`` rows of ``line``.  ``out`` gets the output:
+    the delay line's oldest entry (row ``head``, then replaced by y), or y when ``delay`` is 0.  A ``noisy``
+    sensor moves on to the next row of draws; returns whether the block is used up.
     """
     head = state[0]
     started = state[1] != 0
+    r = state[2]
     for i in range(6):
-        u = (w[i] + bias[i]) + noise[i] * std[i]
+        u = (w[i] + bias[i]) + noise[r, i] * std[i]
         if not started:
             y[i] = u
             for j in range(delay):
@@ -158,14 +169,24 @@ def _force_tick(w, bias, noise, std, alpha, filtered, y, line, delay, state, out
     state[1] = 1
     if delay > 0:
         state[0] = (head + 1) % delay
+    if noisy:
+        state[2] = r + 1
+        return r + 1 >= noise.shape[0]
+    return False
 
 
 @numba.njit(cache=True)
-def _force_bank_tick(w, bias, noise, std, alpha, filtered, y, line, delay, state, out):
-    """:func:`_force_tick` for each row i of the stacked arrays (:class:`ForceSensorBank`), in row order."""
+def _force_bank_tick(w, bias, noise, std, alpha, filtered, noisy, y, line, delay, state, out):
+    """:func:`_force_tick` for each row k of the stacked arrays (:class:`ForceSensorBank`), in row order.
+
+    Returns whether a sensor has used up its block of draws.
+    """
+    used_up = False
     for k in range(w.shape[0]):
-        _force_tick(w[k], bias[k], noise[k], std[k], alpha[k], filtered[k], y[k], line[k], delay[k], state[k],
-                    out[k])
+        if _force_tick(w[k], bias[k], noise[k], std[k], alpha[k], filtered[k], noisy[k], y[k], line[k], delay[k],
+                       state[k], out[k]):
+            used_up = True
+    return used_up
 
 
 @dataclass(frozen=True)
@@ -385,7 +406,8 @@ class ForceTorqueSensor:
     dt_s : float [s]
         Control tick, > 0.
     rng : numpy.random.Generator
-        Source of the noise.
+        Source of the noise, drawn :data:`NOISE_BLOCK_TICKS` ticks ahead: the
+        sensor's own.
 
     Notes
     -----
@@ -409,10 +431,12 @@ class ForceTorqueSensor:
         self._noisy = bool(np.any(self._std > 0.0))
         self._filtered = params.cutoff_Hz is not None
         self._delay = params.delay_ticks
-        self._noise = np.zeros(6)
+        # the draws of NOISE_BLOCK_TICKS ticks at a time (one row a tick), drawn when the previous block is used up
+        self._noise = np.zeros((NOISE_BLOCK_TICKS, 6))
         self._y = np.zeros(6)
         self._line = np.zeros((params.delay_ticks, 6))  # its first delay_ticks rows are the delay line
-        self._state = np.zeros(2, dtype=np.int64)  # [head of the delay line, started]
+        # [head of the delay line, started, next row of draws]; no draws yet: the first tick draws a block
+        self._state = np.array([0, 0, NOISE_BLOCK_TICKS if self._noisy else 0], dtype=np.int64)
         self._bank: ForceSensorBank | None = None
         self.reset()
 
@@ -420,7 +444,7 @@ class ForceTorqueSensor:
         """Forget the filter state and the delay line; the next sample restarts them."""
         self._y.fill(0.0)
         self._line.fill(0.0)
-        self._state.fill(0)
+        self._state[:2] = 0  # the draws go on where they were: a reset does not rewind the stream
 
     def measure(self, wrench_true: Sequence[float] | np.ndarray) -> np.ndarray:
         """One tick of sensing.
@@ -438,13 +462,20 @@ class ForceTorqueSensor:
         w = wrench_true
         if not _is_c_float(w, (6,)) or _first_nonfinite(w) >= 0:
             w = _check_signal("ForceTorqueSensor", "measure wrench_true", w, (6,))
-        if self._noisy:
-            self._rng.standard_normal(out=self._noise)
+        if self._noisy and self._state[2] >= NOISE_BLOCK_TICKS:
+            self._draw()
         out = np.empty(6)
-        _force_tick(w, self._bias, self._noise, self._std, self._alpha, self._filtered, self._y, self._line,
-                    self._delay, self._state, out)
+        _force_tick(w, self._bias, self._noise, self._std, self._alpha, self._filtered, self._noisy, self._y,
+                    self._line, self._delay, self._state, out)
+        if self._bank is not None:
+            self._bank._check_draws = True  # this sensor may have used up its block between the bank's ticks
         out.setflags(write=False)
         return out
+
+    def _draw(self) -> None:
+        """The next block of draws, n ~ N(0, I), in the order of the stream."""
+        self._rng.standard_normal(out=self._noise)
+        self._state[2] = 0
 
 
 class ForceSensorBank:
@@ -485,15 +516,17 @@ class ForceSensorBank:
         self._alpha = np.array([s._alpha for s in sensors], dtype=float)
         self._filtered = np.array([s._filtered for s in sensors], dtype=bool)
         self._delay = np.array([s._delay for s in sensors], dtype=np.int64)
-        self._noise = np.array([s._noise for s in sensors]).reshape(n, 6)
+        self._noisy = np.array([s._noisy for s in sensors], dtype=bool)
+        self._noise = np.array([s._noise for s in sensors]).reshape(n, NOISE_BLOCK_TICKS, 6)
         self._y = np.array([s._y for s in sensors]).reshape(n, 6)
         self._line = np.zeros((n, d_max, 6))
-        self._state = np.array([s._state for s in sensors], dtype=np.int64).reshape(n, 2)
+        self._state = np.array([s._state for s in sensors], dtype=np.int64).reshape(n, 3)
         for i, s in enumerate(sensors):  # from now on the sensors' state lives here
             self._line[i, :s._delay] = s._line
             s._noise, s._y, s._line, s._state = self._noise[i], self._y[i], self._line[i], self._state[i]
             s._bank = self
-        self._draws = [(s._rng, s._noise) for s in sensors if s._noisy]
+        self._noisy_sensors = [s for s in sensors if s._noisy]
+        self._check_draws = bool(self._noisy_sensors)  # whether a sensor may need its next block of draws
 
     def reset(self) -> None:
         """:meth:`ForceTorqueSensor.reset` of every sensor."""
@@ -525,10 +558,12 @@ class ForceSensorBank:
                 i = int(bad[0])
                 raise ParameterError(f"ForceSensorBank.measure wrenches_true[{i}] must be finite, got {w[i]!r}")
             w = np.ascontiguousarray(w)
-        for rng, noise in self._draws:
-            rng.standard_normal(out=noise)
+        if self._check_draws:
+            for s in self._noisy_sensors:
+                if s._state[2] >= NOISE_BLOCK_TICKS:
+                    s._draw()
         out = np.empty(shape)
-        _force_bank_tick(w, self._bias, self._noise, self._std, self._alpha, self._filtered, self._y, self._line,
-                         self._delay, self._state, out)
+        self._check_draws = _force_bank_tick(w, self._bias, self._noise, self._std, self._alpha, self._filtered,
+                                             self._noisy, self._y, self._line, self._delay, self._state, out)
         out.setflags(write=False)
         return out

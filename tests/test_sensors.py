@@ -18,6 +18,7 @@ import pytest
 
 from models.errors import ParameterError
 from sim.sensors import (
+    NOISE_BLOCK_TICKS,
     EncoderParams,
     ForceSensorBank,
     ForceSensorParams,
@@ -355,7 +356,8 @@ def test_bank_rows_equal_the_documented_recursion_and_the_sensors_measured_one_b
     seeds = (3, 4, 5, 6)
     bank = ForceSensorBank([ForceTorqueSensor(p, DT, np.random.default_rng(sd)) for p, sd in zip(BANK_PARAMS, seeds)])
     single = [ForceTorqueSensor(p, DT, np.random.default_rng(sd)) for p, sd in zip(BANK_PARAMS, seeds)]
-    w = np.sin(np.arange(40)[:, None, None] * 0.3 + np.arange(4)[:, None] + np.arange(6)) * 5.0  # [N, N m]
+    ticks = 2 * NOISE_BLOCK_TICKS + 44  # past two blocks of draws
+    w = np.sin(np.arange(ticks)[:, None, None] * 0.3 + np.arange(4)[:, None] + np.arange(6)) * 5.0  # [N, N m]
     got = np.array([bank.measure(x) for x in w])  # (ticks, sensors, 6)
     one_by_one = np.array([[s.measure(x[i]) for i, s in enumerate(single)] for x in w])
     assert np.array_equal(got, one_by_one)
@@ -370,7 +372,7 @@ def test_bank_and_its_sensors_share_state_and_a_reset_restarts_every_sensor():
     a, b = ForceTorqueSensor(p, DT, np.random.default_rng(9)), ForceTorqueSensor(p, DT, np.random.default_rng(9))
     alone = ForceTorqueSensor(p, DT, np.random.default_rng(9))
     bank = ForceSensorBank([a, b])
-    w = np.cos(np.arange(20)[:, None] * 0.4 + np.arange(6))
+    w = np.cos(np.arange(2 * NOISE_BLOCK_TICKS + 20)[:, None] * 0.4 + np.arange(6))
     ref = [alone.measure(x) for x in w]
     for k, x in enumerate(w):
         y = a.measure(x) if k % 3 == 1 else bank.measure(np.stack([x, x]))[0]
@@ -412,6 +414,27 @@ def test_bank_reading_is_new_and_read_only():
 def test_invalid_bank_construction_or_input_raises_naming_the_culprit(call, match):
     with pytest.raises(ParameterError, match=match):
         call(ForceTorqueSensor(ForceSensorParams(), DT, np.random.default_rng(0)))
+
+
+def test_noise_drawn_in_blocks_is_exactly_the_stream_of_one_draw_a_tick_across_resets():
+    # The module docstring: a force/torque sensor draws NOISE_BLOCK_TICKS ticks at a time, the same numbers
+    # in the same order as one draw a tick (numpy Generator: a stream does not depend on how it is cut),
+    # and a reset does not rewind it.  Reference: rng.standard_normal(6) every tick from the same seed;
+    # with w = 0, no bias, filter or delay the reading is (0 + 0) + n sigma exactly.
+    p = ForceSensorParams(noise_std_N=0.3, noise_std_Nm=0.01, cutoff_Hz=None, delay_ticks=0)
+    sigma = np.array([0.3] * 3 + [0.01] * 3)
+    ref_rng = np.random.default_rng(12)
+    alone = ForceTorqueSensor(p, DT, np.random.default_rng(12))
+    banked = [ForceTorqueSensor(p, DT, np.random.default_rng(12)) for _ in range(2)]
+    bank = ForceSensorBank(banked[1:])
+    for k in range(3 * NOISE_BLOCK_TICKS + 5):
+        if k in (50, NOISE_BLOCK_TICKS + 1):
+            for s in (alone, *banked):
+                s.reset()
+        expected = (0.0 + 0.0) + ref_rng.standard_normal(6) * sigma
+        assert np.array_equal(alone.measure(np.zeros(6)), expected)
+        assert np.array_equal(banked[0].measure(np.zeros(6)), expected)
+        assert np.array_equal(bank.measure(np.zeros((1, 6)))[0], expected)
 
 
 # --- inputs already in the kernels' layout (float64 ndarrays) ------------------------------------------
