@@ -484,8 +484,8 @@ class ForceSensorBank:
     Each sensor keeps its parameters and its own ``Generator``, drawn from in
     the same way as by :meth:`ForceTorqueSensor.measure`, so a tick of the
     bank gives, row by row, exactly the readings of the sensors measured one
-    by one.  The bank keeps the sensors' state (filter, delay line, noise
-    buffer) in stacked arrays and the sensors keep views of them: a sensor
+    by one.  The bank keeps the sensors' state (filter, delay line, block of
+    noise draws) in stacked arrays and the sensors keep views of them: a sensor
     can still be measured or reset on its own and the bank carries on from
     there.  A sensor belongs to at most one bank.
 
