@@ -19,8 +19,16 @@ __all__ = ["Measurement"]
 
 
 def _frozen(a) -> np.ndarray:
-    if type(a) is np.ndarray and a.dtype == np.float64 and not a.flags.writeable and a.base is None:
-        return a  # already a read-only array that owns its data (as the sensors return): nothing can change it
+    """``a`` itself if nothing can write to it, else a read-only float64 copy.
+
+    Nothing can write to a read-only float64 array that owns its data, nor to
+    a read-only view of such an array (as the sensors return, one or a row of
+    one): a view cannot be made writable while its base is read-only.
+    """
+    if type(a) is np.ndarray and a.dtype == np.float64 and not a.flags.writeable:
+        base = a.base
+        if base is None or (type(base) is np.ndarray and base.base is None and not base.flags.writeable):
+            return a
     arr = np.array(a, dtype=float)
     arr.setflags(write=False)
     return arr
@@ -52,8 +60,12 @@ class Measurement:
     cuff_wrench: Mapping[str, np.ndarray]
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "t_s", float(self.t_s))
-        for f in ("q_rad", "dq_rad_s", "tau_Nm"):
-            object.__setattr__(self, f, _frozen(getattr(self, f)))
-        object.__setattr__(self, "cuff_wrench",
-                           MappingProxyType({k: _frozen(v) for k, v in self.cuff_wrench.items()}))
+        setattr_ = object.__setattr__
+        setattr_(self, "t_s", float(self.t_s))
+        setattr_(self, "q_rad", _frozen(self.q_rad))
+        setattr_(self, "dq_rad_s", _frozen(self.dq_rad_s))
+        setattr_(self, "tau_Nm", _frozen(self.tau_Nm))
+        cuffs = {}
+        for k, v in self.cuff_wrench.items():  # a plain loop: cheaper than a comprehension for a few cuffs
+            cuffs[k] = _frozen(v)
+        setattr_(self, "cuff_wrench", MappingProxyType(cuffs))

@@ -16,13 +16,20 @@ Powell & Workman, *Digital Control of Dynamic Systems*, 3rd ed., 1998,
 the chapter on discrete equivalents; chapter from memory).
 
 Randomness comes only from the ``numpy.random.Generator`` passed in.  A
-sensor whose noise standard deviations are all zero never draws from it.
+sensor whose noise standard deviations are all zero never draws from it.  A
+force/torque sensor draws its noise :data:`NOISE_BLOCK_TICKS` ticks at a time
+(a Generator gives the same numbers in the same order drawn in one block as
+drawn one tick at a time), so give each sensor a Generator of its own, as
+:func:`sim.simulate.simulate` does: a stream shared with another consumer
+would be read in a different order.
 
-Both sensors keep preallocated internal buffers; every array they return is a
-fresh read-only copy, so a controller cannot change the sensor state.  The
-arithmetic of a tick runs as one compiled call (numba, ``cache=True``); the
-noise is drawn from the ``Generator`` beforehand, so the random stream is
-that of NumPy.
+Both sensors keep preallocated internal buffers; every array they return is
+new, read-only and owns its data, so a controller cannot change the sensor
+state.  The arithmetic of a tick, and the finiteness check of its input, run
+as compiled calls (numba, ``cache=True``); the noise is drawn from the
+``Generator`` beforehand, so the random stream is that of NumPy.
+:class:`ForceSensorBank` measures several force/torque sensors (one per
+cuff) in one compiled call, with the same readings as one by one.
 """
 
 from __future__ import annotations
@@ -38,7 +45,12 @@ import numpy as np
 from models._checks import nonnegative, positive, vector
 from models.errors import ParameterError
 
-__all__ = ["EncoderParams", "JointSensing", "ForceSensorParams", "ForceTorqueSensor", "lowpass_alpha"]
+__all__ = ["EncoderParams", "JointSensing", "ForceSensorParams", "ForceTorqueSensor", "ForceSensorBank",
+           "NOISE_BLOCK_TICKS", "lowpass_alpha"]
+
+
+#: Ticks of noise a force/torque sensor draws from its Generator at once (the same stream as one draw a tick).
+NOISE_BLOCK_TICKS = 128
 
 
 def lowpass_alpha(cutoff_Hz: float, dt_s: float) -> float:
@@ -59,12 +71,6 @@ def lowpass_alpha(cutoff_Hz: float, dt_s: float) -> float:
     return -math.expm1(-2.0 * math.pi * cutoff_Hz * dt_s)
 
 
-def _readonly(buf: np.ndarray) -> np.ndarray:
-    out = buf.copy()
-    out.setflags(write=False)
-    return out
-
-
 def _check_rng(owner: str, rng: object) -> np.random.Generator:
     if not isinstance(rng, np.random.Generator):
         raise ParameterError(f"{owner}.rng must be a numpy.random.Generator (np.random.default_rng(seed)), got {rng!r}")
@@ -72,53 +78,115 @@ def _check_rng(owner: str, rng: object) -> np.random.Generator:
 
 
 def _check_signal(owner: str, name: str, value: object, shape: tuple[int, ...]) -> np.ndarray:
-    if type(value) is np.ndarray and value.dtype == np.float64 and value.shape == shape and np.isfinite(value.sum()):
-        return value  # the common case, checked with one reduction (a NaN or inf anywhere makes the sum non-finite)
+    """``value`` as a C-ordered finite float64 array of ``shape``, or a ParameterError naming ``owner.name``."""
     arr = np.asarray(value, dtype=float)
     if arr.shape != shape:
         raise ParameterError(f"{owner}.{name} must have shape {shape}, got {arr.shape}")
     if not np.all(np.isfinite(arr)):
         raise ParameterError(f"{owner}.{name} must be finite, got {arr!r}")
-    return arr
+    return np.ascontiguousarray(arr)
+
+
+def _is_c_float(value: object, shape: tuple[int, ...]) -> bool:
+    """Whether ``value`` can go to a kernel as it is: a C-ordered float64 ndarray of ``shape``."""
+    return type(value) is np.ndarray and value.dtype == np.float64 and value.shape == shape and value.flags.c_contiguous
 
 
 @numba.njit(cache=True)
-def _encoder_tick(q, resolution, dt, alpha, q_meas, q_prev, dq):
-    """One encoder tick in place: ``q_meas = r rint(q / r)``, the low-passed backward difference into ``dq``.
+def _first_nonfinite(a):
+    """Index of the first non-finite entry of the 1-d array ``a``, or -1."""
+    for i in range(a.shape[0]):
+        if not math.isfinite(a[i]):
+            return i
+    return -1
+
+
+@numba.njit(cache=True)
+def _first_nonfinite_row(a):
+    """Index of the first row of the 2-d array ``a`` with a non-finite entry, or -1."""
+    for i in range(a.shape[0]):
+        for j in range(a.shape[1]):
+            if not math.isfinite(a[i, j]):
+                return i
+    return -1
+
+
+@numba.njit(cache=True)
+def _encoder_tick(q, tau, resolution, dt, alpha, q_prev, dq, q_out, dq_out, tau_out):
+    """One encoder tick: ``q_out = r rint(q / r)``, the low-passed backward difference in ``dq``, ``tau_out = tau``.
 
     :math:`\\hat{\\dot q}_k = \\hat{\\dot q}_{k-1} + \\alpha ((q^m_k - q^m_{k-1}) / \\Delta t - \\hat{\\dot q}_{k-1})`
-    (:class:`JointSensing`); ``rint`` rounds ties to even, as ``numpy.round``.
+    (:class:`JointSensing`); ``rint`` rounds ties to even, as ``numpy.round``.  ``q_prev`` and ``dq`` are the
+    state, updated in place; ``dq_out`` gets a copy of ``dq``.  Returns 0, or 1 if ``q`` and 2 if ``tau`` holds
+    a non-finite value, in which case nothing is written.
     """
-    for i in range(q.shape[0]):
+    n = q.shape[0]
+    for i in range(n):
+        if not math.isfinite(q[i]):
+            return 1
+    for i in range(n):
+        if not math.isfinite(tau[i]):
+            return 2
+    for i in range(n):
         qm = np.rint(q[i] / resolution) * resolution
         dq[i] += ((qm - q_prev[i]) / dt - dq[i]) * alpha
-        q_meas[i] = qm
         q_prev[i] = qm
+        q_out[i] = qm
+        dq_out[i] = dq[i]
+        tau_out[i] = tau[i]
+    return 0
 
 
 @numba.njit(cache=True)
-def _force_tick(w, bias, noise, std, alpha, mode, y, line, head, out):
+def _force_tick(w, bias, noise, std, alpha, filtered, noisy, y, line, delay, state, out):
     """One force/torque tick in place (:class:`ForceTorqueSensor`): sample, low-pass, delay line.
 
-    :math:`u = w + b + \\sigma \\circ n`; ``mode`` 0 starts the filter and fills the delay line with u,
-    1 passes u unfiltered, 2 filters :math:`y \\mathrel{+}= \\alpha (u - y)`.  ``out`` gets the output: the
-    delay line's oldest entry (row ``head``, then replaced by y), or y when the line is empty.
+    :math:`u = w + b + \\sigma \\circ n` with n the row ``pos`` of the block of draws ``noise``.  ``state`` is
+    ``[head, started, pos]``: the first tick after a reset (``started`` 0) starts the filter and fills the delay
+    line with u; later ticks filter :math:`y \\mathrel{+}= \\alpha (u - y)`, or pass u unfiltered if
+    ``filtered`` is false.  The delay line is the first ``delay`` rows of ``line``.  ``out`` gets the output:
+    the delay line's oldest entry (row ``head``, then replaced by y), or y when ``delay`` is 0.  A ``noisy``
+    sensor moves on to the next row of draws; returns whether the block is used up.
     """
+    head = state[0]
+    started = state[1] != 0
+    r = state[2]
     for i in range(6):
-        u = (w[i] + bias[i]) + noise[i] * std[i]
-        if mode == 0:
+        u = (w[i] + bias[i]) + noise[r, i] * std[i]
+        if not started:
             y[i] = u
-            for j in range(line.shape[0]):
+            for j in range(delay):
                 line[j, i] = u
-        elif mode == 1:
+        elif not filtered:
             y[i] = u
         else:
             y[i] += (u - y[i]) * alpha
-        if line.shape[0] == 0:
+        if delay == 0:
             out[i] = y[i]
         else:
             out[i] = line[head, i]
             line[head, i] = y[i]
+    state[1] = 1
+    if delay > 0:
+        state[0] = (head + 1) % delay
+    if noisy:
+        state[2] = r + 1
+        return r + 1 >= noise.shape[0]
+    return False
+
+
+@numba.njit(cache=True)
+def _force_bank_tick(w, bias, noise, std, alpha, filtered, noisy, y, line, delay, state, out):
+    """:func:`_force_tick` for each row k of the stacked arrays (:class:`ForceSensorBank`), in row order.
+
+    Returns whether a sensor has used up its block of draws.
+    """
+    used_up = False
+    for k in range(w.shape[0]):
+        if _force_tick(w[k], bias[k], noise[k], std[k], alpha[k], filtered[k], noisy[k], y[k], line[k], delay[k],
+                       state[k], out[k]):
+            used_up = True
+    return used_up
 
 
 @dataclass(frozen=True)
@@ -202,10 +270,8 @@ class JointSensing:
         self.dt_s = positive(o, "dt_s", dt_s, "s")
         self._rng = _check_rng(o, rng)
         self._alpha = lowpass_alpha(params.velocity_cutoff_Hz, self.dt_s)
-        self._q = np.zeros(n)
         self._q_prev = np.zeros(n)
         self._dq = np.zeros(n)
-        self._tau = np.zeros(n)
         self._noise = np.zeros(n)
         self._started = False
 
@@ -244,21 +310,29 @@ class JointSensing:
         tau_meas : (n,) ndarray [N m]
             Joint torques plus noise.
 
-        All three are read-only copies.
+        All three are new read-only arrays that own their data.
         """
         n = (self.n_joints,)
-        q = _check_signal("JointSensing", "measure q_true", q_true, n)
-        tau = _check_signal("JointSensing", "measure tau_joint_Nm", tau_joint_Nm, n)
-        if not self._started:
-            self.reset(q)
-        _encoder_tick(q, self.params.resolution_rad, self.dt_s, self._alpha, self._q, self._q_prev, self._dq)
-        self._tau[:] = tau
+        q, tau = q_true, tau_joint_Nm
+        if not (self._started and _is_c_float(q, n) and _is_c_float(tau, n)):  # the kernel checks finiteness
+            q = _check_signal("JointSensing", "measure q_true", q, n)
+            tau = _check_signal("JointSensing", "measure tau_joint_Nm", tau, n)
+            if not self._started:
+                self.reset(q)
+        q_meas, dq_est, tau_meas = np.empty(n), np.empty(n), np.empty(n)
+        if _encoder_tick(q, tau, self.params.resolution_rad, self.dt_s, self._alpha, self._q_prev, self._dq,
+                         q_meas, dq_est, tau_meas):
+            _check_signal("JointSensing", "measure q_true", q, n)  # raises, naming the non-finite input
+            _check_signal("JointSensing", "measure tau_joint_Nm", tau, n)
         std = self.params.torque_noise_std_Nm
         if std > 0.0:
             self._rng.standard_normal(out=self._noise)
             self._noise *= std
-            self._tau += self._noise
-        return _readonly(self._q), _readonly(self._dq), _readonly(self._tau)
+            tau_meas += self._noise
+        q_meas.setflags(write=False)
+        dq_est.setflags(write=False)
+        tau_meas.setflags(write=False)
+        return q_meas, dq_est, tau_meas
 
 
 @dataclass(frozen=True)
@@ -332,7 +406,8 @@ class ForceTorqueSensor:
     dt_s : float [s]
         Control tick, > 0.
     rng : numpy.random.Generator
-        Source of the noise.
+        Source of the noise, drawn :data:`NOISE_BLOCK_TICKS` ticks ahead: the
+        sensor's own.
 
     Notes
     -----
@@ -354,17 +429,22 @@ class ForceTorqueSensor:
         self._bias = np.array(params.bias_N + params.bias_Nm)
         self._std = np.array((params.noise_std_N,) * 3 + (params.noise_std_Nm,) * 3)
         self._noisy = bool(np.any(self._std > 0.0))
-        self._noise = np.zeros(6)
+        self._filtered = params.cutoff_Hz is not None
+        self._delay = params.delay_ticks
+        # the draws of NOISE_BLOCK_TICKS ticks at a time (one row a tick), drawn when the previous block is used up
+        self._noise = np.zeros((NOISE_BLOCK_TICKS, 6))
         self._y = np.zeros(6)
-        self._line = np.zeros((params.delay_ticks, 6))
+        self._line = np.zeros((params.delay_ticks, 6))  # its first delay_ticks rows are the delay line
+        # [head of the delay line, started, next row of draws]; no draws yet: the first tick draws a block
+        self._state = np.array([0, 0, NOISE_BLOCK_TICKS if self._noisy else 0], dtype=np.int64)
+        self._bank: ForceSensorBank | None = None
         self.reset()
 
     def reset(self) -> None:
         """Forget the filter state and the delay line; the next sample restarts them."""
         self._y.fill(0.0)
         self._line.fill(0.0)
-        self._head = 0
-        self._started = False
+        self._state[:2] = 0  # the draws go on where they were: a reset does not rewind the stream
 
     def measure(self, wrench_true: Sequence[float] | np.ndarray) -> np.ndarray:
         """One tick of sensing.
@@ -377,16 +457,113 @@ class ForceTorqueSensor:
         Returns
         -------
         (6,) ndarray [N, N m]
-            The measured wrench, a read-only copy.
+            The measured wrench, a new read-only array that owns its data.
         """
-        w = _check_signal("ForceTorqueSensor", "measure wrench_true", wrench_true, (6,))
-        if self._noisy:
-            self._rng.standard_normal(out=self._noise)
-        mode = 0 if not self._started else (1 if self.params.cutoff_Hz is None else 2)
-        self._started = True
+        w = wrench_true
+        if not _is_c_float(w, (6,)) or _first_nonfinite(w) >= 0:
+            w = _check_signal("ForceTorqueSensor", "measure wrench_true", w, (6,))
+        if self._noisy and self._state[2] >= NOISE_BLOCK_TICKS:
+            self._draw()
         out = np.empty(6)
-        _force_tick(w, self._bias, self._noise, self._std, self._alpha, mode, self._y, self._line, self._head, out)
-        if self._line.shape[0]:
-            self._head = (self._head + 1) % self._line.shape[0]
+        _force_tick(w, self._bias, self._noise, self._std, self._alpha, self._filtered, self._noisy, self._y,
+                    self._line, self._delay, self._state, out)
+        if self._bank is not None:
+            self._bank._check_draws = True  # this sensor may have used up its block between the bank's ticks
+        out.setflags(write=False)
+        return out
+
+    def _draw(self) -> None:
+        """The next block of draws, n ~ N(0, I), in the order of the stream."""
+        self._rng.standard_normal(out=self._noise)
+        self._state[2] = 0
+
+
+class ForceSensorBank:
+    """Several :class:`ForceTorqueSensor` (one per cuff) measured together, in one compiled call per tick.
+
+    Each sensor keeps its parameters and its own ``Generator``, drawn from in
+    the same way as by :meth:`ForceTorqueSensor.measure`, so a tick of the
+    bank gives, row by row, exactly the readings of the sensors measured one
+    by one.  The bank keeps the sensors' state (filter, delay line, block of
+    noise draws) in stacked arrays and the sensors keep views of them: a sensor
+    can still be measured or reset on its own and the bank carries on from
+    there.  A sensor belongs to at most one bank.
+
+    Parameters
+    ----------
+    sensors : sequence of ForceTorqueSensor
+        Distinct sensors (none gives an empty bank); row i of every tick is ``sensors[i]``.
+    """
+
+    def __init__(self, sensors: Sequence[ForceTorqueSensor]) -> None:
+        o = "ForceSensorBank"
+        try:
+            sensors = tuple(sensors)
+        except TypeError as e:
+            raise ParameterError(f"{o}.sensors must be a sequence of ForceTorqueSensor, got {sensors!r}") from e
+        for i, s in enumerate(sensors):
+            if not isinstance(s, ForceTorqueSensor):
+                raise ParameterError(f"{o}.sensors[{i}] must be a ForceTorqueSensor, got {s!r}")
+            if s._bank is not None:
+                raise ParameterError(f"{o}.sensors[{i}] already belongs to a ForceSensorBank")
+            if any(s is t for t in sensors[:i]):
+                raise ParameterError(f"{o}.sensors[{i}] is given twice; each sensor is measured once per tick")
+        n = len(sensors)
+        d_max = max((s._delay for s in sensors), default=0)
+        self.sensors = sensors
+        self._bias = np.array([s._bias for s in sensors]).reshape(n, 6)
+        self._std = np.array([s._std for s in sensors]).reshape(n, 6)
+        self._alpha = np.array([s._alpha for s in sensors], dtype=float)
+        self._filtered = np.array([s._filtered for s in sensors], dtype=bool)
+        self._delay = np.array([s._delay for s in sensors], dtype=np.int64)
+        self._noisy = np.array([s._noisy for s in sensors], dtype=bool)
+        self._noise = np.array([s._noise for s in sensors]).reshape(n, NOISE_BLOCK_TICKS, 6)
+        self._y = np.array([s._y for s in sensors]).reshape(n, 6)
+        self._line = np.zeros((n, d_max, 6))
+        self._state = np.array([s._state for s in sensors], dtype=np.int64).reshape(n, 3)
+        for i, s in enumerate(sensors):  # from now on the sensors' state lives here
+            self._line[i, :s._delay] = s._line
+            s._noise, s._y, s._line, s._state = self._noise[i], self._y[i], self._line[i], self._state[i]
+            s._bank = self
+        self._noisy_sensors = [s for s in sensors if s._noisy]
+        self._check_draws = bool(self._noisy_sensors)  # whether a sensor may need its next block of draws
+
+    def reset(self) -> None:
+        """:meth:`ForceTorqueSensor.reset` of every sensor."""
+        for s in self.sensors:
+            s.reset()
+
+    def measure(self, wrenches_true: Sequence[Sequence[float]] | np.ndarray) -> np.ndarray:
+        """One tick of every sensor.
+
+        Parameters
+        ----------
+        wrenches_true : (n, 6) array_like [N, N m]
+            Row i: the true wrench ``[f; tau]`` at ``sensors[i]``, in its frame.
+
+        Returns
+        -------
+        (n, 6) ndarray [N, N m]
+            Row i: what ``sensors[i].measure(wrenches_true[i])`` returns.  A
+            new read-only array that owns its data.
+        """
+        shape = (len(self.sensors), 6)
+        w = wrenches_true
+        if not _is_c_float(w, shape) or _first_nonfinite_row(w) >= 0:
+            w = np.asarray(w, dtype=float)
+            if w.shape != shape:
+                raise ParameterError(f"ForceSensorBank.measure wrenches_true must have shape {shape}, got {w.shape}")
+            bad = np.flatnonzero(~np.all(np.isfinite(w), axis=1))
+            if bad.size:
+                i = int(bad[0])
+                raise ParameterError(f"ForceSensorBank.measure wrenches_true[{i}] must be finite, got {w[i]!r}")
+            w = np.ascontiguousarray(w)
+        if self._check_draws:
+            for s in self._noisy_sensors:
+                if s._state[2] >= NOISE_BLOCK_TICKS:
+                    s._draw()
+        out = np.empty(shape)
+        self._check_draws = _force_bank_tick(w, self._bias, self._noise, self._std, self._alpha, self._filtered,
+                                             self._noisy, self._y, self._line, self._delay, self._state, out)
         out.setflags(write=False)
         return out

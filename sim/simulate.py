@@ -40,7 +40,7 @@ from .metrics import run_metrics, wall_metrics
 from .plant import CoupledPlant, PlantMode
 from .runlog import RunLog, environment_metadata, load_run
 from .scenario import Scenario
-from .sensors import ForceTorqueSensor, JointSensing
+from .sensors import ForceSensorBank, ForceTorqueSensor, JointSensing
 
 __all__ = ["SimulationError", "RunResult", "build_assembly", "controller_context", "simulate", "run_scenario",
            "evaluate_run"]
@@ -161,9 +161,9 @@ def simulate(
         timing_diag = tuple(d for d in all_diag if d.endswith("_time_s"))
         joints = JointSensing(scenario.encoder, asm.exo.nv, T, rng_joint)
         joints.reset(plant.q_exo)
-        fts = [ForceTorqueSensor(scenario.force_sensor, T, r) for r in rng_cuffs]
-        for s in fts:
-            s.reset()
+        # one sensor per cuff, each with its own stream, measured together
+        cuff_sensors = ForceSensorBank([ForceTorqueSensor(scenario.force_sensor, T, r) for r in rng_cuffs])
+        cuff_sensors.reset()
         actuators = TorqueSourceActuators(asm.exo.model.effortLimit, scenario.actuators)
         actuators.reset(np.zeros(asm.exo.nv))
     else:
@@ -190,8 +190,7 @@ def simulate(
     diag_keys = [(d, f"diag_{d}") for d in diag_names]  # (diagnostic, its column)
     timing_series = list(timing.items())
     zero_e, zero_h = np.zeros(asm.exo.nv), np.zeros(asm.human.nv)
-    meas_wrench = np.zeros((len(asm.cuffs), 6))
-    zero_w = np.zeros(6)
+    meas_wrench = zero_w = np.zeros((len(asm.cuffs), 6))
     # a blow-up is detected below and reported as SimulationError, not as numpy warnings
     with RunLog(folder, cols, metadata=meta) as log, np.errstate(over="ignore", invalid="ignore"):
         # the very models of the run, for viewers and for reproducing it with any URDF tool
@@ -206,9 +205,10 @@ def simulate(
             if controller is not None:
                 tau_applied = actuators.applied_Nm
                 qm, dqm, taum = joints.measure(plant.q_exo, tau_applied)
-                for i, s in enumerate(fts):  # with no wearer the sensors read their noise and bias alone
-                    meas_wrench[i] = s.measure(plant.wrench_on_exo[i] if plant.cuffs else zero_w)
-                m = Measurement(t, qm, dqm, taum, {name: meas_wrench[i] for i, name in enumerate(cuff_names)})
+                # with no wearer the sensors read their noise and bias alone
+                meas_wrench = cuff_sensors.measure(plant.wrench_on_exo if plant.cuffs else zero_w)
+                # the rows are read-only views of the bank's new reading: the Measurement keeps them as they are
+                m = Measurement(t, qm, dqm, taum, dict(zip(cuff_names, meas_wrench)))
                 tc = time.perf_counter()
                 tau_cmd = np.asarray(controller.step(m), dtype=float)
                 controller_times[k] = time.perf_counter() - tc

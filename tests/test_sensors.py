@@ -17,7 +17,15 @@ import numpy as np
 import pytest
 
 from models.errors import ParameterError
-from sim.sensors import EncoderParams, ForceSensorParams, ForceTorqueSensor, JointSensing, lowpass_alpha
+from sim.sensors import (
+    NOISE_BLOCK_TICKS,
+    EncoderParams,
+    ForceSensorBank,
+    ForceSensorParams,
+    ForceTorqueSensor,
+    JointSensing,
+    lowpass_alpha,
+)
 
 DT = 1e-3  # control tick [s]
 N_STAT = 20000
@@ -311,6 +319,174 @@ def test_force_readings_are_read_only_copies_of_the_sensor_state():
         for _ in range(5):
             s.measure(np.full(6, 10.0))
         assert np.array_equal(y, kept)
+
+
+# --- several force/torque sensors measured together ----------------------------------------------------
+
+BANK_PARAMS = (
+    ForceSensorParams(),
+    ForceSensorParams(noise_std_N=0.0, noise_std_Nm=0.0, cutoff_Hz=None, delay_ticks=0),
+    ForceSensorParams(noise_std_N=0.5, noise_std_Nm=0.02, bias_N=(0.3, 0.0, -0.1), cutoff_Hz=None, delay_ticks=3),
+    ForceSensorParams(noise_std_N=0.1, noise_std_Nm=0.0, bias_Nm=(0.0, 0.01, 0.0), cutoff_Hz=80.0, delay_ticks=2),
+)
+
+
+def _documented_readings(p: ForceSensorParams, seed: int, w: np.ndarray) -> np.ndarray:
+    """The ForceTorqueSensor docstring's recursion in NumPy on the draws of a Generator with the same seed.
+
+    u_k = w_k + b + sigma n_k; y_0 = u_0, y_k = y_{k-1} + alpha (u_k - y_{k-1}) (y_k = u_k without a filter);
+    output y_{k-d}, y_0 before d samples exist.  A sensor with all sigma 0 draws nothing.
+    """
+    rng = np.random.default_rng(seed)
+    sigma = np.array([p.noise_std_N] * 3 + [p.noise_std_Nm] * 3)
+    bias = np.array(p.bias_N + p.bias_Nm)
+    alpha = None if p.cutoff_Hz is None else lowpass_alpha(p.cutoff_Hz, DT)
+    ys = []
+    for k, x in enumerate(w):
+        u = x + bias + (sigma * rng.standard_normal(6) if np.any(sigma > 0) else 0.0)
+        ys.append(u if k == 0 or alpha is None else ys[-1] + alpha * (u - ys[-1]))
+    d = p.delay_ticks
+    return np.array([ys[0]] * d + ys[: len(ys) - d])
+
+
+def test_bank_rows_equal_the_documented_recursion_and_the_sensors_measured_one_by_one():
+    # Reference: the recursion of the ForceTorqueSensor docstring evaluated in NumPy (as in
+    # test_noisy_biased_filtered_delayed_reading_equals_the_documented_recursion_on_the_same_draws), and,
+    # bit for bit, the same sensors measured one by one (the bank's documented promise).
+    seeds = (3, 4, 5, 6)
+    bank = ForceSensorBank([ForceTorqueSensor(p, DT, np.random.default_rng(sd)) for p, sd in zip(BANK_PARAMS, seeds)])
+    single = [ForceTorqueSensor(p, DT, np.random.default_rng(sd)) for p, sd in zip(BANK_PARAMS, seeds)]
+    ticks = 2 * NOISE_BLOCK_TICKS + 44  # past two blocks of draws
+    w = np.sin(np.arange(ticks)[:, None, None] * 0.3 + np.arange(4)[:, None] + np.arange(6)) * 5.0  # [N, N m]
+    got = np.array([bank.measure(x) for x in w])  # (ticks, sensors, 6)
+    one_by_one = np.array([[s.measure(x[i]) for i, s in enumerate(single)] for x in w])
+    assert np.array_equal(got, one_by_one)
+    for i, (p, sd) in enumerate(zip(BANK_PARAMS, seeds)):
+        np.testing.assert_allclose(got[:, i], _documented_readings(p, sd, w[:, i]), rtol=1e-14, atol=1e-13)
+
+
+def test_bank_and_its_sensors_share_state_and_a_reset_restarts_every_sensor():
+    # A sensor of a bank measured on its own carries on the same filter and delay line (bank docstring);
+    # reference: one sensor measured alone for the whole sequence.  After reset: the start-up rule.
+    p = BANK_PARAMS[3]
+    a, b = ForceTorqueSensor(p, DT, np.random.default_rng(9)), ForceTorqueSensor(p, DT, np.random.default_rng(9))
+    alone = ForceTorqueSensor(p, DT, np.random.default_rng(9))
+    bank = ForceSensorBank([a, b])
+    w = np.cos(np.arange(2 * NOISE_BLOCK_TICKS + 20)[:, None] * 0.4 + np.arange(6))
+    ref = [alone.measure(x) for x in w]
+    for k, x in enumerate(w):
+        y = a.measure(x) if k % 3 == 1 else bank.measure(np.stack([x, x]))[0]
+        assert np.array_equal(y, ref[k])
+    bank.reset()
+    alone.reset()
+    assert np.array_equal(bank.measure(np.stack([w[0], w[0]]))[0], alone.measure(w[0]))
+
+
+def test_bank_reading_is_new_and_read_only():
+    # Documented: the returned array is new, read-only and owns its data; its rows cannot be made writable
+    # (numpy.ndarray.setflags documentation: WRITEABLE can be set only if the base is writeable).
+    bank = ForceSensorBank([ForceTorqueSensor(ForceSensorParams(), DT, np.random.default_rng(k)) for k in range(3)])
+    y = bank.measure(np.ones((3, 6)))
+    kept = y.copy()
+    assert not y.flags.writeable and y.base is None
+    with pytest.raises(ValueError):
+        y[0, 0] = 1.0
+    with pytest.raises(ValueError):
+        y[1].setflags(write=True)
+    for _ in range(3):
+        bank.measure(np.full((3, 6), 4.0))
+    assert np.array_equal(y, kept)
+
+
+@pytest.mark.parametrize(
+    "call, match",
+    [
+        (lambda s: ForceSensorBank([s, s]), r"ForceSensorBank\.sensors\[1\] is given twice"),
+        (lambda s: ForceSensorBank([s, "hand"]), r"ForceSensorBank\.sensors\[1\] must be a ForceTorqueSensor"),
+        (lambda s: ForceSensorBank(3), r"ForceSensorBank\.sensors must be a sequence"),
+        (lambda s: (ForceSensorBank([s]), ForceSensorBank([s])), r"sensors\[0\] already belongs to a ForceSensorBank"),
+        (lambda s: ForceSensorBank([s]).measure(np.zeros(6)),
+         r"ForceSensorBank\.measure wrenches_true must have shape"),
+        (lambda s: ForceSensorBank([s]).measure([[0.0, 0.0, np.inf, 0.0, 0.0, 0.0]]),
+         r"ForceSensorBank\.measure wrenches_true\[0\] must be finite"),
+    ],
+)
+def test_invalid_bank_construction_or_input_raises_naming_the_culprit(call, match):
+    with pytest.raises(ParameterError, match=match):
+        call(ForceTorqueSensor(ForceSensorParams(), DT, np.random.default_rng(0)))
+
+
+def test_noise_drawn_in_blocks_is_exactly_the_stream_of_one_draw_a_tick_across_resets():
+    # The module docstring: a force/torque sensor draws NOISE_BLOCK_TICKS ticks at a time, the same numbers
+    # in the same order as one draw a tick (numpy Generator: a stream does not depend on how it is cut),
+    # and a reset does not rewind it.  Reference: rng.standard_normal(6) every tick from the same seed;
+    # with w = 0, no bias, filter or delay the reading is (0 + 0) + n sigma exactly.
+    p = ForceSensorParams(noise_std_N=0.3, noise_std_Nm=0.01, cutoff_Hz=None, delay_ticks=0)
+    sigma = np.array([0.3] * 3 + [0.01] * 3)
+    ref_rng = np.random.default_rng(12)
+    alone = ForceTorqueSensor(p, DT, np.random.default_rng(12))
+    banked = [ForceTorqueSensor(p, DT, np.random.default_rng(12)) for _ in range(2)]
+    bank = ForceSensorBank(banked[1:])
+    for k in range(3 * NOISE_BLOCK_TICKS + 5):
+        if k in (50, NOISE_BLOCK_TICKS + 1):
+            for s in (alone, *banked):
+                s.reset()
+        expected = (0.0 + 0.0) + ref_rng.standard_normal(6) * sigma
+        assert np.array_equal(alone.measure(np.zeros(6)), expected)
+        assert np.array_equal(banked[0].measure(np.zeros(6)), expected)
+        assert np.array_equal(bank.measure(np.zeros((1, 6)))[0], expected)
+
+
+# --- inputs already in the kernels' layout (float64 ndarrays) ------------------------------------------
+
+
+@pytest.mark.parametrize("bad", [np.nan, np.inf, -np.inf])
+def test_non_finite_array_inputs_raise_naming_the_input_and_change_nothing(bad):
+    # Rule: a bad input gets a clear error naming it, and no data already produced is lost: the sensor
+    # carries on as if the bad call had not happened (reference: a twin sensor that never saw it).
+    p = EncoderParams(torque_noise_std_Nm=0.1)
+    s, twin = _encoder(p, n=3, seed=2), _encoder(p, n=3, seed=2)
+    q, tau = np.array([0.1, 0.2, 0.3]), np.array([1.0, 2.0, 3.0])
+    for x in (s, twin):
+        x.measure(q, tau)
+    with pytest.raises(ParameterError, match=r"JointSensing\.measure q_true must be finite"):
+        s.measure(np.array([0.1, bad, 0.3]), tau)
+    with pytest.raises(ParameterError, match=r"JointSensing\.measure tau_joint_Nm must be finite"):
+        s.measure(q + 0.01, np.array([1.0, 2.0, bad]))
+    for got, ref in zip(s.measure(q + 0.02, tau), twin.measure(q + 0.02, tau)):
+        assert np.array_equal(got, ref)
+
+    bank_sensors = [ForceTorqueSensor(ForceSensorParams(), DT, np.random.default_rng(k)) for k in range(4)]
+    f, f_twin = bank_sensors[0], ForceTorqueSensor(ForceSensorParams(), DT, np.random.default_rng(0))
+    bank = ForceSensorBank(bank_sensors[1:])
+    bank_twin = ForceSensorBank([ForceTorqueSensor(ForceSensorParams(), DT, np.random.default_rng(k))
+                                 for k in (1, 2, 3)])
+    w = np.arange(6.0)
+    f.measure(w), f_twin.measure(w), bank.measure(np.stack([w] * 3)), bank_twin.measure(np.stack([w] * 3))
+    with pytest.raises(ParameterError, match=r"ForceTorqueSensor\.measure wrench_true must be finite"):
+        f.measure(np.array([0.0, 1.0, 2.0, bad, 4.0, 5.0]))
+    w_bad = np.stack([w] * 3)
+    w_bad[2, 4] = bad
+    with pytest.raises(ParameterError, match=r"ForceSensorBank\.measure wrenches_true\[2\] must be finite"):
+        bank.measure(w_bad)
+    assert np.array_equal(f.measure(w + 1.0), f_twin.measure(w + 1.0))
+    assert np.array_equal(bank.measure(np.stack([w + 1.0] * 3)), bank_twin.measure(np.stack([w + 1.0] * 3)))
+
+
+def test_strided_float32_and_list_inputs_read_like_contiguous_float64_arrays():
+    # The same numbers in any array_like give the same reading (the measure docstrings: "array_like").
+    q, tau, w = np.array([0.25, -0.5]), np.array([1.0, -1.0]), np.array([1.0, 2.0, 3.0, 0.5, 0.25, 0.125])
+    forms = (lambda a: a, lambda a: np.repeat(a, 2)[::2], lambda a: a.astype(np.float32), lambda a: a.tolist())
+    readings = []
+    for form in forms:
+        j = _encoder(EncoderParams(torque_noise_std_Nm=0.1), seed=4)
+        f = ForceTorqueSensor(ForceSensorParams(delay_ticks=0), DT, np.random.default_rng(4))
+        b = ForceSensorBank([ForceTorqueSensor(ForceSensorParams(delay_ticks=0), DT, np.random.default_rng(4))])
+        readings.append([*j.measure(form(q), form(tau)), *j.measure(form(q * 2), form(tau)), f.measure(form(w)),
+                         b.measure([form(w)])[0]])
+    for r in readings[1:]:
+        for got, ref in zip(r, readings[0]):
+            assert np.array_equal(got, ref)
 
 
 # --- validation --------------------------------------------------------------------------------------
