@@ -95,6 +95,7 @@ References
 
 from __future__ import annotations
 
+import math
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass, field
@@ -1237,7 +1238,7 @@ def solve_hierarchy(
         if hard._weighted:
             raise ParameterError(f"solve_hierarchy: {hard_label} entries must not carry weights: "
                                  "hard constraints hold exactly")
-    if not (isinstance(regularization, (int, float)) and np.isfinite(regularization) and regularization >= 0):
+    if not (isinstance(regularization, (int, float)) and math.isfinite(regularization) and regularization >= 0):
         raise ParameterError(f"solve_hierarchy: regularization must be a finite float >= 0, got {regularization!r}")
     lb = _bounds("lb", lb, n, np.inf)
     ub = _bounds("ub", ub, n, -np.inf)
@@ -1308,14 +1309,15 @@ def solve_hierarchy(
             else level.residual(x) for level, xk, (e, v) in zip(levels, level_x, slacks)], dtype=float))
     x = _read_only(x.copy())
     for xk in level_x:
-        xk.flags.writeable = False
+        if xk.flags.writeable:  # the compiled path's are rows of a read-only array already
+            xk.flags.writeable = False
     return HierarchyResult(
         x=x,
         level_residuals=residuals,
         level_slacks=tuple(slacks),
         found=True,
         solve_time_s=time.perf_counter() - t_start,
-        level_times_s=_read_only(np.array(times, dtype=float)),
+        level_times_s=_read_only(times if type(times) is np.ndarray else np.array(times, dtype=float)),
         solver=solver_name,
         level_methods=tuple(methods),
         free_dims=tuple(free_dims),
