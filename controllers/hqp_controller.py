@@ -119,6 +119,7 @@ class HQPController(Controller):
         self.fallback_count = 0
         self.last_fallback_reason = None
         self._diag = dict.fromkeys(self.diagnostic_names(), 0.0)
+        self._level_keys = [(f"residual_{i}", f"level_{i}_time_s") for i in range(len(self.levels))]
 
     @property
     def last_result(self):
@@ -258,7 +259,7 @@ class HQPController(Controller):
             d["rows_time_s"], d["solve_time_s"] = t_solve - t0, t_end - t_solve
         d["fallback"] = fallback
         d["active_rows"] = float(rows)
-        for i in range(p):
-            d[f"residual_{i}"] = residuals[i]
-            d[f"level_{i}_time_s"] = level_times[i]
+        for i, (residual_key, time_key) in enumerate(self._level_keys):
+            d[residual_key] = residuals[i]
+            d[time_key] = level_times[i]
         return tau
