@@ -179,7 +179,7 @@ class HQPController(Controller):
                 rows += b.shape[0]
                 if c is not None:
                     At = A[:, n:]
-                    has_tau = bool(At.any())
+                    has_tau = np.count_nonzero(At) > 0
                     if type(r[0]) is np.ndarray and not r[0].flags.writeable and np.isfinite(A.sum()):
                         cache[(i, j)] = (r[0], A[:, :n], At if has_tau else None)  # constant rows: split them once
                     if has_tau:  # a row on the torques: tau = M qdd + c
