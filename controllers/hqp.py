@@ -362,6 +362,21 @@ class Level:
         return float(self.weights_eq @ (e * e) + self.weights_ineq @ (v * v))
 
 
+def _gather(entries, mats: list, rhs: list, weights: list, layout: list, m: int) -> tuple[int, bool]:
+    """Append trusted (M, v, w) entries to the lists of :meth:`LevelStack.from_entries`; rows so far, any w != 1."""
+    weighted = False
+    for M, v, w in entries:
+        k = M.shape[0]
+        mats.append(M)
+        rhs.append(v)
+        weights.append((k, w))
+        layout.append((m, m + k, w))
+        m += k
+        if w != 1.0:
+            weighted = True
+    return m, weighted
+
+
 class LevelStack(Sequence):
     r"""The levels of a hierarchy with all their rows already stacked.
 
@@ -424,29 +439,12 @@ class LevelStack(Sequence):
         weighted_e = weighted_i = False
         for eq, ineq in levels:
             eq_entries, in_entries = [], []
-            u = True
-            for M, v, w in eq:
-                m = M.shape[0]
-                mats_e.append(M)
-                rhs_e.append(v)
-                weights_e.append((m, w))
-                eq_entries.append((m_e, m_e + m, w))
-                m_e += m
-                if w != 1.0:
-                    u = False
-                    weighted_e = True
-            for M, v, w in ineq:
-                m = M.shape[0]
-                mats_i.append(M)
-                rhs_i.append(v)
-                weights_i.append((m, w))
-                in_entries.append((m_i, m_i + m, w))
-                m_i += m
-                if w != 1.0:
-                    weighted_i = True
+            m_e, w_e = _gather(eq, mats_e, rhs_e, weights_e, eq_entries, m_e)
+            m_i, w_i = _gather(ineq, mats_i, rhs_i, weights_i, in_entries, m_i)
+            weighted_e, weighted_i = weighted_e or w_e, weighted_i or w_i
             eq_off.append(m_e)
             in_off.append(m_i)
-            unit.append(u)
+            unit.append(not w_e)
             layout.append((eq_entries, in_entries))
         self.A = np.concatenate(mats_e) if m_e else np.zeros((0, n))
         self.b = np.concatenate(rhs_e) if m_e else np.zeros(0)
