@@ -20,8 +20,8 @@ import math
 import numpy as np
 import pinocchio as pin
 import pytest
+from _random_plant import random_plant
 
-import models
 from models.cuffs import cuff_wrench
 from models.errors import SandboxError
 from sim import plant as plant_module
@@ -30,18 +30,6 @@ from sim.plant import CoupledPlant, PlantParams
 
 H = 0.25e-3  # [s]: 1 ms control period / 4 substeps
 REL = 1e-12  # common practice, see the module docstring
-
-
-def _plant(seed: int, mode: str = "coupled", params: PlantParams | None = None) -> CoupledPlant:
-    rng = np.random.default_rng(seed)
-    asm = models.assemble("m50", q_human0=np.radians([30, 10, 0, 60, 0, 0, 0]))
-    plant = CoupledPlant(asm, PlantParams() if params is None else params, mode)
-    plant.q_exo[:] += rng.normal(scale=0.05, size=plant.exo.nq)  # [rad]: the cuffs stretch
-    plant.q_human[:] += rng.normal(scale=0.05, size=plant.human.nq)
-    plant.v_exo[:] = rng.normal(scale=0.5, size=plant.exo.nv)  # [rad/s]
-    plant.v_human[:] = rng.normal(scale=0.5, size=plant.human.nv)
-    plant.invalidate()
-    return plant
 
 
 class _StateSpring:
@@ -66,7 +54,7 @@ def _state(plant: CoupledPlant) -> list[np.ndarray]:
 @pytest.mark.parametrize("friction", [True, False])
 def test_advance_equals_substep_calls_fed_by_the_same_actuator_to_the_bit(mode, friction):
     params = PlantParams(exo_friction=friction, cuff_damping=friction)
-    a, b = _plant(4, mode, params), _plant(4, mode, params)
+    a, b = random_plant(4, mode, params), random_plant(4, mode, params)
     act_a, act_b = _StateSpring(a.exo.nv), _StateSpring(b.exo.nv)
     tau_h = np.linspace(1.0, -1.0, a.human.nv)  # [N m]
     for _ in range(3):  # three control ticks of four substeps
@@ -87,7 +75,7 @@ def test_advance_equals_substep_calls_fed_by_the_same_actuator_to_the_bit(mode, 
 
 
 def test_advance_with_a_held_torque_equals_substep_calls_to_the_bit():
-    a, b = _plant(5), _plant(5)
+    a, b = random_plant(5), random_plant(5)
     tau_e, tau_h = np.linspace(-2.0, 2.0, a.exo.nv), np.linspace(1.0, -1.0, a.human.nv)  # [N m]
     for _ in range(6):
         a.substep(tau_e, tau_h, H)
@@ -123,7 +111,7 @@ def _reference_forces(plant: CoupledPlant, q_e, v_e, q_h, v_h) -> tuple[pin.StdV
 
 
 def test_advance_with_torque_source_actuators_equals_a_by_hand_pinocchio_loop():
-    plant = _plant(6)
+    plant = random_plant(6)
     T = 0.002  # [s]
     limit = plant.exo.model.effortLimit
     act = TorqueSourceActuators(limit, ActuatorParams(torque_time_constant_s=T))
@@ -151,16 +139,16 @@ def test_advance_with_torque_source_actuators_equals_a_by_hand_pinocchio_loop():
 
 @pytest.mark.parametrize("bad", [0, -1, 2.0, "4"])
 def test_advance_refuses_a_substep_count_that_is_not_a_positive_integer(bad):
-    plant = _plant(7)
+    plant = random_plant(7)
     with pytest.raises(SandboxError, match="n_substeps"):
         plant.advance(np.zeros(plant.exo.nv), np.zeros(plant.human.nv), H, bad)
 
 
 def test_the_pair_model_steps_both_arms_as_two_models_do_to_the_bit(monkeypatch):
     # pinocchio's appendModel (one model of both trees) against the two arms' own models, on the same inputs
-    pair = _plant(8)
+    pair = random_plant(8)
     monkeypatch.setattr(plant_module, "_pair_model", lambda exo, human: None)
-    two = _plant(8)
+    two = random_plant(8)
     assert pair._pair and not two._pair
     for p in (pair, two):  # assigning a state vector (not only changing it in place) reaches the dynamics
         p.v_human = p.v_human + 0.1  # [rad/s]

@@ -18,13 +18,12 @@ import math
 import numpy as np
 import pinocchio as pin
 import pytest
+from _random_plant import random_plant
 
-import models
 from models import CuffParams
 from models.cuffs import cuff_wrench, cuff_wrenches
 from models.errors import SandboxError
 from sim import plant as plant_module
-from sim.plant import CoupledPlant, PlantParams
 
 REL = 1e-12  # relative agreement to rounding (common practice)
 
@@ -81,21 +80,9 @@ def test_compiled_cuff_law_equals_the_numpy_law_for_random_poses_and_twists():
         assert -(float(got_a @ v_a) + float(got_b @ v_b)) == pytest.approx(power[0], rel=1e-10, abs=1e-12)
 
 
-def _random_plant(seed: int) -> CoupledPlant:
-    rng = np.random.default_rng(seed)
-    asm = models.assemble("m50", q_human0=np.radians([30, 10, 0, 60, 0, 0, 0]))
-    plant = CoupledPlant(asm, PlantParams())
-    plant.q_exo[:] += rng.normal(scale=0.05, size=plant.exo.nq)  # [rad]: the cuffs stretch
-    plant.q_human[:] += rng.normal(scale=0.05, size=plant.human.nq)
-    plant.v_exo[:] = rng.normal(scale=0.5, size=plant.exo.nv)  # [rad/s]
-    plant.v_human[:] = rng.normal(scale=0.5, size=plant.human.nv)
-    plant.invalidate()
-    return plant
-
-
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_plant_cuff_wrenches_equal_the_one_cuff_law_on_pinocchio_frames(seed):
-    plant = _random_plant(seed)
+    plant = random_plant(seed)
     plant.update_cuffs()
     me, mh = plant.exo.model, plant.human.model
     de, dh = me.createData(), mh.createData()
@@ -134,7 +121,7 @@ def test_plant_cuff_wrenches_equal_the_one_cuff_law_on_pinocchio_frames(seed):
 
 def test_plant_substep_equals_aba_with_the_reference_wrenches_and_friction():
     # one substep by hand: v+ = v + h aba(q, v, tau + friction, fext), q+ = integrate(q, h v+) (pinocchio)
-    plant = _random_plant(3)
+    plant = random_plant(3)
     h = 0.25e-3  # [s]
     tau_e, tau_h = np.linspace(-2.0, 2.0, plant.exo.nv), np.linspace(1.0, -1.0, plant.human.nv)  # [N m]
     q_e, v_e, q_h, v_h = plant.q_exo.copy(), plant.v_exo.copy(), plant.q_human.copy(), plant.v_human.copy()
