@@ -60,12 +60,15 @@ class TickState:
         self.g = pin.computeGeneralizedGravity(model, data, self.q).copy()
         self._jac.clear()
         self._drift.clear()
-        f = np.zeros(self.nv)
+        # sum_c J_c^T w_c as one product of the stacked Jacobians and wrenches
+        jacobians, wrenches = [], []
         for name, fid in self.cuff_ids.items():
             w = m.cuff_wrench.get(name)
             if w is not None:
-                f += self.jacobian(fid, pin.LOCAL).T @ w
-        self.cuff_force = f
+                jacobians.append(self.jacobian(fid, pin.LOCAL))
+                wrenches.append(w)
+        self.cuff_force = (np.concatenate(jacobians).T @ np.concatenate(wrenches) if jacobians
+                           else np.zeros(self.nv))
 
     def jacobian(self, frame_id: int, reference=pin.LOCAL_WORLD_ALIGNED) -> np.ndarray:
         """(6, nv) frame Jacobian in ``reference`` (cached for the tick)."""

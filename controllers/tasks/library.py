@@ -263,15 +263,14 @@ class WallTask(Task):
             return None
         J = state.jacobian(self.fid)[:3]
         drift = state.drift(self.fid)[:3]
-        v = J @ state.dq
-        Minv_JT = state.Minv @ J.T
         A = np.zeros((len(touched), 2 * state.nv))
         b = np.zeros(len(touched))
         K, B = self.law.stiffness_N_per_m, self.law.damping_N_s_per_m
         for i, (n, pen) in enumerate(touched):
-            m_n = self.alpha / float(n @ J @ Minv_JT @ n)
-            A[i, : state.nv] = m_n * (n @ J)
-            b[i] = float(n @ f_world) - K * pen - B * float(n @ v) - m_n * float(n @ drift)
+            nJ = n @ J  # the row n^T J: the wall-normal speed is nJ q' and 1 / m_n = nJ M^-1 nJ^T / alpha
+            m_n = self.alpha / float(nJ @ (state.Minv @ nJ))
+            A[i, : state.nv] = m_n * nJ
+            b[i] = float(n @ f_world) - K * pen - B * float(nJ @ state.dq) - m_n * float(n @ drift)
         return A, b
 
 
