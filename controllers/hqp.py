@@ -63,7 +63,10 @@ conditions hold (:meth:`_Solver._working_set_step`).
 of a whole hierarchy are solved in one call of a numba kernel
 (:mod:`controllers._hqp_kernels`) with the same arithmetic, and only the
 levels that need the backend return to Python; ``HQPParams(compiled=False)``
-solves every level in Python (the reference the tests compare it with).
+solves every level in Python (the reference the tests compare it with). The
+kernel takes every level's rows stacked: a :class:`LevelStack` (what a
+controller builds once per tick) goes to it as it is, a list of
+:class:`Level` is stacked first.
 
 **Regularization.** With ``regularization > 0`` a last level
 :math:`\min \tfrac12\|x\|^2` over the freedom that remains makes ``x``
