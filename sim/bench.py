@@ -56,6 +56,7 @@ from __future__ import annotations
 import concurrent.futures
 import cProfile
 import dataclasses
+import functools
 import io
 import multiprocessing
 import os
@@ -247,8 +248,6 @@ class _StageClock:
         self._stack: list[list] = []  # [stage, start, time of nested stages]
 
     def wrap(self, stage: str, fn):
-        import functools
-
         @functools.wraps(fn)
         def timed(*args, **kwargs):
             frame = [stage, time.perf_counter(), 0.0]

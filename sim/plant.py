@@ -87,6 +87,21 @@ def _scaled(arm: ArmModel, scale: float, gravity: float) -> ArmModel:
     return dataclasses.replace(arm, model=model)
 
 
+def _state_setter(pair: str, split: str, robot: bool, own: str):
+    """Setter of a :class:`CoupledPlant` state vector: attribute ``own``, or with the pair model a new pair
+    state ``pair`` with the robot's (``robot``) or the human's part replaced, split at the robot's size ``split``."""
+
+    def set_(self, value: np.ndarray) -> None:
+        if not self._pair:
+            setattr(self, own, value)
+            return
+        k, state = getattr(self, split), getattr(self, pair)
+        value = np.asarray(value, dtype=float)
+        setattr(self, pair, np.concatenate((value, state[k:]) if robot else (state[:k], value)))
+
+    return set_
+
+
 class CoupledPlant:
     """State and dynamics of the exoskeleton, the human arm and the cuffs.
 
@@ -195,53 +210,15 @@ class CoupledPlant:
     # -- state -------------------------------------------------------------------------
     # With the pair model the four vectors are views of its state (each substep makes a new one, as
     # pinocchio.integrate and aba return new arrays); assigning one copies it into a new pair state.
-    @property
-    def q_exo(self) -> np.ndarray:
-        """Robot joint positions (nq,) [rad]."""
-        return self._q[:self._nq_e] if self._pair else self._q_exo
-
-    @q_exo.setter
-    def q_exo(self, value: np.ndarray) -> None:
-        if self._pair:
-            self._q = np.concatenate((np.asarray(value, dtype=float), self._q[self._nq_e:]))
-        else:
-            self._q_exo = value
-
-    @property
-    def v_exo(self) -> np.ndarray:
-        """Robot joint velocities (nv,) [rad/s]."""
-        return self._v[:self._nv_e] if self._pair else self._v_exo
-
-    @v_exo.setter
-    def v_exo(self, value: np.ndarray) -> None:
-        if self._pair:
-            self._v = np.concatenate((np.asarray(value, dtype=float), self._v[self._nv_e:]))
-        else:
-            self._v_exo = value
-
-    @property
-    def q_human(self) -> np.ndarray:
-        """Human joint positions (nq,) [rad]."""
-        return self._q[self._nq_e:] if self._pair else self._q_human
-
-    @q_human.setter
-    def q_human(self, value: np.ndarray) -> None:
-        if self._pair:
-            self._q = np.concatenate((self._q[:self._nq_e], np.asarray(value, dtype=float)))
-        else:
-            self._q_human = value
-
-    @property
-    def v_human(self) -> np.ndarray:
-        """Human joint velocities (nv,) [rad/s]."""
-        return self._v[self._nv_e:] if self._pair else self._v_human
-
-    @v_human.setter
-    def v_human(self, value: np.ndarray) -> None:
-        if self._pair:
-            self._v = np.concatenate((self._v[:self._nv_e], np.asarray(value, dtype=float)))
-        else:
-            self._v_human = value
+    # (the getters are read several times a tick, so each is one expression)
+    q_exo = property(lambda self: self._q[:self._nq_e] if self._pair else self._q_exo,
+                     _state_setter("_q", "_nq_e", True, "_q_exo"), doc="Robot joint positions (nq,) [rad].")
+    v_exo = property(lambda self: self._v[:self._nv_e] if self._pair else self._v_exo,
+                     _state_setter("_v", "_nv_e", True, "_v_exo"), doc="Robot joint velocities (nv,) [rad/s].")
+    q_human = property(lambda self: self._q[self._nq_e:] if self._pair else self._q_human,
+                       _state_setter("_q", "_nq_e", False, "_q_human"), doc="Human joint positions (nq,) [rad].")
+    v_human = property(lambda self: self._v[self._nv_e:] if self._pair else self._v_human,
+                       _state_setter("_v", "_nv_e", False, "_v_human"), doc="Human joint velocities (nv,) [rad/s].")
 
     def _joint_forces(self) -> tuple[list[np.ndarray], list[np.ndarray]]:
         """The joint-frame wrenches aba reads, per arm: one (6,) [N, N m] per joint, universe first (copies)."""
