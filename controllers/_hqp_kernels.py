@@ -34,7 +34,7 @@ from numba.core import cgutils, types
 from numba.extending import intrinsic
 
 __all__ = ["CLOSED_FORM", "WORKING_SET", "NO_FREEDOM", "NEEDS_QP", "EMPTY", "METHODS", "HAVE_CLOCK",
-           "solve_level_fast", "solve_levels_fast"]
+           "solve_level_fast", "solve_levels_fast", "solve_stack_fast"]
 
 CLOSED_FORM, WORKING_SET, NO_FREEDOM, NEEDS_QP, EMPTY = 0, 1, 2, 3, 4
 METHODS = ("closed-form", "working-set", "no freedom", "qp", "empty")
@@ -484,3 +484,41 @@ def solve_levels_fast(start, end, timed, x, N, has_N, G, h, A, b, sw, eq_off, un
         residuals[k] = ((e * e).sum() if unit_eq[k] else (w * w * e * e).sum()) + (wi[in_off[k]: in_off[k + 1]]
                                                                                     * v * v).sum()
     return p, x, N, has_N, G, h
+
+
+@nb.njit(cache=True)
+def solve_stack_fast(G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, rank_tol, feas_tol, slack_tol, mult_tol,
+                     closed_form, working_set_step, methods, X, e_all, v_all, free, seconds, residuals, clock):
+    r"""A whole hierarchy above hard inequality rows ``G x <= h`` (no hard equalities, no bounds), in one call.
+
+    What :func:`controllers.hqp.solve_hierarchy` does for such a stack up to
+    the final minimum-norm level: the absolute feasibility tolerance
+    ``feas_tol * (1 + max|h|)`` (:class:`controllers.hqp._Constraints`), the
+    start point :math:`x = 0` with the whole space free, every level through
+    :func:`solve_levels_fast` (timed), and the largest violation of the hard
+    rows at the final point (the solver's safety net).
+
+    Returns ``(stop, x, r, violation, tol)``: ``stop`` is the first level that
+    needs the QP backend, or the number of levels when none does, ``x`` the
+    point after the levels solved, ``r`` the dimension of the freedom left,
+    ``violation`` :math:`\max_i (G x - h)_i` over the hard rows (0 without
+    rows) and ``tol`` the tolerance it is to be compared with.
+    """
+    n = A.shape[1]
+    m_hard = G.shape[0]
+    scale = 0.0
+    for i in range(m_hard):
+        if abs(h[i]) > scale:
+            scale = abs(h[i])
+    tol = feas_tol * (1.0 + scale)
+    p = methods.shape[0]
+    x = np.zeros(n)
+    stop, x, N, has_N, _, _ = solve_levels_fast(
+        0, p, True, x, np.zeros((n, 0)), False, G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, tol, rank_tol,
+        feas_tol, slack_tol, mult_tol, closed_form, working_set_step, methods, X, e_all, v_all, free, seconds,
+        residuals, clock)
+    r = N.shape[1] if has_N else n
+    violation = 0.0
+    if m_hard:
+        violation = (G @ x - h).max()
+    return stop, x, r, violation, tol

@@ -118,6 +118,7 @@ __all__ = [
     "HQPParams",
     "HQPInfeasibleError",
     "QPSolveError",
+    "HierarchySolver",
     "solve_hierarchy",
 ]
 
@@ -459,6 +460,29 @@ class LevelStack(Sequence):
         self.in_off = np.array(in_off, dtype=np.int64)
         self.unit_eq = np.array(unit, dtype=np.bool_)
         self.n_cols = n if (m_e or m_i) else None
+        self.names = tuple(names)
+        self._layout = layout
+        self._levels = [None] * len(layout)
+        return self
+
+    @classmethod
+    def from_arrays(cls, A: np.ndarray, b: np.ndarray, sw: np.ndarray, eq_off: np.ndarray, unit_eq: np.ndarray,
+                    C: np.ndarray, d: np.ndarray, wi: np.ndarray, in_off: np.ndarray, n: int, names: Sequence[str],
+                    layout: Sequence) -> LevelStack:
+        """A stack over rows already stacked by the caller, without a copy (see the class attributes).
+
+        For a caller that writes every level's rows into its own buffers each
+        control tick: the arrays are used as they are (C-ordered float64,
+        ``eq_off``/``in_off`` int64, ``unit_eq`` bool), so they must not change
+        while the stack is in use. ``layout`` holds, per level, the pair of
+        lists ``(eq, ineq)`` of ``(first row, end row, weight)`` of each entry,
+        which indexing uses to rebuild the level's entries. Nothing is
+        validated, not even finiteness.
+        """
+        self = object.__new__(cls)
+        self.A, self.b, self.sw, self.eq_off, self.unit_eq = A, b, sw, eq_off, unit_eq
+        self.C, self.d, self.wi, self.in_off = C, d, wi, in_off
+        self.n_cols = n if (A.shape[0] or C.shape[0]) else None
         self.names = tuple(names)
         self._layout = layout
         self._levels = [None] * len(layout)
@@ -1325,3 +1349,106 @@ def solve_hierarchy(
         level_x=tuple(level_x),
         qp_solves=work.qp_solves,
     )
+
+
+class HierarchySolver:
+    r""":func:`solve_hierarchy` for a caller that solves a hierarchy of the same kind every control tick.
+
+    Everything that does not change from tick to tick is checked once, here:
+    the number of variables, the backend, the parameters and the
+    regularization. :meth:`solve` then takes one tick's
+    :class:`LevelStack` above hard inequality rows :math:`G x \le h` (the
+    torque limits of a controller whose torque is eliminated) and, when every
+    level is solved by the compiled kernel and no freedom is left for the
+    final minimum-norm level, builds the result straight from the kernel's
+    output. Any other case (a level that needs the QP backend, freedom left,
+    a violated hard row, a machine without the kernel's clock,
+    ``HQPParams(compiled=False)``) is handed to :func:`solve_hierarchy` with
+    ``hard=Level.unchecked(ineq=[(G, h, 1.0)])``, so the answer is always
+    that of :func:`solve_hierarchy`: the same arithmetic, to the bit (tested).
+
+    Parameters
+    ----------
+    n : int
+        Number of decision variables.
+    solver : str or None
+        QP backend name, as for :func:`solve_hierarchy`.
+    regularization : float, default 1e-8
+        As for :func:`solve_hierarchy`.
+    params : HQPParams or None
+        As for :func:`solve_hierarchy`.
+
+    Raises
+    ------
+    ParameterError
+        On a bad ``n``, ``regularization`` or ``params`` (naming it).
+    BackendNotFound
+        If ``solver`` is not installed.
+    """
+
+    def __init__(self, n: int, solver: str | None = None, *, regularization: float = 1e-8,
+                 params: HQPParams | None = None) -> None:
+        if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1:
+            raise ParameterError(f"HierarchySolver: n must be an int >= 1, got {n!r}")
+        params = _DEFAULT_PARAMS if params is None else params
+        if not isinstance(params, HQPParams):
+            raise ParameterError(f"HierarchySolver: params must be an HQPParams, got {type(params).__name__}")
+        if not (isinstance(regularization, (int, float)) and math.isfinite(regularization) and regularization >= 0):
+            raise ParameterError(f"HierarchySolver: regularization must be a finite float >= 0, got "
+                                 f"{regularization!r}")
+        get_backend(solver)  # raises BackendNotFound now rather than at the first tick
+        self.n, self.solver, self.params, self.regularization = int(n), solver, params, float(regularization)
+        self.solver_name = DEFAULT_BACKEND if solver is None else solver
+        self._fast = params.compiled and _kernels.HAVE_CLOCK
+        self._clock = np.zeros(2, dtype=np.int64)
+
+    def solve(self, stack: LevelStack, G: np.ndarray, h: np.ndarray, *, name: str = "hard",
+              warm_start: np.ndarray | HierarchyResult | None = None) -> HierarchyResult:
+        """The hierarchy ``stack`` above the hard rows ``G x <= h``: :func:`solve_hierarchy`'s result.
+
+        Parameters
+        ----------
+        stack : LevelStack
+            The levels, ``n`` columns.
+        G : (m, n) ndarray
+            Hard inequality rows (C-ordered float64; used as given, not copied).
+        h : (m,) ndarray
+            Their right-hand sides.
+        name : str
+            Name of the hard level in messages.
+        warm_start : as for :func:`solve_hierarchy`
+            Used (and checked) only by a level that needs the QP backend.
+        """
+        t_start = time.perf_counter()
+        if type(stack) is not LevelStack:
+            raise ParameterError(f"HierarchySolver.solve: stack must be a LevelStack, got {type(stack).__name__}")
+        n, p = self.n, len(stack.names)
+        if stack.n_cols not in (None, n):
+            raise ParameterError(f"HierarchySolver.solve: the level stack has {stack.n_cols} columns, expected n = {n}")
+        if self._fast and p and G.shape == (h.shape[0], n):
+            prm = self.params
+            A, C = stack.A, stack.C
+            m_e, m_i = A.shape[0], C.shape[0]
+            codes, free = np.empty(p, dtype=np.int64), np.empty(p, dtype=np.int64)
+            X, e_all, v_all = np.empty((p, n)), np.empty(m_e), np.empty(m_i)
+            seconds, residuals = np.empty(p), np.empty(p)
+            stop, x, r, violation, tol = _kernels.solve_stack_fast(
+                _writable(G), _writable(h), _writable(A), stack.b, stack.sw, stack.eq_off, stack.unit_eq,
+                _writable(C), stack.d, stack.wi,
+                stack.in_off, prm.rank_tol, prm.feasibility_tol, prm.slack_tol, prm.multiplier_tol, prm.closed_form,
+                prm.working_set_step, codes, X, e_all, v_all, free, seconds, residuals, self._clock)
+            if stop == p and (r == 0 or self.regularization == 0.0) and violation <= tol:
+                for arr in (e_all, v_all, X, residuals, seconds):
+                    arr.flags.writeable = False
+                eo, io = stack.eq_off.tolist(), stack.in_off.tolist()
+                x = _read_only(x)
+                methods = _kernels.METHODS
+                return HierarchyResult(
+                    x=x, level_residuals=residuals,
+                    level_slacks=tuple((e_all[eo[k]: eo[k + 1]], v_all[io[k]: io[k + 1]]) for k in range(p)),
+                    found=True, solve_time_s=time.perf_counter() - t_start, level_times_s=seconds,
+                    solver=self.solver_name, level_methods=tuple(methods[c] for c in codes.tolist()),
+                    free_dims=tuple(free.tolist()), level_x=tuple(X), qp_solves=0)
+        hard = Level.unchecked(ineq=[(G, h, 1.0)], name=name)
+        return solve_hierarchy(stack, n, self.solver, hard=hard, regularization=self.regularization,
+                               warm_start=warm_start, params=self.params)

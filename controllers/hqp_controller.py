@@ -45,12 +45,39 @@ from models.errors import ParameterError, SandboxError
 from models.records import Measurement
 
 from .base import Controller, ControllerContext
-from .hqp import HQPParams, Level, LevelStack, solve_hierarchy
+from .hqp import HierarchySolver, HQPParams, Level, LevelStack, solve_hierarchy
 from .tasks import Task, TickState
 
 __all__ = ["HQPController"]
 
 _log = logging.getLogger(__name__)
+
+
+class _StackBuffers:
+    """Row buffers of the stacked levels, written every tick and grown (doubled) when a tick needs more rows.
+
+    ``A, b, sw`` hold the equality rows, their right-hand sides and the square roots of their weights,
+    ``C, d, wi`` the inequality rows, theirs and their weights, ``eq_off``/``in_off`` (p + 1,) where each
+    level starts and ``unit_eq`` (p,) whether a level's equality weights are all 1 (see
+    :class:`~controllers.hqp.LevelStack`), for ``cols`` columns.
+    """
+
+    def __init__(self, cols: int, p: int, rows: int = 64) -> None:
+        self.cols = cols
+        self.A, self.b, self.sw = np.zeros((rows, cols)), np.zeros(rows), np.zeros(rows)
+        self.C, self.d, self.wi = np.zeros((rows, cols)), np.zeros(rows), np.zeros(rows)
+        self.eq_off, self.in_off = np.zeros(p + 1, dtype=np.int64), np.zeros(p + 1, dtype=np.int64)
+        self.unit_eq = np.ones(p, dtype=np.bool_)
+
+    def grow(self, kind: str, rows: int) -> None:
+        """Room for at least ``rows`` rows of ``kind`` ("eq" or "ineq"), keeping the rows written so far."""
+        names = ("A", "b", "sw") if kind == "eq" else ("C", "d", "wi")
+        size = max(rows, 2 * getattr(self, names[0]).shape[0])
+        for name in names:
+            old = getattr(self, name)
+            new = np.zeros((size, *old.shape[1:]))
+            new[: old.shape[0]] = old
+            setattr(self, name, new)
 
 
 class HQPController(Controller):
@@ -112,7 +139,11 @@ class HQPController(Controller):
         self._ub = np.concatenate([np.full(n, np.inf), tau_max])
         self._A_dyn = np.zeros((n, 2 * n))
         self._A_dyn[:, n:] = -np.eye(n)
-        self._eye, self._zero = np.eye(n), np.zeros(n)  # the constant halves of the minimum-norm rows [I; M], [0; -c]
+        self._eye = np.eye(n)  # the constant half of the minimum-norm rows [I; M]
+        self._G, self._h = np.zeros((2 * n, n)), np.zeros(2 * n)  # the hard rows of the torque limits
+        self._hqp = HierarchySolver(n, self.solver, params=self.params)
+        # every level's rows are written into these buffers each tick (plus the minimum-norm level)
+        self._buf = _StackBuffers(n if self.eliminate_torque else 2 * n, len(self.levels) + 1)
         self._prev = None
         self._constant_rows: dict = {}  # (level, task) -> (read-only rows, their q part, their tau part or None)
         self._raw_rows: list = []  # (level, task, A, b) as the tasks returned them this tick
@@ -137,20 +168,26 @@ class HQPController(Controller):
     def diagnostics(self):
         return self._diag
 
-    def _task_entries(self, s: TickState, c: np.ndarray | None) -> tuple[list, int]:
-        """Per level, the ``(eq, ineq)`` lists of ``(A, b, w)`` of this tick (in q̈ when ``c`` is given) and their rows.
+    def _fill_stack(self, s: TickState, c: np.ndarray | None) -> tuple[LevelStack, int]:
+        """Every level's rows of this tick written into the controller's buffers (in q̈ when ``c`` is given).
 
-        Rows that are 2-D and 1-D float arrays of matching shapes go in as they are (their finiteness is
-        checked once on the whole stack, :meth:`_check_finite`); any other entry goes through the checks of
-        :class:`~controllers.hqp.Level`, which raise naming the level and the entry (or normalise it, e.g. a
-        1-D row).
+        Returns the stack over the buffers (valid until the next tick) and the number of task rows. Rows
+        that are 2-D and 1-D float arrays of matching shapes go in as they are (their finiteness is
+        checked once on the whole stack, :meth:`_check_finite`); any other entry goes through the checks
+        of :class:`~controllers.hqp.Level`, which raise naming the level and the entry (or normalise it,
+        e.g. a 1-D row). With ``c``, a row on the torques :math:`A_q \\ddot q + A_\\tau \\tau = b` is
+        written as :math:`(A_q + A_\\tau M)\\ddot q = b - A_\\tau c` (module docstring).
         """
-        n, rows, levels = s.nv, 0, []
+        n, buf = s.nv, self._buf
+        cols = 2 * n
         cache = self._constant_rows
         raw = self._raw_rows
         raw.clear()
+        layout = []
+        m_e = m_i = 0
         for i, tasks in enumerate(self.levels):
-            eq, ineq = [], []
+            eq_spans, in_spans = [], []
+            unit = True
             for j, t in enumerate(tasks):
                 r = t.rows(s)
                 if r is None:
@@ -158,37 +195,74 @@ class HQPController(Controller):
                 A, b = r[0], r[1]
                 raw.append((i, t, A, b))
                 hit = cache.get((i, j))
-                if (c is not None and hit is not None and hit[0] is A and type(b) is np.ndarray and b.dtype == float
+                if (hit is not None and hit[0] is A and type(b) is np.ndarray and b.dtype == float
                         and b.shape == (A.shape[0],)):
-                    # the same read-only rows as at an earlier tick: checked and split then
-                    _, A_q, A_t = hit
-                    rows += b.shape[0]
-                    if A_t is None:
-                        (eq if t.kind == "eq" else ineq).append((A_q, b, t.weight))
+                    _, A_q, A_t = hit  # the same read-only rows as at an earlier tick: checked and split then
+                else:
+                    if not (type(A) is np.ndarray and type(b) is np.ndarray and A.dtype == float
+                            and b.dtype == float and A.ndim == 2 and b.ndim == 1 and A.shape == (b.shape[0], cols)):
+                        kind = "eq" if t.kind == "eq" else "ineq"
+                        checked = Level(**{kind: [(A, b, t.weight)]}, name=self._level_names[i])
+                        A, b = (checked.A, checked.b) if kind == "eq" else (checked.C, checked.d)
+                        if A.shape[1] != cols:
+                            raise ParameterError(f"{self._level_names[i]}: task {t.name!r} returned {A.shape[1]} "
+                                                 f"columns, expected 2 nv = {cols}")
+                    if c is None:
+                        A_q, A_t = A, None
                     else:
-                        (eq if t.kind == "eq" else ineq).append((A_q + A_t @ s.M, b - A_t @ c, t.weight))
-                    continue
-                if not (type(A) is np.ndarray and type(b) is np.ndarray and A.dtype == float and b.dtype == float
-                        and A.ndim == 2 and b.ndim == 1 and A.shape == (b.shape[0], 2 * n)):
-                    kind = "eq" if t.kind == "eq" else "ineq"
-                    checked = Level(**{kind: [(A, b, t.weight)]}, name=self._level_names[i])
-                    A, b = (checked.A, checked.b) if kind == "eq" else (checked.C, checked.d)
-                    if A.shape[1] != 2 * n:
-                        raise ParameterError(f"{self._level_names[i]}: task {t.name!r} returned {A.shape[1]} "
-                                             f"columns, expected 2 nv = {2 * n}")
-                rows += b.shape[0]
-                if c is not None:
-                    At = A[:, n:]
-                    has_tau = np.count_nonzero(At) > 0
+                        A_t = A[:, n:]
+                        A_q, A_t = A[:, :n], (A_t if np.count_nonzero(A_t) else None)
                     if type(r[0]) is np.ndarray and not r[0].flags.writeable and np.isfinite(A.sum()):
-                        cache[(i, j)] = (r[0], A[:, :n], At if has_tau else None)  # constant rows: split them once
-                    if has_tau:  # a row on the torques: tau = M qdd + c
-                        A, b = A[:, :n] + At @ s.M, b - At @ c
+                        cache[(i, j)] = (r[0], A_q, A_t)  # constant rows: split them once
+                k, w = b.shape[0], float(t.weight)
+                if t.kind == "eq":
+                    end = m_e + k
+                    if end > buf.A.shape[0]:
+                        buf.grow("eq", end)
+                    if A_t is None:
+                        buf.A[m_e:end] = A_q
+                        buf.b[m_e:end] = b
+                    else:  # a row on the torques: tau = M qdd + c
+                        buf.A[m_e:end] = A_q + A_t @ s.M
+                        buf.b[m_e:end] = b - A_t @ c
+                    buf.sw[m_e:end] = math.sqrt(w)
+                    eq_spans.append((m_e, end, w))
+                    unit = unit and w == 1.0
+                    m_e = end
+                else:
+                    end = m_i + k
+                    if end > buf.C.shape[0]:
+                        buf.grow("ineq", end)
+                    if A_t is None:
+                        buf.C[m_i:end] = A_q
+                        buf.d[m_i:end] = b
                     else:
-                        A = A[:, :n]
-                (eq if t.kind == "eq" else ineq).append((A, b, t.weight))
-            levels.append((eq, ineq))
-        return levels, rows
+                        buf.C[m_i:end] = A_q + A_t @ s.M
+                        buf.d[m_i:end] = b - A_t @ c
+                    buf.wi[m_i:end] = w
+                    in_spans.append((m_i, end, w))
+                    m_i = end
+            buf.eq_off[i + 1], buf.in_off[i + 1], buf.unit_eq[i] = m_e, m_i, unit
+            layout.append((eq_spans, in_spans))
+        rows = m_e + m_i
+        names = self._level_names
+        if c is not None:  # the minimum-norm level [I; M] qdd ~ [0; -c]: 1/2 ||qdd||^2 + 1/2 ||tau||^2
+            end = m_e + 2 * n
+            if end > buf.A.shape[0]:
+                buf.grow("eq", end)
+            buf.A[m_e:m_e + n] = self._eye
+            buf.A[m_e + n:end] = s.M
+            buf.b[m_e:m_e + n] = 0.0
+            np.negative(c, out=buf.b[m_e + n:end])
+            buf.sw[m_e:end] = 1.0
+            layout.append(([(m_e, end, 1.0)], []))
+            m_e = end
+            p = len(self.levels)
+            buf.eq_off[p + 1], buf.in_off[p + 1], buf.unit_eq[p] = m_e, m_i, True
+            names = self._stack_names
+        stack = LevelStack.from_arrays(buf.A[:m_e], buf.b[:m_e], buf.sw[:m_e], buf.eq_off, buf.unit_eq, buf.C[:m_i],
+                                       buf.d[:m_i], buf.wi[:m_i], buf.in_off, buf.cols, names, layout)
+        return stack, rows
 
     def _check_finite(self, stack: LevelStack) -> None:
         """Raise naming the first task whose rows are not finite, if the stacked rows are not.
@@ -215,22 +289,20 @@ class HQPController(Controller):
             if self.eliminate_torque:
                 M = s.M
                 c = s.h - s.cuff_force  # tau = M qdd + c
-                G = np.empty((2 * n, n))
-                G[:n], G[n:] = M, -M
-                hard = Level.unchecked(ineq=[(G, np.concatenate([self._tau_max - c, self._tau_max + c]), 1.0)],
-                                       name="torque limits")
-                entries, rows = self._task_entries(s, c)
-                entries.append(([(np.concatenate((self._eye, M)), np.concatenate((self._zero, -c)), 1.0)], ()))
-                stack = LevelStack.from_entries(entries, n, self._stack_names)
+                G, h = self._G, self._h  # the torque limits -tau_max <= M qdd + c <= tau_max
+                G[:n] = M
+                np.negative(M, out=G[n:])
+                np.subtract(self._tau_max, c, out=h[:n])
+                np.add(self._tau_max, c, out=h[n:])
+                stack, rows = self._fill_stack(s, c)
                 self._check_finite(stack)
                 t_solve = time.perf_counter()
-                res = solve_hierarchy(stack, n, self.solver, hard=hard, warm_start=self._prev, params=self.params)
+                res = self._hqp.solve(stack, G, h, name="torque limits", warm_start=self._prev)
                 tau = np.minimum(np.maximum(M @ res.x + c, -self._tau_max), self._tau_max)
             else:
                 self._A_dyn[:, :n] = s.M
                 hard = Level(eq=[(self._A_dyn, s.cuff_force - s.h)], name="dynamics")
-                entries, rows = self._task_entries(s, None)
-                stack = LevelStack.from_entries(entries, 2 * n, self._level_names)
+                stack, rows = self._fill_stack(s, None)
                 self._check_finite(stack)
                 t_solve = time.perf_counter()
                 res = solve_hierarchy(stack, 2 * n, self.solver, hard=hard, lb=self._lb, ub=self._ub,

@@ -108,3 +108,39 @@ def test_working_set_step_gives_the_backends_torques_and_is_used():
         used += "working-set" in step.last_result.level_methods
         assert "working-set" not in backend.last_result.level_methods
     assert used >= 1
+
+
+def test_rows_that_outgrow_the_stack_buffers_give_the_torques_of_cvxpy():
+    # a task whose number of rows changes from tick to tick, up to more than the controller's first buffers
+    # hold, between the limits and transparency: the stack is regrown and every tick still matches cvxpy
+    from controllers.hqp_controller import HQPController
+    from controllers.tasks import JointDamping, JointPositionLimits, Task, Transparency
+
+    class ManyPostureRows(Task):
+        """k copies of the rows q̈ = -q' (the same least-squares optimum whatever k), weight 0.1."""
+
+        name, kind, weight = "many_rows", "eq", 0.1
+
+        def __init__(self):
+            self.k = 0
+
+        def rows(self, state):
+            self.k = (self.k + 37) % 150 + 1
+            A = np.zeros((self.k * 7, 14))
+            A[:, :7] = np.tile(np.eye(7), (self.k, 1))
+            return A, np.tile(-state.dq, self.k)
+
+    arm, ctx = _context()
+    task = ManyPostureRows()
+    ctrl = HQPController([[JointPositionLimits()], [task], [Transparency()], [JointDamping()]])
+    ref = HQPController([[JointPositionLimits()], [ManyPostureRows()], [Transparency()], [JointDamping()]])
+    ctrl.reset(ctx)
+    ref.reset(ctx)
+    sizes = []
+    for m in _states(arm, 6, seed=11):
+        tau = ctrl.step(m)
+        sizes.append(task.k * 7)
+        tau_cvx = solve_levels_cvxpy(stack_rows(ref, m))[7:]
+        assert ctrl.diagnostics()["fallback"] == 0.0
+        assert np.abs(tau - tau_cvx).max() < TOL_NM
+    assert max(sizes) > 64 and len(set(sizes)) > 1  # beyond the first buffers (64 rows), and changing
