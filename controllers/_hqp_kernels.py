@@ -34,7 +34,7 @@ from numba.core import cgutils, types
 from numba.extending import intrinsic
 
 __all__ = ["CLOSED_FORM", "WORKING_SET", "NO_FREEDOM", "NEEDS_QP", "EMPTY", "METHODS", "HAVE_CLOCK",
-           "solve_level_fast", "solve_levels_fast", "solve_stack_fast"]
+           "solve_level_fast", "solve_levels_fast", "solve_stack_fast", "stack_is_finite"]
 
 CLOSED_FORM, WORKING_SET, NO_FREEDOM, NEEDS_QP, EMPTY = 0, 1, 2, 3, 4
 METHODS = ("closed-form", "working-set", "no freedom", "qp", "empty")
@@ -522,3 +522,18 @@ def solve_stack_fast(G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, rank_tol
     if m_hard:
         violation = (G @ x - h).max()
     return stop, x, r, violation, tol
+
+
+@nb.njit(cache=True)
+def stack_is_finite(A, b, C, d):
+    """Whether every entry of the stacked rows ``A``, ``b``, ``C``, ``d`` is finite (one pass, no temporaries)."""
+    for M in (A, C):
+        for i in range(M.shape[0]):
+            for j in range(M.shape[1]):
+                if not np.isfinite(M[i, j]):
+                    return False
+    for v in (b, d):
+        for i in range(v.shape[0]):
+            if not np.isfinite(v[i]):
+                return False
+    return True

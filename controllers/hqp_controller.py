@@ -44,6 +44,7 @@ import numpy as np
 from models.errors import ParameterError, SandboxError
 from models.records import Measurement
 
+from ._hqp_kernels import stack_is_finite
 from .base import Controller, ControllerContext
 from .hqp import HierarchySolver, HQPParams, Level, LevelStack, solve_hierarchy
 from .tasks import Task, TickState
@@ -267,10 +268,10 @@ class HQPController(Controller):
     def _check_finite(self, stack: LevelStack) -> None:
         """Raise naming the first task whose rows are not finite, if the stacked rows are not.
 
-        One sum over the whole stack in the common case; only a non-finite sum looks at the tasks' rows
+        One compiled pass over the whole stack in the common case; only a non-finite entry looks at the tasks' rows
         of this tick (as they returned them).
         """
-        if math.isfinite(stack.A.sum() + stack.b.sum() + stack.C.sum() + stack.d.sum()):
+        if stack_is_finite(stack.A, stack.b, stack.C, stack.d):
             return
         for i, t, A, b in self._raw_rows:  # the checks of Level name the level, the task and the bad element
             Level(**{"eq" if t.kind == "eq" else "ineq": [(A, b, t.weight)]},

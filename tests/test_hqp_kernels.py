@@ -77,3 +77,18 @@ def test_the_clock_inside_compiled_code_is_the_monotonic_clock():
     after = time.monotonic()
     assert before - 1e-6 <= inside <= after + 1e-6  # reference: time.monotonic, CLOCK_MONOTONIC as well
     assert kernels._now_s(buf) >= inside
+
+
+@pytest.mark.parametrize("bad", [np.nan, np.inf, -np.inf])
+def test_stack_finiteness_matches_numpy_for_every_position_of_a_bad_entry(bad):
+    # reference: numpy.isfinite over all four arrays
+    rng = np.random.default_rng(4)
+    arrays = [rng.normal(size=(5, 7)), rng.normal(size=5), rng.normal(size=(3, 7)), rng.normal(size=3)]
+    assert kernels.stack_is_finite(*arrays)
+    for which, arr in enumerate(arrays):
+        for idx in np.ndindex(arr.shape):
+            spoilt = [a.copy() for a in arrays]
+            spoilt[which][idx] = bad
+            assert not all(np.isfinite(a).all() for a in spoilt)
+            assert not kernels.stack_is_finite(*spoilt)
+    assert kernels.stack_is_finite(np.zeros((0, 7)), np.zeros(0), np.zeros((0, 7)), np.zeros(0))
