@@ -14,6 +14,7 @@ import pinocchio as pin
 from models._checks import in_range, nonnegative, positive, vector
 from models.errors import ParameterError
 
+from . import _kernels
 from ._common import TickState
 from .base import Task
 
@@ -91,16 +92,12 @@ class JointPositionLimits(Task):
     def bind(self, state: TickState) -> None:
         self.lo, self.hi = state.arm.position_limits()
         self._C = _limit_rows(state.nv)
-        # both sides at once: the rows S = [I; -I] and the bounds [q_max - m; -(q_min + m)], so that the
-        # remaining distance of each side is d = bound - S q and its velocity towards the limit S q'
-        self._S = np.vstack([np.eye(state.nv), -np.eye(state.nv)])
-        self._bound = np.concatenate([self.hi - self.margin, -(self.lo + self.margin)])
+        # the bounds of both sides, q_max - m and -(q_min + m): the remaining distances are upper - q and lower + q
+        self._upper, self._lower = self.hi - self.margin, -(self.lo + self.margin)
 
     def rows(self, state: TickState):
-        dt = state.dt_s
-        d = np.maximum(self._bound - self._S @ state.q, 0.0)
-        v = self._S @ state.dq
-        return self._C, np.minimum((np.sqrt((2.0 * self.a) * d) - v) / dt, (d - v * dt) / (dt * dt))
+        return self._C, _kernels.position_limit_bounds(state.q, state.dq, self._upper, self._lower, 2.0 * self.a,
+                                                       state.dt_s)
 
 
 class JointVelocityLimits(Task):
@@ -117,8 +114,7 @@ class JointVelocityLimits(Task):
         self._C = _limit_rows(state.nv)
 
     def rows(self, state: TickState):
-        dt, v = state.dt_s, state.dq
-        return self._C, np.concatenate([(self.vmax - v) / dt, (self.vmax + v) / dt])
+        return self._C, _kernels.velocity_limit_bounds(state.dq, self.vmax, state.dt_s)
 
 
 class Transparency(Task):
@@ -254,24 +250,17 @@ class WallTask(Task):
     def rows(self, state: TickState):
         w = state.measurement.cuff_wrench[self.sensor]
         R = state.rotation(self.sid)
-        f_world = R @ w[:3]
         p = state.position(self.fid)
         if self.cuff_compliance is not None:
             p = p + R @ (self.cuff_compliance * w[:3])  # the wearer's hand point
         touched = self.faces(p)
         if not touched:
             return None
-        J = state.jacobian(self.fid)[:3]
-        drift = state.drift(self.fid)[:3]
-        A = np.zeros((len(touched), 2 * state.nv))
-        b = np.zeros(len(touched))
-        K, B = self.law.stiffness_N_per_m, self.law.damping_N_s_per_m
-        for i, (n, pen) in enumerate(touched):
-            nJ = n @ J  # the row n^T J: the wall-normal speed is nJ q' and 1 / m_n = nJ M^-1 nJ^T / alpha
-            m_n = self.alpha / float(nJ @ (state.Minv @ nJ))
-            A[i, : state.nv] = m_n * nJ
-            b[i] = float(n @ f_world) - K * pen - B * float(nJ @ state.dq) - m_n * float(n @ drift)
-        return A, b
+        normals = np.array([n for n, _ in touched], dtype=float).reshape(-1, 3)
+        pens = np.array([pen for _, pen in touched], dtype=float)
+        # per face: the row n^T J (the wall-normal speed is n^T J q' and 1 / m_n = n^T J M^-1 J^T n / alpha)
+        return _kernels.wall_rows(normals, pens, R, w, state.jacobian(self.fid), state.drift(self.fid), state.Minv,
+                                  state.dq, self.alpha, self.law.stiffness_N_per_m, self.law.damping_N_s_per_m)
 
 
 class PlaneWall(WallTask):
