@@ -93,6 +93,16 @@ def _max_or(values, initial):
 
 
 @nb.njit(cache=True)
+def _abs_max(v):
+    """``numpy.abs(v).max()`` of a finite vector without the temporary (0 for an empty one)."""
+    worst = 0.0
+    for k in range(v.shape[0]):
+        if abs(v[k]) > worst:
+            worst = abs(v[k])
+    return worst
+
+
+@nb.njit(cache=True)
 def _lstsq(M, rhs):
     r"""Minimum-norm least squares, as ``numpy.linalg.lstsq(M, rhs, rcond=None)[0]``.
 
@@ -141,6 +151,15 @@ def _svd_right(P):
         return s, V, P @ V
     Wc = np.ascontiguousarray(P.T)  # row j: column j of P V
     V = np.eye(r)  # row j: column j of V
+    # a column whose squared norm is below eps^2 ||P||_F^2 is zero to working precision: rotating it
+    # against another changes nothing that matters, and its direction is rounding noise that would
+    # never pass the orthogonality test, so a rank-deficient P (every wide one) would run all the
+    # sweeps (the skip of negligible columns of LAPACK's dgesvj; Drmac & Veselic 2008, from memory)
+    negligible = 0.0
+    for k in range(m):
+        for j in range(r):
+            negligible += Wc[j, k] * Wc[j, k]
+    negligible *= _EPS * _EPS
     for _ in range(64):
         rotated = False
         for i in range(r - 1):
@@ -150,7 +169,7 @@ def _svd_right(P):
                     a += Wc[i, k] * Wc[i, k]
                     b += Wc[j, k] * Wc[j, k]
                     c += Wc[i, k] * Wc[j, k]
-                if c == 0.0 or abs(c) <= _EPS * np.sqrt(a * b):
+                if c == 0.0 or abs(c) <= _EPS * np.sqrt(a * b) or a <= negligible or b <= negligible:
                     continue
                 rotated = True
                 zeta = (b - a) / (2.0 * c)
@@ -178,20 +197,36 @@ def _spd_solve(S, rhs):
     clearly positive definite (a pivot below 1e-12 times the largest diagonal entry)."""
     m = S.shape[0]
     L = np.zeros((m, m))
-    floor = 1e-12 * max(np.abs(np.diag(S)).max(), 1e-300) if m else 0.0
+    largest = 1e-300
     for j in range(m):
-        d = S[j, j] - (L[j, :j] ** 2).sum()
+        largest = max(largest, abs(S[j, j]))
+    floor = 1e-12 * largest if m else 0.0
+    # the sums run in index order, as numba's ndarray.sum of the slices they replace (no temporaries)
+    for j in range(m):
+        acc = 0.0
+        for k in range(j):
+            acc += L[j, k] ** 2
+        d = S[j, j] - acc
         if not d > floor:
             return False, rhs
         L[j, j] = np.sqrt(d)
         for i in range(j + 1, m):
-            L[i, j] = (S[i, j] - (L[i, :j] * L[j, :j]).sum()) / L[j, j]
+            acc = 0.0
+            for k in range(j):
+                acc += L[i, k] * L[j, k]
+            L[i, j] = (S[i, j] - acc) / L[j, j]
     y = np.empty(m)
     for i in range(m):
-        y[i] = (rhs[i] - (L[i, :i] * y[:i]).sum()) / L[i, i]
+        acc = 0.0
+        for k in range(i):
+            acc += L[i, k] * y[k]
+        y[i] = (rhs[i] - acc) / L[i, i]
     x = np.empty(m)
     for i in range(m - 1, -1, -1):
-        x[i] = (y[i] - (L[i + 1:, i] * x[i + 1:]).sum()) / L[i, i]
+        acc = 0.0
+        for k in range(i + 1, m):
+            acc += L[k, i] * x[k]
+        x[i] = (y[i] - acc) / L[i, i]
     return True, x
 
 
@@ -241,7 +276,7 @@ def _constraint_rows(x, N, has_N, G, h, rank_tol):
     if has_N and Gz.shape[0]:
         keep = np.empty(Gz.shape[0], dtype=np.bool_)
         for i in range(Gz.shape[0]):
-            keep[i] = np.abs(Gz[i]).max() > rank_tol * max(np.abs(G[i]).max(), 1e-300)
+            keep[i] = _abs_max(Gz[i]) > rank_tol * max(_abs_max(G[i]), 1e-300)
         if not keep.all():
             return _rows(Gz, keep), _entries(hz, keep), _rows(G, keep)
     return Gz, hz, G.copy()
@@ -332,7 +367,12 @@ def _eliminate(rows, N, has_N, rank_tol):
         return N, has_N
     unit = np.empty_like(rows)
     for i in range(rows.shape[0]):
-        unit[i] = rows[i] / max(np.sqrt((rows[i] ** 2).sum()), 1e-300)
+        sq = 0.0
+        for j in range(rows.shape[1]):
+            sq += rows[i, j] ** 2
+        norm = max(np.sqrt(sq), 1e-300)
+        for j in range(rows.shape[1]):
+            unit[i, j] = rows[i, j] / norm
     s, V, _ = _svd_right(_proj(unit, N, has_N))
     rank = int((s > rank_tol * np.sqrt(unit.shape[0])).sum())
     V2 = np.ascontiguousarray(V[:, rank:])
