@@ -52,6 +52,7 @@ from .tasks import Task, TickState
 __all__ = ["HQPController"]
 
 _log = logging.getLogger(__name__)
+_NDARRAY, _F64 = np.ndarray, np.dtype(np.float64)
 
 
 class _StackBuffers:
@@ -146,7 +147,12 @@ class HQPController(Controller):
         # every level's rows are written into these buffers each tick (plus the minimum-norm level)
         self._buf = _StackBuffers(n if self.eliminate_torque else 2 * n, len(self.levels) + 1)
         self._prev = None
-        self._constant_rows: dict = {}  # (level, task) -> (read-only rows, their q part, their tau part or None)
+        # per level, (slot, task, is an equality task); a task's slot holds its constant rows, split, once seen
+        self._plan, slot = [], 0
+        for tasks in self.levels:
+            self._plan.append([(slot + j, t, t.kind == "eq") for j, t in enumerate(tasks)])
+            slot += len(tasks)
+        self._constant_rows: list = [None] * slot  # (read-only rows, their q part, their tau part or None)
         self._raw_rows: list = []  # (level, task, A, b) as the tasks returned them this tick
         self.fallback_count = 0
         self.last_fallback_reason = None
@@ -181,30 +187,33 @@ class HQPController(Controller):
         """
         n, buf = s.nv, self._buf
         cols = 2 * n
+        M = s.M
         cache = self._constant_rows
         raw = self._raw_rows
         raw.clear()
         layout = []
         m_e = m_i = 0
-        for i, tasks in enumerate(self.levels):
+        A_buf, b_buf, sw_buf, C_buf, d_buf, wi_buf = buf.A, buf.b, buf.sw, buf.C, buf.d, buf.wi
+        eq_off, in_off, unit_eq = buf.eq_off, buf.in_off, buf.unit_eq
+        for i, level in enumerate(self._plan):
             eq_spans, in_spans = [], []
             unit = True
-            for j, t in enumerate(tasks):
+            for slot, t, is_eq in level:
                 r = t.rows(s)
                 if r is None:
                     continue
                 A, b = r[0], r[1]
                 raw.append((i, t, A, b))
-                hit = cache.get((i, j))
-                if (hit is not None and hit[0] is A and type(b) is np.ndarray and b.dtype == float
-                        and b.shape == (A.shape[0],)):
-                    _, A_q, A_t = hit  # the same read-only rows as at an earlier tick: checked and split then
+                hit = cache[slot]
+                if (hit is not None and hit[0] is A and type(b) is _NDARRAY and b.dtype == _F64 and b.ndim == 1
+                        and b.shape[0] == A.shape[0]):
+                    A_q, A_t = hit[1], hit[2]  # the same read-only rows as at an earlier tick: checked and split then
                 else:
-                    if not (type(A) is np.ndarray and type(b) is np.ndarray and A.dtype == float
-                            and b.dtype == float and A.ndim == 2 and b.ndim == 1 and A.shape == (b.shape[0], cols)):
-                        kind = "eq" if t.kind == "eq" else "ineq"
+                    if not (type(A) is _NDARRAY and type(b) is _NDARRAY and A.dtype == _F64 and b.dtype == _F64
+                            and A.ndim == 2 and b.ndim == 1 and A.shape == (b.shape[0], cols)):
+                        kind = "eq" if is_eq else "ineq"
                         checked = Level(**{kind: [(A, b, t.weight)]}, name=self._level_names[i])
-                        A, b = (checked.A, checked.b) if kind == "eq" else (checked.C, checked.d)
+                        A, b = (checked.A, checked.b) if is_eq else (checked.C, checked.d)
                         if A.shape[1] != cols:
                             raise ParameterError(f"{self._level_names[i]}: task {t.name!r} returned {A.shape[1]} "
                                                  f"columns, expected 2 nv = {cols}")
@@ -213,37 +222,42 @@ class HQPController(Controller):
                     else:
                         A_t = A[:, n:]
                         A_q, A_t = A[:, :n], (A_t if np.count_nonzero(A_t) else None)
-                    if type(r[0]) is np.ndarray and not r[0].flags.writeable and np.isfinite(A.sum()):
-                        cache[(i, j)] = (r[0], A_q, A_t)  # constant rows: split them once
+                    if type(r[0]) is _NDARRAY and not r[0].flags.writeable and np.isfinite(A.sum()):
+                        cache[slot] = (r[0], A_q, A_t)  # constant rows: split them once
                 k, w = b.shape[0], float(t.weight)
-                if t.kind == "eq":
+                if is_eq:
                     end = m_e + k
-                    if end > buf.A.shape[0]:
+                    if end > A_buf.shape[0]:
                         buf.grow("eq", end)
+                        A_buf, b_buf, sw_buf = buf.A, buf.b, buf.sw
                     if A_t is None:
-                        buf.A[m_e:end] = A_q
-                        buf.b[m_e:end] = b
+                        A_buf[m_e:end] = A_q
+                        b_buf[m_e:end] = b
                     else:  # a row on the torques: tau = M qdd + c
-                        buf.A[m_e:end] = A_q + A_t @ s.M
-                        buf.b[m_e:end] = b - A_t @ c
-                    buf.sw[m_e:end] = math.sqrt(w)
+                        A_buf[m_e:end] = A_q + A_t @ M
+                        b_buf[m_e:end] = b - A_t @ c
+                    sw_buf[m_e:end] = math.sqrt(w)
                     eq_spans.append((m_e, end, w))
-                    unit = unit and w == 1.0
+                    if w != 1.0:
+                        unit = False
                     m_e = end
                 else:
                     end = m_i + k
-                    if end > buf.C.shape[0]:
+                    if end > C_buf.shape[0]:
                         buf.grow("ineq", end)
+                        C_buf, d_buf, wi_buf = buf.C, buf.d, buf.wi
                     if A_t is None:
-                        buf.C[m_i:end] = A_q
-                        buf.d[m_i:end] = b
+                        C_buf[m_i:end] = A_q
+                        d_buf[m_i:end] = b
                     else:
-                        buf.C[m_i:end] = A_q + A_t @ s.M
-                        buf.d[m_i:end] = b - A_t @ c
-                    buf.wi[m_i:end] = w
+                        C_buf[m_i:end] = A_q + A_t @ M
+                        d_buf[m_i:end] = b - A_t @ c
+                    wi_buf[m_i:end] = w
                     in_spans.append((m_i, end, w))
                     m_i = end
-            buf.eq_off[i + 1], buf.in_off[i + 1], buf.unit_eq[i] = m_e, m_i, unit
+            eq_off[i + 1] = m_e
+            in_off[i + 1] = m_i
+            unit_eq[i] = unit
             layout.append((eq_spans, in_spans))
         rows = m_e + m_i
         names = self._level_names
