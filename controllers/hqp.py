@@ -1438,16 +1438,16 @@ class HierarchySolver:
                 stack.in_off, prm.rank_tol, prm.feasibility_tol, prm.slack_tol, prm.multiplier_tol, prm.closed_form,
                 prm.working_set_step, codes, X, e_all, v_all, free, seconds, residuals, self._clock)
             if stop == p and (r == 0 or self.regularization == 0.0) and violation <= tol:
-                for arr in (e_all, v_all, X, residuals, seconds):
-                    arr.flags.writeable = False
+                e_all.flags.writeable = v_all.flags.writeable = X.flags.writeable = False
+                residuals.flags.writeable = seconds.flags.writeable = False
                 eo, io = stack.eq_off.tolist(), stack.in_off.tolist()
                 x = _read_only(x)
                 methods = _kernels.METHODS
                 return HierarchyResult(
                     x=x, level_residuals=residuals,
-                    level_slacks=tuple((e_all[eo[k]: eo[k + 1]], v_all[io[k]: io[k + 1]]) for k in range(p)),
+                    level_slacks=tuple([(e_all[eo[k]: eo[k + 1]], v_all[io[k]: io[k + 1]]) for k in range(p)]),
                     found=True, solve_time_s=time.perf_counter() - t_start, level_times_s=seconds,
-                    solver=self.solver_name, level_methods=tuple(methods[c] for c in codes.tolist()),
+                    solver=self.solver_name, level_methods=tuple([methods[c] for c in codes.tolist()]),
                     free_dims=tuple(free.tolist()), level_x=tuple(X), qp_solves=0)
         hard = Level.unchecked(ineq=[(G, h, 1.0)], name=name)
         return solve_hierarchy(stack, n, self.solver, hard=hard, regularization=self.regularization,
