@@ -45,6 +45,7 @@ from models.errors import ParameterError, SandboxError
 from models.records import Measurement
 
 from ._hqp_kernels import stack_is_finite
+from ._torque_kernels import clipped_torque, torque_limit_rows
 from .base import Controller, ControllerContext
 from .hqp import HierarchySolver, HQPParams, Level, LevelStack, solve_hierarchy
 from .tasks import Task, TickState
@@ -303,17 +304,16 @@ class HQPController(Controller):
         try:
             if self.eliminate_torque:
                 M = s.M
-                c = s.h - s.cuff_force  # tau = M qdd + c
-                G, h = self._G, self._h  # the torque limits -tau_max <= M qdd + c <= tau_max
-                G[:n] = M
-                np.negative(M, out=G[n:])
-                np.subtract(self._tau_max, c, out=h[:n])
-                np.add(self._tau_max, c, out=h[n:])
+                # tau = M qdd + c, and the torque limits -tau_max <= M qdd + c <= tau_max as rows G qdd <= h
+                G, h = self._G, self._h
+                c = torque_limit_rows(M, s.h, s.cuff_force, self._tau_max, G, h)
                 stack, rows = self._fill_stack(s, c)
                 self._check_finite(stack)
                 t_solve = time.perf_counter()
                 res = self._hqp.solve(stack, G, h, name="torque limits", warm_start=self._prev)
-                tau = np.minimum(np.maximum(M @ res.x + c, -self._tau_max), self._tau_max)
+                tau, finite = clipped_torque(M, res.x, c, self._tau_max)
+                if not finite:
+                    raise SandboxError("the solver returned non-finite torques")
             else:
                 self._A_dyn[:, :n] = s.M
                 hard = Level(eq=[(self._A_dyn, s.cuff_force - s.h)], name="dynamics")
@@ -323,8 +323,8 @@ class HQPController(Controller):
                 res = solve_hierarchy(stack, 2 * n, self.solver, hard=hard, lb=self._lb, ub=self._ub,
                                       warm_start=self._prev, params=self.params)
                 tau = np.asarray(res.x[n:], dtype=float)
-            if not math.isfinite(tau.sum()):
-                raise SandboxError("the solver returned non-finite torques")
+                if not math.isfinite(tau.sum()):
+                    raise SandboxError("the solver returned non-finite torques")
             self._prev = res
             fallback = 0.0
             residuals = res.level_residuals[:p].tolist()
