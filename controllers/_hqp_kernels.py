@@ -84,11 +84,27 @@ def _lift(x, z, N, has_N):
 
 
 @nb.njit(cache=True)
-def _max_or(values, initial):
+def _residual(M, x, v):
+    """``M @ x - v`` as a new array, summed in index order (no BLAS call for these small products)."""
+    out = np.empty(M.shape[0])
+    for i in range(M.shape[0]):
+        acc = 0.0
+        for j in range(M.shape[1]):
+            acc += M[i, j] * x[j]
+        out[i] = acc - v[i]
+    return out
+
+
+@nb.njit(cache=True)
+def _max_violation(M, x, v, initial):
+    """``max(initial, max_i (M @ x - v)_i)`` without temporaries."""
     worst = initial
-    for k in range(values.shape[0]):
-        if values[k] > worst:
-            worst = values[k]
+    for i in range(M.shape[0]):
+        acc = 0.0
+        for j in range(M.shape[1]):
+            acc += M[i, j] * x[j]
+        if acc - v[i] > worst:
+            worst = acc - v[i]
     return worst
 
 
@@ -424,9 +440,9 @@ def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, 
         z_ls = V1 @ (c1 / s1)
     x_ls = _lift(x, z_ls, N, has_N)
     active = np.zeros((0, n))
-    feasible = closed_form and _max_or(G @ x_ls - h, 0.0) <= tol
+    feasible = closed_form and _max_violation(G, x_ls, h, 0.0) <= tol
     if feasible and n_in:
-        feasible = (C @ x_ls - d).max() <= tol
+        feasible = _max_violation(C, x_ls, d, -np.inf) <= tol
     if feasible:
         method, x_new = CLOSED_FORM, x_ls
     elif n_in == 0 and rank == 0:
@@ -440,20 +456,33 @@ def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, 
         if not kept:
             return NEEDS_QP, x, N, has_N, G, h, np.zeros(0), np.zeros(0)
         method = WORKING_SET
-    e = A @ x_new - b
-    v = np.maximum(C @ x_new - d, 0.0)
+    e = _residual(A, x_new, b)
+    v = _residual(C, x_new, d)
+    tight = np.empty(n_in, dtype=np.bool_)
+    n_tight = 0
+    for i in range(n_in):
+        v[i] = max(v[i], 0.0)  # the slack max(C x - d, 0)
+        tight[i] = v[i] > slack_tol * (1.0 + abs(d[i]))
+        n_tight += tight[i]
     # freeze the optimum: equality rows through the null space, then the level's inequality rows
     if n_eq:
         N = N @ V2 if has_N else V2
         has_N = True
-    if n_in:
-        tight = v > slack_tol * (1.0 + np.abs(d))
-        if tight.any():
-            active = _vstack(_rows(C, tight), active)
-        keep = ~tight
-        if keep.any():
-            G = _vstack(G, _rows(C, keep))
-            h = _concat(h, _entries(d, keep) + _entries(v, keep))
+    if n_tight:
+        active = _vstack(_rows(C, tight), active)
+    if n_tight < n_in:  # G <- [G; C_keep], h <- [h; d_keep + v_keep]
+        m_g = G.shape[0]
+        G2 = np.empty((m_g + n_in - n_tight, n))
+        h2 = np.empty(m_g + n_in - n_tight)
+        G2[:m_g] = G
+        h2[:m_g] = h
+        k = m_g
+        for i in range(n_in):
+            if not tight[i]:
+                G2[k] = C[i]
+                h2[k] = d[i] + v[i]
+                k += 1
+        G, h = G2, h2
     if active.shape[0]:
         N, has_N = _eliminate(active, N, has_N, rank_tol)
     return method, x_new, N, has_N, G, h, e, v
