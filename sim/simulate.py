@@ -207,8 +207,9 @@ def simulate(
                 qm, dqm, taum = joints.measure(plant.q_exo, tau_applied)
                 # with no wearer the sensors read their noise and bias alone
                 meas_wrench = cuff_sensors.measure(plant.wrench_on_exo if plant.cuffs else zero_w)
-                # the rows are read-only views of the bank's new reading: the Measurement keeps them as they are
-                m = Measurement(t, qm, dqm, taum, dict(zip(cuff_names, meas_wrench)))
+                # new read-only arrays and read-only rows of the bank's new reading: what the checked constructor
+                # would keep as they are, so the unchecked one (a float t as well)
+                m = Measurement._from_frozen(t, qm, dqm, taum, dict(zip(cuff_names, meas_wrench)))
                 tc = time.perf_counter()
                 tau_cmd = np.asarray(controller.step(m), dtype=float)
                 controller_times[k] = time.perf_counter() - tc
