@@ -109,3 +109,22 @@ class TorqueSourceActuators(Actuators):
             a = self._alpha[dt_s] = 1.0 - math.exp(-dt_s / self.params.torque_time_constant_s)
         _lag(self._tau, self._u, a)
         return self._tau
+
+    def lag_arrays(self, dt_s: float) -> tuple[np.ndarray, np.ndarray, float] | None:
+        """The lag's state, for a caller that applies :meth:`substep` inside its own compiled step.
+
+        Returns ``(tau, u, alpha)``: the applied torque (nv,) [N m] (the
+        actuator's own array, updated in place), the held saturated command
+        (nv,) [N m] and :math:`\\alpha = 1 - e^{-h/T}` for ``dt_s`` = h [s],
+        such that ``substep(q, v, dt_s)`` is exactly
+        :math:`\\tau_i \\mathrel{+}= \\alpha (u_i - \\tau_i)` on every joint, then
+        returns ``tau`` (:class:`sim.plant.CoupledPlant` does this in its
+        substep kernel).  None if a subclass overrides :meth:`substep`: its
+        step is then another one.
+        """
+        if type(self).substep is not TorqueSourceActuators.substep:
+            return None
+        a = self._alpha.get(dt_s)
+        if a is None:
+            a = self._alpha[dt_s] = 1.0 - math.exp(-dt_s / self.params.torque_time_constant_s)
+        return self._tau, self._u, a

@@ -185,6 +185,7 @@ class CoupledPlant:
             self._tau = np.zeros(me.nv + mh.nv)
             self._tau_e, self._tau_h = self._tau[:me.nv], self._tau[me.nv:]
             self._vh = np.zeros(me.nv + mh.nv)  # h v+ of each substep, for integrate
+            self._tau_in = np.zeros(me.nv)  # the robot's torque of a substep when no lag kernel computes it
             # the state of the pair; q_exo, q_human, v_exo, v_human are views of it (properties below)
             self._q = np.concatenate((assembly.q_exo0, assembly.q_human0)).astype(float)
             self._v = np.zeros(me.nv + mh.nv)
@@ -308,7 +309,9 @@ class CoupledPlant:
         actuator = getattr(exo_torque, "substep", None)
         tau_held = None if actuator is not None else np.asarray(exo_torque, dtype=float)
         if self._pair:
-            self._advance_pair(actuator, tau_held, tau_human_Nm, dt_s, n_substeps)
+            lag_arrays = getattr(exo_torque, "lag_arrays", None)
+            self._advance_pair(actuator, lag_arrays(dt_s) if lag_arrays is not None else None, tau_held,
+                               tau_human_Nm, dt_s, n_substeps)
             return
         has_exo, has_human = self.has_exo, self.has_human
         me, mh, de, dh = self.exo.model, self.human.model, self._de, self._dh
@@ -336,26 +339,52 @@ class CoupledPlant:
                 self.q_human = integrate(mh, self.q_human, vh_h)
                 self._cuffs_fresh = False
 
-    def _advance_pair(self, actuator, tau_held, tau_human_Nm, dt_s: float, n_substeps: int) -> None:
-        """:meth:`advance` of both arms at once, on the pair model."""
+    def _advance_pair(self, actuator, lag, tau_held, tau_human_Nm, dt_s: float, n_substeps: int) -> None:
+        """:meth:`advance` of both arms at once, on the pair model.
+
+        Between pinocchio's forward kinematics, aba and integrate, each substep makes two compiled calls:
+        :func:`_substep_inputs` (the cuff wrenches, the actuators' lag when ``lag`` gives its arrays
+        (:meth:`sim.actuators.TorqueSourceActuators.lag_arrays`), friction) and :func:`_euler_velocity`.
+        Another actuator is asked in Python before each substep, as :meth:`advance` says.
+        """
         m, d, fext, vh, tau_all, tau_e = self._m, self._d, self._fext, self._vh, self._tau, self._tau_e
         friction = self.params.exo_friction
         smoothing = self.params.coulomb_smoothing_rad_s
-        aba, integrate = pin.aba, pin.integrate
+        kinematics, aba, integrate = pin.forwardKinematics, pin.aba, pin.integrate
+        oMi, vel, joints, place, kd = self._oMi_e, self._v_e, self._joints, self._place, self._kd
+        w_a, w_b, terms, force_world, f_rec = (self.wrench_on_exo, self.wrench_on_human, self._terms,
+                                               self._force_world, self._fext_e_rec)
+        damping, coulomb = self._damping, self._coulomb
+        if lag is not None:
+            tau, u, alpha = lag
+        else:  # the torque of each substep is copied here: the kernel always gets a C-ordered writable array
+            tau = u = self._tau_in
+            alpha = 0.0
+        lagged = lag is not None
         self._tau_h[:] = tau_human_Nm  # held over all the substeps
-        for _ in range(n_substeps):
-            tau = actuator(self.q_exo, self.v_exo, dt_s) if actuator is not None else tau_held
-            if not self._cuffs_fresh:  # also writes the cuff wrenches into the joint-frame forces aba reads
-                self._refresh_cuffs()
-            if friction:  # tau - b v - tau_c tanh(v / v_s) (PlantParams), on the robot's joints
-                _friction_torque(tau, self._v, self._damping, self._coulomb, smoothing, tau_e)
-            else:
-                tau_e[:] = tau
-            a = aba(m, d, self._q, self._v, tau_all, fext)  # a new array: it becomes v
-            _euler_velocity(a, self._v, dt_s, vh)
-            self._v = a
-            self._q = integrate(m, self._q, vh)
-            self._cuffs_fresh = False
+        refresh = not self._cuffs_fresh
+        refreshed = False
+        q, v = self._q, self._v
+        try:
+            for _ in range(n_substeps):
+                if not lagged:  # the state so far is the plant's, for the actuator to read
+                    self._q, self._v = q, v
+                    tau[:] = actuator(self.q_exo, self.v_exo, dt_s) if actuator is not None else tau_held
+                if refresh:  # the cuff wrenches (the kernel writes them into the forces aba reads) need kinematics
+                    kinematics(m, d, q, v)
+                    refreshed = True
+                _substep_inputs(refresh, oMi, oMi, vel, vel, joints, place, kd, w_a, w_b, terms, force_world,
+                                f_rec, f_rec, tau, u, alpha, lagged, v, damping, coulomb, smoothing, friction, tau_e)
+                a = aba(m, d, q, v, tau_all, fext)  # a new array: it becomes v
+                _euler_velocity(a, v, dt_s, vh)
+                v = a
+                refresh = True  # the state moved
+                q = integrate(m, q, vh)
+        finally:  # the state reached, also when a call raised
+            self._q, self._v = q, v
+            self._cuffs_fresh = not refresh
+            if refreshed and self.cuffs:
+                self._energy_J = self._power_W = None
 
     # -- energy ------------------------------------------------------------------------
     def energy_J(self) -> dict[str, float]:
@@ -767,6 +796,33 @@ def _euler_velocity(a, v, h, vh):
     for i in range(a.shape[0]):
         a[i] = a[i] * h + v[i]
         vh[i] = a[i] * h
+
+
+@numba.njit(cache=True)
+def _substep_inputs(refresh, oMi_e, oMi_h, v_e, v_h, joints, place, kd, w_a, w_b, terms, force_world, fext_e,
+                    fext_h, tau, u, alpha, lagged, v, damping, coulomb, smoothing, friction, out):
+    """Everything aba needs for one substep that is not pinocchio's, in one call.
+
+    In order: with ``lagged``, the actuators' first-order lag in place,
+    :math:`\\tau \\mathrel{+}= \\alpha (u - \\tau)` (the arithmetic of
+    :func:`sim.actuators._lag`, :class:`sim.actuators.TorqueSourceActuators`);
+    with ``refresh``, every cuff's wrenches into the joint-frame forces
+    (:func:`_cuff_kernel`, its arguments from ``oMi_e`` to ``fext_h``, on
+    kinematics updated just before); then the robot's joint torque plus
+    friction into ``out`` (:func:`_friction_torque`), or ``tau`` as it is
+    without ``friction``.  The same operations in the same order as the
+    separate calls, so the same numbers to the bit (tests/test_plant_advance.py).
+    """
+    if lagged:
+        for i in range(tau.shape[0]):
+            tau[i] += alpha * (u[i] - tau[i])
+    if refresh:
+        _cuff_kernel(oMi_e, oMi_h, v_e, v_h, joints, place, kd, w_a, w_b, terms, force_world, fext_e, fext_h)
+    if friction:
+        _friction_torque(tau, v, damping, coulomb, smoothing, out)
+    else:
+        for i in range(out.shape[0]):
+            out[i] = tau[i]
 
 
 def _pair_model(exo: pin.Model, human: pin.Model) -> pin.Model | None:
