@@ -206,7 +206,8 @@ class CoupledPlant:
         self._hand = {}
         for which, arm, data, shift in (("exo", self.exo, data_e, 0), ("human", self.human, data_h, off)):
             f = arm.model.frames[arm.frame_id(arm.hand_frame)]
-            self._hand[which] = (data, f.parentJoint + shift, f.placement.translation.copy())
+            # data.oMi's item getter: the live vector of joint placements (fixed size, as for the views above)
+            self._hand[which] = (data.oMi.__getitem__, f.parentJoint + shift, f.placement.translation.copy())
 
     # -- state -------------------------------------------------------------------------
     # With the pair model the four vectors are views of its state (each substep makes a new one, as
@@ -285,9 +286,10 @@ class CoupledPlant:
 
     def hand_position(self, which: str) -> np.ndarray:
         """World position [m] of the hand point of ``"exo"`` or ``"human"`` (kinematics of the last update)."""
-        self.update_cuffs()
-        data, joint, offset = self._hand[which]
-        return data.oMi[joint].act(offset)
+        if not self._cuffs_fresh:
+            self._refresh_cuffs()
+        placement, joint, offset = self._hand[which]
+        return placement(joint).act(offset)
 
     # -- dynamics ----------------------------------------------------------------------
     def substep(self, tau_exo_Nm: np.ndarray, tau_human_Nm: np.ndarray, dt_s: float) -> None:
@@ -405,7 +407,10 @@ class CoupledPlant:
 
     def state_is_finite(self) -> str | None:
         """Name of the first non-finite state vector, or None."""
-        bad = _first_nonfinite(self.q_exo, self.v_exo, self.q_human, self.v_human)
+        if self._pair:  # the four vectors are the two halves of the pair's q and v
+            bad = _first_nonfinite_pair(self._q, self._v, self._nq_e, self._nv_e)
+        else:
+            bad = _first_nonfinite(self.q_exo, self.v_exo, self.q_human, self.v_human)
         return None if bad < 0 else ("q_exo", "v_exo", "q_human", "v_human")[bad]
 
 
@@ -775,6 +780,18 @@ def _first_nonfinite(a, b, c, d):
     if _any_nonfinite(c):
         return 2
     return 3 if _any_nonfinite(d) else -1
+
+
+@numba.njit(cache=True)
+def _first_nonfinite_pair(q, v, nq_e, nv_e):
+    """:func:`_first_nonfinite` of ``q[:nq_e], v[:nv_e], q[nq_e:], v[nv_e:]`` (the pair model's state)."""
+    if _any_nonfinite(q[:nq_e]):
+        return 0
+    if _any_nonfinite(v[:nv_e]):
+        return 1
+    if _any_nonfinite(q[nq_e:]):
+        return 2
+    return 3 if _any_nonfinite(v[nv_e:]) else -1
 
 
 @numba.njit(cache=True)

@@ -207,3 +207,17 @@ def test_an_actuator_subclass_with_its_own_substep_gives_no_lag_arrays():
     limit = np.ones(3)  # [N m]
     assert TorqueSourceActuators(limit).lag_arrays(H) is not None
     assert Doubled(limit).lag_arrays(H) is None  # the plant then asks its substep, as for any actuator
+
+
+@pytest.mark.parametrize("mode", ["coupled", "human_alone", "exo_alone"])
+def test_the_first_state_vector_holding_a_nan_or_an_infinity_is_named(mode):
+    # IEEE 754: NaN and +-inf are the non-finite doubles (numpy.isfinite is the reference)
+    plant = random_plant(10, mode)
+    assert plant.state_is_finite() is None
+    names = [n for n in ("q_exo", "v_exo", "q_human", "v_human") if (n.endswith("exo") and plant.has_exo)
+             or (n.endswith("human") and plant.has_human)]
+    for name in reversed(names):  # each bad vector is named while it is the first bad one
+        vec = getattr(plant, name)
+        vec[-1] = np.inf if name.startswith("q") else np.nan
+        assert not np.all(np.isfinite(getattr(plant, name)))
+        assert plant.state_is_finite() == name
