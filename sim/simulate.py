@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import dataclasses
 import json
-import math
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -40,7 +39,7 @@ from .metrics import run_metrics, wall_metrics
 from .plant import CoupledPlant, PlantMode
 from .runlog import RunLog, environment_metadata, load_run
 from .scenario import Scenario
-from .sensors import ForceSensorBank, ForceTorqueSensor, JointSensing
+from .sensors import ForceSensorBank, ForceTorqueSensor, JointSensing, _first_nonfinite
 
 __all__ = ["SimulationError", "RunResult", "build_assembly", "controller_context", "simulate", "run_scenario",
            "evaluate_run"]
@@ -198,6 +197,7 @@ def simulate(
         (folder / "human.urdf").write_text(plant.human.urdf, encoding="utf-8")
         row = dict.fromkeys(log.column_names)  # filled by name, logged by position (append_row: column order)
         tau_cmd = zero_e
+        command_shape = (asm.exo.nv,)
         for k in range(n):
             t = k * T
             t0 = time.perf_counter()
@@ -213,7 +213,7 @@ def simulate(
                 tc = time.perf_counter()
                 tau_cmd = np.asarray(controller.step(m), dtype=float)
                 controller_times[k] = time.perf_counter() - tc
-                if tau_cmd.shape != (asm.exo.nv,) or not math.isfinite(tau_cmd.sum()):
+                if tau_cmd.shape != command_shape or _first_nonfinite(tau_cmd) >= 0:
                     raise SimulationError(
                         f"controller {controller_name!r} returned a non-finite or mis-shaped torque at t = {t:.4f} s: "
                         f"{tau_cmd!r}")
