@@ -165,11 +165,13 @@ class CoupledPlant:
         self._joints = np.array([[me.frames[c.exo_frame_id].parentJoint for c in self.cuffs],
                                  [mh.frames[c.human_frame_id].parentJoint + off for c in self.cuffs]],
                                 dtype=np.int64).reshape(2, nc)
-        self._place = np.array([[_se3_record(me.frames[c.exo_frame_id].placement) for c in self.cuffs],
-                                [_se3_record(mh.frames[c.human_frame_id].placement * c.human_offset)
-                                 for c in self.cuffs]]).reshape(2, nc, 12)
-        self._kd = np.array([[cp.k_diag for cp in self._cuff_params],
-                             [cp.d_diag for cp in self._cuff_params]]).reshape(2, nc, 6)
+        place = np.array([[_se3_record(me.frames[c.exo_frame_id].placement) for c in self.cuffs],
+                          [_se3_record(mh.frames[c.human_frame_id].placement * c.human_offset)
+                           for c in self.cuffs]]).reshape(2, nc, 12)
+        kd = np.array([[cp.k_diag for cp in self._cuff_params],
+                       [cp.d_diag for cp in self._cuff_params]]).reshape(2, nc, 6)
+        # both in one array (the pair's kernels take it as one argument, see _cuff_blocks); named views below
+        self._cuff_const = np.concatenate((place.ravel(), kd.ravel()))
         # in-place views of the Data's joint placements and velocities and of the forces aba reads
         # (fixed-size storage, so they stay valid): one compiled call reads and writes them all
         # (with the pair model, both arms' views are one)
@@ -179,13 +181,13 @@ class CoupledPlant:
         self._v_h = _records([data_h.v[j].vector for j in range(len(data_h.v))], 6, "joint velocities")
         self._fext_e_rec = _records([f.vector for f in fext_e], 6, "external forces")
         self._fext_h_rec = _records([f.vector for f in fext_h], 6, "external forces")
-        self._damping = np.array(me.damping)  # constant: read once
-        self._coulomb = np.array(me.friction)
+        self._friction_coeffs = np.array([me.damping, me.friction], dtype=float).reshape(2, me.nv)  # read once
+        self._damping, self._coulomb = self._friction_coeffs[0], self._friction_coeffs[1]
         if self._pair:  # the pair's joint torque: the robot's (plus friction) then the human's, rewritten each substep
             self._tau = np.zeros(me.nv + mh.nv)
             self._tau_e, self._tau_h = self._tau[:me.nv], self._tau[me.nv:]
             self._vh = np.zeros(me.nv + mh.nv)  # h v+ of each substep, for integrate
-            self._tau_in = np.zeros(me.nv)  # the robot's torque of a substep when no lag kernel computes it
+            self._tau_in = np.zeros((2, me.nv))  # row 0: the robot's torque of a substep, when no lag computes it
             # the state of the pair; q_exo, q_human, v_exo, v_human are views of it (properties below)
             self._q = np.concatenate((assembly.q_exo0, assembly.q_human0)).astype(float)
             self._v = np.zeros(me.nv + mh.nv)
@@ -194,13 +196,14 @@ class CoupledPlant:
             self._vh_e, self._vh_h = np.zeros(me.nv), np.zeros(mh.nv)  # h v+ of each substep, for integrate
             self._q_exo, self._v_exo = assembly.q_exo0.copy(), np.zeros(me.nv)
             self._q_human, self._v_human = assembly.q_human0.copy(), np.zeros(mh.nv)
-        #: Per cuff, the last wrench on the human [f; tau] in the human cuff frame, and on the robot in its frame.
-        self.wrench_on_human = np.zeros((len(self.cuffs), 6))
-        self.wrench_on_exo = np.zeros((len(self.cuffs), 6))
-        # per cuff, the force on the human in world axes [N], written by each update; the spring energy and
-        # the power are computed from the terms of the last update when first read (see the properties below)
-        self._force_world = np.zeros((len(self.cuffs), 3))
-        self._terms = np.zeros((len(self.cuffs), 24))  # per cuff e, K e, v_a, v_b of the last update
+        # what each cuff update writes, in one array (one kernel argument, see _cuff_blocks), as views of it:
+        #: Per cuff, the last wrench on the robot [f; tau] in its cuff frame, and on the human in the human cuff frame.
+        self._cuff_out = np.zeros(_CUFF_OUT_WIDTH * nc)
+        (self._place, self._kd, self.wrench_on_exo, self.wrench_on_human, self._terms,
+         self._force_world) = _cuff_blocks(self._cuff_const, self._cuff_out, nc)
+        # (_terms: per cuff e, K e, v_a, v_b of the last update; _force_world: per cuff, the force on the human
+        # in world axes [N]; the spring energy and the power are computed from the terms of the last update when
+        # first read, see the properties below)
         self._energy_J, self._power_W = 0.0, 0.0
         self._cuffs_fresh = False
         self._hand = {}
@@ -254,6 +257,13 @@ class CoupledPlant:
 
     def _refresh_cuffs(self) -> None:
         self._cuffs_fresh = True
+        if self._pair:
+            pin.forwardKinematics(self._m, self._d, self._q, self._v)
+            if self.cuffs:
+                _pair_cuffs(self._oMi_e, self._v_e, self._fext_e_rec, self._joints, self._cuff_const,
+                            self._cuff_out)
+                self._energy_J = self._power_W = None
+            return
         self._kinematics()
         if not self.cuffs:
             return
@@ -345,7 +355,7 @@ class CoupledPlant:
         """:meth:`advance` of both arms at once, on the pair model.
 
         Between pinocchio's forward kinematics, aba and integrate, each substep makes two compiled calls:
-        :func:`_substep_inputs` (the cuff wrenches, the actuators' lag when ``lag`` gives its arrays
+        :func:`_substep_inputs` (the cuff wrenches, the actuators' lag when ``lag`` gives its state
         (:meth:`sim.actuators.TorqueSourceActuators.lag_arrays`), friction) and :func:`_euler_velocity`.
         Another actuator is asked in Python before each substep, as :meth:`advance` says.
         """
@@ -353,15 +363,13 @@ class CoupledPlant:
         friction = self.params.exo_friction
         smoothing = self.params.coulomb_smoothing_rad_s
         kinematics, aba, integrate = pin.forwardKinematics, pin.aba, pin.integrate
-        oMi, vel, joints, place, kd = self._oMi_e, self._v_e, self._joints, self._place, self._kd
-        w_a, w_b, terms, force_world, f_rec = (self.wrench_on_exo, self.wrench_on_human, self._terms,
-                                               self._force_world, self._fext_e_rec)
-        damping, coulomb = self._damping, self._coulomb
+        oMi, vel, f_rec, joints = self._oMi_e, self._v_e, self._fext_e_rec, self._joints
+        const, out, coeffs = self._cuff_const, self._cuff_out, self._friction_coeffs
         if lag is not None:
-            tau, u, alpha = lag
+            tau_u, alpha = lag
         else:  # the torque of each substep is copied here: the kernel always gets a C-ordered writable array
-            tau = u = self._tau_in
-            alpha = 0.0
+            tau_u, alpha = self._tau_in, 0.0
+        tau = tau_u[0]
         lagged = lag is not None
         self._tau_h[:] = tau_human_Nm  # held over all the substeps
         refresh = not self._cuffs_fresh
@@ -375,8 +383,8 @@ class CoupledPlant:
                 if refresh:  # the cuff wrenches (the kernel writes them into the forces aba reads) need kinematics
                     kinematics(m, d, q, v)
                     refreshed = True
-                _substep_inputs(refresh, oMi, oMi, vel, vel, joints, place, kd, w_a, w_b, terms, force_world,
-                                f_rec, f_rec, tau, u, alpha, lagged, v, damping, coulomb, smoothing, friction, tau_e)
+                _substep_inputs(refresh, oMi, vel, f_rec, joints, const, out, tau_u, alpha, lagged, v, coeffs,
+                                smoothing, friction, tau_e)
                 a = aba(m, d, q, v, tau_all, fext)  # a new array: it becomes v
                 _euler_velocity(a, v, dt_s, vh)
                 v = a
@@ -815,31 +823,59 @@ def _euler_velocity(a, v, h, vh):
         vh[i] = a[i] * h
 
 
-@numba.njit(cache=True)
-def _substep_inputs(refresh, oMi_e, oMi_h, v_e, v_h, joints, place, kd, w_a, w_b, terms, force_world, fext_e,
-                    fext_h, tau, u, alpha, lagged, v, damping, coulomb, smoothing, friction, out):
-    """Everything aba needs for one substep that is not pinocchio's, in one call.
+#: Values per cuff in the plant's output array: wrench on the robot (6), on the human (6), terms (24), force (3).
+_CUFF_OUT_WIDTH = 39
 
-    In order: with ``lagged``, the actuators' first-order lag in place,
-    :math:`\\tau \\mathrel{+}= \\alpha (u - \\tau)` (the arithmetic of
-    :func:`sim.actuators._lag`, :class:`sim.actuators.TorqueSourceActuators`);
-    with ``refresh``, every cuff's wrenches into the joint-frame forces
-    (:func:`_cuff_kernel`, its arguments from ``oMi_e`` to ``fext_h``, on
-    kinematics updated just before); then the robot's joint torque plus
-    friction into ``out`` (:func:`_friction_torque`), or ``tau`` as it is
-    without ``friction``.  The same operations in the same order as the
-    separate calls, so the same numbers to the bit (tests/test_plant_advance.py).
+
+@numba.njit(cache=True)
+def _cuff_blocks(const, out, nc):
+    """The named arrays inside the plant's two flat per-cuff arrays, as C-ordered views (no copy).
+
+    ``const`` (36 nc,): the placements (2, nc, 12) then the stiffness and damping diagonals (2, nc, 6) of
+    :func:`_cuff_kernel`.  ``out`` (39 nc,): the wrenches on the robot and on the human (nc, 6) each, the
+    terms (nc, 24) and the world forces (nc, 3).  Passing one flat array instead of four costs numba's
+    dispatcher less per call (each array argument is typed and unboxed on every call).
     """
+    place = const[:24 * nc].reshape((2, nc, 12))
+    kd = const[24 * nc:36 * nc].reshape((2, nc, 6))
+    return (place, kd, out[:6 * nc].reshape((nc, 6)), out[6 * nc:12 * nc].reshape((nc, 6)),
+            out[12 * nc:36 * nc].reshape((nc, 24)), out[36 * nc:39 * nc].reshape((nc, 3)))
+
+
+@numba.njit(cache=True)
+def _pair_cuffs(oMi, vel, fext, joints, const, out):
+    """:func:`_cuff_kernel` on the pair model (one Data: both arms' placements, velocities and forces are one),
+    with the per-cuff arrays packed as :func:`_cuff_blocks` says."""
+    place, kd, w_a, w_b, terms, force_world = _cuff_blocks(const, out, joints.shape[1])
+    _cuff_kernel(oMi, oMi, vel, vel, joints, place, kd, w_a, w_b, terms, force_world, fext, fext)
+
+
+@numba.njit(cache=True)
+def _substep_inputs(refresh, oMi, vel, fext, joints, const, out, tau_u, alpha, lagged, v, coeffs, smoothing,
+                    friction, tau_out):
+    """Everything aba needs for one substep of the pair model that is not pinocchio's, in one call.
+
+    In order: with ``lagged``, the actuators' first-order lag in place on the applied torque ``tau_u[0]``
+    toward the held command ``tau_u[1]``, :math:`\\tau \\mathrel{+}= \\alpha (u - \\tau)` (the arithmetic of
+    :func:`sim.actuators._lag`, :class:`sim.actuators.TorqueSourceActuators`); with ``refresh``, every cuff's
+    wrenches into the joint-frame forces (:func:`_pair_cuffs`, its arguments from ``oMi`` to ``out``, on
+    kinematics updated just before); then the robot's joint torque plus friction into ``tau_out``
+    (:func:`_friction_torque` with the damping ``coeffs[0]`` and the Coulomb torques ``coeffs[1]``), or
+    ``tau_u[0]`` as it is without ``friction``.  The same operations in the same order as the separate
+    calls, so the same numbers to the bit (tests/test_plant_advance.py).
+    """
+    tau = tau_u[0]
     if lagged:
+        u = tau_u[1]
         for i in range(tau.shape[0]):
             tau[i] += alpha * (u[i] - tau[i])
     if refresh:
-        _cuff_kernel(oMi_e, oMi_h, v_e, v_h, joints, place, kd, w_a, w_b, terms, force_world, fext_e, fext_h)
+        _pair_cuffs(oMi, vel, fext, joints, const, out)
     if friction:
-        _friction_torque(tau, v, damping, coulomb, smoothing, out)
+        _friction_torque(tau, v, coeffs[0], coeffs[1], smoothing, tau_out)
     else:
-        for i in range(out.shape[0]):
-            out[i] = tau[i]
+        for i in range(tau_out.shape[0]):
+            tau_out[i] = tau[i]
 
 
 def _pair_model(exo: pin.Model, human: pin.Model) -> pin.Model | None:
