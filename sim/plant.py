@@ -27,7 +27,13 @@ With both arms simulated, the two models are also held as one
 substep is one forward kinematics, one aba and one integrate; joint by joint
 these do the same arithmetic as two models, and the plant checks this to the
 bit when it is built.  :meth:`CoupledPlant.advance` runs all the substeps of a
-control tick in one call, asking the actuators before each.
+control tick in one call, asking the actuators before each.  On the pair
+model a substep makes two compiled calls between pinocchio's: one for the
+cuff wrenches, the torque-source actuators' lag and friction
+(:func:`_substep_inputs`), one for the Euler velocity (:func:`_euler_velocity`);
+the per-cuff arrays they read and write are packed in two flat arrays
+(:func:`_cuff_blocks`), since numba's dispatcher costs a little for every array
+argument of every call.
 """
 
 from __future__ import annotations
