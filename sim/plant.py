@@ -321,6 +321,9 @@ class CoupledPlant:
         anything with ``substep(q, v, dt_s)``), asked before every substep for
         the torque it applies over it given the robot's state then.  The
         human's torque ``tau_human_Nm`` (nv,) [N m] is held over all of them.
+        An actuator whose ``lag_arrays(dt_s)`` gives its state
+        (:meth:`sim.actuators.TorqueSourceActuators.lag_arrays`) is stepped
+        inside the plant's compiled substep instead, with the same numbers.
         """
         if not (isinstance(n_substeps, (int, np.integer)) and n_substeps >= 1):
             raise SandboxError(f"CoupledPlant.advance: n_substeps must be an integer >= 1, got {n_substeps!r}")
