@@ -5,6 +5,11 @@ what a real exoskeleton senses (joint encoders, joint torque sensing, the
 force/torque sensors at the cuffs) and no field of the human's state: a
 controller cannot read what the hardware cannot measure.  Arrays are
 read-only so a controller cannot change the sensors' state either.
+
+The constructor checks and converts what it is given (see
+:class:`Measurement`).  The simulation loop, whose sensors already return
+arrays nothing can write to, builds it with :meth:`Measurement._from_frozen`,
+which skips those checks; everyone else uses the constructor.
 """
 
 from __future__ import annotations
@@ -69,3 +74,28 @@ class Measurement:
         for k, v in self.cuff_wrench.items():  # a plain loop: cheaper than a comprehension for a few cuffs
             cuffs[k] = _frozen(v)
         setattr_(self, "cuff_wrench", MappingProxyType(cuffs))
+
+    @classmethod
+    def _from_frozen(cls, t_s: float, q_rad: np.ndarray, dq_rad_s: np.ndarray, tau_Nm: np.ndarray,
+                     cuff_wrench: dict[str, np.ndarray]) -> Measurement:
+        """The Measurement of these fields, kept as they are: no check, no conversion, no copy.
+
+        For the simulation loop only (:func:`sim.simulate.simulate`), whose
+        sensors return exactly what the constructor would keep as it is: a
+        float ``t_s``, and float64 arrays that nothing can write to (read-only
+        arrays owning their data, or read-only views of one, as
+        :class:`sim.sensors.JointSensing` and
+        :class:`sim.sensors.ForceSensorBank` return).  ``cuff_wrench`` must be
+        a new dict that the caller does not keep: it is wrapped, not copied.
+        The result then equals the constructor's, field by field, without its
+        checks (which cost about as much as a sensor reading each tick).
+        Anything else must go through the constructor.
+        """
+        m = object.__new__(cls)
+        fields = m.__dict__
+        fields["t_s"] = t_s
+        fields["q_rad"] = q_rad
+        fields["dq_rad_s"] = dq_rad_s
+        fields["tau_Nm"] = tau_Nm
+        fields["cuff_wrench"] = MappingProxyType(cuff_wrench)
+        return m

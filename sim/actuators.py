@@ -86,8 +86,8 @@ class TorqueSourceActuators(Actuators):
     def __init__(self, torque_limit_Nm: np.ndarray, params: ActuatorParams | None = None) -> None:
         self.params = ActuatorParams() if params is None else params
         self._limit = np.asarray(torque_limit_Nm, dtype=float).copy()
-        self._tau = np.zeros_like(self._limit)
-        self._u = np.zeros_like(self._limit)
+        self._tau_u = np.zeros((2, self._limit.shape[0]))  # the applied torque and the held command, as rows
+        self._tau, self._u = self._tau_u[0], self._tau_u[1]
         self._alpha: dict[float, float] = {}
 
     def reset(self, tau0_Nm: np.ndarray) -> None:
@@ -109,3 +109,23 @@ class TorqueSourceActuators(Actuators):
             a = self._alpha[dt_s] = 1.0 - math.exp(-dt_s / self.params.torque_time_constant_s)
         _lag(self._tau, self._u, a)
         return self._tau
+
+    def lag_arrays(self, dt_s: float) -> tuple[np.ndarray, float] | None:
+        """The lag's state, for a caller that applies :meth:`substep` inside its own compiled step.
+
+        Returns ``(tau_u, alpha)``: the (2, nv) array [N m] of the applied
+        torque ``tau = tau_u[0]`` and the held saturated command
+        ``u = tau_u[1]`` (the actuator's own, updated in place), and
+        :math:`\\alpha = 1 - e^{-h/T}` for ``dt_s`` = h [s], such that
+        ``substep(q, v, dt_s)`` is exactly
+        :math:`\\tau_i \\mathrel{+}= \\alpha (u_i - \\tau_i)` on every joint, then
+        returns ``tau`` (:class:`sim.plant.CoupledPlant` does this in its
+        substep kernel).  None if a subclass overrides :meth:`substep`: its
+        step is then another one.
+        """
+        if type(self).substep is not TorqueSourceActuators.substep:
+            return None
+        a = self._alpha.get(dt_s)
+        if a is None:
+            a = self._alpha[dt_s] = 1.0 - math.exp(-dt_s / self.params.torque_time_constant_s)
+        return self._tau_u, a

@@ -27,7 +27,13 @@ With both arms simulated, the two models are also held as one
 substep is one forward kinematics, one aba and one integrate; joint by joint
 these do the same arithmetic as two models, and the plant checks this to the
 bit when it is built.  :meth:`CoupledPlant.advance` runs all the substeps of a
-control tick in one call, asking the actuators before each.
+control tick in one call, asking the actuators before each.  On the pair
+model a substep makes two compiled calls between pinocchio's: one for the
+cuff wrenches, the torque-source actuators' lag and friction
+(:func:`_substep_inputs`), one for the Euler velocity (:func:`_euler_velocity`);
+the per-cuff arrays they read and write are packed in two flat arrays
+(:func:`_cuff_blocks`), since numba's dispatcher costs a little for every array
+argument of every call.
 """
 
 from __future__ import annotations
@@ -165,11 +171,13 @@ class CoupledPlant:
         self._joints = np.array([[me.frames[c.exo_frame_id].parentJoint for c in self.cuffs],
                                  [mh.frames[c.human_frame_id].parentJoint + off for c in self.cuffs]],
                                 dtype=np.int64).reshape(2, nc)
-        self._place = np.array([[_se3_record(me.frames[c.exo_frame_id].placement) for c in self.cuffs],
-                                [_se3_record(mh.frames[c.human_frame_id].placement * c.human_offset)
-                                 for c in self.cuffs]]).reshape(2, nc, 12)
-        self._kd = np.array([[cp.k_diag for cp in self._cuff_params],
-                             [cp.d_diag for cp in self._cuff_params]]).reshape(2, nc, 6)
+        place = np.array([[_se3_record(me.frames[c.exo_frame_id].placement) for c in self.cuffs],
+                          [_se3_record(mh.frames[c.human_frame_id].placement * c.human_offset)
+                           for c in self.cuffs]]).reshape(2, nc, 12)
+        kd = np.array([[cp.k_diag for cp in self._cuff_params],
+                       [cp.d_diag for cp in self._cuff_params]]).reshape(2, nc, 6)
+        # both in one array (the pair's kernels take it as one argument, see _cuff_blocks); named views below
+        self._cuff_const = np.concatenate((place.ravel(), kd.ravel()))
         # in-place views of the Data's joint placements and velocities and of the forces aba reads
         # (fixed-size storage, so they stay valid): one compiled call reads and writes them all
         # (with the pair model, both arms' views are one)
@@ -179,12 +187,13 @@ class CoupledPlant:
         self._v_h = _records([data_h.v[j].vector for j in range(len(data_h.v))], 6, "joint velocities")
         self._fext_e_rec = _records([f.vector for f in fext_e], 6, "external forces")
         self._fext_h_rec = _records([f.vector for f in fext_h], 6, "external forces")
-        self._damping = np.array(me.damping)  # constant: read once
-        self._coulomb = np.array(me.friction)
+        self._friction_coeffs = np.array([me.damping, me.friction], dtype=float).reshape(2, me.nv)  # read once
+        self._damping, self._coulomb = self._friction_coeffs[0], self._friction_coeffs[1]
         if self._pair:  # the pair's joint torque: the robot's (plus friction) then the human's, rewritten each substep
             self._tau = np.zeros(me.nv + mh.nv)
             self._tau_e, self._tau_h = self._tau[:me.nv], self._tau[me.nv:]
             self._vh = np.zeros(me.nv + mh.nv)  # h v+ of each substep, for integrate
+            self._tau_in = np.zeros((2, me.nv))  # row 0: the robot's torque of a substep, when no lag computes it
             # the state of the pair; q_exo, q_human, v_exo, v_human are views of it (properties below)
             self._q = np.concatenate((assembly.q_exo0, assembly.q_human0)).astype(float)
             self._v = np.zeros(me.nv + mh.nv)
@@ -193,19 +202,21 @@ class CoupledPlant:
             self._vh_e, self._vh_h = np.zeros(me.nv), np.zeros(mh.nv)  # h v+ of each substep, for integrate
             self._q_exo, self._v_exo = assembly.q_exo0.copy(), np.zeros(me.nv)
             self._q_human, self._v_human = assembly.q_human0.copy(), np.zeros(mh.nv)
-        #: Per cuff, the last wrench on the human [f; tau] in the human cuff frame, and on the robot in its frame.
-        self.wrench_on_human = np.zeros((len(self.cuffs), 6))
-        self.wrench_on_exo = np.zeros((len(self.cuffs), 6))
-        # per cuff, the force on the human in world axes [N], written by each update; the spring energy and
-        # the power are computed from the terms of the last update when first read (see the properties below)
-        self._force_world = np.zeros((len(self.cuffs), 3))
-        self._terms = np.zeros((len(self.cuffs), 24))  # per cuff e, K e, v_a, v_b of the last update
+        # what each cuff update writes, in one array (one kernel argument, see _cuff_blocks), as views of it:
+        #: Per cuff, the last wrench on the robot [f; tau] in its cuff frame, and on the human in the human cuff frame.
+        self._cuff_out = np.zeros(_CUFF_OUT_WIDTH * nc)
+        (self._place, self._kd, self.wrench_on_exo, self.wrench_on_human, self._terms,
+         self._force_world) = _cuff_blocks(self._cuff_const, self._cuff_out, nc)
+        # (_terms: per cuff e, K e, v_a, v_b of the last update; _force_world: per cuff, the force on the human
+        # in world axes [N]; the spring energy and the power are computed from the terms of the last update when
+        # first read, see the properties below)
         self._energy_J, self._power_W = 0.0, 0.0
         self._cuffs_fresh = False
         self._hand = {}
         for which, arm, data, shift in (("exo", self.exo, data_e, 0), ("human", self.human, data_h, off)):
             f = arm.model.frames[arm.frame_id(arm.hand_frame)]
-            self._hand[which] = (data, f.parentJoint + shift, f.placement.translation.copy())
+            # data.oMi's item getter: the live vector of joint placements (fixed size, as for the views above)
+            self._hand[which] = (data.oMi.__getitem__, f.parentJoint + shift, f.placement.translation.copy())
 
     # -- state -------------------------------------------------------------------------
     # With the pair model the four vectors are views of its state (each substep makes a new one, as
@@ -252,6 +263,13 @@ class CoupledPlant:
 
     def _refresh_cuffs(self) -> None:
         self._cuffs_fresh = True
+        if self._pair:
+            pin.forwardKinematics(self._m, self._d, self._q, self._v)
+            if self.cuffs:
+                _pair_cuffs(self._oMi_e, self._v_e, self._fext_e_rec, self._joints, self._cuff_const,
+                            self._cuff_out)
+                self._energy_J = self._power_W = None
+            return
         self._kinematics()
         if not self.cuffs:
             return
@@ -284,9 +302,10 @@ class CoupledPlant:
 
     def hand_position(self, which: str) -> np.ndarray:
         """World position [m] of the hand point of ``"exo"`` or ``"human"`` (kinematics of the last update)."""
-        self.update_cuffs()
-        data, joint, offset = self._hand[which]
-        return data.oMi[joint].act(offset)
+        if not self._cuffs_fresh:
+            self._refresh_cuffs()
+        placement, joint, offset = self._hand[which]
+        return placement(joint).act(offset)
 
     # -- dynamics ----------------------------------------------------------------------
     def substep(self, tau_exo_Nm: np.ndarray, tau_human_Nm: np.ndarray, dt_s: float) -> None:
@@ -302,13 +321,18 @@ class CoupledPlant:
         anything with ``substep(q, v, dt_s)``), asked before every substep for
         the torque it applies over it given the robot's state then.  The
         human's torque ``tau_human_Nm`` (nv,) [N m] is held over all of them.
+        An actuator whose ``lag_arrays(dt_s)`` gives its state
+        (:meth:`sim.actuators.TorqueSourceActuators.lag_arrays`) is stepped
+        inside the plant's compiled substep instead, with the same numbers.
         """
         if not (isinstance(n_substeps, (int, np.integer)) and n_substeps >= 1):
             raise SandboxError(f"CoupledPlant.advance: n_substeps must be an integer >= 1, got {n_substeps!r}")
         actuator = getattr(exo_torque, "substep", None)
         tau_held = None if actuator is not None else np.asarray(exo_torque, dtype=float)
         if self._pair:
-            self._advance_pair(actuator, tau_held, tau_human_Nm, dt_s, n_substeps)
+            lag_arrays = getattr(exo_torque, "lag_arrays", None)
+            self._advance_pair(actuator, lag_arrays(dt_s) if lag_arrays is not None else None, tau_held,
+                               tau_human_Nm, dt_s, n_substeps)
             return
         has_exo, has_human = self.has_exo, self.has_human
         me, mh, de, dh = self.exo.model, self.human.model, self._de, self._dh
@@ -336,26 +360,50 @@ class CoupledPlant:
                 self.q_human = integrate(mh, self.q_human, vh_h)
                 self._cuffs_fresh = False
 
-    def _advance_pair(self, actuator, tau_held, tau_human_Nm, dt_s: float, n_substeps: int) -> None:
-        """:meth:`advance` of both arms at once, on the pair model."""
+    def _advance_pair(self, actuator, lag, tau_held, tau_human_Nm, dt_s: float, n_substeps: int) -> None:
+        """:meth:`advance` of both arms at once, on the pair model.
+
+        Between pinocchio's forward kinematics, aba and integrate, each substep makes two compiled calls:
+        :func:`_substep_inputs` (the cuff wrenches, the actuators' lag when ``lag`` gives its state
+        (:meth:`sim.actuators.TorqueSourceActuators.lag_arrays`), friction) and :func:`_euler_velocity`.
+        Another actuator is asked in Python before each substep, as :meth:`advance` says.
+        """
         m, d, fext, vh, tau_all, tau_e = self._m, self._d, self._fext, self._vh, self._tau, self._tau_e
         friction = self.params.exo_friction
         smoothing = self.params.coulomb_smoothing_rad_s
-        aba, integrate = pin.aba, pin.integrate
+        kinematics, aba, integrate = pin.forwardKinematics, pin.aba, pin.integrate
+        oMi, vel, f_rec, joints = self._oMi_e, self._v_e, self._fext_e_rec, self._joints
+        const, out, coeffs = self._cuff_const, self._cuff_out, self._friction_coeffs
+        if lag is not None:
+            tau_u, alpha = lag
+        else:  # the torque of each substep is copied here: the kernel always gets a C-ordered writable array
+            tau_u, alpha = self._tau_in, 0.0
+        tau = tau_u[0]
+        lagged = lag is not None
         self._tau_h[:] = tau_human_Nm  # held over all the substeps
-        for _ in range(n_substeps):
-            tau = actuator(self.q_exo, self.v_exo, dt_s) if actuator is not None else tau_held
-            if not self._cuffs_fresh:  # also writes the cuff wrenches into the joint-frame forces aba reads
-                self._refresh_cuffs()
-            if friction:  # tau - b v - tau_c tanh(v / v_s) (PlantParams), on the robot's joints
-                _friction_torque(tau, self._v, self._damping, self._coulomb, smoothing, tau_e)
-            else:
-                tau_e[:] = tau
-            a = aba(m, d, self._q, self._v, tau_all, fext)  # a new array: it becomes v
-            _euler_velocity(a, self._v, dt_s, vh)
-            self._v = a
-            self._q = integrate(m, self._q, vh)
-            self._cuffs_fresh = False
+        refresh = not self._cuffs_fresh
+        refreshed = False
+        q, v = self._q, self._v
+        try:
+            for _ in range(n_substeps):
+                if not lagged:  # the state so far is the plant's, for the actuator to read
+                    self._q, self._v = q, v
+                    tau[:] = actuator(self.q_exo, self.v_exo, dt_s) if actuator is not None else tau_held
+                if refresh:  # the cuff wrenches (the kernel writes them into the forces aba reads) need kinematics
+                    kinematics(m, d, q, v)
+                    refreshed = True
+                _substep_inputs(refresh, oMi, vel, f_rec, joints, const, out, tau_u, alpha, lagged, v, coeffs,
+                                smoothing, friction, tau_e)
+                a = aba(m, d, q, v, tau_all, fext)  # a new array: it becomes v
+                _euler_velocity(a, v, dt_s, vh)
+                v = a
+                refresh = True  # the state moved
+                q = integrate(m, q, vh)
+        finally:  # the state reached, also when a call raised
+            self._q, self._v = q, v
+            self._cuffs_fresh = not refresh
+            if refreshed and self.cuffs:
+                self._energy_J = self._power_W = None
 
     # -- energy ------------------------------------------------------------------------
     def energy_J(self) -> dict[str, float]:
@@ -376,7 +424,10 @@ class CoupledPlant:
 
     def state_is_finite(self) -> str | None:
         """Name of the first non-finite state vector, or None."""
-        bad = _first_nonfinite(self.q_exo, self.v_exo, self.q_human, self.v_human)
+        if self._pair:  # the four vectors are the two halves of the pair's q and v
+            bad = _first_nonfinite_pair(self._q, self._v, self._nq_e, self._nv_e)
+        else:
+            bad = _first_nonfinite(self.q_exo, self.v_exo, self.q_human, self.v_human)
         return None if bad < 0 else ("q_exo", "v_exo", "q_human", "v_human")[bad]
 
 
@@ -749,6 +800,18 @@ def _first_nonfinite(a, b, c, d):
 
 
 @numba.njit(cache=True)
+def _first_nonfinite_pair(q, v, nq_e, nv_e):
+    """:func:`_first_nonfinite` of ``q[:nq_e], v[:nv_e], q[nq_e:], v[nv_e:]`` (the pair model's state)."""
+    if _any_nonfinite(q[:nq_e]):
+        return 0
+    if _any_nonfinite(v[:nv_e]):
+        return 1
+    if _any_nonfinite(q[nq_e:]):
+        return 2
+    return 3 if _any_nonfinite(v[nv_e:]) else -1
+
+
+@numba.njit(cache=True)
 def _friction_torque(tau, v, damping, coulomb, smoothing, out):
     """Joint torque plus friction, :math:`\\tau - b v - \\tau_c \\tanh(v / v_s)` (PlantParams), into out.
 
@@ -767,6 +830,61 @@ def _euler_velocity(a, v, h, vh):
     for i in range(a.shape[0]):
         a[i] = a[i] * h + v[i]
         vh[i] = a[i] * h
+
+
+#: Values per cuff in the plant's output array: wrench on the robot (6), on the human (6), terms (24), force (3).
+_CUFF_OUT_WIDTH = 39
+
+
+@numba.njit(cache=True)
+def _cuff_blocks(const, out, nc):
+    """The named arrays inside the plant's two flat per-cuff arrays, as C-ordered views (no copy).
+
+    ``const`` (36 nc,): the placements (2, nc, 12) then the stiffness and damping diagonals (2, nc, 6) of
+    :func:`_cuff_kernel`.  ``out`` (39 nc,): the wrenches on the robot and on the human (nc, 6) each, the
+    terms (nc, 24) and the world forces (nc, 3).  Passing one flat array instead of four costs numba's
+    dispatcher less per call (each array argument is typed and unboxed on every call).
+    """
+    place = const[:24 * nc].reshape((2, nc, 12))
+    kd = const[24 * nc:36 * nc].reshape((2, nc, 6))
+    return (place, kd, out[:6 * nc].reshape((nc, 6)), out[6 * nc:12 * nc].reshape((nc, 6)),
+            out[12 * nc:36 * nc].reshape((nc, 24)), out[36 * nc:39 * nc].reshape((nc, 3)))
+
+
+@numba.njit(cache=True)
+def _pair_cuffs(oMi, vel, fext, joints, const, out):
+    """:func:`_cuff_kernel` on the pair model (one Data: both arms' placements, velocities and forces are one),
+    with the per-cuff arrays packed as :func:`_cuff_blocks` says."""
+    place, kd, w_a, w_b, terms, force_world = _cuff_blocks(const, out, joints.shape[1])
+    _cuff_kernel(oMi, oMi, vel, vel, joints, place, kd, w_a, w_b, terms, force_world, fext, fext)
+
+
+@numba.njit(cache=True)
+def _substep_inputs(refresh, oMi, vel, fext, joints, const, out, tau_u, alpha, lagged, v, coeffs, smoothing,
+                    friction, tau_out):
+    """Everything aba needs for one substep of the pair model that is not pinocchio's, in one call.
+
+    In order: with ``lagged``, the actuators' first-order lag in place on the applied torque ``tau_u[0]``
+    toward the held command ``tau_u[1]``, :math:`\\tau \\mathrel{+}= \\alpha (u - \\tau)` (the arithmetic of
+    :func:`sim.actuators._lag`, :class:`sim.actuators.TorqueSourceActuators`); with ``refresh``, every cuff's
+    wrenches into the joint-frame forces (:func:`_pair_cuffs`, its arguments from ``oMi`` to ``out``, on
+    kinematics updated just before); then the robot's joint torque plus friction into ``tau_out``
+    (:func:`_friction_torque` with the damping ``coeffs[0]`` and the Coulomb torques ``coeffs[1]``), or
+    ``tau_u[0]`` as it is without ``friction``.  The same operations in the same order as the separate
+    calls, so the same numbers to the bit (tests/test_plant_advance.py).
+    """
+    tau = tau_u[0]
+    if lagged:
+        u = tau_u[1]
+        for i in range(tau.shape[0]):
+            tau[i] += alpha * (u[i] - tau[i])
+    if refresh:
+        _pair_cuffs(oMi, vel, fext, joints, const, out)
+    if friction:
+        _friction_torque(tau, v, coeffs[0], coeffs[1], smoothing, tau_out)
+    else:
+        for i in range(tau_out.shape[0]):
+            tau_out[i] = tau[i]
 
 
 def _pair_model(exo: pin.Model, human: pin.Model) -> pin.Model | None:

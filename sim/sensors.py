@@ -24,7 +24,8 @@ drawn one tick at a time), so give each sensor a Generator of its own, as
 would be read in a different order.
 
 Both sensors keep preallocated internal buffers; every array they return is
-new, read-only and owns its data, so a controller cannot change the sensor
+new and read-only, and owns its data or is a row of one that does (the
+three joint readings of a tick), so a controller cannot change the sensor
 state.  The arithmetic of a tick, and the finiteness check of its input, run
 as compiled calls (numba, ``cache=True``); the noise is drawn from the
 ``Generator`` beforehand, so the random stream is that of NumPy.
@@ -112,13 +113,14 @@ def _first_nonfinite_row(a):
 
 
 @numba.njit(cache=True)
-def _encoder_tick(q, tau, resolution, dt, alpha, q_prev, dq, q_out, dq_out, tau_out):
-    """One encoder tick: ``q_out = r rint(q / r)``, the low-passed backward difference in ``dq``, ``tau_out = tau``.
+def _encoder_tick(q, tau, resolution, dt, alpha, state, out):
+    """One encoder tick: ``out[0] = r rint(q / r)``, the low-passed backward difference, ``out[2] = tau``.
 
     :math:`\\hat{\\dot q}_k = \\hat{\\dot q}_{k-1} + \\alpha ((q^m_k - q^m_{k-1}) / \\Delta t - \\hat{\\dot q}_{k-1})`
-    (:class:`JointSensing`); ``rint`` rounds ties to even, as ``numpy.round``.  ``q_prev`` and ``dq`` are the
-    state, updated in place; ``dq_out`` gets a copy of ``dq``.  Returns 0, or 1 if ``q`` and 2 if ``tau`` holds
-    a non-finite value, in which case nothing is written.
+    (:class:`JointSensing`); ``rint`` rounds ties to even, as ``numpy.round``.  ``state`` (2, n) holds the
+    previous reading :math:`q^m_{k-1}` and the estimate, updated in place; ``out`` (3, n) gets the reading, a copy
+    of the new estimate and ``tau``.  Returns 0, or 1 if ``q`` and 2 if ``tau`` holds a non-finite value, in
+    which case nothing is written.
     """
     n = q.shape[0]
     for i in range(n):
@@ -129,11 +131,11 @@ def _encoder_tick(q, tau, resolution, dt, alpha, q_prev, dq, q_out, dq_out, tau_
             return 2
     for i in range(n):
         qm = np.rint(q[i] / resolution) * resolution
-        dq[i] += ((qm - q_prev[i]) / dt - dq[i]) * alpha
-        q_prev[i] = qm
-        q_out[i] = qm
-        dq_out[i] = dq[i]
-        tau_out[i] = tau[i]
+        state[1, i] += ((qm - state[0, i]) / dt - state[1, i]) * alpha
+        state[0, i] = qm
+        out[0, i] = qm
+        out[1, i] = state[1, i]
+        out[2, i] = tau[i]
     return 0
 
 
@@ -176,16 +178,23 @@ def _force_tick(w, bias, noise, std, alpha, filtered, noisy, y, line, delay, sta
 
 
 @numba.njit(cache=True)
-def _force_bank_tick(w, bias, noise, std, alpha, filtered, noisy, y, line, delay, state, out):
+def _force_bank_tick(w, gains, noise, settings, y, line, state, out):
     """:func:`_force_tick` for each row k of the stacked arrays (:class:`ForceSensorBank`), in row order.
 
-    Returns whether a sensor has used up its block of draws.
+    ``gains[k]`` (2, 6) holds the bias and the noise standard deviations of sensor k, ``settings[k]`` its
+    alpha, filtered (1 or 0), noisy (1 or 0) and delay (a whole number of ticks).  First checks every row
+    of ``w``: returns -1 - i, having written nothing, if row i holds a NaN or an infinity.  Otherwise
+    returns 1 if a sensor has used up its block of draws, else 0.
     """
-    used_up = False
     for k in range(w.shape[0]):
-        if _force_tick(w[k], bias[k], noise[k], std[k], alpha[k], filtered[k], noisy[k], y[k], line[k], delay[k],
-                       state[k], out[k]):
-            used_up = True
+        for i in range(6):
+            if not math.isfinite(w[k, i]):
+                return -1 - k
+    used_up = 0
+    for k in range(w.shape[0]):
+        if _force_tick(w[k], gains[k, 0], noise[k], gains[k, 1], settings[k, 0], settings[k, 1] != 0.0,
+                       settings[k, 2] != 0.0, y[k], line[k], int(settings[k, 3]), state[k], out[k]):
+            used_up = 1
     return used_up
 
 
@@ -270,8 +279,8 @@ class JointSensing:
         self.dt_s = positive(o, "dt_s", dt_s, "s")
         self._rng = _check_rng(o, rng)
         self._alpha = lowpass_alpha(params.velocity_cutoff_Hz, self.dt_s)
-        self._q_prev = np.zeros(n)
-        self._dq = np.zeros(n)
+        self._state = np.zeros((2, n))  # the previous quantised reading and the velocity estimate
+        self._q_prev, self._dq = self._state
         self._noise = np.zeros(n)
         self._started = False
 
@@ -310,7 +319,9 @@ class JointSensing:
         tau_meas : (n,) ndarray [N m]
             Joint torques plus noise.
 
-        All three are new read-only arrays that own their data.
+        All three are read-only rows of one new array that owns its data and
+        is read-only too, so nothing can write to them (a row cannot be made
+        writable while its base is read-only).
         """
         n = (self.n_joints,)
         q, tau = q_true, tau_joint_Nm
@@ -319,20 +330,17 @@ class JointSensing:
             tau = _check_signal("JointSensing", "measure tau_joint_Nm", tau, n)
             if not self._started:
                 self.reset(q)
-        q_meas, dq_est, tau_meas = np.empty(n), np.empty(n), np.empty(n)
-        if _encoder_tick(q, tau, self.params.resolution_rad, self.dt_s, self._alpha, self._q_prev, self._dq,
-                         q_meas, dq_est, tau_meas):
+        out = np.empty((3, self.n_joints))  # the three readings, one row each
+        if _encoder_tick(q, tau, self.params.resolution_rad, self.dt_s, self._alpha, self._state, out):
             _check_signal("JointSensing", "measure q_true", q, n)  # raises, naming the non-finite input
             _check_signal("JointSensing", "measure tau_joint_Nm", tau, n)
         std = self.params.torque_noise_std_Nm
         if std > 0.0:
             self._rng.standard_normal(out=self._noise)
             self._noise *= std
-            tau_meas += self._noise
-        q_meas.setflags(write=False)
-        dq_est.setflags(write=False)
-        tau_meas.setflags(write=False)
-        return q_meas, dq_est, tau_meas
+            out[2] += self._noise
+        out.setflags(write=False)
+        return out[0], out[1], out[2]
 
 
 @dataclass(frozen=True)
@@ -511,12 +519,10 @@ class ForceSensorBank:
         n = len(sensors)
         d_max = max((s._delay for s in sensors), default=0)
         self.sensors = sensors
-        self._bias = np.array([s._bias for s in sensors]).reshape(n, 6)
-        self._std = np.array([s._std for s in sensors]).reshape(n, 6)
-        self._alpha = np.array([s._alpha for s in sensors], dtype=float)
-        self._filtered = np.array([s._filtered for s in sensors], dtype=bool)
-        self._delay = np.array([s._delay for s in sensors], dtype=np.int64)
-        self._noisy = np.array([s._noisy for s in sensors], dtype=bool)
+        # per sensor, bias and noise standard deviations; alpha, filtered, noisy, delay (see _force_bank_tick)
+        self._gains = np.array([(s._bias, s._std) for s in sensors]).reshape(n, 2, 6)
+        self._settings = np.array([(s._alpha, s._filtered, s._noisy, s._delay) for s in sensors],
+                                  dtype=float).reshape(n, 4)
         self._noise = np.array([s._noise for s in sensors]).reshape(n, NOISE_BLOCK_TICKS, 6)
         self._y = np.array([s._y for s in sensors]).reshape(n, 6)
         self._line = np.zeros((n, d_max, 6))
@@ -549,21 +555,29 @@ class ForceSensorBank:
         """
         shape = (len(self.sensors), 6)
         w = wrenches_true
-        if not _is_c_float(w, shape) or _first_nonfinite_row(w) >= 0:
-            w = np.asarray(w, dtype=float)
-            if w.shape != shape:
-                raise ParameterError(f"ForceSensorBank.measure wrenches_true must have shape {shape}, got {w.shape}")
-            bad = np.flatnonzero(~np.all(np.isfinite(w), axis=1))
-            if bad.size:
-                i = int(bad[0])
-                raise ParameterError(f"ForceSensorBank.measure wrenches_true[{i}] must be finite, got {w[i]!r}")
-            w = np.ascontiguousarray(w)
+        # the kernel checks finiteness before it writes anything; a tick that draws checks it before the draws
+        if not _is_c_float(w, shape) or (self._check_draws and _first_nonfinite_row(w) >= 0):
+            w = self._checked(w, shape)
         if self._check_draws:
             for s in self._noisy_sensors:
                 if s._state[2] >= NOISE_BLOCK_TICKS:
                     s._draw()
         out = np.empty(shape)
-        self._check_draws = _force_bank_tick(w, self._bias, self._noise, self._std, self._alpha, self._filtered,
-                                             self._noisy, self._y, self._line, self._delay, self._state, out)
+        done = _force_bank_tick(w, self._gains, self._noise, self._settings, self._y, self._line, self._state, out)
+        if done < 0:
+            self._checked(w, shape)  # raises, naming the row
+        self._check_draws = done == 1
         out.setflags(write=False)
         return out
+
+    @staticmethod
+    def _checked(w: object, shape: tuple[int, int]) -> np.ndarray:
+        """``w`` as a C-ordered finite float64 array of ``shape``, or a ParameterError naming the bad row."""
+        w = np.asarray(w, dtype=float)
+        if w.shape != shape:
+            raise ParameterError(f"ForceSensorBank.measure wrenches_true must have shape {shape}, got {w.shape}")
+        bad = np.flatnonzero(~np.all(np.isfinite(w), axis=1))
+        if bad.size:
+            i = int(bad[0])
+            raise ParameterError(f"ForceSensorBank.measure wrenches_true[{i}] must be finite, got {w[i]!r}")
+        return np.ascontiguousarray(w)

@@ -19,7 +19,6 @@ from __future__ import annotations
 
 import dataclasses
 import json
-import math
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -40,7 +39,7 @@ from .metrics import run_metrics, wall_metrics
 from .plant import CoupledPlant, PlantMode
 from .runlog import RunLog, environment_metadata, load_run
 from .scenario import Scenario
-from .sensors import ForceSensorBank, ForceTorqueSensor, JointSensing
+from .sensors import ForceSensorBank, ForceTorqueSensor, JointSensing, _first_nonfinite
 
 __all__ = ["SimulationError", "RunResult", "build_assembly", "controller_context", "simulate", "run_scenario",
            "evaluate_run"]
@@ -198,21 +197,28 @@ def simulate(
         (folder / "human.urdf").write_text(plant.human.urdf, encoding="utf-8")
         row = dict.fromkeys(log.column_names)  # filled by name, logged by position (append_row: column order)
         tau_cmd = zero_e
+        command_shape = (asm.exo.nv,)
+        has_controller, has_human, coupled = controller is not None, human is not None, mode == "coupled"
+        exo_torque = actuators if has_controller else zero_e  # the actuators' lag runs alongside the plant
+        has_cuffs = bool(plant.cuffs)
+        clock, nan = time.perf_counter, np.nan
         for k in range(n):
             t = k * T
-            t0 = time.perf_counter()
+            t0 = clock()
             plant.update_cuffs()
-            if controller is not None:
+            if has_controller:
+                q_e, v_e = plant.q_exo, plant.v_exo  # views of this tick's state (the plant replaces it as it steps)
                 tau_applied = actuators.applied_Nm
-                qm, dqm, taum = joints.measure(plant.q_exo, tau_applied)
+                qm, dqm, taum = joints.measure(q_e, tau_applied)
                 # with no wearer the sensors read their noise and bias alone
-                meas_wrench = cuff_sensors.measure(plant.wrench_on_exo if plant.cuffs else zero_w)
-                # the rows are read-only views of the bank's new reading: the Measurement keeps them as they are
-                m = Measurement(t, qm, dqm, taum, dict(zip(cuff_names, meas_wrench)))
-                tc = time.perf_counter()
+                meas_wrench = cuff_sensors.measure(plant.wrench_on_exo if has_cuffs else zero_w)
+                # new read-only arrays and read-only rows of the bank's new reading: what the checked constructor
+                # would keep as they are, so the unchecked one (a float t as well)
+                m = Measurement._from_frozen(t, qm, dqm, taum, dict(zip(cuff_names, meas_wrench)))
+                tc = clock()
                 tau_cmd = np.asarray(controller.step(m), dtype=float)
-                controller_times[k] = time.perf_counter() - tc
-                if tau_cmd.shape != (asm.exo.nv,) or not math.isfinite(tau_cmd.sum()):
+                controller_times[k] = clock() - tc
+                if tau_cmd.shape != command_shape or _first_nonfinite(tau_cmd) >= 0:
                     raise SimulationError(
                         f"controller {controller_name!r} returned a non-finite or mis-shaped torque at t = {t:.4f} s: "
                         f"{tau_cmd!r}")
@@ -220,30 +226,33 @@ def simulate(
                 if k == 0:  # the run starts in steady state: the drives already apply the first command
                     actuators.reset(np.clip(tau_cmd, -asm.exo.model.effortLimit, asm.exo.model.effortLimit))
                     tau_applied = actuators.applied_Nm
-            tau_h = human.torque(t, plant.q_human, plant.v_human) if human is not None else zero_h
             row["t"] = t
-            if human is not None:
-                row["q_human"], row["dq_human"] = plant.q_human, plant.v_human
+            if has_human:
+                q_h, v_h = plant.q_human, plant.v_human
+                tau_h = human.torque(t, q_h, v_h)
+                row["q_human"], row["dq_human"] = q_h, v_h
                 row["tau_human"], row["q_human_intent"] = tau_h, human.last_desired_q
-            if controller is not None:
-                row["q_exo"], row["dq_exo"], row["q_exo_meas"], row["dq_exo_meas"] = plant.q_exo, plant.v_exo, qm, dqm
+            else:
+                tau_h = zero_h
+            if has_controller:
+                row["q_exo"], row["dq_exo"], row["q_exo_meas"], row["dq_exo_meas"] = q_e, v_e, qm, dqm
                 row["tau_cmd"], row["tau_applied"], row["saturated"] = tau_cmd, tau_applied, saturated
                 diag = controller.diagnostics()
                 for d, key in diag_keys:
-                    row[key] = float(diag.get(d, np.nan))
+                    row[key] = float(diag.get(d, nan))
                 for d, series in timing_series:
-                    series[k] = float(diag.get(d, np.nan))
-            if human is not None:
+                    series[k] = float(diag.get(d, nan))
+            if has_human:
                 row["p_hand_human"] = plant.hand_position("human")
-            if controller is not None:
+            if has_controller:
                 row["p_hand_exo"] = plant.hand_position("exo")
-            if mode == "coupled":
+            if coupled:
                 row["cuff_wrench_human"] = plant.wrench_on_human
                 row["cuff_wrench_meas"] = meas_wrench
             log.append_row(row.values())
-            plant.advance(actuators if controller is not None else zero_e, tau_h, h, n_sub)  # lag alongside
+            plant.advance(exo_torque, tau_h, h, n_sub)
             bad = plant.state_is_finite()
-            tick_times[k] = time.perf_counter() - t0
+            tick_times[k] = clock() - t0
             if bad is not None:
                 raise SimulationError(f"non-finite plant state {bad} at t = {t + T:.4f} s "
                                       f"(scenario {scenario.name!r}, controller {controller_name!r})")

@@ -165,3 +165,59 @@ def test_the_pair_model_steps_both_arms_as_two_models_do_to_the_bit(monkeypatch)
     for x, y in zip(*(sum(p._joint_forces(), []) for p in (pair, two))):
         np.testing.assert_array_equal(x, y)
     assert pair.energy_J() == two.energy_J()
+
+
+class _AskedActuator:
+    """Torque-source actuators reached only through ``substep``: the plant asks them in Python every substep."""
+
+    def __init__(self, inner: TorqueSourceActuators) -> None:
+        self.inner = inner
+
+    def substep(self, q: np.ndarray, v: np.ndarray, dt_s: float) -> np.ndarray:
+        return self.inner.substep(q, v, dt_s)
+
+
+@pytest.mark.parametrize("friction", [True, False])
+def test_the_lag_inside_the_plant_kernel_equals_the_actuators_own_substep_to_the_bit(friction):
+    # the compiled substep applies the lag of TorqueSourceActuators.lag_arrays; the reference is the actuators'
+    # own substep (the exactly discretised lag, Franklin, Powell & Workman), asked before every substep
+    params = PlantParams(exo_friction=friction, cuff_damping=friction)
+    fused, asked = random_plant(9, "coupled", params), random_plant(9, "coupled", params)
+    assert fused._pair and asked._pair
+    limit = fused.exo.model.effortLimit
+    acts = [TorqueSourceActuators(limit, ActuatorParams(torque_time_constant_s=0.002)) for _ in range(2)]
+    tau_h = np.linspace(1.0, -1.0, fused.human.nv)  # [N m]
+    for k in range(4):  # four control ticks, a new command each
+        command = np.linspace(-1.5, 1.5, fused.exo.nv)[::1 if k % 2 else -1] * limit  # [N m]: some saturate
+        for act in acts:
+            act.hold(command)
+        fused.advance(acts[0], tau_h, H, 4)
+        asked.advance(_AskedActuator(acts[1]), tau_h, H, 4)
+        for x, y in zip(_state(fused), _state(asked)):
+            np.testing.assert_array_equal(x, y)
+        np.testing.assert_array_equal(acts[0].applied_Nm, acts[1].applied_Nm)
+    assert fused.cuff_energy_J == asked.cuff_energy_J and fused.cuff_power_W == asked.cuff_power_W
+
+
+def test_an_actuator_subclass_with_its_own_substep_gives_no_lag_arrays():
+    class Doubled(TorqueSourceActuators):
+        def substep(self, q, v, dt_s):
+            return 2.0 * super().substep(q, v, dt_s)
+
+    limit = np.ones(3)  # [N m]
+    assert TorqueSourceActuators(limit).lag_arrays(H) is not None
+    assert Doubled(limit).lag_arrays(H) is None  # the plant then asks its substep, as for any actuator
+
+
+@pytest.mark.parametrize("mode", ["coupled", "human_alone", "exo_alone"])
+def test_the_first_state_vector_holding_a_nan_or_an_infinity_is_named(mode):
+    # IEEE 754: NaN and +-inf are the non-finite doubles (numpy.isfinite is the reference)
+    plant = random_plant(10, mode)
+    assert plant.state_is_finite() is None
+    names = [n for n in ("q_exo", "v_exo", "q_human", "v_human") if (n.endswith("exo") and plant.has_exo)
+             or (n.endswith("human") and plant.has_human)]
+    for name in reversed(names):  # each bad vector is named while it is the first bad one
+        vec = getattr(plant, name)
+        vec[-1] = np.inf if name.startswith("q") else np.nan
+        assert not np.all(np.isfinite(getattr(plant, name)))
+        assert plant.state_is_finite() == name

@@ -56,3 +56,29 @@ def test_integer_arrays_are_converted_to_float():
     m = Measurement(1, _read_only(np.array([1, 2])), np.zeros(2), np.zeros(2), {"hand": _read_only(np.ones(6, int))})
     assert m.q_rad.dtype == np.float64 and m.cuff_wrench["hand"].dtype == np.float64
     assert np.array_equal(m.q_rad, [1.0, 2.0]) and m.t_s == 1.0
+
+
+def test_loop_constructor_keeps_what_the_checked_one_keeps_for_sensor_readings():
+    # models/records.py Measurement._from_frozen: on what the sensors return (new read-only arrays, read-only rows
+    # of one, NumPy setflags semantics) the checked constructor keeps every array as it is, so skipping the checks
+    # gives the same fields.
+    from sim.sensors import EncoderParams, ForceSensorBank, ForceSensorParams, ForceTorqueSensor, JointSensing
+
+    rng = np.random.default_rng(7)
+    joints = JointSensing(EncoderParams(torque_noise_std_Nm=0.1), 3, 1e-3, rng)
+    bank = ForceSensorBank([ForceTorqueSensor(ForceSensorParams(), 1e-3, np.random.default_rng(s)) for s in (1, 2)])
+    q, dq, tau = joints.measure(np.array([0.1, -0.2, 0.3]), np.array([1.0, 2.0, 3.0]))
+    wrenches = bank.measure(np.arange(12.0).reshape(2, 6))
+    checked = Measurement(0.25, q, dq, tau, dict(zip(("a", "b"), wrenches)))
+    fast = Measurement._from_frozen(0.25, q, dq, tau, dict(zip(("a", "b"), wrenches)))
+    assert checked.q_rad is fast.q_rad is q and checked.dq_rad_s is fast.dq_rad_s and checked.tau_Nm is fast.tau_Nm
+    assert type(fast.t_s) is float and fast.t_s == checked.t_s
+    assert list(fast.cuff_wrench) == list(checked.cuff_wrench) == ["a", "b"]
+    for name in ("a", "b"):
+        assert np.array_equal(fast.cuff_wrench[name], checked.cuff_wrench[name])
+        assert fast.cuff_wrench[name].base is checked.cuff_wrench[name].base is wrenches
+    for arr in (fast.q_rad, fast.dq_rad_s, fast.tau_Nm, *fast.cuff_wrench.values()):
+        with pytest.raises(ValueError):
+            arr[0] = 1.0
+    with pytest.raises(TypeError):
+        fast.cuff_wrench["a"] = np.zeros(6)  # a read-only mapping, as the constructor's

@@ -171,6 +171,9 @@ def test_joint_readings_are_read_only_copies_of_the_sensor_state():
     s.measure([0.5, 0.6], [3.0, 4.0])  # a later tick must not change earlier readings
     for arr, k in zip((q, dq, tau), kept):
         assert np.array_equal(arr, k)
+    for arr in (q, dq, tau):  # rows of a read-only array that owns its data (numpy.ndarray.setflags documentation)
+        with pytest.raises(ValueError):
+            arr.setflags(write=True)
 
 
 # --- force/torque sensor -----------------------------------------------------------------------------
