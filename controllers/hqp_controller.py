@@ -154,6 +154,8 @@ class HQPController(Controller):
             self._plan.append([(slot + j, t, t.kind == "eq") for j, t in enumerate(tasks)])
             slot += len(tasks)
         self._constant_rows: list = [None] * slot  # (read-only rows, their q part, their tau part or None)
+        self._placed: list = [None] * slot  # (q part, first row, weight) of the constant rows written last tick
+        self._min_norm_at = -1  # the first row of the minimum-norm level last tick
         self._raw_rows: list = []  # (level, task, A, b) as the tasks returned them this tick
         self.fallback_count = 0
         self.last_fallback_reason = None
@@ -192,6 +194,9 @@ class HQPController(Controller):
         cache = self._constant_rows
         raw = self._raw_rows
         raw.clear()
+        # constant rows written at the same place last tick with the same weight are still there: every row
+        # is written in order each tick, so nothing has written over them since (only b is new)
+        last, placed = self._placed, [None] * len(cache)
         layout = []
         m_e = m_i = 0
         A_buf, b_buf, sw_buf, C_buf, d_buf, wi_buf = buf.A, buf.b, buf.sw, buf.C, buf.d, buf.wi
@@ -231,13 +236,18 @@ class HQPController(Controller):
                     if end > A_buf.shape[0]:
                         buf.grow("eq", end)
                         A_buf, b_buf, sw_buf = buf.A, buf.b, buf.sw
-                    if A_t is None:
-                        A_buf[m_e:end] = A_q
-                        b_buf[m_e:end] = b
-                    else:  # a row on the torques: tau = M qdd + c
+                    if A_t is not None:  # a row on the torques: tau = M qdd + c
                         A_buf[m_e:end] = A_q + A_t @ M
                         b_buf[m_e:end] = b - A_t @ c
-                    sw_buf[m_e:end] = math.sqrt(w)
+                        sw_buf[m_e:end] = math.sqrt(w)
+                    else:
+                        b_buf[m_e:end] = b
+                        prev = last[slot]
+                        if prev is None or prev[0] is not A_q or prev[1] != m_e or prev[2] != w:
+                            A_buf[m_e:end] = A_q
+                            sw_buf[m_e:end] = math.sqrt(w)
+                        if A_q is not A:  # only a split of cached constant rows is the same object next tick
+                            placed[slot] = (A_q, m_e, w)
                     eq_spans.append((m_e, end, w))
                     if w != 1.0:
                         unit = False
@@ -247,13 +257,18 @@ class HQPController(Controller):
                     if end > C_buf.shape[0]:
                         buf.grow("ineq", end)
                         C_buf, d_buf, wi_buf = buf.C, buf.d, buf.wi
-                    if A_t is None:
-                        C_buf[m_i:end] = A_q
-                        d_buf[m_i:end] = b
-                    else:
+                    if A_t is not None:
                         C_buf[m_i:end] = A_q + A_t @ M
                         d_buf[m_i:end] = b - A_t @ c
-                    wi_buf[m_i:end] = w
+                        wi_buf[m_i:end] = w
+                    else:
+                        d_buf[m_i:end] = b
+                        prev = last[slot]
+                        if prev is None or prev[0] is not A_q or prev[1] != m_i or prev[2] != w:
+                            C_buf[m_i:end] = A_q
+                            wi_buf[m_i:end] = w
+                        if A_q is not A:
+                            placed[slot] = (A_q, m_i, w)
                     in_spans.append((m_i, end, w))
                     m_i = end
             eq_off[i + 1] = m_e
@@ -266,16 +281,19 @@ class HQPController(Controller):
             end = m_e + 2 * n
             if end > buf.A.shape[0]:
                 buf.grow("eq", end)
-            buf.A[m_e:m_e + n] = self._eye
+            if self._min_norm_at != m_e:  # else its constant half [I; 0] and weights are in place (as above)
+                buf.A[m_e:m_e + n] = self._eye
+                buf.b[m_e:m_e + n] = 0.0
+                buf.sw[m_e:end] = 1.0
+                self._min_norm_at = m_e
             buf.A[m_e + n:end] = s.M
-            buf.b[m_e:m_e + n] = 0.0
             np.negative(c, out=buf.b[m_e + n:end])
-            buf.sw[m_e:end] = 1.0
             layout.append(([(m_e, end, 1.0)], []))
             m_e = end
             p = len(self.levels)
             buf.eq_off[p + 1], buf.in_off[p + 1], buf.unit_eq[p] = m_e, m_i, True
             names = self._stack_names
+        self._placed = placed
         stack = LevelStack.from_arrays(buf.A[:m_e], buf.b[:m_e], buf.sw[:m_e], buf.eq_off, buf.unit_eq, buf.C[:m_i],
                                        buf.d[:m_i], buf.wi[:m_i], buf.in_off, buf.cols, names, layout)
         return stack, rows

@@ -144,3 +144,40 @@ def test_rows_that_outgrow_the_stack_buffers_give_the_torques_of_cvxpy():
         assert ctrl.diagnostics()["fallback"] == 0.0
         assert np.abs(tau - tau_cvx).max() < TOL_NM
     assert max(sizes) > 64 and len(set(sizes)) > 1  # beyond the first buffers (64 rows), and changing
+
+
+def test_constant_rows_kept_in_place_follow_a_task_that_comes_and_goes():
+    # a task above constant-row tasks returns rows only on some ticks, so the constant rows below it move in the
+    # stack from tick to tick (and back); the torques still match cvxpy's at every tick
+    from controllers.hqp_controller import HQPController
+    from controllers.tasks import JointDamping, JointVelocityLimits, Task, Transparency
+
+    class EveryOtherTick(Task):
+        """q̈_0 = 0 on every other tick (weight 0.5), nothing on the others."""
+
+        name, kind, weight = "every_other_tick", "eq", 0.5
+
+        def __init__(self):
+            self.ticks = 0
+
+        def rows(self, state):
+            self.ticks += 1
+            if self.ticks % 2:
+                return None
+            A = np.zeros((1, 14))
+            A[0, 0] = 1.0
+            return A, np.zeros(1)
+
+    def stack():
+        return [[JointVelocityLimits()], [EveryOtherTick(), JointDamping(weight=0.2)], [Transparency()],
+                [JointDamping()]]
+
+    arm, ctx = _context()
+    ctrl, ref = HQPController(stack()), HQPController(stack())
+    ctrl.reset(ctx)
+    ref.reset(ctx)
+    for m in _states(arm, 8, seed=17):
+        tau = ctrl.step(m)
+        tau_cvx = solve_levels_cvxpy(stack_rows(ref, m))[7:]
+        assert ctrl.diagnostics()["fallback"] == 0.0
+        assert np.abs(tau - tau_cvx).max() < TOL_NM
