@@ -9,28 +9,11 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from _lexicographic import cvxpy_lexicographic
 
 from controllers import hqp
 from controllers.hqp import HierarchySolver, HQPInfeasibleError, HQPParams, Level, LevelStack, solve_hierarchy
 from models.errors import ParameterError
-
-
-def _cvxpy_point(entries, G, h, n):
-    """The lexicographic optimum, level by level, each level's optimal slacks frozen below (Kanoun et al. 2011)."""
-    cp = pytest.importorskip("cvxpy")
-    x = cp.Variable(n)
-    kept = [G @ x <= h]
-    for eq, ineq in entries:
-        if not eq and not ineq:
-            continue
-        slacks = [cp.Variable(M.shape[0]) for M, _, _ in ineq]
-        cost = sum(w * cp.sum_squares(M @ x - v) for M, v, w in eq) + sum(
-            w * cp.sum_squares(s) for s, (_, _, w) in zip(slacks, ineq))
-        own = [M @ x - v <= s for s, (M, v, _) in zip(slacks, ineq)]
-        cp.Problem(cp.Minimize(cost), kept + own).solve(solver="CLARABEL")
-        kept += [M @ x - v == M @ x.value - v for M, v, _ in eq]
-        kept += [M @ x - v <= np.maximum(s.value, 0.0) + 1e-9 for s, (M, v, _) in zip(slacks, ineq)]
-    return x.value
 
 
 def _torque_like_stack(rng, n, *, mixed=False, full_rank_last=True):
@@ -89,7 +72,8 @@ def test_hierarchy_solver_gives_the_result_of_solve_hierarchy_and_the_cvxpy_poin
     fast = compiled and hqp._kernels.HAVE_CLOCK and case == "closed-form"
     assert len(calls) == (0 if fast else 1)
     if case != "freedom-left":  # with freedom left, the minimum-norm level picks one of the optima
-        np.testing.assert_allclose(ours.x, _cvxpy_point(entries, G, h, n), atol=1e-5)
+        pytest.importorskip("cvxpy")
+        np.testing.assert_allclose(ours.x, cvxpy_lexicographic(entries, n, hard=[(G, h)]), atol=1e-5)
     assert ours.level_x[-1] is not None and not ours.x.flags.writeable
 
 

@@ -110,10 +110,29 @@ def test_working_set_step_gives_the_backends_torques_and_is_used():
     assert used >= 1
 
 
+def _follows_cvxpy(make_levels, seed, ticks=6):
+    """Step an HQP controller of ``make_levels()`` through random states, each tick against cvxpy's torques.
+
+    A second controller of the same levels gives cvxpy its rows (their tasks keep their own state). Returns
+    the stepped controller.
+    """
+    from controllers.hqp_controller import HQPController
+
+    arm, ctx = _context()
+    ctrl, ref = HQPController(make_levels()), HQPController(make_levels())
+    ctrl.reset(ctx)
+    ref.reset(ctx)
+    for m in _states(arm, ticks, seed=seed):
+        tau = ctrl.step(m)
+        tau_cvx = solve_levels_cvxpy(stack_rows(ref, m))[7:]
+        assert ctrl.diagnostics()["fallback"] == 0.0
+        assert np.abs(tau - tau_cvx).max() < TOL_NM
+    return ctrl
+
+
 def test_rows_that_outgrow_the_stack_buffers_give_the_torques_of_cvxpy():
     # a task whose number of rows changes from tick to tick, up to more than the controller's first buffers
     # hold, between the limits and transparency: the stack is regrown and every tick still matches cvxpy
-    from controllers.hqp_controller import HQPController
     from controllers.tasks import JointDamping, JointPositionLimits, Task, Transparency
 
     class ManyPostureRows(Task):
@@ -122,34 +141,24 @@ def test_rows_that_outgrow_the_stack_buffers_give_the_torques_of_cvxpy():
         name, kind, weight = "many_rows", "eq", 0.1
 
         def __init__(self):
-            self.k = 0
+            self.k, self.sizes = 0, []
 
         def rows(self, state):
             self.k = (self.k + 37) % 150 + 1
+            self.sizes.append(7 * self.k)
             A = np.zeros((self.k * 7, 14))
             A[:, :7] = np.tile(np.eye(7), (self.k, 1))
             return A, np.tile(-state.dq, self.k)
 
-    arm, ctx = _context()
-    task = ManyPostureRows()
-    ctrl = HQPController([[JointPositionLimits()], [task], [Transparency()], [JointDamping()]])
-    ref = HQPController([[JointPositionLimits()], [ManyPostureRows()], [Transparency()], [JointDamping()]])
-    ctrl.reset(ctx)
-    ref.reset(ctx)
-    sizes = []
-    for m in _states(arm, 6, seed=11):
-        tau = ctrl.step(m)
-        sizes.append(task.k * 7)
-        tau_cvx = solve_levels_cvxpy(stack_rows(ref, m))[7:]
-        assert ctrl.diagnostics()["fallback"] == 0.0
-        assert np.abs(tau - tau_cvx).max() < TOL_NM
+    ctrl = _follows_cvxpy(lambda: [[JointPositionLimits()], [ManyPostureRows()], [Transparency()], [JointDamping()]],
+                          seed=11)
+    sizes = ctrl.levels[1][0].sizes
     assert max(sizes) > 64 and len(set(sizes)) > 1  # beyond the first buffers (64 rows), and changing
 
 
 def test_constant_rows_kept_in_place_follow_a_task_that_comes_and_goes():
     # a task above constant-row tasks returns rows only on some ticks, so the constant rows below it move in the
     # stack from tick to tick (and back); the torques still match cvxpy's at every tick
-    from controllers.hqp_controller import HQPController
     from controllers.tasks import JointDamping, JointVelocityLimits, Task, Transparency
 
     class EveryOtherTick(Task):
@@ -168,16 +177,6 @@ def test_constant_rows_kept_in_place_follow_a_task_that_comes_and_goes():
             A[0, 0] = 1.0
             return A, np.zeros(1)
 
-    def stack():
-        return [[JointVelocityLimits()], [EveryOtherTick(), JointDamping(weight=0.2)], [Transparency()],
-                [JointDamping()]]
-
-    arm, ctx = _context()
-    ctrl, ref = HQPController(stack()), HQPController(stack())
-    ctrl.reset(ctx)
-    ref.reset(ctx)
-    for m in _states(arm, 8, seed=17):
-        tau = ctrl.step(m)
-        tau_cvx = solve_levels_cvxpy(stack_rows(ref, m))[7:]
-        assert ctrl.diagnostics()["fallback"] == 0.0
-        assert np.abs(tau - tau_cvx).max() < TOL_NM
+    ctrl = _follows_cvxpy(lambda: [[JointVelocityLimits()], [EveryOtherTick(), JointDamping(weight=0.2)],
+                                   [Transparency()], [JointDamping()]], seed=17, ticks=8)
+    assert ctrl.levels[1][0].ticks == 8
