@@ -109,6 +109,21 @@ def _max_violation(M, x, v, initial):
 
 
 @nb.njit(cache=True)
+def _scaled_gram(V, w):
+    """``V @ diag(w) @ V.T`` (r, r) for V (r, k), summed in index order without temporaries."""
+    r, k = V.shape
+    out = np.empty((r, r))
+    for i in range(r):
+        for j in range(i, r):
+            acc = 0.0
+            for p in range(k):
+                acc += V[i, p] * w[p] * V[j, p]
+            out[i, j] = acc
+            out[j, i] = acc
+    return out
+
+
+@nb.njit(cache=True)
 def _abs_max(v):
     """``numpy.abs(v).max()`` of a finite vector without the temporary (0 for an empty one)."""
     worst = 0.0
@@ -312,11 +327,11 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
         hz = _concat(d - C @ x, hz)
     if Gz.shape[0] == 0:
         return False, x, none
-    W = Gz @ z_ls - hz > tol
+    W = _residual(Gz, z_ls, hz) > tol
     if not W.any():
         return False, x, none
-    GW, hW = _rows(Gz, W), _entries(hz, W)
     if n_in:
+        GW, hW = _rows(Gz, W), _entries(hz, W)
         # minimum-norm correction onto W: GW^T (GW GW^T)^-1 res if GW has full row rank, else least squares
         res = hW - GW @ z_ls
         GWT = np.ascontiguousarray(GW.T)
@@ -327,37 +342,41 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
             return False, x, none
         return True, _lift(x, z, N, has_N), none
     r = z_ls.shape[0]
-    H = (V1 * s1**2) @ np.ascontiguousarray(V1.T)
+    H = _scaled_gram(V1, s1 * s1)
     g = V1 @ (s1 * c1)
     definite = s1.shape[0] == r
-    Hi = (V1 / s1**2) @ np.ascontiguousarray(V1.T) if definite else H
+    Hi = _scaled_gram(V1, 1.0 / (s1 * s1)) if definite else H
+    Hig = Hi @ g
     for _ in range(min(2 * Gz.shape[0] + 2, 8)):  # controllers.hqp._working_set_iterations
         GW, hW = _rows(Gz, W), _entries(hz, W)
         m = GW.shape[0]
         GWT = np.ascontiguousarray(GW.T)
-        K = np.zeros((r + m, r + m))
-        K[:r, :r] = H
-        K[:r, r:] = GWT
-        K[r:, :r] = GW
-        rhs = _concat(g, hW)
-        # the KKT system by its Schur complement when H = V1 S1^2 V1^T is definite (the unique solution), else
-        # by least squares: z = H^-1 (g - GW^T lam), (GW H^-1 GW^T) lam = GW H^-1 g - hW (Nocedal & Wright
-        # 2006, section 16.1)
+        # the KKT system [H GW^T; GW 0] [z; lam] = [g; hW] by its Schur complement when H = V1 S1^2 V1^T is
+        # definite (the unique solution), else by least squares: z = H^-1 (g - GW^T lam),
+        # (GW H^-1 GW^T) lam = GW H^-1 g - hW (Nocedal & Wright 2006, section 16.1)
+        scale = 1.0 + max(_abs_max(g), _abs_max(hW))
         ok = False
-        sol = rhs
+        kkt = np.inf  # the largest KKT residual of the point found
         if definite:
             HiGT = Hi @ GWT
-            ok, lam = _spd_solve(GW @ HiGT, GW @ (Hi @ g) - hW)
+            ok, lam = _spd_solve(GW @ HiGT, GW @ Hig - hW)
             if ok:
-                sol = _concat(Hi @ g - HiGT @ lam, lam)
+                z = Hig - HiGT @ lam
+                # the KKT residual, block by block
+                kkt = max(_abs_max(H @ z + GWT @ lam - g), _abs_max(_residual(GW, z, hW)))
         if not ok:
+            K = np.zeros((r + m, r + m))
+            K[:r, :r] = H
+            K[:r, r:] = GWT
+            K[r:, :r] = GW
+            rhs = _concat(g, hW)
             sol = _lstsq(K, rhs)
-        scale = 1.0 + np.abs(rhs).max()
-        if np.abs(K @ sol - rhs).max() > feas_tol * scale:
+            kkt = _abs_max(K @ sol - rhs)
+            z, lam = sol[:r].copy(), sol[r:].copy()
+        if kkt > feas_tol * scale:
             return False, x, none  # inconsistent working set
-        z, lam = sol[:r].copy(), sol[r:].copy()
-        lam_scale = max(1.0, np.abs(lam).max()) if m else 1.0
-        viol = Gz @ z - hz
+        lam_scale = max(1.0, _abs_max(lam))
+        viol = _residual(Gz, z, hz)
         worst = int(np.argmax(viol))
         if viol[worst] > tol:  # a row the step crossed: add it
             W[worst] = True
