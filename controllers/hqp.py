@@ -1351,6 +1351,50 @@ def solve_hierarchy(
     )
 
 
+class _KernelResult(HierarchyResult):
+    """The :class:`HierarchyResult` of a hierarchy the compiled kernel solved whole.
+
+    ``x``, ``level_residuals`` and ``level_times_s`` (what a controller reads
+    every tick) are set at once; the per-level tuples ``level_slacks``,
+    ``level_methods``, ``free_dims`` and ``level_x`` are made from the
+    kernel's arrays when first read (the same values as
+    :func:`solve_hierarchy` builds, as read-only views). Built by
+    :meth:`from_kernel`; the keyword form of the dataclass (every field, as
+    :func:`dataclasses.replace` gives them) sets them all at once.
+    """
+
+    _PER_LEVEL = ("level_slacks", "level_methods", "free_dims", "level_x")
+
+    def __init__(self, **fields) -> None:
+        per_level = {k: fields.pop(k) for k in self._PER_LEVEL}
+        self.__dict__.update(fields, _per_level=per_level)
+
+    @classmethod
+    def from_kernel(cls, x, residuals, seconds, solver: str, t_start: float, raw: tuple) -> _KernelResult:
+        """From the kernel's outputs; ``raw`` is ``(e_all, v_all, eq_off, in_off, codes, free, X)``."""
+        self = object.__new__(cls)
+        self.__dict__.update(x=x, level_residuals=residuals, found=True, level_times_s=seconds, solver=solver,
+                             qp_solves=0, _raw=raw, solve_time_s=time.perf_counter() - t_start)
+        return self
+
+    def _per_level_fields(self) -> dict:
+        d = self.__dict__
+        if "_per_level" not in d:
+            e_all, v_all, eq_off, in_off, codes, free, X = d["_raw"]
+            e_all.flags.writeable = v_all.flags.writeable = X.flags.writeable = False
+            eo, io, methods = eq_off.tolist(), in_off.tolist(), _kernels.METHODS
+            d["_per_level"] = {
+                "level_slacks": tuple([(e_all[eo[k]: eo[k + 1]], v_all[io[k]: io[k + 1]]) for k in range(len(X))]),
+                "level_methods": tuple([methods[c] for c in codes.tolist()]),
+                "free_dims": tuple(free.tolist()), "level_x": tuple(X)}
+        return d["_per_level"]
+
+    level_slacks = property(lambda self: self._per_level_fields()["level_slacks"])
+    level_methods = property(lambda self: self._per_level_fields()["level_methods"])
+    free_dims = property(lambda self: self._per_level_fields()["free_dims"])
+    level_x = property(lambda self: self._per_level_fields()["level_x"])
+
+
 class HierarchySolver:
     r""":func:`solve_hierarchy` for a caller that solves a hierarchy of the same kind every control tick.
 
@@ -1438,17 +1482,10 @@ class HierarchySolver:
                 stack.in_off, prm.rank_tol, prm.feasibility_tol, prm.slack_tol, prm.multiplier_tol, prm.closed_form,
                 prm.working_set_step, codes, X, e_all, v_all, free, seconds, residuals, self._clock)
             if stop == p and (r == 0 or self.regularization == 0.0) and violation <= tol:
-                e_all.flags.writeable = v_all.flags.writeable = X.flags.writeable = False
-                residuals.flags.writeable = seconds.flags.writeable = False
-                eo, io = stack.eq_off.tolist(), stack.in_off.tolist()
-                x = _read_only(x)
-                methods = _kernels.METHODS
-                return HierarchyResult(
-                    x=x, level_residuals=residuals,
-                    level_slacks=tuple([(e_all[eo[k]: eo[k + 1]], v_all[io[k]: io[k + 1]]) for k in range(p)]),
-                    found=True, solve_time_s=time.perf_counter() - t_start, level_times_s=seconds,
-                    solver=self.solver_name, level_methods=tuple([methods[c] for c in codes.tolist()]),
-                    free_dims=tuple(free.tolist()), level_x=tuple(X), qp_solves=0)
+                x.flags.writeable = residuals.flags.writeable = seconds.flags.writeable = False
+                return _KernelResult.from_kernel(x, residuals, seconds, self.solver_name, t_start,
+                                                 (e_all, v_all, stack.eq_off.copy(), stack.in_off.copy(), codes,
+                                                  free, X))
         hard = Level.unchecked(ineq=[(G, h, 1.0)], name=name)
         return solve_hierarchy(stack, n, self.solver, hard=hard, regularization=self.regularization,
                                warm_start=warm_start, params=self.params)

@@ -7,6 +7,8 @@ the frozen-slack formulation of Kanoun, Lamiraux & Wieber (2011), written here w
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pytest
 from _lexicographic import cvxpy_lexicographic
@@ -74,7 +76,11 @@ def test_hierarchy_solver_gives_the_result_of_solve_hierarchy_and_the_cvxpy_poin
     if case != "freedom-left":  # with freedom left, the minimum-norm level picks one of the optima
         pytest.importorskip("cvxpy")
         np.testing.assert_allclose(ours.x, cvxpy_lexicographic(entries, n, hard=[(G, h)]), atol=1e-5)
-    assert ours.level_x[-1] is not None and not ours.x.flags.writeable
+    assert not ours.x.flags.writeable and not any(xk.flags.writeable for xk in ours.level_x)
+    # a result record like any other: its fields, repr and dataclasses.replace
+    again = dataclasses.replace(ours, qp_solves=ours.qp_solves + 1)
+    assert again.qp_solves == ours.qp_solves + 1 and again.level_methods == ours.level_methods
+    assert dataclasses.asdict(ours).keys() == dataclasses.asdict(ref).keys() and "level_slacks" in repr(ours)
 
 
 def test_hierarchy_solver_reports_infeasible_hard_rows_by_name():
