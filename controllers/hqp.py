@@ -1462,6 +1462,17 @@ class HierarchySolver:
             Name of the hard level in messages.
         warm_start : as for :func:`solve_hierarchy`
             Used (and checked) only by a level that needs the QP backend.
+
+        Nothing in ``stack``, ``G`` or ``h`` is checked for finiteness (the
+        caller checks its rows once, as :class:`~controllers.hqp_controller.HQPController` does).
+
+        Raises
+        ------
+        ParameterError
+            If ``stack`` is not a LevelStack of ``n`` columns, or ``G``, ``h``
+            are not (m, n) and (m,) arrays.
+        HQPInfeasibleError, QPSolveError
+            As :func:`solve_hierarchy`.
         """
         t_start = time.perf_counter()
         if type(stack) is not LevelStack:
@@ -1469,7 +1480,10 @@ class HierarchySolver:
         n, p = self.n, len(stack.names)
         if stack.n_cols not in (None, n):
             raise ParameterError(f"HierarchySolver.solve: the level stack has {stack.n_cols} columns, expected n = {n}")
-        if self._fast and p and G.shape == (h.shape[0], n):
+        if not (type(G) is np.ndarray and type(h) is np.ndarray and G.ndim == 2 and G.shape == (h.shape[0], n)):
+            raise ParameterError(f"HierarchySolver.solve: G must be an (m, {n}) array and h an (m,) array, got "
+                                 f"{getattr(G, 'shape', type(G).__name__)} and {getattr(h, 'shape', type(h).__name__)}")
+        if self._fast and p:
             prm = self.params
             A, C = stack.A, stack.C
             m_e, m_i = A.shape[0], C.shape[0]

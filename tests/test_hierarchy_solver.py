@@ -102,5 +102,8 @@ def test_hierarchy_solver_rejects_bad_arguments_naming_them():
     stack = LevelStack.from_entries([([(np.eye(3), np.zeros(3), 1.0)], [])], 3, ("three",))
     with pytest.raises(ParameterError, match="the level stack has 3 columns, expected n = 4"):
         HierarchySolver(4).solve(stack, np.zeros((0, 4)), np.zeros(0))
+    with pytest.raises(ParameterError, match=r"G must be an \(m, 3\) array and h an \(m,\) array, got \(2, 3\) and "
+                                             r"\(3,\)"):
+        HierarchySolver(3).solve(stack, np.zeros((2, 3)), np.zeros(3))
     with pytest.raises(ParameterError, match="stack must be a LevelStack, got list"):
         HierarchySolver(3).solve([Level(eq=[(np.eye(3), np.zeros(3))])], np.zeros((0, 3)), np.zeros(0))
