@@ -84,14 +84,20 @@ def _lift(x, z, N, has_N):
 
 
 @nb.njit(cache=True)
+def _row_dot(M, i, x):
+    """``M[i] @ x``, summed in index order (no BLAS call for these small products)."""
+    acc = 0.0
+    for j in range(M.shape[1]):
+        acc += M[i, j] * x[j]
+    return acc
+
+
+@nb.njit(cache=True)
 def _residual(M, x, v):
-    """``M @ x - v`` as a new array, summed in index order (no BLAS call for these small products)."""
+    """``M @ x - v`` as a new array (:func:`_row_dot` per row)."""
     out = np.empty(M.shape[0])
     for i in range(M.shape[0]):
-        acc = 0.0
-        for j in range(M.shape[1]):
-            acc += M[i, j] * x[j]
-        out[i] = acc - v[i]
+        out[i] = _row_dot(M, i, x) - v[i]
     return out
 
 
@@ -100,11 +106,9 @@ def _max_violation(M, x, v, initial):
     """``max(initial, max_i (M @ x - v)_i)`` without temporaries."""
     worst = initial
     for i in range(M.shape[0]):
-        acc = 0.0
-        for j in range(M.shape[1]):
-            acc += M[i, j] * x[j]
-        if acc - v[i] > worst:
-            worst = acc - v[i]
+        r = _row_dot(M, i, x) - v[i]
+        if r > worst:
+            worst = r
     return worst
 
 
@@ -606,9 +610,7 @@ def solve_stack_fast(G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, rank_tol
         feas_tol, slack_tol, mult_tol, closed_form, working_set_step, methods, X, e_all, v_all, free, seconds,
         residuals, clock)
     r = N.shape[1] if has_N else n
-    violation = 0.0
-    if m_hard:
-        violation = (G @ x - h).max()
+    violation = _max_violation(G, x, h, -np.inf) if m_hard else 0.0
     return stop, x, r, violation, tol
 
 

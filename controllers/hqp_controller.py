@@ -72,15 +72,20 @@ class _StackBuffers:
         self.eq_off, self.in_off = np.zeros(p + 1, dtype=np.int64), np.zeros(p + 1, dtype=np.int64)
         self.unit_eq = np.ones(p, dtype=np.bool_)
 
-    def grow(self, kind: str, rows: int) -> None:
-        """Room for at least ``rows`` rows of ``kind`` ("eq" or "ineq"), keeping the rows written so far."""
-        names = ("A", "b", "sw") if kind == "eq" else ("C", "d", "wi")
-        size = max(rows, 2 * getattr(self, names[0]).shape[0])
-        for name in names:
-            old = getattr(self, name)
-            new = np.zeros((size, *old.shape[1:]))
-            new[: old.shape[0]] = old
-            setattr(self, name, new)
+    def parts(self, is_eq: bool, rows: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """``(A, b, sw)`` or ``(C, d, wi)``, first grown (doubled, keeping the rows written) to hold ``rows`` rows."""
+        names = ("A", "b", "sw") if is_eq else ("C", "d", "wi")
+        arrays = tuple(getattr(self, name) for name in names)
+        if rows > arrays[0].shape[0]:
+            size = max(rows, 2 * arrays[0].shape[0])
+            grown = []
+            for name, old in zip(names, arrays):
+                new = np.zeros((size, *old.shape[1:]))
+                new[: old.shape[0]] = old
+                setattr(self, name, new)
+                grown.append(new)
+            arrays = tuple(grown)
+        return arrays
 
 
 class HQPController(Controller):
@@ -198,11 +203,10 @@ class HQPController(Controller):
         # is written in order each tick, so nothing has written over them since (only b is new)
         last, placed = self._placed, [None] * len(cache)
         layout = []
-        m_e = m_i = 0
-        A_buf, b_buf, sw_buf, C_buf, d_buf, wi_buf = buf.A, buf.b, buf.sw, buf.C, buf.d, buf.wi
+        ends = [0, 0]  # rows written so far: equality, inequality
         eq_off, in_off, unit_eq = buf.eq_off, buf.in_off, buf.unit_eq
         for i, level in enumerate(self._plan):
-            eq_spans, in_spans = [], []
+            spans = ([], [])  # per kind, (first row, end row, weight) of each entry
             unit = True
             for slot, t, is_eq in level:
                 r = t.rows(s)
@@ -230,57 +234,36 @@ class HQPController(Controller):
                         A_q, A_t = A[:, :n], (A_t if np.count_nonzero(A_t) else None)
                     if type(r[0]) is _NDARRAY and not r[0].flags.writeable and np.isfinite(A.sum()):
                         cache[slot] = (r[0], A_q, A_t)  # constant rows: split them once
-                k, w = b.shape[0], float(t.weight)
-                if is_eq:
-                    end = m_e + k
-                    if end > A_buf.shape[0]:
-                        buf.grow("eq", end)
-                        A_buf, b_buf, sw_buf = buf.A, buf.b, buf.sw
-                    if A_t is not None:  # a row on the torques: tau = M qdd + c
-                        A_buf[m_e:end] = A_q + A_t @ M
-                        b_buf[m_e:end] = b - A_t @ c
-                        sw_buf[m_e:end] = math.sqrt(w)
-                    else:
-                        b_buf[m_e:end] = b
-                        prev = last[slot]
-                        if prev is None or prev[0] is not A_q or prev[1] != m_e or prev[2] != w:
-                            A_buf[m_e:end] = A_q
-                            sw_buf[m_e:end] = math.sqrt(w)
-                        if A_q is not A:  # only a split of cached constant rows is the same object next tick
-                            placed[slot] = (A_q, m_e, w)
-                    eq_spans.append((m_e, end, w))
-                    if w != 1.0:
-                        unit = False
-                    m_e = end
+                w = float(t.weight)
+                start = ends[not is_eq]
+                end = start + b.shape[0]
+                rows_buf, rhs_buf, w_buf = buf.parts(is_eq, end)
+                w_row = math.sqrt(w) if is_eq else w  # the equality rows carry the square roots of their weights
+                if A_t is not None:  # a row on the torques: tau = M qdd + c
+                    rows_buf[start:end] = A_q + A_t @ M
+                    rhs_buf[start:end] = b - A_t @ c
+                    w_buf[start:end] = w_row
                 else:
-                    end = m_i + k
-                    if end > C_buf.shape[0]:
-                        buf.grow("ineq", end)
-                        C_buf, d_buf, wi_buf = buf.C, buf.d, buf.wi
-                    if A_t is not None:
-                        C_buf[m_i:end] = A_q + A_t @ M
-                        d_buf[m_i:end] = b - A_t @ c
-                        wi_buf[m_i:end] = w
-                    else:
-                        d_buf[m_i:end] = b
-                        prev = last[slot]
-                        if prev is None or prev[0] is not A_q or prev[1] != m_i or prev[2] != w:
-                            C_buf[m_i:end] = A_q
-                            wi_buf[m_i:end] = w
-                        if A_q is not A:
-                            placed[slot] = (A_q, m_i, w)
-                    in_spans.append((m_i, end, w))
-                    m_i = end
-            eq_off[i + 1] = m_e
-            in_off[i + 1] = m_i
+                    rhs_buf[start:end] = b
+                    prev = last[slot]
+                    if prev is None or prev[0] is not A_q or prev[1] != start or prev[2] != w:
+                        rows_buf[start:end] = A_q
+                        w_buf[start:end] = w_row
+                    if A_q is not A:  # only a split of cached constant rows is the same object next tick
+                        placed[slot] = (A_q, start, w)
+                spans[not is_eq].append((start, end, w))
+                if is_eq and w != 1.0:
+                    unit = False
+                ends[not is_eq] = end
+            eq_off[i + 1], in_off[i + 1] = ends
             unit_eq[i] = unit
-            layout.append((eq_spans, in_spans))
+            layout.append(spans)
+        m_e, m_i = ends
         rows = m_e + m_i
         names = self._level_names
         if c is not None:  # the minimum-norm level [I; M] qdd ~ [0; -c]: 1/2 ||qdd||^2 + 1/2 ||tau||^2
             end = m_e + 2 * n
-            if end > buf.A.shape[0]:
-                buf.grow("eq", end)
+            buf.parts(True, end)
             if self._min_norm_at != m_e:  # else its constant half [I; 0] and weights are in place (as above)
                 buf.A[m_e:m_e + n] = self._eye
                 buf.b[m_e:m_e + n] = 0.0

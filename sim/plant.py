@@ -802,13 +802,7 @@ def _first_nonfinite(a, b, c, d):
 @numba.njit(cache=True)
 def _first_nonfinite_pair(q, v, nq_e, nv_e):
     """:func:`_first_nonfinite` of ``q[:nq_e], v[:nv_e], q[nq_e:], v[nv_e:]`` (the pair model's state)."""
-    if _any_nonfinite(q[:nq_e]):
-        return 0
-    if _any_nonfinite(v[:nv_e]):
-        return 1
-    if _any_nonfinite(q[nq_e:]):
-        return 2
-    return 3 if _any_nonfinite(v[nv_e:]) else -1
+    return _first_nonfinite(q[:nq_e], v[:nv_e], q[nq_e:], v[nv_e:])
 
 
 @numba.njit(cache=True)
