@@ -49,6 +49,8 @@ from ._torque_kernels import clipped_torque, torque_limit_rows
 from .base import Controller, ControllerContext
 from .hqp import HierarchySolver, HQPParams, Level, LevelStack, solve_hierarchy
 from .tasks import Task, TickState
+from .tasks import _kernels as _task_kernels
+from .tasks._program import LazyLayout, TaskProgram
 
 __all__ = ["HQPController"]
 
@@ -162,6 +164,13 @@ class HQPController(Controller):
         self._placed: list = [None] * slot  # (q part, first row, weight) of the constant rows written last tick
         self._min_norm_at = -1  # the first row of the minimum-norm level last tick
         self._raw_rows: list = []  # (level, task, A, b) as the tasks returned them this tick
+        # a stack of shipped tasks only is written in one compiled call (the same rows as _fill_stack)
+        self._program = None
+        if self.eliminate_torque and (self.params is None or self.params.compiled):
+            self._program = TaskProgram.build(self.levels, self.state)
+            if self._program is not None:
+                self._buf.parts(True, self._program.max_eq)
+                self._buf.parts(False, self._program.max_in)
         self.fallback_count = 0
         self.last_fallback_reason = None
         self._diag = dict.fromkeys(self.diagnostic_names(), 0.0)
@@ -281,6 +290,26 @@ class HQPController(Controller):
                                        buf.d[:m_i], buf.wi[:m_i], buf.in_off, buf.cols, names, layout)
         return stack, rows
 
+    def _fill_program(self, s: TickState, c: np.ndarray) -> tuple[LevelStack, int]:
+        """:meth:`_fill_stack` (with ``c``) and :meth:`_check_finite` of a stack of shipped tasks, in one compiled
+        call (:func:`controllers.tasks._kernels.fill_program`, the same rows). Rows that are not finite are
+        written again task by task, so that the error names the task."""
+        prog, buf = self._program, self._buf
+        prog.gather(s)
+        m_e, m_i, rows, finite = _task_kernels.fill_program(
+            prog.prog, prog.fp, s.q, s.dq, s.M, s.Minv, s.g, s.cuff_force, c, s.dt_s, prog.frames, buf.A, buf.b,
+            buf.sw, buf.C, buf.d, buf.wi, buf.eq_off, buf.in_off, buf.unit_eq, prog.spans)
+        self._placed = [None] * len(self._placed)  # the rows _fill_stack left in place are written over
+        self._min_norm_at = -1
+        if not finite:
+            stack, rows = self._fill_stack(s, c)
+            self._check_finite(stack)
+            return stack, rows
+        stack = LevelStack.from_arrays(buf.A[:m_e], buf.b[:m_e], buf.sw[:m_e], buf.eq_off, buf.unit_eq, buf.C[:m_i],
+                                       buf.d[:m_i], buf.wi[:m_i], buf.in_off, buf.cols, self._stack_names,
+                                       LazyLayout(prog, m_e))
+        return stack, rows
+
     def _check_finite(self, stack: LevelStack) -> None:
         """Raise naming the first task whose rows are not finite, if the stacked rows are not.
 
@@ -308,8 +337,11 @@ class HQPController(Controller):
                 # tau = M qdd + c, and the torque limits -tau_max <= M qdd + c <= tau_max as rows G qdd <= h
                 G, h = self._G, self._h
                 c = torque_limit_rows(M, s.h, s.cuff_force, self._tau_max, G, h)
-                stack, rows = self._fill_stack(s, c)
-                self._check_finite(stack)
+                if self._program is not None:
+                    stack, rows = self._fill_program(s, c)
+                else:
+                    stack, rows = self._fill_stack(s, c)
+                    self._check_finite(stack)
                 t_solve = time.perf_counter()
                 res = self._hqp.solve(stack, G, h, name="torque limits", warm_start=self._prev)
                 tau, finite = clipped_torque(M, res.x, c, self._tau_max)

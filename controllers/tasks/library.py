@@ -61,6 +61,9 @@ class GravityTorque(Task):
     def rows(self, state: TickState):
         return self._A, state.g.copy()
 
+    def _program_entry(self, state: TickState):
+        return _kernels.GRAVITY, [], None
+
 
 class JointPositionLimits(Task):
     """Keep each joint inside its range with room to stop.
@@ -99,6 +102,9 @@ class JointPositionLimits(Task):
         return self._C, _kernels.position_limit_bounds(state.q, state.dq, self._upper, self._lower, 2.0 * self.a,
                                                        state.dt_s)
 
+    def _program_entry(self, state: TickState):
+        return _kernels.POSITION_LIMITS, [*self._upper, *self._lower, 2.0 * self.a], None
+
 
 class JointVelocityLimits(Task):
     """:math:`|\\dot q + \\ddot q \\Delta t| \\le \\dot q_{max}` with the model's velocity limits (× ``fraction``)."""
@@ -115,6 +121,9 @@ class JointVelocityLimits(Task):
 
     def rows(self, state: TickState):
         return self._C, _kernels.velocity_limit_bounds(state.dq, self.vmax, state.dt_s)
+
+    def _program_entry(self, state: TickState):
+        return _kernels.VELOCITY_LIMITS, [*self.vmax], None
 
 
 class Transparency(Task):
@@ -143,6 +152,9 @@ class Transparency(Task):
     def rows(self, state: TickState):
         return _q_part(state, (1.0 - self.c) * state.M), state.cuff_force.copy()
 
+    def _program_entry(self, state: TickState):
+        return _kernels.TRANSPARENCY, [1.0 - self.c], None
+
 
 class JointDamping(Task):
     """Joint damping on acceleration level: :math:`\\ddot q = -\\dot q / T_d` (time constant ``time_constant_s``)."""
@@ -158,6 +170,9 @@ class JointDamping(Task):
 
     def rows(self, state: TickState):
         return self._A, -state.dq / self.T
+
+    def _program_entry(self, state: TickState):
+        return _kernels.DAMPING, [self.T], None
 
 
 class Posture(Task):
@@ -180,8 +195,28 @@ class Posture(Task):
         b = self.w**2 * pin.difference(state.model, state.q, self.q_ref) - 2 * self.z * self.w * state.dq
         return self._A, b
 
+    def _program_entry(self, state: TickState):
+        if state.model.nq != state.model.nv:  # pinocchio.difference is q* - q only on a vector space
+            return None
+        return _kernels.POSTURE, [self.w**2, 2 * self.z * self.w, *self.q_ref], None
+
 
 # -- virtual walls -------------------------------------------------------------------------
+def _point(p) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``p`` as the (3,) float64 array the compiled shape functions take, and their output arrays."""
+    p = np.ascontiguousarray(p, dtype=float)
+    if p.shape != (3,):
+        raise ParameterError(f"a wall's point must have 3 entries, got shape {p.shape}")
+    return p, np.empty((6, 3)), np.empty(6)
+
+
+def _faces(shape_function, *args) -> list[tuple[np.ndarray, float]]:
+    """The faces a compiled shape function finds (its last three arguments from :func:`_point`), as
+    (normal into the wall, penetration [m])."""
+    k = shape_function(*args)
+    normals, pens = args[-2], args[-1]
+    return [(normals[i], float(pens[i])) for i in range(k)]
+
 @dataclass(frozen=True)
 class WallLaw:
     """Spring-damper of a virtual wall: stiffness [N/m], damping [N s/m]."""
@@ -247,12 +282,22 @@ class WallTask(Task):
         """(normal into the wall, penetration [m]) of every touched face at position p."""
         raise NotImplementedError
 
+    def _shape(self) -> list[float]:
+        """The shape's code and parameters in a program (:func:`controllers.tasks._kernels.fill_program`)."""
+        raise NotImplementedError
+
+    def _program_entry(self, state: TickState):
+        law, comp = self.law, self.cuff_compliance
+        return (_kernels.WALL, [self.alpha, law.stiffness_N_per_m, law.damping_N_s_per_m, float(comp is not None),
+                                *(comp if comp is not None else (0.0, 0.0, 0.0)), *self._shape()],
+                (self.fid, self.sid, self.sensor))
+
     def rows(self, state: TickState):
         w = state.measurement.cuff_wrench[self.sensor]
         R = state.rotation(self.sid)
         p = state.position(self.fid)
         if self.cuff_compliance is not None:
-            p = p + R @ (self.cuff_compliance * w[:3])  # the wearer's hand point
+            p = _kernels.hand_point(p, R, w, self.cuff_compliance)  # the wearer's hand point
         touched = self.faces(p)
         if not touched:
             return None
@@ -282,8 +327,10 @@ class PlaneWall(WallTask):
         self.n = n / np.linalg.norm(n)
 
     def faces(self, p):
-        pen = float(self.n @ (p - self.x0))
-        return [(self.n, pen)] if pen > 0.0 else []
+        return _faces(_kernels.plane_faces, self.n, self.x0, *_point(p))
+
+    def _shape(self):
+        return [_kernels.PLANE, *self.n, *self.x0]
 
 
 class BoxWall(WallTask):
@@ -301,15 +348,10 @@ class BoxWall(WallTask):
             raise ParameterError(f"BoxWall: lower_m {self.lo} must be below upper_m {self.hi} on every axis")
 
     def faces(self, p):
-        out = []
-        for k in range(3):
-            e = np.zeros(3)
-            e[k] = 1.0
-            if p[k] > self.hi[k]:
-                out.append((e, float(p[k] - self.hi[k])))
-            if p[k] < self.lo[k]:
-                out.append((-e, float(self.lo[k] - p[k])))
-        return out
+        return _faces(_kernels.box_faces, self.lo, self.hi, *_point(p))
+
+    def _shape(self):
+        return [_kernels.BOX, *self.lo, *self.hi]
 
 
 class SphereWall(WallTask):
@@ -326,11 +368,7 @@ class SphereWall(WallTask):
         self.inside = bool(inside)
 
     def faces(self, p):
-        d = p - self.c
-        dist = float(np.linalg.norm(d))
-        if dist < 1e-12:
-            return []
-        u = d / dist
-        if self.inside:
-            return [(u, dist - self.r)] if dist > self.r else []
-        return [(-u, self.r - dist)] if dist < self.r else []
+        return _faces(_kernels.sphere_faces, self.c, self.r, self.inside, *_point(p))
+
+    def _shape(self):
+        return [_kernels.SPHERE, *self.c, self.r, float(self.inside)]

@@ -1,0 +1,226 @@
+"""A stack of shipped tasks written in one compiled call (``controllers.tasks._program``).
+
+References, each beside its check:
+
+* the controller's task-by-task stack (each task's ``rows``, then the elimination of the torque), itself
+  checked against cvxpy in ``test_hqp_torque_elimination.py``: the program must write the same rows, to
+  the bit, and so give the same torques;
+* cvxpy (Clarabel), level by level (``sim.bench.solve_levels_cvxpy``, Kanoun, Lamiraux & Wieber 2011): the
+  torques of a program-driven controller, to 1e-5 N m;
+* the wall shapes' touched faces against their geometry written in NumPy (a plane's signed distance
+  :math:`n^T(p - x_0)`, a box's per-axis excess, a sphere's radial distance).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import models
+from controllers.base import ControllerContext
+from controllers.hqp import HQPParams
+from controllers.hqp_controller import HQPController
+from controllers.tasks import (
+    BoxWall,
+    GravityTorque,
+    JointDamping,
+    JointPositionLimits,
+    JointVelocityLimits,
+    PlaneWall,
+    Posture,
+    SphereWall,
+    TickState,
+    Transparency,
+)
+from controllers.tasks import _kernels as kernels
+from controllers.tasks.library import WallLaw
+from models.records import Measurement
+
+pytest.importorskip("cvxpy")
+from sim.bench import solve_levels_cvxpy, stack_rows  # noqa: E402
+
+CUFFS = {"upper_arm": "exo_cuff_upper_arm", "forearm": "exo_cuff_forearm", "hand": "exo_cuff_hand"}
+TOL_NM = 1e-5  # as the bench's cvxpy comparison
+
+
+def _context():
+    arm = models.build_exo()
+    return arm, ControllerContext(arm=arm, cuff_frames=CUFFS)
+
+
+def _hand(arm):
+    """The hand point at the middle of the joint ranges [m]."""
+    s = TickState(arm, CUFFS, 1e-3)
+    lo, hi = arm.position_limits()
+    s.update(Measurement(0.0, (lo + hi) / 2, np.zeros(7), np.zeros(7), {c: np.zeros(6) for c in CUFFS}))
+    return s.position(arm.frame_id("exo_hand_point")).copy()
+
+
+def _states(arm, n, seed, wrench_scale=10.0, speed_scale=1.0, spread=0.15):
+    """Random states around the middle posture, some near a joint limit, with cuff wrenches [N, N m]."""
+    rng = np.random.default_rng(seed)
+    lo, hi = arm.position_limits()
+    mid = (lo + hi) / 2
+    for k in range(n):
+        q = mid + rng.uniform(-spread, spread, size=7) * (hi - lo)
+        if k % 3 == 0 and spread >= 0.1:
+            j = rng.integers(7)
+            q[j] = hi[j] - 0.03
+        dq = rng.normal(scale=speed_scale, size=7)
+        w = {c: rng.normal(scale=wrench_scale, size=6) for c in CUFFS}
+        yield Measurement(0.0, q, dq, np.zeros(7), w)
+
+
+def _stacks(arm):
+    """Level lists that hold every shipped task, weights other than 1, and walls touched on some ticks only."""
+    x = _hand(arm)
+    law = WallLaw(800.0, 6.0)
+    return {
+        "walls": lambda: [[JointPositionLimits(), JointVelocityLimits(fraction=0.7)],
+                          [PlaneWall(x + [0.01, 0, 0], (1.0, 0.2, 0.0), law,
+                                     cuff_stiffness_N_per_m=(2000, 2100, 1500))],
+                          [Transparency(0.4)], [JointDamping()]],
+        "shapes": lambda: [[JointVelocityLimits()],
+                           [BoxWall(x - [0.02, 0.05, 0.02], x + [0.01, 0.05, 0.03], law, weight=2.0),
+                            SphereWall(x + [0.0, 0.0, 0.02], 0.03, law, weight=0.5),
+                            SphereWall(x, 0.02, law, inside=True, cuff_stiffness_N_per_m=(3000, 3000, 3000))],
+                           [Transparency(0.6, weight=3.0), GravityTorque(weight=0.2)],
+                           [Posture((0.1, 0.2, 0.0, 0.8, 0.0, 0.1, 0.0), frequency_Hz=2.0, weight=0.5),
+                            JointDamping(weight=0.1)]],
+        "torque": lambda: [[JointPositionLimits(braking_accel_rad_s2=12.0)], [GravityTorque()], [JointDamping()]],
+    }
+
+
+def _pair(make_levels, ctx):
+    """A controller with its program and one of the same levels written task by task."""
+    fast, slow = HQPController(make_levels()), HQPController(make_levels())
+    fast.reset(ctx)
+    slow.reset(ctx)
+    slow._program = None
+    assert fast._program is not None
+    return fast, slow
+
+
+@pytest.mark.parametrize("name", ["walls", "shapes", "torque"])
+def test_the_program_writes_the_task_by_task_stack_to_the_bit(name):
+    # reference: the controller's task-by-task rows (each task's rows, then the elimination of the torque)
+    arm, ctx = _context()
+    fast, slow = _pair(_stacks(arm)[name], ctx)
+    touched = set()
+    for m in _states(arm, 24, seed=5):
+        for ctrl in (fast, slow):
+            ctrl.state.update(m)
+        s = fast.state
+        c = s.h - s.cuff_force
+        a, rows_a = fast._fill_program(s, c)
+        b, rows_b = slow._fill_stack(slow.state, c)
+        assert rows_a == rows_b
+        for key in ("A", "b", "sw", "C", "d", "wi", "eq_off", "in_off", "unit_eq"):
+            assert np.array_equal(getattr(a, key), getattr(b, key)), key
+        for k in range(len(a)):  # the lazy layout rebuilds the same levels
+            la, lb = a[k], b[k]
+            assert np.array_equal(la.A, lb.A) and np.array_equal(la.C, lb.C)
+            assert np.array_equal(la.weights_eq, lb.weights_eq) and np.array_equal(la.weights_ineq, lb.weights_ineq)
+        touched.update(t.name for (_, t), (start, _) in zip(fast._program.tasks, fast._program.spans) if start >= 0)
+    if name == "shapes":  # every wall shape wrote rows on some tick
+        assert {"wall_box", "wall_sphere"} <= touched
+
+
+@pytest.mark.parametrize(("name", "tol_Nm"), [("walls", TOL_NM), ("shapes", 1e-4), ("torque", TOL_NM)])
+def test_a_program_driven_controller_gives_the_torques_of_cvxpy(name, tol_Nm):
+    # reference: cvxpy (Clarabel) level by level on the rows of a controller of the same levels. The walls of
+    # "shapes" hold the hand deep inside them, so most torques sit at their limits (80 N m), where the
+    # reference, solved to Clarabel's default tolerances, is off by up to 6e-5 N m (common practice: compare
+    # to the reference's own precision)
+    arm, ctx = _context()
+    make = _stacks(arm)[name]
+    fast, slow = _pair(make, ctx)
+    ref = HQPController(make())
+    ref.reset(ctx)
+    for m in _states(arm, 8, seed=9, wrench_scale=3.0, speed_scale=0.3, spread=0.03):
+        tau = fast.step(m)
+        assert np.array_equal(tau, slow.step(m))  # the same stack, the same solve
+        assert fast.diagnostics()["fallback"] == 0.0
+        tau_cvx = solve_levels_cvxpy(stack_rows(ref, m))[7:]
+        assert np.abs(tau - tau_cvx).max() < tol_Nm
+
+
+def test_only_exact_shipped_tasks_in_the_q_ddot_form_make_a_program():
+    arm, ctx = _context()
+
+    class NearerPlane(PlaneWall):  # a subclass may change faces: it is written task by task
+        def faces(self, p):
+            return super().faces(np.asarray(p) + [0.01, 0.0, 0.0])
+
+    for levels, kwargs in (([[NearerPlane((0.4, 0, 0), (1, 0, 0))], [JointDamping()]], {}),
+                           ([[Transparency()], [JointDamping()]], {"eliminate_torque": False}),
+                           ([[Transparency()], [JointDamping()]], {"params": HQPParams(compiled=False)})):
+        ctrl = HQPController(levels, **kwargs)
+        ctrl.reset(ctx)
+        assert ctrl._program is None
+    ctrl = HQPController([[Transparency()], [JointDamping()]], params=HQPParams())
+    ctrl.reset(ctx)
+    assert ctrl._program is not None
+
+
+def test_non_finite_rows_of_a_program_name_their_task():
+    # a posture a float cannot reach: omega^2 (q* - q) overflows to inf in the posture task's right-hand side
+    arm, ctx = _context()
+    ctrl = HQPController([[Transparency()], [Posture((1e308,) * 7, weight=0.1)]])
+    ctrl.reset(ctx)
+    assert ctrl._program is not None
+    m = next(_states(arm, 1, seed=1))
+    with np.errstate(over="ignore"):  # the task-by-task rows, written again for the message, overflow in NumPy
+        tau = ctrl.step(m)
+    assert ctrl.fallback_count == 1 and "posture" in ctrl.last_fallback_reason
+    np.testing.assert_allclose(tau, ctrl.state.g - ctrl.fallback_damping * m.dq_rad_s)
+
+
+def test_wall_shapes_touch_the_faces_of_their_geometry():
+    # reference: the geometry in NumPy, on points around each shape
+    rng = np.random.default_rng(3)
+    law = WallLaw()
+    n = np.array([0.6, 0.0, 0.8])
+    plane = PlaneWall((0.1, 0.2, 0.3), n, law)
+    box = BoxWall((-0.1, -0.2, -0.3), (0.1, 0.2, 0.3), law)
+    out, inn = SphereWall((0.0, 0.1, 0.0), 0.2, law), SphereWall((0.0, 0.1, 0.0), 0.2, law, inside=True)
+    counts = np.zeros(4, dtype=int)
+    for p in rng.uniform(-0.4, 0.4, size=(300, 3)):
+        pen = n @ (p - [0.1, 0.2, 0.3])
+        faces = plane.faces(p)
+        assert len(faces) == (pen > 0)
+        if faces:
+            np.testing.assert_allclose(faces[0][0], n, atol=1e-15)
+            assert faces[0][1] == pytest.approx(pen, abs=1e-15)
+        expected = []
+        for ax in range(3):
+            e = np.eye(3)[ax]
+            if p[ax] > box.hi[ax]:
+                expected.append((e, p[ax] - box.hi[ax]))
+            if p[ax] < box.lo[ax]:
+                expected.append((-e, box.lo[ax] - p[ax]))
+        got = box.faces(p)
+        assert len(got) == len(expected)
+        for (gn, gp), (en, ep) in zip(got, expected):
+            assert np.array_equal(gn, en) and gp == ep
+        d = p - [0.0, 0.1, 0.0]
+        dist = np.linalg.norm(d)
+        for sphere, inside in ((out, False), (inn, True)):
+            got = sphere.faces(p)
+            touched = dist > 0.2 if inside else dist < 0.2
+            assert len(got) == touched
+            if got:
+                np.testing.assert_allclose(got[0][0], (d if inside else -d) / dist, atol=1e-15)
+                assert got[0][1] == pytest.approx(abs(dist - 0.2), abs=1e-15)
+        counts += [len(plane.faces(p)) > 0, len(got) > 0, len(box.faces(p)) > 1, len(out.faces(p)) > 0]
+    assert (counts > 10).all()
+
+
+def test_hand_point_is_the_cuff_deflection_rotated_to_the_world():
+    # reference: p + R (K_c^-1 f) in NumPy (WallTask's docstring)
+    rng = np.random.default_rng(4)
+    for _ in range(20):
+        R = np.linalg.qr(rng.normal(size=(3, 3)))[0]
+        p, w, comp = rng.normal(size=3), rng.normal(scale=20, size=6), rng.uniform(1e-4, 1e-3, size=3)
+        np.testing.assert_allclose(kernels.hand_point(p, R, w, comp), p + R @ (comp * w[:3]), rtol=1e-13,
+                                   atol=1e-16)
