@@ -69,17 +69,53 @@ _EPS = float(np.finfo(float).eps)
 _JACOBI_MAX = 12
 
 
+#: largest product size (multiplications) summed in a loop rather than by BLAS (measured: a BLAS call
+#: costs more than the arithmetic of these 7-by-7 products; common practice for tiny dense products)
+_LOOP_MAX = 4096
+
+
+@nb.njit(cache=True)
+def _mm(A, B):
+    """``A @ B``; small products summed in index order without the BLAS call."""
+    m, k = A.shape
+    n = B.shape[1]
+    if m * k * n > _LOOP_MAX:
+        return np.ascontiguousarray(A) @ np.ascontiguousarray(B)
+    out = np.zeros((m, n))
+    for i in range(m):
+        for p in range(k):
+            a = A[i, p]
+            for j in range(n):
+                out[i, j] += a * B[p, j]
+    return out
+
+
+@nb.njit(cache=True)
+def _mv(A, x):
+    """``A @ x``; small products summed in index order without the BLAS call."""
+    m, k = A.shape
+    if m * k > _LOOP_MAX:
+        return np.ascontiguousarray(A) @ x
+    out = np.empty(m)
+    for i in range(m):
+        acc = 0.0
+        for p in range(k):
+            acc += A[i, p] * x[p]
+        out[i] = acc
+    return out
+
+
 @nb.njit(cache=True)
 def _proj(M, N, has_N):
     if has_N:
-        return M @ N
+        return _mm(M, N)
     return M.copy()
 
 
 @nb.njit(cache=True)
 def _lift(x, z, N, has_N):
     if has_N:
-        return x + N @ z
+        return x + _mv(N, z)
     return x + z
 
 
@@ -307,7 +343,7 @@ def _concat(p, q):
 def _constraint_rows(x, N, has_N, G, h, rank_tol):
     """``_Solver._qp_constraints`` without bounds: (Gz, hz, Gx), rows made constant by N left out."""
     Gz = _proj(G, N, has_N)
-    hz = h - G @ x
+    hz = h - _mv(G, x)
     if has_N and Gz.shape[0]:
         keep = np.empty(Gz.shape[0], dtype=np.bool_)
         for i in range(Gz.shape[0]):
@@ -328,7 +364,7 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
     Gz, hz, Gx = _constraint_rows(x, N, has_N, G, h, rank_tol)
     if n_in:
         Gz = _vstack(_proj(C, N, has_N), Gz)
-        hz = _concat(d - C @ x, hz)
+        hz = _concat(d - _mv(C, x), hz)
     if Gz.shape[0] == 0:
         return False, x, none
     W = _residual(Gz, z_ls, hz) > tol
@@ -337,20 +373,20 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
     if n_in:
         GW, hW = _rows(Gz, W), _entries(hz, W)
         # minimum-norm correction onto W: GW^T (GW GW^T)^-1 res if GW has full row rank, else least squares
-        res = hW - GW @ z_ls
+        res = hW - _mv(GW, z_ls)
         GWT = np.ascontiguousarray(GW.T)
-        ok, y = _spd_solve(GW @ GWT, res)
-        dz = GWT @ y if ok else _lstsq(GW, res)
+        ok, y = _spd_solve(_mm(GW, GWT), res)
+        dz = _mv(GWT, y) if ok else _lstsq(GW, res)
         z = z_ls + dz
-        if (Gz @ z - hz).max() > tol:
+        if _max_violation(Gz, z, hz, -np.inf) > tol:
             return False, x, none
         return True, _lift(x, z, N, has_N), none
     r = z_ls.shape[0]
     H = _scaled_gram(V1, s1 * s1)
-    g = V1 @ (s1 * c1)
+    g = _mv(V1, s1 * c1)
     definite = s1.shape[0] == r
     Hi = _scaled_gram(V1, 1.0 / (s1 * s1)) if definite else H
-    Hig = Hi @ g
+    Hig = _mv(Hi, g)
     for _ in range(min(2 * Gz.shape[0] + 2, 8)):  # controllers.hqp._working_set_iterations
         GW, hW = _rows(Gz, W), _entries(hz, W)
         m = GW.shape[0]
@@ -362,12 +398,12 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
         ok = False
         kkt = np.inf  # the largest KKT residual of the point found
         if definite:
-            HiGT = Hi @ GWT
-            ok, lam = _spd_solve(GW @ HiGT, GW @ Hig - hW)
+            HiGT = _mm(Hi, GWT)
+            ok, lam = _spd_solve(_mm(GW, HiGT), _mv(GW, Hig) - hW)
             if ok:
-                z = Hig - HiGT @ lam
+                z = Hig - _mv(HiGT, lam)
                 # the KKT residual, block by block
-                kkt = max(_abs_max(H @ z + GWT @ lam - g), _abs_max(_residual(GW, z, hW)))
+                kkt = max(_abs_max(_mv(H, z) + _mv(GWT, lam) - g), _abs_max(_residual(GW, z, hW)))
         if not ok:
             K = np.zeros((r + m, r + m))
             K[:r, :r] = H
@@ -375,7 +411,7 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
             K[r:, :r] = GW
             rhs = _concat(g, hW)
             sol = _lstsq(K, rhs)
-            kkt = _abs_max(K @ sol - rhs)
+            kkt = _abs_max(_mv(K, sol) - rhs)
             z, lam = sol[:r].copy(), sol[r:].copy()
         if kkt > feas_tol * scale:
             return False, x, none  # inconsistent working set
@@ -416,7 +452,7 @@ def _eliminate(rows, N, has_N, rank_tol):
     rank = int((s > rank_tol * np.sqrt(unit.shape[0])).sum())
     V2 = np.ascontiguousarray(V[:, rank:])
     if has_N:
-        return N @ V2, True
+        return _mm(N, V2), True
     return V2, True
 
 
@@ -447,7 +483,7 @@ def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, 
     V1, s1, c1, V2 = np.zeros((r, 0)), np.zeros(0), np.zeros(0), np.zeros((r, 0))
     if n_eq:
         # W^1/2 A N = U S V^T, truncated at the rank: the cost is 1/2 ||S1 V1^T z - c1||^2 + const
-        err = b - A @ x
+        err = b - _mv(A, x)
         if unit_eq:
             Aw = A
         else:
@@ -459,8 +495,8 @@ def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, 
         V1 = np.ascontiguousarray(V[:, :rank])
         s1 = s[:rank].copy()
         V2 = np.ascontiguousarray(V[:, rank:])
-        c1 = (np.ascontiguousarray(PV[:, :rank].T) @ err) / s1  # U1^T err, U1 = P V1 / s1
-        z_ls = V1 @ (c1 / s1)
+        c1 = _mv(PV[:, :rank].T, err) / s1  # U1^T err, U1 = P V1 / s1
+        z_ls = _mv(V1, c1 / s1)
     x_ls = _lift(x, z_ls, N, has_N)
     active = np.zeros((0, n))
     feasible = closed_form and _max_violation(G, x_ls, h, 0.0) <= tol
@@ -489,7 +525,7 @@ def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, 
         n_tight += tight[i]
     # freeze the optimum: equality rows through the null space, then the level's inequality rows
     if n_eq:
-        N = N @ V2 if has_N else V2
+        N = _mm(N, V2) if has_N else V2
         has_N = True
     if n_tight:
         active = _vstack(_rows(C, tight), active)
@@ -550,8 +586,8 @@ def solve_levels_fast(start, end, timed, x, N, has_N, G, h, A, b, sw, eq_off, un
             method = EMPTY
         elif r == 0:
             method = NO_FREEDOM
-            e_all[eq_off[k]: eq_off[k + 1]] = Ak @ x - bk
-            v_all[in_off[k]: in_off[k + 1]] = np.maximum(Ck @ x - dk, 0.0)
+            e_all[eq_off[k]: eq_off[k + 1]] = _residual(Ak, x, bk)
+            v_all[in_off[k]: in_off[k + 1]] = np.maximum(_residual(Ck, x, dk), 0.0)
         else:
             method, x2, N2, has_N2, G2, h2, e, v = solve_level_fast(
                 x, N, has_N, G, h, Ak, bk, swk, unit_eq[k], Ck, dk, tol, rank_tol, feas_tol, slack_tol, mult_tol,
@@ -569,12 +605,16 @@ def solve_levels_fast(start, end, timed, x, N, has_N, G, h, A, b, sw, eq_off, un
         k += 1
     if end < p:
         return end, x, N, has_N, G, h
-    for k in range(p):
-        e = A[eq_off[k]: eq_off[k + 1]] @ x - b[eq_off[k]: eq_off[k + 1]]
-        v = np.maximum(C[in_off[k]: in_off[k + 1]] @ x - d[in_off[k]: in_off[k + 1]], 0.0)
-        w = sw[eq_off[k]: eq_off[k + 1]]
-        residuals[k] = ((e * e).sum() if unit_eq[k] else (w * w * e * e).sum()) + (wi[in_off[k]: in_off[k + 1]]
-                                                                                    * v * v).sum()
+    for k in range(p):  # sum w e^2 + sum omega v^2, in row order, without temporaries
+        acc_e = 0.0
+        for i in range(eq_off[k], eq_off[k + 1]):
+            e = _row_dot(A, i, x) - b[i]
+            acc_e += e * e if unit_eq[k] else sw[i] * sw[i] * e * e
+        acc_v = 0.0
+        for i in range(in_off[k], in_off[k + 1]):
+            v = max(_row_dot(C, i, x) - d[i], 0.0)
+            acc_v += wi[i] * v * v
+        residuals[k] = acc_e + acc_v
     return p, x, N, has_N, G, h
 
 
