@@ -4,7 +4,8 @@ The whole kernel is checked against the Python path and cvxpy in ``tests/test_hq
 is checked on its own: the one-sided Jacobi SVD and the LAPACK branch above ``_JACOBI_MAX`` columns
 (reference: ``numpy.linalg.svd``), the minimum-norm least squares (reference: ``numpy.linalg.lstsq``
 with its default cut-off), the Cholesky solve (reference: ``numpy.linalg.solve``), and the clock read
-inside compiled code (reference: ``time.monotonic``, the same POSIX clock on Linux).
+inside compiled code (reference: ``time.monotonic``, the same POSIX clock on Linux), and the small matrix
+products summed in loops (reference: numpy's matmul).
 """
 
 from __future__ import annotations
@@ -92,3 +93,15 @@ def test_stack_finiteness_matches_numpy_for_every_position_of_a_bad_entry(bad):
             assert not all(np.isfinite(a).all() for a in spoilt)
             assert not kernels.stack_is_finite(*spoilt)
     assert kernels.stack_is_finite(np.zeros((0, 7)), np.zeros(0), np.zeros((0, 7)), np.zeros(0))
+
+
+@pytest.mark.parametrize(("m", "k", "n"), [(0, 7, 7), (7, 0, 3), (1, 7, 1), (7, 7, 7), (14, 7, 6), (28, 28, 28)])
+def test_small_products_match_numpy(m, k, n):
+    # reference: numpy's matmul (BLAS); 7-by-7 products are summed in loops, 28-by-28 ones go to BLAS
+    rng = np.random.default_rng(m * 100 + k * 10 + n)
+    A, B, x = rng.standard_normal((m, k)), rng.standard_normal((k, n)), rng.standard_normal(k)
+    scale = 1.0 + np.sqrt(k)
+    np.testing.assert_allclose(kernels._mm(A, B), A @ B, rtol=0, atol=1e-14 * scale)
+    np.testing.assert_allclose(kernels._mv(A, x), A @ x, rtol=0, atol=1e-14 * scale)
+    np.testing.assert_allclose(kernels._mv(np.asfortranarray(A), x), A @ x, rtol=0, atol=1e-14 * scale)
+    assert kernels._mm(A, B).shape == (m, n) and kernels._mv(A, x).shape == (m,)
