@@ -26,6 +26,12 @@ feasible set and cost as a function of q̈, hence the same optimum; the
 difference to the 2 nv form is rounding and solver tolerance (tested against
 it and against cvxpy).  The torque is clipped to its limits to remove the
 rounding of the hard rows (at most the feasibility tolerance).
+**One compiled call for the rows.**  When every task is one of the shipped
+classes (:data:`controllers.tasks._program.PROGRAM_TASKS`) and the torque is
+eliminated, the controller writes the whole stack in one compiled call
+(:func:`controllers.tasks._kernels.fill_program`) with the same functions as
+the tasks' own ``rows``: the same rows, to the bit (tested).  Any other stack
+is written task by task.
 If a solve fails, a task's linear algebra fails or the hard constraints cannot hold, the controller never
 uses a made-up answer: it commands the safe fallback
 :math:`\\tau = g(q) - D \\dot q` (gravity compensation and joint damping),

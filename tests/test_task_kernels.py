@@ -102,3 +102,28 @@ def test_wall_rows_give_the_operational_space_spring_damper_of_every_touched_fac
             assert b[i] == pytest.approx(expected, rel=1e-10, abs=1e-9)
         touched_faces += len(faces)
     assert touched_faces >= 5
+
+
+def test_tick_terms_mirror_the_inertia_and_sum_the_cuff_forces():
+    # references: pinocchio's crba (upper triangle) mirrored with numpy.triu, and sum_c J_c^T w_c in numpy
+    arm = models.build_exo()
+    model, data = arm.model, arm.model.createData()
+    rng = np.random.default_rng(8)
+    lo, hi = arm.position_limits()
+    for _ in range(10):
+        q = rng.uniform(lo, hi)
+        pin.forwardKinematics(model, data, q)
+        pin.computeJointJacobians(model, data)
+        pin.updateFramePlacements(model, data)
+        U = pin.crba(model, data, q).copy()
+        Js = np.array([pin.getFrameJacobian(model, data, arm.frame_id(f), pin.LOCAL) for f in CUFFS.values()])
+        ws = rng.normal(scale=10.0, size=(3, 6))
+        Minv, nle, g = rng.normal(size=(7, 7)), rng.normal(size=7), rng.normal(size=7)
+        for k in (0, 2, 3):
+            M, Minv2, h2, g2, f = kernels.tick_terms(U, Minv, nle, g, Js, ws, k)
+            np.testing.assert_array_equal(M, np.triu(U) + np.triu(U, 1).T)
+            np.testing.assert_array_equal(M, M.T)
+            assert np.array_equal(Minv2, Minv) and Minv2 is not Minv and np.array_equal(h2, nle)
+            assert np.array_equal(g2, g)
+            expected = sum((J.T @ w for J, w in zip(Js[:k], ws[:k])), np.zeros(7))
+            np.testing.assert_allclose(f, expected, rtol=0, atol=1e-12 * (1 + np.abs(expected).max()))

@@ -14,6 +14,8 @@ import pinocchio as pin
 from models.arm import ArmModel
 from models.records import Measurement
 
+from . import _kernels
+
 __all__ = ["TickState"]
 
 
@@ -39,7 +41,9 @@ class TickState:
         self.dt_s = float(dt_s)
         self.cuff_ids = {name: arm.frame_id(frame) for name, frame in cuff_frames.items()}
         self._zero = np.zeros(self.nv)
-        self._lower = np.tri(self.nv, k=-1, dtype=bool)  # strictly lower triangle
+        self._cuffs = list(self.cuff_ids.items())
+        self._cuff_jacobians = np.zeros((len(self._cuffs), 6, self.nv))
+        self._cuff_wrenches = np.zeros((len(self._cuffs), 6))
         self._jac: dict[tuple[int, object], np.ndarray] = {}
         self._drift: dict[int, np.ndarray] = {}
         self.measurement: Measurement | None = None
@@ -52,23 +56,25 @@ class TickState:
         pin.forwardKinematics(model, data, self.q, self.dq, self._zero)  # a = 0: frame accelerations are J'q'
         pin.computeJointJacobians(model, data)  # reuses the placements just computed
         pin.updateFramePlacements(model, data)
-        U = pin.crba(model, data, self.q)  # crba fills the upper triangle: mirror it
-        self.M = np.where(self._lower, U.T, U)
+        U = pin.crba(model, data, self.q)  # crba fills the upper triangle: mirrored by tick_terms
         pin.cholesky.decompose(model, data)  # of data.M, just computed: M = U D U^T (sparse, Featherstone 2005)
-        self.Minv = pin.cholesky.computeMinv(model, data).copy()
-        self.h = pin.nonLinearEffects(model, data, self.q, self.dq).copy()
-        self.g = pin.computeGeneralizedGravity(model, data, self.q).copy()
-        self._jac.clear()
+        Minv = pin.cholesky.computeMinv(model, data)
+        nle = pin.nonLinearEffects(model, data, self.q, self.dq)
+        g = pin.computeGeneralizedGravity(model, data, self.q)
+        jac = self._jac
+        jac.clear()
         self._drift.clear()
-        # sum_c J_c^T w_c as one product of the stacked Jacobians and wrenches
-        jacobians, wrenches = [], []
-        for name, fid in self.cuff_ids.items():
+        # sum_c J_c^T w_c over the cuffs measured this tick
+        k, jacobians, wrenches = 0, self._cuff_jacobians, self._cuff_wrenches
+        for name, fid in self._cuffs:
             w = m.cuff_wrench.get(name)
             if w is not None:
-                jacobians.append(self.jacobian(fid, pin.LOCAL))
-                wrenches.append(w)
-        self.cuff_force = (np.concatenate(jacobians).T @ np.concatenate(wrenches) if jacobians
-                           else np.zeros(self.nv))
+                J = jac[(fid, pin.LOCAL)] = pin.getFrameJacobian(model, data, fid, pin.LOCAL)
+                jacobians[k] = J
+                wrenches[k] = w
+                k += 1
+        self.M, self.Minv, self.h, self.g, self.cuff_force = _kernels.tick_terms(U, Minv, nle, g, jacobians,
+                                                                                  wrenches, k)
 
     def jacobian(self, frame_id: int, reference=pin.LOCAL_WORLD_ALIGNED) -> np.ndarray:
         """(6, nv) frame Jacobian in ``reference`` (cached for the tick)."""

@@ -347,3 +347,27 @@ def fill_program(prog, fp, q, dq, M, Minv, g, cuff_force, c, dt, frames, A, b, s
             finite = finite and np.isfinite(C[i, j])
         finite = finite and np.isfinite(d[i])
     return m_e, m_i, rows, finite
+
+
+# -- the tick's shared terms ---------------------------------------------------------------
+@nb.njit(cache=True)
+def tick_terms(U, Minv, nle, g, jacobians, wrenches, k):
+    r"""The :class:`~controllers.tasks.TickState` terms of one tick as new arrays, from pinocchio's outputs.
+
+    ``U`` (nv, nv) holds the joint-space inertia in its upper triangle (``pinocchio.crba``): returns
+    ``(M, Minv, h, g, f)`` with ``M`` its symmetric whole, copies of ``Minv``, ``nle`` (h) and ``g``, and
+    the generalized force of the measured cuff wrenches :math:`f = \sum_c J_c^T w_c` over the first ``k``
+    rows of ``jacobians`` (k, 6, nv) (each in its sensor's LOCAL frame) and ``wrenches`` (k, 6).
+    """
+    nv = U.shape[0]
+    M = np.empty((nv, nv))
+    for i in range(nv):
+        for j in range(i, nv):
+            M[i, j] = M[j, i] = U[i, j]
+    f = np.zeros(nv)
+    for c in range(k):
+        for r in range(6):
+            w = wrenches[c, r]
+            for j in range(nv):
+                f[j] += jacobians[c, r, j] * w
+    return M, Minv.copy(), nle.copy(), g.copy(), f
