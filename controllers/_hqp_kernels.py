@@ -620,7 +620,7 @@ def solve_levels_fast(start, end, timed, x, N, has_N, G, h, A, b, sw, eq_off, un
 
 @nb.njit(cache=True)
 def solve_stack_fast(G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, rank_tol, feas_tol, slack_tol, mult_tol,
-                     closed_form, working_set_step, methods, X, e_all, v_all, free, seconds, residuals, clock):
+                     closed_form, working_set_step, clock):
     r"""A whole hierarchy above hard inequality rows ``G x <= h`` (no hard equalities, no bounds), in one call.
 
     What :func:`controllers.hqp.solve_hierarchy` does for such a stack up to
@@ -630,28 +630,45 @@ def solve_stack_fast(G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, rank_tol
     :func:`solve_levels_fast` (timed), and the largest violation of the hard
     rows at the final point (the solver's safety net).
 
-    Returns ``(stop, x, r, violation, tol)``: ``stop`` is the first level that
-    needs the QP backend, or the number of levels when none does, ``x`` the
-    point after the levels solved, ``r`` the dimension of the freedom left,
-    ``violation`` :math:`\max_i (G x - h)_i` over the hard rows (0 without
-    rows) and ``tol`` the tolerance it is to be compared with.
+    Returns ``(stop, r, violation, tol, fout, iout)``: ``stop`` is the first
+    level that needs the QP backend, or the number of levels p when none does,
+    ``r`` the dimension of the freedom left, ``violation``
+    :math:`\max_i (G x - h)_i` over the hard rows (0 without rows) and ``tol``
+    the tolerance it is to be compared with. The arrays are packed in two
+    (fewer objects to hand back to Python): ``fout`` holds the point after the
+    levels solved x (n), then the per-level outputs of
+    :func:`solve_levels_fast`: ``residuals`` (p), ``seconds`` (p), ``X`` (p, n),
+    ``e_all`` (m_e), ``v_all`` (m_i); ``iout`` holds the method codes (p), the
+    freedom left after each level (p), and copies of ``eq_off`` and ``in_off``
+    (p + 1 each). p is taken from ``eq_off``.
     """
     n = A.shape[1]
+    p = eq_off.shape[0] - 1
+    m_e, m_i = A.shape[0], C.shape[0]
+    fout = np.empty(n + 2 * p + p * n + m_e + m_i)
+    iout = np.empty(4 * p + 2, dtype=np.int64)
+    residuals, seconds = fout[n: n + p], fout[n + p: n + 2 * p]
+    X = fout[n + 2 * p: n + 2 * p + p * n].reshape((p, n))
+    e_all = fout[n + 2 * p + p * n: n + 2 * p + p * n + m_e]
+    v_all = fout[n + 2 * p + p * n + m_e:]
+    methods, free = iout[:p], iout[p: 2 * p]
+    iout[2 * p: 3 * p + 1] = eq_off
+    iout[3 * p + 1:] = in_off
     m_hard = G.shape[0]
     scale = 0.0
     for i in range(m_hard):
         if abs(h[i]) > scale:
             scale = abs(h[i])
     tol = feas_tol * (1.0 + scale)
-    p = methods.shape[0]
     x = np.zeros(n)
     stop, x, N, has_N, _, _ = solve_levels_fast(
         0, p, True, x, np.zeros((n, 0)), False, G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, tol, rank_tol,
         feas_tol, slack_tol, mult_tol, closed_form, working_set_step, methods, X, e_all, v_all, free, seconds,
         residuals, clock)
+    fout[:n] = x
     r = N.shape[1] if has_N else n
     violation = _max_violation(G, x, h, -np.inf) if m_hard else 0.0
-    return stop, x, r, violation, tol
+    return stop, r, violation, tol, fout, iout
 
 
 @nb.njit(cache=True)

@@ -1370,22 +1370,27 @@ class _KernelResult(HierarchyResult):
         self.__dict__.update(fields, _per_level=per_level)
 
     @classmethod
-    def from_kernel(cls, x, residuals, seconds, solver: str, t_start: float, raw: tuple) -> _KernelResult:
-        """From the kernel's outputs; ``raw`` is ``(e_all, v_all, eq_off, in_off, codes, free, X)``."""
+    def from_kernel(cls, fout, iout, n: int, p: int, solver: str, t_start: float) -> _KernelResult:
+        """From the packed outputs of :func:`controllers._hqp_kernels.solve_stack_fast` (``fout`` read-only)."""
         self = object.__new__(cls)
-        self.__dict__.update(x=x, level_residuals=residuals, found=True, level_times_s=seconds, solver=solver,
-                             qp_solves=0, _raw=raw, solve_time_s=time.perf_counter() - t_start)
+        self.__dict__.update(x=fout[:n], level_residuals=fout[n: n + p], level_times_s=fout[n + p: n + 2 * p],
+                             found=True, solver=solver, qp_solves=0, _raw=(fout, iout, n, p),
+                             solve_time_s=time.perf_counter() - t_start)
         return self
 
     def _per_level_fields(self) -> dict:
         d = self.__dict__
         if "_per_level" not in d:
-            e_all, v_all, eq_off, in_off, codes, free, X = d["_raw"]
-            e_all.flags.writeable = v_all.flags.writeable = X.flags.writeable = False
-            eo, io, methods = eq_off.tolist(), in_off.tolist(), _kernels.METHODS
+            fout, iout, n, p = d["_raw"]
+            o = n + 2 * p
+            X = fout[o: o + p * n].reshape(p, n)
+            codes, free, eo, io = iout[:p].tolist(), iout[p: 2 * p], iout[2 * p: 3 * p + 1], iout[3 * p + 1:]
+            e_all = fout[o + p * n: o + p * n + eo[-1]]
+            v_all = fout[o + p * n + eo[-1]:]
+            eo, io, methods = eo.tolist(), io.tolist(), _kernels.METHODS
             d["_per_level"] = {
-                "level_slacks": tuple([(e_all[eo[k]: eo[k + 1]], v_all[io[k]: io[k + 1]]) for k in range(len(X))]),
-                "level_methods": tuple([methods[c] for c in codes.tolist()]),
+                "level_slacks": tuple([(e_all[eo[k]: eo[k + 1]], v_all[io[k]: io[k + 1]]) for k in range(p)]),
+                "level_methods": tuple([methods[c] for c in codes]),
                 "free_dims": tuple(free.tolist()), "level_x": tuple(X)}
         return d["_per_level"]
 
@@ -1485,21 +1490,13 @@ class HierarchySolver:
                                  f"{getattr(G, 'shape', type(G).__name__)} and {getattr(h, 'shape', type(h).__name__)}")
         if self._fast and p:
             prm = self.params
-            A, C = stack.A, stack.C
-            m_e, m_i = A.shape[0], C.shape[0]
-            codes, free = np.empty(p, dtype=np.int64), np.empty(p, dtype=np.int64)
-            X, e_all, v_all = np.empty((p, n)), np.empty(m_e), np.empty(m_i)
-            seconds, residuals = np.empty(p), np.empty(p)
-            stop, x, r, violation, tol = _kernels.solve_stack_fast(
-                _writable(G), _writable(h), _writable(A), stack.b, stack.sw, stack.eq_off, stack.unit_eq,
-                _writable(C), stack.d, stack.wi,
-                stack.in_off, prm.rank_tol, prm.feasibility_tol, prm.slack_tol, prm.multiplier_tol, prm.closed_form,
-                prm.working_set_step, codes, X, e_all, v_all, free, seconds, residuals, self._clock)
+            stop, r, violation, tol, fout, iout = _kernels.solve_stack_fast(
+                _writable(G), _writable(h), _writable(stack.A), stack.b, stack.sw, stack.eq_off, stack.unit_eq,
+                _writable(stack.C), stack.d, stack.wi, stack.in_off, prm.rank_tol, prm.feasibility_tol,
+                prm.slack_tol, prm.multiplier_tol, prm.closed_form, prm.working_set_step, self._clock)
             if stop == p and (r == 0 or self.regularization == 0.0) and violation <= tol:
-                x.flags.writeable = residuals.flags.writeable = seconds.flags.writeable = False
-                return _KernelResult.from_kernel(x, residuals, seconds, self.solver_name, t_start,
-                                                 (e_all, v_all, stack.eq_off.copy(), stack.in_off.copy(), codes,
-                                                  free, X))
+                fout.flags.writeable = False  # and so every view of it in the result
+                return _KernelResult.from_kernel(fout, iout, n, p, self.solver_name, t_start)
         hard = Level.unchecked(ineq=[(G, h, 1.0)], name=name)
         return solve_hierarchy(stack, n, self.solver, hard=hard, regularization=self.regularization,
                                warm_start=warm_start, params=self.params)

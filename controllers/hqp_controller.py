@@ -364,11 +364,13 @@ class HQPController(Controller):
                 tau = np.asarray(res.x[n:], dtype=float)
                 if not math.isfinite(tau.sum()):
                     raise SandboxError("the solver returned non-finite torques")
+            t_end = time.perf_counter()
             self._prev = res
             fallback = 0.0
             residuals = res.level_residuals[:p].tolist()
             level_times = res.level_times_s[:p].tolist()
         except (SandboxError, np.linalg.LinAlgError) as e:  # a singular task matrix is a failed tick too
+            t_end = time.perf_counter()
             tau = s.g - self.fallback_damping * s.dq
             self.fallback_count += 1
             self.last_fallback_reason = f"t = {measurement.t_s:.3f} s: {e}"
@@ -378,7 +380,6 @@ class HQPController(Controller):
             residuals = [np.nan] * p
             level_times = [np.nan] * p
         d = self._diag
-        t_end = time.perf_counter()
         if t_solve is None:  # the rows failed: no solve this tick
             d["rows_time_s"], d["solve_time_s"] = t_end - t0, math.nan
         else:
