@@ -1450,6 +1450,8 @@ class HierarchySolver:
         self.solver_name = DEFAULT_BACKEND if solver is None else solver
         self._fast = params.compiled and _kernels.HAVE_CLOCK
         self._clock = np.zeros(2, dtype=np.int64)
+        self._kernel_params = (params.rank_tol, params.feasibility_tol, params.slack_tol, params.multiplier_tol,
+                               params.closed_form, params.working_set_step)
 
     def solve(self, stack: LevelStack, G: np.ndarray, h: np.ndarray, *, name: str = "hard",
               warm_start: np.ndarray | HierarchyResult | None = None) -> HierarchyResult:
@@ -1482,21 +1484,31 @@ class HierarchySolver:
         t_start = time.perf_counter()
         if type(stack) is not LevelStack:
             raise ParameterError(f"HierarchySolver.solve: stack must be a LevelStack, got {type(stack).__name__}")
-        n, p = self.n, len(stack.names)
+        n = self.n
         if stack.n_cols not in (None, n):
             raise ParameterError(f"HierarchySolver.solve: the level stack has {stack.n_cols} columns, expected n = {n}")
         if not (type(G) is np.ndarray and type(h) is np.ndarray and G.ndim == 2 and G.shape == (h.shape[0], n)):
             raise ParameterError(f"HierarchySolver.solve: G must be an (m, {n}) array and h an (m,) array, got "
                                  f"{getattr(G, 'shape', type(G).__name__)} and {getattr(h, 'shape', type(h).__name__)}")
+        A, C = _writable(stack.A), _writable(stack.C)
+        if A is not stack.A or C is not stack.C:  # the same rows, as the kernel takes them
+            stack = LevelStack.from_arrays(A, stack.b, stack.sw, stack.eq_off, stack.unit_eq, C, stack.d, stack.wi,
+                                           stack.in_off, n, stack.names, stack._layout)
+        return self._solve_owned(stack, _writable(G), _writable(h), name, warm_start, t_start)
+
+    def _solve_owned(self, stack: LevelStack, G: np.ndarray, h: np.ndarray, name: str, warm_start,
+                     t_start: float) -> HierarchyResult:
+        """:meth:`solve` without its checks, for a caller whose arrays are known good: ``stack`` of ``n`` columns
+        with ``A``, ``C``, ``G`` and ``h`` C-ordered, writable float64 (as the controller's own buffers are)."""
+        p = len(stack.names)
         if self._fast and p:
-            prm = self.params
             stop, r, violation, tol, fout, iout = _kernels.solve_stack_fast(
-                _writable(G), _writable(h), _writable(stack.A), stack.b, stack.sw, stack.eq_off, stack.unit_eq,
-                _writable(stack.C), stack.d, stack.wi, stack.in_off, prm.rank_tol, prm.feasibility_tol,
-                prm.slack_tol, prm.multiplier_tol, prm.closed_form, prm.working_set_step, self._clock)
+                G, h, stack.A, stack.b, stack.sw, stack.eq_off, stack.unit_eq, stack.C, stack.d, stack.wi,
+                stack.in_off, *self._kernel_params, self._clock)
             if stop == p and (r == 0 or self.regularization == 0.0) and violation <= tol:
                 fout.flags.writeable = False  # and so every view of it in the result
-                return _KernelResult.from_kernel(fout, iout, n, p, self.solver_name, t_start)
+                return _KernelResult.from_kernel(fout, iout, self.n, p, self.solver_name, t_start)
+        n = self.n
         hard = Level.unchecked(ineq=[(G, h, 1.0)], name=name)
         return solve_hierarchy(stack, n, self.solver, hard=hard, regularization=self.regularization,
                                warm_start=warm_start, params=self.params)

@@ -349,7 +349,8 @@ class HQPController(Controller):
                     stack, rows = self._fill_stack(s, c)
                     self._check_finite(stack)
                 t_solve = time.perf_counter()
-                res = self._hqp.solve(stack, G, h, name="torque limits", warm_start=self._prev)
+                # the stack, G and h are the controller's own C-ordered float64 buffers: no checks needed
+                res = self._hqp._solve_owned(stack, G, h, "torque limits", self._prev, t_solve)
                 tau, finite = clipped_torque(M, res.x, c, self._tau_max)
                 if not finite:
                     raise SandboxError("the solver returned non-finite torques")

@@ -107,3 +107,21 @@ def test_hierarchy_solver_rejects_bad_arguments_naming_them():
         HierarchySolver(3).solve(stack, np.zeros((2, 3)), np.zeros(3))
     with pytest.raises(ParameterError, match="stack must be a LevelStack, got list"):
         HierarchySolver(3).solve([Level(eq=[(np.eye(3), np.zeros(3))])], np.zeros((0, 3)), np.zeros(0))
+
+
+def test_hierarchy_solver_takes_read_only_and_fortran_ordered_rows():
+    # the kernel takes C-ordered writable rows: other arrays are copied, never changed; reference: solve_hierarchy
+    rng = np.random.default_rng(7)
+    n = 7
+    entries, G, h = _torque_like_stack(rng, n)
+    names = tuple(f"level {k}" for k in range(len(entries)))
+    stack = LevelStack.from_entries(entries, n, names)
+    ref = solve_hierarchy(stack, n, hard=Level(ineq=[(G, h)], name="limits"))
+    A, C = stack.A, np.asfortranarray(stack.C)
+    A.flags.writeable = False
+    odd = LevelStack.from_arrays(A, stack.b, stack.sw, stack.eq_off, stack.unit_eq, C, stack.d, stack.wi,
+                                 stack.in_off, n, names, stack._layout)
+    Gf = np.asfortranarray(G)
+    ours = HierarchySolver(n).solve(odd, Gf, h, name="limits")
+    _assert_same_result(ours, ref)
+    assert odd.A is A and odd.C is C and not A.flags.writeable  # the caller's stack is left as it was
