@@ -305,6 +305,50 @@ def tick_breakdown(scenario: Scenario, folder: str | Path, controller: str = "wa
     return out
 
 
+#: The pinocchio functions a tick of the loop calls (plant, controller, wearer), as (module, name).
+PINOCCHIO_CALLS = tuple((pin, name) for name in (
+    "forwardKinematics", "aba", "integrate", "rnea", "difference", "computeJointJacobians", "updateFramePlacements",
+    "crba", "nonLinearEffects", "computeGeneralizedGravity", "getFrameJacobian", "getFrameClassicalAcceleration")
+) + ((pin.cholesky, "decompose"), (pin.cholesky, "computeMinv"))
+
+
+def pinocchio_time(scenario: Scenario, folder: str | Path, controller: str = "walls") -> dict:
+    """Mean wall time per control tick spent inside pinocchio's algorithms [µs], from one instrumented run.
+
+    Every function of :data:`PINOCCHIO_CALLS` is wrapped, for this run only, by
+    a timer (about 0.1 µs of its own per call, counted in). The figure is what
+    a loop that keeps pinocchio for its rigid-body algorithms cannot go below
+    on this machine, whatever else is compiled. Returns
+    ``pinocchio_us_per_tick`` and ``pinocchio_calls_per_tick`` (means).
+    """
+    clock = time.perf_counter
+    spent = [0.0, 0]
+
+    def timed(fn):
+        @functools.wraps(fn)
+        def wrapper(*args, **kwargs):
+            t0 = clock()
+            try:
+                return fn(*args, **kwargs)
+            finally:
+                spent[0] += clock() - t0
+                spent[1] += 1
+        return wrapper
+
+    originals = []
+    try:
+        for module, name in PINOCCHIO_CALLS:
+            fn = getattr(module, name)
+            originals.append((module, name, fn))
+            setattr(module, name, timed(fn))
+        simulate(scenario, controller, folder)
+    finally:
+        for module, name, fn in reversed(originals):
+            setattr(module, name, fn)
+    ticks = scenario.n_ticks
+    return {"pinocchio_us_per_tick": spent[0] / ticks * 1e6, "pinocchio_calls_per_tick": spent[1] / ticks}
+
+
 # --------------------------------------------------------------------------------------------
 # replaying the measurements of a run
 
@@ -744,6 +788,10 @@ def run_bench(scenario_path: str | Path, params: BenchParams | None = None, *, w
         report["tick_breakdown_us"] = tick_breakdown(
             dataclasses.replace(ref, duration_s=min(params.reference_duration_s, BREAKDOWN_MAX_S)), work / "breakdown")
         say("breakdown: " + ", ".join(f"{k} {v:.0f} us" for k, v in report["tick_breakdown_us"].items()))
+        report |= pinocchio_time(dataclasses.replace(ref, duration_s=min(params.reference_duration_s,
+                                                                         BREAKDOWN_MAX_S)), work / "pinocchio")
+        say(f"pinocchio: {report['pinocchio_us_per_tick']:.0f} us per tick in "
+            f"{report['pinocchio_calls_per_tick']:.0f} calls")
         try:
             report |= compare_cvxpy(ref, ref_dir, params.compare_ticks, params.agreement_tol_Nm)
             say(f"cvxpy: speedup {report['cvxpy_speedup']:.0f}x")
@@ -804,6 +852,9 @@ def format_report(report: dict) -> str:
         for stage, us in r["tick_breakdown_us"].items():
             lines.append(f"{stage:<30} {us:>10.1f}")
         lines.append("  (own time per stage in a separate instrumented run: sim.bench.tick_breakdown)")
+    if r.get("pinocchio_us_per_tick") is not None:
+        lines.append(f"  of which inside pinocchio's algorithms: {r['pinocchio_us_per_tick']:.0f} us in "
+                     f"{r['pinocchio_calls_per_tick']:.0f} calls (sim.bench.pinocchio_time)")
     lines += ["", f"{'backend':<10} {'median us':>10} {'p99 us':>10} {'max |dtau| to default N m':>28}"]
     for name, b in r["backends"].items():
         if "error" in b:

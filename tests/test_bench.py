@@ -28,6 +28,7 @@ from sim.bench import (
     compare_cvxpy,
     level_stacks,
     measurements_from_run,
+    pinocchio_time,
     replay,
     tick_breakdown,
     tick_statistics,
@@ -117,6 +118,25 @@ def test_bad_bench_parameters_name_the_field(kwargs, field):
 def test_bench_command_names_a_missing_scenario_file(tmp_path, capsys):
     assert main(["bench", "--quick", "--scenario", str(tmp_path / "nope.py")]) == 1
     assert "nope.py" in capsys.readouterr().err
+
+
+def test_pinocchio_time_counts_every_algorithm_call_and_changes_no_number(short_wall_run, tmp_path):
+    # references: the plant's substep (one forward kinematics, one aba, one integrate each; sim.plant docstring)
+    # and TickState.update (forward kinematics, joint Jacobians, frame placements, crba, Cholesky, M^-1, h, g and
+    # one Jacobian per cuff): at least 4 * 3 + 8 + 3 calls per tick
+    import pinocchio as pin
+
+    sc, folder = short_wall_run
+    aba, minv = pin.aba, pin.cholesky.computeMinv
+    out = pinocchio_time(sc, tmp_path / "instrumented")
+    assert pin.aba is aba and pin.cholesky.computeMinv is minv  # the timers are removed afterwards
+    assert out["pinocchio_calls_per_tick"] >= 4 * 3 + 8 + 3
+    with np.load(tmp_path / "instrumented" / "timing.npz") as f:
+        mean_tick_us = float(np.mean(f["tick_time_s"]) * 1e6)
+    assert 0.0 < out["pinocchio_us_per_tick"] < mean_tick_us  # a part of the tick it was measured in
+    plain, timed = load_run(folder), load_run(tmp_path / "instrumented")
+    for name in plain.arrays:
+        np.testing.assert_array_equal(timed[name], plain[name], err_msg=name)
 
 
 def test_tick_breakdown_stages_add_up_to_the_mean_tick_and_change_no_number(short_wall_run, tmp_path):
