@@ -30,7 +30,9 @@ rounding of the hard rows (at most the feasibility tolerance).
 classes (:data:`controllers.tasks._program.PROGRAM_TASKS`) and the torque is
 eliminated, the controller writes the whole stack in one compiled call
 (:func:`controllers.tasks._kernels.fill_program`) with the same functions as
-the tasks' own ``rows``: the same rows, to the bit (tested).  Any other stack
+the tasks' own ``rows``: the same rows, to the bit (tested).  Such a program
+reads the tasks' parameters (weights included) when the controller is reset:
+a parameter changed later takes effect at the next reset.  Any other stack
 is written task by task.
 If a solve fails, a task's linear algebra fails or the hard constraints cannot hold, the controller never
 uses a made-up answer: it commands the safe fallback

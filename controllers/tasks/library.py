@@ -196,7 +196,11 @@ class Posture(Task):
         return self._A, b
 
     def _program_entry(self, state: TickState):
-        if state.model.nq != state.model.nv:  # pinocchio.difference is q* - q only on a vector space
+        # a program writes pinocchio.difference(q, q*) as q* - q: only on a configuration space that is a vector
+        # space (nq = nv), checked here at the neutral configuration
+        q0 = pin.neutral(state.model)
+        if state.model.nq != state.model.nv or not np.array_equal(pin.difference(state.model, q0, self.q_ref),
+                                                                  self.q_ref - q0):
             return None
         return _kernels.POSTURE, [self.w**2, 2 * self.z * self.w, *self.q_ref], None
 
@@ -216,6 +220,7 @@ def _faces(shape_function, *args) -> list[tuple[np.ndarray, float]]:
     k = shape_function(*args)
     normals, pens = args[-2], args[-1]
     return [(normals[i], float(pens[i])) for i in range(k)]
+
 
 @dataclass(frozen=True)
 class WallLaw:
