@@ -25,10 +25,16 @@ def _plt():
     return plt
 
 
-def _save(fig, path: Path) -> Path:
+def _save(fig, path: Path, margins: tuple[float, float, float, float] | None = None) -> Path:
+    """Write ``fig`` as a PNG. ``margins`` (left, bottom, right, top, as fractions of the figure) place the axes
+    directly; without them ``tight_layout`` fits the labels, which costs a second drawing of the figure."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fig.tight_layout()
+    if margins is None:
+        fig.tight_layout()
+    else:
+        left, bottom, right, top = margins
+        fig.subplots_adjust(left=left, bottom=bottom, right=right, top=top)
     fig.savefig(path, dpi=110)
     _plt().close(fig)
     return path
@@ -46,7 +52,7 @@ def force_over_time(series: Mapping[str, tuple[np.ndarray, np.ndarray]], path: P
     ax.set_title(title)
     ax.grid(alpha=0.3)
     ax.legend(loc="upper right", fontsize=8)
-    return _save(fig, path)
+    return _save(fig, path, margins=(0.08, 0.14, 0.98, 0.91))  # fixed labels: no second drawing for the layout
 
 
 def force_against_penetration(series: Mapping[str, tuple[np.ndarray, np.ndarray]], path: Path, *,
@@ -69,7 +75,7 @@ def force_against_penetration(series: Mapping[str, tuple[np.ndarray, np.ndarray]
     ax.set_title("force against penetration")
     ax.grid(alpha=0.3)
     ax.legend(fontsize=8, markerscale=6)
-    return _save(fig, path)
+    return _save(fig, path, margins=(0.12, 0.12, 0.97, 0.92))  # fixed labels: no second drawing for the layout
 
 
 def bars(values: Mapping[str, float | None], path: Path, *, ylabel: str, title: str) -> Path:
