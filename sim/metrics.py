@@ -395,9 +395,12 @@ def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: 
     With pinocchio on the run's own robot model ``arm`` (:class:`models.arm.ArmModel`):
     the cuff frames' spatial velocities (``getFrameVelocity``, LOCAL, the frame
     of ``cuff_wrench_exo``), :math:`\\tau_{int} = \\sum_c J_c^T w_c`
-    (``getFrameJacobian``, LOCAL), :math:`g(q)` (``computeGeneralizedGravity``),
-    :math:`M(q)\\ddot q` (``crba``; :math:`\\ddot q` the central difference of
-    ``dq_exo``), and the kinetic and potential energy.
+    (``getFrameJacobian``, LOCAL), :math:`g(q)`, :math:`M(q)\\ddot q`
+    (:math:`\\ddot q` the central difference of ``dq_exo``), the kinetic energy
+    :math:`\\tfrac12 \\dot q^T M \\dot q` and the potential energy. One
+    ``computeAllTerms`` per tick gives the kinematics, Jacobians, M, g and the
+    potential energy (the same values as the separate algorithms, to rounding;
+    tested); the products over the cuffs and joints run on all ticks at once.
     """
     import pinocchio as pin
 
@@ -408,27 +411,27 @@ def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: 
     n, nv = q.shape[0], model.nv
     ddq = np.gradient(dq, dt_s, axis=0) if n > 2 else np.zeros_like(dq)
     fids = [model.getFrameId(f) for f in cuff_frames]
-    out = {k: np.zeros((n, nv)) for k in ("tau_interaction", "tau_gravity", "tau_inertia")}
-    out["cuff_twist"] = np.zeros(w.shape)
-    out["kinetic_J"], out["potential_J"] = np.zeros(n), np.zeros(n)
+    twist = np.zeros(w.shape)
+    jac = np.zeros((n, len(fids), 6, nv))
+    M = np.zeros((n, nv, nv))
+    gravity, potential = np.zeros((n, nv)), np.zeros(n)
     local = pin.ReferenceFrame.LOCAL
-    lower = np.tril_indices(nv, -1)  # crba fills the upper triangle only
+    all_terms, placements, velocity, jacobian = (pin.computeAllTerms, pin.updateFramePlacements, pin.getFrameVelocity,
+                                                 pin.getFrameJacobian)
     for k in range(n):
-        pin.computeJointJacobians(model, data, q[k])
-        pin.forwardKinematics(model, data, q[k], dq[k])
-        pin.updateFramePlacements(model, data)
-        tau = np.zeros(nv)
+        all_terms(model, data, q[k], dq[k])
+        placements(model, data)
         for c, fid in enumerate(fids):
-            out["cuff_twist"][k, c] = pin.getFrameVelocity(model, data, fid, local).vector
-            tau += pin.getFrameJacobian(model, data, fid, local).T @ w[k, c]
-        out["tau_interaction"][k] = tau
-        out["tau_gravity"][k] = pin.computeGeneralizedGravity(model, data, q[k])
-        M = pin.crba(model, data, q[k])
-        M[lower] = M.T[lower]
-        out["tau_inertia"][k] = M @ ddq[k]
-        out["kinetic_J"][k] = 0.5 * dq[k] @ M @ dq[k]
-        out["potential_J"][k] = pin.computePotentialEnergy(model, data, q[k])
-    return out
+            twist[k, c] = velocity(model, data, fid, local).vector
+            jac[k, c] = jacobian(model, data, fid, local)
+        M[k] = data.M  # the upper triangle (crba's), mirrored below
+        gravity[k] = data.g
+        potential[k] = data.potential_energy
+    lower = np.tril_indices(nv, -1)
+    M[:, lower[0], lower[1]] = M[:, lower[1], lower[0]]
+    return {"cuff_twist": twist, "tau_interaction": np.einsum("kcrj,kcr->kj", jac, w), "tau_gravity": gravity,
+            "tau_inertia": np.einsum("kij,kj->ki", M, ddq), "kinetic_J": 0.5 * np.einsum("ki,kij,kj->k", dq, M, dq),
+            "potential_J": potential}
 
 
 def _derived_column(arrays: Mapping[str, np.ndarray], name: str) -> np.ndarray:

@@ -240,3 +240,42 @@ def test_run_folder_metrics_hold_every_issue_key(tmp_path):
     again = evaluate_run(tmp_path / "run")
     assert {k: v for k, v in again.items()} == {k: v for k, v in r.metrics.items()}
     assert not math.isnan(r.metrics["interaction_work_J"])
+
+
+def test_robot_interaction_terms_match_pinocchios_separate_algorithms():
+    # reference: per tick, pinocchio's separate algorithms (computeJointJacobians, forwardKinematics,
+    # getFrameVelocity/getFrameJacobian, computeGeneralizedGravity, crba, computePotentialEnergy) and numpy products
+    import pinocchio as pin
+
+    import models
+    from sim.metrics import robot_interaction_terms
+
+    arm = models.build_exo()
+    model, data = arm.model, arm.model.createData()
+    frames = ["exo_cuff_upper_arm", "exo_cuff_forearm", "exo_cuff_hand"]
+    rng = np.random.default_rng(12)
+    lo, hi = arm.position_limits()
+    n = 40
+    arrays = {"q_exo": rng.uniform(lo, hi, size=(n, 7)), "dq_exo": rng.normal(size=(n, 7)),
+              "cuff_wrench_exo": rng.normal(scale=10.0, size=(n, 3, 6))}
+    terms = robot_interaction_terms(arm, arrays, frames, DT)
+    ddq = np.gradient(arrays["dq_exo"], DT, axis=0)
+    for k in range(n):
+        q, dq = arrays["q_exo"][k], arrays["dq_exo"][k]
+        pin.computeJointJacobians(model, data, q)
+        pin.forwardKinematics(model, data, q, dq)
+        pin.updateFramePlacements(model, data)
+        tau = np.zeros(7)
+        for c, f in enumerate(frames):
+            fid = model.getFrameId(f)
+            np.testing.assert_allclose(terms["cuff_twist"][k, c],
+                                       pin.getFrameVelocity(model, data, fid, pin.LOCAL).vector, atol=1e-12)
+            tau += pin.getFrameJacobian(model, data, fid, pin.LOCAL).T @ arrays["cuff_wrench_exo"][k, c]
+        np.testing.assert_allclose(terms["tau_interaction"][k], tau, atol=1e-11)
+        np.testing.assert_allclose(terms["tau_gravity"][k], pin.computeGeneralizedGravity(model, data, q), atol=1e-11)
+        M = pin.crba(model, data, q)
+        M = np.triu(M) + np.triu(M, 1).T
+        np.testing.assert_allclose(terms["tau_inertia"][k], M @ ddq[k], rtol=1e-12, atol=1e-9)
+        assert terms["kinetic_J"][k] == pytest.approx(0.5 * dq @ M @ dq, rel=1e-12)
+        U = pin.computePotentialEnergy(model, data, q)
+        assert terms["potential_J"][k] == pytest.approx(U, rel=1e-12, abs=1e-12)
