@@ -411,27 +411,40 @@ def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: 
     n, nv = q.shape[0], model.nv
     ddq = np.gradient(dq, dt_s, axis=0) if n > 2 else np.zeros_like(dq)
     fids = [model.getFrameId(f) for f in cuff_frames]
-    twist = np.zeros(w.shape)
-    jac = np.zeros((n, len(fids), 6, nv))
-    M = np.zeros((n, nv, nv))
-    gravity, potential = np.zeros((n, nv)), np.zeros(n)
+    out = {k: np.zeros((n, nv)) for k in ("tau_interaction", "tau_gravity", "tau_inertia")}
+    out["cuff_twist"] = twist = np.zeros(w.shape)
+    out["kinetic_J"] = np.zeros(n)
+    out["potential_J"] = potential = np.zeros(n)
+    gravity = out["tau_gravity"]
     local = pin.ReferenceFrame.LOCAL
     all_terms, placements, velocity, jacobian = (pin.computeAllTerms, pin.updateFramePlacements, pin.getFrameVelocity,
                                                  pin.getFrameJacobian)
-    for k in range(n):
-        all_terms(model, data, q[k], dq[k])
-        placements(model, data)
-        for c, fid in enumerate(fids):
-            twist[k, c] = velocity(model, data, fid, local).vector
-            jac[k, c] = jacobian(model, data, fid, local)
-        M[k] = data.M  # the upper triangle (crba's), mirrored below
-        gravity[k] = data.g
-        potential[k] = data.potential_energy
+    # the Jacobians and mass matrices of a block of ticks, so that memory does not grow with the run's length
+    block = max(1, min(n, _TERMS_BLOCK))
+    jac, M = np.zeros((block, len(fids), 6, nv)), np.zeros((block, nv, nv))
     lower = np.tril_indices(nv, -1)
-    M[:, lower[0], lower[1]] = M[:, lower[1], lower[0]]
-    return {"cuff_twist": twist, "tau_interaction": np.einsum("kcrj,kcr->kj", jac, w), "tau_gravity": gravity,
-            "tau_inertia": np.einsum("kij,kj->ki", M, ddq), "kinetic_J": 0.5 * np.einsum("ki,kij,kj->k", dq, M, dq),
-            "potential_J": potential}
+    for start in range(0, n, block):
+        end = min(start + block, n)
+        for i, k in enumerate(range(start, end)):
+            all_terms(model, data, q[k], dq[k])
+            placements(model, data)
+            for c, fid in enumerate(fids):
+                twist[k, c] = velocity(model, data, fid, local).vector
+                jac[i, c] = jacobian(model, data, fid, local)
+            M[i] = data.M  # the upper triangle (crba's), mirrored below
+            gravity[k] = data.g
+            potential[k] = data.potential_energy
+        m = end - start
+        Mb = M[:m]
+        Mb[:, lower[0], lower[1]] = Mb[:, lower[1], lower[0]]
+        out["tau_interaction"][start:end] = np.einsum("kcrj,kcr->kj", jac[:m], w[start:end])
+        out["tau_inertia"][start:end] = np.einsum("kij,kj->ki", Mb, ddq[start:end])
+        out["kinetic_J"][start:end] = 0.5 * np.einsum("ki,kij,kj->k", dq[start:end], Mb, dq[start:end])
+    return out
+
+
+#: ticks per block of :func:`robot_interaction_terms` (its scratch memory: about 8 kB per tick)
+_TERMS_BLOCK = 1024
 
 
 def _derived_column(arrays: Mapping[str, np.ndarray], name: str) -> np.ndarray:

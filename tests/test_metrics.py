@@ -242,12 +242,13 @@ def test_run_folder_metrics_hold_every_issue_key(tmp_path):
     assert not math.isnan(r.metrics["interaction_work_J"])
 
 
-def test_robot_interaction_terms_match_pinocchios_separate_algorithms():
+def test_robot_interaction_terms_match_pinocchios_separate_algorithms(monkeypatch):
     # reference: per tick, pinocchio's separate algorithms (computeJointJacobians, forwardKinematics,
     # getFrameVelocity/getFrameJacobian, computeGeneralizedGravity, crba, computePotentialEnergy) and numpy products
     import pinocchio as pin
 
     import models
+    import sim.metrics
     from sim.metrics import robot_interaction_terms
 
     arm = models.build_exo()
@@ -258,6 +259,7 @@ def test_robot_interaction_terms_match_pinocchios_separate_algorithms():
     n = 40
     arrays = {"q_exo": rng.uniform(lo, hi, size=(n, 7)), "dq_exo": rng.normal(size=(n, 7)),
               "cuff_wrench_exo": rng.normal(scale=10.0, size=(n, 3, 6))}
+    monkeypatch.setattr(sim.metrics, "_TERMS_BLOCK", 16)  # three blocks, the last one partial
     terms = robot_interaction_terms(arm, arrays, frames, DT)
     ddq = np.gradient(arrays["dq_exo"], DT, axis=0)
     for k in range(n):
