@@ -315,8 +315,11 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
         run_dirs = []
         for c in controllers:
             bar = _progress_bar(f"{scenario.name}/{c}")
+            # the human-alone baseline is the same for every controller: simulated once, then copied
+            baseline = run_dirs[0] / "human_alone" if run_dirs else None
             try:
-                run_scenario(scenario, c, out / c, seed=args.seed, progress=bar.update if bar else None)
+                run_scenario(scenario, c, out / c, seed=args.seed, progress=bar.update if bar else None,
+                             baseline_from=baseline)
             except SimulationError as e:
                 raise _UserError(f"{e}; the runs so far are kept in {out}") from e
             finally:

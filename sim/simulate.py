@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import shutil
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -42,7 +43,7 @@ from .scenario import Scenario
 from .sensors import ForceSensorBank, ForceTorqueSensor, JointSensing, _first_nonfinite
 
 __all__ = ["SimulationError", "RunResult", "build_assembly", "controller_context", "simulate", "run_scenario",
-           "evaluate_run"]
+           "reusable_baseline", "evaluate_run"]
 
 Progress = Callable[[int, int], None]
 #: Called after every tick with (t_s, q_exo, q_human, cuff forces on the human in world axes (n_cuffs, 3)).
@@ -276,12 +277,22 @@ def run_scenario(
     progress: Progress | None = None,
     observer: Observer | None = None,
     report: bool = True,
+    baseline_from: str | Path | None = None,
 ) -> RunResult:
     """A coupled run plus its human-alone baseline (same scenario and seed), with metrics.
 
     Writes the coupled run to ``out_dir`` (log, ``meta.json``,
     ``metrics.json``, and with ``report`` a ``report.md`` with plots, see
     :func:`sim.report.write_run_report`) and the baseline to ``out_dir/human_alone``.
+
+    ``baseline_from`` names the baseline of an earlier call, e.g.
+    ``other_run/human_alone``. It is copied instead of simulated again when
+    this process made it and its record shows the run this call would make
+    (:func:`reusable_baseline`). A human-alone run does not depend on the
+    controller, and the same inputs give the same bytes, so the copy is the
+    baseline this call would have simulated; only its wall-clock figures
+    (``timing.npz``, the tick times in its ``metrics.json``) are those of the
+    run that made it. Otherwise the baseline is simulated as usual.
     """
     out = Path(out_dir)
     make_controller(controller_name, scenario.variants, scenario.walls)  # fail on a bad name before writing
@@ -289,7 +300,14 @@ def run_scenario(
     coupled_progress = (lambda k, _n: progress(k, 2 * n)) if progress else None
     base_progress = (lambda k, _n: progress(n + k, 2 * n)) if progress else None
     simulate(scenario, controller_name, out, seed=seed, progress=coupled_progress, observer=observer)
-    simulate(scenario, controller_name, out / "human_alone", seed=seed, mode="human_alone", progress=base_progress)
+    base = out / "human_alone"
+    if baseline_from is not None and not base.exists() and reusable_baseline(baseline_from, scenario, seed):
+        shutil.copytree(baseline_from, base)
+        if progress:
+            progress(2 * n, 2 * n)
+    else:
+        simulate(scenario, controller_name, base, seed=seed, mode="human_alone", progress=base_progress)
+        _BASELINES_MADE.add(base.resolve())
     wall = None
     plane = next((w for w in scenario.walls if isinstance(w, tuple) and w and w[0] == "wall_plane"), None)
     if plane is not None:
@@ -305,6 +323,31 @@ def run_scenario(
 
         write_run_report(out, metrics)
     return RunResult(out, metrics, True)
+
+
+#: The human-alone baselines this process simulated (resolved paths), which :func:`reusable_baseline` accepts.
+_BASELINES_MADE: set[Path] = set()
+
+
+def reusable_baseline(folder: str | Path, scenario: Scenario, seed: int | None = None) -> bool:
+    """Whether ``folder`` holds the human-alone baseline that :func:`run_scenario` would make for ``scenario``.
+
+    True only if this process simulated it (the same code) and its
+    ``meta.json`` records a complete human-alone run of the same scenario
+    parameters, seed and software environment. Never raises: a missing or
+    unreadable folder is simply not reusable.
+    """
+    folder = Path(folder)
+    try:
+        if folder.resolve() not in _BASELINES_MADE:
+            return False
+        meta = json.loads((folder / "meta.json").read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return False
+    seed = scenario.seed if seed is None else int(seed)
+    return (meta.get("status") == "complete" and meta.get("mode") == "human_alone" and meta.get("seed") == seed
+            and meta.get("parameters") == json.loads(json.dumps(_jsonable(scenario)))
+            and meta.get("environment") == environment_metadata())
 
 
 def evaluate_run(folder: str | Path, *, wall: dict | None = None,

@@ -15,7 +15,11 @@ embarrassingly parallel map.  Two executors run the same function,
 
 A run's numbers depend only on its scenario, controller, subject and seed,
 never on the executor (the logs are bit-identical per seed), except the
-wall-clock figures (:data:`sim.metrics.TIMING_KEYS`).  A run that fails is
+wall-clock figures (:data:`sim.metrics.TIMING_KEYS`). The human-alone
+baseline does not depend on the controller: a process that already ran a
+case of the same wearer and seed copies its baseline
+(:func:`sim.simulate.run_scenario`'s ``baseline_from``) instead of
+simulating it again.  A run that fails is
 recorded with its error; the others go on.
 
 Output folder::
@@ -102,6 +106,10 @@ class SweepResult:
         return tuple(r for r in self.results if not r.ok)
 
 
+#: Per process: (scenario file, subject, seed, duration) -> the human-alone baseline of a case this process ran.
+_BASELINES: dict[tuple, str] = {}
+
+
 def run_case(case: SweepCase) -> CaseResult:
     """Run one case (:func:`sim.simulate.run_scenario`) and return its metrics or its error.
 
@@ -112,11 +120,15 @@ def run_case(case: SweepCase) -> CaseResult:
     from .simulate import run_scenario
 
     t0 = time.perf_counter()
+    key = (case.scenario_path, case.subject, case.seed, case.duration_s)
     try:
         scenario = load_scenario(case.scenario_path, subject=case.subject)
         if case.duration_s is not None:
             scenario = replace(scenario, duration_s=case.duration_s)
-        result = run_scenario(scenario, case.controller, case.folder, seed=case.seed)
+        # the human-alone baseline of another controller's case of this wearer and seed, if this process ran one
+        result = run_scenario(scenario, case.controller, case.folder, seed=case.seed,
+                              baseline_from=_BASELINES.get(key))
+        _BASELINES.setdefault(key, str(Path(case.folder) / "human_alone"))
         return CaseResult(case, result.metrics, None, time.perf_counter() - t0)
     except SandboxError as e:
         return CaseResult(case, None, f"{type(e).__name__}: {e}", time.perf_counter() - t0)

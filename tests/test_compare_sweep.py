@@ -138,3 +138,72 @@ def test_two_jobs_run_cases_in_a_worker_and_in_this_process(tiny, tmp_path, monk
     assert not result.failed and len(result.results) == 3
     pids = [_sweep_probe.pid_of(r.case) for r in result.results]
     assert os.getpid() in pids and len(set(pids)) == 2
+
+
+# -- the human-alone baseline, simulated once and copied -------------------------------------------
+def _baseline_files(folder):
+    """Every file of a baseline folder (bytes), but the wall-clock ones."""
+    base = folder / "human_alone"
+    return {p.relative_to(base): p.read_bytes() for p in sorted(base.rglob("*"))
+            if p.is_file() and p.name not in ("timing.npz", "metrics.json")}
+
+
+def _simulated_baselines(monkeypatch):
+    """A list that grows by one folder per human-alone run simulated from now on."""
+    import importlib
+
+    module = importlib.import_module("sim.simulate")  # the package's name "simulate" is the function
+    made, simulate = [], module.simulate
+
+    def counting(scenario, controller, folder, **kw):
+        if kw.get("mode") == "human_alone":
+            made.append(folder)
+        return simulate(scenario, controller, folder, **kw)
+
+    monkeypatch.setattr(module, "simulate", counting)
+    return made
+
+
+def test_a_copied_baseline_is_the_one_the_run_would_simulate(tiny, tmp_path, monkeypatch):
+    # reference: the baseline simulated for the same controller, scenario and seed without reuse; a
+    # baseline made for another seed, or not by this process, is simulated again
+    from sim.scenario import load_scenario
+    from sim.simulate import reusable_baseline, run_scenario
+
+    sc = load_scenario(tiny)
+    made = _simulated_baselines(monkeypatch)
+    first = run_scenario(sc, "gravity", tmp_path / "gravity", seed=4, report=False)
+    copied = run_scenario(sc, "transparent", tmp_path / "transparent", seed=4, report=False,
+                          baseline_from=first.folder / "human_alone")
+    assert len(made) == 1
+    fresh = run_scenario(sc, "transparent", tmp_path / "fresh", seed=4, report=False)
+    assert len(made) == 2
+    assert _baseline_files(copied.folder) == _baseline_files(fresh.folder)
+    numbers = [{k: v for k, v in flat_metrics(r.metrics).items() if not is_timing_key(k)} for r in (copied, fresh)]
+    assert numbers[0] == numbers[1]
+    run_scenario(sc, "transparent", tmp_path / "seed5", seed=5, report=False,
+                 baseline_from=first.folder / "human_alone")
+    assert len(made) == 3 and not reusable_baseline(first.folder / "human_alone", sc, seed=5)
+    import shutil
+
+    shutil.copytree(first.folder / "human_alone", tmp_path / "elsewhere")  # the same files, not made here
+    assert reusable_baseline(first.folder / "human_alone", sc, seed=4)
+    assert not reusable_baseline(tmp_path / "elsewhere", sc, seed=4)
+    assert not reusable_baseline(tmp_path / "nowhere", sc, seed=4)
+
+
+def test_compare_and_a_one_job_sweep_simulate_one_baseline_per_wearer_and_seed(tiny, tmp_path, monkeypatch):
+    import sim.sweep
+
+    made = _simulated_baselines(monkeypatch)
+    out = tmp_path / "cmp"
+    assert main(["compare", str(tiny), "--controller", "gravity", "--controller", "zero", "--controller",
+                 "transparent", "--out", str(out)]) == 0
+    assert len(made) == 1
+    for c in ("zero", "transparent"):
+        assert _baseline_files(out / c) == _baseline_files(out / "gravity")
+    monkeypatch.setattr(sim.sweep, "_BASELINES", {})
+    made.clear()
+    result = run_sweep(tiny, ["gravity", "transparent"], ["f5", "m95"], 2, out_dir=tmp_path / "sw", jobs=1)
+    assert not result.failed and len(result.results) == 8
+    assert len(made) == 4  # 2 wearers x 2 seeds
