@@ -307,9 +307,10 @@ class HQPController(Controller):
         m_e, m_i, rows, finite = _task_kernels.fill_program(
             prog.prog, prog.fp, s.q, s.dq, s.M, s.Minv, s.g, s.cuff_force, c, s.dt_s, prog.frames, buf.A, buf.b,
             buf.sw, buf.C, buf.d, buf.wi, buf.eq_off, buf.in_off, buf.unit_eq, prog.spans)
-        self._placed = [None] * len(self._placed)  # the rows _fill_stack left in place are written over
-        self._min_norm_at = -1
         if not finite:
+            # the program wrote over the rows _fill_stack keeps in place: it writes them all again
+            self._placed = [None] * len(self._placed)
+            self._min_norm_at = -1
             stack, rows = self._fill_stack(s, c)
             self._check_finite(stack)
             return stack, rows

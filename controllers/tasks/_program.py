@@ -14,7 +14,6 @@ import math
 from collections.abc import Sequence
 
 import numpy as np
-import pinocchio as pin
 
 from . import _kernels
 from ._common import TickState
@@ -106,14 +105,12 @@ class TaskProgram:
         world-aligned Jacobian.
         """
         wrenches = state.measurement.cuff_wrench
-        model, data = state.model, state.data
-        oMf = data.oMf
         for fid, sid, sensor, R, p, w, drift, J in self._gather:
             w[:] = wrenches[sensor]
-            R[:] = oMf[sid].rotation
-            p[:] = oMf[fid].translation
-            drift[:] = pin.getFrameClassicalAcceleration(model, data, fid, pin.LOCAL_WORLD_ALIGNED).vector
-            J[:] = pin.getFrameJacobian(model, data, fid, pin.LOCAL_WORLD_ALIGNED)
+            R[:] = state.rotation(sid)
+            p[:] = state.position(fid)
+            drift[:] = state.drift(fid)
+            J[:] = state.jacobian(fid)
 
     def layout(self, m_e: int) -> list:
         """Per level, the ``(eq, ineq)`` lists of ``(first row, end row, weight)`` of this tick's entries
