@@ -4,11 +4,13 @@ Every run is independent (its own process, its own seed), so a sweep is an
 embarrassingly parallel map.  Two executors run the same function,
 :func:`run_case`:
 
-* local processes: ``jobs`` runs at a time, in ``jobs - 1`` workers
-  (:class:`concurrent.futures.ProcessPoolExecutor`, started with ``spawn`` so
-  that a worker inherits nothing from the parent) and in this process, which
-  takes the next case whenever it is free (it runs cases while the workers
-  start); ``jobs=1`` runs every case in this process;
+* local processes: ``jobs`` runs at a time, in ``jobs - 1`` worker processes
+  (forked on Linux, so that a worker starts with every module already
+  imported; spawned elsewhere) and in this process, which takes the next case
+  whenever it is free (it runs cases while the workers start); a free
+  process prefers another controller's case of a wearer and seed whose
+  baseline it has already simulated; ``jobs=1`` runs every case in this
+  process;
 * an existing Dask distributed cluster (``dask_address``), for users who
   outgrow one machine.  The workers must see the scenario file and ``out_dir``
   at the same paths (a shared file system).
@@ -34,15 +36,14 @@ Output folder::
 
 from __future__ import annotations
 
-import collections
 import csv
 import json
 import math
 import os
+import sys
 import time
 import traceback
 from collections.abc import Callable, Iterable, Sequence
-from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -120,7 +121,7 @@ def run_case(case: SweepCase) -> CaseResult:
     from .simulate import run_scenario
 
     t0 = time.perf_counter()
-    key = (case.scenario_path, case.subject, case.seed, case.duration_s)
+    key = _baseline_key(case)
     try:
         scenario = load_scenario(case.scenario_path, subject=case.subject)
         if case.duration_s is not None:
@@ -175,13 +176,85 @@ def plan_sweep(scenario_path: str | Path, controllers: Sequence[str], subjects: 
             for c in controllers for s in subjects for seed in _seeds(seeds, scenario.seed)]
 
 
-def _local(cases: Sequence[SweepCase], jobs: int) -> Iterable[CaseResult]:
-    """Run the cases ``jobs`` at a time: in ``jobs - 1`` spawned workers and in this process.
+def _baseline_key(case: SweepCase) -> tuple:
+    """The cases of one key share their human-alone baseline (it does not depend on the controller)."""
+    return (case.scenario_path, case.subject, case.seed, case.duration_s)
 
-    This process takes the next case whenever it is free, so it works while the
-    workers start (imports, loading the compiled kernels: seconds) instead of
-    waiting for them; each worker is handed one case at a time, when it is free.
-    Results come in completion order.
+
+def _start_method() -> str:
+    """``fork`` on Linux: a worker starts as a copy of this process, with every module already imported
+    (about a second per worker saved); ``spawn`` elsewhere, where forking a process that has loaded system
+    frameworks is unsafe (macOS) or impossible (Windows)."""
+    return "fork" if sys.platform.startswith("linux") else "spawn"
+
+
+def _serve(conn) -> None:
+    """A worker process: run each ``(function, case)`` it is sent and send back the result, until sent ``None``.
+
+    A forked worker forgets the baselines its parent made: it reuses only those it
+    simulates itself, as a spawned one does.  Interrupted (Ctrl-C reaches every
+    process of the terminal), it stops quietly; the parent reports the case.
+    """
+    from .simulate import _BASELINES_MADE
+
+    _BASELINES.clear()
+    _BASELINES_MADE.clear()
+    try:
+        while (job := conn.recv()) is not None:
+            fn, case = job
+            conn.send(fn(case))
+    except (KeyboardInterrupt, EOFError, OSError):  # interrupted, or the parent has gone
+        pass
+    finally:
+        conn.close()
+
+
+class _CaseQueue:
+    """The cases left, handed out one at a time to the process that asks for one (thread-safe).
+
+    A process asks with the set of baseline keys (:func:`_baseline_key`) of
+    the cases it has taken, which :meth:`take` updates.
+    """
+
+    def __init__(self, cases: Iterable[SweepCase]) -> None:
+        import threading
+
+        self._todo = list(cases)
+        self._lock = threading.Lock()
+        self._started: set[tuple] = set()  # keys some process has taken a case of
+
+    def take(self, mine: set[tuple]) -> SweepCase | None:
+        """The first case whose baseline key is in ``mine``, else the first of a key no process has taken,
+        else the first case; ``None`` when none is left."""
+        with self._lock:
+            todo = self._todo
+            if not todo:
+                return None
+            i = next((i for i, c in enumerate(todo) if _baseline_key(c) in mine),
+                     next((i for i, c in enumerate(todo) if _baseline_key(c) not in self._started), 0))
+            case = todo.pop(i)
+            self._started.add(_baseline_key(case))
+            mine.add(_baseline_key(case))
+            return case
+
+    def clear(self) -> None:
+        with self._lock:
+            self._todo.clear()
+
+
+def _local(cases: Sequence[SweepCase], jobs: int) -> Iterable[CaseResult]:
+    """Run the cases ``jobs`` at a time: in ``jobs - 1`` worker processes and in this process.
+
+    Every worker is started (:func:`_start_method`) before any thread, and is
+    driven by a thread of this process that hands it one case at a time,
+    whenever it is free.  This process takes the next case whenever it is free
+    too, so it works while the workers start.  A process that is free takes,
+    first, a case whose human-alone baseline it has already simulated (another
+    controller of the same wearer and seed: the baseline is copied, not
+    simulated again), then a case of a wearer and seed no process has started,
+    then the next case.  A worker that dies (killed, or a crash in compiled
+    code) has its case reported as failed; the other processes take the cases
+    left.  Results come in completion order.
     """
     if jobs == 1:
         for c in cases:
@@ -191,55 +264,72 @@ def _local(cases: Sequence[SweepCase], jobs: int) -> Iterable[CaseResult]:
     import queue
     import threading
 
-    todo = collections.deque(cases)
-    lock = threading.Lock()
+    todo = _CaseQueue(cases)
     finished: queue.SimpleQueue = queue.SimpleQueue()
-    submitted = 0
+    _done = object()  # a driving thread's last item
 
-    def next_case() -> SweepCase | None:
-        with lock:
-            return todo.popleft() if todo else None
-
-    with ProcessPoolExecutor(max_workers=jobs - 1, mp_context=multiprocessing.get_context("spawn")) as pool:
-
-        def feed() -> None:  # one case to a free worker (called again from each finished case's callback)
-            nonlocal submitted
-            case = next_case()
-            if case is None:
-                return
-            with lock:
-                submitted += 1
-            try:
-                pool.submit(run_case, case).add_done_callback(done)
-            except RuntimeError:  # the pool is shutting down (the sweep was interrupted)
-                with lock:
-                    submitted -= 1
-
-        def done(f) -> None:
-            finished.put(f)
-            feed()
-
-        received = 0
+    def drive(proc, conn) -> None:  # hand one worker its cases, in a thread of this process
+        mine: set[tuple] = set()
         try:
-            for _ in range(jobs - 1):
-                feed()
-            while True:
-                while not finished.empty():
-                    received += 1
-                    yield finished.get().result()
-                case = next_case()
-                if case is None:
-                    break
-                yield run_case(case)
-            while True:
-                with lock:
-                    if received == submitted:
-                        break
-                received += 1
-                yield finished.get().result()
+            while (case := todo.take(mine)) is not None:
+                try:
+                    conn.send((run_case, case))
+                    result = conn.recv()
+                except (EOFError, OSError):  # the worker has gone: its case failed, the others take the rest
+                    proc.join(timeout=5.0)
+                    finished.put(CaseResult(case, None, f"WorkerExit: the worker process running this case "
+                                                        f"stopped (exit code {proc.exitcode})", math.nan))
+                    return
+                finished.put(result)
+            conn.send(None)
+        except (EOFError, OSError):
+            pass
         finally:
-            with lock:
-                todo.clear()  # no new case to the workers; cases already running finish with the pool
+            finished.put(_done)
+
+    ctx = multiprocessing.get_context(_start_method())
+    workers: list = []
+    threads: list[threading.Thread] = []
+    try:
+        for _ in range(jobs - 1):  # every worker before any thread: a fork copies no thread's locks
+            ours, theirs = ctx.Pipe()
+            proc = ctx.Process(target=_serve, args=(theirs,), name="exosandbox-sweep-worker", daemon=True)
+            proc.start()
+            theirs.close()
+            workers.append((proc, ours))
+        threads = [threading.Thread(target=drive, args=w, name="exosandbox-sweep-driver", daemon=True)
+                   for w in workers]
+        for t in threads:
+            t.start()
+        mine: set[tuple] = set(_BASELINES)
+        running = len(threads)
+        while True:
+            while running and not finished.empty():
+                item = finished.get()
+                if item is _done:
+                    running -= 1
+                else:
+                    yield item
+            case = todo.take(mine)
+            if case is None:
+                break
+            yield run_case(case)
+        while running:
+            item = finished.get()
+            if item is _done:
+                running -= 1
+            else:
+                yield item
+    finally:
+        todo.clear()  # no new case to the workers; cases already running finish
+        for t in threads:
+            t.join()
+        for proc, conn in workers:
+            conn.close()
+            proc.join(timeout=5.0)
+            if proc.is_alive():
+                proc.terminate()
+                proc.join()
 
 
 def _dask(cases: Sequence[SweepCase], address: str) -> Iterable[CaseResult]:
@@ -346,7 +436,10 @@ def _bar(total: int):
 
         from tqdm import tqdm
 
-        return tqdm(total=total, desc="sweep", unit="run", file=sys.stderr, disable=not sys.stderr.isatty())
+        class Bar(tqdm):
+            monitor_interval = 0  # no monitor thread: the sweep's workers are forked after the bar is made
+
+        return Bar(total=total, desc="sweep", unit="run", file=sys.stderr, disable=not sys.stderr.isatty())
     except ImportError:
         return None
 

@@ -23,3 +23,36 @@ def run_case_noting_pid(case):
 
 def pid_of(case) -> int:
     return int(_pid_file(case).read_text())
+
+
+def run_case_exiting_in_a_worker(case):
+    """Stop the process at once (as a crash in compiled code would) when run by a sweep's worker."""
+    import multiprocessing
+
+    if multiprocessing.parent_process() is not None:
+        os._exit(3)
+    return _run_case(case)
+
+
+def run_case_noting_registries(case):
+    """Note, beside the case's folder, the pid and whether the process knows the marker baseline (``MARKER``)."""
+    import json
+
+    from sim.simulate import _BASELINES_MADE
+
+    folder = Path(case.folder)
+    folder.parent.mkdir(parents=True, exist_ok=True)
+    seen = {"pid": os.getpid(), "key": MARKER_KEY in sweep._BASELINES, "made": MARKER_PATH in _BASELINES_MADE}
+    (folder.parent / f"{folder.name}.registries.json").write_text(json.dumps(seen))
+    return _run_case(case)
+
+
+def registries_of(case) -> dict:
+    import json
+
+    folder = Path(case.folder)
+    return json.loads((folder.parent / f"{folder.name}.registries.json").read_text())
+
+
+MARKER_KEY = ("a scenario run before this sweep", "m50", 0, None)
+MARKER_PATH = Path("/a-baseline-made-before-this-sweep")

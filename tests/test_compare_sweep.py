@@ -127,7 +127,7 @@ def test_sweep_cli_prints_the_table_and_the_verdict(tiny, tmp_path, capsys):
 
 
 def test_two_jobs_run_cases_in_a_worker_and_in_this_process(tiny, tmp_path, monkeypatch):
-    # jobs=2: one spawned worker (handed the first case at once) and this process, which takes the next case
+    # jobs=2: one worker process (handed the first case at once) and this process, which takes the next case
     # whenever it is free instead of waiting while the worker starts
     import os
 
@@ -138,6 +138,56 @@ def test_two_jobs_run_cases_in_a_worker_and_in_this_process(tiny, tmp_path, monk
     assert not result.failed and len(result.results) == 3
     pids = [_sweep_probe.pid_of(r.case) for r in result.results]
     assert os.getpid() in pids and len(set(pids)) == 2
+
+
+def test_a_worker_that_dies_fails_its_case_and_the_others_complete(tiny, tmp_path, monkeypatch):
+    # a worker process that stops mid-case (here os._exit, as a crash in compiled code would) fails that case,
+    # named in the table; this process runs the cases left, and the sweep writes its tables and report
+    import _sweep_probe
+
+    monkeypatch.setattr("sim.sweep.run_case", _sweep_probe.run_case_exiting_in_a_worker)
+    result = run_sweep(tiny, ["gravity"], ["f5"], 3, out_dir=tmp_path / "out", jobs=2)
+    failed = [r for r in result.results if not r.ok]
+    assert len(failed) == 1 and len(result.results) == 3
+    assert "WorkerExit" in failed[0].error and "exit code 3" in failed[0].error
+    rows = list(csv.DictReader((tmp_path / "out" / "runs.csv").open()))
+    assert sorted(r["status"] for r in rows) == ["failed", "ok", "ok"]
+    assert "## Failed runs" in (tmp_path / "out" / "report.md").read_text()
+
+
+def test_a_worker_reuses_only_the_baselines_it_made(tiny, tmp_path, monkeypatch):
+    # a forked worker starts as a copy of this process: it must forget the baselines this process made
+    # before the sweep (reusable_baseline trusts only a baseline its own process simulated)
+    import importlib
+    import os
+
+    import _sweep_probe
+
+    monkeypatch.setattr("sim.sweep._BASELINES", {_sweep_probe.MARKER_KEY: "/nowhere"})
+    monkeypatch.setattr(importlib.import_module("sim.simulate"), "_BASELINES_MADE", {_sweep_probe.MARKER_PATH})
+    monkeypatch.setattr("sim.sweep.run_case", _sweep_probe.run_case_noting_registries)
+    result = run_sweep(tiny, ["gravity"], ["f5"], 3, out_dir=tmp_path / "out", jobs=2)
+    assert not result.failed
+    seen = [_sweep_probe.registries_of(r.case) for r in result.results]
+    workers = [s for s in seen if s["pid"] != os.getpid()]
+    ours = [s for s in seen if s["pid"] == os.getpid()]
+    assert workers and ours
+    assert not any(s["key"] or s["made"] for s in workers)
+    assert all(s["key"] and s["made"] for s in ours)
+
+
+def test_a_free_process_takes_a_case_whose_baseline_it_has_then_an_untouched_wearer_and_seed():
+    from sim.sweep import SweepCase, _CaseQueue
+
+    cases = [SweepCase("s.py", c, "m50", seed, f"{c}/{seed}", 1.0) for c in ("a", "b") for seed in (0, 1, 2)]
+    q, p1, p2 = _CaseQueue(cases), set(), set()
+    order = [(who, q.take(mine)) for who, mine in (("p1", p1), ("p2", p2), ("p2", p2), ("p1", p1), ("p1", p1),
+                                                   ("p2", p2), ("p2", p2))]
+    assert [(who, c.controller, c.seed) for who, c in order[:6]] == [
+        ("p1", "a", 0), ("p2", "a", 1),  # distinct wearer and seed each
+        ("p2", "b", 1), ("p1", "b", 0),  # the other controller of the baseline each already has
+        ("p1", "a", 2), ("p2", "b", 2)]  # the last seed: p2 has none of its own left, so takes what is left
+    assert order[6][1] is None
 
 
 # -- the human-alone baseline, simulated once and copied -------------------------------------------
