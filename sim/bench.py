@@ -35,7 +35,8 @@ machines differ).  Cases:
 * **Growth**: tick time against the number of priority levels (1 to 6, the
   reference stack growing one level at a time) and against the number of
   joints (7, 14, 28: :func:`models.chain.build_chain` chains without a
-  wearer, under the same kind of stack).
+  wearer, under the same kind of stack, each with the torque to hold its own
+  weight: :func:`chain_tick_times`).
 * **Sweep throughput**: the same small sweep (:func:`sim.sweep.run_sweep`)
   with one and with two worker processes (``jobs2_speedup`` = wall time with
   1 / wall time with 2), each in a fresh process whose start-up counts, as
@@ -58,6 +59,7 @@ import cProfile
 import dataclasses
 import functools
 import io
+import math
 import multiprocessing
 import os
 import pstats
@@ -640,15 +642,32 @@ def chain_tick_times(n_joints: int, n_ticks: int, folder: str | Path, *, dt_s: f
     the articulated-body algorithm under gravity, and logging of ``t``, q,
     q̇ and τ (:class:`~sim.runlog.RunLog`).  The chain starts at 0.3 rad on
     every joint, at rest.
+
+    Every chain gets the torque to hold itself at its start pose: the torque
+    limit is the default :class:`~models.chain.ChainParams` limit or twice the
+    largest static gravity torque there, whichever is larger (rounded up to
+    10 N m).  With a fixed limit a long chain could not hold its own weight,
+    its torque-limit rows would be active on every tick and its levels would
+    go to the QP backend: the series would compare a saturated chain with
+    unsaturated ones instead of chains of different sizes.  The result gives
+    the limit used (``torque_limit_Nm``) and the ticks on which a level needed
+    the QP backend (``qp_backend_ticks``).
     """
-    arm = build_chain(ChainParams(n_joints=n_joints))
+    start = ChainParams(n_joints=n_joints)
+    arm = build_chain(start)
+    q0 = np.full(arm.nq, 0.3)
+    gravity = pin.computeGeneralizedGravity(arm.model, arm.model.createData(), q0)
+    limit = max(start.torque_limit_Nm, 10.0 * math.ceil(2.0 * float(np.abs(gravity).max()) / 10.0))
+    if limit > start.torque_limit_Nm:
+        arm = build_chain(dataclasses.replace(start, torque_limit_Nm=limit))
     model, data = arm.model, arm.model.createData()
     ctrl = HQPController([[JointPositionLimits(), JointVelocityLimits()], [Transparency()], [JointDamping()]],
                          name=f"chain{n_joints}")
     ctrl.reset(ControllerContext(arm=arm, cuff_frames={}, dt_s=dt_s))
     sensing = JointSensing(EncoderParams(), arm.nv, dt_s, np.random.default_rng(0))
-    q, v = np.full(arm.nq, 0.3), np.zeros(arm.nv)
+    q, v = q0.copy(), np.zeros(arm.nv)
     sensing.reset(q)
+    qp_ticks = 0
     h = dt_s / substeps
     times = np.zeros(n_ticks)
     cols = {"t": (), "q": (arm.nq,), "dq": (arm.nv,), "tau_cmd": (arm.nv,)}
@@ -658,13 +677,16 @@ def chain_tick_times(n_joints: int, n_ticks: int, folder: str | Path, *, dt_s: f
             qm, dqm, taum = sensing.measure(q, np.zeros(arm.nv))
             tau = ctrl.step(Measurement(k * dt_s, qm, dqm, taum, {}))
             log.append(t=k * dt_s, q=q, dq=v, tau_cmd=tau)
+            last = ctrl.last_result
+            qp_ticks += last is not None and "qp" in last.level_methods
             for _ in range(substeps):
                 a = pin.aba(model, data, q, v, tau)
                 v = v + h * a
                 q = pin.integrate(model, q, v * h)
             times[k] = time.perf_counter() - t0
     return {"joints": n_joints, "tick_time_median_us": float(np.median(times) * 1e6),
-            "tick_time_p99_us": float(np.percentile(times, 99) * 1e6), "fallbacks": ctrl.fallback_count}
+            "tick_time_p99_us": float(np.percentile(times, 99) * 1e6), "fallbacks": ctrl.fallback_count,
+            "torque_limit_Nm": float(limit), "qp_backend_ticks": int(qp_ticks)}
 
 
 # --------------------------------------------------------------------------------------------
@@ -867,9 +889,11 @@ def format_report(report: dict) -> str:
     lines += ["", f"{'levels':<10} {'tick median us':>15} {'HQP median us':>15}"]
     for p in r["levels_series"]:
         lines.append(f"{p['levels']:<10} {p['tick_time_median_us']:>15.1f} {_fmt(p['hqp_solve_median_us']):>15}")
-    lines += ["", f"{'joints':<10} {'tick median us':>15} {'tick p99 us':>15}"]
+    lines += ["", f"{'joints':<10} {'tick median us':>15} {'tick p99 us':>15} {'torque limit N m':>17} "
+                  f"{'QP-backend ticks':>17}"]
     for p in r["joints_series"]:
-        lines.append(f"{p['joints']:<10} {p['tick_time_median_us']:>15.1f} {p['tick_time_p99_us']:>15.1f}")
+        lines.append(f"{p['joints']:<10} {p['tick_time_median_us']:>15.1f} {p['tick_time_p99_us']:>15.1f} "
+                     f"{_fmt(p.get('torque_limit_Nm'), '.0f'):>17} {_fmt(p.get('qp_backend_ticks'), 'd'):>17}")
     lines += ["", f"{'sweep jobs':<10} {'runs':>6} {'wall s':>10} {'runs/min':>10}"]
     for s in r["sweep"]:
         lines.append(f"{s['jobs']:<10} {s['runs']:>6} {s['wall_s']:>10.2f} {s['runs_per_min']:>10.1f}")

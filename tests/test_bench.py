@@ -104,6 +104,24 @@ def test_chain_ticks_run_the_hqp_stack_without_a_fallback(tmp_path):
     assert load_run(tmp_path / "chain")["q"].shape == (5, 14)
 
 
+@pytest.mark.parametrize("joints", [7, 28])
+def test_every_chain_gets_the_torque_to_hold_its_own_weight(tmp_path, joints):
+    # reference: the static joint torques at the start pose from pinocchio's RNEA with zero velocity and
+    # acceleration (Featherstone 2008, section 5.3); with a fixed 40 N m, 28 links of 0.4 kg could not hold
+    # themselves, every level went to the QP backend and the series compared a saturated chain
+    import pinocchio as pin
+
+    from models.chain import ChainParams, build_chain
+
+    arm = build_chain(ChainParams(n_joints=joints))
+    q0 = np.full(arm.nq, 0.3)
+    static = pin.rnea(arm.model, arm.model.createData(), q0, np.zeros(arm.nv), np.zeros(arm.nv))
+    out = chain_tick_times(joints, 5, tmp_path / "chain")
+    assert out["torque_limit_Nm"] >= max(ChainParams().torque_limit_Nm, 2.0 * np.abs(static).max())
+    assert out["torque_limit_Nm"] < max(ChainParams().torque_limit_Nm, 2.0 * np.abs(static).max()) + 10.0
+    assert out["qp_backend_ticks"] == 0 and out["fallbacks"] == 0
+
+
 @pytest.mark.parametrize(("kwargs", "field"), [
     ({"reference_duration_s": 0.0}, "reference_duration_s"),
     ({"compare_ticks": 0}, "compare_ticks"),
