@@ -33,11 +33,13 @@ from llvmlite import ir
 from numba.core import cgutils, types
 from numba.extending import intrinsic
 
-__all__ = ["CLOSED_FORM", "WORKING_SET", "NO_FREEDOM", "NEEDS_QP", "EMPTY", "METHODS", "HAVE_CLOCK",
+__all__ = ["CLOSED_FORM", "WORKING_SET", "NO_FREEDOM", "NEEDS_QP", "EMPTY", "METHODS", "OUT_HEADER", "HAVE_CLOCK",
            "solve_level_fast", "solve_levels_fast", "solve_stack_fast", "stack_is_finite"]
 
 CLOSED_FORM, WORKING_SET, NO_FREEDOM, NEEDS_QP, EMPTY = 0, 1, 2, 3, 4
 METHODS = ("closed-form", "working-set", "no freedom", "qp", "empty")
+#: Scalars at the head of :func:`solve_stack_fast`'s output: stop, r, violation, tol.
+OUT_HEADER = 4
 
 #: the compiled code can read the monotonic clock (POSIX clock_gettime)
 HAVE_CLOCK = (sys.platform.startswith("linux") and hasattr(time, "CLOCK_MONOTONIC")
@@ -630,30 +632,35 @@ def solve_stack_fast(G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, rank_tol
     :func:`solve_levels_fast` (timed), and the largest violation of the hard
     rows at the final point (the solver's safety net).
 
-    Returns ``(stop, r, violation, tol, fout, iout)``: ``stop`` is the first
-    level that needs the QP backend, or the number of levels p when none does,
-    ``r`` the dimension of the freedom left, ``violation``
-    :math:`\max_i (G x - h)_i` over the hard rows (0 without rows) and ``tol``
-    the tolerance it is to be compared with. The arrays are packed in two
-    (fewer objects to hand back to Python): ``fout`` holds the point after the
-    levels solved x (n), then the per-level outputs of
-    :func:`solve_levels_fast`: ``residuals`` (p), ``seconds`` (p), ``X`` (p, n),
-    ``e_all`` (m_e), ``v_all`` (m_i); ``iout`` holds the method codes (p), the
-    freedom left after each level (p), and copies of ``eq_off`` and ``in_off``
-    (p + 1 each). p is taken from ``eq_off``.
+    Returns one float64 array ``out`` (a tuple of arrays costs microseconds to
+    hand back to Python; one array does not), laid out as :data:`OUT_HEADER`
+    scalars, then the rest:
+
+    * ``stop``: the first level that needs the QP backend, or the number of
+      levels p when none does; ``r``: the dimension of the freedom left;
+      ``violation``: :math:`\max_i (G x - h)_i` over the hard rows (0 without
+      rows); ``tol``: the tolerance it is to be compared with;
+    * the point after the levels solved, x (n), then the per-level outputs of
+      :func:`solve_levels_fast`: ``residuals`` (p), ``seconds`` (p), ``X``
+      (p, n), ``e_all`` (m_e), ``v_all`` (m_i);
+    * the integers, exactly (all are far below 2**53): the method codes (p),
+      the freedom left after each level (p), and copies of ``eq_off`` and
+      ``in_off`` (p + 1 each).
+
+    p is taken from ``eq_off``.
     """
     n = A.shape[1]
     p = eq_off.shape[0] - 1
     m_e, m_i = A.shape[0], C.shape[0]
-    fout = np.empty(n + 2 * p + p * n + m_e + m_i)
-    iout = np.empty(4 * p + 2, dtype=np.int64)
-    residuals, seconds = fout[n: n + p], fout[n + p: n + 2 * p]
-    X = fout[n + 2 * p: n + 2 * p + p * n].reshape((p, n))
-    e_all = fout[n + 2 * p + p * n: n + 2 * p + p * n + m_e]
-    v_all = fout[n + 2 * p + p * n + m_e:]
-    methods, free = iout[:p], iout[p: 2 * p]
-    iout[2 * p: 3 * p + 1] = eq_off
-    iout[3 * p + 1:] = in_off
+    o = OUT_HEADER
+    f_end = o + n + 2 * p + p * n + m_e + m_i
+    out = np.empty(f_end + 4 * p + 2)
+    residuals, seconds = out[o + n: o + n + p], out[o + n + p: o + n + 2 * p]
+    X = out[o + n + 2 * p: o + n + 2 * p + p * n].reshape((p, n))
+    e_all = out[o + n + 2 * p + p * n: o + n + 2 * p + p * n + m_e]
+    v_all = out[o + n + 2 * p + p * n + m_e: f_end]
+    ints = np.empty(2 * p, dtype=np.int64)
+    methods, free = ints[:p], ints[p:]
     m_hard = G.shape[0]
     scale = 0.0
     for i in range(m_hard):
@@ -665,10 +672,17 @@ def solve_stack_fast(G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, rank_tol
         0, p, True, x, np.zeros((n, 0)), False, G, h, A, b, sw, eq_off, unit_eq, C, d, wi, in_off, tol, rank_tol,
         feas_tol, slack_tol, mult_tol, closed_form, working_set_step, methods, X, e_all, v_all, free, seconds,
         residuals, clock)
-    fout[:n] = x
-    r = N.shape[1] if has_N else n
-    violation = _max_violation(G, x, h, -np.inf) if m_hard else 0.0
-    return stop, r, violation, tol, fout, iout
+    out[o: o + n] = x
+    out[0] = stop
+    out[1] = N.shape[1] if has_N else n
+    out[2] = _max_violation(G, x, h, -np.inf) if m_hard else 0.0
+    out[3] = tol
+    for k in range(2 * p):
+        out[f_end + k] = ints[k]
+    for k in range(p + 1):
+        out[f_end + 2 * p + k] = eq_off[k]
+        out[f_end + 3 * p + 1 + k] = in_off[k]
+    return out
 
 
 @nb.njit(cache=True)

@@ -1370,23 +1370,26 @@ class _KernelResult(HierarchyResult):
         self.__dict__.update(fields, _per_level=per_level)
 
     @classmethod
-    def from_kernel(cls, fout, iout, n: int, p: int, solver: str, t_start: float) -> _KernelResult:
-        """From the packed outputs of :func:`controllers._hqp_kernels.solve_stack_fast` (``fout`` read-only)."""
+    def from_kernel(cls, out, n: int, p: int, solver: str, t_start: float) -> _KernelResult:
+        """From the output of :func:`controllers._hqp_kernels.solve_stack_fast` (``out`` read-only)."""
         self = object.__new__(cls)
-        self.__dict__.update(x=fout[:n], level_residuals=fout[n: n + p], level_times_s=fout[n + p: n + 2 * p],
-                             found=True, solver=solver, qp_solves=0, _raw=(fout, iout, n, p),
-                             solve_time_s=time.perf_counter() - t_start)
+        o = _kernels.OUT_HEADER
+        self.__dict__.update(x=out[o: o + n], level_residuals=out[o + n: o + n + p],
+                             level_times_s=out[o + n + p: o + n + 2 * p], found=True, solver=solver, qp_solves=0,
+                             _raw=(out, n, p), solve_time_s=time.perf_counter() - t_start)
         return self
 
     def _per_level_fields(self) -> dict:
         d = self.__dict__
         if "_per_level" not in d:
-            fout, iout, n, p = d["_raw"]
-            o = n + 2 * p
-            X = fout[o: o + p * n].reshape(p, n)
-            codes, free, eo, io = iout[:p].tolist(), iout[p: 2 * p], iout[2 * p: 3 * p + 1], iout[3 * p + 1:]
-            e_all = fout[o + p * n: o + p * n + eo[-1]]
-            v_all = fout[o + p * n + eo[-1]:]
+            out, n, p = d["_raw"]
+            o = _kernels.OUT_HEADER + n + 2 * p
+            X = out[o: o + p * n].reshape(p, n)
+            o += p * n
+            ints = out[len(out) - (4 * p + 2):].astype(np.int64)
+            codes, free, eo, io = ints[:p].tolist(), ints[p: 2 * p], ints[2 * p: 3 * p + 1], ints[3 * p + 1:]
+            e_all = out[o: o + eo[-1]]
+            v_all = out[o + eo[-1]: o + eo[-1] + io[-1]]
             eo, io, methods = eo.tolist(), io.tolist(), _kernels.METHODS
             d["_per_level"] = {
                 "level_slacks": tuple([(e_all[eo[k]: eo[k + 1]], v_all[io[k]: io[k + 1]]) for k in range(p)]),
@@ -1502,12 +1505,14 @@ class HierarchySolver:
         with ``A``, ``C``, ``G`` and ``h`` C-ordered, writable float64 (as the controller's own buffers are)."""
         p = len(stack.names)
         if self._fast and p:
-            stop, r, violation, tol, fout, iout = _kernels.solve_stack_fast(
+            out = _kernels.solve_stack_fast(
                 G, h, stack.A, stack.b, stack.sw, stack.eq_off, stack.unit_eq, stack.C, stack.d, stack.wi,
                 stack.in_off, *self._kernel_params, self._clock)
-            if stop == p and (r == 0 or self.regularization == 0.0) and violation <= tol:
-                fout.flags.writeable = False  # and so every view of it in the result
-                return _KernelResult.from_kernel(fout, iout, self.n, p, self.solver_name, t_start)
+            # out[:4]: the first level that needs the QP backend, the freedom left, the largest violation of the
+            # hard rows and its tolerance
+            if out[0] == p and (out[1] == 0.0 or self.regularization == 0.0) and out[2] <= out[3]:
+                out.flags.writeable = False  # and so every view of it in the result
+                return _KernelResult.from_kernel(out, self.n, p, self.solver_name, t_start)
         n = self.n
         hard = Level.unchecked(ineq=[(G, h, 1.0)], name=name)
         return solve_hierarchy(stack, n, self.solver, hard=hard, regularization=self.regularization,
