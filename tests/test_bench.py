@@ -127,6 +127,7 @@ def test_every_chain_gets_the_torque_to_hold_its_own_weight(tmp_path, joints):
     ({"compare_ticks": 0}, "compare_ticks"),
     ({"chain_joints": (7, 0)}, "chain_joints"),
     ({"sweep_subjects": ()}, "sweep_subjects"),
+    ({"sweep_repeats": 0}, "sweep_repeats"),
 ])
 def test_bad_bench_parameters_name_the_field(kwargs, field):
     with pytest.raises(ParameterError, match=f"BenchParams.{field}"):
