@@ -184,7 +184,12 @@ def _baseline_key(case: SweepCase) -> tuple:
 def _start_method() -> str:
     """``fork`` on Linux: a worker starts as a copy of this process, with every module already imported
     (about a second per worker saved); ``spawn`` elsewhere, where forking a process that has loaded system
-    frameworks is unsafe (macOS) or impossible (Windows)."""
+    frameworks is unsafe (macOS) or impossible (Windows).
+
+    :func:`_local` forks before it starts any thread of its own. Python 3.12 and later still warn
+    (``DeprecationWarning``, hidden by default) because numpy's OpenBLAS keeps a thread pool; OpenBLAS
+    resets it in the child with its own fork handlers, and the child runs no thread of the parent.
+    """
     return "fork" if sys.platform.startswith("linux") else "spawn"
 
 
