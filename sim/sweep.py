@@ -188,7 +188,8 @@ def _start_method() -> str:
 
     :func:`_local` forks before it starts any thread of its own. Python 3.12 and later still warn
     (``DeprecationWarning``, hidden by default) because numpy's OpenBLAS keeps a thread pool; OpenBLAS
-    resets it in the child with its own fork handlers, and the child runs no thread of the parent.
+    registers a fork handler when it loads (``openblas_fork_handler``, driver/others/memory.c of its
+    source) that shuts the pool down before a fork, and starts it again when next needed.
     """
     return "fork" if sys.platform.startswith("linux") else "spawn"
 
