@@ -58,8 +58,9 @@ def test_sweep_same_numbers_with_one_or_two_jobs_and_a_table_per_subject(tiny, t
     args = (tiny, ["gravity", "transparent"], ["f5", "m95"], 2)
     a = run_sweep(*args, out_dir=tmp_path / "j1", jobs=1)
     b = run_sweep(*args, out_dir=tmp_path / "j2", jobs=2)
-    assert not a.failed and not b.failed and len(a.results) == 8
-    assert _numbers(a) == _numbers(b)
+    c = run_sweep(*args, out_dir=tmp_path / "j3", jobs=3)  # two workers, each driven by its own thread
+    assert not a.failed and not b.failed and not c.failed and len(a.results) == len(c.results) == 8
+    assert _numbers(a) == _numbers(b) == _numbers(c)
     summary = list(csv.DictReader((tmp_path / "j2" / "summary.csv").open()))
     assert {(r["controller"], r["subject"]) for r in summary} == {
         (c, s) for c in ("gravity", "transparent") for s in ("all", "f5", "m95")}
