@@ -358,8 +358,8 @@ def warm_up(scenario: Scenario, controller_name: str) -> float:
     if key in _WARMED:
         return 0.0
     t0 = time.perf_counter()
-    short = dataclasses.replace(scenario, duration_s=WARM_UP_TICKS * scenario.control_period_s)
     try:
+        short = dataclasses.replace(scenario, duration_s=WARM_UP_TICKS * scenario.control_period_s)
         with tempfile.TemporaryDirectory(prefix="exosandbox-warm-up-") as tmp:
             simulate(short, controller_name, Path(tmp) / "run")
     except Exception:  # the real run reports it
