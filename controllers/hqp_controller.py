@@ -183,6 +183,25 @@ class HQPController(Controller):
         self.last_fallback_reason = None
         self._diag = dict.fromkeys(self.diagnostic_names(), 0.0)
         self._level_keys = [(f"residual_{i}", f"level_{i}_time_s") for i in range(len(self.levels))]
+        self._preload()
+
+    def _preload(self) -> None:
+        """Load now the compiled kernels of the rare ticks on which a level needs the QP backend.
+
+        Those ticks go through :func:`~controllers.hqp.solve_hierarchy`'s compiled path
+        (``solve_levels_fast``), which numba would otherwise load inside the first such tick, typically the first
+        wall contact: about 0.1 s, or a minute right after installing, a stall no control loop may take. An empty
+        stack in the controller's own buffers, above its torque-limit rows, makes the same calls with the same
+        argument types (checked by the tests) and changes no state of the controller.
+        """
+        if not self.eliminate_torque:  # that path calls solve_hierarchy on every tick: its first tick loads them
+            return
+        buf, p = self._buf, len(self.levels) + 1
+        eq_off, in_off = np.zeros_like(buf.eq_off), np.zeros_like(buf.in_off)
+        stack = LevelStack.from_arrays(buf.A[:0], buf.b[:0], buf.sw[:0], eq_off, buf.unit_eq, buf.C[:0], buf.d[:0],
+                                       buf.wi[:0], in_off, buf.cols, self._stack_names, [([], [])] * p)
+        self._hqp._solve_owned(stack, np.zeros_like(self._G), np.zeros_like(self._h), "torque limits", None,
+                               time.perf_counter())
 
     @property
     def last_result(self):

@@ -75,3 +75,42 @@ def test_a_warm_up_that_fails_is_silent_and_the_run_reports_the_error(fresh, mon
         simulate_module.run_scenario(sc, "gravity", fresh / "out", report=False)
     monkeypatch.setattr(simulate_module, "simulate", simulate)
     assert simulate_module.warm_up(sc, "gravity") > 0.0 and ("warm", "gravity") in simulate_module._WARMED
+
+
+def test_a_controller_loads_at_reset_the_kernel_of_its_rare_qp_ticks_with_their_argument_types(tmp_path,
+                                                                                                monkeypatch):
+    # a tick on which a level needs the QP backend goes through solve_hierarchy's compiled path; the controller
+    # makes that call at reset (an empty stack in its own buffers), with exactly the argument types of the real
+    # ticks, so the first wall contact does not wait for numba to load (or compile) the kernel
+    import dataclasses
+    from pathlib import Path
+
+    import numba
+    import numpy as np
+
+    from controllers import _hqp_kernels
+    from controllers.registry import make_controller
+    from sim.bench import _context_and_measurements
+
+    calls = []
+    real = _hqp_kernels.solve_levels_fast
+
+    def recording(*args):
+        calls.append(tuple(numba.typeof(a) for a in args))
+        return real(*args)
+
+    monkeypatch.setattr(_hqp_kernels, "solve_levels_fast", recording)
+    wall_push = Path(__file__).resolve().parents[1] / "scenarios" / "wall_push.py"
+    sc = dataclasses.replace(load_scenario(wall_push), duration_s=1.3)  # the hand meets the wall at about 1.18 s
+    simulate_module.simulate(sc, "walls", tmp_path / "run")
+    assert len(calls) >= 2, "expected the reset's call and at least one tick that needed the QP backend"
+    assert all(c == calls[0] for c in calls[1:])
+    # the reset's call changes nothing: the same torques, to the bit, as a controller that skips it
+    context, meas = _context_and_measurements(sc, tmp_path / "run")
+    with_preload = make_controller("walls", sc.variants, sc.walls)
+    with_preload.reset(context)
+    tau = np.array([with_preload.step(m) for m in meas])
+    without = make_controller("walls", sc.variants, sc.walls)
+    monkeypatch.setattr(type(without), "_preload", lambda self: None)
+    without.reset(context)
+    assert np.array_equal(tau, np.array([without.step(m) for m in meas]))
