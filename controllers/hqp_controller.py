@@ -192,7 +192,8 @@ class HQPController(Controller):
         (``solve_levels_fast``), which numba would otherwise load inside the first such tick, typically the first
         wall contact: about 0.1 s, or a minute right after installing, a stall no control loop may take. An empty
         stack in the controller's own buffers, above its torque-limit rows, makes the same calls with the same
-        argument types (checked by the tests) and changes no state of the controller.
+        argument types (checked by the tests) and changes no state of the controller. Best effort: should that
+        trivial solve fail, the reset goes on, and a tick that fails later falls back as any failed tick does.
         """
         if not self.eliminate_torque:  # that path calls solve_hierarchy on every tick: its first tick loads them
             return
@@ -200,8 +201,11 @@ class HQPController(Controller):
         eq_off, in_off = np.zeros_like(buf.eq_off), np.zeros_like(buf.in_off)
         stack = LevelStack.from_arrays(buf.A[:0], buf.b[:0], buf.sw[:0], eq_off, buf.unit_eq, buf.C[:0], buf.d[:0],
                                        buf.wi[:0], in_off, buf.cols, self._stack_names, [([], [])] * p)
-        self._hqp._solve_owned(stack, np.zeros_like(self._G), np.zeros_like(self._h), "torque limits", None,
-                               time.perf_counter())
+        try:
+            self._hqp._solve_owned(stack, np.zeros_like(self._G), np.zeros_like(self._h), "torque limits", None,
+                                   time.perf_counter())
+        except (SandboxError, np.linalg.LinAlgError) as e:  # the errors step() turns into a fallback
+            _log.debug("controller %s: the reset's preload solve failed: %s", self.name, e)
 
     @property
     def last_result(self):

@@ -114,3 +114,24 @@ def test_a_controller_loads_at_reset_the_kernel_of_its_rare_qp_ticks_with_their_
     monkeypatch.setattr(type(without), "_preload", lambda self: None)
     without.reset(context)
     assert np.array_equal(tau, np.array([without.step(m) for m in meas]))
+
+
+def test_a_preload_that_fails_does_not_stop_the_reset(monkeypatch):
+    # the preload is best effort: a failure of its trivial solve leaves the controller usable
+    from pathlib import Path
+
+    from controllers.hqp import HierarchySolver, QPSolveError
+    from controllers.registry import make_controller
+    from sim.simulate import build_assembly, controller_context
+
+    sc = load_scenario(Path(__file__).resolve().parents[1] / "scenarios" / "wall_push.py")
+    context = controller_context(build_assembly(sc), sc.control_period_s)
+
+    def failing(self, *args):
+        raise QPSolveError("backend failed")
+
+    ctrl = make_controller("walls", sc.variants, sc.walls)
+    with monkeypatch.context() as m:
+        m.setattr(HierarchySolver, "_solve_owned", failing)
+        ctrl.reset(context)  # no exception
+    assert ctrl.fallback_count == 0 and ctrl.last_result is None
