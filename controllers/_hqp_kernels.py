@@ -259,9 +259,24 @@ def _svd_right(P):
                     V[j, k] = sn * vi + cs * vj
         if not rotated:
             break
-    s = np.sqrt((Wc**2).sum(axis=1))
+    # the column norms, summed in index order, then (s, V, P V) in decreasing s, written in place: each
+    # temporary is a heap allocation, and these are most of what a 7-column call allocates
+    s = np.empty(r)
+    for j in range(r):
+        acc = 0.0
+        for k in range(m):
+            acc += Wc[j, k] * Wc[j, k]
+        s[j] = np.sqrt(acc)
     order = np.argsort(-s)
-    return s[order], np.ascontiguousarray(V[order].T), np.ascontiguousarray(Wc[order].T)
+    s_sorted, V_sorted, PV = np.empty(r), np.empty((r, r)), np.empty((m, r))
+    for c in range(r):
+        o = order[c]
+        s_sorted[c] = s[o]
+        for k in range(r):
+            V_sorted[k, c] = V[o, k]
+        for k in range(m):
+            PV[k, c] = Wc[o, k]
+    return s_sorted, V_sorted, PV
 
 
 @nb.njit(cache=True)
