@@ -1370,13 +1370,14 @@ class _KernelResult(HierarchyResult):
         self.__dict__.update(fields, _per_level=per_level)
 
     @classmethod
-    def from_kernel(cls, out, n: int, p: int, solver: str, t_start: float) -> _KernelResult:
-        """From the output of :func:`controllers._hqp_kernels.solve_stack_fast` (``out`` read-only)."""
+    def from_kernel(cls, out, n: int, p: int, solver: str, solve_time_s: float) -> _KernelResult:
+        """From the output of :func:`controllers._hqp_kernels.solve_stack_fast` (``out`` read-only) and the wall
+        time of the solve [s]."""
         self = object.__new__(cls)
         o = _kernels.OUT_HEADER
         self.__dict__.update(x=out[o: o + n], level_residuals=out[o + n: o + n + p],
                              level_times_s=out[o + n + p: o + n + 2 * p], found=True, solver=solver, qp_solves=0,
-                             _raw=(out, n, p), solve_time_s=time.perf_counter() - t_start)
+                             _raw=(out, n, p), solve_time_s=solve_time_s)
         return self
 
     def _per_level_fields(self) -> dict:
@@ -1503,6 +1504,18 @@ class HierarchySolver:
                      t_start: float) -> HierarchyResult:
         """:meth:`solve` without its checks, for a caller whose arrays are known good: ``stack`` of ``n`` columns
         with ``A``, ``C``, ``G`` and ``h`` C-ordered, writable float64 (as the controller's own buffers are)."""
+        out = self._solve_kernel(stack, G, h)
+        if out is not None:
+            return self._kernel_result(out, len(stack.names), time.perf_counter() - t_start)
+        return self._solve_backend(stack, G, h, name, warm_start)
+
+    def _solve_kernel(self, stack: LevelStack, G: np.ndarray, h: np.ndarray) -> np.ndarray | None:
+        """The output of :func:`controllers._hqp_kernels.solve_stack_fast` when the compiled kernel solved the
+        hierarchy whole (every level, no freedom left for the minimum-norm level unless it is off, the hard rows
+        held), else None; the arguments as for :meth:`_solve_owned`.
+
+        For a caller that reads a few numbers of every tick's result and builds the result record only when
+        asked (:meth:`_KernelResult.from_kernel`): building it costs a few microseconds a tick."""
         p = len(stack.names)
         if self._fast and p:
             out = _kernels.solve_stack_fast(
@@ -1511,9 +1524,19 @@ class HierarchySolver:
             # out[:4]: the first level that needs the QP backend, the freedom left, the largest violation of the
             # hard rows and its tolerance
             if out[0] == p and (out[1] == 0.0 or self.regularization == 0.0) and out[2] <= out[3]:
-                out.flags.writeable = False  # and so every view of it in the result
-                return _KernelResult.from_kernel(out, self.n, p, self.solver_name, t_start)
-        n = self.n
+                return out
+        return None
+
+    def _kernel_result(self, out: np.ndarray, p: int, solve_time_s: float) -> HierarchyResult:
+        """The result record of a :meth:`_solve_kernel` output ``out`` of ``p`` levels, solved in
+        ``solve_time_s`` [s] (the output becomes read-only: the record's arrays are views of it)."""
+        out.flags.writeable = False
+        return _KernelResult.from_kernel(out, self.n, p, self.solver_name, solve_time_s)
+
+    def _solve_backend(self, stack: LevelStack, G: np.ndarray, h: np.ndarray, name: str,
+                       warm_start) -> HierarchyResult:
+        """:func:`solve_hierarchy` of ``stack`` above the hard rows ``G x <= h`` (named ``name``): every case the
+        kernel does not finish (:meth:`_solve_kernel`)."""
         hard = Level.unchecked(ineq=[(G, h, 1.0)], name=name)
-        return solve_hierarchy(stack, n, self.solver, hard=hard, regularization=self.regularization,
+        return solve_hierarchy(stack, self.n, self.solver, hard=hard, regularization=self.regularization,
                                warm_start=warm_start, params=self.params)

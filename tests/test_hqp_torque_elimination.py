@@ -180,3 +180,43 @@ def test_constant_rows_kept_in_place_follow_a_task_that_comes_and_goes():
     ctrl = _follows_cvxpy(lambda: [[JointVelocityLimits()], [EveryOtherTick(), JointDamping(weight=0.2)],
                                    [Transparency()], [JointDamping()]], seed=17, ticks=8)
     assert ctrl.levels[1][0].ticks == 8
+
+
+def test_the_result_read_after_a_tick_is_the_solvers_result_of_that_ticks_stack(monkeypatch):
+    # The controller builds a tick's result record only when last_result is read. A check of mechanism: the
+    # record must be the one HierarchySolver.solve gives for the same stack (itself checked against cvxpy
+    # above and in test_hierarchy_solver.py), and the diagnostics must hold its per-level figures.
+    from controllers.hqp import HierarchySolver
+
+    arm, ctx = _context()
+    ctrl = make_controller("walls", walls=WALL)
+    ctrl.reset(ctx)
+    seen = []
+    real = HierarchySolver._solve_kernel
+
+    def recording(self, stack, G, h):
+        out = real(self, stack, G, h)
+        seen.append((stack, G.copy(), h.copy(), out is not None))
+        return out
+
+    monkeypatch.setattr(HierarchySolver, "_solve_kernel", recording)
+    kernel_ticks = 0
+    for m in _states(arm, 12, seed=5):
+        ctrl.step(m)
+        stack, G, h, by_kernel = seen[-1]
+        kernel_ticks += by_kernel
+        got = ctrl.last_result
+        assert ctrl.last_result is got  # built once
+        ref = HierarchySolver(arm.nv, ctrl.solver, params=ctrl.params).solve(stack, G, h, name="torque limits")
+        np.testing.assert_array_equal(got.x, ref.x)
+        np.testing.assert_array_equal(got.level_residuals, ref.level_residuals)
+        assert got.level_methods == ref.level_methods and got.free_dims == ref.free_dims
+        for (e_got, v_got), (e_ref, v_ref) in zip(got.level_slacks, ref.level_slacks):
+            np.testing.assert_array_equal(e_got, e_ref)
+            np.testing.assert_array_equal(v_got, v_ref)
+        assert not got.x.flags.writeable and got.solve_time_s > 0.0
+        d = ctrl.diagnostics()
+        for i in range(len(ctrl.levels)):
+            assert d[f"residual_{i}"] == got.level_residuals[i]
+            assert d[f"level_{i}_time_s"] == got.level_times_s[i]
+    assert kernel_ticks >= 1  # the deferred record was exercised
