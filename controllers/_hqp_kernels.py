@@ -116,9 +116,20 @@ def _proj(M, N, has_N):
 
 @nb.njit(cache=True)
 def _lift(x, z, N, has_N):
-    if has_N:
+    """``x + N @ z`` (``x + z`` without ``N``) as :func:`_mv` sums it, in one new array."""
+    if has_N and N.shape[0] * N.shape[1] > _LOOP_MAX:
         return x + _mv(N, z)
-    return x + z
+    out = np.empty(x.shape[0])
+    if has_N:
+        for i in range(x.shape[0]):
+            acc = 0.0
+            for p in range(z.shape[0]):
+                acc += N[i, p] * z[p]
+            out[i] = x[i] + acc
+    else:
+        for i in range(x.shape[0]):
+            out[i] = x[i] + z[i]
+    return out
 
 
 @nb.njit(cache=True)
@@ -360,14 +371,16 @@ def _concat(p, q):
 def _constraint_rows(x, N, has_N, G, h, rank_tol):
     """``_Solver._qp_constraints`` without bounds: (Gz, hz, Gx), rows made constant by N left out."""
     Gz = _proj(G, N, has_N)
-    hz = h - _mv(G, x)
+    hz = _mv(G, x)  # then h - G x, in place
+    for i in range(hz.shape[0]):
+        hz[i] = h[i] - hz[i]
     if has_N and Gz.shape[0]:
         keep = np.empty(Gz.shape[0], dtype=np.bool_)
         for i in range(Gz.shape[0]):
             keep[i] = _abs_max(Gz[i]) > rank_tol * max(_abs_max(G[i]), 1e-300)
         if not keep.all():
             return _rows(Gz, keep), _entries(hz, keep), _rows(G, keep)
-    return Gz, hz, G.copy()
+    return Gz, hz, G  # Gx is only read
 
 
 @nb.njit(cache=True)
@@ -384,7 +397,9 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
         hz = _concat(d - _mv(C, x), hz)
     if Gz.shape[0] == 0:
         return False, x, none
-    W = _residual(Gz, z_ls, hz) > tol
+    W = np.empty(Gz.shape[0], dtype=np.bool_)  # the rows the least-squares point violates
+    for i in range(Gz.shape[0]):
+        W[i] = _row_dot(Gz, i, z_ls) - hz[i] > tol
     if not W.any():
         return False, x, none
     if n_in:
@@ -416,11 +431,25 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
         kkt = np.inf  # the largest KKT residual of the point found
         if definite:
             HiGT = _mm(Hi, GWT)
-            ok, lam = _spd_solve(_mm(GW, HiGT), _mv(GW, Hig) - hW)
+            rhs = _mv(GW, Hig)  # then GW H^-1 g - hW, in place
+            for i in range(m):
+                rhs[i] -= hW[i]
+            ok, lam = _spd_solve(_mm(GW, HiGT), rhs)
             if ok:
-                z = Hig - _mv(HiGT, lam)
-                # the KKT residual, block by block
-                kkt = max(_abs_max(_mv(H, z) + _mv(GWT, lam) - g), _abs_max(_residual(GW, z, hW)))
+                z = _mv(HiGT, lam)  # then H^-1 g - H^-1 GW^T lam, in place
+                for i in range(r):
+                    z[i] = Hig[i] - z[i]
+                # the KKT residual, block by block: max |H z + GW^T lam - g| and max |GW z - hW|
+                Hz, GTl = _mv(H, z), _mv(GWT, lam)
+                kkt = 0.0  # as _abs_max: a NaN entry is passed over
+                for i in range(r):
+                    e = abs(Hz[i] + GTl[i] - g[i])
+                    if e > kkt:
+                        kkt = e
+                for i in range(m):
+                    e = abs(_row_dot(GW, i, z) - hW[i])
+                    if e > kkt:
+                        kkt = e
         if not ok:
             K = np.zeros((r + m, r + m))
             K[:r, :r] = H
@@ -466,7 +495,10 @@ def _eliminate(rows, N, has_N, rank_tol):
         for j in range(rows.shape[1]):
             unit[i, j] = rows[i, j] / norm
     s, V, _ = _svd_right(_proj(unit, N, has_N))
-    rank = int((s > rank_tol * np.sqrt(unit.shape[0])).sum())
+    thr = rank_tol * np.sqrt(unit.shape[0])
+    rank = 0
+    for j in range(s.shape[0]):
+        rank += s[j] > thr
     V2 = np.ascontiguousarray(V[:, rank:])
     if has_N:
         return _mm(N, V2), True
@@ -495,25 +527,38 @@ def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, 
     n = x.shape[0]
     n_eq, n_in = A.shape[0], C.shape[0]
     r = N.shape[1] if has_N else n
-    z_ls = np.zeros(r)
     rank = 0
-    V1, s1, c1, V2 = np.zeros((r, 0)), np.zeros(0), np.zeros(0), np.zeros((r, 0))
     if n_eq:
         # W^1/2 A N = U S V^T, truncated at the rank: the cost is 1/2 ||S1 V1^T z - c1||^2 + const
-        err = b - _mv(A, x)
+        # (the products and sums below run in index order, as the array expressions they replace, without their
+        # temporaries)
+        err = _mv(A, x)  # then W^1/2 (b - A x), in place
+        for i in range(n_eq):
+            err[i] = b[i] - err[i]
         if unit_eq:
             Aw = A
         else:
             Aw = A * sw.reshape(-1, 1)
-            err = sw * err
+            for i in range(n_eq):
+                err[i] = sw[i] * err[i]
         s, V, PV = _svd_right(_proj(Aw, N, has_N))
-        thr = rank_tol * np.sqrt((Aw**2).sum())
-        rank = int((s > thr).sum())
+        sq = 0.0
+        for i in range(n_eq):
+            for j in range(n):
+                sq += Aw[i, j] * Aw[i, j]
+        thr = rank_tol * np.sqrt(sq)
+        for j in range(s.shape[0]):
+            rank += s[j] > thr
         V1 = np.ascontiguousarray(V[:, :rank])
         s1 = s[:rank].copy()
         V2 = np.ascontiguousarray(V[:, rank:])
-        c1 = _mv(PV[:, :rank].T, err) / s1  # U1^T err, U1 = P V1 / s1
+        c1 = _mv(PV[:, :rank].T, err)  # U1^T err, U1 = P V1 / s1
+        for j in range(rank):
+            c1[j] /= s1[j]
         z_ls = _mv(V1, c1 / s1)
+    else:
+        z_ls = np.zeros(r)
+        V1, s1, c1, V2 = np.zeros((r, 0)), np.zeros(0), np.zeros(0), np.zeros((r, 0))
     x_ls = _lift(x, z_ls, N, has_N)
     active = np.zeros((0, n))
     feasible = closed_form and _max_violation(G, x_ls, h, 0.0) <= tol
@@ -603,8 +648,11 @@ def solve_levels_fast(start, end, timed, x, N, has_N, G, h, A, b, sw, eq_off, un
             method = EMPTY
         elif r == 0:
             method = NO_FREEDOM
-            e_all[eq_off[k]: eq_off[k + 1]] = _residual(Ak, x, bk)
-            v_all[in_off[k]: in_off[k + 1]] = np.maximum(_residual(Ck, x, dk), 0.0)
+            for i in range(Ak.shape[0]):  # the slacks A x - b and max(C x - d, 0), as _residual and np.maximum
+                e_all[eq_off[k] + i] = _row_dot(Ak, i, x) - bk[i]
+            for i in range(Ck.shape[0]):
+                vi = _row_dot(Ck, i, x) - dk[i]
+                v_all[in_off[k] + i] = vi if vi >= 0.0 or vi != vi else 0.0
         else:
             method, x2, N2, has_N2, G2, h2, e, v = solve_level_fast(
                 x, N, has_N, G, h, Ak, bk, swk, unit_eq[k], Ck, dk, tol, rank_tol, feas_tol, slack_tol, mult_tol,

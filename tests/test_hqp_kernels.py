@@ -105,3 +105,13 @@ def test_small_products_match_numpy(m, k, n):
     np.testing.assert_allclose(kernels._mv(A, x), A @ x, rtol=0, atol=1e-14 * scale)
     np.testing.assert_allclose(kernels._mv(np.asfortranarray(A), x), A @ x, rtol=0, atol=1e-14 * scale)
     assert kernels._mm(A, B).shape == (m, n) and kernels._mv(A, x).shape == (m,)
+
+
+@pytest.mark.parametrize(("n", "r"), [(7, 0), (7, 6), (28, 28), (80, 70)])
+def test_lift_is_x_plus_n_z_as_numpy_computes_it(n, r):
+    # reference: numpy, x + N @ z; the last size is past the loop limit and goes through _mv's BLAS call
+    rng = np.random.default_rng(n + r)
+    x, N, z = rng.standard_normal(n), rng.standard_normal((n, r)), rng.standard_normal(r)
+    np.testing.assert_allclose(kernels._lift(x, z, N, True), x + N @ z, rtol=0, atol=1e-14 * (1.0 + np.sqrt(r)))
+    if r == n:  # the whole space free (no basis): x + z
+        np.testing.assert_array_equal(kernels._lift(x, z, N, False), x + z)
