@@ -473,6 +473,45 @@ def test_chunks_are_written_off_the_calling_thread_one_at_a_time(tmp_path, monke
     assert np.array_equal(load_run(tmp_path / "run")["cuff_wrench_true"], _stacked(ticks)["cuff_wrench_true"])
 
 
+def test_append_yields_the_gil_once_a_tick_only_while_a_chunk_is_being_written(tmp_path, monkeypatch):
+    # A check of mechanism (no outside reference applies): while the writer thread has a chunk, every append
+    # releases the GIL once (time.sleep(0)) so that the writer can take it; before and after, appends do not.
+    import threading
+
+    import sim.runlog as runlog
+
+    release, started = threading.Event(), threading.Event()
+    write = runlog._write_chunk_file
+
+    def held_write(*args):
+        started.set()
+        release.wait(10.0)
+        write(*args)
+
+    sleeps = []
+    monkeypatch.setattr(runlog, "_write_chunk_file", held_write)
+    monkeypatch.setattr(runlog.time, "sleep", lambda s: sleeps.append(s))
+    ticks = _ticks(30)
+    with RunLog(tmp_path / "run", COLUMNS, chunk_ticks=10) as log:
+        for tick in ticks[:10]:  # the first chunk fills; no chunk in flight yet
+            log.append(**tick)
+        assert sleeps == []
+        log.append(**ticks[10])  # the 10th append handed the chunk over: it is now being written
+        assert started.wait(10.0)
+        for tick in ticks[11:15]:
+            log.append(**tick)
+        assert sleeps == [0, 0, 0, 0, 0]  # one yield per append while the chunk is held
+        release.set()
+        log._job._thread.join(10.0)  # the write ends (the next hand-over collects it as usual)
+        assert log._job.done
+        for tick in ticks[15:19]:
+            log.append(**tick)
+        assert sleeps == [0] * 5  # no yield once it is written
+        for tick in ticks[19:]:
+            log.append(**tick)
+    assert np.array_equal(load_run(tmp_path / "run")["q_exo"], _stacked(ticks)["q_exo"])
+
+
 def test_failed_chunk_write_is_raised_in_the_caller_and_written_again(tmp_path):
     log = RunLog(tmp_path / "run", {"t": ()}, chunk_ticks=2)
     log_dir = tmp_path / "run" / "log"
