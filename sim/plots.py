@@ -133,7 +133,8 @@ def sweep_bars(rows: Sequence[Mapping], key: str, path: Path, *, ylabel: str, ti
     controllers = list(dict.fromkeys(r["controller"] for r in rows))
     subjects = list(dict.fromkeys(r["subject"] for r in rows))
     by = {(r["controller"], r["subject"]): r for r in rows}
-    fig, ax = plt.subplots(figsize=(max(5.0, 1.1 * len(subjects) * max(1, len(controllers)) * 0.5 + 2), 3.8))
+    width_in, height_in = max(5.0, 1.1 * len(subjects) * max(1, len(controllers)) * 0.5 + 2), 3.8
+    fig, ax = plt.subplots(figsize=(width_in, height_in))
     width = 0.8 / max(1, len(controllers))
     for j, c in enumerate(controllers):
         m = [by.get((c, s), {}).get(f"{key}_mean") for s in subjects]
@@ -144,7 +145,10 @@ def sweep_bars(rows: Sequence[Mapping], key: str, path: Path, *, ylabel: str, ti
     ax.set_xticks(range(len(subjects)), subjects)
     ax.axhline(0.0, color="k", lw=0.8)
     ax.set_ylabel(ylabel)
-    ax.set_title(title)
+    ax.set_title(title, fontsize=10)
+    ax.ticklabel_format(axis="y", style="sci", scilimits=(-3, 4))  # short tick labels: they fit the fixed margin
     ax.legend(fontsize=8)
     ax.grid(axis="y", alpha=0.3)
-    return _save(fig, path)
+    # fixed margins in inches (the y label and its ticks, the subjects, a title of up to two lines): no second
+    # drawing for the layout
+    return _save(fig, path, margins=(0.95 / width_in, 0.4 / height_in, 1 - 0.15 / width_in, 1 - 0.55 / height_in))

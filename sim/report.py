@@ -330,7 +330,7 @@ def write_sweep_report(result, settings: Mapping) -> Path:
         if k in keys:
             figs.append(plots.sweep_bars(summary, k, out / "plots" / f"{k}.png",
                                          ylabel=f"{METRICS[k].label} [{METRICS[k].unit}]",
-                                         title=f"{METRICS[k].label}: mean ± std (all: over subjects and seeds)"))
+                                         title=f"{METRICS[k].label}\nmean ± std (all: over subjects and seeds)"))
     failed = result.failed
     text = [f"# Sweep report: {Path(settings['scenario']).name}", "",
             f"Controllers {', '.join(settings['controllers'])}; subjects {', '.join(settings['subjects'])}; "
