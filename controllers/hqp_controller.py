@@ -387,7 +387,9 @@ class HQPController(Controller):
                     x = out[OUT_HEADER: OUT_HEADER + n]
                 else:
                     res = self._hqp._solve_backend(stack, G, h, "torque limits", self.last_result)
-                    x = res.x
+                    # a writable copy, as the kernel's output is: a read-only x would make numba load (or
+                    # compile) another clipped_torque inside the first such tick
+                    x = res.x.copy()
                 tau, finite = clipped_torque(M, x, c, self._tau_max)
                 if not finite:
                     raise SandboxError("the solver returned non-finite torques")

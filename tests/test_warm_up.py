@@ -99,12 +99,26 @@ def test_a_controller_loads_at_reset_the_kernel_of_its_rare_qp_ticks_with_their_
         calls.append(tuple(numba.typeof(a) for a in args))
         return real(*args)
 
+    # and the torque read back: every tick, those solved by the kernel and those by the backend alike, hands
+    # clipped_torque the same argument types (one compiled signature, loaded by the first tick)
+    from controllers import hqp_controller
+
+    clip_calls = []
+    real_clip = hqp_controller.clipped_torque
+
+    def recording_clip(*args):
+        clip_calls.append(tuple(numba.typeof(a) for a in args))
+        return real_clip(*args)
+
+    monkeypatch.setattr(hqp_controller, "clipped_torque", recording_clip)
+
     monkeypatch.setattr(_hqp_kernels, "solve_levels_fast", recording)
     wall_push = Path(__file__).resolve().parents[1] / "scenarios" / "wall_push.py"
     sc = dataclasses.replace(load_scenario(wall_push), duration_s=1.3)  # the hand meets the wall at about 1.18 s
     simulate_module.simulate(sc, "walls", tmp_path / "run")
     assert len(calls) >= 2, "expected the reset's call and at least one tick that needed the QP backend"
     assert all(c == calls[0] for c in calls[1:])
+    assert len(clip_calls) == sc.n_ticks and all(c == clip_calls[0] for c in clip_calls[1:])
     # the reset's call changes nothing: the same torques, to the bit, as a controller that skips it
     context, meas = _context_and_measurements(sc, tmp_path / "run")
     with_preload = make_controller("walls", sc.variants, sc.walls)
