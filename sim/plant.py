@@ -340,9 +340,12 @@ class CoupledPlant:
         friction = self.params.exo_friction
         smoothing = self.params.coulomb_smoothing_rad_s
         aba, integrate = pin.aba, pin.integrate
+        cuffs = bool(self.cuffs)
         for _ in range(n_substeps):
             tau = actuator(self.q_exo, self.v_exo, dt_s) if actuator is not None else tau_held
-            if not self._cuffs_fresh:  # also writes the cuff wrenches into the joint-frame forces aba reads
+            # the cuff wrenches, written into the joint-frame forces aba reads, need this substep's kinematics;
+            # without cuffs nothing here reads them (aba does its own): update_cuffs brings them up to date
+            if cuffs and not self._cuffs_fresh:
                 self._refresh_cuffs()
             if has_exo:
                 if friction:  # tau - b v - tau_c tanh(v / v_s) (PlantParams)

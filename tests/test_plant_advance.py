@@ -137,6 +137,26 @@ def test_advance_with_torque_source_actuators_equals_a_by_hand_pinocchio_loop():
     assert np.abs(plant.wrench_on_human).max() > 1.0  # the test saw real cuff forces [N]
 
 
+def test_an_arm_alone_steps_as_a_by_hand_pinocchio_loop_to_the_bit():
+    # reference: pinocchio's aba on a new Data each substep (so no kinematics left from before) and
+    # semi-implicit Euler. With no cuffs the plant skips the kinematics between substeps: aba computes its own.
+    plant = random_plant(8, "human_alone")
+    mh = plant.human.model
+    q, v = plant.q_human.copy(), plant.v_human.copy()
+    tau_h = np.linspace(2.0, -2.0, plant.human.nv)  # [N m]
+    zero = pin.StdVec_Force()
+    for _ in range(mh.njoints):
+        zero.append(pin.Force.Zero())
+    for _ in range(8):
+        a = pin.aba(mh, mh.createData(), q, v, tau_h, zero)
+        v = v + H * a
+        q = pin.integrate(mh, q, v * H)
+    plant.advance(np.zeros(plant.exo.nv), tau_h, H, 4)
+    plant.advance(np.zeros(plant.exo.nv), tau_h, H, 4)
+    np.testing.assert_array_equal(plant.q_human, q)
+    np.testing.assert_array_equal(plant.v_human, v)
+
+
 @pytest.mark.parametrize("bad", [0, -1, 2.0, "4"])
 def test_advance_refuses_a_substep_count_that_is_not_a_positive_integer(bad):
     plant = random_plant(7)
