@@ -116,19 +116,15 @@ def _proj(M, N, has_N):
 
 @nb.njit(cache=True)
 def _lift(x, z, N, has_N):
-    """``x + N @ z`` (``x + z`` without ``N``) as :func:`_mv` sums it, in one new array."""
-    if has_N and N.shape[0] * N.shape[1] > _LOOP_MAX:
-        return x + _mv(N, z)
-    out = np.empty(x.shape[0])
+    """``x + N @ z`` (``x + z`` without ``N``) in one new array: :func:`_mv`'s product, then x added in place."""
     if has_N:
-        for i in range(x.shape[0]):
-            acc = 0.0
-            for p in range(z.shape[0]):
-                acc += N[i, p] * z[p]
-            out[i] = x[i] + acc
-    else:
-        for i in range(x.shape[0]):
-            out[i] = x[i] + z[i]
+        out = _mv(N, z)
+        for i in range(out.shape[0]):
+            out[i] += x[i]
+        return out
+    out = np.empty(x.shape[0])
+    for i in range(x.shape[0]):
+        out[i] = x[i] + z[i]
     return out
 
 

@@ -1351,6 +1351,14 @@ def solve_hierarchy(
     )
 
 
+def _kernel_head(out: np.ndarray, n: int, p: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Views of x (n,), the levels' residuals (p,) and their times (p,) [s] in an output of
+    :func:`controllers._hqp_kernels.solve_stack_fast` (its layout: :data:`~controllers._hqp_kernels.OUT_HEADER`
+    scalars, then these)."""
+    o = _kernels.OUT_HEADER
+    return out[o: o + n], out[o + n: o + n + p], out[o + n + p: o + n + 2 * p]
+
+
 class _KernelResult(HierarchyResult):
     """The :class:`HierarchyResult` of a hierarchy the compiled kernel solved whole.
 
@@ -1374,10 +1382,9 @@ class _KernelResult(HierarchyResult):
         """From the output of :func:`controllers._hqp_kernels.solve_stack_fast` (``out`` read-only) and the wall
         time of the solve [s]."""
         self = object.__new__(cls)
-        o = _kernels.OUT_HEADER
-        self.__dict__.update(x=out[o: o + n], level_residuals=out[o + n: o + n + p],
-                             level_times_s=out[o + n + p: o + n + 2 * p], found=True, solver=solver, qp_solves=0,
-                             _raw=(out, n, p), solve_time_s=solve_time_s)
+        x, residuals, seconds = _kernel_head(out, n, p)
+        self.__dict__.update(x=x, level_residuals=residuals, level_times_s=seconds, found=True, solver=solver,
+                             qp_solves=0, _raw=(out, n, p), solve_time_s=solve_time_s)
         return self
 
     def _per_level_fields(self) -> dict:

@@ -52,10 +52,10 @@ import numpy as np
 from models.errors import ParameterError, SandboxError
 from models.records import Measurement
 
-from ._hqp_kernels import OUT_HEADER, stack_is_finite
+from ._hqp_kernels import stack_is_finite
 from ._torque_kernels import clipped_torque, torque_limit_rows
 from .base import Controller, ControllerContext
-from .hqp import HierarchySolver, HQPParams, Level, LevelStack, solve_hierarchy
+from .hqp import HierarchySolver, HQPParams, Level, LevelStack, _kernel_head, solve_hierarchy
 from .tasks import Task, TickState
 from .tasks import _kernels as _task_kernels
 from .tasks._program import LazyLayout, TaskProgram
@@ -383,8 +383,9 @@ class HQPController(Controller):
                 out = self._hqp._solve_kernel(stack, G, h)
                 if out is not None:  # nearly every tick: the compiled kernel solved every level
                     # the result record is built only if read (last_result), a few µs a tick saved
-                    res = (out, len(stack.names), time.perf_counter() - t_solve)
-                    x = out[OUT_HEADER: OUT_HEADER + n]
+                    p_all = len(stack.names)
+                    res = (out, p_all, time.perf_counter() - t_solve)
+                    x, residuals_all, times_all = _kernel_head(out, n, p_all)
                 else:
                     res = self._hqp._solve_backend(stack, G, h, "torque limits", self.last_result)
                     # a writable copy, as the kernel's output is: a read-only x would make numba load (or
@@ -407,10 +408,8 @@ class HQPController(Controller):
             t_end = time.perf_counter()
             self._prev = res
             fallback = 0.0
-            if type(res) is tuple:  # the kernel's output: x, then every level's residual, then its time
-                p_all = res[1]
-                per_level = out[OUT_HEADER + n: OUT_HEADER + n + 2 * p_all].tolist()
-                residuals, level_times = per_level[:p], per_level[p_all: p_all + p]
+            if type(res) is tuple:  # the kernel's output, read in place
+                residuals, level_times = residuals_all[:p].tolist(), times_all[:p].tolist()
             else:
                 residuals = res.level_residuals[:p].tolist()
                 level_times = res.level_times_s[:p].tolist()
