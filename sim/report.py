@@ -15,8 +15,8 @@ import numpy as np
 
 from .metrics import METRICS, flat_metrics, hand_cuff_index, interaction_force_norm_N, wall_normal_series
 
-__all__ = ["CAUTION", "best_index", "key_info", "comparison_rows", "markdown_table", "write_run_report",
-           "compare_runs", "write_sweep_report"]
+__all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
+           "write_run_report", "compare_runs", "write_sweep_report"]
 
 #: Printed in every report.
 CAUTION = (
@@ -43,13 +43,14 @@ def fmt(v, digits: int = 4) -> str:
     return str(v)
 
 
-def best_index(values: Sequence, better: str | None, commanded: Sequence | None = None) -> int | None:
-    """Index of the better value under ``better`` (see :class:`sim.metrics.MetricInfo`), None if no winner.
+def best_indices(values: Sequence, better: str | None, commanded: Sequence | None = None) -> tuple[int, ...]:
+    """Indices of the values that share the best score under ``better`` (see :class:`sim.metrics.MetricInfo`).
 
-    Missing values never win; a tie (every value equal) has no winner.
+    Missing and non-finite values never win. Empty when there is no winner:
+    fewer than two valid values, or every valid value equal.
     """
     if better is None:
-        return None
+        return ()
     score = []
     for i, v in enumerate(values):
         if v is None or isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
@@ -72,10 +73,23 @@ def best_index(values: Sequence, better: str | None, commanded: Sequence | None 
         else:
             raise ValueError(f"unknown 'better' rule {better!r}")
         score.append(s)
-    valid = [(s, i) for i, s in enumerate(score) if s is not None]
-    if len(valid) < 2 or len({s for s, _ in valid}) == 1:
-        return None
-    return min(valid)[1]
+    valid = [s for s in score if s is not None]
+    if len(valid) < 2 or len(set(valid)) == 1:
+        return ()
+    top = min(valid)
+    return tuple(i for i, s in enumerate(score) if s == top)
+
+
+def best_index(values: Sequence, better: str | None, commanded: Sequence | None = None) -> int | None:
+    """Index of the better value under ``better`` (see :class:`sim.metrics.MetricInfo`), None if no winner.
+
+    Missing values never win; a tie has no winner, whether every value is equal
+    or only the best ones are (two controllers that give the same number, e.g.
+    a wall variant in a scenario without wall contact): :func:`best_indices`
+    names them.
+    """
+    best = best_indices(values, better, commanded)
+    return best[0] if len(best) == 1 else None
 
 
 def key_info(key: str) -> tuple[str, str | None, str]:
@@ -254,25 +268,39 @@ def compare_runs(run_dirs: Sequence[str | Path], out_dir: str | Path, labels: Se
 
 
 def headline(summary: Sequence[Mapping], key: str = "interaction_force_rms_N") -> list[str]:
-    """Sentences saying which controller has the better overall mean of ``key`` and by how much."""
+    """Sentences saying which controller has the better overall mean of ``key`` and by how much.
+
+    Controllers that share the best mean (e.g. a wall variant in a scenario
+    without wall contact gives the same torques as the variant without the
+    wall) are said to be level, and each is then compared with the others.
+    """
     info = METRICS[key]
     overall = [r for r in summary if r["subject"] == "all" and r.get(f"{key}_mean") is not None]
     if len(overall) < 2:
         return []
-    b = best_index([r[f"{key}_mean"] for r in overall], info.better,
-                   [r.get("wall_stiffness_commanded_N_per_m_mean") for r in overall])
-    if b is None:
-        return []
-    best = overall[b]
+    top = best_indices([r[f"{key}_mean"] for r in overall], info.better,
+                       [r.get("wall_stiffness_commanded_N_per_m_mean") for r in overall])
+    bests = [overall[i] for i in top]
+
+    def stat(r: Mapping) -> str:
+        return f"{fmt(r[f'{key}_mean'])} ± {fmt(r[f'{key}_std'], 2)} {info.unit}"
+
     out = []
-    for r in overall:
-        if r is best:
-            continue
-        other, mine = r[f"{key}_mean"], best[f"{key}_mean"]
-        rel = f" ({100 * (mine - other) / abs(other):+.0f} %)" if other else ""
-        out.append(f"`{best['controller']}` is better than `{r['controller']}` on {info.label}: "
-                   f"{fmt(mine)} ± {fmt(best[f'{key}_std'], 2)} {info.unit} against {fmt(other)} ± "
-                   f"{fmt(r[f'{key}_std'], 2)} {info.unit}{rel}, over {best['n_ok']} and {r['n_ok']} runs.")
+    if len(bests) > 1:
+        out.append(" and ".join(f"`{r['controller']}`" for r in bests) + f" are level on {info.label}: "
+                   + " and ".join(stat(r) for r in bests) + ", over "
+                   + " and ".join(str(r["n_ok"]) for r in bests) + " runs.")
+    for best in bests:
+        for r in overall:
+            if any(r is b for b in bests):
+                continue
+            other, mine = r[f"{key}_mean"], best[f"{key}_mean"]
+            rel = ""
+            if other:
+                pct = 100 * (mine - other) / abs(other)
+                rel = f" ({pct:+.0f} %)" if abs(pct) >= 1 else f" ({pct:+.2g} %)"
+            out.append(f"`{best['controller']}` is better than `{r['controller']}` on {info.label}: "
+                       f"{stat(best)} against {stat(r)}{rel}, over {best['n_ok']} and {r['n_ok']} runs.")
     return out
 
 

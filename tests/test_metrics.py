@@ -29,7 +29,7 @@ from sim.metrics import (
     wall_cycle_energy_returned_J,
 )
 from sim.plant import PlantParams
-from sim.report import best_index, comparison_rows
+from sim.report import best_index, best_indices, comparison_rows, headline
 from sim.scenario import load_scenario
 from sim.simulate import evaluate_run, simulate
 
@@ -206,6 +206,30 @@ def test_best_value_rules():
     assert best_index([590.0, 700.0], "commanded", [600.0, 600.0]) == 0
     assert best_index([2.0, 2.0], "lower") is None  # a tie has no winner
     assert best_index([2.0, None], "lower") is None
+
+
+def test_a_shared_best_value_has_no_single_winner():
+    # mechanism check: two variants that give the same number (a wall variant where nothing touches the wall)
+    assert best_index([16.0, 8.4, 8.4], "lower") is None
+    assert best_indices([16.0, 8.4, 8.4], "lower") == (1, 2)
+    assert best_indices([16.0, 8.4, 8.5], "lower") == (1,)
+    assert best_indices([8.4, 8.4], "lower") == ()  # every value equal: no winner at all
+    assert best_indices([float("nan"), 1.0, 1.0, None], "zero") == ()
+
+
+def test_the_sweep_verdict_calls_equal_means_level_and_compares_each_with_the_rest():
+    def row(controller, mean, std):
+        return {"controller": controller, "subject": "all", "n_ok": 4,
+                "interaction_force_rms_N_mean": mean, "interaction_force_rms_N_std": std}
+
+    lines = headline([row("gravity", 16.0, 0.45), row("transparent", 8.434, 0.26), row("walls", 8.434, 0.26)])
+    assert lines[0].startswith("`transparent` and `walls` are level on")
+    assert not any("better than `walls`" in s or "better than `transparent`" in s for s in lines)
+    assert sum("better than `gravity`" in s and "(-47 %)" in s for s in lines) == 2
+    # a difference under one per cent is printed with its digits, not as "+0 %"
+    close = headline([row("a", 8.434, 0.26), row("b", 8.437, 0.26)])
+    assert close == ["`a` is better than `b` on interaction force, RMS: 8.434 ± 0.26 N against 8.437 ± 0.26 N "
+                     "(-0.036 %), over 4 and 4 runs."]
 
 
 def test_comparison_rows_mark_the_better_value_and_keep_per_cuff_keys():
