@@ -72,6 +72,7 @@ Design notes
 
 from __future__ import annotations
 
+import functools
 import json
 import logging
 import math
@@ -912,8 +913,13 @@ def load_run(path: str | os.PathLike[str]) -> Run:
 # ----------------------------------------------------------------------------------------------
 
 
+@functools.cache
 def _module_version(name: str) -> str | None:
-    """Version of the module's distribution from the installed metadata, or of the module itself."""
+    """Version of the module's distribution from the installed metadata, or of the module itself.
+
+    Looked up once per process (about 5 ms for the six modules, most of it for a missing one): the modules a
+    process has imported stay the ones it runs, whatever is installed later.
+    """
     try:
         return str(importlib_metadata.version(_VERSIONED_MODULES[name]))
     except importlib_metadata.PackageNotFoundError:
