@@ -40,6 +40,7 @@ import csv
 import json
 import math
 import os
+import statistics
 import sys
 import time
 import traceback
@@ -479,11 +480,17 @@ def write_csv(path: Path, rows: Sequence[dict]) -> None:
 
 
 def _stats(values: list[float]) -> tuple[float | None, float | None, int]:
-    v = [x for x in values if x is not None and math.isfinite(x)]
+    """Mean, sample standard deviation (ddof = 1) and count of the finite values.
+
+    :func:`statistics.mean` and :func:`statistics.stdev` sum exactly (rational
+    arithmetic), so runs that agree to the bit (seeds that change nothing the
+    controller reads) give their value as the mean and a spread of exactly 0,
+    where numpy's rounded sum can leave ``± 1e-15``.
+    """
+    v = [float(x) for x in values if x is not None and math.isfinite(x)]
     if not v:
         return None, None, 0
-    a = np.asarray(v, dtype=float)
-    return float(a.mean()), float(a.std(ddof=1)) if len(a) > 1 else 0.0, len(a)
+    return float(statistics.mean(v)), float(statistics.stdev(v)) if len(v) > 1 else 0.0, len(v)
 
 
 def summarize(results: Sequence[CaseResult], keys: Sequence[str] | None = None) -> list[dict]:

@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import json
 
+import numpy as np
 import pytest
 from _scenario_files import write_scenario
 
@@ -258,3 +259,23 @@ def test_compare_and_a_one_job_sweep_simulate_one_baseline_per_wearer_and_seed(t
     result = run_sweep(tiny, ["gravity", "transparent"], ["f5", "m95"], 2, out_dir=tmp_path / "sw", jobs=1)
     assert not result.failed and len(result.results) == 8
     assert len(made) == 4  # 2 wearers x 2 seeds
+
+
+def test_the_summary_of_runs_that_agree_to_the_bit_has_their_value_and_no_spread():
+    # 7.827 three times: numpy's rounded sum gives a mean off by one unit in the last place and a standard deviation
+    # of 1.1e-15; the summary sums exactly (Python's statistics module), so the spread is 0 and the mean the value
+    from sim.sweep import CaseResult, SweepCase, summarize
+
+    def result(seed, value):
+        return CaseResult(SweepCase("s.py", "gravity", "m50", seed, f"r{seed}", None),
+                          {"interaction_force_rms_N": value}, None, 1.0)
+
+    same = summarize([result(s, 7.827) for s in range(3)], keys=["interaction_force_rms_N"])
+    for row in same:
+        assert row["interaction_force_rms_N_mean"] == 7.827 and row["interaction_force_rms_N_std"] == 0.0
+    # values that differ: the sample standard deviation (ddof = 1) as numpy computes it (independent reference)
+    values = [7.827, 7.9, 8.25]
+    row = summarize([result(s, v) for s, v in enumerate(values)], keys=["interaction_force_rms_N"])[0]
+    assert row["interaction_force_rms_N_mean"] == pytest.approx(np.mean(values), rel=1e-15)
+    assert row["interaction_force_rms_N_std"] == pytest.approx(np.std(values, ddof=1), rel=1e-14)
+    assert row["n_ok"] == 3 and row["n_failed"] == 0
