@@ -317,7 +317,8 @@ def _moving_average(x: np.ndarray, n: int) -> np.ndarray:
 
 
 def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: float, *,
-                     min_speed_m_s: float = 0.05, smooth_s: float = 0.01) -> float | None:
+                     min_speed_m_s: float = 0.05, smooth_s: float = 0.01,
+                     exclude: np.ndarray | None = None) -> float | None:
     """Felt mass at the hand [kg]: least-squares slope of force on acceleration along the movement.
 
     With :math:`u_k = v_k / \\lVert v_k \\rVert` the movement direction (ticks
@@ -340,7 +341,12 @@ def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: f
     with the posture (a robot left uncompensated) is confounded with inertia on
     paths that go out and back the same way, so :func:`run_metrics` reports
     None when more than half the robot's weight is left to the wearer
-    (``gravity_share_left > 0.5``); inside a wall, the wall's spring counts too.
+    (``gravity_share_left > 0.5``).
+
+    ``exclude`` (bool per tick) leaves ticks out of the fit, and with them every
+    tick within the smoothing window of one: :func:`run_metrics` passes the
+    ticks in contact with a rendered wall, whose spring would otherwise count
+    as (negative) inertia.
     """
     p = np.asarray(p_hand_m, dtype=float)
     f = np.asarray(force_on_human_N, dtype=float)
@@ -352,6 +358,12 @@ def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: f
     a, f = _moving_average(a, n), _moving_average(f, n)
     speed = np.linalg.norm(v, axis=1)
     sel = speed > min_speed_m_s
+    if exclude is not None:
+        ex = np.asarray(exclude, dtype=bool)
+        if ex.shape != (len(p),):
+            raise ValueError(f"exclude must hold one flag per tick, shape ({len(p)},); got shape {ex.shape}")
+        # the moving average (and the differences) carry an excluded tick's force into its neighbours
+        sel &= np.convolve(ex.astype(float), np.ones(2 * n + 3), mode="same") == 0.0
     if np.count_nonzero(sel) < 50:
         return None
     u = v[sel] / speed[sel, None]
@@ -510,12 +522,14 @@ def run_metrics(
     limits_rad: tuple[np.ndarray, np.ndarray] | None = None,
     force_limits_N: Mapping[str, float] | None = None,
     hand_cuff: int | None = None,
+    wall_contact: np.ndarray | None = None,
 ) -> dict:
     """The ``metrics.json`` of a coupled run (keys exactly as documented in the README).
 
     ``robot_terms`` (:func:`robot_interaction_terms`) adds the work and
-    compensation-share keys; ``limits_rad`` the joint-limit keys; the others
-    default as documented.
+    compensation-share keys; ``limits_rad`` the joint-limit keys;
+    ``wall_contact`` (bool per tick: the hand inside a rendered wall) leaves
+    those ticks out of the felt mass; the others default as documented.
     """
     n = len(arrays["t"])
     wall = float(np.sum(tick_times_s))
@@ -539,7 +553,7 @@ def run_metrics(
         "interaction_work_J": None,
         "interaction_power_peak_W": None,
         "apparent_mass_hand_kg": apparent_mass_kg(_derived_column(arrays, "cuff_force_human_world")[:, hand],
-                                                  arrays["p_hand_human"], dt_s),
+                                                  arrays["p_hand_human"], dt_s, exclude=wall_contact),
         "gravity_share_left": None,
         "inertia_share_left": None,
         "human_effort_rms_Nm": effort,

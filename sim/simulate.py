@@ -411,7 +411,7 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     from models.arm import load_arm
 
     from .derived import cuff_columns
-    from .metrics import BODY_REGION_FORCE_LIMITS_N, hand_cuff_index, robot_interaction_terms
+    from .metrics import BODY_REGION_FORCE_LIMITS_N, hand_cuff_index, robot_interaction_terms, wall_normal_series
 
     out = Path(folder)
     run = load_run(out)
@@ -433,9 +433,13 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     terms = robot_interaction_terms(arm, arrays, [models_meta["cuff_frames"][c][0] for c in cuff_names], dt)
     limits = dict(BODY_REGION_FORCE_LIMITS_N) | dict(force_limits_N or {})
     hand = hand_cuff_index(cuff_names, wall.get("sensor", "hand") if wall else "hand")
+    contact = None
+    if wall is not None and wall.get("rendered", True):  # the wall's spring is no inertia: out of the felt mass
+        contact = wall_normal_series(arrays, wall["point_m"], wall["normal"], hand)[0] > 0.0
     metrics = run_metrics(arrays, cuff_names=cuff_names, baseline=base.arrays if base else None, dt_s=dt,
                           tick_times_s=timing.get("tick_time_s", np.zeros(0)), timing=timing, robot_terms=terms,
-                          limits_rad=arm.position_limits(), force_limits_N=limits, hand_cuff=hand)
+                          limits_rad=arm.position_limits(), force_limits_N=limits, hand_cuff=hand,
+                          wall_contact=contact)
     if wall is not None:
         metrics |= wall_metrics(arrays, point_m=wall["point_m"], normal=wall["normal"],
                                 stiffness_N_per_m=wall["stiffness_N_per_m"] if wall.get("rendered", True) else 0.0,

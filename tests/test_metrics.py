@@ -131,6 +131,25 @@ def test_felt_mass_is_not_confused_by_a_felt_weight():
     assert apparent_mass_kg(force_on_human, x[:, None] * u, DT) == pytest.approx(m, rel=0.02)
 
 
+def test_felt_mass_leaves_out_the_ticks_inside_a_wall():
+    # Newton's second law again, with a spring wall 5 cm before the end of the path: inside it the hand also feels
+    # K p against the motion, which a fit over every tick takes for (negative) inertia. Leaving the contact ticks
+    # out gives the mass back.
+    t = np.arange(0, 1.2, DT)
+    x, _, a = _min_jerk(t, 1.0, 0.3)
+    u = np.array([0.6, 0.8, 0.0])
+    m, K, x_wall = 1.2, 600.0, 0.25
+    pen = np.clip(x - x_wall, 0.0, None)
+    force_on_human = -(m * a + K * pen)[:, None] * u
+    inside = pen > 0.0
+    assert 100 < np.count_nonzero(inside) < len(t) // 2
+    with_wall = apparent_mass_kg(force_on_human, x[:, None] * u, DT)
+    assert abs(with_wall - m) > 0.3  # the wall's spring is mistaken for inertia
+    assert apparent_mass_kg(force_on_human, x[:, None] * u, DT, exclude=inside) == pytest.approx(m, rel=0.02)
+    with pytest.raises(ValueError, match="one flag per tick"):
+        apparent_mass_kg(force_on_human, x[:, None] * u, DT, exclude=inside[:-1])
+
+
 def test_compensation_shares_recover_known_mixture():
     rng = np.random.default_rng(3)
     g, mddq = rng.normal(size=(500, 7)), rng.normal(size=(500, 7))
