@@ -291,8 +291,8 @@ def headline(summary: Sequence[Mapping], key: str = "interaction_force_rms_N") -
                    + " and ".join(stat(r) for r in bests) + ", over "
                    + " and ".join(str(r["n_ok"]) for r in bests) + " runs.")
     for best in bests:
-        for r in overall:
-            if any(r is b for b in bests):
+        for i, r in enumerate(overall):
+            if i in top:
                 continue
             other, mine = r[f"{key}_mean"], best[f"{key}_mean"]
             rel = ""

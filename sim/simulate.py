@@ -411,7 +411,7 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     from models.arm import load_arm
 
     from .derived import cuff_columns
-    from .metrics import BODY_REGION_FORCE_LIMITS_N, hand_cuff_index, robot_interaction_terms, wall_normal_series
+    from .metrics import BODY_REGION_FORCE_LIMITS_N, hand_cuff_index, plane_penetration_m, robot_interaction_terms
 
     out = Path(folder)
     run = load_run(out)
@@ -435,7 +435,7 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     hand = hand_cuff_index(cuff_names, wall.get("sensor", "hand") if wall else "hand")
     contact = None
     if wall is not None and wall.get("rendered", True):  # the wall's spring is no inertia: out of the felt mass
-        contact = wall_normal_series(arrays, wall["point_m"], wall["normal"], hand)[0] > 0.0
+        contact = plane_penetration_m(arrays["p_hand_human"], wall["point_m"], wall["normal"]) > 0.0
     metrics = run_metrics(arrays, cuff_names=cuff_names, baseline=base.arrays if base else None, dt_s=dt,
                           tick_times_s=timing.get("tick_time_s", np.zeros(0)), timing=timing, robot_terms=terms,
                           limits_rad=arm.position_limits(), force_limits_N=limits, hand_cuff=hand,
