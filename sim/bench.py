@@ -41,7 +41,12 @@ machines differ).  Cases:
   with one and with two worker processes, alternating, ``sweep_repeats``
   times each (``jobs2_speedup`` = median wall time with 1 / median wall time
   with 2), each in a fresh process whose start-up counts, as for a user's
-  command.
+  command.  Beside each pair, the machine's own two-process speedup on the
+  same kind of run (:class:`TwoWarmProcesses`: one sweep case in one warm
+  process, then in two at once): ``machine_jobs2_speedup``, the ceiling a
+  perfectly parallel sweep would reach on this machine at that moment, and
+  ``jobs2_efficiency``, ``jobs2_speedup`` over it.  On a shared machine the
+  ceiling moves with the other load; the two are compared within one run.
 * **Memory**: peak resident memory of a long run (coupled run, human-alone
   baseline and metrics) measured in a child process with
   :func:`resource.getrusage`, and the size of its log per simulated minute.
@@ -105,6 +110,7 @@ __all__ = [
     "level_stacks",
     "chain_tick_times",
     "sweep_throughput",
+    "TwoWarmProcesses",
     "memory_run",
     "profile_reference",
     "run_bench",
@@ -601,6 +607,8 @@ def compare_backends(scenario: Scenario, folder: str | Path, ticks: int) -> dict
 WARMUP_S = 0.05
 #: Longest instrumented run of the tick breakdown [s].
 BREAKDOWN_MAX_S = 3.0
+#: Measurements of the machine's own two-process speedup beside each pair of sweeps (each about 2 runs long).
+CEILING_MEASURES = 3
 
 #: the row of :func:`compare_backends` with the levels solved in Python instead of the compiled kernel
 PYTHON_LEVELS = "python"
@@ -731,6 +739,94 @@ def _sweep_child(scenario_path: str, controllers: list, subjects: list, seeds: i
     return [c.error for c in result.results if c.error]
 
 
+class TwoWarmProcesses:
+    """Two worker processes, started and warmed up once, that run sweep cases on demand: the machine's own
+    two-process speedup, the ceiling of ``jobs2_speedup``.
+
+    :meth:`measure` times one sweep case (:func:`sim.sweep.run_case`: coupled
+    run, human-alone baseline, metrics and report, ``duration_s`` simulated)
+    in one process alone, ``t1``, then the same case in both processes at
+    once, ``t2``, each on a seed of its own so that no baseline is reused.
+    ``2 t1 / t2`` is the throughput two processes give over one with no
+    start-up, no serial part and no imbalance between them: what a perfectly
+    parallel sweep of these runs would reach on this machine at that moment
+    (2 on two idle cores; less where the two runs share a cache, memory
+    bandwidth or a core with other load).  ``jobs2_speedup`` divided by it is
+    the sweep's own parallel efficiency.
+
+    The processes are spawned (no state shared with this one) and each runs a
+    0.05 s case first, so imports and the compiled kernels' loading are not
+    timed.  Use as a context manager; idle between measurements, they take no
+    CPU time.
+    """
+
+    def __init__(self, scenario_path: str | Path, subject: str, controller: str, duration_s: float,
+                 out_dir: str | Path) -> None:
+        from .sweep import plan_sweep
+
+        self._template = plan_sweep(scenario_path, [controller], [subject], 1, out_dir, duration_s=duration_s)[0]
+        self._out = Path(out_dir).resolve()
+        self._seed = 10_000  # seeds of their own, far from a scenario's, each used once
+        self._workers: list = []
+
+    def _case(self, duration_s: float | None = None):
+        self._seed += 1
+        return dataclasses.replace(self._template, seed=self._seed, folder=str(self._out / f"seed{self._seed}"),
+                                   duration_s=self._template.duration_s if duration_s is None else duration_s)
+
+    def _run(self, workers: Sequence) -> float:
+        """Send each of ``workers`` a case of its own at once; the wall time until the last is back [s]."""
+        from .sweep import run_case
+
+        t0 = time.perf_counter()
+        for _proc, conn in workers:
+            conn.send((run_case, self._case()))
+        errors = [r.error for r in (conn.recv() for _proc, conn in workers) if r.error]
+        wall = time.perf_counter() - t0
+        if errors:
+            raise BenchError(f"parallel ceiling: a run failed: {errors[0]}")
+        return wall
+
+    def __enter__(self) -> TwoWarmProcesses:
+        from .sweep import _serve, run_case
+
+        ctx = multiprocessing.get_context("spawn")
+        try:
+            for _ in range(2):
+                ours, theirs = ctx.Pipe()
+                proc = ctx.Process(target=_serve, args=(theirs,), name="exosandbox-bench-ceiling", daemon=True)
+                proc.start()
+                theirs.close()
+                self._workers.append((proc, ours))
+            for _proc, conn in self._workers:
+                conn.send((run_case, self._case(WARMUP_S)))
+            for _proc, conn in self._workers:
+                conn.recv()
+        except BaseException:
+            self.__exit__(None, None, None)
+            raise
+        return self
+
+    def measure(self) -> dict:
+        """One measurement: ``{"one_s": t1, "two_s": t2, "speedup": 2 t1 / t2}``."""
+        one = self._run(self._workers[:1])
+        two = self._run(self._workers)
+        return {"one_s": one, "two_s": two, "speedup": 2.0 * one / two}
+
+    def __exit__(self, *exc) -> None:
+        for proc, conn in self._workers:
+            try:
+                conn.send(None)
+            except OSError:
+                pass
+            conn.close()
+            proc.join(timeout=10.0)
+            if proc.is_alive():
+                proc.terminate()
+                proc.join()
+        self._workers.clear()
+
+
 def _memory_child(scenario_path: str, duration_s: float, out: str) -> dict:
     scenario = reference_scenario(scenario_path, duration_s)
     run_scenario(scenario, "walls", out)
@@ -835,13 +931,24 @@ def run_bench(scenario_path: str | Path, params: BenchParams | None = None, *, w
         for nj in params.chain_joints:
             report["joints_series"].append(chain_tick_times(nj, params.chain_ticks, work / f"chain{nj}"))
             say(f"joints {nj}: tick {report['joints_series'][-1]['tick_time_median_us']:.0f} us")
-        sweeps = [sweep_throughput(scenario_path, params.sweep_subjects, ("walls", "transparent"), params.sweep_seeds,
-                                   params.sweep_duration_s, work / f"sweep{k}_jobs{j}", j) | {"repeat": k}
-                  for k in range(params.sweep_repeats) for j in (1, 2)]
-        report["sweep"] = sweeps
+        # each repeat: the sweep with one job, with two, then the machine's own two-process speedup on the same
+        # kind of run, so that the ceiling is measured beside (not minutes away from) the figure it bounds
+        sweeps, ceiling = [], []
+        with TwoWarmProcesses(scenario_path, params.sweep_subjects[0], "walls", params.sweep_duration_s,
+                              work / "ceiling") as warm:
+            for k in range(params.sweep_repeats):
+                for j in (1, 2):
+                    sweeps.append(sweep_throughput(scenario_path, params.sweep_subjects, ("walls", "transparent"),
+                                                   params.sweep_seeds, params.sweep_duration_s,
+                                                   work / f"sweep{k}_jobs{j}", j) | {"repeat": k})
+                ceiling += [warm.measure() | {"repeat": k} for _ in range(CEILING_MEASURES)]
+        report["sweep"], report["parallel_ceiling"] = sweeps, ceiling
         walls = {j: float(np.median([s["wall_s"] for s in sweeps if s["jobs"] == j])) for j in (1, 2)}
         report["jobs2_speedup"] = walls[1] / walls[2]
-        say(f"sweep: jobs 2 speedup {report['jobs2_speedup']:.2f}")
+        report["machine_jobs2_speedup"] = float(np.median([c["speedup"] for c in ceiling]))
+        report["jobs2_efficiency"] = report["jobs2_speedup"] / report["machine_jobs2_speedup"]
+        say(f"sweep: jobs 2 speedup {report['jobs2_speedup']:.2f}, the machine's own "
+            f"{report['machine_jobs2_speedup']:.2f}")
         report |= memory_run(scenario_path, params.memory_duration_s, work / "memory")
         say(f"memory: peak {report['peak_rss_MB']:.0f} MB")
     return report
@@ -867,6 +974,8 @@ def format_report(report: dict) -> str:
         f"{'realtime_factor':<34} {_fmt(r['realtime_factor'], '.2f'):>12}",
         f"{'cvxpy_speedup':<34} {_fmt(r['cvxpy_speedup'], '.0f'):>12}",
         f"{'jobs2_speedup':<34} {_fmt(r['jobs2_speedup'], '.2f'):>12}",
+        f"{'machine_jobs2_speedup':<34} {_fmt(r.get('machine_jobs2_speedup'), '.2f'):>12}",
+        f"{'jobs2_efficiency':<34} {_fmt(r.get('jobs2_efficiency'), '.2f'):>12}",
         f"{'peak_rss_MB':<34} {_fmt(r['peak_rss_MB']):>12}",
         f"{'log_MB_per_min':<34} {_fmt(r['log_MB_per_min']):>12}",
     ]
@@ -908,6 +1017,13 @@ def format_report(report: dict) -> str:
         lines.append(f"{s['jobs']:<10} {s['runs']:>6} {s['wall_s']:>10.2f} {s['runs_per_min']:>10.1f}")
     lines.append("  (sim.sweep.run_sweep in a fresh process, one and two jobs alternating; its start-up and the "
                  "workers' count; jobs2_speedup: the ratio of the median wall times)")
+    if r.get("parallel_ceiling"):
+        lines += ["", f"{'ceiling':<10} {'1 run s':>10} {'2 runs s':>10} {'speedup':>10}"]
+        for c in r["parallel_ceiling"]:
+            lines.append(f"{c['repeat']:<10} {c['one_s']:>10.2f} {c['two_s']:>10.2f} {c['speedup']:>10.2f}")
+        lines.append("  (one sweep case in one warm process, then in two at once: sim.bench.TwoWarmProcesses; "
+                     "machine_jobs2_speedup: their median, the ceiling of jobs2_speedup; jobs2_efficiency: "
+                     "jobs2_speedup over it)")
     lines += ["", f"memory run of {r['memory_duration_s']:g} s: peak RSS {r['peak_rss_MB']:.0f} MB, log "
               f"{r['log_MB_per_min']:.1f} MB per simulated minute (human-alone baseline "
               f"{r['baseline_log_MB_per_min']:.1f} MB more)"]

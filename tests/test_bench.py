@@ -10,6 +10,10 @@
   the same numbers as an uninstrumented one (the timers change nothing).
 * The level-by-level cvxpy formulation agrees with our solver on a few ticks
   (cvxpy with Clarabel as the independent optimiser).
+* The machine's two-process speedup (:class:`sim.bench.TwoWarmProcesses`)
+  times runs of its own: mechanism checks (each timed run is a complete sweep
+  case on a seed of its own; the speedup is the ratio of the times it
+  reports).
 """
 
 from __future__ import annotations
@@ -24,6 +28,7 @@ from controllers.registry import make_controller
 from models.errors import ParameterError
 from sim.bench import (
     BenchParams,
+    TwoWarmProcesses,
     chain_tick_times,
     compare_cvxpy,
     level_stacks,
@@ -174,3 +179,24 @@ def test_tick_breakdown_stages_add_up_to_the_mean_tick_and_change_no_number(shor
     plain, timed = load_run(folder), load_run(tmp_path / "instrumented")
     for name in plain.arrays:
         np.testing.assert_array_equal(timed[name], plain[name], err_msg=name)
+
+
+def test_two_warm_processes_time_whole_sweep_cases_each_on_a_seed_of_its_own(tmp_path):
+    # mechanism check: one measurement is one case alone, then two at once; every timed case simulates its own
+    # human-alone baseline (a seed used once), and the speedup is 2 t1 / t2 of the times it reports
+    with TwoWarmProcesses(SCENARIOS / "wall_push.py", "m50", "walls", 0.05, tmp_path) as warm:
+        out = warm.measure()
+    assert out["one_s"] > 0 and out["two_s"] > 0
+    assert out["speedup"] == pytest.approx(2.0 * out["one_s"] / out["two_s"], rel=1e-15)
+    folders = sorted(p for p in tmp_path.iterdir() if p.is_dir())
+    assert len(folders) == 2 + 3  # the two warm-up runs, then 1 + 2 timed runs
+    assert len({p.name for p in folders}) == len(folders)
+    for f in folders:
+        assert (f / "metrics.json").is_file() and (f / "human_alone" / "log").is_dir()
+
+
+def test_two_warm_processes_refuse_a_controller_the_scenario_does_not_list(tmp_path):
+    from models.errors import UnknownNameError
+
+    with pytest.raises(UnknownNameError, match="nonesuch"):
+        TwoWarmProcesses(SCENARIOS / "wall_push.py", "m50", "nonesuch", 0.05, tmp_path)
