@@ -341,12 +341,12 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
 
 
 #: Columns of the sweep table printed on the terminal (summary.md and summary.csv hold every summary metric).
-_SWEEP_COLUMNS = ("interaction_force_rms_N", "apparent_mass_hand_kg", "human_effort_ratio",
-                  "wall_stiffness_rendered_N_per_m", "hqp_fallback_count")
+_SWEEP_COLUMNS = ("interaction_force_rms_N", "interaction_force_free_rms_N", "apparent_mass_hand_kg",
+                  "human_effort_ratio", "wall_stiffness_rendered_N_per_m", "hqp_fallback_count")
 
 
 def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
-    from .report import fmt, headline, text_table
+    from .report import fmt, sweep_verdicts, text_table
     from .scenario import load_scenario
     from .sweep import run_sweep
 
@@ -366,14 +366,17 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
                            dask_address=args.dask, progress=True, duration_s=args.duration)
     except KeyboardInterrupt:
         raise _UserError(f"interrupted; the runs finished so far are in {out / 'runs.csv'}") from None
-    keys = [k for k in _SWEEP_COLUMNS if any(r.get(f"{k}_mean") is not None for r in result.summary)]
+    walled = any(r.get("wall_penetration_max_m_mean") is not None for r in result.summary)
+    keys = [k for k in _SWEEP_COLUMNS if any(r.get(f"{k}_mean") is not None for r in result.summary)
+            and (walled or k != "interaction_force_free_rms_N")]  # without a wall it is the RMS again
     table = text_table(["controller", "subject", "ok", *keys], [
         [r["controller"], r["subject"], f"{r['n_ok']}/{r['n_ok'] + r['n_failed']}"]
         + [fmt(r[f"{k}_mean"]) + " ± " + fmt(r[f"{k}_std"]) if r.get(f"{k}_mean") is not None else "n/a"
            for k in keys] for r in result.summary])
     lines = [table, "(mean ± standard deviation over seeds; 'all' pools every subject; the full table is in "
              f"{out / 'summary.md'})", ""]
-    lines += headline(result.summary)
+    for question, verdict in sweep_verdicts(result.summary).items():
+        lines += [f"{question}:", *(f"  {v}" for v in verdict)]
     if result.failed:
         lines.append(f"{len(result.failed)} of {len(result.results)} runs failed:")
         lines += [f"  {r.case.label}: {r.error}" for r in result.failed]

@@ -19,6 +19,7 @@ import numpy as np
 __all__ = [
     "interaction_force_norm_N",
     "interaction_force_rms_N",
+    "interaction_force_free_rms_N",
     "interaction_force_peak_N",
     "cuff_force_metrics",
     "human_effort_rms_Nm",
@@ -66,6 +67,26 @@ def interaction_force_rms_N(cuff_wrench: np.ndarray) -> float:
     """:math:`\\sqrt{\\tfrac1N \\sum_k F(t_k)^2}` [N] (RMS over time of the quadrature sum over cuffs)."""
     F = interaction_force_norm_N(cuff_wrench)
     return float(np.sqrt(np.mean(F * F))) if F.size else 0.0
+
+
+def interaction_force_free_rms_N(cuff_wrench: np.ndarray, past_wall: np.ndarray | None = None) -> float | None:
+    """:func:`interaction_force_rms_N` over the ticks with the hand on the free side of a wall [N].
+
+    ``past_wall`` (bool per tick) marks the ticks with the hand past the
+    wall's plane; None (no wall) keeps every tick.  Inside a wall the force
+    is the wall's, which a wall variant renders on purpose: this RMS is the
+    transparency of the free motion, comparable between variants that render
+    the wall and variants that do not when every variant gets the same mask
+    (the plane of the scenario's wall).  None when no tick is on the free
+    side.
+    """
+    w = np.asarray(cuff_wrench)
+    if past_wall is None:
+        return interaction_force_rms_N(w)
+    past = np.asarray(past_wall, dtype=bool)
+    if past.shape != (len(w),):
+        raise ValueError(f"past_wall must hold one flag per tick, shape ({len(w)},); got shape {past.shape}")
+    return interaction_force_rms_N(w[~past]) if not past.all() else None
 
 
 def interaction_force_peak_N(cuff_wrench: np.ndarray) -> float:
@@ -528,8 +549,11 @@ def run_metrics(
 
     ``robot_terms`` (:func:`robot_interaction_terms`) adds the work and
     compensation-share keys; ``limits_rad`` the joint-limit keys;
-    ``wall_contact`` (bool per tick: the hand inside a rendered wall) leaves
-    those ticks out of the felt mass; the others default as documented.
+    ``wall_contact`` (bool per tick: the hand past the plane of the
+    scenario's wall, whether or not the variant renders it, so that every
+    variant is measured over the same stretch of the movement) leaves those
+    ticks out of the felt mass and of ``interaction_force_free_rms_N``; the
+    others default as documented.
     """
     n = len(arrays["t"])
     wall = float(np.sum(tick_times_s))
@@ -546,6 +570,7 @@ def run_metrics(
     out = {
         "sim_duration_s": n * dt_s,
         "interaction_force_rms_N": interaction_force_rms_N(w_h),
+        "interaction_force_free_rms_N": interaction_force_free_rms_N(w_h, wall_contact),
         "interaction_force_peak_N": interaction_force_peak_N(w_h),
         "interaction_torque_rms_Nm": float(np.sqrt(np.mean(torque * torque))) if n else 0.0,
         "interaction_torque_peak_Nm": float(torque.max()) if n else 0.0,
@@ -609,6 +634,7 @@ class MetricInfo:
 #: Every top-level scalar key of ``metrics.json``, in the order tables show them.
 METRICS: dict[str, MetricInfo] = {
     "interaction_force_rms_N": MetricInfo("N", "lower", "interaction force, RMS", True),
+    "interaction_force_free_rms_N": MetricInfo("N", "lower", "interaction force outside the wall, RMS", True),
     "interaction_force_peak_N": MetricInfo("N", "lower", "interaction force, peak", True),
     "interaction_torque_rms_Nm": MetricInfo("N m", "lower", "interaction torque, RMS"),
     "interaction_torque_peak_Nm": MetricInfo("N m", "lower", "interaction torque, peak"),

@@ -16,7 +16,7 @@ import numpy as np
 from .metrics import METRICS, flat_metrics, hand_cuff_index, interaction_force_norm_N, wall_normal_series
 
 __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
-           "write_run_report", "compare_runs", "write_sweep_report"]
+           "write_run_report", "compare_runs", "write_sweep_report", "sweep_verdicts"]
 
 #: Printed in every report.
 CAUTION = (
@@ -304,6 +304,25 @@ def headline(summary: Sequence[Mapping], key: str = "interaction_force_rms_N") -
     return out
 
 
+def sweep_verdicts(summary: Sequence[Mapping]) -> dict[str, list[str]]:
+    """The sweep's verdicts (:func:`headline`), by question: which variant is more transparent and, with a wall,
+    which renders it closest to its commanded stiffness.
+
+    With a wall in the scenario, transparency is judged on
+    ``interaction_force_free_rms_N`` (the hand outside the wall, the same ticks
+    for every variant): inside, the force is the wall itself, which a wall
+    variant renders on purpose and a variant without it does not.  Without a
+    wall, on ``interaction_force_rms_N``.
+    """
+    walled = any(r.get("wall_penetration_max_m_mean") is not None for r in summary)
+    out = {"Which is more transparent": (headline(summary, "interaction_force_free_rms_N") if walled else [])
+           or headline(summary)}
+    if walled:
+        out["Which renders the wall closest to its commanded stiffness"] = headline(
+            summary, "wall_stiffness_rendered_N_per_m")
+    return {q: lines for q, lines in out.items() if lines}
+
+
 def summary_cells(summary: Sequence[Mapping], keys: Sequence[str]) -> tuple[list[str], list[list[str]]]:
     """Header and text cells of a sweep summary: ``mean ± std`` per key; the better overall mean in bold."""
     header = ["controller", "subject", "runs ok", "failed"] + [f"{k} [{METRICS[k].unit}]" for k in keys]
@@ -352,9 +371,11 @@ def write_sweep_report(result, settings: Mapping) -> Path:
                      if Path(r.case.folder).is_relative_to(out.resolve()) else r.case.folder,
                      "error": r.error, "metrics": r.metrics} for r in result.results]}
     (out / "sweep.json").write_text(json.dumps(doc, indent=1, allow_nan=False) + "\n", encoding="utf-8")
+    # with a wall, transparency is judged with the hand outside it: inside, the force is the wall a variant renders
+    walled = any(r.get("wall_penetration_max_m_mean") is not None for r in summary)
     figs = []
-    for k in ("interaction_force_rms_N", "apparent_mass_hand_kg", "human_effort_ratio",
-              "wall_stiffness_rendered_N_per_m", "hqp_solve_median_us"):
+    for k in ("interaction_force_rms_N", *(("interaction_force_free_rms_N",) if walled else ()),
+              "apparent_mass_hand_kg", "human_effort_ratio", "wall_stiffness_rendered_N_per_m", "hqp_solve_median_us"):
         if k in keys:
             figs.append(plots.sweep_bars(summary, k, out / "plots" / f"{k}.png",
                                          ylabel=f"{METRICS[k].label} [{METRICS[k].unit}]",
@@ -365,9 +386,8 @@ def write_sweep_report(result, settings: Mapping) -> Path:
             f"seeds {', '.join(map(str, settings['seeds']))}; executor: {settings['executor']}; "
             f"{len(result.results)} runs, {len(failed)} failed, {result.wall_time_s:.1f} s wall time.", "",
             CAUTION, ""]
-    lines = headline(summary)
-    if lines:
-        text += ["## Which is more transparent", ""] + [f"- {s}" for s in lines] + [""]
+    for question, lines in sweep_verdicts(summary).items():
+        text += [f"## {question}", ""] + [f"- {s}" for s in lines] + [""]
     text += ["## Summary (mean ± standard deviation; subject 'all' pools every subject and seed)", "",
              "The better value per subject group is in bold.", "", markdown_table(header, cells), ""]
     if failed:

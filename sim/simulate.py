@@ -433,8 +433,10 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     terms = robot_interaction_terms(arm, arrays, [models_meta["cuff_frames"][c][0] for c in cuff_names], dt)
     limits = dict(BODY_REGION_FORCE_LIMITS_N) | dict(force_limits_N or {})
     hand = hand_cuff_index(cuff_names, wall.get("sensor", "hand") if wall else "hand")
+    # the hand past the wall's plane: the wall's spring is no inertia and its force is no lack of transparency;
+    # the same ticks for every variant (rendered wall or not), so that all are measured over the same stretch
     contact = None
-    if wall is not None and wall.get("rendered", True):  # the wall's spring is no inertia: out of the felt mass
+    if wall is not None:
         contact = plane_penetration_m(arrays["p_hand_human"], wall["point_m"], wall["normal"]) > 0.0
     metrics = run_metrics(arrays, cuff_names=cuff_names, baseline=base.arrays if base else None, dt_s=dt,
                           tick_times_s=timing.get("tick_time_s", np.zeros(0)), timing=timing, robot_terms=terms,

@@ -18,6 +18,8 @@ from sim.metrics import (
     compensation_shares,
     flat_metrics,
     force_limit_exceed_count,
+    interaction_force_free_rms_N,
+    interaction_force_rms_N,
     interaction_power_W,
     interaction_work_J,
     joint_limit_excursion_max_rad,
@@ -29,7 +31,7 @@ from sim.metrics import (
     wall_cycle_energy_returned_J,
 )
 from sim.plant import PlantParams
-from sim.report import best_index, best_indices, comparison_rows, headline
+from sim.report import best_index, best_indices, comparison_rows, headline, sweep_verdicts
 from sim.scenario import load_scenario
 from sim.simulate import evaluate_run, simulate
 
@@ -150,6 +152,33 @@ def test_felt_mass_leaves_out_the_ticks_inside_a_wall():
         apparent_mass_kg(force_on_human, x[:, None] * u, DT, exclude=inside[:-1])
 
 
+def test_free_side_force_is_the_rms_of_the_inertial_force_before_the_wall():
+    # the same push as above: outside the wall the hand feels only m a, so the RMS over the free ticks is
+    # sqrt(1/t_w * integral_0^t_w (m a)^2 dt), t_w the time the hand reaches the wall. Reference: that integral of
+    # the minimum-jerk acceleration (Flash & Hogan 1985) and t_w, both by sympy (exact integral, root by nsolve).
+    import sympy as sp
+
+    t = np.arange(0, 1.2, DT)
+    x, _, a = _min_jerk(t, 1.0, 0.3)
+    u = np.array([0.6, 0.8, 0.0])
+    m, K, x_wall = 1.2, 600.0, 0.25
+    pen = np.clip(x - x_wall, 0.0, None)
+    wrench = np.zeros((len(t), 1, 6))
+    wrench[:, 0, :3] = -(m * a + K * pen)[:, None] * u
+    past = pen > 0.0
+    s_, tau = sp.symbols("s tau", positive=True)
+    xs = 0.3 * (10 * s_**3 - 15 * s_**4 + 6 * s_**5)
+    t_w = float(sp.nsolve(xs - x_wall, s_, 0.8))  # T = 1 s, so s = t
+    acc = sp.diff(xs, s_, 2)
+    ref = math.sqrt(float(sp.integrate((m * acc) ** 2, (s_, 0, tau)).subs(tau, t_w)) / t_w)
+    assert interaction_force_free_rms_N(wrench, past) == pytest.approx(ref, rel=5e-3)
+    assert interaction_force_rms_N(wrench) > 2 * ref  # over every tick the wall's K p dominates
+    assert interaction_force_free_rms_N(wrench) == interaction_force_rms_N(wrench)  # no wall: every tick
+    assert interaction_force_free_rms_N(wrench, np.ones(len(t), bool)) is None  # never outside the wall
+    with pytest.raises(ValueError, match="one flag per tick"):
+        interaction_force_free_rms_N(wrench, past[:-1])
+
+
 def test_compensation_shares_recover_known_mixture():
     rng = np.random.default_rng(3)
     g, mddq = rng.normal(size=(500, 7)), rng.normal(size=(500, 7))
@@ -249,6 +278,31 @@ def test_the_sweep_verdict_calls_equal_means_level_and_compares_each_with_the_re
     close = headline([row("a", 8.434, 0.26), row("b", 8.437, 0.26)])
     assert close == ["`a` is better than `b` on interaction force, RMS: 8.434 ± 0.26 N against 8.437 ± 0.26 N "
                      "(-0.036 %), over 4 and 4 runs."]
+
+
+def test_with_a_wall_the_verdict_judges_transparency_outside_it_and_the_wall_by_its_stiffness():
+    # mechanism check: inside the wall the wall variant's force is the wall it renders, so the overall RMS
+    # would call the variant without a wall more transparent by the whole wall force
+    def row(controller, rms, free, stiffness):
+        return {"controller": controller, "subject": "all", "n_ok": 3,
+                "interaction_force_rms_N_mean": rms, "interaction_force_rms_N_std": 0.1,
+                "interaction_force_free_rms_N_mean": free, "interaction_force_free_rms_N_std": 0.1,
+                "wall_penetration_max_m_mean": 0.01, "wall_penetration_max_m_std": 0.001,
+                "wall_stiffness_rendered_N_per_m_mean": stiffness, "wall_stiffness_rendered_N_per_m_std": 5.0,
+                "wall_stiffness_commanded_N_per_m_mean": 600.0 if stiffness is not None else 0.0}
+
+    v = sweep_verdicts([row("walls", 24.0, 3.0, 590.0), row("transparent", 5.0, 3.6, None),
+                        row("soft", 20.0, 3.2, 300.0)])
+    assert list(v) == ["Which is more transparent", "Which renders the wall closest to its commanded stiffness"]
+    assert v["Which is more transparent"][0].startswith("`walls` is better than `transparent` on interaction force "
+                                                        "outside the wall")
+    assert v["Which renders the wall closest to its commanded stiffness"] == [
+        "`walls` is better than `soft` on wall stiffness at the hand: 590 ± 5 N/m against 300 ± 5 N/m (+97 %), "
+        "over 3 and 3 runs."]
+    free_rows = [{k: r for k, r in row(c, f, f, None).items() if not k.startswith("wall_")}
+                 for c, f in (("a", 2.0), ("b", 3.0))]
+    assert list(sweep_verdicts(free_rows)) == ["Which is more transparent"]  # no wall: one question
+    assert "on interaction force, RMS" in sweep_verdicts(free_rows)["Which is more transparent"][0]
 
 
 def test_comparison_rows_mark_the_better_value_and_keep_per_cuff_keys():
