@@ -210,8 +210,12 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
         if viewer is not None:
             viewer.close()
     m = result.metrics
+    # with a wall: the transparency outside it (inside, the force is the wall) and the stiffness it was rendered with
+    wall = "".join(f", {k} = {m[k]:{spec}}" for k, spec in (("interaction_force_free_rms_N", ".2f"),
+                                                             ("wall_stiffness_rendered_N_per_m", ".1f"))
+                   if m.get("wall_penetration_max_m") is not None and m.get(k) is not None)
     return (f"results in {out}: interaction_force_rms_N = {m['interaction_force_rms_N']:.2f}, "
-            f"human_effort_ratio = {m['human_effort_ratio']:.3f}, realtime_factor = {m['realtime_factor']:.2f} "
+            f"human_effort_ratio = {m['human_effort_ratio']:.3f}, realtime_factor = {m['realtime_factor']:.2f}{wall} "
             f"(all metrics in {out / 'metrics.json'}, report with plots in {out / 'report.md'})")
 
 

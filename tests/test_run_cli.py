@@ -248,3 +248,20 @@ def test_controller_receives_only_a_read_only_measurement_of_the_sensors(tmp_pat
     np.testing.assert_array_equal([s.t_s for s in seen], run["t"])
     np.testing.assert_array_equal([s.q_rad for s in seen], run["q_exo_meas"])
     np.testing.assert_array_equal([[s.cuff_wrench[c] for c in CUFFS] for s in seen], run["cuff_wrench_meas"])
+
+
+def test_run_prints_the_wall_figures_only_in_a_wall_scenario(zero_run, tmp_path):
+    # mechanism check: the printed figures are those of metrics.json, to the printed digits
+    assert "interaction_force_free_rms_N" not in zero_run[1]  # reach has no wall
+    out, short = tmp_path / "wall", tmp_path / "short_push.py"
+    short.write_text("import dataclasses\n\nfrom scenarios.wall_push import SCENARIO as PUSH\n\n"
+                     "SCENARIO = dataclasses.replace(PUSH, duration_s=3.2)  # the first push and release\n",
+                     encoding="utf-8")
+    stdout = io.StringIO()
+    with contextlib.redirect_stdout(stdout):
+        status = main(["run", str(short), "--controller", "walls", "--out", str(out)])
+    assert status == 0
+    m = json.loads((out / "metrics.json").read_text(encoding="utf-8"))
+    assert m["wall_penetration_max_m"] > 0
+    assert f"interaction_force_free_rms_N = {m['interaction_force_free_rms_N']:.2f}" in stdout.getvalue()
+    assert f"wall_stiffness_rendered_N_per_m = {m['wall_stiffness_rendered_N_per_m']:.1f}" in stdout.getvalue()
