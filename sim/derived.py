@@ -160,7 +160,8 @@ def cuff_columns(run: Run) -> dict[str, np.ndarray]:
         The two columns, shapes (n, n_cuffs, 6) and (n, n_cuffs, 3): the stored
         ones when the log holds them (runs written before log format 2), else
         computed from ``cuff_wrench_human``, ``q_exo`` and ``q_human`` with the
-        run's ``exo.urdf`` and ``human.urdf``.  Empty for a run without cuffs
+        run's ``exo.urdf`` and ``human.urdf``, once per ``Run`` (kept, read-only,
+        in ``run.derived`` for the next call).  Empty for a run without cuffs
         (no ``cuff_wrench_human`` column: a human-alone or robot-alone run).
 
     Raises
@@ -174,6 +175,8 @@ def cuff_columns(run: Run) -> dict[str, np.ndarray]:
         return {name: arrays[name] for name in DERIVED_CUFF_COLUMNS}
     if "cuff_wrench_human" not in arrays:
         return {}
+    if all(name in run.derived for name in DERIVED_CUFF_COLUMNS):  # computed for this Run already
+        return {name: run.derived[name] for name in DERIVED_CUFF_COLUMNS}
     where = f"run folder {str(run.folder)!r}"
     if run.folder is None:
         raise RunLogError("the run was not read from a folder (Run.folder is None): its models are unknown, so "
@@ -209,6 +212,9 @@ def cuff_columns(run: Run) -> dict[str, np.ndarray]:
         w_a[ticks, :, :3] = -f
         w_a[ticks, :, 3:] = -((R @ tau_b)[..., 0] + np.cross(p, f))
         f_o[ticks] = (Rb @ f_b)[..., 0]
+    for a in (w_a, f_o):
+        a.flags.writeable = False  # shared by every reader of this Run
+    run.derived.update(cuff_wrench_exo=w_a, cuff_force_human_world=f_o)
     return {"cuff_wrench_exo": w_a, "cuff_force_human_world": f_o}
 
 

@@ -174,13 +174,17 @@ def _wall_series(run, spec: Mapping) -> tuple[np.ndarray, np.ndarray]:
     return wall_normal_series(run.arrays | cuff_columns(run), spec["point_m"], spec["normal"], hand)
 
 
-def write_run_report(folder: str | Path, metrics: Mapping | None = None) -> Path:
-    """``report.md`` and ``plots/*.png`` of one coupled run folder: key metrics, force plots, cautions."""
+def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run=None) -> Path:
+    """``report.md`` and ``plots/*.png`` of one coupled run folder: key metrics, force plots, cautions.
+
+    ``run``: the run already read from ``folder`` (:func:`sim.runlog.load_run`),
+    so that it is not read again (nor its derived columns computed again).
+    """
     from . import plots
     from .runlog import load_run
 
     folder = Path(folder)
-    run = load_run(folder)
+    run = load_run(folder) if run is None else run
     m = dict(run.metrics if metrics is None else metrics)
     meta = run.meta
     t = np.asarray(run["t"])

@@ -724,6 +724,10 @@ class Run:
     folder : pathlib.Path or None
         The run folder it was read from (its models, for columns derived
         from the logged ones: :func:`sim.derived.cuff_columns`).
+    derived : dict
+        Columns derived from the logged ones, kept by the function that
+        computed them (:func:`sim.derived.cuff_columns`) so that every later
+        reader of this ``Run`` gets them without computing them again.
     """
 
     arrays: dict[str, np.ndarray]
@@ -731,6 +735,7 @@ class Run:
     metrics: dict[str, Any] = field(default_factory=dict)
     complete: bool = False
     folder: Path | None = None
+    derived: dict[str, np.ndarray] = field(default_factory=dict, init=False, repr=False, compare=False)
 
     @property
     def ticks(self) -> int:

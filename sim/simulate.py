@@ -39,7 +39,7 @@ from .actuators import TorqueSourceActuators
 from .human import HumanMotor
 from .metrics import run_metrics, wall_metrics
 from .plant import CoupledPlant, PlantMode
-from .runlog import RunLog, environment_metadata, load_run
+from .runlog import Run, RunLog, environment_metadata, load_run
 from .scenario import Scenario
 from .sensors import ForceSensorBank, ForceTorqueSensor, JointSensing, _first_nonfinite
 
@@ -322,12 +322,13 @@ def run_scenario(
         stiffness = law.stiffness_N_per_m if hasattr(law, "stiffness_N_per_m") else float(law[0])
         wall = {"point_m": spec["point_m"], "normal": spec["normal"], "sensor": spec.get("sensor", "hand"),
                 "stiffness_N_per_m": stiffness, "rendered": _renders_walls(scenario, controller_name)}
-    metrics = evaluate_run(out, wall=wall, force_limits_N=scenario.force_limits_N)
+    run = load_run(out)  # read once, for the metrics and the report
+    metrics = evaluate_run(out, wall=wall, force_limits_N=scenario.force_limits_N, run=run)
     write_json(out / "metrics.json", metrics)
     if report:
         from .report import write_run_report
 
-        write_run_report(out, metrics)
+        write_run_report(out, metrics, run=run)
     return RunResult(out, metrics, True)
 
 
@@ -390,7 +391,7 @@ def reusable_baseline(folder: str | Path, scenario: Scenario, seed: int | None =
 
 
 def evaluate_run(folder: str | Path, *, wall: dict | None = None,
-                 force_limits_N: dict[str, float] | None = None) -> dict:
+                 force_limits_N: dict[str, float] | None = None, run: Run | None = None) -> dict:
     """The metrics of a finished coupled run folder (and its ``human_alone`` baseline, if present).
 
     Reads the log, ``timing.npz`` and the run's own robot model (``exo.urdf``
@@ -407,6 +408,10 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     force_limits_N : dict, optional
         Body-region force limit per cuff name, over
         :data:`sim.metrics.BODY_REGION_FORCE_LIMITS_N`.
+    run : sim.runlog.Run, optional
+        The run already read from ``folder`` (:func:`sim.runlog.load_run`),
+        so that it is not read again; the columns derived from it are then
+        kept for the next reader (the run's report).
     """
     from models.arm import load_arm
 
@@ -414,7 +419,7 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     from .metrics import BODY_REGION_FORCE_LIMITS_N, hand_cuff_index, plane_penetration_m, robot_interaction_terms
 
     out = Path(folder)
-    run = load_run(out)
+    run = load_run(out) if run is None else run
     arrays = run.arrays | cuff_columns(run)
     base_dir = out / "human_alone"
     base = load_run(base_dir) if base_dir.is_dir() else None

@@ -79,7 +79,7 @@ def test_log_stores_neither_derived_column_but_the_strap_offsets(wall_run):
 def test_recomputed_columns_equal_the_plants_values(wall_run, monkeypatch, block_ticks):
     _, _, run, plant = wall_run
     monkeypatch.setattr(importlib.import_module("sim.derived"), "_BLOCK_TICKS", block_ticks)
-    derived = cuff_columns(run)
+    derived = cuff_columns(dataclasses.replace(run))  # a Run of its own: computed here, not kept from another test
     for name in DERIVED_CUFF_COLUMNS:
         expected = plant[name]
         assert derived[name].shape == expected.shape == (run.ticks, len(run.meta["cuffs"]), expected.shape[-1])
@@ -150,6 +150,19 @@ def test_vectorised_forward_kinematics_matches_pinocchio(wall_run):
         assert np.array_equal(R_ref[7, -1], data.oMi[joints[-1]].rotation)
         np.testing.assert_allclose(R, R_ref, rtol=0, atol=1e-13)
         np.testing.assert_allclose(p, p_ref, rtol=0, atol=1e-13)
+
+
+def test_derived_columns_are_computed_once_per_run_and_kept_read_only(wall_run):
+    # mechanism check: the metrics and the report of a run read it once and share its derived columns
+    _, folder, _, _ = wall_run
+    run = load_run(folder)
+    first = cuff_columns(run)
+    again = cuff_columns(run)
+    for name in DERIVED_CUFF_COLUMNS:
+        assert again[name] is first[name] and not first[name].flags.writeable
+        np.testing.assert_array_equal(cuff_columns(load_run(folder))[name], first[name])  # a new Run, equal values
+    with pytest.raises(ValueError, match="read-only"):
+        first["cuff_wrench_exo"][0, 0, 0] = 1.0
 
 
 def test_runs_without_cuffs_have_no_derived_columns(wall_run):
