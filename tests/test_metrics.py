@@ -133,17 +133,26 @@ def test_felt_mass_is_not_confused_by_a_felt_weight():
     assert apparent_mass_kg(force_on_human, x[:, None] * u, DT) == pytest.approx(m, rel=0.02)
 
 
+#: The push into a wall of the two tests below: mass [kg], wall stiffness [N/m], wall plane along the path [m].
+PUSH_MASS_KG, PUSH_WALL_N_PER_M, PUSH_WALL_AT_M = 1.2, 600.0, 0.25
+
+
+def _push_into_a_wall():
+    """A mass pushed 0.3 m in 1 s along u (minimum jerk), into a spring wall 5 cm before the end of the path:
+    (t, position along the path, force on the hand, ticks past the wall, u)."""
+    t = np.arange(0, 1.2, DT)
+    x, _, a = _min_jerk(t, 1.0, 0.3)
+    u = np.array([0.6, 0.8, 0.0])
+    pen = np.clip(x - PUSH_WALL_AT_M, 0.0, None)
+    return t, x, -(PUSH_MASS_KG * a + PUSH_WALL_N_PER_M * pen)[:, None] * u, pen > 0.0, u
+
+
 def test_felt_mass_leaves_out_the_ticks_inside_a_wall():
     # Newton's second law again, with a spring wall 5 cm before the end of the path: inside it the hand also feels
     # K p against the motion, which a fit over every tick takes for (negative) inertia. Leaving the contact ticks
     # out gives the mass back.
-    t = np.arange(0, 1.2, DT)
-    x, _, a = _min_jerk(t, 1.0, 0.3)
-    u = np.array([0.6, 0.8, 0.0])
-    m, K, x_wall = 1.2, 600.0, 0.25
-    pen = np.clip(x - x_wall, 0.0, None)
-    force_on_human = -(m * a + K * pen)[:, None] * u
-    inside = pen > 0.0
+    t, x, force_on_human, inside, u = _push_into_a_wall()
+    m = PUSH_MASS_KG
     assert 100 < np.count_nonzero(inside) < len(t) // 2
     with_wall = apparent_mass_kg(force_on_human, x[:, None] * u, DT)
     assert abs(with_wall - m) > 0.3  # the wall's spring is mistaken for inertia
@@ -158,14 +167,10 @@ def test_free_side_force_is_the_rms_of_the_inertial_force_before_the_wall():
     # the minimum-jerk acceleration (Flash & Hogan 1985) and t_w, both by sympy (exact integral, root by nsolve).
     import sympy as sp
 
-    t = np.arange(0, 1.2, DT)
-    x, _, a = _min_jerk(t, 1.0, 0.3)
-    u = np.array([0.6, 0.8, 0.0])
-    m, K, x_wall = 1.2, 600.0, 0.25
-    pen = np.clip(x - x_wall, 0.0, None)
+    t, _, force_on_human, past, _ = _push_into_a_wall()
+    m, x_wall = PUSH_MASS_KG, PUSH_WALL_AT_M
     wrench = np.zeros((len(t), 1, 6))
-    wrench[:, 0, :3] = -(m * a + K * pen)[:, None] * u
-    past = pen > 0.0
+    wrench[:, 0, :3] = force_on_human
     s_, tau = sp.symbols("s tau", positive=True)
     xs = 0.3 * (10 * s_**3 - 15 * s_**4 + 6 * s_**5)
     t_w = float(sp.nsolve(xs - x_wall, s_, 0.8))  # T = 1 s, so s = t
