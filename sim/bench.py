@@ -800,8 +800,9 @@ class TwoWarmProcesses:
                 self._workers.append((proc, ours))
             for _proc, conn in self._workers:
                 conn.send((run_case, self._case(WARMUP_S)))
-            for _proc, conn in self._workers:
-                conn.recv()
+            errors = [r.error for r in (conn.recv() for _proc, conn in self._workers) if r.error]
+            if errors:
+                raise BenchError(f"parallel ceiling: the warm-up run failed: {errors[0]}")
         except BaseException:
             self.__exit__(None, None, None)
             raise

@@ -10,10 +10,14 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from .metrics import METRICS, flat_metrics, hand_cuff_index, interaction_force_norm_N, wall_normal_series
+
+if TYPE_CHECKING:
+    from .runlog import Run
 
 __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
            "write_run_report", "compare_runs", "write_sweep_report", "sweep_verdicts"]
@@ -174,7 +178,7 @@ def _wall_series(run, spec: Mapping) -> tuple[np.ndarray, np.ndarray]:
     return wall_normal_series(run.arrays | cuff_columns(run), spec["point_m"], spec["normal"], hand)
 
 
-def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run=None) -> Path:
+def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run: Run | None = None) -> Path:
     """``report.md`` and ``plots/*.png`` of one coupled run folder: key metrics, force plots, cautions.
 
     ``run``: the run already read from ``folder`` (:func:`sim.runlog.load_run`),
