@@ -366,8 +366,9 @@ def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: f
 
     ``exclude`` (bool per tick) leaves ticks out of the fit, and with them every
     tick within the smoothing window of one: :func:`run_metrics` passes the
-    ticks in contact with a rendered wall, whose spring would otherwise count
-    as (negative) inertia.
+    ticks with the hand past the plane of the scenario's wall (a rendered
+    wall's spring would otherwise count as negative inertia), for every
+    variant alike, so that all are fitted over the same stretch.
     """
     p = np.asarray(p_hand_m, dtype=float)
     f = np.asarray(force_on_human_N, dtype=float)
