@@ -61,6 +61,7 @@ References
 from __future__ import annotations
 
 import concurrent.futures
+import contextlib
 import cProfile
 import dataclasses
 import functools
@@ -776,19 +777,29 @@ class TwoWarmProcesses:
 
     def _run(self, workers: Sequence) -> float:
         """Send each of ``workers`` a case of its own at once; the wall time until the last is back [s]."""
-        from .sweep import run_case
-
         t0 = time.perf_counter()
-        for _proc, conn in workers:
-            conn.send((run_case, self._case()))
-        errors = [r.error for r in (conn.recv() for _proc, conn in workers) if r.error]
+        errors = [r.error for r in self._exchange(workers, [self._case() for _ in workers]) if r.error]
         wall = time.perf_counter() - t0
         if errors:
             raise BenchError(f"parallel ceiling: a run failed: {errors[0]}")
         return wall
 
+    @staticmethod
+    def _exchange(workers: Sequence, cases: Sequence) -> list:
+        """Send each worker its case, then collect the results; a worker that has gone is a BenchError."""
+        from .sweep import run_case
+
+        try:
+            for (_proc, conn), case in zip(workers, cases):
+                conn.send((run_case, case))
+            return [conn.recv() for _proc, conn in workers]
+        except (EOFError, OSError) as e:
+            codes = [proc.exitcode for proc, _conn in workers]
+            raise BenchError(f"parallel ceiling: a worker process stopped (exit codes {codes}): "
+                             f"{type(e).__name__}") from e
+
     def __enter__(self) -> TwoWarmProcesses:
-        from .sweep import _serve, run_case
+        from .sweep import _serve
 
         ctx = multiprocessing.get_context("spawn")
         try:
@@ -798,9 +809,8 @@ class TwoWarmProcesses:
                 proc.start()
                 theirs.close()
                 self._workers.append((proc, ours))
-            for _proc, conn in self._workers:
-                conn.send((run_case, self._case(WARMUP_S)))
-            errors = [r.error for r in (conn.recv() for _proc, conn in self._workers) if r.error]
+            results = self._exchange(self._workers, [self._case(WARMUP_S) for _ in self._workers])
+            errors = [r.error for r in results if r.error]
             if errors:
                 raise BenchError(f"parallel ceiling: the warm-up run failed: {errors[0]}")
         except BaseException:
@@ -939,22 +949,33 @@ def run_bench(scenario_path: str | Path, params: BenchParams | None = None, *, w
             say(f"joints {nj}: tick {report['joints_series'][-1]['tick_time_median_us']:.0f} us")
         # each repeat: the sweep with one job, with two, then the machine's own two-process speedup on the same
         # kind of run, so that the ceiling is measured beside (not minutes away from) the figure it bounds
-        sweeps, ceiling = [], []
-        with TwoWarmProcesses(scenario_path, params.sweep_subjects[0], "walls", params.sweep_duration_s,
-                              work / "ceiling") as warm:
+        # (a ceiling that cannot be measured is reported as such; the sweep figures stand without it)
+        sweeps, ceiling, ceiling_error = [], [], None
+        with contextlib.ExitStack() as stack:
+            try:
+                warm = stack.enter_context(TwoWarmProcesses(scenario_path, params.sweep_subjects[0], "walls",
+                                                            params.sweep_duration_s, work / "ceiling"))
+            except (BenchError, OSError) as e:
+                warm, ceiling_error = None, str(e)
             for k in range(params.sweep_repeats):
                 for j in (1, 2):
                     sweeps.append(sweep_throughput(scenario_path, params.sweep_subjects, ("walls", "transparent"),
                                                    params.sweep_seeds, params.sweep_duration_s,
                                                    work / f"sweep{k}_jobs{j}", j) | {"repeat": k})
-                ceiling += [warm.measure() | {"repeat": k} for _ in range(CEILING_MEASURES)]
+                try:
+                    ceiling += [warm.measure() | {"repeat": k} for _ in range(CEILING_MEASURES)] if warm else []
+                except BenchError as e:
+                    warm, ceiling_error = None, str(e)
         report["sweep"], report["parallel_ceiling"] = sweeps, ceiling
         walls = {j: float(np.median([s["wall_s"] for s in sweeps if s["jobs"] == j])) for j in (1, 2)}
         report["jobs2_speedup"] = walls[1] / walls[2]
-        report["machine_jobs2_speedup"] = float(np.median([c["speedup"] for c in ceiling]))
-        report["jobs2_efficiency"] = report["jobs2_speedup"] / report["machine_jobs2_speedup"]
+        report["machine_jobs2_speedup"] = float(np.median([c["speedup"] for c in ceiling])) if ceiling else None
+        report["jobs2_efficiency"] = (report["jobs2_speedup"] / report["machine_jobs2_speedup"]
+                                      if ceiling else None)
+        if ceiling_error:
+            report["parallel_ceiling_error"] = ceiling_error
         say(f"sweep: jobs 2 speedup {report['jobs2_speedup']:.2f}, the machine's own "
-            f"{report['machine_jobs2_speedup']:.2f}")
+            f"{_fmt(report['machine_jobs2_speedup'], '.2f')}")
         report |= memory_run(scenario_path, params.memory_duration_s, work / "memory")
         say(f"memory: peak {report['peak_rss_MB']:.0f} MB")
     return report
@@ -1023,6 +1044,8 @@ def format_report(report: dict) -> str:
         lines.append(f"{s['jobs']:<10} {s['runs']:>6} {s['wall_s']:>10.2f} {s['runs_per_min']:>10.1f}")
     lines.append("  (sim.sweep.run_sweep in a fresh process, one and two jobs alternating; its start-up and the "
                  "workers' count; jobs2_speedup: the ratio of the median wall times)")
+    if r.get("parallel_ceiling_error"):
+        lines.append(f"  machine_jobs2_speedup: {r['parallel_ceiling_error']}")
     if r.get("parallel_ceiling"):
         lines += ["", f"{'ceiling':<10} {'1 run s':>10} {'2 runs s':>10} {'speedup':>10}"]
         for c in r["parallel_ceiling"]:

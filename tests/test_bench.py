@@ -200,3 +200,15 @@ def test_two_warm_processes_refuse_a_controller_the_scenario_does_not_list(tmp_p
 
     with pytest.raises(UnknownNameError, match="nonesuch"):
         TwoWarmProcesses(SCENARIOS / "wall_push.py", "m50", "nonesuch", 0.05, tmp_path)
+
+
+def test_two_warm_processes_report_a_worker_that_died(tmp_path):
+    # mechanism check: a killed worker is a BenchError naming it, not a hang or a bare EOFError
+    from sim.bench import BenchError
+
+    with TwoWarmProcesses(SCENARIOS / "wall_push.py", "m50", "walls", 0.05, tmp_path) as warm:
+        proc, _conn = warm._workers[1]
+        proc.kill()
+        proc.join()
+        with pytest.raises(BenchError, match="worker process stopped"):
+            warm.measure()
