@@ -350,7 +350,7 @@ _SWEEP_COLUMNS = ("interaction_force_rms_N", "interaction_force_free_rms_N", "ap
 
 
 def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
-    from .report import fmt, sweep_verdicts, text_table
+    from .report import fmt, has_wall, sweep_verdicts, text_table
     from .scenario import load_scenario
     from .sweep import run_sweep
 
@@ -370,7 +370,7 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
                            dask_address=args.dask, progress=True, duration_s=args.duration)
     except KeyboardInterrupt:
         raise _UserError(f"interrupted; the runs finished so far are in {out / 'runs.csv'}") from None
-    walled = any(r.get("wall_penetration_max_m_mean") is not None for r in result.summary)
+    walled = has_wall(result.summary)
     keys = [k for k in _SWEEP_COLUMNS if any(r.get(f"{k}_mean") is not None for r in result.summary)
             and (walled or k != "interaction_force_free_rms_N")]  # without a wall it is the RMS again
     table = text_table(["controller", "subject", "ok", *keys], [

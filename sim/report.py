@@ -20,7 +20,7 @@ if TYPE_CHECKING:
     from .runlog import Run
 
 __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
-           "write_run_report", "compare_runs", "write_sweep_report", "sweep_verdicts"]
+           "write_run_report", "compare_runs", "write_sweep_report", "sweep_verdicts", "has_wall"]
 
 #: Printed in every report.
 CAUTION = (
@@ -312,6 +312,12 @@ def headline(summary: Sequence[Mapping], key: str = "interaction_force_rms_N") -
     return out
 
 
+def has_wall(summary: Sequence[Mapping]) -> bool:
+    """Whether a sweep's summary rows (:func:`sim.sweep.summarize`) come from a scenario with a plane wall (some
+    run measured a penetration)."""
+    return any(r.get("wall_penetration_max_m_mean") is not None for r in summary)
+
+
 def sweep_verdicts(summary: Sequence[Mapping]) -> dict[str, list[str]]:
     """The sweep's verdicts (:func:`headline`), by question: which variant is more transparent and, with a wall,
     which renders it closest to its commanded stiffness.
@@ -322,7 +328,7 @@ def sweep_verdicts(summary: Sequence[Mapping]) -> dict[str, list[str]]:
     variant renders on purpose and a variant without it does not.  Without a
     wall, on ``interaction_force_rms_N``.
     """
-    walled = any(r.get("wall_penetration_max_m_mean") is not None for r in summary)
+    walled = has_wall(summary)
     out = {"Which is more transparent": (headline(summary, "interaction_force_free_rms_N") if walled else [])
            or headline(summary)}
     if walled:
@@ -380,7 +386,7 @@ def write_sweep_report(result, settings: Mapping) -> Path:
                      "error": r.error, "metrics": r.metrics} for r in result.results]}
     (out / "sweep.json").write_text(json.dumps(doc, indent=1, allow_nan=False) + "\n", encoding="utf-8")
     # with a wall, transparency is judged with the hand outside it: inside, the force is the wall a variant renders
-    walled = any(r.get("wall_penetration_max_m_mean") is not None for r in summary)
+    walled = has_wall(summary)
     figs = []
     for k in ("interaction_force_rms_N", *(("interaction_force_free_rms_N",) if walled else ()),
               "apparent_mass_hand_kg", "human_effort_ratio", "wall_stiffness_rendered_N_per_m", "hqp_solve_median_us"):
