@@ -26,14 +26,17 @@ feasible set and cost as a function of q̈, hence the same optimum; the
 difference to the 2 nv form is rounding and solver tolerance (tested against
 it and against cvxpy).  The torque is clipped to its limits to remove the
 rounding of the hard rows (at most the feasibility tolerance).
-**One compiled call for the rows.**  When every task is one of the shipped
-classes (:data:`controllers.tasks._program.PROGRAM_TASKS`) and the torque is
-eliminated, the controller writes the whole stack in one compiled call
-(:func:`controllers.tasks._kernels.fill_program`) with the same functions as
-the tasks' own ``rows``: the same rows, to the bit (tested).  Such a program
-reads the tasks' parameters (weights included) when the controller is reset:
-a parameter changed later takes effect at the next reset.  Any other stack
-is written task by task.
+**One compiled call for the rows.**  When the torque is eliminated, the
+controller writes the whole stack in one compiled call
+(:func:`controllers.tasks._kernels.fill_program`): the rows of the shipped
+classes (:data:`controllers.tasks._program.PROGRAM_TASKS`) computed there with
+the same functions as the tasks' own ``rows``, those of any other task (a
+user's, a subclass) taken from its ``rows`` each tick, checked and put in q̈
+in Python as task by task, and copied in: the same rows, to the bit (tested).
+Such a program reads the shipped tasks' parameters (weights included) when
+the controller is reset: a parameter changed later takes effect at the next
+reset (another task's weight is read every tick).  A stack with no shipped
+task, or solved in [q̈; τ], is written task by task.
 If a solve fails, a task's linear algebra fails or the hard constraints cannot hold, the controller never
 uses a made-up answer: it commands the safe fallback
 :math:`\\tau = g(q) - D \\dot q` (gravity compensation and joint damping),
@@ -227,15 +230,16 @@ class HQPController(Controller):
     def diagnostics(self):
         return self._diag
 
-    def _fill_stack(self, s: TickState, c: np.ndarray | None) -> tuple[LevelStack, int]:
+    def _fill_stack(self, s: TickState, c: np.ndarray | None, given: dict | None = None) -> tuple[LevelStack, int]:
         """Every level's rows of this tick written into the controller's buffers (in q̈ when ``c`` is given).
 
         Returns the stack over the buffers (valid until the next tick) and the number of task rows. Rows
         that are 2-D and 1-D float arrays of matching shapes go in as they are (their finiteness is
         checked once on the whole stack, :meth:`_check_finite`); any other entry goes through the checks
-        of :class:`~controllers.hqp.Level`, which raise naming the level and the entry (or normalise it,
-        e.g. a 1-D row). With ``c``, a row on the torques :math:`A_q \\ddot q + A_\\tau \\tau = b` is
-        written as :math:`(A_q + A_\\tau M)\\ddot q = b - A_\\tau c` (module docstring).
+        of :class:`~controllers.hqp.Level` (:meth:`_checked_rows`). An entry with no rows is left out, as
+        one that returned None. With ``c``, a row on the torques :math:`A_q \\ddot q + A_\\tau \\tau = b` is
+        written as :math:`(A_q + A_\\tau M)\\ddot q = b - A_\\tau c` (module docstring). ``given`` maps a
+        task's slot to what its ``rows`` already returned this tick (so that it is called once a tick).
         """
         n, buf = s.nv, self._buf
         cols = 2 * n
@@ -253,7 +257,7 @@ class HQPController(Controller):
             spans = ([], [])  # per kind, (first row, end row, weight) of each entry
             unit = True
             for slot, t, is_eq in level:
-                r = t.rows(s)
+                r = given[slot] if given is not None and slot in given else t.rows(s)
                 if r is None:
                     continue
                 A, b = r[0], r[1]
@@ -263,14 +267,9 @@ class HQPController(Controller):
                         and b.shape[0] == A.shape[0]):
                     A_q, A_t = hit[1], hit[2]  # the same read-only rows as at an earlier tick: checked and split then
                 else:
-                    if not (type(A) is _NDARRAY and type(b) is _NDARRAY and A.dtype == _F64 and b.dtype == _F64
-                            and A.ndim == 2 and b.ndim == 1 and A.shape == (b.shape[0], cols)):
-                        kind = "eq" if is_eq else "ineq"
-                        checked = Level(**{kind: [(A, b, t.weight)]}, name=self._level_names[i])
-                        A, b = (checked.A, checked.b) if is_eq else (checked.C, checked.d)
-                        if A.shape[1] != cols:
-                            raise ParameterError(f"{self._level_names[i]}: task {t.name!r} returned {A.shape[1]} "
-                                                 f"columns, expected 2 nv = {cols}")
+                    A, b = self._checked_rows(i, t, is_eq, A, b, cols)
+                    if b.shape[0] == 0:
+                        continue
                     if c is None:
                         A_q, A_t = A, None
                     else:
@@ -325,20 +324,82 @@ class HQPController(Controller):
                                        buf.d[:m_i], buf.wi[:m_i], buf.in_off, buf.cols, names, layout)
         return stack, rows
 
+    def _checked_rows(self, i: int, t: Task, is_eq: bool, A, b, cols: int) -> tuple[np.ndarray, np.ndarray]:
+        """A task's rows as they are when they are 2-D and 1-D float arrays of matching shapes with ``cols``
+        columns; otherwise through the checks of :class:`~controllers.hqp.Level`, which raise naming the level
+        and the entry (or normalise it, e.g. a 1-D row), and a check of the number of columns."""
+        if not (type(A) is _NDARRAY and type(b) is _NDARRAY and A.dtype == _F64 and b.dtype == _F64
+                and A.ndim == 2 and b.ndim == 1 and A.shape == (b.shape[0], cols)):
+            kind = "eq" if is_eq else "ineq"
+            checked = Level(**{kind: [(A, b, t.weight)]}, name=self._level_names[i])
+            A, b = (checked.A, checked.b) if is_eq else (checked.C, checked.d)
+            if A.shape[1] != cols:
+                raise ParameterError(f"{self._level_names[i]}: task {t.name!r} returned {A.shape[1]} "
+                                     f"columns, expected 2 nv = {cols}")
+        return A, b
+
+    def _external_rows(self, s: TickState, c: np.ndarray) -> tuple[dict, int, int]:
+        """The rows of this tick of the program's external tasks (a user's, a subclass), in q̈, into the
+        program's ``ext_rows``, ``ext_rhs`` and ``ext_spans``, and their weights into its parameters.
+
+        The same checks and the same arithmetic as :meth:`_fill_stack` (:meth:`_checked_rows`, then
+        :math:`(A_q + A_\\tau M)\\ddot q = b - A_\\tau c` when a row acts on the torques), so the same rows to the bit.
+        Returns what each task's ``rows`` returned, by slot, and the equality and inequality rows written.
+        """
+        prog, n, M = self._program, s.nv, s.M
+        cols, fp, spans = 2 * n, prog.fp, prog.ext_spans
+        given: dict = {}
+        at, n_eq, n_in = 0, 0, 0
+        for e, (slot, i, t, is_eq, o) in enumerate(prog.external):
+            given[slot] = r = t.rows(s)
+            spans[e, 0] = -1
+            if r is None:
+                continue
+            A, b = self._checked_rows(i, t, is_eq, r[0], r[1], cols)
+            m = b.shape[0]
+            if m == 0:
+                continue
+            A_t = A[:, n:]
+            if np.count_nonzero(A_t):
+                rows, rhs = A[:, :n] + A_t @ M, b - A_t @ c
+            else:
+                rows, rhs = A[:, :n], b
+            prog.reserve(at + m)
+            prog.ext_rows[at:at + m] = rows
+            prog.ext_rhs[at:at + m] = rhs
+            spans[e, 0], spans[e, 1] = at, at + m
+            w = float(t.weight)  # read every tick, as task by task
+            fp[o], fp[o + 1] = w, math.sqrt(w)
+            at += m
+            if is_eq:
+                n_eq += m
+            else:
+                n_in += m
+        return given, n_eq, n_in
+
     def _fill_program(self, s: TickState, c: np.ndarray) -> tuple[LevelStack, int]:
-        """:meth:`_fill_stack` (with ``c``) and :meth:`_check_finite` of a stack of shipped tasks, in one compiled
-        call (:func:`controllers.tasks._kernels.fill_program`, the same rows). Rows that are not finite are
-        written again task by task, so that the error names the task."""
+        """:meth:`_fill_stack` (with ``c``) and :meth:`_check_finite` of the stack, in one compiled call
+        (:func:`controllers.tasks._kernels.fill_program`, the same rows): the shipped tasks' rows computed
+        there, the external tasks' rows (:meth:`_external_rows`) copied. Rows that are not finite are written
+        again task by task (each task's rows called once a tick all the same), so that the error names the task."""
         prog, buf = self._program, self._buf
+        given = None
+        if prog.external:
+            given, n_eq, n_in = self._external_rows(s, c)
+            if prog.max_eq + n_eq > buf.b.shape[0]:
+                buf.parts(True, prog.max_eq + n_eq)
+            if prog.max_in + n_in > buf.d.shape[0]:
+                buf.parts(False, prog.max_in + n_in)
         prog.gather(s)
         m_e, m_i, rows, finite = _task_kernels.fill_program(
-            prog.prog, prog.fp, s.q, s.dq, s.M, s.Minv, s.g, s.cuff_force, c, s.dt_s, prog.frames, buf.A, buf.b,
-            buf.sw, buf.C, buf.d, buf.wi, buf.eq_off, buf.in_off, buf.unit_eq, prog.spans)
+            prog.prog, prog.fp, s.q, s.dq, s.M, s.Minv, s.g, s.cuff_force, c, s.dt_s, prog.frames, prog.ext_rows,
+            prog.ext_rhs, prog.ext_spans, buf.A, buf.b, buf.sw, buf.C, buf.d, buf.wi, buf.eq_off, buf.in_off,
+            buf.unit_eq, prog.spans)
         if not finite:
             # the program wrote over the rows _fill_stack keeps in place: it writes them all again
             self._placed = [None] * len(self._placed)
             self._min_norm_at = -1
-            stack, rows = self._fill_stack(s, c)
+            stack, rows = self._fill_stack(s, c, given)
             self._check_finite(stack)
             return stack, rows
         stack = LevelStack.from_arrays(buf.A[:m_e], buf.b[:m_e], buf.sw[:m_e], buf.eq_off, buf.unit_eq, buf.C[:m_i],

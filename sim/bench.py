@@ -37,6 +37,13 @@ machines differ).  Cases:
   joints (7, 14, 28: :func:`models.chain.build_chain` chains without a
   wearer, under the same kind of stack, each with the torque to hold its own
   weight: :func:`chain_tick_times`).
+* **A user's task**: the reference stack with one more task written in
+  plain Python, as a user writes one (:class:`PythonHandCeiling`, in the
+  wall's level, a ceiling the hand never reaches, so both runs move alike),
+  against the same run without it: ``user_task`` gives both runs' tick, rows
+  and solve medians (:func:`user_task_cost`). Such a task's rows come from
+  its own ``rows`` each tick and are copied into the compiled program that
+  writes the shipped tasks' rows (:mod:`controllers.tasks._program`).
 * **Sweep throughput**: the same small sweep (:func:`sim.sweep.run_sweep`)
   with one and with two worker processes, alternating, ``sweep_repeats``
   times each (``jobs2_speedup`` = median wall time with 1 / median wall time
@@ -86,7 +93,8 @@ from controllers.hqp import HQPParams
 from controllers.hqp_controller import HQPController
 from controllers.qp_backends import available_backends
 from controllers.registry import make_controller
-from controllers.tasks import JointDamping, JointPositionLimits, JointVelocityLimits, Transparency
+from controllers.tasks import JointDamping, JointPositionLimits, JointVelocityLimits, Task, TickState, Transparency
+from models._checks import finite
 from models.chain import ChainParams, build_chain
 from models.errors import ParameterError, SandboxError
 from models.records import Measurement
@@ -110,6 +118,8 @@ __all__ = [
     "compare_backends",
     "level_stacks",
     "chain_tick_times",
+    "PythonHandCeiling",
+    "user_task_cost",
     "sweep_throughput",
     "TwoWarmProcesses",
     "memory_run",
@@ -706,6 +716,64 @@ def chain_tick_times(n_joints: int, n_ticks: int, folder: str | Path, *, dt_s: f
 
 
 # --------------------------------------------------------------------------------------------
+# a user's task
+
+
+class PythonHandCeiling(Task):
+    r"""A task written in plain Python, as a user writes one (the README's example): the hand point below
+    ``z_max_m`` [m] (world z).
+
+    One inequality row on q̈, a one-step look-ahead of the point's height (common practice for a bound in
+    discrete time): :math:`z + \dot z\,\Delta t + (J_z \ddot q + \dot J_z \dot q)\,\Delta t^2 \le z_{max}`,
+    i.e. :math:`J_z \ddot q \le (z_{max} - z - \dot z \Delta t)/\Delta t^2 - \dot J_z \dot q`.
+    """
+
+    name, kind = "python_hand_ceiling", "ineq"
+
+    def __init__(self, z_max_m: float, frame: str = "exo_hand_point") -> None:
+        self.z_max = finite("PythonHandCeiling", "z_max_m", z_max_m)
+        self.frame = frame
+
+    def bind(self, state: TickState) -> None:
+        self.fid = state.arm.frame_id(self.frame)
+
+    def rows(self, state: TickState) -> tuple[np.ndarray, np.ndarray]:
+        Jz = state.jacobian(self.fid)[2]
+        z, zd, dt = state.position(self.fid)[2], Jz @ state.dq, state.dt_s
+        C = np.zeros((1, 2 * state.nv))
+        C[0, : state.nv] = Jz
+        return C, np.array([(self.z_max - z - zd * dt) / dt**2 - state.drift(self.fid)[2]])
+
+
+#: Height of :func:`user_task_cost`'s ceiling above the world origin [m]: out of any arm's reach.
+USER_TASK_CEILING_M = 10.0
+
+
+def user_task_cost(scenario: Scenario, folder: str | Path) -> list[dict]:
+    """Tick figures (:func:`tick_statistics`) of the ``walls`` stack, then of the same stack with a
+    :class:`PythonHandCeiling` (at :data:`USER_TASK_CEILING_M`, never reached) beside the scenario's walls.
+
+    Two runs of ``scenario``, one after the other, each a dict with ``stack``, ``tick_time_median_us``,
+    ``task_rows_median_us``, ``hqp_solve_median_us`` and ``controller_time_median_us``.
+    """
+    base = [["joint_limits", "velocity_limits"], list(scenario.walls), ["transparency"], ["damping"]]
+    if not scenario.walls:
+        base.pop(1)
+    with_task = [list(level) for level in base]
+    with_task[1 if scenario.walls else 0].append(PythonHandCeiling(USER_TASK_CEILING_M))
+    stacks = {"walls": base, "walls + a task in Python": with_task}
+    sc = dataclasses.replace(scenario, variants=stacks, controllers=tuple(stacks))
+    out = []
+    for k, name in enumerate(stacks):
+        run = Path(folder) / f"stack{k}"
+        simulate(sc, name, run)
+        st = tick_statistics(run, sc.control_period_s)
+        out.append({"stack": name} | {key: st[key] for key in ("tick_time_median_us", "task_rows_median_us",
+                                                                "hqp_solve_median_us", "controller_time_median_us")})
+    return out
+
+
+# --------------------------------------------------------------------------------------------
 # sweep throughput and memory (child processes)
 
 
@@ -943,6 +1011,10 @@ def run_bench(scenario_path: str | Path, params: BenchParams | None = None, *, w
         say("backends: " + ", ".join(report["backends"]))
         report["levels_series"] = _level_series(dataclasses.replace(ref, duration_s=params.series_duration_s),
                                                 work / "levels", say)
+        report["user_task"] = user_task_cost(dataclasses.replace(ref, duration_s=params.series_duration_s),
+                                             work / "user_task")
+        say("user's task: tick " + ", ".join(f"{u['tick_time_median_us']:.0f} us ({u['stack']})"
+                                              for u in report["user_task"]))
         report["joints_series"] = []
         for nj in params.chain_joints:
             report["joints_series"].append(chain_tick_times(nj, params.chain_ticks, work / f"chain{nj}"))
@@ -1034,6 +1106,13 @@ def format_report(report: dict) -> str:
     lines += ["", f"{'levels':<10} {'tick median us':>15} {'HQP median us':>15}"]
     for p in r["levels_series"]:
         lines.append(f"{p['levels']:<10} {p['tick_time_median_us']:>15.1f} {_fmt(p['hqp_solve_median_us']):>15}")
+    if r.get("user_task"):
+        lines += ["", f"{'stack':<26} {'tick median us':>15} {'rows median us':>15} {'HQP median us':>14}"]
+        for u in r["user_task"]:
+            lines.append(f"{u['stack']:<26} {u['tick_time_median_us']:>15.1f} {_fmt(u['task_rows_median_us']):>15}"
+                         f" {_fmt(u['hqp_solve_median_us']):>14}")
+        lines.append("  (sim.bench.user_task_cost: the same run with sim.bench.PythonHandCeiling, a task written in "
+                     "plain Python, beside the walls)")
     lines += ["", f"{'joints':<10} {'tick median us':>15} {'tick p99 us':>15} {'torque limit N m':>17} "
                   f"{'QP-backend ticks':>17}"]
     for p in r["joints_series"]:

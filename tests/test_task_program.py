@@ -1,4 +1,5 @@
-"""A stack of shipped tasks written in one compiled call (``controllers.tasks._program``).
+"""A stack written in one compiled call (``controllers.tasks._program``): shipped tasks computed there, a user's
+tasks (and subclasses) copied in from their own ``rows``.
 
 References, each beside its check:
 
@@ -29,6 +30,7 @@ from controllers.tasks import (
     PlaneWall,
     Posture,
     SphereWall,
+    Task,
     TickState,
     Transparency,
 )
@@ -37,7 +39,7 @@ from controllers.tasks.library import WallLaw
 from models.records import Measurement
 
 pytest.importorskip("cvxpy")
-from sim.bench import solve_levels_cvxpy, stack_rows  # noqa: E402
+from sim.bench import PythonHandCeiling, solve_levels_cvxpy, stack_rows  # noqa: E402
 
 CUFFS = {"upper_arm": "exo_cuff_upper_arm", "forearm": "exo_cuff_forearm", "hand": "exo_cuff_hand"}
 TOL_NM = 1e-5  # as the bench's cvxpy comparison
@@ -71,6 +73,31 @@ def _states(arm, n, seed, wrench_scale=10.0, speed_scale=1.0, spread=0.15):
         yield Measurement(0.0, q, dq, np.zeros(7), w)
 
 
+class _WristTorque(Task):
+    """A user's equality on the torques, tau_wrist = 0.1 N m, weight 2: as plain lists (which the checks
+    turn into arrays) on one tick in three, no rows on the next, an empty array on the third."""
+
+    name, kind, weight = "wrist_torque", "eq", 2.0
+
+    def __init__(self):
+        self.calls = 0
+
+    def rows(self, state):
+        self.calls += 1
+        if self.calls % 3 == 1:
+            return [[0.0] * (2 * state.nv - 1) + [1.0]], [0.1]
+        if self.calls % 3 == 2:
+            return None
+        return np.zeros((0, 2 * state.nv)), np.zeros(0)
+
+
+class _NearerPlane(PlaneWall):
+    """A subclass of a shipped task (it may change faces): written from its own rows, as a user's task."""
+
+    def faces(self, p):
+        return super().faces(np.asarray(p) + [0.01, 0.0, 0.0])
+
+
 def _stacks(arm):
     """Level lists that hold every shipped task, weights other than 1, and walls touched on some ticks only."""
     x = _hand(arm)
@@ -88,6 +115,9 @@ def _stacks(arm):
                            [Posture((0.1, 0.2, 0.0, 0.8, 0.0, 0.1, 0.0), frequency_Hz=2.0, weight=0.5),
                             JointDamping(weight=0.1)]],
         "torque": lambda: [[JointPositionLimits(braking_accel_rad_s2=12.0)], [GravityTorque()], [JointDamping()]],
+        "user": lambda: [[JointPositionLimits(), PythonHandCeiling(x[2] + 0.05)],
+                         [_NearerPlane(x + [0.02, 0, 0], (1.0, 0.2, 0.0), law)],
+                         [Transparency(0.4), _WristTorque()], [JointDamping()]],
     }
 
 
@@ -101,7 +131,7 @@ def _pair(make_levels, ctx):
     return fast, slow
 
 
-@pytest.mark.parametrize("name", ["walls", "shapes", "torque"])
+@pytest.mark.parametrize("name", ["walls", "shapes", "torque", "user"])
 def test_the_program_writes_the_task_by_task_stack_to_the_bit(name):
     # reference: the controller's task-by-task rows (each task's rows, then the elimination of the torque)
     arm, ctx = _context()
@@ -124,9 +154,14 @@ def test_the_program_writes_the_task_by_task_stack_to_the_bit(name):
         touched.update(t.name for (_, t), (start, _) in zip(fast._program.tasks, fast._program.spans) if start >= 0)
     if name == "shapes":  # every wall shape wrote rows on some tick
         assert {"wall_box", "wall_sphere"} <= touched
+    if name == "user":  # the user's tasks and the subclass were copied in, each on some tick
+        names = ["python_hand_ceiling", "wall_plane", "wrist_torque"]
+        assert [t.name for _, _, t, _, _ in fast._program.external] == names
+        assert set(names) <= touched
 
 
-@pytest.mark.parametrize(("name", "tol_Nm"), [("walls", TOL_NM), ("shapes", 1e-4), ("torque", TOL_NM)])
+@pytest.mark.parametrize(("name", "tol_Nm"), [("walls", TOL_NM), ("shapes", 1e-4), ("torque", TOL_NM),
+                                             ("user", TOL_NM)])
 def test_a_program_driven_controller_gives_the_torques_of_cvxpy(name, tol_Nm):
     # reference: cvxpy (Clarabel) level by level on the rows of a controller of the same levels. The walls of
     # "shapes" hold the hand deep inside them, so most torques sit at their limits (80 N m), where the
@@ -145,14 +180,12 @@ def test_a_program_driven_controller_gives_the_torques_of_cvxpy(name, tol_Nm):
         assert np.abs(tau - tau_cvx).max() < tol_Nm
 
 
-def test_only_exact_shipped_tasks_in_the_q_ddot_form_make_a_program():
+def test_a_program_copies_a_users_task_or_a_subclass_and_needs_a_shipped_task_and_the_q_ddot_form():
     arm, ctx = _context()
-
-    class NearerPlane(PlaneWall):  # a subclass may change faces: it is written task by task
-        def faces(self, p):
-            return super().faces(np.asarray(p) + [0.01, 0.0, 0.0])
-
-    for levels, kwargs in (([[NearerPlane((0.4, 0, 0), (1, 0, 0))], [JointDamping()]], {}),
+    ctrl = HQPController([[_NearerPlane((0.4, 0, 0), (1, 0, 0))], [JointDamping()]])
+    ctrl.reset(ctx)
+    assert [type(t) for _, _, t, _, _ in ctrl._program.external] == [_NearerPlane]
+    for levels, kwargs in (([[_NearerPlane((0.4, 0, 0), (1, 0, 0))], [_WristTorque()]], {}),  # nothing to compile
                            ([[Transparency()], [JointDamping()]], {"eliminate_torque": False}),
                            ([[Transparency()], [JointDamping()]], {"params": HQPParams(compiled=False)})):
         ctrl = HQPController(levels, **kwargs)
@@ -160,7 +193,45 @@ def test_only_exact_shipped_tasks_in_the_q_ddot_form_make_a_program():
         assert ctrl._program is None
     ctrl = HQPController([[Transparency()], [JointDamping()]], params=HQPParams())
     ctrl.reset(ctx)
+    assert ctrl._program is not None and not ctrl._program.external
+
+
+def test_a_users_task_weight_is_read_every_tick_as_task_by_task():
+    # reference: the task-by-task stack, which reads each task's weight when it writes its rows
+    arm, ctx = _context()
+    fast, slow = _pair(_stacks(arm)["user"], ctx)
+    new_weight_seen = False
+    for k, m in enumerate(_states(arm, 9, seed=3)):
+        if k == 4:
+            for ctrl in (fast, slow):
+                ctrl.levels[2][1].weight = 0.25
+        for ctrl in (fast, slow):
+            ctrl.state.update(m)
+        c = fast.state.h - fast.state.cuff_force
+        a, _ = fast._fill_program(fast.state, c)
+        b, _ = slow._fill_stack(slow.state, c)
+        for key in ("A", "b", "sw", "unit_eq"):
+            assert np.array_equal(getattr(a, key), getattr(b, key)), (k, key)
+        new_weight_seen |= 0.5 in a.sw  # sqrt(0.25): the wrist row of a tick after the change
+    assert new_weight_seen
+
+
+def test_non_finite_rows_of_a_users_task_in_a_program_name_it_and_its_rows_are_called_once_a_tick():
+    class Glitch(_WristTorque):
+        name = "glitch"
+
+        def rows(self, state):
+            self.calls += 1
+            return np.zeros((1, 2 * state.nv)), np.array([np.nan if self.calls == 2 else 0.0])
+
+    arm, ctx = _context()
+    ctrl = HQPController([[Transparency()], [Glitch(), JointDamping()]])
+    ctrl.reset(ctx)
     assert ctrl._program is not None
+    for k, m in enumerate(_states(arm, 3, seed=2)):
+        ctrl.step(m)
+        assert ctrl.levels[1][0].calls == k + 1  # also on the tick written again task by task for the message
+    assert ctrl.fallback_count == 1 and "glitch" in ctrl.last_fallback_reason
 
 
 def test_non_finite_rows_of_a_program_name_their_task():

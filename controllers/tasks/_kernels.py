@@ -193,7 +193,7 @@ def sphere_faces(center, radius, inside, p, normals, pens):
 
 # -- a whole stack of shipped tasks in one call ---------------------------------------------
 #: task codes of a program (:mod:`controllers.tasks._program`)
-GRAVITY, POSITION_LIMITS, VELOCITY_LIMITS, TRANSPARENCY, DAMPING, POSTURE, WALL = range(7)
+GRAVITY, POSITION_LIMITS, VELOCITY_LIMITS, TRANSPARENCY, DAMPING, POSTURE, WALL, EXTERNAL = range(8)
 #: wall shapes of a WALL entry
 PLANE, BOX, SPHERE = range(3)
 #: per wall frame, the layout of a row of ``frames``: R (9, row-major), p (3), w (6), drift (6), J (6 nv)
@@ -214,8 +214,8 @@ def _limit_rows_into(C, o, nv):
 
 
 @nb.njit(cache=True)
-def fill_program(prog, fp, q, dq, M, Minv, g, cuff_force, c, dt, frames, A, b, sw, C, d, wi, eq_off, in_off, unit_eq,
-                 spans):
+def fill_program(prog, fp, q, dq, M, Minv, g, cuff_force, c, dt, frames, ext_rows, ext_rhs, ext_spans, A, b, sw, C, d,
+                 wi, eq_off, in_off, unit_eq, spans):
     r"""Every level's rows of a stack of shipped tasks, with the torque eliminated, in one call.
 
     What :class:`controllers.hqp_controller.HQPController` writes task by task (each task's ``rows``, then
@@ -233,6 +233,11 @@ def fill_program(prog, fp, q, dq, M, Minv, g, cuff_force, c, dt, frames, A, b, s
     each task (-1 when it had none this tick). Returns ``(m_e, m_i, rows, finite)``: the equality and
     inequality rows written (the minimum-norm level's included), the task rows among them, and whether every
     row written is finite.
+
+    An ``EXTERNAL`` entry is a task the program cannot compute (a user's task, or a subclass of a shipped
+    one): its rows of this tick, already in q̈ (``ext_rows`` (R, nv), ``ext_rhs`` (R,), written by
+    :meth:`controllers.tasks._program.TaskProgram.external_rows`), are rows ``ext_spans[e]`` of those
+    buffers, ``e`` its parameter; they are copied into place as they are.
     """
     nv = q.shape[0]
     n_levels = unit_eq.shape[0] - 1  # the program's levels; the last entry is the minimum-norm level
@@ -288,7 +293,7 @@ def fill_program(prog, fp, q, dq, M, Minv, g, cuff_force, c, dt, frames, A, b, s
                 for i in range(nv):
                     b[start + i] = w2 * (fp[o + 4 + i] - q[i]) - k2 * dq[i]
             m = nv
-        else:  # WALL; fp: alpha, K, B, has compliance, compliance (3), shape, the shape's parameters
+        elif code == WALL:  # fp: alpha, K, B, has compliance, compliance (3), shape, the shape's parameters
             fr = frames[prog[t, FRAME]]
             R = fr[FRAME_R: FRAME_R + 9].reshape((3, 3))
             p = fr[FRAME_P: FRAME_P + 3]
@@ -307,6 +312,17 @@ def fill_program(prog, fp, q, dq, M, Minv, g, cuff_force, c, dt, frames, A, b, s
                                 fr[FRAME_DRIFT: FRAME_DRIFT + 6], Minv, dq, fp[o + 2], fp[o + 3], fp[o + 4], A, b,
                                 start)
             m = k
+        elif code == EXTERNAL:  # fp: the entry's index e among the external tasks; its rows are copied
+            e = int(fp[o + 2])
+            s0 = ext_spans[e, 0]
+            if s0 >= 0:
+                m = ext_spans[e, 1] - s0
+                rows_out = A if is_eq else C
+                rhs_out = b if is_eq else d
+                for i in range(m):
+                    for j in range(nv):
+                        rows_out[start + i, j] = ext_rows[s0 + i, j]
+                    rhs_out[start + i] = ext_rhs[s0 + i]
         if m == 0:
             spans[t, 0] = spans[t, 1] = -1
             continue

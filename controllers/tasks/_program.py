@@ -1,11 +1,14 @@
-"""A stack of shipped tasks as one compiled program: every level's rows written in one call per tick.
+"""A stack of tasks as one compiled program: every level's rows written in one call per tick.
 
-:class:`TaskProgram` turns the levels of an :class:`~controllers.hqp_controller.HQPController` whose tasks
-are all shipped classes (exactly these classes, not subclasses, which may change ``rows`` or ``faces``) into
-the arrays of :func:`controllers.tasks._kernels.fill_program`: a code and parameters per task, and per wall
+:class:`TaskProgram` turns the levels of an :class:`~controllers.hqp_controller.HQPController` into the
+arrays of :func:`controllers.tasks._kernels.fill_program`: a code and parameters per task, and per wall
 frame a row of the tick's frame data (orientation, position, wrench, drift and Jacobian) gathered from the
-:class:`TickState`. The kernel computes every row with the same functions as the tasks' own ``rows``, so the
-stack it writes is the one the controller writes task by task (tested to the bit).
+:class:`TickState`. The kernel computes every row of a shipped task (exactly these classes, not subclasses,
+which may change ``rows`` or ``faces``) with the same functions as the task's own ``rows``. Any other task
+(a user's, a subclass) is an *external* entry: the controller calls its ``rows`` each tick, checks them and
+eliminates the torque as it does task by task, and the kernel copies them into place. So the stack it writes
+is the one the controller writes task by task (tested to the bit), and a stack that holds a user's task
+keeps its shipped tasks compiled.
 """
 
 from __future__ import annotations
@@ -45,17 +48,26 @@ _WALL_ROWS = 3
 class TaskProgram:
     """The tasks of bound levels as a program of :func:`~controllers.tasks._kernels.fill_program`.
 
-    Build with :meth:`build` (None when a task is not one of :data:`PROGRAM_TASKS` or cannot be written as
-    one). Attributes: ``prog`` (T, 5) int64, ``fp`` float64 parameters, ``frames`` (F, 24 + 6 nv) the wall
-    frames' data, rewritten by :meth:`gather`, ``spans`` (T, 2) int64 written by the kernel, ``tasks`` the
-    tasks in program order with their levels, and ``max_eq``/``max_in`` the most equality and inequality
-    rows a tick can write (the final minimum-norm level's 2 nv included).
+    Build with :meth:`build` (None when no task is one of :data:`PROGRAM_TASKS` written as one: the
+    controller then writes the stack task by task). Attributes: ``prog`` (T, 5) int64, ``fp`` float64
+    parameters, ``frames`` (F, 24 + 6 nv) the wall frames' data, rewritten by :meth:`gather`, ``spans``
+    (T, 2) int64 written by the kernel, ``tasks`` the tasks in program order with their levels,
+    ``max_eq``/``max_in`` the most equality and inequality rows the program's own tasks can write (the final
+    minimum-norm level's 2 nv included; the external tasks' rows come on top), and ``external`` per
+    external task ``(slot, level, task, is equality, where its parameters start in fp)``, its slot being its
+    index in ``tasks``; their rows of a tick go into ``ext_rows``, ``ext_rhs`` and ``ext_spans`` (E, 2)
+    (:meth:`reserve` grows the first two).
     """
 
-    def __init__(self, prog, fp, frame_keys, tasks, n_levels: int, nv: int, max_eq: int, max_in: int) -> None:
+    def __init__(self, prog, fp, frame_keys, tasks, n_levels: int, nv: int, max_eq: int, max_in: int,
+                 external=()) -> None:
         self.prog, self.fp = prog, fp
         self.tasks, self.n_levels, self.nv = tasks, n_levels, nv
         self.max_eq, self.max_in = max_eq, max_in
+        self.external = tuple(external)
+        room = 4 * nv if self.external else 0  # rows; grown by reserve
+        self.ext_rows, self.ext_rhs = np.zeros((room, nv)), np.zeros(room)
+        self.ext_spans = np.full((len(self.external), 2), -1, dtype=np.int64)
         self.frames = np.zeros((len(frame_keys), _kernels.FRAME_J + 6 * nv))
         self.spans = np.full((len(tasks), 2), -1, dtype=np.int64)
         # per frame: (frame id, sensor frame id, sensor) and views of its row, written by gather
@@ -68,17 +80,17 @@ class TaskProgram:
 
     @classmethod
     def build(cls, levels: Sequence[Sequence[Task]], state: TickState) -> TaskProgram | None:
-        """The program of ``levels`` (tasks already bound to ``state``), or None if a task cannot be in one."""
+        """The program of ``levels`` (tasks already bound to ``state``), or None if none of its tasks is a
+        shipped one the kernel can write (every task external: task by task is then as fast)."""
         nv = state.nv
-        rows, fp, frame_keys, tasks = [], [], [], []
+        rows, fp, frame_keys, tasks, external = [], [], [], [], []
         max_eq, max_in = 2 * nv, 0
         for level, level_tasks in enumerate(levels):
             for t in level_tasks:
-                if type(t) not in PROGRAM_TASKS:
-                    return None
-                entry = t._program_entry(state)
-                if entry is None:
-                    return None
+                entry = t._program_entry(state) if type(t) in PROGRAM_TASKS else None
+                if entry is None:  # its rows come from its own rows() each tick
+                    external.append((len(tasks), level, t, t.kind == "eq", len(fp)))
+                    entry = (_kernels.EXTERNAL, (len(external) - 1,), None)
                 code, params, frame = entry
                 is_eq = t.kind == "eq"
                 w = float(t.weight)
@@ -89,14 +101,25 @@ class TaskProgram:
                     slot = frame_keys.index(frame)
                 rows.append((code, level, int(is_eq), len(fp), slot))
                 fp += [w, math.sqrt(w), *map(float, params)]
-                most = _WALL_ROWS if code == _kernels.WALL else _ROWS_NV[code] * nv
+                most = 0 if code == _kernels.EXTERNAL else _WALL_ROWS if code == _kernels.WALL else _ROWS_NV[code] * nv
                 if is_eq:
                     max_eq += most
                 else:
                     max_in += most
                 tasks.append((level, t))
+        if len(external) == len(tasks):
+            return None
         prog = np.array(rows, dtype=np.int64).reshape(-1, 5)
-        return cls(prog, np.array(fp, dtype=float), frame_keys, tasks, len(levels), nv, max_eq, max_in)
+        return cls(prog, np.array(fp, dtype=float), frame_keys, tasks, len(levels), nv, max_eq, max_in, external)
+
+    def reserve(self, rows: int) -> None:
+        """Grow ``ext_rows`` and ``ext_rhs`` (doubled, keeping the rows written) to hold ``rows`` rows."""
+        if rows > self.ext_rhs.shape[0]:
+            size = max(rows, 2 * self.ext_rhs.shape[0])
+            grown_rows, grown_rhs = np.zeros((size, self.nv)), np.zeros(size)
+            grown_rows[: self.ext_rhs.shape[0]] = self.ext_rows
+            grown_rhs[: self.ext_rhs.shape[0]] = self.ext_rhs
+            self.ext_rows, self.ext_rhs = grown_rows, grown_rhs
 
     def gather(self, state: TickState) -> None:
         """Write this tick's data of every wall frame (as :class:`~controllers.tasks.WallTask` reads them).
