@@ -40,8 +40,8 @@ machines differ).  Cases:
 * **A user's task**: the reference stack with one more task written in
   plain Python, as a user writes one (:class:`PythonHandCeiling`, in the
   wall's level, a ceiling the hand never reaches, so both runs move alike),
-  against the same run without it: ``user_task`` gives both runs' tick, rows
-  and solve medians (:func:`user_task_cost`). Such a task's rows come from
+  against the same run without it, the two alternating: ``user_task`` gives
+  both stacks' tick, rows and solve medians (:func:`user_task_cost`). Such a task's rows come from
   its own ``rows`` each tick and are copied into the compiled program that
   writes the shipped tasks' rows (:mod:`controllers.tasks._program`).
 * **Sweep throughput**: the same small sweep (:func:`sim.sweep.run_sweep`)
@@ -747,13 +747,18 @@ class PythonHandCeiling(Task):
 
 #: Height of :func:`user_task_cost`'s ceiling above the world origin [m]: out of any arm's reach.
 USER_TASK_CEILING_M = 10.0
+#: Runs of each stack in :func:`user_task_cost`, the two stacks alternating.
+USER_TASK_REPEATS = 2
+_USER_TASK_KEYS = ("tick_time_median_us", "task_rows_median_us", "hqp_solve_median_us", "controller_time_median_us")
 
 
-def user_task_cost(scenario: Scenario, folder: str | Path) -> list[dict]:
-    """Tick figures (:func:`tick_statistics`) of the ``walls`` stack, then of the same stack with a
+def user_task_cost(scenario: Scenario, folder: str | Path, repeats: int = USER_TASK_REPEATS) -> list[dict]:
+    """Tick figures (:func:`tick_statistics`) of the ``walls`` stack, and of the same stack with a
     :class:`PythonHandCeiling` (at :data:`USER_TASK_CEILING_M`, never reached) beside the scenario's walls.
 
-    Two runs of ``scenario``, one after the other, each a dict with ``stack``, ``tick_time_median_us``,
+    Each stack runs ``scenario`` ``repeats`` times, the two alternating (run folders ``stack{k}_run{r}``), so
+    that a change in the machine's speed weighs on both alike; each figure is the mean of its runs' medians.
+    Returns per stack a dict with ``stack``, ``runs`` and the figures ``tick_time_median_us``,
     ``task_rows_median_us``, ``hqp_solve_median_us`` and ``controller_time_median_us``.
     """
     base = [["joint_limits", "velocity_limits"], list(scenario.walls), ["transparency"], ["damping"]]
@@ -763,14 +768,14 @@ def user_task_cost(scenario: Scenario, folder: str | Path) -> list[dict]:
     with_task[1 if scenario.walls else 0].append(PythonHandCeiling(USER_TASK_CEILING_M))
     stacks = {"walls": base, "walls + a task in Python": with_task}
     sc = dataclasses.replace(scenario, variants=stacks, controllers=tuple(stacks))
-    out = []
-    for k, name in enumerate(stacks):
-        run = Path(folder) / f"stack{k}"
-        simulate(sc, name, run)
-        st = tick_statistics(run, sc.control_period_s)
-        out.append({"stack": name} | {key: st[key] for key in ("tick_time_median_us", "task_rows_median_us",
-                                                                "hqp_solve_median_us", "controller_time_median_us")})
-    return out
+    figures: dict[str, list[dict]] = {name: [] for name in stacks}
+    for r in range(repeats):
+        for k, name in enumerate(stacks):
+            run = Path(folder) / f"stack{k}_run{r}"
+            simulate(sc, name, run)
+            figures[name].append(tick_statistics(run, sc.control_period_s))
+    return [{"stack": name, "runs": len(runs)} | {k: float(np.mean([f[k] for f in runs])) for k in _USER_TASK_KEYS}
+            for name, runs in figures.items()]
 
 
 # --------------------------------------------------------------------------------------------
@@ -1112,7 +1117,7 @@ def format_report(report: dict) -> str:
             lines.append(f"{u['stack']:<26} {u['tick_time_median_us']:>15.1f} {_fmt(u['task_rows_median_us']):>15}"
                          f" {_fmt(u['hqp_solve_median_us']):>14}")
         lines.append("  (sim.bench.user_task_cost: the same run with sim.bench.PythonHandCeiling, a task written in "
-                     "plain Python, beside the walls)")
+                     f"plain Python, beside the walls; mean of {r['user_task'][0]['runs']} runs each, alternating)")
     lines += ["", f"{'joints':<10} {'tick median us':>15} {'tick p99 us':>15} {'torque limit N m':>17} "
                   f"{'QP-backend ticks':>17}"]
     for p in r["joints_series"]:

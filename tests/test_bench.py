@@ -11,9 +11,9 @@
 * The level-by-level cvxpy formulation agrees with our solver on a few ticks
   (cvxpy with Clarabel as the independent optimiser).
 * The user's-task case compares like with like: its Python task (a ceiling
-  out of reach) never binds, so both runs command the same torques (to
+  out of reach) never binds, so every run commands the same torques (to
   1e-9 N m, rounding of the extra row's solve; common practice), and the
-  task's rows were asked for on every tick.
+  task's rows were asked for on every tick of its runs.
 * The machine's two-process speedup (:class:`sim.bench.TwoWarmProcesses`)
   times runs of its own: mechanism checks (each timed run is a complete sweep
   case on a seed of its own; the speedup is the ratio of the times it
@@ -230,9 +230,10 @@ def test_user_task_case_runs_the_same_motion_with_and_without_the_python_task(tm
         return real(self, state)
 
     monkeypatch.setattr(bench.PythonHandCeiling, "rows", counted)
-    out = user_task_cost(sc, tmp_path)
-    assert [u["stack"] for u in out] == ["walls", "walls + a task in Python"]
+    out = user_task_cost(sc, tmp_path, repeats=2)
+    assert [(u["stack"], u["runs"]) for u in out] == [("walls", 2), ("walls + a task in Python", 2)]
     assert all(u["tick_time_median_us"] > 0 and u["task_rows_median_us"] > 0 for u in out)
-    assert len(calls) == sc.n_ticks
-    base, user = (load_run(tmp_path / f"stack{k}") for k in range(2))
-    np.testing.assert_allclose(user["tau_cmd"], base["tau_cmd"], rtol=0, atol=1e-9)
+    assert len(calls) == 2 * sc.n_ticks
+    base = load_run(tmp_path / "stack0_run0")["tau_cmd"]
+    for run in ("stack0_run1", "stack1_run0", "stack1_run1"):
+        np.testing.assert_allclose(load_run(tmp_path / run)["tau_cmd"], base, rtol=0, atol=1e-9)
