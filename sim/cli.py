@@ -21,7 +21,12 @@ PROG = "exosandbox"
 
 
 class _Parser(argparse.ArgumentParser):
-    """argparse with a one-line error message."""
+    """argparse with a one-line error message, and no abbreviated options: ``sweep --seed 3`` would otherwise
+    silently mean ``--seeds 3``, and a repeated ``--controller`` would keep only the last ``--controllers``."""
+
+    def __init__(self, *args, **kwargs) -> None:
+        kwargs.setdefault("allow_abbrev", False)
+        super().__init__(*args, **kwargs)
 
     def error(self, message: str) -> None:  # noqa: D401 - argparse API
         self.exit(2, f"{self.prog}: error: {message}\n")
@@ -105,8 +110,12 @@ def build_parser() -> argparse.ArgumentParser:
     w.add_argument("scenario", metavar="SCENARIO", help="scenario file")
     w.add_argument("--controllers", metavar="A,B", help="comma-separated controller variants "
                    "(default: all the scenario's)")
-    w.add_argument("--subjects", metavar="S1,S2", default="m50",
+    w.add_argument("--controller", action="append", default=[], metavar="NAME",
+                   help="a controller variant; repeat, or add to --controllers")
+    w.add_argument("--subjects", metavar="S1,S2",
                    help="comma-separated built-in subjects (default: m50; all: f5,f50,f95,m5,m50,m95)")
+    w.add_argument("--subject", action="append", default=[], metavar="NAME",
+                   help="a built-in subject; repeat, or add to --subjects")
     w.add_argument("--seeds", type=int, default=1, metavar="N", help="seeds per combination (default 1)")
     w.add_argument("--jobs", type=int, metavar="N",
                    help="runs at a time on this machine: N - 1 worker processes and this one (default: all cores)")
@@ -355,9 +364,9 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     from .sweep import run_sweep
 
     scenario = load_scenario(args.scenario)
-    controllers = [c.strip() for c in args.controllers.split(",") if c.strip()] if args.controllers \
-        else list(scenario.controllers)
-    subjects = [s.strip() for s in args.subjects.split(",") if s.strip()]
+    controllers = [c.strip() for c in (args.controllers or "").split(",") + args.controller if c.strip()] \
+        or list(scenario.controllers)
+    subjects = [s.strip() for s in (args.subjects or "").split(",") + args.subject if s.strip()] or ["m50"]
     if args.seeds < 1:
         parser.error(f"--seeds must be >= 1, got {args.seeds}")
     if args.jobs is not None and args.jobs < 1:

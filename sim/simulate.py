@@ -30,6 +30,7 @@ import numpy as np
 
 from controllers.base import ControllerContext
 from controllers.registry import make_controller
+from controllers.tasks import Task
 from models.coupling import Assembly, assemble
 from models.errors import SandboxError
 from models.human import girdle_posture
@@ -80,6 +81,11 @@ def controller_context(asm: Assembly, dt_s: float) -> ControllerContext:
 
 
 def _jsonable(obj):
+    if isinstance(obj, Task):  # a task object in a scenario's variants (a user's): its class and public attributes
+        cls = type(obj)
+        return {"task": obj.name, "class": f"{cls.__module__}.{cls.__qualname__}", "kind": obj.kind,
+                "weight": _jsonable(obj.weight),
+                "attributes": {k: _jsonable(v) for k, v in sorted(vars(obj).items()) if not k.startswith("_")}}
     if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
         return {f.name: _jsonable(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
     if isinstance(obj, dict):
@@ -374,7 +380,8 @@ def reusable_baseline(folder: str | Path, scenario: Scenario, seed: int | None =
 
     True only if this process simulated it (the same code) and its
     ``meta.json`` records a complete human-alone run of the same scenario
-    parameters, seed and software environment. Never raises: a missing or
+    parameters (its controllers and variants aside), seed and software
+    environment. Never raises: a missing or
     unreadable folder is simply not reusable.
     """
     folder = Path(folder)
@@ -386,8 +393,17 @@ def reusable_baseline(folder: str | Path, scenario: Scenario, seed: int | None =
         return False
     seed = scenario.seed if seed is None else int(seed)
     return (meta.get("status") == "complete" and meta.get("mode") == "human_alone" and meta.get("seed") == seed
-            and meta.get("parameters") == json.loads(json.dumps(_jsonable(scenario)))
+            and _without_controllers(meta.get("parameters")) == _without_controllers(
+                json.loads(json.dumps(_jsonable(scenario))))
             and meta.get("environment") == environment_metadata())
+
+
+def _without_controllers(parameters) -> dict | None:
+    """A scenario's recorded parameters less its controllers and variants, on which a human-alone run does not
+    depend (a variant's task objects may also have gained attributes when a controller bound them)."""
+    if not isinstance(parameters, dict):
+        return None
+    return {k: v for k, v in parameters.items() if k not in ("controllers", "variants")}
 
 
 def evaluate_run(folder: str | Path, *, wall: dict | None = None,

@@ -128,6 +128,29 @@ def test_sweep_cli_prints_the_table_and_the_verdict(tiny, tmp_path, capsys):
     assert (out / "summary.md").is_file() and (out / "runs.md").is_file()
 
 
+def test_sweep_cli_takes_repeated_controller_and_subject_options_and_no_abbreviation(tiny, tmp_path, monkeypatch,
+                                                                                      capsys):
+    # what the command hands to run_sweep (a check of the parsing; the sweep itself is tested above)
+    seen = {}
+
+    def fake_run_sweep(path, controllers, subjects, seeds, **kwargs):
+        seen.update(controllers=controllers, subjects=subjects, seeds=seeds)
+        raise KeyboardInterrupt  # stop here: the command reports where the finished runs are
+
+    monkeypatch.setattr("sim.sweep.run_sweep", fake_run_sweep)
+    args = ["sweep", str(tiny), "--out", str(tmp_path / "s")]
+    assert main(args + ["--controller", "gravity", "--controller", "transparent", "--subject", "f5",
+                        "--subjects", "m50,m95", "--seeds", "2"]) == 1
+    assert seen == {"controllers": ["gravity", "transparent"], "subjects": ["m50", "m95", "f5"], "seeds": 2}
+    assert main(args + ["--controllers", "transparent", "--controller", "gravity"]) == 1
+    assert seen["controllers"] == ["transparent", "gravity"] and seen["subjects"] == ["m50"]
+    capsys.readouterr()
+    # an abbreviation is refused, not read as the longer option (--seed is not --seeds)
+    with pytest.raises(SystemExit) as e:
+        main(args + ["--seed", "3"])
+    assert e.value.code == 2 and "unrecognized arguments: --seed 3" in capsys.readouterr().err
+
+
 def test_two_jobs_run_cases_in_a_worker_and_in_this_process(tiny, tmp_path, monkeypatch):
     # jobs=2: one worker process (handed the first case at once) and this process, which takes the next case
     # whenever it is free instead of waiting while the worker starts
@@ -242,6 +265,31 @@ def test_a_copied_baseline_is_the_one_the_run_would_simulate(tiny, tmp_path, mon
     assert reusable_baseline(first.folder / "human_alone", sc, seed=4)
     assert not reusable_baseline(tmp_path / "elsewhere", sc, seed=4)
     assert not reusable_baseline(tmp_path / "nowhere", sc, seed=4)
+
+
+def test_a_task_object_in_a_variant_is_recorded_by_class_and_attributes_and_leaves_the_baseline_shared(
+        tiny, tmp_path, monkeypatch):
+    # a check of the run record (meta.json) and of baseline reuse (the copy itself is checked above against
+    # the simulated baseline): a human-alone run does not depend on the variants, even when their task objects
+    # gain attributes as a controller binds them
+    import dataclasses
+
+    from sim.bench import PythonHandCeiling
+    from sim.scenario import load_scenario
+    from sim.simulate import run_scenario
+
+    sc = load_scenario(tiny)
+    sc = dataclasses.replace(sc, variants={"ceiling": [[PythonHandCeiling(10.0)], ["transparency"]]},
+                             controllers=(*sc.controllers, "ceiling"))
+    made = _simulated_baselines(monkeypatch)
+    first = run_scenario(sc, "gravity", tmp_path / "gravity", seed=4, report=False)
+    run_scenario(sc, "ceiling", tmp_path / "ceiling", seed=4, report=False, baseline_from=first.folder / "human_alone")
+    assert len(made) == 1
+    recorded = json.loads((tmp_path / "ceiling" / "meta.json").read_text(encoding="utf-8"))["parameters"]
+    task = recorded["variants"]["ceiling"][0][0]
+    assert task["class"] == "sim.bench.PythonHandCeiling" and task["kind"] == "ineq"
+    assert task["attributes"]["z_max"] == 10.0 and task["attributes"]["frame"] == "exo_hand_point"
+    assert " at 0x" not in json.dumps(recorded)
 
 
 def test_compare_and_a_one_job_sweep_simulate_one_baseline_per_wearer_and_seed(tiny, tmp_path, monkeypatch):
