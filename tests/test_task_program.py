@@ -234,6 +234,22 @@ def test_non_finite_rows_of_a_users_task_in_a_program_name_it_and_its_rows_are_c
     assert ctrl.fallback_count == 1 and "glitch" in ctrl.last_fallback_reason
 
 
+def test_rows_of_a_users_task_with_the_wrong_columns_in_a_program_name_it():
+    class Short(_WristTorque):
+        name = "short_rows"
+
+        def rows(self, state):
+            return [[1.0] * (2 * state.nv - 1)], [0.0]  # one column short, as plain lists
+
+    arm, ctx = _context()
+    ctrl = HQPController([[Transparency()], [Short(), JointDamping()]])
+    ctrl.reset(ctx)
+    assert ctrl._program is not None
+    ctrl.step(next(_states(arm, 1, seed=4)))
+    assert ctrl.fallback_count == 1
+    assert "short_rows" in ctrl.last_fallback_reason and "expected 2 nv = 14" in ctrl.last_fallback_reason
+
+
 def test_non_finite_rows_of_a_program_name_their_task():
     # a posture a float cannot reach: omega^2 (q* - q) overflows to inf in the posture task's right-hand side
     arm, ctx = _context()
