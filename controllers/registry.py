@@ -11,11 +11,14 @@ Shipped variants, usable in every scenario:
 
 A scenario may declare its own variants as an ordered list of levels, each a
 list of tasks given by name (see :data:`controllers.tasks.TASKS`), by
-``(name, {parameter: value})`` or as Task objects.
+``(name, {parameter: value})`` or as Task objects; a Task object is a
+template, copied (:func:`copy.deepcopy`) for every controller built, so a task
+that keeps state between ticks starts afresh in every run.
 """
 
 from __future__ import annotations
 
+import copy
 from collections.abc import Callable, Mapping, Sequence
 
 from models.errors import ParameterError, UnknownNameError
@@ -60,8 +63,13 @@ SHIPPED = tuple(CONTROLLERS)
 
 
 def _task(spec: TaskSpec, where: str) -> Task:
-    if isinstance(spec, Task):
-        return spec
+    if isinstance(spec, Task):  # a template: each controller gets its own copy, so no state passes between runs
+        try:
+            return copy.deepcopy(spec)
+        except Exception as e:  # whatever stops the copy, it is reported the same way
+            raise ParameterError(f"{where}: task object {spec.name!r} ({type(spec).__name__}) cannot be copied "
+                                 f"for a new controller ({type(e).__name__}: {e}); give it plain attributes, or "
+                                 f"register its class in controllers.tasks.TASKS and name it") from e
     name, params = (spec, {}) if isinstance(spec, str) else (spec[0], dict(spec[1]) if len(spec) > 1 else {})
     cls = TASKS.get(name)
     if cls is None:

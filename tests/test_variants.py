@@ -18,7 +18,7 @@ import models
 from controllers import ControllerContext
 from controllers.hqp_controller import HQPController
 from controllers.registry import build_levels, make_controller
-from controllers.tasks import JointDamping, Transparency
+from controllers.tasks import JointDamping, Task, Transparency
 from models.errors import ParameterError, UnknownNameError
 from models.records import Measurement
 from sim import load_run, simulate
@@ -138,3 +138,46 @@ def test_wall_push_metrics_json_holds_the_wall_keys_under_walls(tmp_path):
     assert m["wall_stiffness_commanded_N_per_m"] == 600.0  # scenarios/wall_push.py
     assert m["wall_stiffness_rendered_N_per_m"] == pytest.approx(600.0, rel=0.15)
     assert m["joint_limit_violation_count"] == 0
+
+
+class _Counting(Task):
+    """A user's task that keeps state between ticks (the number of its calls); no rows."""
+
+    name, kind = "counting", "eq"
+
+    def __init__(self):
+        self.calls = 0
+
+    def rows(self, state):
+        self.calls += 1
+        return None
+
+
+def test_a_task_object_in_a_variant_is_a_template_copied_for_every_controller():
+    # mechanism check: a stateful task must not carry its state from one run (or the warm-up) into the next
+    template = _Counting()
+    variants = {"mine": [[template], ["damping"]]}
+    first, second = make_controller("mine", variants), make_controller("mine", variants)
+    arm, ctx = _context()
+    m = Measurement(0.0, np.radians([60, 20, 10, 70, 20, 10, 0]), np.zeros(7), np.zeros(7),
+                    {"hand": np.zeros(6), "forearm": np.zeros(6)})
+    for ctrl, ticks in ((first, 3), (second, 1)):
+        ctrl.reset(ctx)
+        for _ in range(ticks):
+            ctrl.step(m)
+    assert (first.levels[0][0].calls, second.levels[0][0].calls, template.calls) == (3, 1, 0)
+
+
+def test_a_task_object_that_cannot_be_copied_is_named():
+    import threading
+
+    class Locked(_Counting):
+        name = "locked"
+
+        def __init__(self):
+            super().__init__()
+            self.lock = threading.Lock()
+
+    with pytest.raises(ParameterError, match=r"variant 'mine' level 0: task object 'locked' \(Locked\) cannot be "
+                                             r"copied"):
+        build_levels([[Locked()], ["damping"]], "mine")
