@@ -191,7 +191,7 @@ def sphere_faces(center, radius, inside, p, normals, pens):
     return 0
 
 
-# -- a whole stack of shipped tasks in one call ---------------------------------------------
+# -- a whole stack in one call (shipped tasks computed, others copied) --------------------
 #: task codes of a program (:mod:`controllers.tasks._program`)
 GRAVITY, POSITION_LIMITS, VELOCITY_LIMITS, TRANSPARENCY, DAMPING, POSTURE, WALL, EXTERNAL = range(8)
 #: wall shapes of a WALL entry
@@ -216,7 +216,7 @@ def _limit_rows_into(C, o, nv):
 @nb.njit(cache=True)
 def fill_program(prog, fp, q, dq, M, Minv, g, cuff_force, c, dt, frames, ext_rows, ext_rhs, ext_spans, A, b, sw, C, d,
                  wi, eq_off, in_off, unit_eq, spans):
-    r"""Every level's rows of a stack of shipped tasks, with the torque eliminated, in one call.
+    r"""Every level's rows of a stack, with the torque eliminated, in one call.
 
     What :class:`controllers.hqp_controller.HQPController` writes task by task (each task's ``rows``, then
     :math:`(A_q + A_\tau M)\ddot q = b - A_\tau c`), for a program of the shipped tasks
@@ -236,7 +236,7 @@ def fill_program(prog, fp, q, dq, M, Minv, g, cuff_force, c, dt, frames, ext_row
 
     An ``EXTERNAL`` entry is a task the program cannot compute (a user's task, or a subclass of a shipped
     one): its rows of this tick, already in q̈ (``ext_rows`` (R, nv), ``ext_rhs`` (R,), written by
-    :meth:`controllers.tasks._program.TaskProgram.external_rows`), are rows ``ext_spans[e]`` of those
+    :meth:`controllers.hqp_controller.HQPController._external_rows`), are rows ``ext_spans[e]`` of those
     buffers, ``e`` its parameter; they are copied into place as they are.
     """
     nv = q.shape[0]

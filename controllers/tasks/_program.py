@@ -81,7 +81,8 @@ class TaskProgram:
     @classmethod
     def build(cls, levels: Sequence[Sequence[Task]], state: TickState) -> TaskProgram | None:
         """The program of ``levels`` (tasks already bound to ``state``), or None if none of its tasks is a
-        shipped one the kernel can write (every task external: task by task is then as fast)."""
+        shipped one the kernel can write (every task external: the controller then writes the stack task by
+        task, which keeps constant rows in place from tick to tick)."""
         nv = state.nv
         rows, fp, frame_keys, tasks, external = [], [], [], [], []
         max_eq, max_in = 2 * nv, 0
