@@ -85,7 +85,8 @@ def _jsonable(obj):
         cls = type(obj)
         return {"task": obj.name, "class": f"{cls.__module__}.{cls.__qualname__}", "kind": obj.kind,
                 "weight": _jsonable(obj.weight),
-                "attributes": {k: _jsonable(v) for k, v in sorted(vars(obj).items()) if not k.startswith("_")}}
+                "attributes": {k: _jsonable(v) for k, v in sorted(getattr(obj, "__dict__", {}).items())
+                               if not k.startswith("_")}}
     if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
         return {f.name: _jsonable(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
     if isinstance(obj, dict):
@@ -400,7 +401,7 @@ def reusable_baseline(folder: str | Path, scenario: Scenario, seed: int | None =
 
 def _without_controllers(parameters) -> dict | None:
     """A scenario's recorded parameters less its controllers and variants, on which a human-alone run does not
-    depend (a variant's task objects may also have gained attributes when a controller bound them)."""
+    depend (so a change of variant, or a task object's record, never stops a baseline from being shared)."""
     if not isinstance(parameters, dict):
         return None
     return {k: v for k, v in parameters.items() if k not in ("controllers", "variants")}
