@@ -270,8 +270,8 @@ def test_a_copied_baseline_is_the_one_the_run_would_simulate(tiny, tmp_path, mon
 def test_a_task_object_in_a_variant_is_recorded_by_class_and_attributes_and_leaves_the_baseline_shared(
         tiny, tmp_path, monkeypatch):
     # a check of the run record (meta.json) and of baseline reuse (the copy itself is checked above against
-    # the simulated baseline): a human-alone run does not depend on the variants, even when their task objects
-    # gain attributes as a controller binds them
+    # the simulated baseline): a human-alone run does not depend on the variants, so a scenario whose variants
+    # differ (here: one more) still shares it
     import dataclasses
 
     from sim.bench import PythonHandCeiling
@@ -283,7 +283,10 @@ def test_a_task_object_in_a_variant_is_recorded_by_class_and_attributes_and_leav
                              controllers=(*sc.controllers, "ceiling"))
     made = _simulated_baselines(monkeypatch)
     first = run_scenario(sc, "gravity", tmp_path / "gravity", seed=4, report=False)
-    run_scenario(sc, "ceiling", tmp_path / "ceiling", seed=4, report=False, baseline_from=first.folder / "human_alone")
+    more = dataclasses.replace(sc, variants={**sc.variants, "soft": [["transparency"]]},
+                               controllers=(*sc.controllers, "soft"))
+    run_scenario(more, "ceiling", tmp_path / "ceiling", seed=4, report=False,
+                 baseline_from=first.folder / "human_alone")
     assert len(made) == 1
     recorded = json.loads((tmp_path / "ceiling" / "meta.json").read_text(encoding="utf-8"))["parameters"]
     task = recorded["variants"]["ceiling"][0][0]
