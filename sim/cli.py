@@ -106,10 +106,12 @@ def build_parser() -> argparse.ArgumentParser:
 
     w = sub.add_parser("sweep", help="run a scenario for every controller x subject x seed, in parallel",
                        description="Run every combination of controller, subject and seed of a scenario, and "
-                       "write one results table (CSV and Markdown), plots and a report.")
-    w.add_argument("scenario", metavar="SCENARIO", help="scenario file")
+                       "write one results table (CSV and Markdown), plots and a report. Given several scenario "
+                       "files, run them all in one sweep: each in a folder of its own (named by the file), and "
+                       "the tables and a report across them.")
+    w.add_argument("scenario", metavar="SCENARIO", nargs="+", help="scenario file(s)")
     w.add_argument("--controllers", metavar="A,B", help="comma-separated controller variants "
-                   "(default: all the scenario's)")
+                   "(default: all the scenario's; each must be in every scenario given)")
     w.add_argument("--controller", action="append", default=[], metavar="NAME",
                    help="a controller variant; repeat, or add to --controllers")
     w.add_argument("--subjects", metavar="S1,S2",
@@ -121,7 +123,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="runs at a time on this machine: N - 1 worker processes and this one (default: all cores)")
     w.add_argument("--dask", metavar="ADDRESS", help="run on an existing Dask scheduler, e.g. tcp://host:8786")
     w.add_argument("--duration", type=float, metavar="S", help="override the scenario's duration [s]")
-    w.add_argument("--out", metavar="DIR", help="output folder (default: runs/sweep-SCENARIO, then -2, -3, ...)")
+    w.add_argument("--out", metavar="DIR", help="output folder (default: runs/sweep-SCENARIO, or with several "
+                   "scenarios runs/sweep-N-scenarios; then -2, -3, ...)")
     w.set_defaults(func=_cmd_sweep)
     return p
 
@@ -361,11 +364,9 @@ _SWEEP_COLUMNS = ("interaction_force_rms_N", "interaction_force_free_rms_N", "ap
 def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     from .report import fmt, has_wall, sweep_verdicts, text_table
     from .scenario import load_scenario
-    from .sweep import run_sweep
+    from .sweep import run_sweep, scenario_folders
 
-    scenario = load_scenario(args.scenario)
-    controllers = [c.strip() for c in (args.controllers or "").split(",") + args.controller if c.strip()] \
-        or list(scenario.controllers)
+    controllers = [c.strip() for c in (args.controllers or "").split(",") + args.controller if c.strip()] or None
     subjects = [s.strip() for s in (args.subjects or "").split(",") + args.subject if s.strip()] or ["m50"]
     if args.seeds < 1:
         parser.error(f"--seeds must be >= 1, got {args.seeds}")
@@ -373,23 +374,39 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
         parser.error(f"--jobs must be >= 1, got {args.jobs}")
     if args.duration is not None and not args.duration > 0:
         parser.error(f"--duration must be > 0, got {args.duration}")
-    out = Path(args.out) if args.out else _fresh_folder(Path("runs") / f"sweep-{scenario.name}")
+    several = len(scenario_folders(args.scenario)) > 1
+    if args.out:
+        out = Path(args.out)
+    elif several:
+        out = _fresh_folder(Path("runs") / f"sweep-{len(scenario_folders(args.scenario))}-scenarios")
+    else:
+        out = _fresh_folder(Path("runs") / f"sweep-{load_scenario(args.scenario[0]).name}")
     try:
         result = run_sweep(args.scenario, controllers, subjects, args.seeds, out_dir=out, jobs=args.jobs,
                            dask_address=args.dask, progress=True, duration_s=args.duration)
     except KeyboardInterrupt:
         raise _UserError(f"interrupted; the runs finished so far are in {out / 'runs.csv'}") from None
-    walled = has_wall(result.summary)
+    parts = ({name: [r for r in result.summary if r["scenario"] == name]
+              for name in dict.fromkeys(r["scenario"] for r in result.summary)} if several
+             else {"": list(result.summary)})
+    walled = {name: has_wall(rows) for name, rows in parts.items()}
     keys = [k for k in _SWEEP_COLUMNS if any(r.get(f"{k}_mean") is not None for r in result.summary)
-            and (walled or k != "interaction_force_free_rms_N")]  # without a wall it is the RMS again
-    table = text_table(["controller", "subject", "ok", *keys], [
-        [r["controller"], r["subject"], f"{r['n_ok']}/{r['n_ok'] + r['n_failed']}"]
-        + [fmt(r[f"{k}_mean"]) + " ± " + fmt(r[f"{k}_std"]) if r.get(f"{k}_mean") is not None else "n/a"
-           for k in keys] for r in result.summary])
+            and (any(walled.values()) or k != "interaction_force_free_rms_N")]  # without a wall it is the RMS again
+
+    def cell(r: dict, k: str) -> str:
+        if r.get(f"{k}_mean") is None or (k == "interaction_force_free_rms_N" and not walled[r.get("scenario", "")]):
+            return "n/a"
+        return fmt(r[f"{k}_mean"]) + " ± " + fmt(r[f"{k}_std"])
+
+    first = ["scenario"] if several else []
+    table = text_table([*first, "controller", "subject", "ok", *keys], [
+        [*([r["scenario"]] if several else []), r["controller"], r["subject"],
+         f"{r['n_ok']}/{r['n_ok'] + r['n_failed']}"] + [cell(r, k) for k in keys] for r in result.summary])
     lines = [table, "(mean ± standard deviation over seeds; 'all' pools every subject; the full table is in "
              f"{out / 'summary.md'})", ""]
-    for question, verdict in sweep_verdicts(result.summary).items():
-        lines += [f"{question}:", *(f"  {v}" for v in verdict)]
+    for name, rows in parts.items():
+        for question, verdict in sweep_verdicts(rows).items():
+            lines += [f"{name + ': ' if name else ''}{question}:", *(f"  {v}" for v in verdict)]
     if result.failed:
         lines.append(f"{len(result.failed)} of {len(result.results)} runs failed:")
         lines += [f"  {r.case.label}: {r.error}" for r in result.failed]

@@ -20,7 +20,8 @@ if TYPE_CHECKING:
     from .runlog import Run
 
 __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
-           "write_run_report", "compare_runs", "write_sweep_report", "sweep_verdicts", "has_wall"]
+           "write_run_report", "compare_runs", "write_sweep_report", "write_sweeps_report", "sweep_verdicts",
+           "has_wall", "transparency_key"]
 
 #: Printed in every report.
 CAUTION = (
@@ -408,6 +409,90 @@ def write_sweep_report(result, settings: Mapping) -> Path:
         text += ["## Failed runs", ""] + [f"- `{r.case.label}`: {r.error}" for r in failed] + [""]
     text += ["## Plots", ""] + [f"![{p.stem}](plots/{p.name})" for p in figs]
     text += ["", "Every run's metrics: `runs.csv`; every run's folder: `CONTROLLER/SUBJECT/seedN/`."]
+    md = out / "report.md"
+    md.write_text("\n".join(text) + "\n", encoding="utf-8")
+    return md
+
+
+def transparency_key(summary: Sequence[Mapping]) -> str:
+    """The metric a sweep judges transparency on (:func:`sweep_verdicts`): ``interaction_force_free_rms_N`` with
+    a wall in the scenario, else ``interaction_force_rms_N``."""
+    return "interaction_force_free_rms_N" if has_wall(summary) else "interaction_force_rms_N"
+
+
+def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, object]]) -> Path:
+    """``runs.csv``, ``runs.md``, ``summary.csv``, ``summary.md``, ``sweep.json`` and ``report.md`` of a sweep
+    over several scenarios.
+
+    ``parts`` are ``(name, SweepResult)`` per scenario, whose folders
+    :func:`write_sweep_report` has written; ``result.summary`` is their
+    summary rows, each with its ``scenario`` first.  The report's first table
+    gives each scenario's transparency figure (:func:`transparency_key`) per
+    controller over every subject and seed, the better in bold; then each
+    scenario's verdicts (:func:`sweep_verdicts`) and a link to its report.
+    """
+    import json
+
+    from .sweep import run_rows, write_csv
+
+    out = Path(result.out_dir)
+    summary = list(result.summary)
+    keys = [k for k, m in METRICS.items() if m.summary and any(r.get(f"{k}_mean") is not None for r in summary)]
+    write_csv(out / "summary.csv", summary)
+    header, cells = None, []
+    for name, part in parts:  # the better value is marked within each scenario
+        header, rows = summary_cells(part.summary, keys)
+        cells += [[name, *row] for row in rows]
+    (out / "summary.md").write_text(markdown_table(["scenario", *header], cells) + "\n", encoding="utf-8")
+    rows = run_rows(result.results)
+    write_csv(out / "runs.csv", rows)
+    run_keys = ["scenario", "controller", "subject", "seed", "status", "interaction_force_rms_N", "error"]
+    (out / "runs.md").write_text(markdown_table(run_keys, [[fmt(r.get(k, "")) for k in run_keys] for r in rows])
+                                 + "\n", encoding="utf-8")
+    doc = {"settings": dict(settings), "wall_time_s": result.wall_time_s,
+           "runs": [{"scenario": r.case.scenario, "controller": r.case.controller, "subject": r.case.subject,
+                     "seed": r.case.seed, "folder": r.case.label, "error": r.error, "metrics": r.metrics}
+                    for r in result.results]}
+    (out / "sweep.json").write_text(json.dumps(doc, indent=1, allow_nan=False) + "\n", encoding="utf-8")
+
+    controllers = list(dict.fromkeys(r["controller"] for r in summary))
+    across = []
+    for name, part in parts:
+        key = transparency_key(part.summary)
+        overall = {r["controller"]: r for r in part.summary if r["subject"] == "all"}
+        values = [overall[c].get(f"{key}_mean") if c in overall else None for c in controllers]
+        best = best_index(values, METRICS[key].better)
+        row = [name, "outside the wall" if key == "interaction_force_free_rms_N" else "whole run"]
+        for i, c in enumerate(controllers):
+            v = values[i]
+            cell = "—" if c not in overall else "n/a" if v is None else \
+                f"{fmt(v)} ± {fmt(overall[c].get(f'{key}_std'), 2)}"
+            row.append(f"**{cell}**" if i == best else cell)
+        across.append(row)
+    failed = result.failed
+    text = [f"# Sweep report: {len(parts)} scenarios", "",
+            f"Scenarios {', '.join(name for name, _ in parts)}; controllers {', '.join(settings['controllers'])}; "
+            f"subjects {', '.join(settings['subjects'])}; seeds {', '.join(map(str, settings['seeds']))}; "
+            f"executor: {settings['executor']}; {len(result.results)} runs, {len(failed)} failed, "
+            f"{result.wall_time_s:.1f} s wall time.", "", CAUTION, "",
+            "## Transparency across the scenarios", "",
+            f"{METRICS['interaction_force_rms_N'].label} [{METRICS['interaction_force_rms_N'].unit}], mean ± "
+            "standard deviation over every subject and seed; in a scenario with a wall, over the ticks with the "
+            "hand outside it (`interaction_force_free_rms_N`), since inside it the force is the wall a variant "
+            "renders on purpose. The better value per scenario is in bold; — : not run in that scenario.", "",
+            markdown_table(["scenario", "ticks", *controllers], across), "", "## Scenario by scenario", ""]
+    for name, part in parts:
+        text += [f"### {name}", "", f"Report: [{name}/report.md]({name}/report.md).", ""]
+        verdicts = sweep_verdicts(part.summary)
+        for question, lines in verdicts.items():
+            text += [f"{question}:", ""] + [f"- {s}" for s in lines] + [""]
+        if not verdicts:
+            text += ["No verdict: the variants are level (equal means) on every question, or fewer than two have "
+                     "the figures.", ""]
+    if failed:
+        text += ["## Failed runs", ""] + [f"- `{r.case.label}`: {r.error}" for r in failed] + [""]
+    text += ["Every run's metrics: `runs.csv`; every summary row: `summary.csv`; each scenario's tables, plots and "
+             "runs: `SCENARIO/` (runs in `SCENARIO/CONTROLLER/SUBJECT/seedN/`)."]
     md = out / "report.md"
     md.write_text("\n".join(text) + "\n", encoding="utf-8")
     return md

@@ -1,4 +1,4 @@
-"""Sweeps: one scenario run for every combination of controller variant, wearer and seed.
+"""Sweeps: a scenario run for every combination of controller variant, wearer and seed; or several scenarios.
 
 Every run is independent (its own process, its own seed), so a sweep is an
 embarrassingly parallel map.  Two executors run the same function,
@@ -32,6 +32,18 @@ Output folder::
     report.md, plots/*.png     the summary, the plots and the cautions
     sweep.json                 the sweep's settings and every run's metrics
     CONTROLLER/SUBJECT/seedN/  the run folders (each with its human-alone baseline)
+
+A sweep over several scenario files runs all their cases in the same
+processes (one start-up, one queue: a process that is free takes the next
+case of any scenario) and writes one such folder per scenario, named by the
+file's stem, written as soon as that scenario's last run is back, beside the
+tables of the whole sweep::
+
+    runs.csv, runs.md          one row per run, the scenario first
+    summary.csv, summary.md    the scenarios' summary rows, the scenario first
+    report.md                  transparency across the scenarios, each scenario's verdicts, the cautions
+    sweep.json                 the settings and every run's metrics
+    SCENARIO/                  a sweep folder as above, for that scenario's runs
 """
 
 from __future__ import annotations
@@ -44,7 +56,7 @@ import statistics
 import sys
 import time
 import traceback
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 
@@ -73,11 +85,14 @@ class SweepCase:
     seed: int
     folder: str
     duration_s: float | None = None
+    #: The scenario's folder in a sweep over several scenarios (its file's stem); ``""`` in a one-scenario sweep.
+    scenario: str = ""
 
     @property
     def label(self) -> str:
-        """``controller/subject/seedN``."""
-        return f"{self.controller}/{self.subject}/seed{self.seed}"
+        """``controller/subject/seedN``, after ``SCENARIO/`` in a sweep over several scenarios."""
+        run = f"{self.controller}/{self.subject}/seed{self.seed}"
+        return f"{self.scenario}/{run}" if self.scenario else run
 
 
 @dataclass(frozen=True)
@@ -151,20 +166,26 @@ def _seeds(seeds: int | Sequence[int], first: int) -> tuple[int, ...]:
     return out
 
 
-def plan_sweep(scenario_path: str | Path, controllers: Sequence[str], subjects: Sequence[str],
-               seeds: int | Sequence[int], out_dir: str | Path, *, duration_s: float | None = None
-               ) -> list[SweepCase]:
-    """Check the options and list the cases, controllers outermost, then subjects, then seeds."""
-    scenario = load_scenario(scenario_path)  # a broken file fails here, once, with its own message
-    controllers, subjects = list(dict.fromkeys(controllers)), list(dict.fromkeys(subjects))
+def plan_sweep(scenario_path: str | Path, controllers: Sequence[str] | None, subjects: Sequence[str],
+               seeds: int | Sequence[int], out_dir: str | Path, *, duration_s: float | None = None,
+               scenario: str = "") -> list[SweepCase]:
+    """Check the options and list the cases, controllers outermost, then subjects, then seeds.
+
+    ``controllers=None`` takes every variant the scenario lists; ``scenario``
+    is the :attr:`SweepCase.scenario` of the cases (a sweep over several
+    scenarios).
+    """
+    loaded = load_scenario(scenario_path)  # a broken file fails here, once, with its own message
+    controllers = list(loaded.controllers) if controllers is None else list(dict.fromkeys(controllers))
+    subjects = list(dict.fromkeys(subjects))
     if not controllers:
         raise SweepError("give at least one controller")
     if not subjects:
         raise SweepError("give at least one subject")
     for c in controllers:
-        if c not in scenario.controllers:
-            raise UnknownNameError(f"scenario {scenario.name!r} supports the controllers "
-                                   f"{', '.join(scenario.controllers)}; got {c!r}")
+        if c not in loaded.controllers:
+            raise UnknownNameError(f"scenario {loaded.name!r} ({Path(scenario_path).name}) supports the controllers "
+                                   f"{', '.join(loaded.controllers)}; got {c!r}")
     for s in subjects:
         if s not in SUBJECTS:
             raise UnknownNameError(f"unknown subject {s!r}; built-in subjects are {', '.join(SUBJECTS)}")
@@ -173,8 +194,28 @@ def plan_sweep(scenario_path: str | Path, controllers: Sequence[str], subjects: 
         raise ParameterError(f"duration_s must be a finite number > 0, got {duration_s!r}")
     out = Path(out_dir)
     path = str(Path(scenario_path).resolve())
-    return [SweepCase(path, c, s, seed, str((out / c / s / f"seed{seed}").resolve()), duration_s)
-            for c in controllers for s in subjects for seed in _seeds(seeds, scenario.seed)]
+    return [SweepCase(path, c, s, seed, str((out / c / s / f"seed{seed}").resolve()), duration_s, scenario)
+            for c in controllers for s in subjects for seed in _seeds(seeds, loaded.seed)]
+
+
+def scenario_folders(scenario_paths: Sequence[str | Path]) -> dict[str, str]:
+    """The folder of each scenario file in a sweep over several (its stem), keyed by the resolved path.
+
+    The same file given twice is swept once. Two files of the same stem (from
+    different folders) would share a folder: a :class:`SweepError` names both.
+    """
+    folders: dict[str, str] = {}
+    for p in scenario_paths:
+        path = Path(p)
+        key = str(path.resolve())
+        if key in folders:
+            continue
+        clash = next((other for other, stem in folders.items() if stem == path.stem), None)
+        if clash is not None:
+            raise SweepError(f"two scenario files share the name {path.stem!r}, and so would share its folder: "
+                             f"{clash!r} and {key!r}; rename one (or copy it under another name)")
+        folders[key] = path.stem
+    return folders
 
 
 def _baseline_key(case: SweepCase) -> tuple:
@@ -357,8 +398,8 @@ def _dask(cases: Sequence[SweepCase], address: str) -> Iterable[CaseResult]:
 
 
 def run_sweep(
-    scenario_path: str | Path,
-    controllers: Sequence[str],
+    scenario_path: str | Path | Sequence[str | Path],
+    controllers: Sequence[str] | None,
     subjects: Sequence[str],
     seeds: int | Sequence[int],
     *,
@@ -369,17 +410,24 @@ def run_sweep(
     duration_s: float | None = None,
     on_result: Callable[[CaseResult], None] | None = None,
 ) -> SweepResult:
-    """Run every (controller, subject, seed) of a scenario and write the tables, plots and report.
+    """Run every (controller, subject, seed) of a scenario, or of several, and write the tables, plots and report.
 
     Parameters
     ----------
-    scenario_path : path
+    scenario_path : path, or sequence of paths
         Scenario file; subjects are applied with :func:`sim.scenario.load_scenario`
-        (``subject=``), so a file's ``for_subject`` hook is honoured.
-    controllers, subjects : sequence of str
-        Controller variants (each must be listed by the scenario) and built-in subject names.
+        (``subject=``), so a file's ``for_subject`` hook is honoured.  Several
+        files run in one sweep: every case of every file in the same processes,
+        each file's runs and report in a folder named by its stem (see the
+        module's docstring); a one-file sequence is a one-scenario sweep.
+    controllers : sequence of str, or None
+        Controller variants, each listed by every scenario; ``None``: each
+        scenario's own list.
+    subjects : sequence of str
+        Built-in subject names.
     seeds : int or sequence of int
-        A count n (seeds ``scenario.seed`` ... ``scenario.seed + n - 1``) or the seeds themselves.
+        A count n (seeds ``scenario.seed`` ... ``scenario.seed + n - 1``, each
+        scenario from its own) or the seeds themselves.
     out_dir : path
         Output folder; created, and must be empty if it exists.
     jobs : int, optional
@@ -390,15 +438,17 @@ def run_sweep(
     progress : bool
         Show a progress bar (tqdm) on standard error.
     duration_s : float, optional
-        Override the scenario's duration [s] (short trial sweeps).
+        Override the scenarios' duration [s] (short trial sweeps).
     on_result : callable(CaseResult), optional
         Called as each run finishes, in completion order.
 
     Returns
     -------
     SweepResult
-        Results in the order of the combinations; ``runs.csv`` is rewritten
-        after every finished run, so an interrupted sweep keeps its table.
+        Results in the order of the combinations (scenario by scenario);
+        ``runs.csv`` is rewritten after every finished run, so an interrupted
+        sweep keeps its table.  Over several scenarios, the summary rows carry
+        a ``scenario`` key first.
     """
     out = Path(out_dir)
     if out.exists() and (not out.is_dir() or any(out.iterdir())):
@@ -407,34 +457,74 @@ def run_sweep(
         jobs = os.cpu_count() or 1
     if not (isinstance(jobs, int) and jobs >= 1):
         raise SweepError(f"jobs must be an integer >= 1, got {jobs!r}")
-    cases = plan_sweep(scenario_path, controllers, subjects, seeds, out, duration_s=duration_s)
+    paths = [scenario_path] if isinstance(scenario_path, (str, Path)) else list(scenario_path)
+    if not paths:
+        raise SweepError("give at least one scenario file")
+    folders = scenario_folders(paths) if len(paths) > 1 else {}
+    if len(folders) > 1:  # every file is checked (and every case listed) before anything is written
+        cases = [c for path, name in folders.items()
+                 for c in plan_sweep(path, controllers, subjects, seeds, out / name, duration_s=duration_s,
+                                     scenario=name)]
+    else:
+        folders = {}
+        cases = plan_sweep(paths[0], controllers, subjects, seeds, out, duration_s=duration_s)
     out.mkdir(parents=True, exist_ok=True)
+    executor = f"dask {dask_address}" if dask_address else f"local, {jobs} jobs"
+    settings = {"controllers": list(dict.fromkeys(c.controller for c in cases)),
+                "subjects": list(dict.fromkeys(subjects)), "seeds": sorted({c.seed for c in cases}),
+                "duration_s": duration_s, "executor": executor}
+    from .report import write_sweep_report, write_sweeps_report
+
+    left = {name: sum(c.scenario == name for c in cases) for name in folders.values()}
+    parts: dict[str, SweepResult] = {}
     bar = _bar(len(cases)) if progress else None
     done: dict[str, CaseResult] = {}
     t0 = time.perf_counter()
     runner = _dask(cases, dask_address) if dask_address else _local(cases, min(jobs, len(cases)))
     try:
         for r in runner:
-            done[r.case.label] = r
-            write_csv(out / "runs.csv", run_rows([done[c.label] for c in cases if c.label in done]))
+            done[r.case.folder] = r
+            write_csv(out / "runs.csv", run_rows([done[c.folder] for c in cases if c.folder in done]))
             if bar is not None:
                 bar.update(1)
                 bar.set_postfix_str(f"{len(done) - sum(x.ok for x in done.values())} failed", refresh=False)
             if on_result is not None:
                 on_result(r)
+            if folders:
+                left[r.case.scenario] -= 1
+                if not left[r.case.scenario]:  # that scenario's last run: its report, while the others run on
+                    parts[r.case.scenario] = _write_part(out, r.case, cases, done, settings, t0, len(folders))
     finally:
         if bar is not None:
             bar.close()
-    results = tuple(done[c.label] for c in cases)
-    summary = tuple(summarize(results))
+    results = tuple(done[c.folder] for c in cases)
+    if not folders:
+        result = SweepResult(out, results, tuple(summarize(results)), time.perf_counter() - t0)
+        write_sweep_report(result, {"scenario": str(Path(paths[0])), **settings})
+        return result
+    summary = tuple({"scenario": name, **row} for name in folders.values() for row in parts[name].summary)
     result = SweepResult(out, results, summary, time.perf_counter() - t0)
-    settings = {"scenario": str(Path(scenario_path)), "controllers": list(dict.fromkeys(controllers)),
-                "subjects": list(dict.fromkeys(subjects)), "seeds": sorted({c.seed for c in cases}),
-                "duration_s": duration_s, "executor": f"dask {dask_address}" if dask_address else f"local, {jobs} jobs"}
+    write_sweeps_report(result, {"scenarios": [str(Path(p)) for p in dict.fromkeys(paths)], **settings},
+                        [(name, parts[name]) for name in folders.values()])
+    return result
+
+
+def _write_part(out: Path, last: SweepCase, cases: Sequence[SweepCase], done: Mapping[str, CaseResult],
+                settings: Mapping, t0: float, n_scenarios: int) -> SweepResult:
+    """The one-scenario sweep folder of ``last``'s scenario in a sweep over several: its tables, plots and report."""
     from .report import write_sweep_report
 
-    write_sweep_report(result, settings)
-    return result
+    mine = [c for c in cases if c.scenario == last.scenario]
+    # as a one-scenario sweep of its own: the cases without the scenario's name, their folders relative to its folder
+    results = tuple(replace(done[c.folder], case=replace(c, scenario="")) for c in mine)
+    part = SweepResult(out / last.scenario, results, tuple(summarize(results)), time.perf_counter() - t0)
+    write_sweep_report(part, {"scenario": last.scenario_path, **settings,
+                              "controllers": list(dict.fromkeys(c.controller for c in mine)),
+                              "seeds": sorted({c.seed for c in mine}),
+                              "executor": f"{settings['executor']}, one of the {n_scenarios} scenarios of the sweep "
+                                          "in the folder above (its report.md); wall time until this scenario's "
+                                          "last run"})
+    return part
 
 
 def _bar(total: int):
@@ -454,13 +544,13 @@ def _bar(total: int):
 # -- tables ---------------------------------------------------------------------------------
 def run_rows(results: Sequence[CaseResult]) -> list[dict]:
     """One flat row per run: controller, subject, seed, status, error, folder (relative to the sweep's), then every
-    scalar metric."""
+    scalar metric; in a sweep over several scenarios, the scenario first."""
     rows = []
     for r in results:
-        row = {"controller": r.case.controller, "subject": r.case.subject, "seed": r.case.seed,
-               "status": "ok" if r.ok else "failed", "error": r.error or "",
-               "folder": f"{r.case.controller}/{r.case.subject}/seed{r.case.seed}",
-               "wall_time_s": round(r.wall_time_s, 3)}
+        row = {"scenario": r.case.scenario} if r.case.scenario else {}
+        row |= {"controller": r.case.controller, "subject": r.case.subject, "seed": r.case.seed,
+                "status": "ok" if r.ok else "failed", "error": r.error or "", "folder": r.case.label,
+                "wall_time_s": round(r.wall_time_s, 3)}
         if r.metrics is not None:
             row |= flat_metrics(r.metrics)
         rows.append(row)
