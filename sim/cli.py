@@ -109,7 +109,8 @@ def build_parser() -> argparse.ArgumentParser:
                        "write one results table (CSV and Markdown), plots and a report. Given several scenario "
                        "files, run them all in one sweep: each in a folder of its own (named by the file), and "
                        "the tables and a report across them.")
-    w.add_argument("scenario", metavar="SCENARIO", nargs="+", help="scenario file(s)")
+    w.add_argument("scenario", metavar="SCENARIO", nargs="+",
+                   help="scenario file(s), or a folder of them (its *.py files but those starting with _)")
     w.add_argument("--controllers", metavar="A,B", help="comma-separated controller variants "
                    "(default: all the scenario's; each must be in every scenario given)")
     w.add_argument("--controller", action="append", default=[], metavar="NAME",
@@ -364,7 +365,7 @@ _SWEEP_COLUMNS = ("interaction_force_rms_N", "interaction_force_free_rms_N", "ap
 def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     from .report import fmt, has_wall, sweep_verdicts, text_table
     from .scenario import load_scenario
-    from .sweep import run_sweep, scenario_folders
+    from .sweep import run_sweep, scenario_files, scenario_folders
 
     controllers = [c.strip() for c in (args.controllers or "").split(",") + args.controller if c.strip()] or None
     subjects = [s.strip() for s in (args.subjects or "").split(",") + args.subject if s.strip()] or ["m50"]
@@ -374,13 +375,14 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
         parser.error(f"--jobs must be >= 1, got {args.jobs}")
     if args.duration is not None and not args.duration > 0:
         parser.error(f"--duration must be > 0, got {args.duration}")
-    several = len(scenario_folders(args.scenario)) > 1
+    files = scenario_files(args.scenario)
+    several = len(scenario_folders(files)) > 1
     if args.out:
         out = Path(args.out)
     elif several:
-        out = _fresh_folder(Path("runs") / f"sweep-{len(scenario_folders(args.scenario))}-scenarios")
+        out = _fresh_folder(Path("runs") / f"sweep-{len(scenario_folders(files))}-scenarios")
     else:
-        out = _fresh_folder(Path("runs") / f"sweep-{load_scenario(args.scenario[0]).name}")
+        out = _fresh_folder(Path("runs") / f"sweep-{load_scenario(files[0]).name}")
     try:
         result = run_sweep(args.scenario, controllers, subjects, args.seeds, out_dir=out, jobs=args.jobs,
                            dask_address=args.dask, progress=True, duration_s=args.duration)
@@ -399,11 +401,13 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
         return fmt(r[f"{k}_mean"]) + " ± " + fmt(r[f"{k}_std"])
 
     first = ["scenario"] if several else []
+    shown = [r for r in result.summary if r["subject"] == "all"] if several else result.summary
     table = text_table([*first, "controller", "subject", "ok", *keys], [
         [*([r["scenario"]] if several else []), r["controller"], r["subject"],
-         f"{r['n_ok']}/{r['n_ok'] + r['n_failed']}"] + [cell(r, k) for k in keys] for r in result.summary])
-    lines = [table, "(mean ± standard deviation over seeds; 'all' pools every subject; the full table is in "
-             f"{out / 'summary.md'})", ""]
+         f"{r['n_ok']}/{r['n_ok'] + r['n_failed']}"] + [cell(r, k) for k in keys] for r in shown])
+    lines = [table, ("(mean ± standard deviation over every subject and seed; per subject, and every metric, in "
+                     if several else "(mean ± standard deviation over seeds; 'all' pools every subject; the full "
+                     "table is in ") + f"{out / 'summary.md'})", ""]
     for name, rows in parts.items():
         for question, verdict in sweep_verdicts(rows).items():
             lines += [f"{name + ': ' if name else ''}{question}:", *(f"  {v}" for v in verdict)]

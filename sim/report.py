@@ -461,13 +461,13 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
         key = transparency_key(part.summary)
         overall = {r["controller"]: r for r in part.summary if r["subject"] == "all"}
         values = [overall[c].get(f"{key}_mean") if c in overall else None for c in controllers]
-        best = best_index(values, METRICS[key].better)
+        top = best_indices(values, METRICS[key].better)  # every one of a tie at the top
         row = [name, "outside the wall" if key == "interaction_force_free_rms_N" else "whole run"]
         for i, c in enumerate(controllers):
             v = values[i]
             cell = "—" if c not in overall else "n/a" if v is None else \
                 f"{fmt(v)} ± {fmt(overall[c].get(f'{key}_std'), 2)}"
-            row.append(f"**{cell}**" if i == best else cell)
+            row.append(f"**{cell}**" if i in top else cell)
         across.append(row)
     failed = result.failed
     text = [f"# Sweep report: {len(parts)} scenarios", "",
@@ -479,7 +479,8 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
             f"{METRICS['interaction_force_rms_N'].label} [{METRICS['interaction_force_rms_N'].unit}], mean ± "
             "standard deviation over every subject and seed; in a scenario with a wall, over the ticks with the "
             "hand outside it (`interaction_force_free_rms_N`), since inside it the force is the wall a variant "
-            "renders on purpose. The better value per scenario is in bold; — : not run in that scenario.", "",
+            "renders on purpose. The better value per scenario is in bold (each of those level at the top); — : not "
+            "run in that scenario.", "",
             markdown_table(["scenario", "ticks", *controllers], across), "", "## Scenario by scenario", ""]
     for name, part in parts:
         text += [f"### {name}", "", f"Report: [{name}/report.md]({name}/report.md).", ""]

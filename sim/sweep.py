@@ -198,6 +198,22 @@ def plan_sweep(scenario_path: str | Path, controllers: Sequence[str] | None, sub
             for c in controllers for s in subjects for seed in _seeds(seeds, loaded.seed)]
 
 
+def scenario_files(paths: Sequence[str | Path]) -> list[Path]:
+    """The scenario files of a sweep: each path as given, a folder by its ``*.py`` files (sorted by name, those
+    whose name starts with ``_``, such as ``__init__.py``, left out)."""
+    files: list[Path] = []
+    for p in paths:
+        path = Path(p)
+        if path.is_dir():
+            found = sorted(f for f in path.glob("*.py") if not f.name.startswith("_"))
+            if not found:
+                raise SweepError(f"no scenario file (*.py) in the folder {str(path)!r}")
+            files += found
+        else:
+            files.append(path)
+    return files
+
+
 def scenario_folders(scenario_paths: Sequence[str | Path]) -> dict[str, str]:
     """The folder of each scenario file in a sweep over several (its stem), keyed by the resolved path.
 
@@ -419,7 +435,8 @@ def run_sweep(
         (``subject=``), so a file's ``for_subject`` hook is honoured.  Several
         files run in one sweep: every case of every file in the same processes,
         each file's runs and report in a folder named by its stem (see the
-        module's docstring); a one-file sequence is a one-scenario sweep.
+        module's docstring); a one-file sequence is a one-scenario sweep.  A
+        folder stands for its scenario files (:func:`scenario_files`).
     controllers : sequence of str, or None
         Controller variants, each listed by every scenario; ``None``: each
         scenario's own list.
@@ -457,7 +474,7 @@ def run_sweep(
         jobs = os.cpu_count() or 1
     if not (isinstance(jobs, int) and jobs >= 1):
         raise SweepError(f"jobs must be an integer >= 1, got {jobs!r}")
-    paths = [scenario_path] if isinstance(scenario_path, (str, Path)) else list(scenario_path)
+    paths = scenario_files([scenario_path] if isinstance(scenario_path, (str, Path)) else list(scenario_path))
     if not paths:
         raise SweepError("give at least one scenario file")
     folders = scenario_folders(paths) if len(paths) > 1 else {}

@@ -111,7 +111,10 @@ def test_a_scenario_missing_a_controller_or_two_files_of_one_name_stop_the_sweep
         run_sweep([a, twin], ["gravity"], ["m50"], 1, out_dir=tmp_path / "y")
     with pytest.raises(SweepError, match="at least one scenario"):
         run_sweep([], ["gravity"], ["m50"], 1, out_dir=tmp_path / "z")
-    assert not any((tmp_path / n).exists() for n in "xyz")
+    (tmp_path / "empty").mkdir()
+    with pytest.raises(SweepError, match="no scenario file"):
+        run_sweep(tmp_path / "empty", ["gravity"], ["m50"], 1, out_dir=tmp_path / "w")
+    assert not any((tmp_path / n).exists() for n in "xyzw")
     # the same file twice is one scenario: a one-scenario sweep
     once = run_sweep([a, a], ["gravity"], ["m50"], 1, out_dir=tmp_path / "once", jobs=1)
     assert [r.case.label for r in once.results] == ["gravity/m50/seed0"]
@@ -127,6 +130,7 @@ def test_the_sweep_command_takes_several_scenarios(two, tmp_path, capsys, monkey
     header = next(line for line in printed.splitlines() if "controller" in line)
     assert header.split()[:3] == ["scenario", "controller", "subject"]
     assert any(line.split()[:3] == ["sweep_out", "gravity", "all"] for line in printed.splitlines())
+    assert not any(line.split()[:3] == ["sweep_out", "gravity", "m50"] for line in printed.splitlines())
     assert (out / "report.md").is_file() and (out / "lift" / "report.md").is_file()
     # the default folder names the number of scenarios
     monkeypatch.chdir(tmp_path)
@@ -140,3 +144,31 @@ def test_the_sweep_command_takes_several_scenarios(two, tmp_path, capsys, monkey
     assert main(["sweep", str(a), str(b)]) == 1
     assert seen["paths"] == [str(a), str(b)] and seen["controllers"] is None
     assert str(seen["out"]) == "runs/sweep-2-scenarios"
+    # a folder stands for its scenario files, a package's __init__.py left out
+    (a.parent / "__init__.py").write_text('"""Not a scenario."""\n')
+    assert main(["sweep", str(a.parent)]) == 1
+    assert seen["paths"] == [str(a.parent)] and str(seen["out"]) == "runs/sweep-2-scenarios"
+    from sim.sweep import scenario_files
+
+    assert scenario_files([a.parent]) == [a, b]
+
+
+def test_the_table_across_scenarios_marks_every_controller_level_at_the_top(tmp_path):
+    # mechanism check on made-up summary rows: a tie at the top is bold twice, all equal is bold nowhere
+    from sim.report import write_sweeps_report
+    from sim.sweep import SweepResult
+
+    def rows(values):
+        return tuple({"controller": c, "subject": "all", "n_ok": 2, "n_failed": 0,
+                      "interaction_force_rms_N_mean": v, "interaction_force_rms_N_std": 0.1}
+                     for c, v in values.items())
+
+    parts = [("tie", SweepResult(tmp_path / "tie", (), rows({"a": 2.0, "b": 2.0, "c": 3.0}))),
+             ("same", SweepResult(tmp_path / "same", (), rows({"a": 1.0, "b": 1.0, "c": 1.0})))]
+    summary = tuple({"scenario": name, **r} for name, part in parts for r in part.summary)
+    md = write_sweeps_report(SweepResult(tmp_path, (), summary, 1.0),
+                             {"controllers": ["a", "b", "c"], "subjects": ["m50"], "seeds": [0], "executor": "test"},
+                             parts).read_text()
+    assert "| tie | whole run | **2 ± 0.1** | **2 ± 0.1** | 3 ± 0.1 |" in md
+    assert "| same | whole run | 1 ± 0.1 | 1 ± 0.1 | 1 ± 0.1 |" in md
+    assert md.count("No verdict") == 1  # the scenario where all three are level
