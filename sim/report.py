@@ -370,6 +370,7 @@ def write_sweep_report(result, settings: Mapping) -> Path:
     from .sweep import run_rows, write_csv
 
     out = Path(result.out_dir)
+    out.mkdir(parents=True, exist_ok=True)  # a scenario of a sweep over several whose every run failed has none yet
     summary = list(result.summary)
     keys = [k for k, m in METRICS.items() if m.summary and any(r.get(f"{k}_mean") is not None for r in summary)]
     write_csv(out / "summary.csv", summary)
@@ -465,8 +466,8 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
         row = [name, "outside the wall" if key == "interaction_force_free_rms_N" else "whole run"]
         for i, c in enumerate(controllers):
             v = values[i]
-            cell = "—" if c not in overall else "n/a" if v is None else \
-                f"{fmt(v)} ± {fmt(overall[c].get(f'{key}_std'), 2)}"
+            cell = ("—" if c not in overall else "every run failed" if not overall[c]["n_ok"]
+                    else "n/a" if v is None else f"{fmt(v)} ± {fmt(overall[c].get(f'{key}_std'), 2)}")
             row.append(f"**{cell}**" if i in top else cell)
         across.append(row)
     failed = result.failed

@@ -172,3 +172,16 @@ def test_the_table_across_scenarios_marks_every_controller_level_at_the_top(tmp_
     assert "| tie | whole run | **2 ± 0.1** | **2 ± 0.1** | 3 ± 0.1 |" in md
     assert "| same | whole run | 1 ± 0.1 | 1 ± 0.1 | 1 ± 0.1 |" in md
     assert md.count("No verdict") == 1  # the scenario where all three are level
+
+
+def test_a_scenario_whose_every_run_fails_gets_its_folder_and_the_others_complete(two, tmp_path):
+    a, _ = two
+    bad = write_scenario(tmp_path / "misfit.py", duration_s="0.2")
+    bad.write_text(bad.read_text() + "\n\ndef for_subject(subject):\n    raise ValueError('no cuff fits this arm')\n")
+    result = run_sweep([a, bad], ["gravity"], ["m50"], 1, out_dir=tmp_path / "out", jobs=2)
+    assert [r.ok for r in result.results] == [True, False]
+    assert "no cuff fits this arm" in (tmp_path / "out" / "misfit" / "report.md").read_text()
+    report = (tmp_path / "out" / "report.md").read_text()
+    assert "| misfit | whole run | every run failed |" in report and "## Failed runs" in report
+    assert "- `misfit/gravity/m50/seed0`: " in report
+    assert (tmp_path / "out" / "lift" / "gravity" / "m50" / "seed0" / "metrics.json").is_file()
