@@ -126,6 +126,9 @@ def build_parser() -> argparse.ArgumentParser:
     w.add_argument("--duration", type=float, metavar="S", help="override the scenario's duration [s]")
     w.add_argument("--out", metavar="DIR", help="output folder (default: runs/sweep-SCENARIO, or with several "
                    "scenarios runs/sweep-N-scenarios; then -2, -3, ...)")
+    w.add_argument("--resume", action="store_true",
+                   help="go on with the interrupted sweep in --out DIR, given the same scenarios and options: "
+                   "its finished runs are kept, the others run")
     w.set_defaults(func=_cmd_sweep)
     return p
 
@@ -375,6 +378,8 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
         parser.error(f"--jobs must be >= 1, got {args.jobs}")
     if args.duration is not None and not args.duration > 0:
         parser.error(f"--duration must be > 0, got {args.duration}")
+    if args.resume and not args.out:
+        parser.error("--resume needs the folder of the sweep to resume: --out DIR")
     files = scenario_files(args.scenario)
     several = len(scenario_folders(files)) > 1
     if args.out:
@@ -385,9 +390,10 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
         out = _fresh_folder(Path("runs") / f"sweep-{load_scenario(files[0]).name}")
     try:
         result = run_sweep(args.scenario, controllers, subjects, args.seeds, out_dir=out, jobs=args.jobs,
-                           dask_address=args.dask, progress=True, duration_s=args.duration)
+                           dask_address=args.dask, progress=True, duration_s=args.duration, resume=args.resume)
     except KeyboardInterrupt:
-        raise _UserError(f"interrupted; the runs finished so far are in {out / 'runs.csv'}") from None
+        raise _UserError(f"interrupted; the runs finished so far are in {out / 'runs.csv'}; the same command with "
+                         f"--out {out} --resume goes on with the others") from None
     parts = ({name: [r for r in result.summary if r["scenario"] == name]
               for name in dict.fromkeys(r["scenario"] for r in result.summary)} if several
              else {"": list(result.summary)})

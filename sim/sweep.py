@@ -31,6 +31,7 @@ Output folder::
                                subjects and seeds, and per (controller, subject)
     report.md, plots/*.png     the summary, the plots and the cautions
     sweep.json                 the sweep's settings and every run's metrics
+    plan.json                  its runs, scenario files' digests and software, for ``resume``
     CONTROLLER/SUBJECT/seedN/  the run folders (each with its human-alone baseline)
 
 A sweep over several scenario files runs all their cases in the same
@@ -43,7 +44,12 @@ tables of the whole sweep::
     summary.csv, summary.md    the scenarios' summary rows, the scenario first
     report.md                  transparency across the scenarios, each scenario's verdicts, the cautions
     sweep.json                 the settings and every run's metrics
-    SCENARIO/                  a sweep folder as above, for that scenario's runs
+    plan.json                  as above
+    SCENARIO/                  a sweep folder as above (without plan.json), for that scenario's runs
+
+An interrupted sweep goes on where it stopped with ``resume=True`` (the
+same scenarios and options): the runs it finished are read back, the others
+run, and every table is then as the uninterrupted sweep's.
 """
 
 from __future__ import annotations
@@ -52,6 +58,7 @@ import csv
 import json
 import math
 import os
+import shutil
 import statistics
 import sys
 import time
@@ -425,6 +432,7 @@ def run_sweep(
     progress: bool = False,
     duration_s: float | None = None,
     on_result: Callable[[CaseResult], None] | None = None,
+    resume: bool = False,
 ) -> SweepResult:
     """Run every (controller, subject, seed) of a scenario, or of several, and write the tables, plots and report.
 
@@ -446,7 +454,8 @@ def run_sweep(
         A count n (seeds ``scenario.seed`` ... ``scenario.seed + n - 1``, each
         scenario from its own) or the seeds themselves.
     out_dir : path
-        Output folder; created, and must be empty if it exists.
+        Output folder; created, and must be empty if it exists (unless ``resume``).
+        The sweep's plan is written there first (``plan.json``).
     jobs : int, optional
         Runs at a time on this machine (default: all cores): ``jobs - 1``
         worker processes and this one.  Ignored with ``dask_address``.
@@ -458,6 +467,15 @@ def run_sweep(
         Override the scenarios' duration [s] (short trial sweeps).
     on_result : callable(CaseResult), optional
         Called as each run finishes, in completion order.
+    resume : bool
+        Go on with an interrupted sweep in ``out_dir``, given the same
+        scenarios and options: the runs it finished are kept (their metrics
+        read back, never simulated again), the others run, and the tables
+        and reports are written over all of them.  The plan must match
+        ``plan.json``: the same cases, the same scenario files to the byte,
+        the same software versions (:func:`check_plan`); a run folder left
+        unfinished (no ``report.md``) is deleted and run again, with the same
+        seed, so with the same numbers.
 
     Returns
     -------
@@ -468,8 +486,12 @@ def run_sweep(
         a ``scenario`` key first.
     """
     out = Path(out_dir)
-    if out.exists() and (not out.is_dir() or any(out.iterdir())):
-        raise SweepError(f"output folder {str(out)!r} already holds something; choose another")
+    if resume:
+        if not (out / PLAN_FILE).is_file():
+            raise SweepError(f"nothing to resume: {str(out)!r} holds no {PLAN_FILE} of a sweep")
+    elif out.exists() and (not out.is_dir() or any(out.iterdir())):
+        raise SweepError(f"output folder {str(out)!r} already holds something; choose another (or resume the "
+                         "sweep in it)")
     if jobs is None:
         jobs = os.cpu_count() or 1
     if not (isinstance(jobs, int) and jobs >= 1):
@@ -485,19 +507,37 @@ def run_sweep(
     else:
         folders = {}
         cases = plan_sweep(paths[0], controllers, subjects, seeds, out, duration_s=duration_s)
-    out.mkdir(parents=True, exist_ok=True)
+    plan = sweep_plan(cases, out)
+    finished: dict[str, CaseResult] = {}
+    if resume:
+        check_plan(out, plan)
+        finished = _finished_cases(out, cases)
+        for c in cases:  # what an interrupted run left: run again from the start (same seed, same numbers)
+            if c.folder not in finished and Path(c.folder).exists():
+                shutil.rmtree(c.folder)
+    else:
+        out.mkdir(parents=True, exist_ok=True)
+        _write_json_atomic(out / PLAN_FILE, plan)
+    todo = [c for c in cases if c.folder not in finished]
     executor = f"dask {dask_address}" if dask_address else f"local, {jobs} jobs"
     settings = {"controllers": list(dict.fromkeys(c.controller for c in cases)),
                 "subjects": list(dict.fromkeys(subjects)), "seeds": sorted({c.seed for c in cases}),
                 "duration_s": duration_s, "executor": executor}
     from .report import write_sweep_report, write_sweeps_report
 
-    left = {name: sum(c.scenario == name for c in cases) for name in folders.values()}
+    left = {name: sum(c.scenario == name for c in todo) for name in folders.values()}
     parts: dict[str, SweepResult] = {}
-    bar = _bar(len(cases)) if progress else None
-    done: dict[str, CaseResult] = {}
+    bar = _bar(len(cases), len(finished)) if progress else None
+    done: dict[str, CaseResult] = dict(finished)
     t0 = time.perf_counter()
-    runner = _dask(cases, dask_address) if dask_address else _local(cases, min(jobs, len(cases)))
+    for name, n in left.items():  # a scenario a resumed sweep had finished
+        if not n:
+            parts[name] = _write_part(out, next(c for c in cases if c.scenario == name), cases, done, settings, t0,
+                                      len(folders))
+    if not todo:
+        runner: Iterable[CaseResult] = ()
+    else:
+        runner = _dask(todo, dask_address) if dask_address else _local(todo, min(jobs, len(todo)))
     try:
         for r in runner:
             done[r.case.folder] = r
@@ -526,6 +566,88 @@ def run_sweep(
     return result
 
 
+#: The sweep's plan, written in its folder before the first run (:func:`sweep_plan`, :func:`check_plan`).
+PLAN_FILE = "plan.json"
+
+
+def sweep_plan(cases: Sequence[SweepCase], out: Path) -> dict:
+    """What a resumed sweep must share with the sweep it goes on with: its cases (folder relative to ``out``,
+    scenario file, controller, subject, seed, duration), the SHA-256 of every scenario file, and the software
+    (:func:`sim.runlog.environment_metadata` without ``git_dirty``)."""
+    import hashlib
+
+    from .runlog import environment_metadata
+
+    root = out.resolve()
+    files = {}
+    for c in cases:
+        if c.scenario_path not in files:
+            files[c.scenario_path] = hashlib.sha256(Path(c.scenario_path).read_bytes()).hexdigest()
+    environment = {k: v for k, v in environment_metadata().items() if k != "git_dirty"}
+    return {"cases": [[Path(c.folder).relative_to(root).as_posix(), Path(c.scenario_path).name, c.controller,
+                       c.subject, c.seed, c.duration_s] for c in cases],
+            "scenario_sha256": {Path(p).name: h for p, h in files.items()}, "environment": environment}
+
+
+def check_plan(out: Path, plan: Mapping) -> None:
+    """Raise :class:`SweepError`, naming the first difference, unless ``plan`` is the plan recorded in ``out``."""
+    path = Path(out) / PLAN_FILE
+    try:
+        recorded = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError) as e:
+        raise SweepError(f"cannot read the plan of the sweep to resume, {str(path)!r}: {e}") from e
+    old_cases = [tuple(c) for c in recorded.get("cases", [])]
+    new_cases = [tuple(c) for c in json.loads(json.dumps(plan["cases"]))]
+    if old_cases != new_cases:
+        extra = [c for c in new_cases if c not in old_cases]
+        missing = [c for c in old_cases if c not in new_cases]
+        what = (f"this call adds {extra[0][0]}" if extra
+                else f"this call leaves out {missing[0][0]}" if missing else "the order of the runs differs")
+        raise SweepError(f"the sweep in {str(out)!r} was planned with other runs ({len(old_cases)} runs, this "
+                         f"call {len(new_cases)}; {what}): resume it with the same scenarios and options")
+    for name, digest in plan["scenario_sha256"].items():
+        if recorded.get("scenario_sha256", {}).get(name) != digest:
+            raise SweepError(f"the scenario file {name} changed since the sweep in {str(out)!r} started: its runs "
+                             "would mix two scenarios; start a new sweep")
+    old_env = recorded.get("environment", {})
+    for key, value in plan["environment"].items():
+        if old_env.get(key) != value:
+            raise SweepError(f"the software changed since the sweep in {str(out)!r} started ({key}: "
+                             f"{old_env.get(key)!r}, now {value!r}); start a new sweep")
+
+
+def _finished_cases(out: Path, cases: Sequence[SweepCase]) -> dict[str, CaseResult]:
+    """The cases of an interrupted sweep whose run finished: its ``report.md``, written last, is there.
+
+    Their metrics are read back from ``metrics.json``; their wall times from
+    the sweep's ``runs.csv`` where it has them (NaN otherwise).  A run that
+    failed is not finished: it runs again.
+    """
+    times = {}
+    try:
+        with (out / "runs.csv").open(newline="", encoding="utf-8") as f:
+            times = {row["folder"]: float(row["wall_time_s"] or "nan") for row in csv.DictReader(f)}
+    except (OSError, ValueError, KeyError, csv.Error):
+        pass
+    finished = {}
+    for c in cases:
+        folder = Path(c.folder)
+        if not (folder / "report.md").is_file():
+            continue
+        try:
+            metrics = json.loads((folder / "metrics.json").read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            continue
+        finished[c.folder] = CaseResult(c, metrics, None, times.get(c.label, math.nan))
+    return finished
+
+
+def _write_json_atomic(path: Path, doc: Mapping) -> None:
+    tmp = path.with_name(path.name + ".tmp")
+    tmp.write_text(json.dumps(doc, indent=1) + "\n", encoding="utf-8")
+    tmp.replace(path)
+
+
 def _write_part(out: Path, last: SweepCase, cases: Sequence[SweepCase], done: Mapping[str, CaseResult],
                 settings: Mapping, t0: float, n_scenarios: int) -> SweepResult:
     """The one-scenario sweep folder of ``last``'s scenario in a sweep over several: its tables, plots and report."""
@@ -544,7 +666,7 @@ def _write_part(out: Path, last: SweepCase, cases: Sequence[SweepCase], done: Ma
     return part
 
 
-def _bar(total: int):
+def _bar(total: int, initial: int = 0):
     try:
         import sys
 
@@ -553,7 +675,8 @@ def _bar(total: int):
         class Bar(tqdm):
             monitor_interval = 0  # no monitor thread: the sweep's workers are forked after the bar is made
 
-        return Bar(total=total, desc="sweep", unit="run", file=sys.stderr, disable=not sys.stderr.isatty())
+        return Bar(total=total, initial=initial, desc="sweep", unit="run", file=sys.stderr,
+                   disable=not sys.stderr.isatty())
     except ImportError:
         return None
 
