@@ -457,10 +457,13 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
     (out / "sweep.json").write_text(json.dumps(doc, indent=1, allow_nan=False) + "\n", encoding="utf-8")
 
     controllers = list(dict.fromkeys(r["controller"] for r in summary))
-    across = []
+    across, bars = [], []
     for name, part in parts:
         key = transparency_key(part.summary)
         overall = {r["controller"]: r for r in part.summary if r["subject"] == "all"}
+        # the figure as plots.sweep_bars draws a summary: one group per scenario, one bar per controller
+        bars += [{"controller": c, "subject": name, "transparency_mean": r.get(f"{key}_mean"),
+                  "transparency_std": r.get(f"{key}_std")} for c, r in overall.items()]
         values = [overall[c].get(f"{key}_mean") if c in overall else None for c in controllers]
         top = best_indices(values, METRICS[key].better)  # every one of a tie at the top
         row = [name, "outside the wall" if key == "interaction_force_free_rms_N" else "whole run"]
@@ -470,6 +473,13 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
                     else "n/a" if v is None else f"{fmt(v)} ± {fmt(overall[c].get(f'{key}_std'), 2)}")
             row.append(f"**{cell}**" if i in top else cell)
         across.append(row)
+    from . import plots
+
+    force = METRICS["interaction_force_rms_N"]
+    fig = plots.sweep_bars(bars, "transparency", out / "plots" / "transparency_across_scenarios.png",
+                           ylabel=f"{force.label} [{force.unit}]",
+                           title="transparency across the scenarios, mean ± std over subjects and seeds\n"
+                                 "(with a wall: the hand outside it)")
     failed = result.failed
     text = [f"# Sweep report: {len(parts)} scenarios", "",
             f"Scenarios {', '.join(name for name, _ in parts)}; controllers {', '.join(settings['controllers'])}; "
@@ -482,7 +492,8 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
             "hand outside it (`interaction_force_free_rms_N`), since inside it the force is the wall a variant "
             "renders on purpose. The better value per scenario is in bold (each of those level at the top); — : not "
             "run in that scenario.", "",
-            markdown_table(["scenario", "ticks", *controllers], across), "", "## Scenario by scenario", ""]
+            markdown_table(["scenario", "ticks", *controllers], across), "", f"![{fig.stem}](plots/{fig.name})", "",
+            "## Scenario by scenario", ""]
     for name, part in parts:
         text += [f"### {name}", "", f"Report: [{name}/report.md]({name}/report.md).", ""]
         verdicts = sweep_verdicts(part.summary)

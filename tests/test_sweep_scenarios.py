@@ -94,6 +94,8 @@ def test_the_tables_across_scenarios_carry_the_scenario_and_the_pooled_statistic
     sweep_out_line = next(line for line in report.splitlines() if line.startswith("| sweep_out |"))
     assert sweep_out_line.endswith("| — |")  # zero is not one of that scenario's controllers
     assert "[lift/report.md](lift/report.md)" in report
+    assert "![transparency_across_scenarios](plots/transparency_across_scenarios.png)" in report
+    assert (tmp_path / "s" / "plots" / "transparency_across_scenarios.png").stat().st_size > 1000
     doc = json.loads((tmp_path / "s" / "sweep.json").read_text())
     assert doc["settings"]["scenarios"] == [str(a), str(b)] and len(doc["runs"]) == 10
     assert doc["runs"][-1]["scenario"] == "sweep_out"
