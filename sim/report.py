@@ -330,7 +330,7 @@ def sweep_verdicts(summary: Sequence[Mapping]) -> dict[str, list[str]]:
     wall, on ``interaction_force_rms_N``.
     """
     walled = has_wall(summary)
-    out = {"Which is more transparent": (headline(summary, "interaction_force_free_rms_N") if walled else [])
+    out = {"Which is more transparent": (headline(summary, transparency_key(summary)) if walled else [])
            or headline(summary)}
     if walled:
         out["Which renders the wall closest to its commanded stiffness"] = headline(
@@ -362,12 +362,32 @@ def summary_cells(summary: Sequence[Mapping], keys: Sequence[str]) -> tuple[list
     return header, rows
 
 
-def write_sweep_report(result, settings: Mapping) -> Path:
-    """``summary.csv``, ``summary.md``, ``runs.md``, ``sweep.json``, ``report.md`` and plots of a sweep."""
+def _write_run_tables(out: Path, result, settings: Mapping) -> None:
+    """``runs.csv``, ``runs.md`` and ``sweep.json`` of a sweep: one row per run (after its scenario in a sweep over
+    several), each run's folder relative to ``out`` (:attr:`sim.sweep.SweepCase.label`)."""
     import json
 
-    from . import plots
     from .sweep import run_rows, write_csv
+
+    rows = run_rows(result.results)
+    write_csv(out / "runs.csv", rows)
+    several = any(r.case.scenario for r in result.results)
+    run_keys = [*(["scenario"] if several else []), "controller", "subject", "seed", "status",
+                "interaction_force_rms_N", "error"]
+    (out / "runs.md").write_text(markdown_table(run_keys, [[fmt(r.get(k, "")) for k in run_keys] for r in rows])
+                                 + "\n", encoding="utf-8")
+    doc = {"settings": dict(settings), "wall_time_s": result.wall_time_s,
+           "runs": [{**({"scenario": r.case.scenario} if several else {}), "controller": r.case.controller,
+                     "subject": r.case.subject, "seed": r.case.seed, "folder": r.case.label, "error": r.error,
+                     "metrics": r.metrics} for r in result.results]}
+    (out / "sweep.json").write_text(json.dumps(doc, indent=1, allow_nan=False) + "\n", encoding="utf-8")
+
+
+def write_sweep_report(result, settings: Mapping) -> Path:
+    """``summary.csv``, ``summary.md``, ``runs.md``, ``sweep.json``, ``report.md`` and plots of a sweep."""
+
+    from . import plots
+    from .sweep import write_csv
 
     out = Path(result.out_dir)
     out.mkdir(parents=True, exist_ok=True)  # a scenario of a sweep over several whose every run failed has none yet
@@ -376,17 +396,7 @@ def write_sweep_report(result, settings: Mapping) -> Path:
     write_csv(out / "summary.csv", summary)
     header, cells = summary_cells(summary, keys)
     (out / "summary.md").write_text(markdown_table(header, cells) + "\n", encoding="utf-8")
-    rows = run_rows(result.results)
-    write_csv(out / "runs.csv", rows)
-    run_keys = ["controller", "subject", "seed", "status", "interaction_force_rms_N", "error"]
-    (out / "runs.md").write_text(markdown_table(run_keys, [[fmt(r.get(k, "")) for k in run_keys] for r in rows])
-                                 + "\n", encoding="utf-8")
-    doc = {"settings": dict(settings), "wall_time_s": result.wall_time_s,
-           "runs": [{"controller": r.case.controller, "subject": r.case.subject, "seed": r.case.seed,
-                     "folder": str(Path(r.case.folder).relative_to(out.resolve()))
-                     if Path(r.case.folder).is_relative_to(out.resolve()) else r.case.folder,
-                     "error": r.error, "metrics": r.metrics} for r in result.results]}
-    (out / "sweep.json").write_text(json.dumps(doc, indent=1, allow_nan=False) + "\n", encoding="utf-8")
+    _write_run_tables(out, result, settings)
     # with a wall, transparency is judged with the hand outside it: inside, the force is the wall a variant renders
     walled = has_wall(summary)
     figs = []
@@ -432,9 +442,8 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
     controller over every subject and seed, the better in bold; then each
     scenario's verdicts (:func:`sweep_verdicts`) and a link to its report.
     """
-    import json
 
-    from .sweep import run_rows, write_csv
+    from .sweep import write_csv
 
     out = Path(result.out_dir)
     summary = list(result.summary)
@@ -445,16 +454,7 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
         header, rows = summary_cells(part.summary, keys)
         cells += [[name, *row] for row in rows]
     (out / "summary.md").write_text(markdown_table(["scenario", *header], cells) + "\n", encoding="utf-8")
-    rows = run_rows(result.results)
-    write_csv(out / "runs.csv", rows)
-    run_keys = ["scenario", "controller", "subject", "seed", "status", "interaction_force_rms_N", "error"]
-    (out / "runs.md").write_text(markdown_table(run_keys, [[fmt(r.get(k, "")) for k in run_keys] for r in rows])
-                                 + "\n", encoding="utf-8")
-    doc = {"settings": dict(settings), "wall_time_s": result.wall_time_s,
-           "runs": [{"scenario": r.case.scenario, "controller": r.case.controller, "subject": r.case.subject,
-                     "seed": r.case.seed, "folder": r.case.label, "error": r.error, "metrics": r.metrics}
-                    for r in result.results]}
-    (out / "sweep.json").write_text(json.dumps(doc, indent=1, allow_nan=False) + "\n", encoding="utf-8")
+    _write_run_tables(out, result, settings)
 
     controllers = list(dict.fromkeys(r["controller"] for r in summary))
     across, bars = [], []
