@@ -516,8 +516,10 @@ def run_sweep(
             if c.folder not in finished and Path(c.folder).exists():
                 shutil.rmtree(c.folder)
     else:
+        from .simulate import write_json
+
         out.mkdir(parents=True, exist_ok=True)
-        _write_json_atomic(out / PLAN_FILE, plan)
+        write_json(out / PLAN_FILE, plan)
     todo = [c for c in cases if c.folder not in finished]
     executor = f"dask {dask_address}" if dask_address else f"local, {jobs} jobs"
     settings = {"controllers": list(dict.fromkeys(c.controller for c in cases)),
@@ -640,12 +642,6 @@ def _finished_cases(out: Path, cases: Sequence[SweepCase]) -> dict[str, CaseResu
             continue
         finished[c.folder] = CaseResult(c, metrics, None, times.get(c.label, math.nan))
     return finished
-
-
-def _write_json_atomic(path: Path, doc: Mapping) -> None:
-    tmp = path.with_name(path.name + ".tmp")
-    tmp.write_text(json.dumps(doc, indent=1) + "\n", encoding="utf-8")
-    tmp.replace(path)
 
 
 def _write_part(out: Path, last: SweepCase, cases: Sequence[SweepCase], done: Mapping[str, CaseResult],
