@@ -381,11 +381,12 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     if args.resume and not args.out:
         parser.error("--resume needs the folder of the sweep to resume: --out DIR")
     files = scenario_files(args.scenario)
-    several = len(scenario_folders(files)) > 1
+    n_scenarios = len(scenario_folders(files))
+    several = n_scenarios > 1
     if args.out:
         out = Path(args.out)
     elif several:
-        out = _fresh_folder(Path("runs") / f"sweep-{len(scenario_folders(files))}-scenarios")
+        out = _fresh_folder(Path("runs") / f"sweep-{n_scenarios}-scenarios")
     else:
         out = _fresh_folder(Path("runs") / f"sweep-{load_scenario(files[0]).name}")
     try:
