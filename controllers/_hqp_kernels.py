@@ -385,10 +385,8 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
     n = x.shape[0]
     none = np.zeros((0, n))
     n_in = C.shape[0]
-    if n_eq and n_in:
-        return False, x, none
     Gz, hz, Gx = _constraint_rows(x, N, has_N, G, h, rank_tol)
-    if n_in:
+    if not n_eq:
         Gz = _vstack(_proj(C, N, has_N), Gz)
         hz = _concat(d - _mv(C, x), hz)
     if Gz.shape[0] == 0:
@@ -398,7 +396,7 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
         W[i] = _row_dot(Gz, i, z_ls) - hz[i] > tol
     if not W.any():
         return False, x, none
-    if n_in:
+    if not n_eq:
         GW, hW = _rows(Gz, W), _entries(hz, W)
         # minimum-norm correction onto W: GW^T (GW GW^T)^-1 res if GW has full row rank, else least squares
         res = hW - _mv(GW, z_ls)
@@ -472,7 +470,10 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
                         break
                     drop -= 1
             continue
-        return True, _lift(x, z, N, has_N), _rows(_rows(Gx, W), lam > mult_tol * lam_scale)
+        x_new = _lift(x, z, N, has_N)
+        if n_in and _max_violation(C, x_new, d, -np.inf) > tol:
+            return False, x, none  # the level's inequality rows must be traded against its equality rows: a QP
+        return True, x_new, _rows(_rows(Gx, W), lam > mult_tol * lam_scale)
     return False, x, none
 
 

@@ -897,20 +897,24 @@ class _Solver:
         Wright, *Numerical Optimization*, 2nd ed., 2006, Algorithm 16.3), at
         most :func:`_working_set_iterations` times. The point is kept once it
         satisfies every row with :math:`\lambda \ge 0`: the KKT conditions of
-        the level's QP, so it is an optimum whatever path led there. Rows with
-        a clearly positive multiplier are returned for elimination, as after a
-        backend solve. Anything else (a level with both kinds of rows, bounds
-        on the free variables, no verified point within the iterations)
-        returns None and the level goes to the backend.
+        the level's QP, so it is an optimum whatever path led there. A level
+        with both kinds of rows takes the equality-only steps over the frozen
+        and hard rows, and the point is kept only if it also satisfies the
+        level's own inequality rows: their slacks are then zero, so no point
+        has a lower cost (the equality cost is at its constrained minimum and
+        the slack cost cannot go below zero), and the multipliers are those of
+        the equality-only problem. Rows with a clearly positive multiplier are
+        returned for elimination, as after a backend solve. Anything else
+        (bounds on the free variables, a level's inequality row the point
+        violates, no verified point within the iterations) returns None and
+        the level goes to the backend.
         """
         n_eq, n_in = level.A.shape[0], level.C.shape[0]
-        if n_eq and n_in:
-            return None
         Gz, hz, Gx, lbz, ubz = self._qp_constraints()
         if lbz is not None or ubz is not None:
             return None
         tol = self.cons.tol
-        if n_in:  # the level's own rows join the frozen and hard ones; the cost is the slack alone
+        if not n_eq:  # the level's own rows join the frozen and hard ones; the cost is the slack alone
             Gz = np.vstack([self._proj(level.C), Gz])
             hz = np.concatenate([level.d - level.C @ self.x, hz])
         viol = Gz @ z_ls - hz
@@ -918,7 +922,7 @@ class _Solver:
         if not W.any():
             return None
         GW, hW = Gz[W], hz[W]
-        if n_in:
+        if not n_eq:
             z = z_ls + np.linalg.lstsq(GW, hW - GW @ z_ls, rcond=None)[0]
             if np.max(Gz @ z - hz) > tol:
                 return None
@@ -948,9 +952,12 @@ class _Solver:
             if m and lam.min() < -mult_tol * lam_scale:  # a row that pulls the wrong way: drop it
                 W[np.flatnonzero(W)[int(np.argmin(lam))]] = False
                 continue
+            x = self._lift(z)
+            if n_in and np.max(level.C @ x - level.d) > tol:
+                return None  # the level's inequality rows must be traded against its equality rows: a QP
             # the KKT conditions hold: the x-space rows of W with a clearly positive multiplier are active
             # at every optimum
-            return self._lift(z), Gx[W][lam > mult_tol * lam_scale]
+            return x, Gx[W][lam > mult_tol * lam_scale]
         return None
 
     def _level_qp(self, level, label, V1, s1, c1, warm_x):

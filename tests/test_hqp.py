@@ -310,6 +310,33 @@ def test_working_set_iterations_reach_the_constrained_optimum(case, compiled):
     assert res.level_methods[0] == "working-set" and res.qp_solves == 0
 
 
+@pytest.mark.parametrize("compiled", [True, False], ids=["compiled", "python"])
+@pytest.mark.parametrize("ceiling", [5.0, 0.5], ids=["inequality-inactive", "inequality-binding"])
+def test_a_level_with_both_kinds_of_rows_takes_the_working_set_step_only_when_its_inequality_holds(ceiling,
+                                                                                                    compiled):
+    """One level: min ||x - t||^2 plus the slack of x2 <= ceiling, above the hard row x1 + x2 <= 2; at t = (2, 2)
+    the hard row is violated. With the ceiling far (5) the level's optimum is the projection (1, 1), where the
+    inequality holds: the working-set step gives it, no QP. With the ceiling at 0.5 the optimum trades the
+    inequality's slack against the distance to t: the backend solves it. Both checked against cvxpy + Clarabel
+    on the level's QP with its slack (the frozen-slack formulation, Kanoun, Lamiraux & Wieber 2011)."""
+    t, G, h = np.array([2.0, 2.0]), np.array([[1.0, 1.0]]), np.array([2.0])
+    C, d = np.array([[0.0, 1.0]]), np.array([ceiling])
+    res = solve_hierarchy([Level(eq=[(np.eye(2), t)], ineq=[(C, d)])], 2, hard=Level(ineq=[(G, h)]),
+                          regularization=0.0, params=HQPParams(compiled=compiled))
+    x, v = cp.Variable(2), cp.Variable(1, nonneg=True)
+    cp.Problem(cp.Minimize(cp.sum_squares(x - t) + cp.sum_squares(v)), [G @ x <= h, C @ x - v <= d]).solve(
+        solver=cp.CLARABEL)
+    np.testing.assert_allclose(res.x, x.value, atol=1e-6)
+    if ceiling == 5.0:
+        np.testing.assert_allclose(res.x, [1.0, 1.0], atol=1e-9)  # closed form: projection onto x1 + x2 = 2
+        assert res.level_methods[0] == "working-set" and res.qp_solves == 0
+    else:
+        # closed form of the KKT point: x = (1 + s, 1 - s) on the hard row, cost (1 - s)^2 + (1 + s)^2 + (0.5 - s)^2
+        # ... minimised at s = 1/6: x = (7/6, 5/6)
+        np.testing.assert_allclose(res.x, [7.0 / 6.0, 5.0 / 6.0], atol=1e-6)
+        assert res.level_methods[0] == "qp" and res.qp_solves == 1
+
+
 # ------------------------------------------------------------------------------------------
 # Strict priority (REFERENCES.md section 8)
 
