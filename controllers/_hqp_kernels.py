@@ -380,7 +380,7 @@ def _constraint_rows(x, N, has_N, G, h, rank_tol):
 
 
 @nb.njit(cache=True)
-def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol, feas_tol, mult_tol):
+def _working_set(x, N, has_N, G, h, C, d, wi, n_eq, V1, s1, c1, z_ls, tol, rank_tol, feas_tol, mult_tol):
     """``_Solver._working_set_step``, with its iterations: (kept, x, rows active at every optimum)."""
     n = x.shape[0]
     none = np.zeros((0, n))
@@ -389,14 +389,12 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
     if not n_eq:
         Gz = _vstack(_proj(C, N, has_N), Gz)
         hz = _concat(d - _mv(C, x), hz)
-    if Gz.shape[0] == 0:
-        return False, x, none
     W = np.empty(Gz.shape[0], dtype=np.bool_)  # the rows the least-squares point violates
     for i in range(Gz.shape[0]):
         W[i] = _row_dot(Gz, i, z_ls) - hz[i] > tol
-    if not W.any():
-        return False, x, none
     if not n_eq:
+        if not W.any():
+            return False, x, none
         GW, hW = _rows(Gz, W), _entries(hz, W)
         # minimum-norm correction onto W: GW^T (GW GW^T)^-1 res if GW has full row rank, else least squares
         res = hW - _mv(GW, z_ls)
@@ -407,16 +405,34 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
         if _max_violation(Gz, z, hz, -np.inf) > tol:
             return False, x, none
         return True, _lift(x, z, N, has_N), none
+    # the level's own inequality rows, in z: those of S add their weighted squared slack to the cost
+    Cz = _proj(C, N, has_N)
+    dz = d - _mv(C, x)
+    S = np.empty(n_in, dtype=np.bool_)
+    for i in range(n_in):
+        S[i] = _row_dot(Cz, i, z_ls) - dz[i] > tol
+    if not (W.any() or S.any()):
+        return False, x, none
     r = z_ls.shape[0]
-    H = _scaled_gram(V1, s1 * s1)
-    g = _mv(V1, s1 * c1)
-    definite = s1.shape[0] == r
-    Hi = _scaled_gram(V1, 1.0 / (s1 * s1)) if definite else H
-    Hig = _mv(Hi, g)
-    for _ in range(min(2 * Gz.shape[0] + 2, 8)):  # controllers.hqp._working_set_iterations
+    H0 = _scaled_gram(V1, s1 * s1)
+    g0 = _mv(V1, s1 * c1)
+    full_rank = s1.shape[0] == r
+    Hi = _scaled_gram(V1, 1.0 / (s1 * s1)) if full_rank else H0
+    Hig = _mv(Hi, g0)
+    for _ in range(min(2 * (Gz.shape[0] + n_in) + 2, 8)):  # controllers.hqp._working_set_iterations
         GW, hW = _rows(Gz, W), _entries(hz, W)
         m = GW.shape[0]
         GWT = np.ascontiguousarray(GW.T)
+        H, g, definite = H0, g0, full_rank
+        if S.any():  # H = H0 + C_S^T Omega_S C_S, g = g0 + C_S^T Omega_S d_S: the KKT system by least squares
+            H, g, definite = H0.copy(), g0.copy(), False
+            for k in range(n_in):
+                if S[k]:
+                    for i in range(r):
+                        wc = wi[k] * Cz[k, i]
+                        g[i] += wc * dz[k]
+                        for j in range(r):
+                            H[i, j] += wc * Cz[k, j]
         # the KKT system [H GW^T; GW 0] [z; lam] = [g; hW] by its Schur complement when H = V1 S1^2 V1^T is
         # definite (the unique solution), else by least squares: z = H^-1 (g - GW^T lam),
         # (GW H^-1 GW^T) lam = GW H^-1 g - hW (Nocedal & Wright 2006, section 16.1)
@@ -457,10 +473,25 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
             return False, x, none  # inconsistent working set
         lam_scale = max(1.0, _abs_max(lam))
         viol = _residual(Gz, z, hz)
-        worst = int(np.argmax(viol))
-        if viol[worst] > tol:  # a row the step crossed: add it
+        worst = int(np.argmax(viol)) if viol.shape[0] else -1
+        if worst >= 0 and viol[worst] > tol:  # a row the step crossed: add it
             W[worst] = True
             continue
+        if n_in:
+            sv = _residual(Cz, z, dz)
+            i_out, i_in = -1, -1
+            for i in range(n_in):
+                if S[i]:
+                    if i_in < 0 or sv[i] < sv[i_in]:
+                        i_in = i
+                elif i_out < 0 or sv[i] > sv[i_out]:
+                    i_out = i
+            if i_out >= 0 and sv[i_out] > tol:  # a row of the level the point violates: its slack joins the cost
+                S[i_out] = True
+                continue
+            if i_in >= 0 and sv[i_in] < -tol:  # a row of S the point satisfies: its slack leaves the cost
+                S[i_in] = False
+                continue
         if m and lam.min() < -mult_tol * lam_scale:  # a row that pulls the wrong way: drop it
             drop = int(np.argmin(lam))
             for i in range(W.shape[0]):
@@ -470,10 +501,7 @@ def _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
                         break
                     drop -= 1
             continue
-        x_new = _lift(x, z, N, has_N)
-        if n_in and _max_violation(C, x_new, d, -np.inf) > tol:
-            return False, x, none  # the level's inequality rows must be traded against its equality rows: a QP
-        return True, x_new, _rows(_rows(Gx, W), lam > mult_tol * lam_scale)
+        return True, _lift(x, z, N, has_N), _rows(_rows(Gx, W), lam > mult_tol * lam_scale)
     return False, x, none
 
 
@@ -503,7 +531,7 @@ def _eliminate(rows, N, has_N, rank_tol):
 
 
 @nb.njit(cache=True)
-def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, feas_tol, slack_tol, mult_tol,
+def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, wi, tol, rank_tol, feas_tol, slack_tol, mult_tol,
                      closed_form, working_set_step):
     r"""One level of the hierarchy, closed form or one checked active-set step, compiled.
 
@@ -511,7 +539,7 @@ def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, 
     the null-space basis ``N`` (n, r) if ``has_N`` else ignored, the frozen
     and hard rows ``G x <= h``), the level's equality rows ``A x ~ b`` with
     the square roots ``sw`` of their weights (ignored if ``unit_eq``), its
-    inequality rows ``C x <= d``, and the thresholds of
+    inequality rows ``C x <= d`` with the weights ``wi`` of their slacks, and the thresholds of
     :class:`controllers.hqp.HQPParams` (``tol`` is the absolute feasibility
     tolerance of the constraints). The level must have rows and freedom
     (r > 0).
@@ -569,7 +597,7 @@ def solve_level_fast(x, N, has_N, G, h, A, b, sw, unit_eq, C, d, tol, rank_tol, 
         kept = False
         x_new = x
         if working_set_step:
-            kept, x_new, active = _working_set(x, N, has_N, G, h, C, d, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
+            kept, x_new, active = _working_set(x, N, has_N, G, h, C, d, wi, n_eq, V1, s1, c1, z_ls, tol, rank_tol,
                                                feas_tol, mult_tol)
         if not kept:
             return NEEDS_QP, x, N, has_N, G, h, np.zeros(0), np.zeros(0)
@@ -640,6 +668,7 @@ def solve_levels_fast(start, end, timed, x, N, has_N, G, h, A, b, sw, eq_off, un
         swk = np.ascontiguousarray(sw[eq_off[k]: eq_off[k + 1]])
         Ck = np.ascontiguousarray(C[in_off[k]: in_off[k + 1]])
         dk = np.ascontiguousarray(d[in_off[k]: in_off[k + 1]])
+        wik = np.ascontiguousarray(wi[in_off[k]: in_off[k + 1]])
         r = N.shape[1] if has_N else n
         if Ak.shape[0] + Ck.shape[0] == 0:
             method = EMPTY
@@ -652,7 +681,7 @@ def solve_levels_fast(start, end, timed, x, N, has_N, G, h, A, b, sw, eq_off, un
                 v_all[in_off[k] + i] = vi if vi >= 0.0 or vi != vi else 0.0
         else:
             method, x2, N2, has_N2, G2, h2, e, v = solve_level_fast(
-                x, N, has_N, G, h, Ak, bk, swk, unit_eq[k], Ck, dk, tol, rank_tol, feas_tol, slack_tol, mult_tol,
+                x, N, has_N, G, h, Ak, bk, swk, unit_eq[k], Ck, dk, wik, tol, rank_tol, feas_tol, slack_tol, mult_tol,
                 closed_form, working_set_step)
             if method == NEEDS_QP:
                 return k, x, N, has_N, G, h

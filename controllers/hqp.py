@@ -883,31 +883,34 @@ class _Solver:
         The rows violated at the unconstrained point :math:`z_{ls}` form a
         working set W, held with equality. An inequality-only level is then
         at its optimum (slack 0) at any point that satisfies every row, so the
-        minimum-norm correction onto W is kept if it is feasible. An
-        equality-only level solves its KKT system with W,
+        minimum-norm correction onto W is kept if it is feasible. A level with
+        equality rows solves its KKT system with W,
 
-        .. math:: \begin{bmatrix} H & G_W^T \\ G_W & 0 \end{bmatrix}
+        .. math:: \begin{bmatrix} H_S & G_W^T \\ G_W & 0 \end{bmatrix}
                   \begin{bmatrix} z \\ \lambda \end{bmatrix} =
-                  \begin{bmatrix} V_1 S_1 c_1 \\ h_W \end{bmatrix},
-                  \qquad H = V_1 S_1^2 V_1^T,
+                  \begin{bmatrix} g_S \\ h_W \end{bmatrix},
+                  \qquad H_S = V_1 S_1^2 V_1^T + C_S^T \Omega_S C_S,
+                  \quad g_S = V_1 S_1 c_1 + C_S^T \Omega_S d_S,
 
-        then adds the most violated row to W, or else drops the row of the
+        where S is the set of the level's own inequality rows taken as
+        violated (their weighted squared slack :math:`\omega (C_i z - d_i)^2`
+        joins the cost; at first those violated at :math:`z_{ls}`). It then
+        adds the most violated row of the frozen and hard ones to W, or else a
+        row of the level's own that the point violates to S, or else drops
+        from S a row the point satisfies, or else drops from W the row of the
         most negative multiplier, and solves again (the working-set updates of
         the primal active-set method, without its step-length rule; Nocedal &
         Wright, *Numerical Optimization*, 2nd ed., 2006, Algorithm 16.3), at
         most :func:`_working_set_iterations` times. The point is kept once it
-        satisfies every row with :math:`\lambda \ge 0`: the KKT conditions of
-        the level's QP, so it is an optimum whatever path led there. A level
-        with both kinds of rows takes the equality-only steps over the frozen
-        and hard rows, and the point is kept only if it also satisfies the
-        level's own inequality rows: their slacks are then zero, so no point
-        has a lower cost (the equality cost is at its constrained minimum and
-        the slack cost cannot go below zero), and the multipliers are those of
-        the equality-only problem. Rows with a clearly positive multiplier are
-        returned for elimination, as after a backend solve. Anything else
-        (bounds on the free variables, a level's inequality row the point
-        violates, no verified point within the iterations) returns None and
-        the level goes to the backend.
+        satisfies every frozen and hard row with :math:`\lambda \ge 0`, every
+        row of S reaches or passes its bound and every other row of the level
+        holds: the KKT conditions of the level's QP (its slacks are then
+        :math:`v = \max(C z - d, 0)`, and the cost's gradient is the one the
+        system solved), so it is an optimum whatever path led there. Rows with
+        a clearly positive multiplier are returned for elimination, as after a
+        backend solve. Anything else (bounds on the free variables, no
+        verified point within the iterations) returns None and the level goes
+        to the backend.
         """
         n_eq, n_in = level.A.shape[0], level.C.shape[0]
         Gz, hz, Gx, lbz, ubz = self._qp_constraints()
@@ -917,27 +920,37 @@ class _Solver:
         if not n_eq:  # the level's own rows join the frozen and hard ones; the cost is the slack alone
             Gz = np.vstack([self._proj(level.C), Gz])
             hz = np.concatenate([level.d - level.C @ self.x, hz])
-        viol = Gz @ z_ls - hz
-        W = viol > tol
-        if not W.any():
-            return None
-        GW, hW = Gz[W], hz[W]
+        W = Gz @ z_ls - hz > tol
         if not n_eq:
+            if not W.any():
+                return None
+            GW, hW = Gz[W], hz[W]
             z = z_ls + np.linalg.lstsq(GW, hW - GW @ z_ls, rcond=None)[0]
             if np.max(Gz @ z - hz) > tol:
                 return None
             return self._lift(z), np.zeros((0, self.n))
+        # the level's own inequality rows, in z: those of S add their weighted squared slack to the cost
+        Cz, dz, w = self._proj(level.C), level.d - level.C @ self.x, level.weights_ineq
+        S = Cz @ z_ls - dz > tol
+        if not (W.any() or S.any()):
+            return None
         r = self.r
         H, g = (V1 * s1**2) @ V1.T, V1 @ (s1 * c1)
         mult_tol = self.params.multiplier_tol
-        for _ in range(_working_set_iterations(Gz.shape[0])):
+        for _ in range(_working_set_iterations(Gz.shape[0] + n_in)):
             GW, hW = Gz[W], hz[W]
             m = GW.shape[0]
             K = np.zeros((r + m, r + m))
             K[:r, :r] = H
+            if S.any():
+                CwS = Cz[S] * w[S][:, None]
+                K[:r, :r] += Cz[S].T @ CwS
+                gS = g + CwS.T @ dz[S]
+            else:
+                gS = g
             K[:r, r:] = GW.T
             K[r:, :r] = GW
-            rhs = np.concatenate([g, hW])
+            rhs = np.concatenate([gS, hW])
             sol = np.linalg.lstsq(K, rhs, rcond=None)[0]
             scale = 1.0 + float(np.abs(rhs).max())
             if np.abs(K @ sol - rhs).max() > self.params.feasibility_tol * scale:
@@ -945,19 +958,28 @@ class _Solver:
             z, lam = sol[:r], sol[r:]
             lam_scale = max(1.0, float(np.abs(lam).max(initial=0.0)))
             viol = Gz @ z - hz
-            worst = int(np.argmax(viol))
-            if viol[worst] > tol:  # a row the step crossed: add it
+            worst = int(np.argmax(viol)) if viol.size else -1
+            if worst >= 0 and viol[worst] > tol:  # a row the step crossed: add it
                 W[worst] = True
                 continue
+            if n_in:
+                sv = Cz @ z - dz
+                out_of_S = np.where(S, -np.inf, sv)
+                i = int(np.argmax(out_of_S))
+                if out_of_S[i] > tol:  # a row of the level the point violates: its slack joins the cost
+                    S[i] = True
+                    continue
+                in_S = np.where(S, sv, np.inf)
+                i = int(np.argmin(in_S))
+                if in_S[i] < -tol:  # a row of S the point satisfies: its slack leaves the cost
+                    S[i] = False
+                    continue
             if m and lam.min() < -mult_tol * lam_scale:  # a row that pulls the wrong way: drop it
                 W[np.flatnonzero(W)[int(np.argmin(lam))]] = False
                 continue
-            x = self._lift(z)
-            if n_in and np.max(level.C @ x - level.d) > tol:
-                return None  # the level's inequality rows must be traded against its equality rows: a QP
             # the KKT conditions hold: the x-space rows of W with a clearly positive multiplier are active
             # at every optimum
-            return x, Gx[W][lam > mult_tol * lam_scale]
+            return self._lift(z), Gx[W][lam > mult_tol * lam_scale]
         return None
 
     def _level_qp(self, level, label, V1, s1, c1, warm_x):

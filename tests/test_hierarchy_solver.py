@@ -23,7 +23,7 @@ def _torque_like_stack(rng, n, *, mixed=False, full_rank_last=True):
 
     Without ``mixed`` every level's least-squares point satisfies every row (closed form throughout);
     ``mixed`` puts equality and inequality rows in one level whose least-squares point violates the
-    inequality, which the compiled levels leave to the QP backend.
+    inequality: the working-set step solves it, or the QP backend when that step is off.
     """
     top = ([], [(rng.normal(size=(6, n)), np.abs(rng.normal(size=6)) + 1.0, 1.0)])
     mid = ([(rng.normal(size=(3, n)), 0.01 * rng.normal(size=3), 2.0),
@@ -50,15 +50,16 @@ def _assert_same_result(a, b):
         np.testing.assert_array_equal(xa, xb)
 
 
-@pytest.mark.parametrize("case", ["closed-form", "qp-level", "freedom-left"])
+@pytest.mark.parametrize("case", ["closed-form", "working-set-level", "qp-level", "freedom-left"])
 @pytest.mark.parametrize("compiled", [True, False], ids=["compiled", "python"])
 def test_hierarchy_solver_gives_the_result_of_solve_hierarchy_and_the_cvxpy_point(case, compiled, monkeypatch):
-    rng = np.random.default_rng({"closed-form": 1, "qp-level": 2, "freedom-left": 3}[case])
+    # the same stack with its mixed level through the working-set step, then through the QP backend
+    rng = np.random.default_rng({"closed-form": 1, "working-set-level": 2, "qp-level": 2, "freedom-left": 3}[case])
     n = 7
-    entries, G, h = _torque_like_stack(rng, n, mixed=case == "qp-level", full_rank_last=case != "freedom-left")
+    entries, G, h = _torque_like_stack(rng, n, mixed=case.endswith("-level"), full_rank_last=case != "freedom-left")
     names = tuple(f"level {k}" for k in range(len(entries)))
     stack = LevelStack.from_entries(entries, n, names)
-    params = HQPParams(compiled=compiled)
+    params = HQPParams(compiled=compiled, working_set_step=case != "qp-level")
     calls = []
 
     def counted(*args, **kw):
@@ -70,8 +71,9 @@ def test_hierarchy_solver_gives_the_result_of_solve_hierarchy_and_the_cvxpy_poin
     ref = solve_hierarchy(stack, n, hard=Level(ineq=[(G, h)], name="limits"), params=params)
     _assert_same_result(ours, ref)
     assert (ours.qp_solves > 0) == (case == "qp-level")
+    assert ("working-set" in ours.level_methods) == (case == "working-set-level")
     # the compiled kernel's result is used as it is only when it solved every level and left no freedom
-    fast = compiled and hqp._kernels.HAVE_CLOCK and case == "closed-form"
+    fast = compiled and hqp._kernels.HAVE_CLOCK and case in ("closed-form", "working-set-level")
     assert len(calls) == (0 if fast else 1)
     if case != "freedom-left":  # with freedom left, the minimum-norm level picks one of the optima
         pytest.importorskip("cvxpy")

@@ -310,31 +310,44 @@ def test_working_set_iterations_reach_the_constrained_optimum(case, compiled):
     assert res.level_methods[0] == "working-set" and res.qp_solves == 0
 
 
+#: One level, min ||x - t||^2 + w max(c x - d, 0)^2, above the hard rows G x <= h (none: G is None). Each case:
+#: (t, G, h, c, d, w, the optimum in closed form), the optimum worked out by hand from the KKT conditions.
+MIXED_LEVELS = {
+    # the projection (1, 1) of t onto x1 + x2 = 2 satisfies x2 <= 5: the inequality's slack is zero there
+    "inequality-inactive": ((2, 2), [[1, 1]], [2], [0, 1], 5, 1, (1, 1)),
+    # x = (1 + s, 1 - s) on the hard row, cost (s - 1)^2 + (1 + s)^2 + (0.5 - s)^2, least at s = 1/6
+    "inequality-binding": ((2, 2), [[1, 1]], [2], [0, 1], 0.5, 1, (7 / 6, 5 / 6)),
+    # the same with weight 4 on the slack: (s - 1)^2 + (1 + s)^2 + 4 (0.5 - s)^2, least at s = 1/3
+    "inequality-binding-weighted": ((2, 2), [[1, 1]], [2], [0, 1], 0.5, 4, (4 / 3, 2 / 3)),
+    # no hard row: x1 = 2, and x2 least of (x2 - 2)^2 + (x2 - 0.5)^2, 1.25
+    "inequality-binding-no-hard-row": ((2, 2), None, None, [0, 1], 0.5, 1, (2, 1.25)),
+    # x1 >= 1.5 holds at t = (2, 0) but not at its projection (1, 0) onto x1 <= 1: it joins the cost there,
+    # and (x1 - 2)^2 + (1.5 - x1)^2 still falls as x1 rises to the hard bound: (1, 0)
+    "inequality-joins": ((2, 0), [[1, 0]], [1], [-1, 0], -1.5, 1, (1, 0)),
+    # x1 <= 1.9 is violated at t = (2, 2); with it in the cost the point on x1 + x2 = 2 is (1.3, 0.7), where it
+    # holds: it leaves the cost, and the optimum is the projection (1, 1)
+    "inequality-leaves": ((2, 2), [[1, 1]], [2], [1, 0], 1.9, 1, (1, 1)),
+}
+
+
 @pytest.mark.parametrize("compiled", [True, False], ids=["compiled", "python"])
-@pytest.mark.parametrize("ceiling", [5.0, 0.5], ids=["inequality-inactive", "inequality-binding"])
-def test_a_level_with_both_kinds_of_rows_takes_the_working_set_step_only_when_its_inequality_holds(ceiling,
-                                                                                                    compiled):
-    """One level: min ||x - t||^2 plus the slack of x2 <= ceiling, above the hard row x1 + x2 <= 2; at t = (2, 2)
-    the hard row is violated. With the ceiling far (5) the level's optimum is the projection (1, 1), where the
-    inequality holds: the working-set step gives it, no QP. With the ceiling at 0.5 the optimum trades the
-    inequality's slack against the distance to t: the backend solves it. Both checked against cvxpy + Clarabel
-    on the level's QP with its slack (the frozen-slack formulation, Kanoun, Lamiraux & Wieber 2011)."""
-    t, G, h = np.array([2.0, 2.0]), np.array([[1.0, 1.0]]), np.array([2.0])
-    C, d = np.array([[0.0, 1.0]]), np.array([ceiling])
-    res = solve_hierarchy([Level(eq=[(np.eye(2), t)], ineq=[(C, d)])], 2, hard=Level(ineq=[(G, h)]),
+@pytest.mark.parametrize("case", sorted(MIXED_LEVELS))
+def test_a_level_with_both_kinds_of_rows_is_solved_by_the_working_set_step(case, compiled):
+    """A level with equality and inequality rows whose least-squares point breaks a row: the working-set step,
+    with the level's violated inequality rows in its cost, reaches the level's optimum with no QP. Checked
+    against the KKT closed form (MIXED_LEVELS) and against cvxpy + Clarabel on the level's QP with its slack
+    (the frozen-slack formulation, Kanoun, Lamiraux & Wieber 2011)."""
+    t, G, h, c, d, w, expected = MIXED_LEVELS[case]
+    t, C, d = np.array(t, dtype=float), np.array([c], dtype=float), np.array([d], dtype=float)
+    hard = None if G is None else Level(ineq=[(np.array(G, dtype=float), np.array(h, dtype=float))])
+    res = solve_hierarchy([Level(eq=[(np.eye(2), t)], ineq=[(C, d, float(w))])], 2, hard=hard,
                           regularization=0.0, params=HQPParams(compiled=compiled))
     x, v = cp.Variable(2), cp.Variable(1, nonneg=True)
-    cp.Problem(cp.Minimize(cp.sum_squares(x - t) + cp.sum_squares(v)), [G @ x <= h, C @ x - v <= d]).solve(
-        solver=cp.CLARABEL)
+    rows = [C @ x - v <= d] + ([] if G is None else [np.array(G, dtype=float) @ x <= np.array(h, dtype=float)])
+    cp.Problem(cp.Minimize(cp.sum_squares(x - t) + w * cp.sum_squares(v)), rows).solve(solver=cp.CLARABEL)
     np.testing.assert_allclose(res.x, x.value, atol=1e-6)
-    if ceiling == 5.0:
-        np.testing.assert_allclose(res.x, [1.0, 1.0], atol=1e-9)  # closed form: projection onto x1 + x2 = 2
-        assert res.level_methods[0] == "working-set" and res.qp_solves == 0
-    else:
-        # closed form of the KKT point: x = (1 + s, 1 - s) on the hard row, cost (1 - s)^2 + (1 + s)^2 + (0.5 - s)^2
-        # ... minimised at s = 1/6: x = (7/6, 5/6)
-        np.testing.assert_allclose(res.x, [7.0 / 6.0, 5.0 / 6.0], atol=1e-6)
-        assert res.level_methods[0] == "qp" and res.qp_solves == 1
+    np.testing.assert_allclose(res.x, expected, atol=1e-9)
+    assert res.level_methods[0] == "working-set" and res.qp_solves == 0
 
 
 # ------------------------------------------------------------------------------------------
