@@ -224,7 +224,8 @@ class HQPController(Controller):
 
     def diagnostic_names(self) -> tuple[str, ...]:
         p = range(len(self.levels))
-        return (("solve_time_s", "rows_time_s", "fallback", "active_rows") + tuple(f"residual_{i}" for i in p)
+        return (("solve_time_s", "rows_time_s", "fallback", "active_rows", "qp_solves")
+                + tuple(f"residual_{i}" for i in p)
                 + tuple(f"level_{i}_time_s" for i in p))
 
     def diagnostics(self):
@@ -471,9 +472,11 @@ class HQPController(Controller):
             fallback = 0.0
             if type(res) is tuple:  # the kernel's output, read in place
                 residuals, level_times = residuals_all[:p].tolist(), times_all[:p].tolist()
+                qp_solves = 0.0
             else:
                 residuals = res.level_residuals[:p].tolist()
                 level_times = res.level_times_s[:p].tolist()
+                qp_solves = float(res.qp_solves)
         except (SandboxError, np.linalg.LinAlgError) as e:  # a singular task matrix is a failed tick too
             t_end = time.perf_counter()
             tau = s.g - self.fallback_damping * s.dq
@@ -482,6 +485,7 @@ class HQPController(Controller):
             _log.warning("controller %s fell back to gravity + damping: %s", self.name, self.last_fallback_reason)
             self._prev = None
             fallback = 1.0
+            qp_solves = math.nan  # the tick has no solve to count
             residuals = [np.nan] * p
             level_times = [np.nan] * p
         d = self._diag
@@ -491,6 +495,7 @@ class HQPController(Controller):
             d["rows_time_s"], d["solve_time_s"] = t_solve - t0, t_end - t_solve
         d["fallback"] = fallback
         d["active_rows"] = float(rows)
+        d["qp_solves"] = qp_solves
         for i, (residual_key, time_key) in enumerate(self._level_keys):
             d[residual_key] = residuals[i]
             d[time_key] = level_times[i]

@@ -514,12 +514,15 @@ def _median_p99_us(x) -> tuple[float | None, float | None]:
     return float(np.median(x) * 1e6), float(np.percentile(x, 99) * 1e6)
 
 
-def solver_metrics(timing: Mapping[str, np.ndarray], fallback: np.ndarray | None) -> dict:
+def solver_metrics(timing: Mapping[str, np.ndarray], fallback: np.ndarray | None,
+                   qp_solves: np.ndarray | None = None) -> dict:
     """Solve-time median and 99th percentile per tick [us] (``diag_solve_time_s`` of ``timing.npz``) and per
-    level (``diag_level_i_time_s``), and the number of fallback ticks; None for a controller without a QP."""
+    level (``diag_level_i_time_s``), the number of fallback ticks, and the number of ticks on which the QP
+    backend solved a level (``qp_solves`` > 0, the controller's ``diag_qp_solves``; None for a run logged
+    without it); None for a controller without a QP."""
     if "diag_solve_time_s" not in timing:
         return {"hqp_solve_median_us": None, "hqp_solve_p99_us": None, "hqp_fallback_count": None,
-                "hqp_levels": []}
+                "hqp_backend_tick_count": None, "hqp_levels": []}
     med, p99 = _median_p99_us(timing["diag_solve_time_s"])
     levels = []
     i = 0
@@ -528,7 +531,9 @@ def solver_metrics(timing: Mapping[str, np.ndarray], fallback: np.ndarray | None
         levels.append({"level": i, "solve_median_us": lm, "solve_p99_us": lp})
         i += 1
     n_fb = int(np.count_nonzero(np.asarray(fallback) > 0.5)) if fallback is not None else 0
-    return {"hqp_solve_median_us": med, "hqp_solve_p99_us": p99, "hqp_fallback_count": n_fb, "hqp_levels": levels}
+    n_qp = int(np.count_nonzero(np.asarray(qp_solves) > 0.5)) if qp_solves is not None else None
+    return {"hqp_solve_median_us": med, "hqp_solve_p99_us": p99, "hqp_fallback_count": n_fb,
+            "hqp_backend_tick_count": n_qp, "hqp_levels": levels}
 
 
 # -- one run ------------------------------------------------------------------------------------
@@ -594,7 +599,7 @@ def run_metrics(
         "tick_time_p99_us": float(np.percentile(tick_times_s, 99) * 1e6) if len(tick_times_s) else 0.0,
         "realtime_factor": (n * dt_s / wall) if wall > 0 else None,
     }
-    out |= solver_metrics(timing or {}, arrays.get("diag_fallback"))
+    out |= solver_metrics(timing or {}, arrays.get("diag_fallback"), arrays.get("diag_qp_solves"))
     if robot_terms is not None:
         P = interaction_power_W(_derived_column(arrays, "cuff_wrench_exo"), robot_terms["cuff_twist"])
         out["interaction_work_J"] = interaction_work_J(P, dt_s)
@@ -662,6 +667,7 @@ METRICS: dict[str, MetricInfo] = {
     "hqp_solve_median_us": MetricInfo("us", "lower", "HQP solve time, median", True),
     "hqp_solve_p99_us": MetricInfo("us", "lower", "HQP solve time, 99th percentile"),
     "hqp_fallback_count": MetricInfo("-", "lower", "fallback ticks", True),
+    "hqp_backend_tick_count": MetricInfo("-", "lower", "ticks needing the QP backend"),
     "tick_time_median_us": MetricInfo("us", "lower", "whole tick, median"),
     "tick_time_p99_us": MetricInfo("us", "lower", "whole tick, 99th percentile"),
     "realtime_factor": MetricInfo("-", "higher", "realtime factor", True),

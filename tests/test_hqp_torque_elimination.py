@@ -107,7 +107,49 @@ def test_working_set_step_gives_the_backends_torques_and_is_used():
         assert np.abs(tau_step - tau_backend).max() < TOL_NM
         used += "working-set" in step.last_result.level_methods
         assert "working-set" not in backend.last_result.level_methods
+        # the logged diagnostic is the tick's count of backend calls (bookkeeping: a check of mechanism)
+        for c in (step, backend):
+            assert c.diagnostics()["qp_solves"] == c.last_result.qp_solves
     assert used >= 1
+    assert backend.last_result.qp_solves >= 0 and step.diagnostics()["qp_solves"] == 0.0
+
+
+def test_a_users_inequality_beside_an_equality_task_gives_the_torques_of_cvxpy_without_the_backend():
+    # A joint-speed cap written as a user's task in the transparency level: a level with both kinds of rows, whose
+    # inequality binds on the random states' fast joints. Every tick against cvxpy (level by level, Kanoun et al.
+    # 2011); the ticks whose level the working-set step solves make no call of the QP backend.
+    from controllers.hqp_controller import HQPController
+    from controllers.tasks import JointDamping, JointPositionLimits, Task, Transparency
+
+    class SpeedCap(Task):
+        """|q'| <= 1.5 rad/s one tick ahead: ±q̈ <= (1.5 ∓ q') / dt."""
+
+        name, kind = "speed_cap", "ineq"
+
+        def rows(self, state):
+            n, dt = state.nv, state.dt_s
+            C = np.zeros((2 * n, 2 * n))
+            C[:n, :n], C[n:, :n] = np.eye(n), -np.eye(n)
+            return C, np.concatenate([(1.5 - state.dq) / dt, (1.5 + state.dq) / dt])
+
+    def levels():
+        return [[JointPositionLimits()], [Transparency(), SpeedCap()], [JointDamping()]]
+
+    arm, ctx = _context()
+    ctrl, ref = HQPController(levels()), HQPController(levels())
+    ctrl.reset(ctx)
+    ref.reset(ctx)
+    by_step = 0
+    for m in _states(arm, 8, seed=23):
+        tau = ctrl.step(m)
+        rows = stack_rows(ref, m)
+        assert np.abs(tau - solve_levels_cvxpy(rows)[7:]).max() < TOL_NM
+        if ctrl.last_result.level_methods[1] == "working-set":
+            by_step += 1
+            C, d, _ = rows.levels[1][1][0]  # the cap's rows on [q̈; τ]; the solver's x is q̈
+            assert np.any(C[:, :7] @ ctrl.last_result.x > d + 1e-9)  # the cap binds: some speed stays above it
+            assert ctrl.diagnostics()["qp_solves"] == 0.0
+    assert by_step >= 3
 
 
 def _follows_cvxpy(make_levels, seed, ticks=6):

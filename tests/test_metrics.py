@@ -242,10 +242,14 @@ def test_joint_limit_excursion():
 
 def test_solver_metrics_median_p99_and_fallbacks():
     t = np.linspace(1e-5, 1e-4, 101)
-    m = solver_metrics({"diag_solve_time_s": t, "diag_level_0_time_s": t / 2}, np.array([0, 1, 0, 1.0]))
+    # per tick: backend calls 0, 2, none (a fallback tick), 1, 0
+    m = solver_metrics({"diag_solve_time_s": t, "diag_level_0_time_s": t / 2}, np.array([0, 1, 0, 1.0]),
+                       np.array([0.0, 2.0, np.nan, 1.0, 0.0]))
     assert m["hqp_solve_median_us"] == pytest.approx(55.0)
     assert m["hqp_solve_p99_us"] == pytest.approx(np.percentile(t, 99) * 1e6)
     assert m["hqp_fallback_count"] == 2
+    assert m["hqp_backend_tick_count"] == 2  # the ticks with a backend call
+    assert solver_metrics({"diag_solve_time_s": t}, None)["hqp_backend_tick_count"] is None  # logged without it
     assert m["hqp_levels"][0]["solve_median_us"] == pytest.approx(27.5)
     assert solver_metrics({}, None)["hqp_solve_median_us"] is None
 
