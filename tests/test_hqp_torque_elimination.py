@@ -101,7 +101,7 @@ def test_working_set_step_gives_the_backends_torques_and_is_used():
     backend.params = HQPParams(working_set_step=False)
     for c in (step, backend):
         c.reset(ctx)
-    used = 0
+    used = fewer_calls = 0
     for m in _states(arm, 12, seed=21):
         tau_step, tau_backend = step.step(m), backend.step(m)
         assert np.abs(tau_step - tau_backend).max() < TOL_NM
@@ -110,8 +110,8 @@ def test_working_set_step_gives_the_backends_torques_and_is_used():
         # the logged diagnostic is the tick's count of backend calls (bookkeeping: a check of mechanism)
         for c in (step, backend):
             assert c.diagnostics()["qp_solves"] == c.last_result.qp_solves
-    assert used >= 1
-    assert backend.last_result.qp_solves >= 0 and step.diagnostics()["qp_solves"] == 0.0
+        fewer_calls += step.diagnostics()["qp_solves"] < backend.diagnostics()["qp_solves"]
+    assert used >= 1 and fewer_calls >= 1
 
 
 def test_a_users_inequality_beside_an_equality_task_gives_the_torques_of_cvxpy_without_the_backend():
