@@ -400,8 +400,8 @@ def _working_set(x, N, has_N, G, h, C, d, wi, n_eq, V1, s1, c1, z_ls, tol, rank_
         res = hW - _mv(GW, z_ls)
         GWT = np.ascontiguousarray(GW.T)
         ok, y = _spd_solve(_mm(GW, GWT), res)
-        dz = _mv(GWT, y) if ok else _lstsq(GW, res)
-        z = z_ls + dz
+        step = _mv(GWT, y) if ok else _lstsq(GW, res)
+        z = z_ls + step
         if _max_violation(Gz, z, hz, -np.inf) > tol:
             return False, x, none
         return True, _lift(x, z, N, has_N), none
