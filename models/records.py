@@ -80,12 +80,12 @@ class Measurement:
                      cuff_wrench: dict[str, np.ndarray]) -> Measurement:
         """The Measurement of these fields, kept as they are: no check, no conversion, no copy.
 
-        For the simulation loop only (:func:`sim.simulate.simulate`), whose
+        For the simulation loop only (:func:`sim.loop.simulate.simulate`), whose
         sensors return exactly what the constructor would keep as it is: a
         float ``t_s``, and float64 arrays that nothing can write to (read-only
         arrays owning their data, or read-only views of one, as
-        :class:`sim.sensors.JointSensing` and
-        :class:`sim.sensors.ForceSensorBank` return).  ``cuff_wrench`` must be
+        :class:`sim.physics.sensors.JointSensing` and
+        :class:`sim.physics.sensors.ForceSensorBank` return).  ``cuff_wrench`` must be
         a new dict that the caller does not keep: it is wrapped, not copied.
         The result then equals the constructor's, field by field, without its
         checks (which cost about as much as a sensor reading each tick).

@@ -10,8 +10,7 @@ library: the robot's first shoulder joint travels 137 deg, at up to 2.7 rad/s
 
 import math
 
-from sim.intent import JointIntent, Via
-from sim.scenario import Scenario
+from sim import JointIntent, Scenario, Via
 
 
 def deg(*angles):

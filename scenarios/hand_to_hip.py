@@ -9,8 +9,7 @@ robot's humeral-rotation joint comes within about 8 deg of its stop.
 
 import math
 
-from sim.intent import JointIntent, Via
-from sim.scenario import Scenario
+from sim import JointIntent, Scenario, Via
 
 
 def deg(*angles):

@@ -10,8 +10,7 @@ of its range while the hand stays close to the face.
 
 import math
 
-from sim.intent import JointIntent, Via
-from sim.scenario import Scenario
+from sim import JointIntent, Scenario, Via
 
 
 def deg(*angles):

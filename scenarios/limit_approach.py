@@ -12,8 +12,7 @@ robot to follow the wearer all the way.
 import math
 
 from models.exo import EXO_JOINTS, ExoParams
-from sim.intent import JointIntent, Via
-from sim.scenario import Scenario
+from sim import JointIntent, Scenario, Via
 
 
 def deg(*angles):

@@ -8,8 +8,7 @@ bring the hand back, about one second each way.  Copy this file and edit it.
 
 import math
 
-from sim.intent import JointIntent, Via
-from sim.scenario import Scenario
+from sim import JointIntent, Scenario, Via
 
 
 def deg(*angles):

@@ -9,8 +9,7 @@ would feel (the sensors have 0.3 N and 0.01 N m of noise by default).
 
 import math
 
-from sim.intent import JointIntent
-from sim.scenario import Scenario
+from sim import JointIntent, Scenario
 
 
 def deg(*angles):

@@ -12,8 +12,7 @@ limits (3 and 4 rad/s): a stress test of transparency at speed, and of what the
 
 import math
 
-from sim.intent import JointIntent, Via
-from sim.scenario import Scenario
+from sim import JointIntent, Scenario, Via
 
 
 def deg(*angles):

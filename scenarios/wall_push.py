@@ -17,8 +17,7 @@ import math
 
 from models.cuffs import CuffParams
 from models.human import hand_position_m
-from sim.intent import JointIntent, Via
-from sim.scenario import Scenario
+from sim import JointIntent, Scenario, Via
 
 
 def deg(*angles):

@@ -18,8 +18,7 @@ import numpy as np
 
 from models.cuffs import CuffParams
 from models.human import hand_position_m
-from sim.intent import JointIntent, Via
-from sim.scenario import Scenario
+from sim import JointIntent, Scenario, Via
 
 
 def deg(*angles):

@@ -194,8 +194,8 @@ def _cmd_check(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
 
 
 def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
-    from .scenario import load_scenario
-    from .simulate import SimulationError, run_scenario
+    from sim.loop.scenario import load_scenario
+    from sim.loop.simulate import SimulationError, run_scenario
 
     scenario = load_scenario(args.scenario)
     controller = args.controller or scenario.controllers[0]
@@ -243,7 +243,7 @@ class _LazyViewer:
 
     def __call__(self, t_s, q_exo, q_human, forces_world) -> None:
         if self.viewer is None:
-            from .viz import LiveViewer
+            from sim.output.viz import LiveViewer
 
             self.viewer = LiveViewer(self.folder, max_fps=30, background=True)
             print(f"live view at {self.viewer.url}", file=sys.stderr, flush=True)
@@ -255,8 +255,8 @@ class _LazyViewer:
 
 
 def _cmd_replay(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
-    from . import viz
-    from .runlog import load_run
+    from sim.loop.runlog import load_run
+    from sim.output import viz
 
     run_dir = Path(args.run_dir)
     load_run(run_dir)  # a clear error for a missing or broken run folder
@@ -277,7 +277,7 @@ def _cmd_replay(args: argparse.Namespace, parser: argparse.ArgumentParser) -> st
 def _cmd_bench(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     import json
 
-    from .bench import BenchParams, format_report, profile_reference, run_bench
+    from sim.experiments.bench import BenchParams, format_report, profile_reference, run_bench
 
     if args.scenario is None:  # the shipped file, installed beside this package (not imported: sim never imports it)
         args.scenario = str(Path(__file__).resolve().parents[1] / "scenarios" / "wall_push.py")
@@ -307,8 +307,8 @@ def _fresh_folder(base: Path) -> Path:
 
 
 def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
-    from .report import compare_runs, fmt, text_table
-    from .runlog import load_run
+    from sim.loop.runlog import load_run
+    from sim.output.report import compare_runs, fmt, text_table
 
     first = Path(args.inputs[0])
     scenario_mode = first.suffix == ".py"
@@ -319,8 +319,8 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     else:
         out = _fresh_folder(Path("runs") / "compare")
     if scenario_mode:
-        from .scenario import load_scenario
-        from .simulate import SimulationError, run_scenario
+        from sim.loop.scenario import load_scenario
+        from sim.loop.simulate import SimulationError, run_scenario
 
         if len(args.inputs) > 1:
             parser.error("give one scenario file, or run folders only")
@@ -366,9 +366,9 @@ _SWEEP_COLUMNS = ("interaction_force_rms_N", "interaction_force_free_rms_N", "ap
 
 
 def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
-    from .report import fmt, has_wall, sweep_verdicts, text_table
-    from .scenario import load_scenario
-    from .sweep import run_sweep, scenario_files, scenario_folders
+    from sim.experiments.sweep import run_sweep, scenario_files, scenario_folders
+    from sim.loop.scenario import load_scenario
+    from sim.output.report import fmt, has_wall, sweep_verdicts, text_table
 
     controllers = [c.strip() for c in (args.controllers or "").split(",") + args.controller if c.strip()] or None
     subjects = [s.strip() for s in (args.subjects or "").split(",") + args.subject if s.strip()] or ["m50"]
@@ -468,7 +468,7 @@ def _kernels_cached() -> bool:
     import os
 
     from controllers import _hqp_kernels
-    from sim import plant
+    from sim.physics import plant
 
     try:
         paths = [k._cache._cache_file._index_path for k in (_hqp_kernels.solve_levels_fast, plant._cuff_kernel)]

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 import models
-from sim.plant import CoupledPlant, PlantParams
+from sim.physics.plant import CoupledPlant, PlantParams
 
 
 def random_plant(seed: int, mode: str = "coupled", params: PlantParams | None = None) -> CoupledPlant:

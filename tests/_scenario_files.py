@@ -19,7 +19,7 @@ def write_scenario(path: Path, **fields: str | None) -> Path:
     items = {**_FIELDS, **fields}
     body = "".join(f"    {k}={v},\n" for k, v in items.items() if v is not None)
     path.write_text(
-        "import math\n\nfrom sim.intent import JointIntent, Via\nfrom sim.scenario import Scenario\n\n\n"
+        "import math\n\nfrom sim.physics.intent import JointIntent, Via\nfrom sim.loop.scenario import Scenario\n\n\n"
         "def deg(*a):\n    return tuple(math.radians(x) for x in a)\n\n\n"
         f"SCENARIO = Scenario(\n{body})\n",
         encoding="utf-8",

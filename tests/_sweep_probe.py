@@ -5,7 +5,7 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-from sim import sweep
+from sim.experiments import sweep
 
 _run_case = sweep.run_case  # the library's, kept before a test puts this module's in its place
 
@@ -38,7 +38,7 @@ def run_case_noting_registries(case):
     """Note, beside the case's folder, the pid and whether the process knows the marker baseline (``MARKER``)."""
     import json
 
-    from sim.simulate import _BASELINES_MADE
+    from sim.loop.simulate import _BASELINES_MADE
 
     folder = Path(case.folder)
     folder.parent.mkdir(parents=True, exist_ok=True)

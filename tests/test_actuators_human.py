@@ -17,9 +17,9 @@ import numpy as np
 import pinocchio as pin
 
 import models
-from sim.actuators import ActuatorParams, TorqueSourceActuators
-from sim.human import HumanMotor, HumanMotorParams
-from sim.intent import JointIntent, Via
+from sim.physics.actuators import ActuatorParams, TorqueSourceActuators
+from sim.physics.intent import JointIntent, Via
+from sim.physics.wearer import HumanMotor, HumanMotorParams
 
 
 def test_saturation_clips_at_the_limits_and_flags_exactly_the_clipped_joints():

@@ -14,7 +14,7 @@
   out of reach) never binds, so every run commands the same torques (to
   1e-9 N m, rounding of the extra row's solve; common practice), and the
   task's rows were asked for on every tick of its runs.
-* The machine's two-process speedup (:class:`sim.bench.TwoWarmProcesses`)
+* The machine's two-process speedup (:class:`sim.experiments.bench.TwoWarmProcesses`)
   times runs of its own: mechanism checks (each timed run is a complete sweep
   case on a seed of its own; the speedup is the ratio of the times it
   reports).
@@ -30,7 +30,8 @@ import pytest
 
 from controllers.registry import make_controller
 from models.errors import ParameterError
-from sim.bench import (
+from sim.cli import main
+from sim.experiments.bench import (
     BenchParams,
     TwoWarmProcesses,
     chain_tick_times,
@@ -43,10 +44,9 @@ from sim.bench import (
     tick_statistics,
     user_task_cost,
 )
-from sim.cli import main
-from sim.runlog import load_run
-from sim.scenario import load_scenario
-from sim.simulate import build_assembly, controller_context, simulate
+from sim.loop.runlog import load_run
+from sim.loop.scenario import load_scenario
+from sim.loop.simulate import build_assembly, controller_context, simulate
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 
@@ -150,7 +150,7 @@ def test_bench_command_names_a_missing_scenario_file(tmp_path, capsys):
 
 
 def test_pinocchio_time_counts_every_algorithm_call_and_changes_no_number(short_wall_run, tmp_path):
-    # references: the plant's substep (one forward kinematics, one aba, one integrate each; sim.plant docstring)
+    # references: the plant's substep (one forward kinematics, one aba, one integrate each; sim.physics.plant docstring)
     # and TickState.update (forward kinematics, joint Jacobians, frame placements, crba, Cholesky, M^-1, h, g and
     # one Jacobian per cuff): at least 4 * 3 + 8 + 3 calls per tick
     import pinocchio as pin
@@ -169,12 +169,12 @@ def test_pinocchio_time_counts_every_algorithm_call_and_changes_no_number(short_
 
 
 def test_tick_breakdown_stages_add_up_to_the_mean_tick_and_change_no_number(short_wall_run, tmp_path):
-    import sim.plant
+    import sim.physics.plant
 
     sc, folder = short_wall_run
-    advance = sim.plant.CoupledPlant.__dict__["advance"]
+    advance = sim.physics.plant.CoupledPlant.__dict__["advance"]
     out = tick_breakdown(sc, tmp_path / "instrumented")
-    assert sim.plant.CoupledPlant.__dict__["advance"] is advance  # the timers are removed afterwards
+    assert sim.physics.plant.CoupledPlant.__dict__["advance"] is advance  # the timers are removed afterwards
     stages = [k for k in out if k not in ("rest of the loop", "tick (mean, instrumented)")]
     assert len(stages) == 7 and all(out[k] > 0 for k in stages)
     with np.load(tmp_path / "instrumented" / "timing.npz") as f:
@@ -209,7 +209,7 @@ def test_two_warm_processes_refuse_a_controller_the_scenario_does_not_list(tmp_p
 
 def test_two_warm_processes_report_a_worker_that_died(tmp_path):
     # mechanism check: a killed worker is a BenchError naming it, not a hang or a bare EOFError
-    from sim.bench import BenchError
+    from sim.experiments.bench import BenchError
 
     with TwoWarmProcesses(SCENARIOS / "wall_push.py", "m50", "walls", 0.05, tmp_path) as warm:
         proc, _conn = warm._workers[1]
@@ -220,7 +220,7 @@ def test_two_warm_processes_report_a_worker_that_died(tmp_path):
 
 
 def test_user_task_case_runs_the_same_motion_with_and_without_the_python_task(tmp_path, monkeypatch):
-    from sim import bench
+    from sim.experiments import bench
 
     sc = dataclasses.replace(load_scenario(SCENARIOS / "wall_push.py"), duration_s=0.05)
     calls, real = [], bench.PythonHandCeiling.rows

@@ -1,6 +1,6 @@
 """The offline HTML replay renders and plays in a real (headless) Chromium.
 
-The replay is written by :func:`sim.viz.write_replay_html`, whose animation is
+The replay is written by :func:`sim.output.viz.write_replay_html`, whose animation is
 stored with meshcat's ``play`` option, so the page starts playing on load.  Two
 screenshots are taken at different virtual times; each must show the robot's
 steel blue and the arm's skin tone, and they must differ where the arm moves.
@@ -23,9 +23,9 @@ import pytest
 
 pytest.importorskip("meshcat")
 
-import sim.viz as viz  # noqa: E402
-from sim.scenario import load_scenario  # noqa: E402
-from sim.simulate import run_scenario  # noqa: E402
+import sim.output.viz as viz  # noqa: E402
+from sim.loop.scenario import load_scenario  # noqa: E402
+from sim.loop.simulate import run_scenario  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
 STEEL_BLUE = np.array([0.22, 0.40, 0.64]) * 255  # exo frame colour in the URDF

@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from _scenario_files import write_scenario
 
+from sim.analysis.metrics import flat_metrics, is_timing_key
 from sim.cli import main
-from sim.metrics import flat_metrics, is_timing_key
-from sim.sweep import SweepError, run_sweep
+from sim.experiments.sweep import SweepError, run_sweep
 
 
 @pytest.fixture(scope="module")
@@ -137,7 +137,7 @@ def test_sweep_cli_takes_repeated_controller_and_subject_options_and_no_abbrevia
         seen.update(controllers=controllers, subjects=subjects, seeds=seeds)
         raise KeyboardInterrupt  # stop here: the command reports where the finished runs are
 
-    monkeypatch.setattr("sim.sweep.run_sweep", fake_run_sweep)
+    monkeypatch.setattr("sim.experiments.sweep.run_sweep", fake_run_sweep)
     args = ["sweep", str(tiny), "--out", str(tmp_path / "s")]
     assert main(args + ["--controller", "gravity", "--controller", "transparent", "--subject", "f5",
                         "--subjects", "m50,m95", "--seeds", "2"]) == 1
@@ -158,7 +158,7 @@ def test_two_jobs_run_cases_in_a_worker_and_in_this_process(tiny, tmp_path, monk
 
     import _sweep_probe
 
-    monkeypatch.setattr("sim.sweep.run_case", _sweep_probe.run_case_noting_pid)
+    monkeypatch.setattr("sim.experiments.sweep.run_case", _sweep_probe.run_case_noting_pid)
     result = run_sweep(tiny, ["gravity"], ["f5"], 3, out_dir=tmp_path / "out", jobs=2)
     assert not result.failed and len(result.results) == 3
     pids = [_sweep_probe.pid_of(r.case) for r in result.results]
@@ -170,7 +170,7 @@ def test_a_worker_that_dies_fails_its_case_and_the_others_complete(tiny, tmp_pat
     # named in the table; this process runs the cases left, and the sweep writes its tables and report
     import _sweep_probe
 
-    monkeypatch.setattr("sim.sweep.run_case", _sweep_probe.run_case_exiting_in_a_worker)
+    monkeypatch.setattr("sim.experiments.sweep.run_case", _sweep_probe.run_case_exiting_in_a_worker)
     result = run_sweep(tiny, ["gravity"], ["f5"], 3, out_dir=tmp_path / "out", jobs=2)
     failed = [r for r in result.results if not r.ok]
     assert len(failed) == 1 and len(result.results) == 3
@@ -188,9 +188,9 @@ def test_a_worker_reuses_only_the_baselines_it_made(tiny, tmp_path, monkeypatch)
 
     import _sweep_probe
 
-    monkeypatch.setattr("sim.sweep._BASELINES", {_sweep_probe.MARKER_KEY: "/nowhere"})
-    monkeypatch.setattr(importlib.import_module("sim.simulate"), "_BASELINES_MADE", {_sweep_probe.MARKER_PATH})
-    monkeypatch.setattr("sim.sweep.run_case", _sweep_probe.run_case_noting_registries)
+    monkeypatch.setattr("sim.experiments.sweep._BASELINES", {_sweep_probe.MARKER_KEY: "/nowhere"})
+    monkeypatch.setattr(importlib.import_module("sim.loop.simulate"), "_BASELINES_MADE", {_sweep_probe.MARKER_PATH})
+    monkeypatch.setattr("sim.experiments.sweep.run_case", _sweep_probe.run_case_noting_registries)
     result = run_sweep(tiny, ["gravity"], ["f5"], 3, out_dir=tmp_path / "out", jobs=2)
     assert not result.failed
     seen = [_sweep_probe.registries_of(r.case) for r in result.results]
@@ -202,7 +202,7 @@ def test_a_worker_reuses_only_the_baselines_it_made(tiny, tmp_path, monkeypatch)
 
 
 def test_a_free_process_takes_a_case_whose_baseline_it_has_then_an_untouched_wearer_and_seed():
-    from sim.sweep import SweepCase, _CaseQueue
+    from sim.experiments.sweep import SweepCase, _CaseQueue
 
     cases = [SweepCase("s.py", c, "m50", seed, f"{c}/{seed}", 1.0) for c in ("a", "b") for seed in (0, 1, 2)]
     q, p1, p2 = _CaseQueue(cases), set(), set()
@@ -227,7 +227,7 @@ def _simulated_baselines(monkeypatch):
     """A list that grows by one folder per human-alone run simulated from now on."""
     import importlib
 
-    module = importlib.import_module("sim.simulate")  # the package's name "simulate" is the function
+    module = importlib.import_module("sim.loop.simulate")  # the package's name "simulate" is the function
     made, simulate = [], module.simulate
 
     def counting(scenario, controller, folder, **kw):
@@ -242,8 +242,8 @@ def _simulated_baselines(monkeypatch):
 def test_a_copied_baseline_is_the_one_the_run_would_simulate(tiny, tmp_path, monkeypatch):
     # reference: the baseline simulated for the same controller, scenario and seed without reuse; a
     # baseline made for another seed, or not by this process, is simulated again
-    from sim.scenario import load_scenario
-    from sim.simulate import reusable_baseline, run_scenario
+    from sim.loop.scenario import load_scenario
+    from sim.loop.simulate import reusable_baseline, run_scenario
 
     sc = load_scenario(tiny)
     made = _simulated_baselines(monkeypatch)
@@ -274,9 +274,9 @@ def test_a_task_object_in_a_variant_is_recorded_by_class_and_attributes_and_leav
     # differ (here: one more) still shares it
     import dataclasses
 
-    from sim.bench import PythonHandCeiling
-    from sim.scenario import load_scenario
-    from sim.simulate import run_scenario
+    from sim.experiments.bench import PythonHandCeiling
+    from sim.loop.scenario import load_scenario
+    from sim.loop.simulate import run_scenario
 
     sc = load_scenario(tiny)
     sc = dataclasses.replace(sc, variants={"ceiling": [[PythonHandCeiling(10.0)], ["transparency"]]},
@@ -290,13 +290,13 @@ def test_a_task_object_in_a_variant_is_recorded_by_class_and_attributes_and_leav
     assert len(made) == 1
     recorded = json.loads((tmp_path / "ceiling" / "meta.json").read_text(encoding="utf-8"))["parameters"]
     task = recorded["variants"]["ceiling"][0][0]
-    assert task["class"] == "sim.bench.PythonHandCeiling" and task["kind"] == "ineq"
+    assert task["class"] == "sim.experiments.bench.PythonHandCeiling" and task["kind"] == "ineq"
     assert task["attributes"]["z_max"] == 10.0 and task["attributes"]["frame"] == "exo_hand_point"
     assert " at 0x" not in json.dumps(recorded)
 
 
 def test_compare_and_a_one_job_sweep_simulate_one_baseline_per_wearer_and_seed(tiny, tmp_path, monkeypatch):
-    import sim.sweep
+    import sim.experiments.sweep
 
     made = _simulated_baselines(monkeypatch)
     out = tmp_path / "cmp"
@@ -305,7 +305,7 @@ def test_compare_and_a_one_job_sweep_simulate_one_baseline_per_wearer_and_seed(t
     assert len(made) == 1
     for c in ("zero", "transparent"):
         assert _baseline_files(out / c) == _baseline_files(out / "gravity")
-    monkeypatch.setattr(sim.sweep, "_BASELINES", {})
+    monkeypatch.setattr(sim.experiments.sweep, "_BASELINES", {})
     made.clear()
     result = run_sweep(tiny, ["gravity", "transparent"], ["f5", "m95"], 2, out_dir=tmp_path / "sw", jobs=1)
     assert not result.failed and len(result.results) == 8
@@ -315,7 +315,7 @@ def test_compare_and_a_one_job_sweep_simulate_one_baseline_per_wearer_and_seed(t
 def test_the_summary_of_runs_that_agree_to_the_bit_has_their_value_and_no_spread():
     # 7.827 three times: numpy's rounded sum gives a mean off by one unit in the last place and a standard deviation
     # of 1.1e-15; the summary sums exactly (Python's statistics module), so the spread is 0 and the mean the value
-    from sim.sweep import CaseResult, SweepCase, summarize
+    from sim.experiments.sweep import CaseResult, SweepCase, summarize
 
     def result(seed, value):
         return CaseResult(SweepCase("s.py", "gravity", "m50", seed, f"r{seed}", None),

@@ -1,7 +1,7 @@
-"""Cuff columns derived from the log (sim.derived): against the plant's own values and against pinocchio.
+"""Cuff columns derived from the log (sim.analysis.derived): against the plant's own values and against pinocchio.
 
 References: the plant's wrench on the robot and world force on the human
-(sim.plant.CoupledPlant, recorded while the run goes); world placements from
+(sim.physics.plant.CoupledPlant, recorded while the run goes); world placements from
 ``pinocchio.forwardKinematics`` (general-purpose rigid-body library); the
 metrics of a run folder that stores the plant's columns, as runs before log
 format 2 did.
@@ -19,11 +19,11 @@ import numpy as np
 import pinocchio as pin
 import pytest
 
-from sim.derived import DERIVED_CUFF_COLUMNS, _joint_placements_loop, cuff_columns, joint_placements
-from sim.plant import CoupledPlant
-from sim.runlog import Run, RunLogError, load_run
-from sim.scenario import load_scenario
-from sim.simulate import evaluate_run, run_scenario
+from sim.analysis.derived import DERIVED_CUFF_COLUMNS, _joint_placements_loop, cuff_columns, joint_placements
+from sim.loop.runlog import Run, RunLogError, load_run
+from sim.loop.scenario import load_scenario
+from sim.loop.simulate import evaluate_run, run_scenario
+from sim.physics.plant import CoupledPlant
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 
@@ -56,7 +56,7 @@ def wall_run(tmp_path_factory):
     sc = dataclasses.replace(load_scenario(SCENARIOS / "wall_push.py"), duration_s=1.5)
     _RecordingPlant.records = {}
     mp = pytest.MonkeyPatch()
-    mp.setattr(importlib.import_module("sim.simulate"), "CoupledPlant", _RecordingPlant)
+    mp.setattr(importlib.import_module("sim.loop.simulate"), "CoupledPlant", _RecordingPlant)
     try:
         run_scenario(sc, "walls", root / "run", report=False)
     finally:
@@ -78,7 +78,7 @@ def test_log_stores_neither_derived_column_but_the_strap_offsets(wall_run):
 @pytest.mark.parametrize("block_ticks", [4096, 97], ids=["one-block", "many-blocks"])
 def test_recomputed_columns_equal_the_plants_values(wall_run, monkeypatch, block_ticks):
     _, _, run, plant = wall_run
-    monkeypatch.setattr(importlib.import_module("sim.derived"), "_BLOCK_TICKS", block_ticks)
+    monkeypatch.setattr(importlib.import_module("sim.analysis.derived"), "_BLOCK_TICKS", block_ticks)
     derived = cuff_columns(dataclasses.replace(run))  # a Run of its own: computed here, not kept from another test
     for name in DERIVED_CUFF_COLUMNS:
         expected = plant[name]
@@ -188,8 +188,8 @@ def test_missing_strap_offsets_or_folder_are_reported(wall_run, tmp_path):
 
 
 def test_metrics_name_where_to_get_a_missing_derived_column(wall_run):
-    from sim.metrics import wall_normal_series
+    from sim.analysis.metrics import wall_normal_series
 
     _, _, run, _ = wall_run
-    with pytest.raises(KeyError, match="cuff_force_human_world.*sim.derived.cuff_columns"):
+    with pytest.raises(KeyError, match="cuff_force_human_world.*sim.analysis.derived.cuff_columns"):
         wall_normal_series(run.arrays, (0.5, 0.0, 0.0), (1.0, 0.0, 0.0), 2)

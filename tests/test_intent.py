@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from models.errors import ParameterError
-from sim.intent import JointIntent, Via, minimum_jerk
+from sim.physics.intent import JointIntent, Via, minimum_jerk
 
 D = 0.3  # amplitude [rad]; REFERENCES.md section 5 example
 T = 0.6  # duration [s]

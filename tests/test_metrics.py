@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from _scenario_files import write_scenario
 
-from sim.metrics import (
+from sim.analysis.metrics import (
     METRICS,
     apparent_mass_kg,
     compensation_shares,
@@ -30,10 +30,10 @@ from sim.metrics import (
     wall_contacts,
     wall_cycle_energy_returned_J,
 )
-from sim.plant import PlantParams
-from sim.report import best_index, best_indices, comparison_rows, headline, sweep_verdicts
-from sim.scenario import load_scenario
-from sim.simulate import evaluate_run, simulate
+from sim.loop.scenario import load_scenario
+from sim.loop.simulate import evaluate_run, simulate
+from sim.output.report import best_index, best_indices, comparison_rows, headline, sweep_verdicts
+from sim.physics.plant import PlantParams
 
 DT = 1e-3
 
@@ -206,13 +206,13 @@ def test_work_of_the_cuffs_equals_the_robots_energy_change(tmp_path):
     sc = dataclasses.replace(load_scenario(path), plant=PlantParams(exo_friction=False))
     simulate(sc, "zero", tmp_path / "run")
     from models.arm import load_arm
-    from sim.metrics import robot_interaction_terms
-    from sim.runlog import load_run
+    from sim.analysis.metrics import robot_interaction_terms
+    from sim.loop.runlog import load_run
 
     run = load_run(tmp_path / "run")
     meta = run.meta
     arm = load_arm((tmp_path / "run" / "exo.urdf").read_text(), armature_kg_m2=meta["exo_params"]["armature_kg_m2"])
-    from sim.derived import cuff_columns
+    from sim.analysis.derived import cuff_columns
 
     arrays = run.arrays | cuff_columns(run)
     terms = robot_interaction_terms(arm, arrays, [meta["models"]["cuff_frames"][c][0] for c in meta["cuffs"]], DT)
@@ -333,7 +333,7 @@ def test_every_metric_key_documented_in_the_readme():
 
 
 def test_run_folder_metrics_hold_every_issue_key(tmp_path):
-    from sim.simulate import run_scenario
+    from sim.loop.simulate import run_scenario
 
     path = write_scenario(tmp_path / "s.py", duration_s="0.3", controllers='("transparent",)')
     r = run_scenario(load_scenario(path), "transparent", tmp_path / "run")
@@ -354,8 +354,8 @@ def test_robot_interaction_terms_match_pinocchios_separate_algorithms(monkeypatc
     import pinocchio as pin
 
     import models
-    import sim.metrics
-    from sim.metrics import robot_interaction_terms
+    import sim.analysis.metrics
+    from sim.analysis.metrics import robot_interaction_terms
 
     arm = models.build_exo()
     model, data = arm.model, arm.model.createData()
@@ -365,7 +365,7 @@ def test_robot_interaction_terms_match_pinocchios_separate_algorithms(monkeypatc
     n = 40
     arrays = {"q_exo": rng.uniform(lo, hi, size=(n, 7)), "dq_exo": rng.normal(size=(n, 7)),
               "cuff_wrench_exo": rng.normal(scale=10.0, size=(n, 3, 6))}
-    monkeypatch.setattr(sim.metrics, "_TERMS_BLOCK", 16)  # three blocks, the last one partial
+    monkeypatch.setattr(sim.analysis.metrics, "_TERMS_BLOCK", 16)  # three blocks, the last one partial
     terms = robot_interaction_terms(arm, arrays, frames, DT)
     ddq = np.gradient(arrays["dq_exo"], DT, axis=0)
     for k in range(n):

@@ -24,9 +24,9 @@ from _random_plant import random_plant
 
 from models.cuffs import cuff_wrench
 from models.errors import SandboxError
-from sim import plant as plant_module
-from sim.actuators import ActuatorParams, TorqueSourceActuators
-from sim.plant import CoupledPlant, PlantParams
+from sim.physics import plant as plant_module
+from sim.physics.actuators import ActuatorParams, TorqueSourceActuators
+from sim.physics.plant import CoupledPlant, PlantParams
 
 H = 0.25e-3  # [s]: 1 ms control period / 4 substeps
 REL = 1e-12  # common practice, see the module docstring

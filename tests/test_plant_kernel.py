@@ -23,7 +23,7 @@ from _random_plant import random_plant
 from models import CuffParams
 from models.cuffs import cuff_wrench, cuff_wrenches
 from models.errors import SandboxError
-from sim import plant as plant_module
+from sim.physics import plant as plant_module
 
 REL = 1e-12  # relative agreement to rounding (common practice)
 

@@ -62,7 +62,7 @@ def test_loop_constructor_keeps_what_the_checked_one_keeps_for_sensor_readings()
     # models/records.py Measurement._from_frozen: on what the sensors return (new read-only arrays, read-only rows
     # of one, NumPy setflags semantics) the checked constructor keeps every array as it is, so skipping the checks
     # gives the same fields.
-    from sim.sensors import EncoderParams, ForceSensorBank, ForceSensorParams, ForceTorqueSensor, JointSensing
+    from sim.physics.sensors import EncoderParams, ForceSensorBank, ForceSensorParams, ForceTorqueSensor, JointSensing
 
     rng = np.random.default_rng(7)
     joints = JointSensing(EncoderParams(torque_noise_std_Nm=0.1), 3, 1e-3, rng)

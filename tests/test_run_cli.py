@@ -1,8 +1,8 @@
 """The ``exosandbox run`` command and the run folder it writes: log, meta.json, metrics.json.
 
 Known answers come from the issue's contract for ``run`` (metric names, units
-and definitions, also written in the docstrings of ``sim/metrics.py``) and
-from the 1 ms default control period of ``sim.scenario.Scenario``.
+and definitions, also written in the docstrings of ``sim/analysis/metrics.py``) and
+from the 1 ms default control period of ``sim.loop.scenario.Scenario``.
 """
 
 from __future__ import annotations
@@ -24,13 +24,13 @@ from controllers.base import Controller
 from controllers.registry import CONTROLLERS
 from models.records import Measurement
 from sim.cli import main
-from sim.scenario import load_scenario
-from sim.simulate import run_scenario, simulate
+from sim.loop.scenario import load_scenario
+from sim.loop.simulate import run_scenario, simulate
 
 REPO = Path(__file__).resolve().parents[1]
 REACH = REPO / "scenarios" / "reach.py"
 SEED = 7  # not the scenario's default (0), so that --seed is seen to take effect
-DT_S = 1e-3  # default control period (sim/scenario.py)
+DT_S = 1e-3  # default control period (sim/loop/scenario.py)
 CUFFS = ("upper_arm", "forearm", "hand")  # default cuffs (models/coupling.py DEFAULT_CUFFS)
 
 METRIC_KEYS = (
@@ -160,7 +160,7 @@ def test_duration_deviation_and_effort_match_the_log_and_its_human_alone_baselin
 
 
 def test_timing_metrics_come_from_the_wall_clock_tick_times(run_folder):
-    # tick times are kept apart from the log (timing.npz, sim/simulate.py); realtime factor = sim time / wall time
+    # tick times are kept apart from the log (timing.npz, sim/loop/simulate.py); realtime factor = sim time / wall time
     with np.load(run_folder / "timing.npz") as f:
         ticks = f["tick_time_s"]
     m = json.loads((run_folder / "metrics.json").read_text())

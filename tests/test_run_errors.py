@@ -19,8 +19,8 @@ import sim
 from controllers.base import Controller
 from controllers.registry import CONTROLLERS
 from sim.cli import main
-from sim.scenario import load_scenario
-from sim.simulate import SimulationError, simulate
+from sim.loop.scenario import load_scenario
+from sim.loop.simulate import SimulationError, simulate
 
 REPO = Path(__file__).resolve().parents[1]
 REACH = REPO / "scenarios" / "reach.py"

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 
 from models.errors import SandboxError
-from sim.runlog import RunLog, RunLogError, environment_metadata, load_run
+from sim.loop.runlog import RunLog, RunLogError, environment_metadata, load_run
 
 COLUMNS = {
     "t": (),
@@ -447,7 +447,7 @@ def test_chunks_are_written_off_the_calling_thread_one_at_a_time(tmp_path, monke
     import threading
     import time
 
-    import sim.runlog as runlog
+    import sim.loop.runlog as runlog
 
     state = {"in_flight": 0, "max_in_flight": 0, "threads": set()}
     lock = threading.Lock()
@@ -478,7 +478,7 @@ def test_append_yields_the_gil_once_a_tick_only_while_a_chunk_is_being_written(t
     # releases the GIL once (time.sleep(0)) so that the writer can take it; before and after, appends do not.
     import threading
 
-    import sim.runlog as runlog
+    import sim.loop.runlog as runlog
 
     release, started = threading.Event(), threading.Event()
     write = runlog._write_chunk_file
@@ -534,7 +534,7 @@ def test_failed_chunk_write_is_raised_in_the_caller_and_written_again(tmp_path):
 
 
 def test_any_error_of_the_writer_is_re_raised_by_close(tmp_path, monkeypatch):
-    import sim.runlog as runlog
+    import sim.loop.runlog as runlog
 
     def broken(arr, col):
         raise MemoryError("no room to encode")

@@ -10,7 +10,7 @@ from _scenario_files import write_scenario
 
 from models.errors import ParameterError
 from models.human import HumanParams, hand_position_m
-from sim.scenario import ScenarioError, load_scenario
+from sim.loop.scenario import ScenarioError, load_scenario
 
 
 @pytest.mark.parametrize("subject", ["f5", "m95"])

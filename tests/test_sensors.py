@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 
 from models.errors import ParameterError
-from sim.sensors import (
+from sim.physics.sensors import (
     NOISE_BLOCK_TICKS,
     EncoderParams,
     ForceSensorBank,
@@ -136,7 +136,7 @@ def test_torque_noise_sample_std_matches_the_setting():
 
 
 def test_noise_free_torque_is_passed_through_and_rng_is_not_consumed():
-    # Documented behaviour of sim/sensors.py (brief: std 0 means ideal torque sensing).
+    # Documented behaviour of sim/physics/sensors.py (brief: std 0 means ideal torque sensing).
     rng = np.random.default_rng(5)
     before = rng.bit_generator.state
     s = JointSensing(EncoderParams(), 2, DT, rng)

@@ -20,10 +20,10 @@ import pytest
 import models
 from models.coupling import matching_exo_velocity
 from sim import load_run, simulate
-from sim.human import HumanMotorParams
-from sim.intent import JointIntent
-from sim.plant import CoupledPlant, PlantParams
-from sim.scenario import Scenario
+from sim.loop.scenario import Scenario
+from sim.physics.intent import JointIntent
+from sim.physics.plant import CoupledPlant, PlantParams
+from sim.physics.wearer import HumanMotorParams
 
 H = 0.25e-3  # default substep: 1 ms control period / 4 substeps [s]
 
@@ -80,7 +80,7 @@ def test_gravity_compensation_with_an_exact_model_holds_any_start_posture(tmp_pa
 def test_gravity_compensation_is_exact_with_ideal_encoders_and_no_friction(tmp_path):
     # nothing to hide errors: with a 1e-9 rad encoder the loop holds to 1e-6 rad (the 17-bit
     # default encoder alone makes a frictionless arm wander by about 1e-3 rad in 5 s)
-    from sim.sensors import EncoderParams
+    from sim.physics.sensors import EncoderParams
 
     sc = _hold_scenario(POSTURES_DEG[0], plant=PlantParams(exo_friction=False),
                         encoder=EncoderParams(resolution_rad=1e-9))
@@ -124,7 +124,7 @@ def test_human_alone_tracks_a_reach_as_its_exact_internal_model_and_impedance_pr
     # up to the 1 ms sampling of the human's torque
     from pathlib import Path
 
-    from sim.scenario import load_scenario
+    from sim.loop.scenario import load_scenario
 
     sc = load_scenario(Path(__file__).resolve().parents[1] / "scenarios" / "reach.py")
     simulate(sc, "gravity", tmp_path / "alone", mode="human_alone")

@@ -13,9 +13,9 @@ import json
 import pytest
 from _scenario_files import write_scenario
 
+from sim.analysis.metrics import is_timing_key
 from sim.cli import main
-from sim.metrics import is_timing_key
-from sim.sweep import PLAN_FILE, SweepError, run_sweep
+from sim.experiments.sweep import PLAN_FILE, SweepError, run_sweep
 
 
 @pytest.fixture(scope="module")

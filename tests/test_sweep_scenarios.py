@@ -13,9 +13,9 @@ import numpy as np
 import pytest
 from _scenario_files import write_scenario
 
+from sim.analysis.metrics import flat_metrics, is_timing_key
 from sim.cli import main
-from sim.metrics import flat_metrics, is_timing_key
-from sim.sweep import SweepError, run_sweep
+from sim.experiments.sweep import SweepError, run_sweep
 
 
 @pytest.fixture(scope="module")
@@ -142,7 +142,7 @@ def test_the_sweep_command_takes_several_scenarios(two, tmp_path, capsys, monkey
         seen.update(paths=paths, controllers=controllers, out=kwargs["out_dir"])
         raise KeyboardInterrupt
 
-    monkeypatch.setattr("sim.sweep.run_sweep", fake_run_sweep)
+    monkeypatch.setattr("sim.experiments.sweep.run_sweep", fake_run_sweep)
     assert main(["sweep", str(a), str(b)]) == 1
     assert seen["paths"] == [str(a), str(b)] and seen["controllers"] is None
     assert str(seen["out"]) == "runs/sweep-2-scenarios"
@@ -150,15 +150,15 @@ def test_the_sweep_command_takes_several_scenarios(two, tmp_path, capsys, monkey
     (a.parent / "__init__.py").write_text('"""Not a scenario."""\n')
     assert main(["sweep", str(a.parent)]) == 1
     assert seen["paths"] == [str(a.parent)] and str(seen["out"]) == "runs/sweep-2-scenarios"
-    from sim.sweep import scenario_files
+    from sim.experiments.sweep import scenario_files
 
     assert scenario_files([a.parent]) == [a, b]
 
 
 def test_the_table_across_scenarios_marks_every_controller_level_at_the_top(tmp_path):
     # mechanism check on made-up summary rows: a tie at the top is bold twice, all equal is bold nowhere
-    from sim.report import write_sweeps_report
-    from sim.sweep import SweepResult
+    from sim.experiments.sweep import SweepResult
+    from sim.output.report import write_sweeps_report
 
     def rows(values):
         return tuple({"controller": c, "subject": "all", "n_ok": 2, "n_failed": 0,

@@ -6,7 +6,7 @@ References, each beside its check:
 * the controller's task-by-task stack (each task's ``rows``, then the elimination of the torque), itself
   checked against cvxpy in ``test_hqp_torque_elimination.py``: the program must write the same rows, to
   the bit, and so give the same torques;
-* cvxpy (Clarabel), level by level (``sim.bench.solve_levels_cvxpy``, Kanoun, Lamiraux & Wieber 2011): the
+* cvxpy (Clarabel), level by level (``sim.experiments.bench.solve_levels_cvxpy``, Kanoun, Lamiraux & Wieber 2011): the
   torques of a program-driven controller, to 1e-5 N m;
 * the wall shapes' touched faces against their geometry written in NumPy (a plane's signed distance
   :math:`n^T(p - x_0)`, a box's per-axis excess, a sphere's radial distance).
@@ -39,7 +39,7 @@ from controllers.tasks.library import WallLaw
 from models.records import Measurement
 
 pytest.importorskip("cvxpy")
-from sim.bench import PythonHandCeiling, solve_levels_cvxpy, stack_rows  # noqa: E402
+from sim.experiments.bench import PythonHandCeiling, solve_levels_cvxpy, stack_rows  # noqa: E402
 
 CUFFS = {"upper_arm": "exo_cuff_upper_arm", "forearm": "exo_cuff_forearm", "hand": "exo_cuff_hand"}
 TOL_NM = 1e-5  # as the bench's cvxpy comparison

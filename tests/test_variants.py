@@ -22,10 +22,10 @@ from controllers.tasks import JointDamping, Task, Transparency
 from models.errors import ParameterError, UnknownNameError
 from models.records import Measurement
 from sim import load_run, simulate
-from sim.derived import cuff_columns
-from sim.metrics import joint_limit_violation_count, wall_metrics
-from sim.scenario import load_scenario
-from sim.simulate import run_scenario
+from sim.analysis.derived import cuff_columns
+from sim.analysis.metrics import joint_limit_violation_count, wall_metrics
+from sim.loop.scenario import load_scenario
+from sim.loop.simulate import run_scenario
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 

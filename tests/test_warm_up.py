@@ -1,4 +1,4 @@
-"""``sim.simulate.warm_up``: the compiled kernels are loaded before a run's timed loop, once per process.
+"""``sim.loop.simulate.warm_up``: the compiled kernels are loaded before a run's timed loop, once per process.
 
 No timing is asserted here (the bench prints figures): these tests check the
 mechanism, that the warm-up leaves nothing behind, and that a failing warm-up
@@ -14,9 +14,9 @@ import tempfile
 import pytest
 from _scenario_files import write_scenario
 
-from sim.scenario import load_scenario
+from sim.loop.scenario import load_scenario
 
-simulate_module = importlib.import_module("sim.simulate")  # the package's name "simulate" is the function
+simulate_module = importlib.import_module("sim.loop.simulate")  # the package's name "simulate" is the function
 
 
 @pytest.fixture()
@@ -90,7 +90,7 @@ def test_a_controller_loads_at_reset_the_kernel_of_its_rare_qp_ticks_with_their_
 
     from controllers import _hqp_kernels
     from controllers.registry import make_controller
-    from sim.bench import _context_and_measurements
+    from sim.experiments.bench import _context_and_measurements
 
     calls = []
     real = _hqp_kernels.solve_levels_fast
@@ -136,7 +136,7 @@ def test_a_preload_that_fails_does_not_stop_the_reset(monkeypatch):
 
     from controllers.hqp import HierarchySolver, QPSolveError
     from controllers.registry import make_controller
-    from sim.simulate import build_assembly, controller_context
+    from sim.loop.simulate import build_assembly, controller_context
 
     sc = load_scenario(Path(__file__).resolve().parents[1] / "scenarios" / "wall_push.py")
     context = controller_context(build_assembly(sc), sc.control_period_s)

@@ -119,7 +119,7 @@ class TorqueSourceActuators(Actuators):
         :math:`\\alpha = 1 - e^{-h/T}` for ``dt_s`` = h [s], such that
         ``substep(q, v, dt_s)`` is exactly
         :math:`\\tau_i \\mathrel{+}= \\alpha (u_i - \\tau_i)` on every joint, then
-        returns ``tau`` (:class:`sim.plant.CoupledPlant` does this in its
+        returns ``tau`` (:class:`sim.physics.plant.CoupledPlant` does this in its
         substep kernel).  None if a subclass overrides :meth:`substep`: its
         step is then another one.
         """

@@ -1,7 +1,7 @@
 """Markdown and CSV reports of a run, a comparison of runs, and a sweep.
 
-Each report holds the metrics, the plots (:mod:`sim.plots`) and the cautions.
-The "better" value of a row follows :data:`sim.metrics.METRICS`: lower, higher,
+Each report holds the metrics, the plots (:mod:`sim.output.plots`) and the cautions.
+The "better" value of a row follows :data:`sim.analysis.metrics.METRICS`: lower, higher,
 closest to zero, to one, or to the commanded wall stiffness.
 """
 
@@ -14,10 +14,10 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .metrics import METRICS, flat_metrics, hand_cuff_index, interaction_force_norm_N, wall_normal_series
+from sim.analysis.metrics import METRICS, flat_metrics, hand_cuff_index, interaction_force_norm_N, wall_normal_series
 
 if TYPE_CHECKING:
-    from .runlog import Run
+    from sim.loop.runlog import Run
 
 __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
            "write_run_report", "compare_runs", "write_sweep_report", "write_sweeps_report", "sweep_verdicts",
@@ -49,7 +49,7 @@ def fmt(v, digits: int = 4) -> str:
 
 
 def best_indices(values: Sequence, better: str | None, commanded: Sequence | None = None) -> tuple[int, ...]:
-    """Indices of the values that share the best score under ``better`` (see :class:`sim.metrics.MetricInfo`).
+    """Indices of the values that share the best score under ``better`` (see :class:`sim.analysis.metrics.MetricInfo`).
 
     Missing and non-finite values never win. Empty when there is no winner:
     fewer than two valid values, or every valid value equal.
@@ -86,7 +86,7 @@ def best_indices(values: Sequence, better: str | None, commanded: Sequence | Non
 
 
 def best_index(values: Sequence, better: str | None, commanded: Sequence | None = None) -> int | None:
-    """Index of the better value under ``better`` (see :class:`sim.metrics.MetricInfo`), None if no winner.
+    """Index of the better value under ``better`` (see :class:`sim.analysis.metrics.MetricInfo`), None if no winner.
 
     Missing values never win; a tie has no winner, whether every value is equal
     or only the best ones are (two controllers that give the same number, e.g.
@@ -115,7 +115,7 @@ def key_info(key: str) -> tuple[str, str | None, str]:
 
 def comparison_rows(labels: Sequence[str], metrics: Sequence[Mapping]) -> list[dict]:
     """One row per metric key present in any run: ``key``, ``unit``, one value per label and ``best`` (a label or
-    empty).  Known keys come in :data:`sim.metrics.METRICS` order, per-cuff and per-level keys after them."""
+    empty).  Known keys come in :data:`sim.analysis.metrics.METRICS` order, per-cuff and per-level keys after them."""
     flats = [flat_metrics(m) for m in metrics]
     keys = [k for k in METRICS if any(k in f for f in flats)]
     keys += [k for k in dict.fromkeys(k for f in flats for k in f) if k not in METRICS]
@@ -173,7 +173,7 @@ def _wall_spec(meta: Mapping) -> dict | None:
 
 
 def _wall_series(run, spec: Mapping) -> tuple[np.ndarray, np.ndarray]:
-    from .derived import cuff_columns
+    from sim.analysis.derived import cuff_columns
 
     hand = hand_cuff_index(run.meta["cuffs"], spec.get("sensor", "hand"))
     return wall_normal_series(run.arrays | cuff_columns(run), spec["point_m"], spec["normal"], hand)
@@ -182,11 +182,11 @@ def _wall_series(run, spec: Mapping) -> tuple[np.ndarray, np.ndarray]:
 def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run: Run | None = None) -> Path:
     """``report.md`` and ``plots/*.png`` of one coupled run folder: key metrics, force plots, cautions.
 
-    ``run``: the run already read from ``folder`` (:func:`sim.runlog.load_run`),
+    ``run``: the run already read from ``folder`` (:func:`sim.loop.runlog.load_run`),
     so that it is not read again (nor its derived columns computed again).
     """
-    from . import plots
-    from .runlog import load_run
+    from sim.loop.runlog import load_run
+    from sim.output import plots
 
     folder = Path(folder)
     run = load_run(folder) if run is None else run
@@ -225,9 +225,9 @@ def compare_runs(run_dirs: Sequence[str | Path], out_dir: str | Path, labels: Se
     folder's name when two runs share one).  Returns the comparison rows, the
     labels and the Markdown report's path.
     """
-    from . import plots
-    from .runlog import RunLogError, load_run
-    from .sweep import write_csv
+    from sim.experiments.sweep import write_csv
+    from sim.loop.runlog import RunLogError, load_run
+    from sim.output import plots
 
     runs = [load_run(d) for d in run_dirs]
     for d, r in zip(run_dirs, runs):
@@ -314,8 +314,8 @@ def headline(summary: Sequence[Mapping], key: str = "interaction_force_rms_N") -
 
 
 def has_wall(summary: Sequence[Mapping]) -> bool:
-    """Whether a sweep's summary rows (:func:`sim.sweep.summarize`) come from a scenario with a plane wall (some
-    run measured a penetration)."""
+    """Whether a sweep's summary rows (:func:`sim.experiments.sweep.summarize`) come from a scenario with a
+    plane wall (some run measured a penetration)."""
     return any(r.get("wall_penetration_max_m_mean") is not None for r in summary)
 
 
@@ -364,10 +364,10 @@ def summary_cells(summary: Sequence[Mapping], keys: Sequence[str]) -> tuple[list
 
 def _write_run_tables(out: Path, result, settings: Mapping) -> None:
     """``runs.csv``, ``runs.md`` and ``sweep.json`` of a sweep: one row per run (after its scenario in a sweep over
-    several), each run's folder relative to ``out`` (:attr:`sim.sweep.SweepCase.label`)."""
+    several), each run's folder relative to ``out`` (:attr:`sim.experiments.sweep.SweepCase.label`)."""
     import json
 
-    from .sweep import run_rows, write_csv
+    from sim.experiments.sweep import run_rows, write_csv
 
     rows = run_rows(result.results)
     write_csv(out / "runs.csv", rows)
@@ -386,8 +386,8 @@ def _write_run_tables(out: Path, result, settings: Mapping) -> None:
 def write_sweep_report(result, settings: Mapping) -> Path:
     """``summary.csv``, ``summary.md``, ``runs.md``, ``sweep.json``, ``report.md`` and plots of a sweep."""
 
-    from . import plots
-    from .sweep import write_csv
+    from sim.experiments.sweep import write_csv
+    from sim.output import plots
 
     out = Path(result.out_dir)
     out.mkdir(parents=True, exist_ok=True)  # a scenario of a sweep over several whose every run failed has none yet
@@ -443,7 +443,7 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
     scenario's verdicts (:func:`sweep_verdicts`) and a link to its report.
     """
 
-    from .sweep import write_csv
+    from sim.experiments.sweep import write_csv
 
     out = Path(result.out_dir)
     summary = list(result.summary)
@@ -473,7 +473,7 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
                     else "n/a" if v is None else f"{fmt(v)} ± {fmt(overall[c].get(f'{key}_std'), 2)}")
             row.append(f"**{cell}**" if i in top else cell)
         across.append(row)
-    from . import plots
+    from sim.output import plots
 
     force = METRICS["interaction_force_rms_N"]
     fig = plots.sweep_bars(bars, "transparency", out / "plots" / "transparency_across_scenarios.png",

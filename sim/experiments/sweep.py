@@ -17,10 +17,10 @@ embarrassingly parallel map.  Two executors run the same function,
 
 A run's numbers depend only on its scenario, controller, subject and seed,
 never on the executor (the logs are bit-identical per seed), except the
-wall-clock figures (:data:`sim.metrics.TIMING_KEYS`). The human-alone
+wall-clock figures (:data:`sim.analysis.metrics.TIMING_KEYS`). The human-alone
 baseline does not depend on the controller: a process that already ran a
 case of the same wearer and seed copies its baseline
-(:func:`sim.simulate.run_scenario`'s ``baseline_from``) instead of
+(:func:`sim.loop.simulate.run_scenario`'s ``baseline_from``) instead of
 simulating it again.  A run that fails is
 recorded with its error; the others go on.
 
@@ -71,9 +71,8 @@ import numpy as np
 
 from models.errors import ParameterError, SandboxError, UnknownNameError
 from models.human import SUBJECTS
-
-from .metrics import METRICS, flat_metrics
-from .scenario import load_scenario
+from sim.analysis.metrics import METRICS, flat_metrics
+from sim.loop.scenario import load_scenario
 
 __all__ = ["SweepCase", "CaseResult", "SweepResult", "SweepError", "run_case", "run_sweep", "summarize"]
 
@@ -135,13 +134,13 @@ _BASELINES: dict[tuple, str] = {}
 
 
 def run_case(case: SweepCase) -> CaseResult:
-    """Run one case (:func:`sim.simulate.run_scenario`) and return its metrics or its error.
+    """Run one case (:func:`sim.loop.simulate.run_scenario`) and return its metrics or its error.
 
     Never raises for a failing run: the error (type and message, plus the last
     traceback line for an unexpected one) is returned, so one bad combination
     does not stop a sweep.
     """
-    from .simulate import run_scenario
+    from sim.loop.simulate import run_scenario
 
     t0 = time.perf_counter()
     key = _baseline_key(case)
@@ -266,7 +265,7 @@ def _serve(conn) -> None:
     simulates itself, as a spawned one does.  Interrupted (Ctrl-C reaches every
     process of the terminal), it stops quietly; the parent reports the case.
     """
-    from .simulate import _BASELINES_MADE
+    from sim.loop.simulate import _BASELINES_MADE
 
     _BASELINES.clear()
     _BASELINES_MADE.clear()
@@ -439,7 +438,7 @@ def run_sweep(
     Parameters
     ----------
     scenario_path : path, or sequence of paths
-        Scenario file; subjects are applied with :func:`sim.scenario.load_scenario`
+        Scenario file; subjects are applied with :func:`sim.loop.scenario.load_scenario`
         (``subject=``), so a file's ``for_subject`` hook is honoured.  Several
         files run in one sweep: every case of every file in the same processes,
         each file's runs and report in a folder named by its stem (see the
@@ -516,7 +515,7 @@ def run_sweep(
             if c.folder not in finished and Path(c.folder).exists():
                 shutil.rmtree(c.folder)
     else:
-        from .simulate import write_json
+        from sim.loop.simulate import write_json
 
         out.mkdir(parents=True, exist_ok=True)
         write_json(out / PLAN_FILE, plan)
@@ -525,7 +524,7 @@ def run_sweep(
     settings = {"controllers": list(dict.fromkeys(c.controller for c in cases)),
                 "subjects": list(dict.fromkeys(subjects)), "seeds": sorted({c.seed for c in cases}),
                 "duration_s": duration_s, "executor": executor}
-    from .report import write_sweep_report, write_sweeps_report
+    from sim.output.report import write_sweep_report, write_sweeps_report
 
     left = {name: sum(c.scenario == name for c in todo) for name in folders.values()}
     parts: dict[str, SweepResult] = {}
@@ -575,10 +574,10 @@ PLAN_FILE = "plan.json"
 def sweep_plan(cases: Sequence[SweepCase], out: Path) -> dict:
     """What a resumed sweep must share with the sweep it goes on with: its cases (folder relative to ``out``,
     scenario file, controller, subject, seed, duration), the SHA-256 of every scenario file, and the software
-    (:func:`sim.runlog.environment_metadata` without ``git_dirty``)."""
+    (:func:`sim.loop.runlog.environment_metadata` without ``git_dirty``)."""
     import hashlib
 
-    from .runlog import environment_metadata
+    from sim.loop.runlog import environment_metadata
 
     root = out.resolve()
     files = {}
@@ -647,7 +646,7 @@ def _finished_cases(out: Path, cases: Sequence[SweepCase]) -> dict[str, CaseResu
 def _write_part(out: Path, last: SweepCase, cases: Sequence[SweepCase], done: Mapping[str, CaseResult],
                 settings: Mapping, t0: float, n_scenarios: int) -> SweepResult:
     """The one-scenario sweep folder of ``last``'s scenario in a sweep over several: its tables, plots and report."""
-    from .report import write_sweep_report
+    from sim.output.report import write_sweep_report
 
     mine = [c for c in cases if c.scenario == last.scenario]
     # as a one-scenario sweep of its own: the cases without the scenario's name, their folders relative to its folder

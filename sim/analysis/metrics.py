@@ -2,10 +2,10 @@
 
 Notation: :math:`f_{c}(t_k)` is the force part of cuff c's wrench on the
 human at tick k, :math:`\\tau_h(t_k)` the human's joint torques, N the number
-of ticks.  Every function takes the arrays of :func:`sim.runlog.load_run`;
+of ticks.  Every function takes the arrays of :func:`sim.loop.runlog.load_run`;
 those that read ``cuff_wrench_exo`` or ``cuff_force_human_world``, which a
 run log does not store, take them with the logged ones:
-``run.arrays | sim.derived.cuff_columns(run)``.  The keys of
+``run.arrays | sim.analysis.derived.cuff_columns(run)``.  The keys of
 :func:`run_metrics` are a contract: they keep their names and meaning.
 """
 
@@ -482,12 +482,12 @@ _TERMS_BLOCK = 1024
 
 
 def _derived_column(arrays: Mapping[str, np.ndarray], name: str) -> np.ndarray:
-    """A column of :func:`sim.derived.cuff_columns`, with an error that says where to get it."""
+    """A column of :func:`sim.analysis.derived.cuff_columns`, with an error that says where to get it."""
     try:
         return np.asarray(arrays[name])
     except KeyError:
         raise KeyError(f"no column {name!r} in the arrays: the run log does not store it; pass "
-                       "run.arrays | sim.derived.cuff_columns(run)") from None
+                       "run.arrays | sim.analysis.derived.cuff_columns(run)") from None
 
 
 # -- safety -------------------------------------------------------------------------------------

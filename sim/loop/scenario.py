@@ -24,12 +24,11 @@ from models.coupling import DEFAULT_CUFFS, CuffSpec, Registration
 from models.errors import ParameterError, SandboxError
 from models.exo import ExoParams
 from models.human import HumanParams
-
-from .actuators import ActuatorParams
-from .human import HumanMotorParams
-from .intent import JointIntent
-from .plant import PlantParams
-from .sensors import EncoderParams, ForceSensorParams
+from sim.physics.actuators import ActuatorParams
+from sim.physics.intent import JointIntent
+from sim.physics.plant import PlantParams
+from sim.physics.sensors import EncoderParams, ForceSensorParams
+from sim.physics.wearer import HumanMotorParams
 
 __all__ = ["Scenario", "ScenarioError", "load_scenario"]
 
@@ -71,7 +70,7 @@ class Scenario:
     #: The scenario's own controller variants: name -> ordered levels of task specs.
     variants: Mapping[str, Sequence] = field(default_factory=dict)
     #: Body-region force limits [N] per cuff name, over the defaults of
-    #: :data:`sim.metrics.BODY_REGION_FORCE_LIMITS_N` (ISO/TS 15066 Annex A).
+    #: :data:`sim.analysis.metrics.BODY_REGION_FORCE_LIMITS_N` (ISO/TS 15066 Annex A).
     force_limits_N: Mapping[str, float] = field(default_factory=dict)
 
     def __post_init__(self) -> None:

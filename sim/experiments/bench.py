@@ -44,7 +44,7 @@ machines differ).  Cases:
   both stacks' tick, rows and solve medians (:func:`user_task_cost`). Such a task's rows come from
   its own ``rows`` each tick and are copied into the compiled program that
   writes the shipped tasks' rows (:mod:`controllers.tasks._program`).
-* **Sweep throughput**: the same small sweep (:func:`sim.sweep.run_sweep`)
+* **Sweep throughput**: the same small sweep (:func:`sim.experiments.sweep.run_sweep`)
   with one and with two worker processes, alternating, ``sweep_repeats``
   times each (``jobs2_speedup`` = median wall time with 1 / median wall time
   with 2), each in a fresh process whose start-up counts, as for a user's
@@ -98,11 +98,10 @@ from models._checks import finite
 from models.chain import ChainParams, build_chain
 from models.errors import ParameterError, SandboxError
 from models.records import Measurement
-
-from .runlog import RunLog, load_run
-from .scenario import Scenario, load_scenario
-from .sensors import EncoderParams, JointSensing
-from .simulate import build_assembly, controller_context, run_scenario, simulate
+from sim.loop.runlog import RunLog, load_run
+from sim.loop.scenario import Scenario, load_scenario
+from sim.loop.simulate import build_assembly, controller_context, run_scenario, simulate
+from sim.physics.sensors import EncoderParams, JointSensing
 
 __all__ = [
     "BenchParams",
@@ -253,16 +252,18 @@ def tick_statistics(folder: str | Path, dt_s: float) -> dict:
 
 #: Stages of the control tick and the methods whose own time (without the nested stages) each one counts.
 TICK_STAGES: dict[str, tuple[tuple[str, str, str], ...]] = {
-    "plant": (("sim.plant", "CoupledPlant", "advance"), ("sim.plant", "CoupledPlant", "update_cuffs"),
-              ("sim.plant", "CoupledPlant", "hand_position"), ("sim.plant", "CoupledPlant", "state_is_finite")),
-    "actuators": (("sim.actuators", "TorqueSourceActuators", "hold"),
-                  ("sim.actuators", "TorqueSourceActuators", "substep")),
-    "sensing": (("sim.sensors", "JointSensing", "measure"), ("sim.sensors", "ForceSensorBank", "measure"),
-                ("sim.sensors", "ForceTorqueSensor", "measure")),
+    "plant": (("sim.physics.plant", "CoupledPlant", "advance"), ("sim.physics.plant", "CoupledPlant", "update_cuffs"),
+              ("sim.physics.plant", "CoupledPlant", "hand_position"),
+              ("sim.physics.plant", "CoupledPlant", "state_is_finite")),
+    "actuators": (("sim.physics.actuators", "TorqueSourceActuators", "hold"),
+                  ("sim.physics.actuators", "TorqueSourceActuators", "substep")),
+    "sensing": (("sim.physics.sensors", "JointSensing", "measure"),
+                ("sim.physics.sensors", "ForceSensorBank", "measure"),
+                ("sim.physics.sensors", "ForceTorqueSensor", "measure")),
     "controller model terms": (("controllers.tasks._common", "TickState", "update"),),
     "controller rows and solve": (("controllers.hqp_controller", "HQPController", "step"),),
-    "wearer's motor": (("sim.human", "HumanMotor", "torque"),),
-    "logging": (("sim.runlog", "RunLog", "append_row"), ("sim.runlog", "RunLog", "append")),
+    "wearer's motor": (("sim.physics.wearer", "HumanMotor", "torque"),),
+    "logging": (("sim.loop.runlog", "RunLog", "append_row"), ("sim.loop.runlog", "RunLog", "append")),
 }
 
 
@@ -662,11 +663,11 @@ def chain_tick_times(n_joints: int, n_ticks: int, folder: str | Path, *, dt_s: f
                      substeps: int = 4) -> dict:
     """Whole-tick wall times of an HQP controller on a serial chain without a wearer.
 
-    Tick: encoder sensing (:class:`~sim.sensors.JointSensing`), the controller
+    Tick: encoder sensing (:class:`~sim.physics.sensors.JointSensing`), the controller
     (joint position and velocity limits > transparency > damping, the
     ``walls`` stack without a wall), ``substeps`` semi-implicit Euler steps of
     the articulated-body algorithm under gravity, and logging of ``t``, q,
-    q̇ and τ (:class:`~sim.runlog.RunLog`).  The chain starts at 0.3 rad on
+    q̇ and τ (:class:`~sim.loop.runlog.RunLog`).  The chain starts at 0.3 rad on
     every joint, at rest.
 
     Every chain gets the torque to hold itself at its start pose: the torque
@@ -786,7 +787,7 @@ def sweep_throughput(scenario_path: str | Path, subjects: Sequence[str], control
                      duration_s: float, out_dir: str | Path, jobs: int) -> dict:
     """Wall time of a small sweep (controllers × subjects × seeds) with ``jobs`` worker processes.
 
-    Runs :func:`sim.sweep.run_sweep` as ``exosandbox sweep --jobs`` does, in
+    Runs :func:`sim.experiments.sweep.run_sweep` as ``exosandbox sweep --jobs`` does, in
     a freshly spawned process, so that every ``jobs`` pays the same start-up
     a user's command pays (imports, loading the compiled kernels): with
     ``jobs=1`` the sweep runs inside that process, otherwise it starts its
@@ -806,7 +807,7 @@ def sweep_throughput(scenario_path: str | Path, subjects: Sequence[str], control
 
 def _sweep_child(scenario_path: str, controllers: list, subjects: list, seeds: int, duration_s: float, out_dir: str,
                  jobs: int) -> list[str]:
-    from .sweep import run_sweep
+    from sim.experiments.sweep import run_sweep
 
     result = run_sweep(scenario_path, controllers, subjects, seeds, out_dir=Path(out_dir), jobs=jobs,
                        duration_s=duration_s)
@@ -817,7 +818,7 @@ class TwoWarmProcesses:
     """Two worker processes, started and warmed up once, that run sweep cases on demand: the machine's own
     two-process speedup, the ceiling of ``jobs2_speedup``.
 
-    :meth:`measure` times one sweep case (:func:`sim.sweep.run_case`: coupled
+    :meth:`measure` times one sweep case (:func:`sim.experiments.sweep.run_case`: coupled
     run, human-alone baseline, metrics and report, ``duration_s`` simulated)
     in one process alone, ``t1``, then the same case in both processes at
     once, ``t2``, each on a seed of its own so that no baseline is reused.
@@ -836,7 +837,7 @@ class TwoWarmProcesses:
 
     def __init__(self, scenario_path: str | Path, subject: str, controller: str, duration_s: float,
                  out_dir: str | Path) -> None:
-        from .sweep import plan_sweep
+        from sim.experiments.sweep import plan_sweep
 
         self._template = plan_sweep(scenario_path, [controller], [subject], 1, out_dir, duration_s=duration_s)[0]
         self._out = Path(out_dir).resolve()
@@ -860,7 +861,7 @@ class TwoWarmProcesses:
     @staticmethod
     def _exchange(workers: Sequence, cases: Sequence) -> list:
         """Send each worker its case, then collect the results; a worker that has gone is a BenchError."""
-        from .sweep import run_case
+        from sim.experiments.sweep import run_case
 
         try:
             for (_proc, conn), case in zip(workers, cases):
@@ -872,7 +873,7 @@ class TwoWarmProcesses:
                              f"{type(e).__name__}") from e
 
     def __enter__(self) -> TwoWarmProcesses:
-        from .sweep import _serve
+        from sim.experiments.sweep import _serve
 
         ctx = multiprocessing.get_context("spawn")
         try:
@@ -923,7 +924,7 @@ def _memory_child(scenario_path: str, duration_s: float, out: str) -> dict:
 def memory_run(scenario_path: str | Path, duration_s: float, out: str | Path) -> dict:
     """Peak resident memory and log size of a reference run of ``duration_s``, in a fresh child process.
 
-    The child runs :func:`sim.simulate.run_scenario` (coupled run, human-alone
+    The child runs :func:`sim.loop.simulate.run_scenario` (coupled run, human-alone
     baseline, metrics) and reports ``resource.getrusage(RUSAGE_SELF).ru_maxrss``
     (KiB on Linux), so the benchmark process itself does not count.
     """
@@ -1095,10 +1096,10 @@ def format_report(report: dict) -> str:
         lines += ["", f"{'stage of the tick':<30} {'mean us':>10}"]
         for stage, us in r["tick_breakdown_us"].items():
             lines.append(f"{stage:<30} {us:>10.1f}")
-        lines.append("  (own time per stage in a separate instrumented run: sim.bench.tick_breakdown)")
+        lines.append("  (own time per stage in a separate instrumented run: sim.experiments.bench.tick_breakdown)")
     if r.get("pinocchio_us_per_tick") is not None:
         lines.append(f"  of which inside pinocchio's algorithms: {r['pinocchio_us_per_tick']:.0f} us in "
-                     f"{r['pinocchio_calls_per_tick']:.0f} calls (sim.bench.pinocchio_time)")
+                     f"{r['pinocchio_calls_per_tick']:.0f} calls (sim.experiments.bench.pinocchio_time)")
     lines += ["", f"{'backend':<10} {'median us':>10} {'p99 us':>10} {'max |dtau| to default N m':>28}"]
     for name, b in r["backends"].items():
         if "error" in b:
@@ -1116,7 +1117,8 @@ def format_report(report: dict) -> str:
         for u in r["user_task"]:
             lines.append(f"{u['stack']:<26} {u['tick_time_median_us']:>15.1f} {_fmt(u['task_rows_median_us']):>15}"
                          f" {_fmt(u['hqp_solve_median_us']):>14}")
-        lines.append("  (sim.bench.user_task_cost: the same run with sim.bench.PythonHandCeiling, a task written in "
+        lines.append("  (sim.experiments.bench.user_task_cost: the same run with "
+                     "sim.experiments.bench.PythonHandCeiling, a task written in "
                      f"plain Python, beside the walls; mean of {r['user_task'][0]['runs']} runs each, alternating)")
     lines += ["", f"{'joints':<10} {'tick median us':>15} {'tick p99 us':>15} {'torque limit N m':>17} "
                   f"{'QP-backend ticks':>17}"]
@@ -1126,7 +1128,8 @@ def format_report(report: dict) -> str:
     lines += ["", f"{'sweep jobs':<10} {'runs':>6} {'wall s':>10} {'runs/min':>10}"]
     for s in r["sweep"]:
         lines.append(f"{s['jobs']:<10} {s['runs']:>6} {s['wall_s']:>10.2f} {s['runs_per_min']:>10.1f}")
-    lines.append("  (sim.sweep.run_sweep in a fresh process, one and two jobs alternating; its start-up and the "
+    lines.append("  (sim.experiments.sweep.run_sweep in a fresh process, one and two jobs alternating; "
+                 "its start-up and the "
                  "workers' count; jobs2_speedup: the ratio of the median wall times)")
     if r.get("parallel_ceiling_error"):
         lines.append(f"  machine_jobs2_speedup: {r['parallel_ceiling_error']}")
@@ -1134,7 +1137,8 @@ def format_report(report: dict) -> str:
         lines += ["", f"{'ceiling':<10} {'1 run s':>10} {'2 runs s':>10} {'speedup':>10}"]
         for c in r["parallel_ceiling"]:
             lines.append(f"{c['repeat']:<10} {c['one_s']:>10.2f} {c['two_s']:>10.2f} {c['speedup']:>10.2f}")
-        lines.append("  (one sweep case in one warm process, then in two at once: sim.bench.TwoWarmProcesses; "
+        lines.append("  (one sweep case in one warm process, then in two at once: "
+                     "sim.experiments.bench.TwoWarmProcesses; "
                      "machine_jobs2_speedup: their median, the ceiling of jobs2_speedup; jobs2_efficiency: "
                      "jobs2_speedup over it)")
     lines += ["", f"memory run of {r['memory_duration_s']:g} s: peak RSS {r['peak_rss_MB']:.0f} MB, log "

@@ -28,8 +28,7 @@ from models._checks import vector
 from models.arm import ArmModel
 from models.errors import ParameterError
 from models.human import HumanParams, girdle_posture
-
-from .intent import JointIntent
+from sim.physics.intent import JointIntent
 
 __all__ = ["HumanMotorParams", "HumanMotor"]
 

@@ -20,7 +20,7 @@ sensor whose noise standard deviations are all zero never draws from it.  A
 force/torque sensor draws its noise :data:`NOISE_BLOCK_TICKS` ticks at a time
 (a Generator gives the same numbers in the same order drawn in one block as
 drawn one tick at a time), so give each sensor a Generator of its own, as
-:func:`sim.simulate.simulate` does: a stream shared with another consumer
+:func:`sim.loop.simulate.simulate` does: a stream shared with another consumer
 would be read in a different order.
 
 Both sensors keep preallocated internal buffers; every array they return is

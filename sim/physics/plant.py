@@ -317,12 +317,12 @@ class CoupledPlant:
 
         The same as ``n_substeps`` calls of :meth:`substep`, to the bit.
         ``exo_torque`` is either the robot's joint torque (nv,) [N m], held
-        over all the substeps, or an actuator (:class:`sim.actuators.Actuators`,
+        over all the substeps, or an actuator (:class:`sim.physics.actuators.Actuators`,
         anything with ``substep(q, v, dt_s)``), asked before every substep for
         the torque it applies over it given the robot's state then.  The
         human's torque ``tau_human_Nm`` (nv,) [N m] is held over all of them.
         An actuator whose ``lag_arrays(dt_s)`` gives its state
-        (:meth:`sim.actuators.TorqueSourceActuators.lag_arrays`) is stepped
+        (:meth:`sim.physics.actuators.TorqueSourceActuators.lag_arrays`) is stepped
         inside the plant's compiled substep instead, with the same numbers.
         """
         if not (isinstance(n_substeps, (int, np.integer)) and n_substeps >= 1):
@@ -368,7 +368,7 @@ class CoupledPlant:
 
         Between pinocchio's forward kinematics, aba and integrate, each substep makes two compiled calls:
         :func:`_substep_inputs` (the cuff wrenches, the actuators' lag when ``lag`` gives its state
-        (:meth:`sim.actuators.TorqueSourceActuators.lag_arrays`), friction) and :func:`_euler_velocity`.
+        (:meth:`sim.physics.actuators.TorqueSourceActuators.lag_arrays`), friction) and :func:`_euler_velocity`.
         Another actuator is asked in Python before each substep, as :meth:`advance` says.
         """
         m, d, fext, vh, tau_all, tau_e = self._m, self._d, self._fext, self._vh, self._tau, self._tau_e
@@ -863,8 +863,8 @@ def _substep_inputs(refresh, oMi, vel, fext, joints, const, out, tau_u, alpha, l
 
     In order: with ``lagged``, the actuators' first-order lag in place on the applied torque ``tau_u[0]``
     toward the held command ``tau_u[1]``, :math:`\\tau \\mathrel{+}= \\alpha (u - \\tau)` (the arithmetic of
-    :func:`sim.actuators._lag`, :class:`sim.actuators.TorqueSourceActuators`); with ``refresh``, every cuff's
-    wrenches into the joint-frame forces (:func:`_pair_cuffs`, its arguments from ``oMi`` to ``out``, on
+    :func:`sim.physics.actuators._lag`, :class:`sim.physics.actuators.TorqueSourceActuators`); with ``refresh``,
+    every cuff's wrenches into the joint-frame forces (:func:`_pair_cuffs`, its arguments from ``oMi`` to ``out``, on
     kinematics updated just before); then the robot's joint torque plus friction into ``tau_out``
     (:func:`_friction_torque` with the damping ``coeffs[0]`` and the Coulomb torques ``coeffs[1]``), or
     ``tau_u[0]`` as it is without ``friction``.  The same operations in the same order as the separate

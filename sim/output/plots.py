@@ -1,7 +1,7 @@
 """Plots of runs, comparisons and sweeps (matplotlib, PNG files, no display needed).
 
 Computing and drawing stay apart: every function here takes arrays or metric
-dicts already computed (:mod:`sim.metrics`) and only draws.  Each returns the
+dicts already computed (:mod:`sim.analysis.metrics`) and only draws.  Each returns the
 path it wrote.  matplotlib is imported on first use with the non-interactive
 ``Agg`` backend, so plotting works on a machine with no display.
 """
@@ -127,7 +127,7 @@ def solve_time_histograms(times_s: Mapping[str, np.ndarray], path: Path) -> Path
 def sweep_bars(rows: Sequence[Mapping], key: str, path: Path, *, ylabel: str, title: str) -> Path:
     """Grouped bars of ``KEY_mean`` with ``KEY_std`` error bars: one group per subject, one bar per controller.
 
-    ``rows`` are :func:`sim.sweep.summarize` rows; the ``"all"`` group comes first.
+    ``rows`` are :func:`sim.experiments.sweep.summarize` rows; the ``"all"`` group comes first.
     """
     plt = _plt()
     controllers = list(dict.fromkeys(r["controller"] for r in rows))

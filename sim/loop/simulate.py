@@ -7,8 +7,8 @@ One control tick of period T (default 1 ms):
    torque command, held for the period (zero-order hold);
 3. the human's torque is computed from their intent and own state;
 4. the plant advances by ``substeps`` semi-implicit Euler steps of T/substeps
-   (:class:`~sim.plant.CoupledPlant`), the actuators' lag integrated alongside;
-5. the tick is logged (:class:`~sim.runlog.RunLog`).
+   (:class:`~sim.physics.plant.CoupledPlant`), the actuators' lag integrated alongside;
+5. the tick is logged (:class:`~sim.loop.runlog.RunLog`).
 
 Runs are deterministic: all randomness comes from one seed through
 ``numpy.random.SeedSequence``; the same seed gives bit-identical logs.
@@ -35,14 +35,13 @@ from models.coupling import Assembly, assemble
 from models.errors import SandboxError
 from models.human import girdle_posture
 from models.records import Measurement
-
-from .actuators import TorqueSourceActuators
-from .human import HumanMotor
-from .metrics import run_metrics, wall_metrics
-from .plant import CoupledPlant, PlantMode
-from .runlog import Run, RunLog, environment_metadata, load_run
-from .scenario import Scenario
-from .sensors import ForceSensorBank, ForceTorqueSensor, JointSensing, _first_nonfinite
+from sim.analysis.metrics import run_metrics, wall_metrics
+from sim.loop.runlog import Run, RunLog, environment_metadata, load_run
+from sim.loop.scenario import Scenario
+from sim.physics.actuators import TorqueSourceActuators
+from sim.physics.plant import CoupledPlant, PlantMode
+from sim.physics.sensors import ForceSensorBank, ForceTorqueSensor, JointSensing, _first_nonfinite
+from sim.physics.wearer import HumanMotor
 
 __all__ = ["SimulationError", "RunResult", "build_assembly", "controller_context", "simulate", "run_scenario",
            "warm_up", "reusable_baseline", "evaluate_run"]
@@ -113,7 +112,7 @@ def _columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple[st
             "tau_cmd": (nq_e,), "tau_applied": (nq_e,), "saturated": ((nq_e,), "bool"), "p_hand_exo": (3,),
         }
         cols |= {f"diag_{d}": () for d in diag}
-    if mode == "coupled":  # the cuff wrenches on the robot and the world forces follow from these: sim.derived
+    if mode == "coupled":  # the cuff wrenches on the robot and the world forces follow from these: sim.analysis.derived
         cols |= {"cuff_wrench_human": (n_cuffs, 6), "cuff_wrench_meas": (n_cuffs, 6)}
     return cols
 
@@ -291,7 +290,7 @@ def run_scenario(
 
     Writes the coupled run to ``out_dir`` (log, ``meta.json``,
     ``metrics.json``, and with ``report`` a ``report.md`` with plots, see
-    :func:`sim.report.write_run_report`) and the baseline to ``out_dir/human_alone``.
+    :func:`sim.output.report.write_run_report`) and the baseline to ``out_dir/human_alone``.
 
     ``baseline_from`` names the baseline of an earlier call, e.g.
     ``other_run/human_alone``. It is copied instead of simulated again when
@@ -333,7 +332,7 @@ def run_scenario(
     metrics = evaluate_run(out, wall=wall, force_limits_N=scenario.force_limits_N, run=run)
     write_json(out / "metrics.json", metrics)
     if report:
-        from .report import write_run_report
+        from sim.output.report import write_run_report
 
         write_run_report(out, metrics, run=run)
     return RunResult(out, metrics, True)
@@ -414,7 +413,7 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     Reads the log, ``timing.npz`` and the run's own robot model (``exo.urdf``
     with the armature of ``meta.json``), so it works on any run folder; the
     cuff wrenches on the robot and the world forces come from
-    :func:`sim.derived.cuff_columns`.
+    :func:`sim.analysis.derived.cuff_columns`.
 
     Parameters
     ----------
@@ -424,16 +423,20 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
         wall, so the stiffness keys are None and the commanded one 0).
     force_limits_N : dict, optional
         Body-region force limit per cuff name, over
-        :data:`sim.metrics.BODY_REGION_FORCE_LIMITS_N`.
-    run : sim.runlog.Run, optional
-        The run already read from ``folder`` (:func:`sim.runlog.load_run`),
+        :data:`sim.analysis.metrics.BODY_REGION_FORCE_LIMITS_N`.
+    run : sim.loop.runlog.Run, optional
+        The run already read from ``folder`` (:func:`sim.loop.runlog.load_run`),
         so that it is not read again; the columns derived from it are then
         kept for the next reader (the run's report).
     """
     from models.arm import load_arm
-
-    from .derived import cuff_columns
-    from .metrics import BODY_REGION_FORCE_LIMITS_N, hand_cuff_index, plane_penetration_m, robot_interaction_terms
+    from sim.analysis.derived import cuff_columns
+    from sim.analysis.metrics import (
+        BODY_REGION_FORCE_LIMITS_N,
+        hand_cuff_index,
+        plane_penetration_m,
+        robot_interaction_terms,
+    )
 
     out = Path(folder)
     run = load_run(out) if run is None else run

@@ -40,7 +40,7 @@ shapes are child nodes with a fixed offset.  Animations therefore target nodes
 whose three.js objects are never replaced, which keeps them working in the
 static HTML export regardless of the order in which its commands load.
 
-meshcat is imported lazily-guarded: ``import sim.viz`` works without it and
+meshcat is imported lazily-guarded: ``import sim.output.viz`` works without it and
 the :class:`ImportError` with the install hint is raised when a viewer is made.
 """
 
@@ -642,7 +642,7 @@ def _workspace_centre(*point_sets: np.ndarray) -> np.ndarray:
 
 
 def _load(run_dir: str | Path, ghost: bool):
-    from .runlog import load_run
+    from sim.loop.runlog import load_run
 
     run = load_run(run_dir)
     base = None
@@ -725,7 +725,7 @@ def draw_replay(vis: Any, run_dir: str | Path, fps: float = 30, ghost: bool = Tr
     Scene
         The drawn scene; its ``animation`` attribute holds the animation sent.
     """
-    from .derived import cuff_columns
+    from sim.analysis.derived import cuff_columns
 
     run, base = _load(run_dir, ghost)
     models = SceneModels.from_run_dir(run_dir)

@@ -723,10 +723,10 @@ class Run:
         True iff ``meta["status"] == "complete"``.
     folder : pathlib.Path or None
         The run folder it was read from (its models, for columns derived
-        from the logged ones: :func:`sim.derived.cuff_columns`).
+        from the logged ones: :func:`sim.analysis.derived.cuff_columns`).
     derived : dict
         Columns derived from the logged ones, kept by the function that
-        computed them (:func:`sim.derived.cuff_columns`) so that every later
+        computed them (:func:`sim.analysis.derived.cuff_columns`) so that every later
         reader of this ``Run`` gets them without computing them again.
     """
 

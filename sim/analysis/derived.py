@@ -4,7 +4,7 @@ The log of a coupled run stores each cuff's wrench on the human,
 ``cuff_wrench_human`` = :math:`w_B = [f_B; \\tau_B]` in the human-side cuff
 frame B (:func:`models.cuffs.cuff_wrench`).  Two more columns follow from it
 and the kinematics exactly, so they are not stored (they were in logs before
-format version 2 of :mod:`sim.runlog`):
+format version 2 of :mod:`sim.loop.runlog`):
 
 * ``cuff_wrench_exo`` (n, n_cuffs, 6): the wrench on the robot in its cuff
   frame A, equal and opposite,
@@ -15,7 +15,7 @@ format version 2 of :mod:`sim.runlog`):
   with :math:`{}^A M_B = ({}^o M_A)^{-1}\\, {}^o M_B = (R, p)` and
   :math:`{}^A X_B^{*}` its action on wrenches (Featherstone, *Rigid Body
   Dynamics Algorithms*, 2008, ch. 2), the law of
-  :func:`models.cuffs.cuff_wrench` and of :meth:`sim.plant.CoupledPlant.update_cuffs`;
+  :func:`models.cuffs.cuff_wrench` and of :meth:`sim.physics.plant.CoupledPlant.update_cuffs`;
 * ``cuff_force_human_world`` (n, n_cuffs, 3): the force on the human in world
   axes, :math:`f_o = R_{oB}\\, f_B`.
 
@@ -42,7 +42,7 @@ from collections.abc import Mapping, Sequence
 import numpy as np
 import pinocchio as pin
 
-from .runlog import Run, RunLogError
+from sim.loop.runlog import Run, RunLogError
 
 __all__ = ["DERIVED_CUFF_COLUMNS", "cuff_columns", "joint_placements"]
 
@@ -151,8 +151,8 @@ def cuff_columns(run: Run) -> dict[str, np.ndarray]:
 
     Parameters
     ----------
-    run : sim.runlog.Run
-        A run read by :func:`sim.runlog.load_run`.
+    run : sim.loop.runlog.Run
+        A run read by :func:`sim.loop.runlog.load_run`.
 
     Returns
     -------

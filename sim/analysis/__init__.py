@@ -1,0 +1,1 @@
+"""Analysis of runs: metrics and derived columns."""

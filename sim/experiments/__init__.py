@@ -1,0 +1,1 @@
+"""Experiments over runs: sweeps and the benchmark."""

@@ -1,0 +1,1 @@
+"""Running and storing: scenarios, the simulation loop and the run log."""

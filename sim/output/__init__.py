@@ -1,0 +1,1 @@
+"""Output: reports, plots and the browser viewer."""
