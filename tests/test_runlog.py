@@ -1,13 +1,18 @@
-"""Chunked columnar run logs: round trip, crash traces, strictness, determinism and the chunk encoding."""
+"""Chunked columnar run logs: round trip, crash traces, strictness, determinism and the Parquet chunks.
+
+Independent references: pyarrow.parquet and pandas read the chunk files (Apache Parquet format
+specification); the IEEE 754-2019 bit patterns of the values written.
+"""
 
 from __future__ import annotations
 
 import json
 import os
-import zipfile
 from pathlib import Path
 
 import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
 import pytest
 
 from models.errors import SandboxError
@@ -53,7 +58,7 @@ def test_2500_ticks_in_chunks_of_1000_round_trip_bit_identical(tmp_path):
         for tick in ticks:
             log.append(**tick)
         assert log.ticks == 2500
-    assert _chunk_files(tmp_path / "run") == ["chunk_000000.zip", "chunk_000001.zip", "chunk_000002.zip"]
+    assert _chunk_files(tmp_path / "run") == ["chunk_000000.parquet", "chunk_000001.parquet", "chunk_000002.parquet"]
     run = load_run(tmp_path / "run")
     expected = _stacked(ticks)
     assert run.complete and run.ticks == 2500
@@ -79,7 +84,7 @@ def test_exception_in_with_block_keeps_all_ticks_and_records_status(tmp_path, ex
             for tick in ticks:
                 log.append(**tick)
             raise exc
-    assert _chunk_files(tmp_path / "run") == ["chunk_000000.zip", "chunk_000001.zip"]
+    assert _chunk_files(tmp_path / "run") == ["chunk_000000.parquet", "chunk_000001.parquet"]
     meta = _meta(tmp_path / "run")
     assert meta["status"] == status and meta["reason"] == reason
     run = load_run(tmp_path / "run")
@@ -105,7 +110,8 @@ def test_leftover_temporary_chunk_is_ignored_on_load(tmp_path):
     for k in range(2):
         log.append(t=float(k))
     log.sync()
-    (tmp_path / "run" / "log" / "chunk_000001.zip.tmp").write_bytes(b"PK\x03\x04half a chunk")
+    (tmp_path / "run" / "log" / ".chunk_000001.parquet.tmp").write_bytes(b"PAR1half a chunk")
+    (tmp_path / "run" / "log" / "chunk_000001.parquet.tmp").write_bytes(b"PAR1half a chunk")
     assert np.array_equal(load_run(tmp_path / "run")["t"], [0.0, 1.0])
 
 
@@ -120,16 +126,19 @@ def test_chunks_hold_no_pickles_and_meta_holds_converted_metadata(tmp_path):
     with RunLog(tmp_path / "run", COLUMNS, chunk_ticks=10, metadata=metadata) as log:
         for tick in _ticks(25):
             log.append(**tick)
+    elements = ["t", *(f"q_exo[{i}]" for i in range(7)),
+                *(f"cuff_wrench_true[{i},{j}]" for i in range(3) for j in range(6)), *(f"sat[{i}]" for i in range(7)),
+                "iters"]
     for name in _chunk_files(tmp_path / "run"):
-        with zipfile.ZipFile(tmp_path / "run" / "log" / name) as zf:
-            assert sorted(zf.namelist()) == sorted([f"{c}.bin" for c in COLUMNS] + ["ticks.json"])
-            assert {i.compress_type for i in zf.infolist()} == {zipfile.ZIP_DEFLATED}
+        md = pq.ParquetFile(tmp_path / "run" / "log" / name).metadata
+        assert md.schema.names == elements and md.num_row_groups == 1
+        assert {md.row_group(0).column(i).compression for i in range(md.num_columns)} == {"ZSTD"}
     meta = _meta(tmp_path / "run")
     assert meta["seed"] == 7 and meta["dt_s"] == 1e-3 and meta["gains"] == [1.0, 2.5]
     assert meta["levels"] == ["contact", "posture"] and meta["urdf"] == "models/exo.urdf"
-    assert meta["columns"]["cuff_wrench_true"] == {"shape": [3, 6], "dtype": "float64", "encoding": "xor_shuffle"}
-    assert meta["columns"]["sat"] == {"shape": [7], "dtype": "bool", "encoding": "raw"}
-    assert meta["format_version"] == 2
+    assert meta["columns"]["cuff_wrench_true"] == {"shape": [3, 6], "dtype": "float64"}
+    assert meta["columns"]["sat"] == {"shape": [7], "dtype": "bool"}
+    assert meta["format_version"] == 3
     assert meta["chunk_ticks"] == 10
     assert str(tmp_path) not in (tmp_path / "run" / "meta.json").read_text(encoding="utf-8")
 
@@ -138,7 +147,7 @@ def test_meta_json_is_written_as_running_at_creation(tmp_path):
     RunLog(tmp_path / "run", {"t": ()}, metadata={"scenario": "reach"})
     meta = _meta(tmp_path / "run")
     assert meta["status"] == "running" and meta["scenario"] == "reach"
-    assert meta["columns"] == {"t": {"shape": [], "dtype": "float64", "encoding": "xor_shuffle"}}
+    assert meta["columns"] == {"t": {"shape": [], "dtype": "float64"}}
 
 
 def test_metrics_written_on_close_and_read_back(tmp_path):
@@ -160,7 +169,7 @@ def test_close_is_idempotent(tmp_path):
     before = (tmp_path / "run" / "meta.json").read_bytes()
     log.close("complete")
     assert (tmp_path / "run" / "meta.json").read_bytes() == before
-    assert _chunk_files(tmp_path / "run") == ["chunk_000000.zip"]
+    assert _chunk_files(tmp_path / "run") == ["chunk_000000.parquet"]
 
 
 def test_reentering_or_appending_after_close_is_refused(tmp_path):
@@ -321,7 +330,6 @@ def test_same_data_gives_byte_identical_files(tmp_path):
     assert files == _chunk_files(tmp_path / "b") and len(files) == 3
     for f in files:
         assert (tmp_path / "a" / "log" / f).read_bytes() == (tmp_path / "b" / "log" / f).read_bytes()
-        assert {i.date_time for i in zipfile.ZipFile(tmp_path / "a" / "log" / f).infolist()} == {(1980, 1, 1, 0, 0, 0)}
     assert (tmp_path / "a" / "meta.json").read_bytes() == (tmp_path / "b" / "meta.json").read_bytes()
 
 
@@ -346,9 +354,9 @@ def test_corrupt_chunk_is_reported_naming_the_file(tmp_path, damage):
     with RunLog(tmp_path / "run", {"q": (7,)}, chunk_ticks=10) as log:
         for k in range(25):
             log.append(q=np.full(7, float(k)))
-    path = tmp_path / "run" / "log" / "chunk_000001.zip"
+    path = tmp_path / "run" / "log" / "chunk_000001.parquet"
     path.write_bytes(damage(path.read_bytes()))
-    with pytest.raises(RunLogError, match="chunk_000001.zip"):
+    with pytest.raises(RunLogError, match="chunk_000001.parquet"):
         load_run(tmp_path / "run")
 
 
@@ -357,8 +365,8 @@ def test_missing_chunk_in_sequence_is_reported(tmp_path):
     for k in range(3):
         log.append(t=float(k))
     log.sync()
-    (tmp_path / "run" / "log" / "chunk_000001.zip").unlink()
-    with pytest.raises(RunLogError, match="chunk_000001.zip' is missing"):
+    (tmp_path / "run" / "log" / "chunk_000001.parquet").unlink()
+    with pytest.raises(RunLogError, match="chunk_000001.parquet' is missing"):
         load_run(tmp_path / "run")
 
 
@@ -368,7 +376,7 @@ def test_run_getitem_unknown_column_lists_columns(tmp_path):
         load_run(tmp_path / "run")["tau"]
 
 
-# -- the chunk encoding (format version 2) ------------------------------------------------------
+# -- the Parquet chunks (format version 3) ------------------------------------------------------
 def _special_floats(dtype) -> np.ndarray:
     """NaN with payloads and signs, signed zeros, infinities, subnormals, extremes and ordinary values."""
     info = np.finfo(dtype)
@@ -390,14 +398,27 @@ def test_float_columns_round_trip_bit_for_bit_with_special_values(tmp_path, dtyp
     data = rng.choice(special, size=(23, 3, 2)).astype(dtype)
     if np.dtype(dtype).kind == "c":
         data.imag = rng.choice(special, size=(23, 3, 2))
+    if real.itemsize > 8:  # a platform's long double (80 or 128 bits) has no Parquet type: refused up front
+        with pytest.raises(RunLogError, match="column 'x': dtype .* has no Parquet type"):
+            RunLog(tmp_path / "run", {"x": ((3, 2), dtype)})
+        assert not (tmp_path / "run").exists()
+        return
     with RunLog(tmp_path / "run", {"x": ((3, 2), dtype), "empty": ((2, 0), dtype)}, chunk_ticks=10) as log:
         for row in data:
             log.append(x=row, empty=np.zeros((2, 0), dtype))
     run = load_run(tmp_path / "run")
     assert run["x"].dtype == np.dtype(dtype) and run["x"].tobytes() == data.tobytes()
     assert run["empty"].shape == (23, 2, 0)
-    expected = "raw" if dtype == "longdouble" and np.dtype(dtype).itemsize > 8 else "xor_shuffle"
-    assert run.meta["columns"]["x"]["encoding"] == expected
+    # independent reader: pyarrow gives the same bit patterns, element by element (complex as real, imag)
+    table = pq.read_table(tmp_path / "run" / "log" / "chunk_000000.parquet")
+    parts = data[:10].reshape(10, 6, 1) if np.dtype(dtype).kind != "c" else data[:10].reshape(10, 6)
+    if np.dtype(dtype).kind == "c":
+        parts = np.stack([parts.real, parts.imag], axis=-1)
+    names = [f"x[{i},{j}]" for i in range(3) for j in range(2)]
+    names = [f"{n}.{p}" for n in names for p in ("real", "imag")] if np.dtype(dtype).kind == "c" else names
+    assert table.column_names == names and table.num_rows == 10
+    for k, name in enumerate(names):
+        assert table.column(name).to_numpy().tobytes() == np.ascontiguousarray(parts.reshape(10, -1)[:, k]).tobytes()
 
 
 @pytest.mark.parametrize("dtype", ["bool", "int8", "uint16", "int32", "int64", "uint64"])
@@ -413,34 +434,77 @@ def test_integer_and_bool_columns_round_trip_exactly(tmp_path, dtype):
         for row in data:
             log.append(x=row)
     run = load_run(tmp_path / "run")
-    assert run.meta["columns"]["x"]["encoding"] == "raw"
+    assert run.meta["columns"]["x"] == {"shape": [4], "dtype": np.dtype(dtype).name}
     assert run["x"].dtype == np.dtype(dtype) and np.array_equal(run["x"], data)
+    table = pq.read_table(tmp_path / "run" / "log" / "chunk_000003.parquet")  # ticks 15, 16
+    assert table.schema.field("x[0]").type == pa.from_numpy_dtype(np.dtype(dtype))
+    assert [table.column(f"x[{i}]").to_pylist() for i in range(4)] == data[15:].T.tolist()
 
 
-def test_chunk_entries_follow_the_documented_byte_layout(tmp_path):
-    # an independent decoder written from the module docstring with the standard library only (zipfile, struct):
-    # byte plane b of element e of row k is at offset (b * elements + e) * rows + k; the words are XOR-ed with the
-    # previous row (Pelkonen et al. 2015) and stored least significant byte first
-    import struct
+def test_a_chunk_opens_with_pyarrow_and_pandas_and_gives_the_logged_values(tmp_path):
+    # independent readers (Apache Parquet format specification): pyarrow.parquet.read_table and pandas.read_parquet
+    # see one flat column per element, named after its row-major index, with the values appended
+    pd = pytest.importorskip("pandas")
+    ticks = _ticks(25)
+    with RunLog(tmp_path / "run", COLUMNS, chunk_ticks=10) as log:
+        for tick in ticks:
+            log.append(**tick)
+    chunk = tmp_path / "run" / "log" / "chunk_000001.parquet"  # ticks 10 .. 19
+    expected = _stacked(ticks[10:20])
+    table = pq.read_table(chunk)
+    assert table.num_rows == 10
+    assert table.column("t").to_pylist() == expected["t"].tolist()
+    assert table.column("q_exo[3]").to_pylist() == expected["q_exo"][:, 3].tolist()
+    assert table.column("cuff_wrench_true[2,5]").to_pylist() == expected["cuff_wrench_true"][:, 2, 5].tolist()
+    assert table.column("cuff_wrench_true[1,0]").to_pylist() == expected["cuff_wrench_true"][:, 1, 0].tolist()
+    assert table.column("sat[6]").to_pylist() == expected["sat"][:, 6].tolist()
+    assert table.column("iters").to_pylist() == expected["iters"].tolist()
+    info = json.loads(table.schema.metadata[b"exosandbox"])
+    assert info == {"format_version": 3, "ticks": 10, "columns": _meta(tmp_path / "run")["columns"]}
 
-    q = np.array([[1.0, -2.5], [1.0000001, -2.5], [0.999, np.pi], [1e300, -0.0]])
-    with RunLog(tmp_path / "run", {"q": (2,), "n": ((), "int16")}, chunk_ticks=4) as log:
-        for k, row in enumerate(q):
-            log.append(q=row, n=-k)
-    with zipfile.ZipFile(tmp_path / "run" / "log" / "chunk_000000.zip") as zf:
-        assert json.loads(zf.read("ticks.json")) == {"ticks": 4}
-        raw, n_bytes = zf.read("q.bin"), zf.read("n.bin")
-    rows, elements = 4, 2
-    decoded = []
-    for e in range(elements):
-        prev = 0
-        for k in range(rows):
-            word = sum(raw[(b * elements + e) * rows + k] << (8 * b) for b in range(8))
-            prev = word if k == 0 else word ^ prev
-            decoded.append((k, e, struct.unpack("<d", prev.to_bytes(8, "little"))[0]))
-    for k, e, value in decoded:
-        assert struct.pack("<d", value) == struct.pack("<d", q[k, e])
-    assert list(struct.unpack("<4h", n_bytes)) == [0, -1, -2, -3]
+    df = pd.read_parquet(chunk)
+    assert len(df.columns) == 1 + 7 + 18 + 7 + 1 and len(df) == 10
+    assert df["q_exo[0]"].dtype == np.float64 and df["sat[0]"].dtype == np.bool_ and df["iters"].dtype == np.int64
+    np.testing.assert_array_equal(df[[f"q_exo[{i}]" for i in range(7)]].to_numpy(), expected["q_exo"])
+    np.testing.assert_array_equal(
+        df[[f"cuff_wrench_true[{i},{j}]" for i in range(3) for j in range(6)]].to_numpy().reshape(10, 3, 6),
+        expected["cuff_wrench_true"])
+    whole = pd.read_parquet(tmp_path / "run" / "log")  # the folder of chunks as one dataset, in order
+    np.testing.assert_array_equal(whole["t"].to_numpy(), _stacked(ticks)["t"])
+
+
+def test_writing_the_same_chunk_twice_gives_the_same_bytes(tmp_path):
+    # the Parquet writer adds no timestamp: the bytes depend on the data only (NaN payloads and -0.0 included)
+    import sim.loop.runlog as runlog
+
+    columns = {name: runlog._parse_column(name, spec) for name, spec in COLUMNS.items()}
+    arrays = _stacked(_ticks(40, seed=9))
+    arrays["q_exo"][3, :2] = [-0.0, np.float64(np.nan)]
+    for name in ("one", "two"):
+        runlog._write_chunk_file(tmp_path / f"{name}.parquet", arrays, columns, 40)
+    assert (tmp_path / "one.parquet").read_bytes() == (tmp_path / "two.parquet").read_bytes()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["one.parquet", "two.parquet"]  # no temporary left
+
+
+def test_loading_needs_no_pickle(tmp_path, monkeypatch):
+    # loadable without pickle: every unpickling entry point raises while the run is read
+    import pickle
+
+    ticks = _ticks(25)
+    with RunLog(tmp_path / "run", COLUMNS, chunk_ticks=10, metadata={"seed": 3}) as log:
+        for tick in ticks:
+            log.append(**tick)
+        log.close(metrics={"n_sat": 3})
+
+    def refused(*args, **kwargs):
+        raise AssertionError("pickle used")
+
+    for name in ("loads", "load", "Unpickler"):
+        monkeypatch.setattr(pickle, name, refused)
+    run = load_run(tmp_path / "run")
+    assert run.complete and run.metrics == {"n_sat": 3}
+    for name, arr in _stacked(ticks).items():
+        assert run[name].tobytes() == arr.tobytes()
 
 
 def test_chunks_are_written_off_the_calling_thread_one_at_a_time(tmp_path, monkeypatch):
@@ -520,10 +584,10 @@ def test_failed_chunk_write_is_raised_in_the_caller_and_written_again(tmp_path):
     log.append(t=0.0)
     log.append(t=1.0)  # handed to the writer, which fails in the background
     log.append(t=2.0)
-    with pytest.raises(RunLogError, match="could not write chunk file .*chunk_000000.zip"):
+    with pytest.raises(RunLogError, match="could not write chunk file .*chunk_000000.parquet"):
         log.append(t=3.0)  # the next hand-over reports it
     assert log.ticks == 4
-    with pytest.raises(RunLogError, match="chunk_000000.zip"):
+    with pytest.raises(RunLogError, match="chunk_000000.parquet"):
         log.close()  # still failing: the log stays open
     log_dir.unlink()
     log_dir.mkdir()
@@ -536,10 +600,10 @@ def test_failed_chunk_write_is_raised_in_the_caller_and_written_again(tmp_path):
 def test_any_error_of_the_writer_is_re_raised_by_close(tmp_path, monkeypatch):
     import sim.loop.runlog as runlog
 
-    def broken(arr, col):
+    def broken(arrays, columns, rows):
         raise MemoryError("no room to encode")
 
-    monkeypatch.setattr(runlog, "_encode", broken)
+    monkeypatch.setattr(runlog, "_chunk_table", broken)
     log = RunLog(tmp_path / "run", {"t": ()}, chunk_ticks=3)
     log.append(t=0.0)
     with pytest.raises(MemoryError, match="no room"):
@@ -547,7 +611,7 @@ def test_any_error_of_the_writer_is_re_raised_by_close(tmp_path, monkeypatch):
     assert _meta(tmp_path / "run")["status"] == "running"
 
 
-# -- format version 1 (uncompressed .npz chunks): still read ------------------------------------
+# -- older formats (1: .npz chunks; 2: zip chunks): refused in one line ----------------------------
 def _write_v1_run(folder: Path, ticks: list[dict], chunk_ticks: int, status: str | None = "complete") -> None:
     """A version-1 run folder as that version wrote it: meta.json and numpy.savez chunks (no compression)."""
     (folder / "log").mkdir(parents=True)
@@ -564,28 +628,18 @@ def _write_v1_run(folder: Path, ticks: list[dict], chunk_ticks: int, status: str
     (folder / "meta.json").write_text(json.dumps(meta, indent=2) + "\n", encoding="utf-8")
 
 
-def test_version_1_folder_loads_as_before(tmp_path):
-    ticks = _ticks(250)
-    _write_v1_run(tmp_path / "old", ticks, chunk_ticks=100)
-    run = load_run(tmp_path / "old")
-    assert run.complete and run.ticks == 250 and run.meta["format_version"] == 1 and run.folder == tmp_path / "old"
-    for name, arr in _stacked(ticks).items():
-        assert run[name].dtype == arr.dtype and run[name].tobytes() == arr.tobytes()
-
-
-def test_version_1_unfinished_or_damaged_folder_is_reported_as_before(tmp_path):
-    ticks = _ticks(250)
-    _write_v1_run(tmp_path / "died", ticks, chunk_ticks=100, status=None)
-    (tmp_path / "died" / "log" / "chunk_000003.npz.tmp").write_bytes(b"PK\x03\x04half")
-    assert load_run(tmp_path / "died").ticks == 250 and not load_run(tmp_path / "died").complete
-    _write_v1_run(tmp_path / "bad", ticks, chunk_ticks=100)
-    path = tmp_path / "bad" / "log" / "chunk_000001.npz"
-    path.write_bytes(path.read_bytes()[:300])
-    with pytest.raises(RunLogError, match="chunk_000001.npz"):
-        load_run(tmp_path / "bad")
-    path.unlink()
-    with pytest.raises(RunLogError, match="chunk_000001.npz' is missing"):
-        load_run(tmp_path / "bad")
+def test_folder_of_an_older_format_is_refused_in_one_line_naming_it(tmp_path):
+    _write_v1_run(tmp_path / "old", _ticks(250), chunk_ticks=100)
+    with pytest.raises(RunLogError) as info:
+        load_run(tmp_path / "old")
+    message = str(info.value)
+    assert "\n" not in message and str(tmp_path / "old") in message
+    assert "format_version 1" in message and ".npz" in message and "format_version 3 (Parquet chunks) only" in message
+    RunLog(tmp_path / "v2", {"t": ()}).close()
+    meta = _meta(tmp_path / "v2") | {"format_version": 2}
+    (tmp_path / "v2" / "meta.json").write_text(json.dumps(meta), encoding="utf-8")
+    with pytest.raises(RunLogError, match="v2.*format_version 2 \\(zip chunks.*reads format_version 3"):
+        load_run(tmp_path / "v2")
 
 
 def test_unknown_format_version_is_refused_naming_meta_json(tmp_path):

@@ -1,66 +1,84 @@
-"""Columnar run logs, written chunk by chunk while a simulation runs.
+"""Columnar run logs in Apache Parquet, written chunk by chunk while a simulation runs.
 
 A run folder looks like this::
 
-    meta.json                  status, column shapes/dtypes/encodings, chunk size, user metadata
-    metrics.json               optional, written by :meth:`RunLog.close`
-    log/chunk_000000.zip       ticks 0 .. chunk_ticks-1, one entry per column
-    log/chunk_000001.zip       ...
+    meta.json                    status, column shapes and dtypes, chunk size, user metadata
+    metrics.json                 optional, written by :meth:`RunLog.close`
+    log/chunk_000000.parquet     ticks 0 .. chunk_ticks-1, one Parquet file
+    log/chunk_000001.parquet     ...
 
 Every tick is one row of every column.  :class:`RunLog` keeps two preallocated
 buffers of ``chunk_ticks`` rows per column: a full buffer is handed to a
-background thread, which encodes it and writes it as one chunk file, while the
-other buffer fills.  A crash loses at most the ticks of the current chunk and
-of the one being written.  ``meta.json`` is written when the log is created
+background thread, which writes it as one chunk file, while the other buffer
+fills.  A crash loses at most the ticks of the current chunk and of the one
+being written.  ``meta.json`` is written when the log is created
 (``"status": "running"``) and rewritten by :meth:`RunLog.close` with the final
 status, so a folder whose status is still ``"running"`` is the trace of a
 process that died.
 
-Chunk format (``format_version`` 2)
+Chunk format (``format_version`` 3)
 -----------------------------------
-A chunk is a zip archive (deflate, level 1) holding ``ticks.json``
-(``{"ticks": n}``, the rows of this chunk) and one entry ``<column>.bin`` per
-column: a byte stream of ``n * prod(shape)`` values, lossless, encoded as
-named by the column's ``encoding`` in ``meta.json``:
+Each chunk is one Parquet file (Apache Parquet format specification) of
+one row group, one row per tick, written with pyarrow.  A logged column of
+per-tick shape ``s`` becomes ``prod(s)`` flat Parquet columns, one per
+element, named after the element's index in row-major (C) order:
 
-* ``"xor_shuffle"`` (float and complex columns; complex as its real and
-  imaginary parts).  Each value's bit pattern is read as a little-endian
-  unsigned integer of its width w (2, 4 or 8 bytes) and, from the second row
-  on, XOR-ed with the same value of the previous row,
-  :math:`x'_k = x_k \\oplus x_{k-1}` (the first row is kept as it is): slowly
-  changing values share sign, exponent and leading mantissa bits, which the XOR
-  turns into zero bits (the XOR with the previous value of Pelkonen et al.,
-  "Gorilla: a fast, scalable, in-memory time series database", Proc. VLDB
-  Endowment 8(12), 2015).  The integers are then byte-shuffled
-  -- byte 0 (least significant) of every value first, then byte 1, ... --
-  so that bytes of the same significance, which are alike, stand together (the
-  shuffle filter of HDF5 and Blosc), here ordered byte plane, then element of
-  the row, then row: the stream is the ``(w, elements, n)`` transpose of the
-  ``(n, elements, w)`` bytes.  Decoding undoes the shuffle and takes the
-  running XOR along the rows (``numpy.bitwise_xor.accumulate``).
-* ``"raw"`` (bool and integer columns): the little-endian bytes in C order.
+* shape ``()``: ``t``;
+* shape ``(7,)``: ``q_exo[0]`` ... ``q_exo[6]``;
+* shape ``(3, 6)``: ``cuff_wrench_true[0,0]``, ``cuff_wrench_true[0,1]``, ... ``cuff_wrench_true[2,5]``;
+* a complex column gives two columns per element, ``z[0].real`` and
+  ``z[0].imag`` (Parquet has no complex type).
 
-The zip deflate compresses every entry; the zip CRC-32 catches a damaged one.
+So ``pandas.read_parquet(folder / "log")`` (every finished chunk, in order) or
+one chunk file gives a flat table of numbers, one named column per element,
+that pandas, polars or DuckDB open without this module.  A column of zero
+elements (e.g. shape ``(2, 0)``) has no Parquet column.  Physical types:
+bool -> ``BOOLEAN``; int8/16/32/64 and uint8/16/32/64 -> ``INT32``/``INT64``
+with their ``INT(bitWidth, isSigned)`` logical type; float32/64 ->
+``FLOAT``/``DOUBLE``; float16 -> the ``FLOAT16`` logical type; every column
+is ``required`` (no nulls).  Float columns use the ``BYTE_STREAM_SPLIT``
+encoding (byte k of every value, then byte k+1, ...: bytes of the same
+significance, which are alike for slowly changing signals, stand together and
+compress better), the others ``PLAIN``; no dictionaries.  Every data page is
+compressed with Zstandard (``ZSTD``, level 3) and carries a CRC-32 page
+checksum, verified when :func:`load_run` reads it.  Both encodings store the
+IEEE bit patterns as they are, so the round trip is bit-identical, NaN
+payloads and the sign of zero included.  Long double columns (no Parquet
+type) are refused.
 
-Format version 1 (read, no longer written) stored each chunk as
-``log/chunk_NNNNNN.npz``, an uncompressed :func:`numpy.savez` archive with one
-``.npy`` entry per column; :func:`load_run` reads both.
+The shape and dtype of each logged column are recorded in ``meta.json``
+(``"columns": {"q_exo": {"shape": [7], "dtype": "float64"}, ...}``) and in
+each chunk's key-value metadata under the key ``exosandbox``: a JSON object
+``{"format_version": 3, "ticks": n, "columns": {...}}`` (the same table),
+which is what a reader needs to put the element columns back into arrays.
+The Arrow schema pyarrow stores beside it (key ``ARROW:schema``) makes pyarrow
+read each column back with its exact type.
+
+Earlier formats (version 1: ``.npz`` chunks; version 2: zip chunks of a codec
+of this project's own) are no longer read: :func:`load_run` names the folder,
+its version and the one it reads.
 
 Design notes
 ------------
-* **Atomic files.**  Each chunk and each JSON file is written under a ``.tmp``
-  name in the same directory and moved into place with :func:`os.replace`, so a
-  reader never sees half a file.  This protects against the process dying; it
-  does not ``fsync`` and so gives no guarantee against power loss.
-* **Background writes.**  Encoding and compressing a chunk (zlib and numpy
-  release the GIL) run on a writer thread, so on a second core they overlap
-  the simulation.  At most one chunk is in flight: handing over the next one
-  first waits for it.  An error of the writer is raised in the caller's thread
-  by the next hand-over, :meth:`RunLog.sync` or :meth:`RunLog.close`; the
-  chunk stays buffered and is written again by the next of these calls.
-* **Bit-for-bit determinism.**  Every zip entry is stamped with a fixed date
-  (1980-01-01) and fixed attributes, and the encoding has no state beyond the
-  chunk, so the same data gives the same bytes (with the same zlib).
+* **Atomic files.**  Each chunk and each JSON file is written under a hidden
+  temporary name (``.<name>.tmp``, which Parquet dataset readers such as
+  ``pyarrow.dataset`` skip) in the same directory and moved into place with
+  :func:`os.replace`, so a reader never sees half a file.  This protects
+  against the process dying; it does not ``fsync`` and so gives no guarantee
+  against power loss.
+* **Background writes.**  Encoding and compressing a chunk (pyarrow releases
+  the GIL) run on a writer thread, so on a second core they overlap the
+  simulation.  At most one chunk is in flight: handing over the next one first
+  waits for it.  An error of the writer is raised in the caller's thread by
+  the next hand-over, :meth:`RunLog.sync` or :meth:`RunLog.close`; the chunk
+  stays buffered and is written again by the next of these calls.
+* **Bit-for-bit determinism.**  A Parquet file written by pyarrow holds no
+  timestamp; the encodings, the compression level, the page size and the
+  statistics (min/max per column chunk) depend only on the data, so the same
+  data gives the same bytes with the same pyarrow version (its name and version
+  are stored in the file's ``created_by`` field).
+* **No pickle.**  Reading a run uses JSON and Parquet only; nothing is
+  unpickled.
 * **JSON policy.**  Metadata and metrics are converted to plain JSON (numpy
   scalars and arrays, tuples and relative :class:`~pathlib.PurePath` objects are
   converted).  Non-finite numbers (NaN, inf), absolute paths and
@@ -68,6 +86,16 @@ Design notes
   key, rather than stored as strings, so that ``meta.json`` stays strict JSON and
   a NaN never hides in a parameter record.  No timestamps are added, so
   ``meta.json`` is deterministic too.
+
+References
+----------
+* Apache Software Foundation, *Apache Parquet format specification*,
+  https://github.com/apache/parquet-format: ``README.md`` (file layout,
+  row groups, column chunks, pages, key-value metadata), ``Encodings.md``
+  (``PLAIN``, ``BYTE_STREAM_SPLIT``), ``LogicalTypes.md`` (``INT``,
+  ``FLOAT16``), ``Compression.md`` (``ZSTD``).
+* Y. Collet and M. Kucherawy, *Zstandard Compression and the
+  'application/zstd' Media Type*, RFC 8878, IETF, 2021.
 """
 
 from __future__ import annotations
@@ -82,8 +110,6 @@ import re
 import subprocess
 import threading
 import time
-import zipfile
-import zlib
 from collections.abc import Collection, Iterable, Mapping
 from dataclasses import dataclass, field
 from importlib import import_module
@@ -93,6 +119,8 @@ from types import TracebackType
 from typing import Any
 
 import numpy as np
+import pyarrow as pa
+import pyarrow.parquet as pq
 from numpy.typing import DTypeLike
 
 from models.errors import SandboxError
@@ -107,25 +135,25 @@ __all__ = [
 
 _log = logging.getLogger(__name__)
 
-FORMAT_VERSION = 2
+FORMAT_VERSION = 3
 """Version of the run-folder layout written, stored in ``meta.json`` as ``format_version``."""
-READ_FORMAT_VERSIONS = (1, 2)
-"""Versions :func:`load_run` reads (1: uncompressed ``.npz`` chunks; 2: encoded ``.zip`` chunks)."""
+READ_FORMAT_VERSIONS = (FORMAT_VERSION,)
+"""Versions :func:`load_run` reads (3: Parquet chunks)."""
+_OLD_FORMATS = {1: "uncompressed .npz chunks", 2: "zip chunks of the project's own codec"}
 
 META_FILE = "meta.json"
 METRICS_FILE = "metrics.json"
 CHUNK_DIR = "log"
-_CHUNK_SUFFIX = {1: ".npz", 2: ".zip"}  # format version -> chunk file suffix
-_CHUNK_RE = {v: re.compile(rf"^chunk_(\d{{6}}){re.escape(sfx)}$") for v, sfx in _CHUNK_SUFFIX.items()}
-_TICKS_ENTRY = "ticks.json"  # rows of a version-2 chunk
-_ENTRY_SUFFIX = ".bin"  # column entries of a version-2 chunk
-_ENCODINGS = ("xor_shuffle", "raw")
+CHUNK_SUFFIX = ".parquet"
+_CHUNK_RE = re.compile(rf"^chunk_(\d{{6}}){re.escape(CHUNK_SUFFIX)}$")
+CHUNK_METADATA_KEY = b"exosandbox"
+"""Key of the chunk's Parquet key-value metadata holding format version, ticks and column shapes/dtypes (JSON)."""
+_ZSTD_LEVEL = 3
 _FINAL_STATUSES = ("complete", "failed", "interrupted")
 _RESERVED_META_KEYS = frozenset(
     {"format_version", "status", "reason", "columns", "chunk_ticks", "ticks", "chunks"}
 )
 _ALLOWED_DTYPE_KINDS = "biufc"  # bool, signed/unsigned int, float, complex
-_ZIP_DATE_TIME = (1980, 1, 1, 0, 0, 0)  # earliest DOS timestamp: fixed for determinism
 _GIT_TIMEOUT_S = 2.0
 #: Reported name -> installed distribution whose version is read (without importing it).
 _VERSIONED_MODULES = {"numpy": "numpy", "pinocchio": "pin", "qpsolvers": "qpsolvers", "osqp": "osqp",
@@ -143,28 +171,33 @@ class RunLogError(SandboxError, RuntimeError):
 # ----------------------------------------------------------------------------------------------
 
 
-def _word_bytes(dtype: np.dtype) -> int | None:
-    """Width [bytes] of the words XOR-ed by the ``xor_shuffle`` encoding, or None if it does not apply."""
-    width = dtype.itemsize if dtype.kind == "f" else dtype.itemsize // 2 if dtype.kind == "c" else 0
-    return width if width in (2, 4, 8) else None
-
-
 @dataclass(frozen=True)
 class _Column:
     shape: tuple[int, ...]
     dtype: np.dtype
-    encoding: str | None = None  # None: a version-1 column (a plain .npy entry)
 
     def to_json(self) -> dict[str, Any]:
-        out = {"shape": list(self.shape), "dtype": self.dtype.name}
-        if self.encoding is not None:
-            out["encoding"] = self.encoding
-        return out
+        return {"shape": list(self.shape), "dtype": self.dtype.name}
 
     @property
     def row_values(self) -> int:
         """Scalars per tick."""
         return math.prod(self.shape)
+
+    @property
+    def stored_dtype(self) -> np.dtype:
+        """dtype of the Parquet columns: the column's own, or the real dtype of its parts for a complex one."""
+        return np.dtype(f"f{self.dtype.itemsize // 2}") if self.dtype.kind == "c" else self.dtype
+
+    def parquet_names(self, name: str) -> list[str]:
+        """Names of the Parquet columns of this column, in row-major element order (module docstring)."""
+        if self.shape == ():
+            elements = [name]
+        else:
+            elements = [f"{name}[{','.join(map(str, idx))}]" for idx in np.ndindex(*self.shape)]
+        if self.dtype.kind == "c":
+            return [f"{e}.{part}" for e in elements for part in ("real", "imag")]
+        return elements
 
 
 def _parse_shape(name: str, shape: Any) -> tuple[int, ...]:
@@ -189,7 +222,11 @@ def _parse_dtype(name: str, dtype: Any) -> np.dtype:
         raise RunLogError(
             f"column {name!r}: dtype must be bool, integer, float or complex, got {dt.name!r}"
         )
-    return dt.newbyteorder("=")
+    part = dt.itemsize // 2 if dt.kind == "c" else dt.itemsize
+    if dt.kind in "fc" and part not in (2, 4, 8):
+        raise RunLogError(f"column {name!r}: dtype {dt.name} (long double) has no Parquet type;"
+                          f" use float16, float32 or float64 (complex64 or complex128)")
+    return np.dtype(f"{dt.kind}{dt.itemsize}") if dt.kind in "fciu" else np.dtype(bool)
 
 
 def _parse_column(name: Any, spec: Any) -> _Column:
@@ -202,7 +239,7 @@ def _parse_column(name: Any, spec: Any) -> _Column:
         and not isinstance(spec[1], (int, np.integer))
     )
     shape, dtype = (spec[0], _parse_dtype(name, spec[1])) if is_pair else (spec, np.dtype(np.float64))
-    return _Column(_parse_shape(name, shape), dtype, "xor_shuffle" if _word_bytes(dtype) else "raw")
+    return _Column(_parse_shape(name, shape), dtype)
 
 
 def _converted(name: str, col: _Column, value: Any) -> np.ndarray:
@@ -219,22 +256,15 @@ def _converted(name: str, col: _Column, value: Any) -> np.ndarray:
     return arr
 
 
-def _columns_from_meta(meta: Mapping[str, Any], where: str, version: int) -> dict[str, _Column]:
-    cols = meta.get("columns")
+def _columns_from_json(cols: Any, where: str) -> dict[str, _Column]:
+    """The columns of a ``"columns"`` table (of ``meta.json`` or of a chunk's metadata), or a RunLogError."""
     if not isinstance(cols, Mapping) or not cols:
         raise RunLogError(f"{where} has no 'columns' table")
     out = {}
     for name, spec in cols.items():
         if not isinstance(spec, Mapping) or "shape" not in spec or "dtype" not in spec:
             raise RunLogError(f"{where}: column {name!r} needs 'shape' and 'dtype', got {spec!r}")
-        shape, dtype = _parse_shape(name, spec["shape"]), _parse_dtype(name, spec["dtype"])
-        encoding = None
-        if version >= 2:
-            encoding = spec.get("encoding")
-            if encoding not in _ENCODINGS or (encoding == "xor_shuffle" and not _word_bytes(dtype)):
-                raise RunLogError(f"{where}: column {name!r} of dtype {dtype.name} has no valid encoding"
-                                  f" (one of {list(_ENCODINGS)}; xor_shuffle for floats), got {encoding!r}")
-        out[name] = _Column(shape, dtype, encoding)
+        out[name] = _Column(_parse_shape(name, spec["shape"]), _parse_dtype(name, spec["dtype"]))
     return out
 
 
@@ -270,8 +300,13 @@ def _to_json(value: Any, where: str) -> Any:
     raise RunLogError(f"{where} is not JSON-serialisable (type {type(value).__name__})")
 
 
-def _atomic_write_bytes(path: Path, data: bytes) -> None:
-    tmp = path.with_name(path.name + ".tmp")
+def _temporary(path: Path) -> Path:
+    """The hidden temporary name a file is written under before it is moved into place."""
+    return path.with_name(f".{path.name}.tmp")
+
+
+def _atomic_write_bytes(path: Path, data: bytes | memoryview) -> None:
+    tmp = _temporary(path)
     tmp.write_bytes(data)
     os.replace(tmp, path)
 
@@ -281,50 +316,39 @@ def _write_json(path: Path, obj: Mapping[str, Any]) -> None:
     _atomic_write_bytes(path, text.encode("utf-8"))
 
 
-def _encode(arr: np.ndarray, col: _Column) -> bytes:
-    """The ``.bin`` entry of one column of a chunk: ``arr`` of shape (rows, *shape), encoded (module docstring)."""
-    rows = len(arr)
-    if col.encoding == "raw":
-        return np.ascontiguousarray(arr, dtype=col.dtype.newbyteorder("<")).tobytes()
-    w = _word_bytes(col.dtype)
-    words = np.ascontiguousarray(arr).view(f"=u{w}").reshape(rows, -1).astype(f"<u{w}", copy=False)
-    x = words.copy()
-    np.bitwise_xor(words[1:], words[:-1], out=x[1:])  # x_k = u_k XOR u_(k-1); row 0 as it is
-    return np.ascontiguousarray(x.view(np.uint8).reshape(rows, -1, w).transpose(2, 1, 0)).tobytes()
-
-
-def _decode(data: bytes, col: _Column, rows: int) -> np.ndarray:
-    """Inverse of :func:`_encode`: the (rows, *shape) array of one column entry of ``rows`` ticks."""
-    if col.encoding == "raw":
-        arr = np.frombuffer(data, dtype=col.dtype.newbyteorder("<")).astype(col.dtype, copy=False)
-        return arr.reshape(rows, *col.shape)
-    w = _word_bytes(col.dtype)
-    b = np.frombuffer(data, dtype=np.uint8).reshape(w, -1, rows).transpose(2, 1, 0)
-    x = np.ascontiguousarray(b).view(f"<u{w}")[..., 0]
-    words = np.bitwise_xor.accumulate(x, axis=0).astype(f"=u{w}", copy=False)
-    return np.ascontiguousarray(words).view(col.dtype).reshape(rows, *col.shape)
+def _chunk_table(arrays: Mapping[str, np.ndarray], columns: Mapping[str, _Column], rows: int) -> pa.Table:
+    """The first ``rows`` ticks of ``arrays`` as one table: one flat column per element (module docstring)."""
+    names, data = [], []
+    for name, col in columns.items():
+        flat = arrays[name][:rows].reshape(rows, -1)
+        if col.dtype.kind == "c":  # real and imaginary part of each element, side by side
+            flat = flat.view(col.stored_dtype)
+        names += col.parquet_names(name)
+        data += [pa.array(values) for values in np.ascontiguousarray(flat.T)]
+    info = {"format_version": FORMAT_VERSION, "ticks": rows,
+            "columns": {name: col.to_json() for name, col in columns.items()}}
+    schema = pa.schema([pa.field(n, d.type, nullable=False) for n, d in zip(names, data)],
+                       metadata={CHUNK_METADATA_KEY: json.dumps(info).encode("utf-8")})
+    return pa.Table.from_arrays(data, schema=schema)
 
 
 def _write_chunk_file(path: Path, arrays: Mapping[str, np.ndarray], columns: Mapping[str, _Column], rows: int
                       ) -> None:
-    """Write one version-2 chunk of ``rows`` ticks (zip, deflate level 1, fixed timestamps), atomically."""
-    tmp = path.with_name(path.name + ".tmp")
+    """Write one chunk of ``rows`` ticks as a Parquet file (module docstring), atomically."""
+    table = _chunk_table(arrays, columns, rows)
+    floats = [f.name for f in table.schema if pa.types.is_floating(f.type)]
+    sink = pa.BufferOutputStream()
     try:
-        with zipfile.ZipFile(tmp, mode="w", compression=zipfile.ZIP_DEFLATED, allowZip64=True) as zf:
-            entries = [(_TICKS_ENTRY, json.dumps({"ticks": rows}).encode("utf-8"))]
-            entries += [(name + _ENTRY_SUFFIX, _encode(arrays[name][:rows], col)) for name, col in columns.items()]
-            for entry, data in entries:
-                info = zipfile.ZipInfo(entry, date_time=_ZIP_DATE_TIME)
-                info.create_system = 3  # the same bytes on every platform
-                info.external_attr = 0o644 << 16
-                zf.writestr(info, data, compress_type=zipfile.ZIP_DEFLATED, compresslevel=1)
-        os.replace(tmp, path)
-    except OSError as e:
+        pq.write_table(table, sink, row_group_size=max(rows, 1), compression="zstd", compression_level=_ZSTD_LEVEL,
+                       use_dictionary=False, column_encoding=dict.fromkeys(floats, "BYTE_STREAM_SPLIT"),
+                       write_page_checksum=True)
+        _atomic_write_bytes(path, memoryview(sink.getvalue()))
+    except (OSError, pa.ArrowException) as e:
         raise RunLogError(f"could not write chunk file {str(path)!r}: {e}") from e
 
 
-def _chunk_name(index: int, version: int = FORMAT_VERSION) -> str:
-    return f"chunk_{index:06d}{_CHUNK_SUFFIX[version]}"
+def _chunk_name(index: int) -> str:
+    return f"chunk_{index:06d}{CHUNK_SUFFIX}"
 
 
 class _ChunkJob:
@@ -378,7 +402,8 @@ class RunLog:
         Column name -> per-tick shape, e.g. ``{"t": (), "q_exo": (7,),
         "cuff_wrench_true": (3, 6)}`` (float64), or a ``(shape, dtype)`` pair
         for other dtypes, e.g. ``{"sat": ((7,), "bool"), "iters": ((), "int64")}``.
-        Allowed dtypes: bool, integers, floats, complex.  Names must be Python
+        Allowed dtypes: bool, integers, float16/32/64, complex64/128 (long double
+        has no Parquet type).  Names must be Python
         identifiers.  Column ``c`` is read back with shape ``(ticks, *shape_c)``.
     chunk_ticks : int, optional
         Rows per chunk file [ticks], >= 1.  Default 1000.
@@ -575,11 +600,10 @@ class RunLog:
             self._hand_over()
         job = self._job
         if job is not None and not job.done:
-            # Give the writer thread the GIL once a tick. It needs it for the Python parts of a chunk, some fifty
-            # short stretches between its compress and write calls, and a loop of pinocchio and numba calls
-            # (which keep the GIL) lets it take it only every switch interval (5 ms): measured, 20 ms of work took
-            # about 240 ms, more than a 1000-tick chunk of the reference case, so every hand-over waited some
-            # 15 ms. With the yield the chunk is written in about 45 ms and a hand-over takes 0.6 ms.
+            # Give the writer thread the GIL once a tick. It needs it for the Python parts of a chunk (building
+            # the table of element columns, between pyarrow's calls that release it), and a loop of pinocchio and
+            # numba calls (which keep the GIL) lets it take it only every switch interval (5 ms): without the yield
+            # those short stretches spread over many intervals and the next hand-over waits for the chunk.
             time.sleep(0)
         row = self._row
         for buffer, value in zip(self._buffer_list, values):
@@ -760,70 +784,42 @@ def _read_json(path: Path) -> dict[str, Any]:
     return obj
 
 
-def _read_chunk(path: Path, columns: Mapping[str, _Column], version: int) -> dict[str, np.ndarray]:
-    return _read_zip_chunk(path, columns) if version >= 2 else _read_npz_chunk(path, columns)
-
-
-def _read_zip_chunk(path: Path, columns: Mapping[str, _Column]) -> dict[str, np.ndarray]:
-    """A version-2 chunk (module docstring)."""
+def _read_chunk(path: Path, columns: Mapping[str, _Column]) -> dict[str, np.ndarray]:
+    """One chunk file as arrays of shape (ticks, *shape) per column, checked against ``columns`` (of meta.json)."""
+    where = f"chunk file {str(path)!r}"
     try:
-        with zipfile.ZipFile(path) as zf:
-            names = set(zf.namelist())
-            expected = {name + _ENTRY_SUFFIX for name in columns}
-            extra = sorted(names - expected - {_TICKS_ENTRY})
-            if extra:
-                raise RunLogError(f"chunk file {str(path)!r} holds unexpected arrays {extra}")
-            if _TICKS_ENTRY not in names:
-                raise RunLogError(f"chunk file {str(path)!r} has no {_TICKS_ENTRY}")
-            rows = json.loads(zf.read(_TICKS_ENTRY)).get("ticks")
-            if isinstance(rows, bool) or not isinstance(rows, int) or rows < 1:
-                raise RunLogError(f"chunk file {str(path)!r}: {_TICKS_ENTRY} must give ticks >= 1, got {rows!r}")
-            out = {}
-            for name, col in columns.items():
-                if name + _ENTRY_SUFFIX not in names:
-                    raise RunLogError(f"chunk file {str(path)!r} has no column {name!r}")
-                data = zf.read(name + _ENTRY_SUFFIX)
-                size = rows * col.row_values * col.dtype.itemsize
-                if len(data) != size:
-                    raise RunLogError(
-                        f"chunk file {str(path)!r}: column {name!r} holds {len(data)} bytes, expected {size}"
-                        f" ({rows} ticks of shape {col.shape} and dtype {col.dtype.name})")
-                out[name] = _decode(data, col, rows)
-    except RunLogError:
-        raise
-    except (OSError, ValueError, EOFError, KeyError, AttributeError, zipfile.BadZipFile, zlib.error) as e:
-        raise RunLogError(f"chunk file {str(path)!r} is corrupt or truncated: {type(e).__name__}: {e}") from e
-    return out
-
-
-def _read_npz_chunk(path: Path, columns: Mapping[str, _Column]) -> dict[str, np.ndarray]:
-    """A version-1 chunk: an uncompressed ``.npz`` archive."""
+        table = pq.read_table(path, use_threads=False, page_checksum_verification=True)
+    except (OSError, pa.ArrowException, ValueError, EOFError) as e:
+        raise RunLogError(f"{where} is corrupt or truncated: {type(e).__name__}: {e}") from e
     try:
-        with np.load(path, allow_pickle=False) as npz:
-            if not isinstance(npz, np.lib.npyio.NpzFile):
-                raise RunLogError(f"chunk file {str(path)!r} is not an .npz archive")
-            extra = sorted(set(npz.files) - set(columns))
-            if extra:
-                raise RunLogError(f"chunk file {str(path)!r} holds unexpected arrays {extra}")
-            out = {}
-            for name in columns:
-                if name not in npz.files:
-                    raise RunLogError(f"chunk file {str(path)!r} has no column {name!r}")
-                out[name] = npz[name]
-    except RunLogError:
-        raise
-    except (OSError, ValueError, EOFError, KeyError, zipfile.BadZipFile) as e:
-        raise RunLogError(f"chunk file {str(path)!r} is corrupt or truncated: {type(e).__name__}: {e}") from e
-    rows = {len(a) if a.ndim else -1 for a in out.values()}
-    for name, arr in out.items():
-        col = columns[name]
-        if arr.ndim == 0 or arr.shape[1:] != col.shape or arr.dtype != col.dtype:
-            raise RunLogError(
-                f"chunk file {str(path)!r}: column {name!r} has shape {arr.shape} and dtype {arr.dtype.name},"
-                f" expected (ticks, *{col.shape}) and {col.dtype.name}"
-            )
-    if len(rows) != 1:
-        raise RunLogError(f"chunk file {str(path)!r}: columns have different tick counts {sorted(rows)}")
+        info = json.loads((table.schema.metadata or {})[CHUNK_METADATA_KEY])
+        rows = info["ticks"]
+        stored = _columns_from_json(info["columns"], where)
+    except (KeyError, TypeError, ValueError) as e:
+        raise RunLogError(f"{where} has no valid {CHUNK_METADATA_KEY.decode()!r} metadata: {e}") from e
+    if isinstance(rows, bool) or not isinstance(rows, int) or rows < 1:
+        raise RunLogError(f"{where}: its metadata must give ticks >= 1, got {rows!r}")
+    if stored != dict(columns):
+        raise RunLogError(f"{where} holds columns {info['columns']}, meta.json records"
+                          f" { {name: col.to_json() for name, col in columns.items()} }")
+    expected = {n: (name, col) for name, col in columns.items() for n in col.parquet_names(name)}
+    extra = sorted(set(table.column_names) - set(expected))
+    if extra:
+        raise RunLogError(f"{where} holds unexpected columns {extra}")
+    if expected and table.num_rows != rows:
+        raise RunLogError(f"{where} has {table.num_rows} rows, its metadata records {rows} ticks")
+    out = {}
+    for name, col in columns.items():
+        flat = np.empty((col.row_values * (2 if col.dtype.kind == "c" else 1), rows), dtype=col.stored_dtype)
+        for j, pname in enumerate(col.parquet_names(name)):
+            if pname not in table.column_names:
+                raise RunLogError(f"{where} has no column {pname!r}")
+            values = table.column(pname)
+            if values.type != pa.from_numpy_dtype(col.stored_dtype) or values.null_count:
+                raise RunLogError(f"{where}: column {pname!r} is {values.type} with {values.null_count} nulls,"
+                                  f" expected {col.stored_dtype.name} without nulls")
+            flat[j] = values.to_numpy()
+        out[name] = np.ascontiguousarray(flat.T).view(col.dtype).reshape(rows, *col.shape)
     return out
 
 
@@ -833,8 +829,9 @@ def load_run(path: str | os.PathLike[str]) -> Run:
     Works on finished and unfinished runs: for a run whose status is still
     ``"running"`` (the process died) or ``"failed"``, every chunk file on disk
     is loaded.  Leftover ``*.tmp`` files (a chunk being written when the
-    process died) are ignored with a warning.  Reads every format version of
-    :data:`READ_FORMAT_VERSIONS` (the module docstring describes them).
+    process died) are ignored with a warning.  Reads format version
+    :data:`FORMAT_VERSION` (Parquet chunks, the module docstring describes
+    them); nothing is unpickled.
 
     Parameters
     ----------
@@ -853,8 +850,9 @@ def load_run(path: str | os.PathLike[str]) -> Run:
         If the folder or ``meta.json`` is missing or unreadable, a chunk file
         is missing from the sequence, corrupt, truncated or inconsistent with
         ``meta.json`` (the message names the file), its ``format_version``
-        is unknown, or, for a closed run, the tick/chunk counts on disk differ
-        from those recorded.
+        is another one (an older run: the message names the folder, its
+        version and the one read), or, for a closed run, the tick/chunk counts
+        on disk differ from those recorded.
     """
     root = Path(path)
     if not root.is_dir():
@@ -865,9 +863,11 @@ def load_run(path: str | os.PathLike[str]) -> Run:
     meta = _read_json(meta_path)
     version = meta.get("format_version")
     if version not in READ_FORMAT_VERSIONS:
-        raise RunLogError(f"{str(meta_path)!r}: format_version {version!r} is not one this version reads"
-                          f" ({list(READ_FORMAT_VERSIONS)})")
-    columns = _columns_from_meta(meta, str(meta_path), version)
+        what = f" ({_OLD_FORMATS[version]}, no longer read)" if version in _OLD_FORMATS else ""
+        raise RunLogError(f"{str(meta_path)!r}: the run folder {str(root)!r} has log format_version {version!r}"
+                          f"{what}; this version reads format_version {FORMAT_VERSION} (Parquet chunks) only:"
+                          f" run the scenario again to get a readable log")
+    columns = _columns_from_json(meta.get("columns"), str(meta_path))
     chunk_ticks = meta.get("chunk_ticks")
     if isinstance(chunk_ticks, bool) or not isinstance(chunk_ticks, int) or chunk_ticks < 1:
         raise RunLogError(f"{str(meta_path)!r}: chunk_ticks must be an int >= 1, got {chunk_ticks!r}")
@@ -876,7 +876,7 @@ def load_run(path: str | os.PathLike[str]) -> Run:
     indices = []
     if chunk_dir.is_dir():
         for entry in sorted(chunk_dir.iterdir()):
-            m = _CHUNK_RE[version].match(entry.name)
+            m = _CHUNK_RE.match(entry.name)
             if m:
                 indices.append(int(m.group(1)))
             elif entry.name.endswith(".tmp"):
@@ -884,12 +884,12 @@ def load_run(path: str | os.PathLike[str]) -> Run:
     indices.sort()
     for expected, found in enumerate(indices):
         if found != expected:
-            raise RunLogError(f"chunk file {str(chunk_dir / _chunk_name(expected, version))!r} is missing")
+            raise RunLogError(f"chunk file {str(chunk_dir / _chunk_name(expected))!r} is missing")
 
     parts: dict[str, list[np.ndarray]] = {name: [] for name in columns}
     for i in indices:
-        chunk_path = chunk_dir / _chunk_name(i, version)
-        chunk = _read_chunk(chunk_path, columns, version)
+        chunk_path = chunk_dir / _chunk_name(i)
+        chunk = _read_chunk(chunk_path, columns)
         n = len(next(iter(chunk.values())))
         if i < len(indices) - 1 and n != chunk_ticks:
             raise RunLogError(f"chunk file {str(chunk_path)!r} has {n} ticks; all but the last must have {chunk_ticks}")
