@@ -20,7 +20,7 @@ import pinocchio as pin
 import pytest
 
 from sim.analysis.derived import DERIVED_CUFF_COLUMNS, _joint_placements_loop, cuff_columns, joint_placements
-from sim.loop.runlog import Run, RunLogError, load_run
+from sim.loop.runlog import Run, RunLog, RunLogError, load_run
 from sim.loop.scenario import load_scenario
 from sim.loop.simulate import evaluate_run, run_scenario
 from sim.physics.plant import CoupledPlant
@@ -88,29 +88,27 @@ def test_recomputed_columns_equal_the_plants_values(wall_run, monkeypatch, block
         assert np.max(np.abs(derived[name] - expected)) <= 1e-12 * scale, name
 
 
-def _as_version_1(src: Path, dst: Path, plant: dict[str, np.ndarray]) -> None:
-    """A copy of the run folder as log format 1 wrote it: npz chunks holding the plant's two columns too."""
-    shutil.copytree(src, dst)
+def _storing_the_plants_columns(src: Path, dst: Path, plant: dict[str, np.ndarray]) -> None:
+    """A copy of the run folder whose log stores the plant's two columns too, as runs before log format 2 did."""
     run = load_run(src)
     arrays = run.arrays | plant
-    meta = dict(run.meta)
-    meta["format_version"] = 1
+    reserved = {"format_version", "status", "reason", "columns", "chunk_ticks", "ticks", "chunks"}
+    meta = {k: v for k, v in run.meta.items() if k not in reserved}
     meta["models"] = {k: v for k, v in meta["models"].items() if k != "cuff_human_offsets"}
-    meta["columns"] = {name: {"shape": list(a.shape[1:]), "dtype": a.dtype.name} for name, a in arrays.items()}
-    shutil.rmtree(dst / "log")
-    (dst / "log").mkdir()
-    n, chunk = run.ticks, meta["chunk_ticks"]
-    for i, start in enumerate(range(0, n, chunk)):
-        np.savez(dst / "log" / f"chunk_{i:06d}.npz", **{k: v[start:start + chunk] for k, v in arrays.items()})
-    meta["chunks"] = -(-n // chunk)
-    (dst / "meta.json").write_text(json.dumps(meta, indent=2), encoding="utf-8")
+    columns = {name: (a.shape[1:], a.dtype) for name, a in arrays.items()}
+    with RunLog(dst, columns, chunk_ticks=run.meta["chunk_ticks"], metadata=meta) as log:
+        for k in range(run.ticks):
+            log.append_row([a[k] for a in arrays.values()])
+    # the rest of the folder as it is: models, baseline run, metrics
+    shutil.copytree(src, dst, dirs_exist_ok=True,
+                    ignore=lambda d, names: [n for n in names if Path(d) == src and n in ("log", "meta.json")])
 
 
 def test_metrics_equal_those_of_a_folder_storing_the_plants_columns(wall_run, tmp_path):
     sc, folder, run, plant = wall_run
-    _as_version_1(folder, tmp_path / "old", plant)
+    _storing_the_plants_columns(folder, tmp_path / "old", plant)
     old = load_run(tmp_path / "old")
-    assert old.meta["format_version"] == 1
+    assert set(DERIVED_CUFF_COLUMNS) <= set(old.arrays) and "cuff_human_offsets" not in old.meta["models"]
     stored = cuff_columns(old)  # an older folder: its stored columns are used as they are
     assert all(stored[name] is old.arrays[name] for name in DERIVED_CUFF_COLUMNS)
     kwargs = {"wall": _wall(sc), "force_limits_N": sc.force_limits_N}

@@ -94,7 +94,8 @@ def test_run_folder_holds_log_meta_metrics_and_baseline(run_folder):
     assert (run_folder / "meta.json").is_file()
     assert (run_folder / "metrics.json").is_file()
     assert sorted(p.name for p in (run_folder / "log").iterdir()) == [
-        "chunk_000000.zip", "chunk_000001.zip", "chunk_000002.zip", "chunk_000003.zip"]  # 3100 ticks / 1000
+        "chunk_000000.parquet", "chunk_000001.parquet", "chunk_000002.parquet",
+        "chunk_000003.parquet"]  # 3100 ticks / 1000
     assert (run_folder / "human_alone" / "meta.json").is_file()
 
 
@@ -203,8 +204,8 @@ def test_same_seed_gives_the_same_log_bit_for_bit_and_another_seed_changes_the_s
         for name in ra.arrays:
             np.testing.assert_array_equal(ra[name], rb[name], err_msg=name)
     logs_a, logs_b = _all_logs(a), _all_logs(b)
-    assert sorted(logs_a) == ["human_alone/log/chunk_000000.zip", "human_alone/log/chunk_000001.zip",
-                              "log/chunk_000000.zip", "log/chunk_000001.zip"]
+    assert sorted(logs_a) == ["human_alone/log/chunk_000000.parquet", "human_alone/log/chunk_000001.parquet",
+                              "log/chunk_000000.parquet", "log/chunk_000001.parquet"]
     assert logs_a == logs_b
     ra, rc = sim.load_run(a), sim.load_run(c)
     assert ra.ticks == rc.ticks == 1050

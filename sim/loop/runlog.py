@@ -339,7 +339,7 @@ def _write_chunk_file(path: Path, arrays: Mapping[str, np.ndarray], columns: Map
     floats = [f.name for f in table.schema if pa.types.is_floating(f.type)]
     sink = pa.BufferOutputStream()
     try:
-        pq.write_table(table, sink, row_group_size=max(rows, 1), compression="zstd", compression_level=_ZSTD_LEVEL,
+        pq.write_table(table, sink, row_group_size=rows, compression="zstd", compression_level=_ZSTD_LEVEL,
                        use_dictionary=False, column_encoding=dict.fromkeys(floats, "BYTE_STREAM_SPLIT"),
                        write_page_checksum=True)
         _atomic_write_bytes(path, memoryview(sink.getvalue()))
@@ -802,8 +802,9 @@ def _read_chunk(path: Path, columns: Mapping[str, _Column]) -> dict[str, np.ndar
     if stored != dict(columns):
         raise RunLogError(f"{where} holds columns {info['columns']}, meta.json records"
                           f" { {name: col.to_json() for name, col in columns.items()} }")
-    expected = {n: (name, col) for name, col in columns.items() for n in col.parquet_names(name)}
-    extra = sorted(set(table.column_names) - set(expected))
+    present = set(table.column_names)
+    expected = {n for name, col in columns.items() for n in col.parquet_names(name)}
+    extra = sorted(present - expected)
     if extra:
         raise RunLogError(f"{where} holds unexpected columns {extra}")
     if expected and table.num_rows != rows:
@@ -812,7 +813,7 @@ def _read_chunk(path: Path, columns: Mapping[str, _Column]) -> dict[str, np.ndar
     for name, col in columns.items():
         flat = np.empty((col.row_values * (2 if col.dtype.kind == "c" else 1), rows), dtype=col.stored_dtype)
         for j, pname in enumerate(col.parquet_names(name)):
-            if pname not in table.column_names:
+            if pname not in present:
                 raise RunLogError(f"{where} has no column {pname!r}")
             values = table.column(pname)
             if values.type != pa.from_numpy_dtype(col.stored_dtype) or values.null_count:
