@@ -53,12 +53,12 @@ References
    Personnel: Methods and Summary Statistics* (ANSUR II), technical report
    NATICK/TR-15/007, 2014; percentiles computed here from its public
    working-data files (unweighted).
-.. [Inman1944] V. T. Inman, J. B. Saunders, L. C. Abbott, *Journal of Bone
-   and Joint Surgery* 26(1):1-30, 1944 (pages from memory); reprinted in
-   *Clinical Orthopaedics and Related Research* 330:3-12, 1996.
-.. [Ludewig2004] P. M. Ludewig, S. A. Behrens, S. M. Meyer, S. M. Spoden,
-   L. A. Wilson, *Journal of Orthopaedic & Sports Physical Therapy*
-   34(3):140-149, 2004 (volume and pages from memory).
+.. [Inman1944] Inman, Saunders and Abbott, *Journal of Bone and Joint
+   Surgery* 26(1):1-30, 1944 (pages from memory); reprinted in *Clinical
+   Orthopaedics and Related Research* 330:3-12, 1996.
+.. [Ludewig2004] Ludewig, Behrens, Meyer, Spoden and Wilson, *Journal of
+   Orthopaedic & Sports Physical Therapy* 34(3):140-149, 2004 (volume and
+   pages from memory).
 """
 
 from __future__ import annotations
