@@ -24,6 +24,13 @@ framework", Automatica 35(1), section 3.)
 
 K and D are diagonal in the cuff frame, whose z axis runs along the limb:
 straps slide, so the cuff is soft along z.
+
+References
+----------
+.. [Schiebl2025] J. Schiebl et al., *Sensors* 25(15):4605, 2025: measured
+   stiffness of an upper-arm exoskeleton interface (cuff and soft tissue),
+   median 2.1 N/mm along the arm, 4.5 N/mm across, 0.03 N m/deg about the
+   long axis.
 """
 
 from __future__ import annotations
@@ -49,12 +56,12 @@ def _triple(owner: str, field: str, value, strict: bool) -> tuple[float, float, 
 class CuffParams:
     """Per-axis stiffness and damping of a cuff, in the cuff frame (z along the limb).
 
-    Defaults (REFERENCES.md section 10): translational stiffness 4.5 N/mm
-    across and 2.1 N/mm along the upper arm, rotational stiffness about the
-    long axis 0.03 N m/deg = 1.7 N m/rad (median values of Schiebl et al.
-    2025, *Sensors* 25(15):4605).  Rotational stiffness about the transverse
-    axes is derived, not measured: a cuff of width w = 0.1 m resting on
-    springs of 4.5 N/mm spread evenly along it gives k w^2 / 12 = 3.75 N m/rad
+    Defaults: translational stiffness 4.5 N/mm across and 2.1 N/mm along the
+    upper arm, rotational stiffness about the long axis 0.03 N m/deg =
+    1.7 N m/rad (median values of Schiebl et al. 2025 [Schiebl2025]_).
+    Rotational stiffness about the transverse axes is derived, not measured:
+    a cuff of width w = 0.1 m resting on springs of 4.5 N/mm spread evenly
+    along it gives k w^2 / 12 = 3.75 N m/rad
     (beam on an elastic foundation; common practice).  Damping is set for a
     damping ratio of 0.3 with a 2.0 kg, 0.015 / 0.015 / 0.003 kg m^2 segment,
     c = 2 zeta sqrt(k m) (common practice: zeta in 0.1-0.5).

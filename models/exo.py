@@ -31,6 +31,13 @@ b -/+ 90 deg (b the elevation of axis 1), which its stops avoid.
 
 All defaults are design assumptions of this project (common practice for
 research rehabilitation exoskeletons, not a specific device); see each field.
+
+References
+----------
+.. [NorkinWhite2016] C. C. Norkin, D. J. White, *Measurement of Joint Motion:
+   A Guide to Goniometry*, 5th ed., F. A. Davis, 2016, Appendix A, Table A.1,
+   AAOS column (American Academy of Orthopaedic Surgeons, *Joint Motion:
+   Method of Measuring and Recording*, 1965).
 """
 
 from __future__ import annotations
@@ -121,10 +128,11 @@ class ExoParams:
       for pronation/supination, like the wrist (adult maximal pronation
       torque is under 10 N m, from memory).
     * ``velocity_limit_rad_s``: 3 rad/s shoulder, 4 rad/s elbow, 5 rad/s
-      forearm and wrist: above the speed of a healthy reach, below fast
-      voluntary motion (REFERENCES.md section 13).
+      forearm and wrist: above the speed of a healthy reach (peak hand speed
+      0.5-1.5 m/s), below fast voluntary motion (elbow flexion about
+      400-1000 deg/s); typical figures, from memory.
     * position limits: mechanical stops inside the normal human range of
-      motion (AAOS 1965; REFERENCES.md section 2a) so the robot cannot take a
+      motion (AAOS 1965, [NorkinWhite2016]_ Table A.1) so the robot cannot take a
       wearer beyond it, and away from the shoulder singularity
       (:meth:`limits_rad`).
     * ``armature_kg_m2``: rotor inertia reflected through the gear,
@@ -234,7 +242,7 @@ class ExoParams:
 
         Defaults, deg: shoulder a -55..170, shoulder c -85..65, elbow 0..145,
         forearm -75..75, wrist flexion -65..75, deviation -25..18 (inside the
-        AAOS ranges, REFERENCES.md 2a).  Shoulder b is singular at b -/+ 90 deg
+        AAOS ranges, [NorkinWhite2016]_ Table A.1).  Shoulder b is singular at b -/+ 90 deg
         (b = ``shoulder_axis_elevation_rad``: the upper arm lies along axis 1),
         so its default range keeps 20 deg away: [max(-60, b - 70), min(80, b + 70)] deg.
         """

@@ -6,7 +6,9 @@ fractions and the three radii of gyration of every segment, and the mean
 segment lengths of the same paper scaled by stature.  de Leva is used rather
 than Dempster/Winter because it is sex-specific and gives radii of gyration
 about three axes, which a 3-D arm with axial rotations needs; the two tables
-must not be mixed (REFERENCES.md section 1).
+must not be mixed: their endpoints and methods differ (upper-arm centre of
+mass at 0.577 of the length in [deLeva1996]_, 0.436 in Dempster's data as
+tabulated in [Winter2009]_, Table 4.1).
 
 Described for the right arm (``side="left"`` mirrors it across the sagittal
 plane).  Joint order (all revolute; link frames parallel to the thorax frame at q = 0,
@@ -24,8 +26,8 @@ arm hanging at the side, forearm in mid-position, palm facing the body):
  7  ``human_wrist_deviation``  radial deviation            -y          -30 .. 20
 ==  =========================  ==========================  ==========  ===========
 
-Limits are the AAOS (1965) column of Norkin & White, Table A.1 (REFERENCES.md
-section 2a), except adduction (-45 deg, across the body, from memory).  The
+Limits are the AAOS (1965) column of Norkin & White, Table A.1
+[NorkinWhite2016]_, except adduction (-45 deg, across the body, from memory).  The
 shoulder is a Cardan sequence (flexion, then abduction, then axial rotation)
 so that its limits are the clinical ones; like every 3-angle chart it has one
 singular posture, pure 90 deg abduction, where axes 1 and 3 line up.
@@ -34,6 +36,29 @@ With ``girdle=True`` two joints come first, ``human_sc_elevation`` and
 ``human_sc_protraction``, at the sternoclavicular joint; the glenohumeral
 centre then sits at the lateral end of the clavicle and moves with it.
 :class:`ShoulderRhythm` gives their angles from the humeral elevation.
+
+References
+----------
+.. [deLeva1996] P. de Leva, "Adjustments to Zatsiorsky-Seluyanov's segment
+   inertia parameters", *Journal of Biomechanics* 29(9):1223-1230, 1996,
+   Table 4 (values confirmed in a public transcription of the table; the mean
+   segment lengths and statures from memory).
+.. [Winter2009] D. A. Winter, *Biomechanics and Motor Control of Human
+   Movement*, 4th ed., Wiley, 2009, Table 4.1 (Dempster's data).
+.. [NorkinWhite2016] C. C. Norkin, D. J. White, *Measurement of Joint Motion:
+   A Guide to Goniometry*, 5th ed., F. A. Davis, 2016, Appendix A, Table A.1,
+   AAOS column (American Academy of Orthopaedic Surgeons, *Joint Motion:
+   Method of Measuring and Recording*, 1965).
+.. [Gordon2014] C. C. Gordon et al., *2012 Anthropometric Survey of U.S. Army
+   Personnel: Methods and Summary Statistics* (ANSUR II), technical report
+   NATICK/TR-15/007, 2014; percentiles computed here from its public
+   working-data files (unweighted).
+.. [Inman1944] Inman, Saunders and Abbott, *Journal of Bone and Joint
+   Surgery* 26(1):1-30, 1944 (pages from memory); reprinted in *Clinical
+   Orthopaedics and Related Research* 330:3-12, 1996.
+.. [Ludewig2004] Ludewig, Behrens, Meyer, Spoden and Wilson, *Journal of
+   Orthopaedic & Sports Physical Therapy* 34(3):140-149, 2004 (volume and
+   pages from memory).
 """
 
 from __future__ import annotations
@@ -93,7 +118,7 @@ class SegmentRow:
 
 #: de Leva (1996), Table 4, upper-limb rows, and the mean segment lengths and
 #: stature of the same paper [m].  Table values confirmed in a public
-#: transcription (REFERENCES.md section 1b); mean lengths from memory there.
+#: transcription ([deLeva1996]_, Table 4); mean lengths from memory.
 #: The axis meaning of the "sagittal" and "transverse" radii is taken as the
 #: antero-posterior and medio-lateral axis (from memory).
 DE_LEVA_1996: Mapping[str, Mapping[str, object]] = {
@@ -149,8 +174,8 @@ class Subject:
 
 
 #: 5th, 50th and 95th percentile adults: ANSUR II (Gordon et al. 2014) working
-#: data, unweighted percentiles of stature and of body mass (REFERENCES.md
-#: section 1c).  Pairing a stature percentile with the same mass percentile is
+#: data, unweighted percentiles of stature and of body mass ([Gordon2014]_).
+#: Pairing a stature percentile with the same mass percentile is
 #: common practice, not a joint percentile.
 SUBJECTS: Mapping[str, Subject] = {
     "f5": Subject(1.525, 51.3, "female"),
@@ -173,10 +198,10 @@ class ShoulderRhythm:
         \\theta_{ST} = \\max(0, \\theta_{HT} - \\theta_0) / (1 + r), \\qquad
         \\theta_{GH} = \\theta_{HT} - \\theta_{ST}
 
-    (Inman, Saunders & Abbott 1944: r = 2 after about 30 deg; REFERENCES.md
-    section 3).  The clavicle follows linearly: elevation
+    (Inman, Saunders & Abbott 1944 [Inman1944]_: r = 2 after about 30 deg).
+    The clavicle follows linearly: elevation
     ``clavicle_elevation_per_rad`` x :math:`\\theta_{HT}` (about 12 deg over
-    120 deg of arm elevation, a crude fit to Ludewig et al. 2004) and
+    120 deg of arm elevation, a crude fit to Ludewig et al. 2004 [Ludewig2004]_) and
     retraction ``clavicle_retraction_per_rad`` x :math:`\\theta_{HT}` (about
     20 deg over 120 deg, same source, midpoint of 15-29 deg).
     """
@@ -228,7 +253,7 @@ _ROM_DEG = ((-60, 180), (-45, 180), (-90, 70), (0, 150), (-80, 80), (-70, 80), (
 _GIRDLE_ROM_DEG = ((-10, 45), (-30, 30))
 #: Peak voluntary joint torques of an adult [N m], from memory (order of magnitude only).
 _HUMAN_TORQUE_NM = (60.0, 60.0, 30.0, 50.0, 8.0, 10.0, 10.0)
-#: Joint speed bounds [rad/s], from memory: fast voluntary motion (REFERENCES.md section 13).
+#: Joint speed bounds [rad/s], from memory: fast voluntary elbow flexion peaks at about 400-1000 deg/s.
 _HUMAN_SPEED_RAD_S = (20.0, 20.0, 20.0, 17.0, 20.0, 20.0, 20.0)
 
 #: Links that only join two intersecting joint axes (and the girdle links, whose

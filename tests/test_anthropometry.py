@@ -1,16 +1,25 @@
 """The human arm and the exoskeleton against published anthropometric tables.
 
-Every reference number is typed in here from the source named beside it (see
-REFERENCES.md); nothing is imported from the project's own tables.
+Every reference number is typed in here from the source named beside it (a
+short key, full references below); nothing is imported from the project's own
+tables.
 
-* de Leva P. (1996), Adjustments to Zatsiorsky-Seluyanov's segment inertia
-  parameters, J. Biomech. 29(9):1223-1230, Table 4 (REFERENCES.md 1b).
-* Gordon C.C. et al. (2014), 2012 Anthropometric Survey of U.S. Army
-  Personnel (ANSUR II), NATICK/TR-15/007 (REFERENCES.md 1c).
-* Norkin & White, Measurement of Joint Motion, Table A.1, AAOS (1965) column
-  (REFERENCES.md 2a).
-* Inman, Saunders & Abbott (1944) for the 2:1 rhythm; Ludewig et al. (2004)
-  for the clavicle elevation (REFERENCES.md 3).
+* de Leva 1996, Table 4: de Leva P. (1996), Adjustments to Zatsiorsky-Seluyanov's
+  segment inertia parameters, J. Biomech. 29(9):1223-1230, Table 4 (values
+  confirmed in a public transcription; the mean lengths from memory).
+* Gordon 2014: Gordon C.C. et al. (2014), 2012 Anthropometric Survey of U.S.
+  Army Personnel: Methods and Summary Statistics (ANSUR II), NATICK/TR-15/007;
+  percentiles computed from its public working-data files, unweighted.
+* Norkin & White, Table A.1: Norkin C.C., White D.J., Measurement of Joint
+  Motion: A Guide to Goniometry, 5th ed., F.A. Davis (2016), Appendix A,
+  Table A.1, AAOS (1965) column (American Academy of Orthopaedic Surgeons,
+  Joint Motion: Method of Measuring and Recording, 1965).
+* Morrey 1981: Morrey B.F., Askew L.J., An K.N., Chao E.Y. (1981), J. Bone
+  Joint Surg. Am. 63(6):872-877.
+* Inman 1944: Inman, Saunders & Abbott (1944), J. Bone Joint Surg.
+  26(1):1-30 (pages from memory), for the 2:1 rhythm; Ludewig 2004: Ludewig,
+  Behrens, Meyer, Spoden & Wilson (2004), J. Orthop. Sports Phys. Ther.
+  34(3):140-149 (volume and pages from memory), for the clavicle elevation.
 """
 
 from __future__ import annotations
@@ -36,7 +45,7 @@ REL = 1e-12
 
 # de Leva (1996) Table 4, female / male: mass/M, COM/L from the proximal joint
 # centre, radii of gyration about the COM / L (sagittal, transverse,
-# longitudinal).  Confirmed in a public transcription (REFERENCES.md 1b).
+# longitudinal).  Confirmed in a public transcription (de Leva 1996, Table 4).
 DE_LEVA_TABLE_4 = {
     "female": {
         "upper_arm": (0.0255, 0.5754, 0.278, 0.260, 0.148),
@@ -49,22 +58,22 @@ DE_LEVA_TABLE_4 = {
         "hand": (0.0061, 0.7900, 0.628, 0.513, 0.401),
     },
 }
-# de Leva (1996) mean stature and segment lengths [mm] -- from memory
-# (REFERENCES.md 1b marks them [M]); lengths scale with stature.
+# de Leva (1996) mean stature and segment lengths [mm] -- from memory,
+# unconfirmed; lengths scale with stature.
 DE_LEVA_MEAN_MM = {
     "female": {"stature": 1735.0, "upper_arm": 275.1, "forearm": 264.3, "hand": 78.0},
     "male": {"stature": 1741.0, "upper_arm": 281.7, "forearm": 268.9, "hand": 86.2},
 }
-# ANSUR II (Gordon et al. 2014), unweighted percentiles (REFERENCES.md 1c):
+# ANSUR II (Gordon 2014), unweighted percentiles of the working data:
 # stature [mm] and body mass [kg] at P5 / P50 / P95.
 ANSUR_II = {
     "female": {"stature_mm": (1525, 1626, 1740), "mass_kg": (51.3, 66.8, 87.1)},
     "male": {"stature_mm": (1648, 1755, 1870), "mass_kg": (64.4, 84.6, 110.7)},
 }
-# AAOS (1965) normal active ROM [deg], Norkin & White Table A.1 (REFERENCES.md
-# 2a), written as (most negative, most positive) in the model's sign convention
-# (documented in models/human.py): flexion +, abduction +, internal rotation +,
-# elbow flexion +, pronation +, wrist flexion +, radial deviation +.
+# AAOS (1965) normal active ROM [deg], Norkin & White, Table A.1, written as
+# (most negative, most positive) in the model's sign convention (documented in
+# models/human.py): flexion +, abduction +, internal rotation +, elbow flexion +,
+# pronation +, wrist flexion +, radial deviation +.
 AAOS_DEG = {
     "human_gh_flexion": (-60, 180),  # extension 60, flexion 180
     # adduction is not in the AAOS column; 45-75 deg across the body, from memory
@@ -212,7 +221,7 @@ def test_default_exo_stops_lie_inside_the_human_and_aaos_ranges_for_joints_4_to_
 
 
 def test_default_exo_stops_cover_the_functional_elbow_and_forearm_range_of_daily_living():
-    # Morrey, Askew, An & Chao (1981), J. Bone Joint Surg. Am. 63(6):872-877 (REFERENCES.md 2b):
+    # Morrey, Askew, An & Chao (1981), J. Bone Joint Surg. Am. 63(6):872-877 (Morrey 1981):
     # most activities of daily living need elbow flexion 30-130 deg and forearm
     # rotation from 50 deg pronation to 50 deg supination.
     lower, upper = ExoParams().limits_rad()

@@ -1,7 +1,9 @@
 """Registration and strapping of the exoskeleton to the human arm.
 
-Known answers: the segment lengths of de Leva (1996) (REFERENCES.md section
-1b, typed in here) and rigid-body kinematics.
+Known answers: the mean segment lengths of de Leva (1996), typed in here
+(de Leva P. (1996), Adjustments to Zatsiorsky-Seluyanov's segment inertia
+parameters, J. Biomech. 29(9):1223-1230; the mean lengths from memory), and
+rigid-body kinematics.
 """
 
 from __future__ import annotations
@@ -20,7 +22,7 @@ from models import (
     load_exo,
 )
 
-# de Leva (1996) mean lengths [m] and stature [m] (REFERENCES.md 1b, from memory there).
+# de Leva (1996) mean lengths [m] and stature [m] (de Leva 1996, from memory).
 DE_LEVA_MALE = {"stature": 1.741, "upper_arm": 0.2817, "forearm": 0.2689}
 
 

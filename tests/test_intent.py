@@ -1,9 +1,12 @@
 """The minimum-jerk intent checked against the closed forms of Flash & Hogan (1985).
 
-Reference values are those of REFERENCES.md section 5: for an amplitude D in
+Reference values are those of the minimum-jerk closed form
+x = x0 + D (10 tau^3 - 15 tau^4 + 6 tau^5), tau = t/T: for an amplitude D in
 a time T, peak velocity 1.875 D/T at tau = 1/2, peak acceleration
 (10/sqrt 3) D/T^2 at tau = 1/2 -+ sqrt(3)/6, jerk 60 D/T^3 at tau = 0
-(Flash T., Hogan N. (1985), J. Neurosci. 5(7):1688-1703).
+(Flash T., Hogan N. (1985), The coordination of arm movements: an
+experimentally confirmed mathematical model, J. Neurosci. 5(7):1688-1703,
+pages from memory; the peaks re-derived with sympy).
 """
 
 from __future__ import annotations
@@ -16,7 +19,7 @@ import pytest
 from models.errors import ParameterError
 from sim.physics.intent import JointIntent, Via, minimum_jerk
 
-D = 0.3  # amplitude [rad]; REFERENCES.md section 5 example
+D = 0.3  # amplitude [rad]; the worked example D = 0.3, T = 0.6 of the closed form (Flash & Hogan 1985)
 T = 0.6  # duration [s]
 
 
@@ -25,7 +28,7 @@ def _trapezoid(y: np.ndarray, x: np.ndarray) -> float:
 
 
 def test_peak_speed_is_1p875_times_mean_speed_at_mid_movement():
-    # Flash & Hogan 1985; REFERENCES.md section 5: v_peak = 1.875 D/T at tau = 1/2.
+    # Flash & Hogan 1985: v_peak = 1.875 D/T at tau = 1/2.
     _, v, _ = minimum_jerk([0.0], [D], T, T / 2)
     mean_speed = D / T
     assert v[0] / mean_speed == pytest.approx(1.875, abs=1e-9)
@@ -35,7 +38,7 @@ def test_peak_speed_is_1p875_times_mean_speed_at_mid_movement():
 
 
 def test_peak_acceleration_is_10_over_sqrt3_D_over_T_squared():
-    # Flash & Hogan 1985; REFERENCES.md section 5: a_peak = (10/sqrt 3) D/T^2 at tau = 1/2 - sqrt(3)/6.
+    # Flash & Hogan 1985: a_peak = (10/sqrt 3) D/T^2 at tau = 1/2 - sqrt(3)/6.
     tau_star = 0.5 - math.sqrt(3.0) / 6.0
     _, _, a = minimum_jerk([0.0], [D], T, tau_star * T)
     assert a[0] == pytest.approx(10.0 / math.sqrt(3.0) * D / T**2, abs=1e-9)
@@ -47,7 +50,8 @@ def test_peak_acceleration_is_10_over_sqrt3_D_over_T_squared():
 
 
 def test_reference_example_D0p3_T0p6_gives_published_peaks():
-    # REFERENCES.md section 5 example: v_peak = 0.9375, a_peak = 4.811 (given to 4 significant digits).
+    # Worked example of the closed form (Flash & Hogan 1985), D = 0.3, T = 0.6: v_peak = 0.9375,
+    # a_peak = 4.811 (given to 4 significant digits).
     _, v, _ = minimum_jerk([0.0], [D], T, T / 2)
     _, _, a = minimum_jerk([0.0], [D], T, (0.5 - math.sqrt(3.0) / 6.0) * T)
     assert v[0] == pytest.approx(0.9375, abs=1e-12)
@@ -64,7 +68,7 @@ def test_velocity_and_acceleration_vanish_at_and_beyond_both_ends(t_s):
 
 
 def test_jerk_at_start_is_60_D_over_T_cubed_by_finite_difference():
-    # REFERENCES.md section 5: jerk(0) = 60 D/T^3.  Forward difference of the acceleration;
+    # Flash & Hogan 1985: jerk(0) = 60 D/T^3.  Forward difference of the acceleration;
     # truncation error is jerk'(0) h / 2 = -180 (h/T) D/T^3, i.e. 3e-7 relative for h = 1e-7 T.
     h = 1e-7 * T
     _, _, a0 = minimum_jerk([0.0], [D], T, 0.0)

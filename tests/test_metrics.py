@@ -1,6 +1,14 @@
 """Metrics on synthetic signals with known answers, and on runs against physical laws.
 
-Sources of the known answers are named beside each check.
+Sources of the known answers are named beside each check, by a short key for these:
+
+* Colgate & Schenkel 1997: Colgate J.E., Schenkel G.G. (1997), Passivity of a class of sampled-data systems:
+  application to haptic interfaces, J. Robotic Systems 14(1):37-47 (the printed form of the condition from
+  memory; the spring and delay terms re-derived for piecewise-constant velocity).
+* Diolaiti et al. 2006: Diolaiti N., Niemeyer G., Barbagli F., Salisbury J.K. (2006), IEEE Trans. Robotics
+  22(2):256-268 (delay and passivity; their exact form from memory).
+* Flash & Hogan 1985: Flash T., Hogan N. (1985), The coordination of arm movements: an experimentally confirmed
+  mathematical model, J. Neurosci. 5(7):1688-1703 (pages from memory).
 """
 
 from __future__ import annotations
@@ -70,7 +78,7 @@ def _push_release(T_push=0.6, depth=0.02, hold=0.3, rest=0.2):
 def test_passive_spring_damper_cycle_returns_no_net_energy():
     # F = K p + B dp/dt (p > 0), held over each tick: over a rest-to-rest cycle the spring's energy comes back and
     # the damper dissipates; sampling makes the held spring give back K T / 2 * int v^2 dt more (Colgate & Schenkel
-    # 1997, the d = 0 case of REFERENCES.md section 4), so E_returned = -(B - K T / 2) int v^2 dt <= 0 for B > K T/2
+    # 1997, the case d = 0 of b > K T (2d + 1) / 2), so E_returned = -(B - K T / 2) int v^2 dt <= 0 for B > K T/2
     K, B = 800.0, 6.0
     p, v = _push_release()
     F = np.where(p > 0, K * p + B * v, 0.0)
@@ -87,8 +95,9 @@ def test_passive_spring_damper_cycle_returns_no_net_energy():
 
 @pytest.mark.parametrize("delay", [0, 1, 2])
 def test_delayed_spring_with_piecewise_constant_velocity_is_active_below_the_passivity_bound(delay):
-    # Colgate & Schenkel (1997) with a d-sample delay: passive iff b > K T (2d + 1) / 2 (REFERENCES.md section 4,
-    # re-derived there). Drive with piecewise-constant velocity (the worst case, not a sinusoid), at low frequency.
+    # Colgate & Schenkel (1997) with a d-sample delay: passive iff b > K T (2d + 1) / 2 (re-derived from their
+    # condition; agrees with Diolaiti et al. 2006). Drive with piecewise-constant velocity (the worst case, not a
+    # sinusoid), at low frequency.
     K, T = 2000.0, DT
     bound = K * T * (2 * delay + 1) / 2
     n = 4000

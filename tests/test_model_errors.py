@@ -12,8 +12,10 @@ What counts as invalid comes from outside the project:
   mass (Featherstone, *Rigid Body Dynamics Algorithms*, 2008, ch. 6; from
   memory);
 * the built-in subject names are the ANSUR II percentiles f/m x 5/50/95
-  (REFERENCES.md 1c), and the validated ranges are those documented in the
-  parameter classes (design choices, common practice).
+  (Gordon 2014: Gordon C.C. et al. (2014), 2012 Anthropometric Survey of U.S.
+  Army Personnel: Methods and Summary Statistics, NATICK/TR-15/007), and the
+  validated ranges are those documented in the parameter classes (design
+  choices, common practice).
 
 Every message must name the culprit (field or element) and the value.
 """
@@ -105,7 +107,7 @@ def test_bad_sex_names_the_allowed_values_and_the_value():
 def test_unknown_subject_lists_every_builtin_name():
     with pytest.raises(UnknownNameError, match=r"unknown subject 'm99'") as info:
         HumanParams("m99")
-    # the ANSUR II percentiles (REFERENCES.md 1c): 5th, 50th and 95th, female and male
+    # the ANSUR II percentiles (Gordon 2014): 5th, 50th and 95th, female and male
     for name in ("f5", "f50", "f95", "m5", "m50", "m95"):
         assert re.search(rf"\b{name}\b", str(info.value)), name
 

@@ -3,19 +3,29 @@
 from __future__ import annotations
 
 import re
+import shutil
 from pathlib import Path
 
 import numpy as np
+import pytest
 
 import models
 from controllers import ControllerContext
 from models.records import Measurement
 
-README = Path(__file__).resolve().parents[1] / "README.md"
+ROOT = Path(__file__).resolve().parents[1]
+README = ROOT / "README.md"
+#: Put on the line before a ```python block of the README that must run as printed (from a folder holding a copy of
+#: scenarios/); the other blocks are only compiled.
+RUN_MARK = "<!-- readme-test: run -->"
 
 
 def _python_blocks() -> list[str]:
     return re.findall(r"```python\n(.*?)```", README.read_text(encoding="utf-8"), flags=re.S)
+
+
+def _marked_blocks() -> list[str]:
+    return re.findall(re.escape(RUN_MARK) + r"\n```python\n(.*?)```", README.read_text(encoding="utf-8"), flags=re.S)
 
 
 def test_readme_task_example_keeps_the_hand_under_its_ceiling():
@@ -49,3 +59,21 @@ def test_readme_task_example_keeps_the_hand_under_its_ceiling():
 def test_readme_python_blocks_all_compile():
     for b in _python_blocks():
         compile(b, "README.md", "exec")
+
+
+def test_readme_marked_blocks_run_as_printed(tmp_path, monkeypatch):
+    blocks = _marked_blocks()
+    assert blocks, f"the README marks no python block with {RUN_MARK}"
+    import sim
+
+    if not hasattr(sim, "Simulation"):
+        pytest.skip("the README's Simulation example needs sim.Simulation, which this tree does not have yet")
+    shutil.copytree(ROOT / "scenarios", tmp_path / "scenarios")
+    monkeypatch.chdir(tmp_path)
+    for b in blocks:
+        ns: dict = {}
+        exec(compile(b, "README.md", "exec"), ns)  # the block's own asserts: same seed, same tick
+    # the Simulation example: the saved trajectory reads back as a run folder with the same arrays
+    traj, run = ns["traj"], ns["run"]
+    assert traj.arrays["q_exo"].shape[0] == len(traj.t_s) > 0
+    np.testing.assert_array_equal(run.arrays["q_exo"], traj.arrays["q_exo"])

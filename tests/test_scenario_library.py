@@ -2,10 +2,18 @@
 scenario does what its docstring says.
 
 Outside references, named beside each check: the minimum-jerk closed form of Flash & Hogan (1985); the
-AAOS (1965) normal ranges of motion the human model's limits come from (REFERENCES.md 2a); Hooke's law for
-springs in series; the rendered-stiffness band the README documents for the virtual walls; human movement
-figures of REFERENCES.md section 13 (from memory there).  Bounds with no single source are marked
-"common practice".
+AAOS (1965) normal ranges of motion the human model's limits come from (Norkin & White, Table A.1); Hooke's law
+for springs in series; the rendered-stiffness band the README documents for the virtual walls; typical human
+movement figures (fast voluntary elbow flexion about 400-1000 deg/s; from memory, no single source); the
+relaxed hand's stiffness (Mussa-Ivaldi 1985, from memory).  Bounds with no single source are marked
+"common practice".  Full references:
+
+* Flash T., Hogan N. (1985), The coordination of arm movements: an experimentally confirmed mathematical model,
+  J. Neurosci. 5(7):1688-1703 (pages from memory).
+* Norkin C.C., White D.J., Measurement of Joint Motion: A Guide to Goniometry, 5th ed., F.A. Davis (2016),
+  Appendix A, Table A.1, AAOS (1965) column.
+* Mussa-Ivaldi F.A., Hogan N., Bizzi E. (1985), J. Neurosci. 5(10):2732-2743: postural hand stiffness of a
+  relaxed arm, major axis about 300-800 N/m (from memory, unconfirmed).
 """
 
 from __future__ import annotations
@@ -156,7 +164,7 @@ def test_throw_reaches_high_joint_speeds(tmp_path):
     assert np.max(np.abs(base["dq_human"][:, elbow])) == pytest.approx(1.875 * d / sweep.move_s, rel=0.05)
     # with the robot on, the wearer still moves faster than 3 rad/s at the shoulder or the elbow: the robot's
     # own default shoulder velocity limit (ExoParams, common practice), and under the 400-1000 deg/s
-    # (7-17 rad/s) of fast voluntary elbow flexion of the unloaded arm (REFERENCES.md 13, from memory)
+    # (7-17 rad/s) of fast voluntary elbow flexion of the unloaded arm (typical figure, from memory)
     peak = np.max(np.abs(run["dq_human"][:, [0, elbow]]))
     assert peak > 3.0
 
@@ -172,7 +180,7 @@ def test_wall_slide_rides_on_the_board_under_walls(tmp_path):
     assert metrics["joint_limit_violation_count"] == 0
     # Hooke's law for springs in series: a hand of stiffness k_h pressing towards a point d behind a wall of
     # stiffness K comes to rest at p = d k_h / (k_h + K).  k_h <= 800 N/m, the upper end of the relaxed hand's
-    # stiffness (Mussa-Ivaldi, Hogan & Bizzi 1985; REFERENCES.md 10, from memory); d from the baseline (no
+    # stiffness (Mussa-Ivaldi, Hogan & Bizzi 1985, from memory); d from the baseline (no
     # robot, no wall), which shows the intended depth itself
     k_hand = 800.0
     intended = plane_penetration_m(base["p_hand_human"], spec["point_m"], spec["normal"])

@@ -9,8 +9,9 @@
   before comparing.
 * Textbook closed form: a planar two-link arm written with the project's URDF
   writer reproduces the "planar elbow manipulator" of Spong, Hutchinson &
-  Vidyasagar (2006), *Robot Modeling and Control*, Wiley, Ch. 7
-  (REFERENCES.md section 6).
+  Vidyasagar (2006), *Robot Modeling and Control*, Wiley, Ch. 7 (dynamics),
+  planar elbow manipulator example (equation numbers from memory; every
+  expression re-derived with sympy).
 * Round trip: the writer prints floats with ``repr``, so the inertial
   parameters that pinocchio (an independent URDF parser) reads back are
   bit-identical to the records that went in.
@@ -167,7 +168,7 @@ def test_mass_matrix_bias_and_gravity_agree_with_mujoco_at_random_states(arm_and
 def _planar_arm(m1, m2, l1, lc1, lc2, I1, I2) -> ArmModel:
     """Two links in the world x-z plane, written with the project's URDF writer.
 
-    Mapping to Spong's planar elbow manipulator (REFERENCES.md section 6):
+    Mapping to Spong's planar elbow manipulator (Spong et al. 2006, Ch. 7):
     Spong's x is world x (link direction at q = 0, horizontal), Spong's y is
     world z (up, so gravity -9.81 along world z acts along Spong's -y), and
     Spong's z = x cross y is world x cross z = -y.  Both joints therefore turn
@@ -196,7 +197,7 @@ def _planar_arm(m1, m2, l1, lc1, lc2, I1, I2) -> ArmModel:
 
 
 def _spong(q, qd, m1, m2, l1, lc1, lc2, I1, I2, g=G):
-    """M(q), C(q, qdot) qdot and g(q) of Spong et al. (2006), Ch. 7 (REFERENCES.md section 6)."""
+    """M(q), C(q, qdot) qdot and g(q) of Spong et al. (2006), Ch. 7, planar elbow manipulator example."""
     c2 = math.cos(q[1])
     M11 = m1 * lc1**2 + m2 * (l1**2 + lc2**2 + 2 * l1 * lc2 * c2) + I1 + I2
     M12 = m2 * (lc2**2 + l1 * lc2 * c2) + I2
@@ -245,7 +246,7 @@ def test_planar_two_link_arm_matches_spong_closed_form_at_random_states():
 
 
 def test_planar_two_link_arm_has_skew_symmetric_mdot_minus_two_c():
-    """Mdot - 2C is skew-symmetric (Spong et al. 2006, Ch. 7; REFERENCES.md section 6).
+    """Mdot - 2C is skew-symmetric (Spong et al. 2006, Ch. 7).
 
     C is pinocchio's Coriolis matrix and Mdot is taken from the closed-form M
     by central differences along qdot.

@@ -7,6 +7,16 @@ those that read ``cuff_wrench_exo`` or ``cuff_force_human_world``, which a
 run log does not store, take them with the logged ones:
 ``run.arrays | sim.analysis.derived.cuff_columns(run)``.  The keys of
 :func:`run_metrics` are a contract: they keep their names and meaning.
+
+References
+----------
+.. [ColgateSchenkel1997] J. E. Colgate, G. G. Schenkel, "Passivity of a class
+   of sampled-data systems: application to haptic interfaces", *Journal of
+   Robotic Systems* 14(1):37-47, 1997.
+.. [ISO15066] ISO/TS 15066:2016 (first edition, 2016-02-15), International
+   Organization for Standardization, Annex A, quasi-static force limits per
+   body region (hand and fingers 140 N confirmed; upper arm and elbow 150 N,
+   lower arm and wrist 160 N from memory).
 """
 
 from __future__ import annotations
@@ -208,7 +218,7 @@ def wall_cycle_energy_returned_J(force_N: np.ndarray, penetration_m: np.ndarray,
     caller's cycle, see :func:`rest_to_rest`).  Pairing the force held at tick
     k with the displacement over the following interval is the exact work of a
     zero-order-hold force under piecewise-constant velocity, the worst case of
-    Colgate & Schenkel (1997) (REFERENCES.md section 4).  Positive: the wall
+    Colgate & Schenkel (1997) [ColgateSchenkel1997]_.  Positive: the wall
     returned net energy, i.e. it was active (a passivity violation); a passive
     spring-damper returns :math:`-\\int B \\dot p^2 dt \\le 0`.
     """
@@ -491,7 +501,7 @@ def _derived_column(arrays: Mapping[str, np.ndarray], name: str) -> np.ndarray:
 
 
 # -- safety -------------------------------------------------------------------------------------
-#: Quasi-static force limits [N] per body region, ISO/TS 15066:2016 Annex A (REFERENCES.md section 9):
+#: Quasi-static force limits [N] per body region, ISO/TS 15066:2016 Annex A ([ISO15066]_):
 #: hand and fingers 140 N (confirmed); upper arm and elbow 150 N, lower arm and wrist 160 N (from memory,
 #: unconfirmed).  Keyed by the default cuff names; a scenario may override or add (``force_limits_N``).
 BODY_REGION_FORCE_LIMITS_N: dict[str, float] = {"upper_arm": 150.0, "forearm": 160.0, "hand": 140.0}

@@ -2,9 +2,15 @@
 
 The interface (:class:`Actuators`) takes the held torque command and returns
 the torque applied to the joints, substep by substep, given the joint state;
-a series-elastic actuator (Pratt & Williamson 1995; REFERENCES.md section 11)
+a series-elastic actuator (Pratt & Williamson 1995 [PrattWilliamson1995]_)
 fits the same interface by keeping its motor state inside and returning
 :math:`\\tau_s = k_s(\\theta_m - q)`.
+
+References
+----------
+.. [PrattWilliamson1995] G. A. Pratt, M. M. Williamson, "Series elastic
+   actuators", *Proc. IEEE/RSJ International Conference on Intelligent Robots
+   and Systems (IROS)*, vol. 1, pp. 399-406, 1995 (pages from memory).
 """
 
 from __future__ import annotations

@@ -12,8 +12,15 @@ the intent,
 saturated at the arm's peak joint torques (the sum and the saturation are one
 compiled call, :func:`_impedance_torque`).  It does not anticipate the robot.
 Impedance magnitudes: shoulder and elbow from the standard two-link arm model
-of Shadmehr & Mussa-Ivaldi (1994), diagonal terms (REFERENCES.md section 10,
-from memory); forearm, wrist and girdle values are common practice.
+of Shadmehr & Mussa-Ivaldi (1994), diagonal terms of K = [[15, 6], [6, 16]]
+N m/rad and B = [[2.3, 0.9], [0.9, 2.4]] N m s/rad [ShadmehrMussaIvaldi1994]_
+(from memory); forearm, wrist and girdle values are common practice.
+
+References
+----------
+.. [ShadmehrMussaIvaldi1994] R. Shadmehr, F. A. Mussa-Ivaldi, *Journal of
+   Neuroscience* 14(5):3208-3224, 1994 (joint stiffness and viscosity of the
+   two-link arm model; from memory, unconfirmed).
 """
 
 from __future__ import annotations
