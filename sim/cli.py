@@ -140,6 +140,18 @@ def build_parser() -> argparse.ArgumentParser:
                    help="go on with the interrupted sweep in --out DIR, given the same scenarios and options: "
                    "its finished runs are kept, the others run")
     w.set_defaults(func=_cmd_sweep)
+
+    g = sub.add_parser("catalog", help="list the scenarios of a folder, the controller variants, the tasks, the "
+                       "subjects and the frame names of the models",
+                       description="List what a scenario file and the other commands can name: the scenarios of "
+                       "a folder (a file that fails to load shows as one line with its error), the controller "
+                       "variants with their levels of tasks, the registered tasks with their parameters, the "
+                       "built-in subjects, and the frame, cuff site and link names of the exoskeleton and of the "
+                       "median man's (m50) arm.")
+    g.add_argument("--scenarios", metavar="DIR", help="folder of scenario files (default: the scenarios shipped "
+                   "with exosandbox, installed beside the package)")
+    g.add_argument("--json", action="store_true", help="print the same as one JSON object, for scripts")
+    g.set_defaults(func=_cmd_catalog)
     return p
 
 
@@ -394,6 +406,54 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     table = text_table(["metric", "unit", *labels], [[r["key"], r["unit"]] + [
         fmt(r[lab]) + (" *" if r["best"] == lab else "") for lab in labels] for r in rows])
     return f"{table}\n(* the better value)\nreport {md}, table {out / 'compare.csv'}, plots in {out / 'plots'}"
+
+
+def _cmd_catalog(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    import json
+
+    from sim.catalog import catalog
+
+    c = catalog(args.scenarios)
+    if args.json:
+        return json.dumps(c.as_dict(), indent=2)
+
+    def levels(lv) -> str:
+        return " > ".join("[" + ", ".join(level) + "]" for level in lv)
+
+    lines = [f"scenarios in {c.scenarios_folder} (exosandbox run FILE):"]
+    width = max((len(e.file) for e in c.scenarios), default=0)
+    for e in c.scenarios:
+        if e.error is not None:
+            lines.append(f"  {e.file:<{width}}  error: {e.error}")
+            continue
+        lines.append(f"  {e.file:<{width}}  {e.name}, {e.duration_s:g} s, controllers {', '.join(e.controllers)}")
+        if e.description:
+            lines.append(f"  {'':<{width}}  {e.description}")
+        lines += [f"  {'':<{width}}  own variant {v}: {levels(lv)}" for v, lv in e.own_variants.items()]
+    if not c.scenarios:
+        lines.append("  (no *.py file)")
+    lines += ["", "controller variants (--controller NAME; levels highest priority first):"]
+    width = max(len(v.name) for v in c.variants)
+    lines += [f"  {v.name:<{width}}  {levels(v.levels) if v.levels else v.summary}" for v in c.variants]
+    lines += ["", "tasks (in a scenario's variants: \"name\", (\"name\", {parameter: value}) or a Task object):"]
+    for t in c.tasks:
+        params, star = [], False
+        for p in t.parameters:
+            if p.keyword_only and not star:
+                params.append("*")
+                star = True
+            params.append(p.name if p.default is None else f"{p.name}={p.default}")
+        lines += [f"  {t.name}({', '.join(params)})", f"      {t.summary} [{t.cls}]"]
+    lines += ["", "subjects (--subject NAME):"]
+    lines += [f"  {s.name:<4} {s.sex:<6}  {s.stature_m:.3f} m  {s.mass_kg:5.1f} kg" for s in c.subjects]
+    lines += ["", "frames (a task's frame= names one of the exoskeleton's; the human arm's for reference):"]
+    for f in c.frames:
+        lines += [f"  {f.model}: hand point {f.hand_frame}",
+                  "    cuff sites: " + ", ".join(f"{site} -> {frame}" for site, frame in f.sites.items()),
+                  "    links: " + ", ".join(f.links)]
+    lines += ["", "cuffs (a wall task's sensor=): " + ", ".join(
+        f"{k.name} (exo site {k.exo_site}, human site {k.human_site})" for k in c.cuffs)]
+    return "\n".join(lines)
 
 
 #: Columns of the sweep table printed on the terminal (summary.md and summary.csv hold every summary metric).
