@@ -143,16 +143,23 @@ def scenario_folder_importable(folder: str | Path) -> Iterator[None]:
     """Make ``folder``'s modules importable by name inside the ``with`` block, and forget them after it.
 
     Inside the block, ``import name`` finds ``folder/name.py`` (or the
-    package ``folder/name/``) before the import path, as for a script run
-    with ``python file.py``; a module already imported keeps its cached
-    object (Python's own rule).  On leaving, the finder is removed, and the
-    modules it found (with their submodules) are dropped from ``sys.modules``:
-    the process is left as it was, so a second folder's ``my_tasks.py`` is
+    package ``folder/name/``) before the import path (after the built-in
+    modules), as for a script run with ``python file.py``; a module already
+    imported keeps its cached object (Python's own rule).  On leaving, the
+    finder is removed, and the modules it found (with their submodules) are
+    dropped from ``sys.modules`` (what a name held before is put back): the
+    process is left as it was, so a second folder's ``my_tasks.py`` is
     loaded as itself, not shadowed by the first's.  The objects made from
-    those modules (task classes, their instances) stay valid.
+    those modules (task classes, their instances) stay valid.  A module the
+    scenario imports only later, while it runs (an ``import`` inside a
+    task's method), is not found there: import the folder's modules at the
+    top of the scenario file or of its module of tasks.
     """
     finder = _FolderFinder(Path(folder).resolve())
-    sys.meta_path.insert(0, finder)
+    # just before the import path's finder, as sys.path[0] would be: built-in and frozen modules keep precedence
+    at = next((i for i, f in enumerate(sys.meta_path) if f is importlib.machinery.PathFinder), 0)
+    before = dict(sys.modules)
+    sys.meta_path.insert(at, finder)
     try:
         yield
     finally:
@@ -162,7 +169,10 @@ def scenario_folder_importable(folder: str | Path) -> Iterator[None]:
             pass
         for name in list(sys.modules):
             if name.partition(".")[0] in finder.found:
-                del sys.modules[name]
+                if name in before:
+                    sys.modules[name] = before[name]
+                else:
+                    del sys.modules[name]
 
 
 def load_scenario(path: str | Path, *, subject: str | None = None) -> Scenario:
