@@ -181,3 +181,17 @@ def test_a_spawned_worker_loads_each_folders_module(tmp_path):
     assert all(r.ok for r in results), [r.error for r in results]
     for tag, t in (("a", 0.5), ("b", 0.7)):
         assert own_task(json.loads((tmp_path / f"run_{tag}" / "meta.json").read_text()))["attributes"]["T"] == t
+
+
+def test_a_sweep_on_dask_workers_over_two_folders_with_modules_of_the_same_name(tmp_path):
+    """Dask worker processes run the same loading path (``run_case`` loads each scenario by its path)."""
+    distributed = pytest.importorskip("dask.distributed")  # the test extra installs it
+    a = scenario_folder(tmp_path / "a", "a", 0.5, stem="own_a")
+    b = scenario_folder(tmp_path / "b", "b", 0.7, stem="own_b")
+    with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=True, dashboard_address=None) as lc:
+        result = run_sweep([a, b], ["mine"], ["m50"], 1, out_dir=tmp_path / "sweep", duration_s=0.05,
+                           dask_address=lc.scheduler_address)
+    assert not result.failed, [r.error for r in result.failed]
+    for stem, t in (("own_a", 0.5), ("own_b", 0.7)):
+        meta = json.loads((tmp_path / "sweep" / stem / "mine" / "m50" / "seed0" / "meta.json").read_text())
+        assert own_task(meta)["attributes"]["T"] == t
