@@ -128,11 +128,11 @@ def test_an_error_in_the_module_of_tasks_is_one_line_naming_the_scenario(tmp_pat
 def test_the_context_manager_restores_the_import_state_after_an_error(tmp_path):
     (tmp_path / "helper_mod_x.py").write_text("VALUE = 3\n", encoding="utf-8")
     finders = list(sys.meta_path)
-    with pytest.raises(ZeroDivisionError), scenario_folder_importable(tmp_path):
+    with pytest.raises(RuntimeError, match="inside"), scenario_folder_importable(tmp_path):
         import helper_mod_x
 
         assert helper_mod_x.VALUE == 3
-        1 / 0
+        raise RuntimeError("an error inside the block")
     assert "helper_mod_x" not in sys.modules and sys.meta_path == finders
 
 
