@@ -19,6 +19,10 @@ __all__ = ["main", "build_parser"]
 
 PROG = "exosandbox"
 
+#: Help of the options that run, compare and sweep share.
+_SUBJECT_HELP = "a built-in subject (default: the scenario's): f5, f50, f95, m5, m50, m95"
+_DURATION_HELP = "override the scenario's duration [s]"
+
 
 class _Parser(argparse.ArgumentParser):
     """argparse with a one-line error message, and no abbreviated options: ``sweep --seed 3`` would otherwise
@@ -73,7 +77,10 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("scenario", metavar="SCENARIO", help="scenario file, e.g. scenarios/reach.py")
     r.add_argument("--controller", metavar="NAME", help="controller variant (default: the scenario's first)")
     r.add_argument("--seed", type=int, metavar="N", help="random seed (default: the scenario's)")
-    r.add_argument("--out", metavar="DIR", help="run folder (default: runs/SCENARIO-CONTROLLER-seedN)")
+    r.add_argument("--subject", metavar="NAME", help=_SUBJECT_HELP)
+    r.add_argument("--duration", type=float, metavar="S", help=_DURATION_HELP)
+    r.add_argument("--out", metavar="DIR", help="run folder (default: runs/SCENARIO-CONTROLLER-seedN, with "
+                   "--subject runs/SCENARIO-CONTROLLER-SUBJECT-seedN)")
     r.add_argument("--view", action="store_true", help="watch the run live in the browser (meshcat on 127.0.0.1)")
     r.set_defaults(func=_cmd_run)
 
@@ -101,7 +108,10 @@ def build_parser() -> argparse.ArgumentParser:
     k.add_argument("--controller", action="append", default=[], metavar="NAME",
                    help="with a scenario: a controller variant to run (repeat; default: all the scenario's)")
     k.add_argument("--seed", type=int, metavar="N", help="with a scenario: random seed (default: the scenario's)")
-    k.add_argument("--out", metavar="DIR", help="output folder (default: runs/compare, then runs/compare-2, ...)")
+    k.add_argument("--subject", metavar="NAME", help="with a scenario: " + _SUBJECT_HELP)
+    k.add_argument("--duration", type=float, metavar="S", help="with a scenario: " + _DURATION_HELP)
+    k.add_argument("--out", metavar="DIR", help="output folder (default: runs/compare, with --subject "
+                   "runs/compare-SUBJECT; then -2, -3, ...)")
     k.set_defaults(func=_cmd_compare)
 
     w = sub.add_parser("sweep", help="run a scenario for every controller x subject x seed, in parallel",
@@ -123,13 +133,25 @@ def build_parser() -> argparse.ArgumentParser:
     w.add_argument("--jobs", type=int, metavar="N",
                    help="runs at a time on this machine: N - 1 worker processes and this one (default: all cores)")
     w.add_argument("--dask", metavar="ADDRESS", help="run on an existing Dask scheduler, e.g. tcp://host:8786")
-    w.add_argument("--duration", type=float, metavar="S", help="override the scenario's duration [s]")
+    w.add_argument("--duration", type=float, metavar="S", help=_DURATION_HELP)
     w.add_argument("--out", metavar="DIR", help="output folder (default: runs/sweep-SCENARIO, or with several "
                    "scenarios runs/sweep-N-scenarios; then -2, -3, ...)")
     w.add_argument("--resume", action="store_true",
                    help="go on with the interrupted sweep in --out DIR, given the same scenarios and options: "
                    "its finished runs are kept, the others run")
     w.set_defaults(func=_cmd_sweep)
+
+    g = sub.add_parser("catalog", help="list the scenarios of a folder, the controller variants, the tasks, the "
+                       "subjects and the frame names of the models",
+                       description="List what a scenario file and the other commands can name: the scenarios of "
+                       "a folder (a file that fails to load shows as one line with its error), the controller "
+                       "variants with their levels of tasks, the registered tasks with their parameters, the "
+                       "built-in subjects, and the frame, cuff site and link names of the exoskeleton and of the "
+                       "median man's (m50) arm.")
+    g.add_argument("--scenarios", metavar="DIR", help="folder of scenario files (default: the scenarios shipped "
+                   "with exosandbox, installed beside the package)")
+    g.add_argument("--json", action="store_true", help="print the same as one JSON object, for scripts")
+    g.set_defaults(func=_cmd_catalog)
     return p
 
 
@@ -144,6 +166,30 @@ def _wearer(args: argparse.Namespace, parser: argparse.ArgumentParser) -> Subjec
     if any(x is None for x in explicit):
         parser.error("--stature, --mass and --sex go together")
     return Subject(args.stature, args.mass, args.sex)
+
+
+def _check_duration(args: argparse.Namespace, parser: argparse.ArgumentParser) -> None:
+    """``--duration``, when given, is a finite number of seconds > 0 (a usage error otherwise)."""
+    d = args.duration
+    if d is not None and not d > 0:
+        parser.error(f"--duration must be > 0, got {d}")
+    if d is not None and d == float("inf"):
+        parser.error(f"--duration must be a finite number of seconds, got {d}")
+
+
+def _scenario_for(path: str | Path, args: argparse.Namespace):
+    """The scenario file with ``--subject`` (through the file's ``for_subject``, as ``sweep`` applies it) and
+    ``--duration``; an unknown subject is refused first, with the list of the built-in ones."""
+    import dataclasses
+
+    from sim.loop.scenario import load_scenario
+
+    if args.subject is not None:
+        Subject.named(args.subject)  # one line naming the subject and the built-in ones
+    scenario = load_scenario(path, subject=args.subject)
+    if args.duration is not None:
+        scenario = dataclasses.replace(scenario, duration_s=args.duration)
+    return scenario
 
 
 def _cmd_urdf(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
@@ -194,10 +240,10 @@ def _cmd_check(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
 
 
 def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
-    from sim.loop.scenario import load_scenario
     from sim.loop.simulate import SimulationError, run_scenario
 
-    scenario = load_scenario(args.scenario)
+    _check_duration(args, parser)
+    scenario = _scenario_for(args.scenario, args)
     controller = args.controller or scenario.controllers[0]
     if controller not in scenario.controllers:
         raise _UserError(f"scenario {scenario.name!r} supports the controllers {', '.join(scenario.controllers)}; "
@@ -210,7 +256,8 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
         if out.exists() and (not out.is_dir() or any(out.iterdir())):
             raise _UserError(f"run folder {str(out)!r} already holds something; choose another --out")
     else:
-        out = _fresh_folder(Path("runs") / f"{scenario.name}-{controller}-seed{seed}")
+        who = f"-{args.subject}" if args.subject is not None else ""
+        out = _fresh_folder(Path("runs") / f"{scenario.name}-{controller}{who}-seed{seed}")
     bar = _progress_bar(f"{scenario.name}/{controller}")
     viewer = _LazyViewer(out) if args.view else None
     try:
@@ -312,21 +359,24 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
 
     first = Path(args.inputs[0])
     scenario_mode = first.suffix == ".py"
+    if not scenario_mode and (args.controller or args.seed is not None or args.subject is not None
+                              or args.duration is not None):
+        parser.error("--controller, --seed, --subject and --duration go with a scenario file, not with run folders")
+    _check_duration(args, parser)
     if args.out:
         out = Path(args.out)
         if out.exists() and (not out.is_dir() or any(out.iterdir())):
             raise _UserError(f"output folder {str(out)!r} already holds something; choose another --out")
     else:
-        out = _fresh_folder(Path("runs") / "compare")
+        out = _fresh_folder(Path("runs") / ("compare" if args.subject is None else f"compare-{args.subject}"))
     if scenario_mode:
-        from sim.loop.scenario import load_scenario
         from sim.loop.simulate import SimulationError, run_scenario
 
         if len(args.inputs) > 1:
             parser.error("give one scenario file, or run folders only")
         if args.seed is not None and args.seed < 0:
             parser.error(f"--seed must be >= 0, got {args.seed}")
-        scenario = load_scenario(first)
+        scenario = _scenario_for(first, args)
         controllers = list(dict.fromkeys(args.controller)) or list(scenario.controllers)
         for c in controllers:
             if c not in scenario.controllers:
@@ -347,8 +397,6 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
                     bar.close()
             run_dirs.append(out / c)
     else:
-        if args.controller or args.seed is not None:
-            parser.error("--controller and --seed go with a scenario file, not with run folders")
         if len(args.inputs) < 2:
             parser.error("give at least two run folders to compare (or one scenario file)")
         run_dirs = [Path(d) for d in args.inputs]
@@ -358,6 +406,54 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     table = text_table(["metric", "unit", *labels], [[r["key"], r["unit"]] + [
         fmt(r[lab]) + (" *" if r["best"] == lab else "") for lab in labels] for r in rows])
     return f"{table}\n(* the better value)\nreport {md}, table {out / 'compare.csv'}, plots in {out / 'plots'}"
+
+
+def _cmd_catalog(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    import json
+
+    from sim.catalog import catalog
+
+    c = catalog(args.scenarios)
+    if args.json:
+        return json.dumps(c.as_dict(), indent=2)
+
+    def levels(lv) -> str:
+        return " > ".join("[" + ", ".join(level) + "]" for level in lv)
+
+    lines = [f"scenarios in {c.scenarios_folder} (exosandbox run FILE):"]
+    width = max((len(e.file) for e in c.scenarios), default=0)
+    for e in c.scenarios:
+        if e.error is not None:
+            lines.append(f"  {e.file:<{width}}  error: {e.error}")
+            continue
+        lines.append(f"  {e.file:<{width}}  {e.name}, {e.duration_s:g} s, controllers {', '.join(e.controllers)}")
+        if e.description:
+            lines.append(f"  {'':<{width}}  {e.description}")
+        lines += [f"  {'':<{width}}  own variant {v}: {levels(lv)}" for v, lv in e.own_variants.items()]
+    if not c.scenarios:
+        lines.append("  (no *.py file)")
+    lines += ["", "controller variants (--controller NAME; levels highest priority first):"]
+    width = max(len(v.name) for v in c.variants)
+    lines += [f"  {v.name:<{width}}  {levels(v.levels) if v.levels else v.summary}" for v in c.variants]
+    lines += ["", "tasks (in a scenario's variants: \"name\", (\"name\", {parameter: value}) or a Task object):"]
+    for t in c.tasks:
+        params, star = [], False
+        for p in t.parameters:
+            if p.keyword_only and not star:
+                params.append("*")
+                star = True
+            params.append(p.name if p.default is None else f"{p.name}={p.default}")
+        lines += [f"  {t.name}({', '.join(params)})", f"      {t.summary} [{t.cls}]"]
+    lines += ["", "subjects (--subject NAME):"]
+    lines += [f"  {s.name:<4} {s.sex:<6}  {s.stature_m:.3f} m  {s.mass_kg:5.1f} kg" for s in c.subjects]
+    lines += ["", "frames (a task's frame= names one of the exoskeleton's; the human arm's for reference):"]
+    for f in c.frames:
+        lines += [f"  {f.model}: hand point {f.hand_frame}",
+                  "    cuff sites: " + ", ".join(f"{site} -> {frame}" for site, frame in f.sites.items()),
+                  "    links: " + ", ".join(f.links)]
+    lines += ["", "cuffs (a wall task's sensor=): " + ", ".join(
+        f"{k.name} (exo site {k.exo_site}, human site {k.human_site})" for k in c.cuffs)]
+    return "\n".join(lines)
 
 
 #: Columns of the sweep table printed on the terminal (summary.md and summary.csv hold every summary metric).
@@ -376,8 +472,7 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
         parser.error(f"--seeds must be >= 1, got {args.seeds}")
     if args.jobs is not None and args.jobs < 1:
         parser.error(f"--jobs must be >= 1, got {args.jobs}")
-    if args.duration is not None and not args.duration > 0:
-        parser.error(f"--duration must be > 0, got {args.duration}")
+    _check_duration(args, parser)
     if args.resume and not args.out:
         parser.error("--resume needs the folder of the sweep to resume: --out DIR")
     files = scenario_files(args.scenario)

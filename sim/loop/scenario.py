@@ -8,14 +8,23 @@ hand, a target within reach) may also define
 ``for_subject(subject: str) -> Scenario``; :func:`load_scenario` calls it when
 a subject is asked for (``exosandbox sweep --subjects``).  Without it, the
 subject is simply replaced.
+
+The file's own folder is importable while it runs: a module of tasks beside
+it (``from my_tasks import HandSpeedCap``, ``my_tasks.py`` in the same folder)
+needs no ``PYTHONPATH``.  As for a script run with ``python file.py``, the
+folder comes first for modules not imported yet; the modules loaded from it are
+forgotten again after the load, so another folder's module of the same name is
+its own (see :func:`scenario_folder_importable`).
 """
 
 from __future__ import annotations
 
 import dataclasses
+import importlib.machinery
 import importlib.util
 import sys
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -30,7 +39,7 @@ from sim.physics.plant import PlantParams
 from sim.physics.sensors import EncoderParams, ForceSensorParams
 from sim.physics.wearer import HumanMotorParams
 
-__all__ = ["Scenario", "ScenarioError", "load_scenario"]
+__all__ = ["Scenario", "ScenarioError", "load_scenario", "scenario_folder_importable"]
 
 
 class ScenarioError(SandboxError, ValueError):
@@ -113,12 +122,70 @@ class Scenario:
         return int(round(self.duration_s / self.control_period_s))
 
 
+class _FolderFinder:
+    """Finds top-level modules (``name.py``, ``name/``) in one folder, ahead of the import path, and
+    remembers the names it found."""
+
+    def __init__(self, folder: Path) -> None:
+        self.folder, self.found = str(folder), set()
+
+    def find_spec(self, name, path=None, target=None):  # noqa: D102 - importlib finder protocol
+        if path is not None or "." in name:  # a submodule: found through its package's __path__
+            return None
+        spec = importlib.machinery.PathFinder.find_spec(name, [self.folder])
+        if spec is not None:
+            self.found.add(name)
+        return spec
+
+
+@contextmanager
+def scenario_folder_importable(folder: str | Path) -> Iterator[None]:
+    """Make ``folder``'s modules importable by name inside the ``with`` block, and forget them after it.
+
+    Inside the block, ``import name`` finds ``folder/name.py`` (or the
+    package ``folder/name/``) before the import path (after the built-in
+    modules), as for a script run with ``python file.py``; a module already
+    imported keeps its cached object (Python's own rule).  On leaving, the
+    finder is removed, and the modules it found (with their submodules) are
+    dropped from ``sys.modules`` (what a name held before is put back): the
+    process is left as it was, so a second folder's ``my_tasks.py`` is
+    loaded as itself, not shadowed by the first's.  The objects made from
+    those modules (task classes, their instances) stay valid.  A module the
+    scenario imports only later, while it runs (an ``import`` inside a
+    task's method), is not found there: import the folder's modules at the
+    top of the scenario file or of its module of tasks.
+    """
+    finder = _FolderFinder(Path(folder).resolve())
+    # just before the import path's finder, as sys.path[0] would be: built-in and frozen modules keep precedence
+    at = next((i for i, f in enumerate(sys.meta_path) if f is importlib.machinery.PathFinder), 0)
+    before = dict(sys.modules)
+    sys.meta_path.insert(at, finder)
+    try:
+        yield
+    finally:
+        try:
+            sys.meta_path.remove(finder)
+        except ValueError:  # removed by the code run inside: nothing left to undo
+            pass
+        for name in list(sys.modules):
+            if name.partition(".")[0] in finder.found:
+                if name in before:
+                    sys.modules[name] = before[name]
+                else:
+                    del sys.modules[name]
+
+
 def load_scenario(path: str | Path, *, subject: str | None = None) -> Scenario:
     """Execute a scenario file and return its ``SCENARIO``.
 
     With ``subject`` (a built-in subject name such as ``"f5"``), return the
     file's ``for_subject(subject)`` if it defines one, else ``SCENARIO`` with
     that subject.
+
+    The file's folder is importable while the file and its ``for_subject``
+    run (:func:`scenario_folder_importable`), so a module of tasks beside it
+    needs no ``PYTHONPATH``; a sweep's worker processes load the file by its
+    path through this function, so the same holds there.
 
     Any error while the file runs (a missing required field, a bad value, a
     typo) becomes a :class:`ScenarioError` whose one-line message names the
@@ -127,6 +194,11 @@ def load_scenario(path: str | Path, *, subject: str | None = None) -> Scenario:
     p = Path(path)
     if not p.is_file():
         raise ScenarioError(f"scenario file {str(p)!r} does not exist")
+    with scenario_folder_importable(p.parent):
+        return _load(p, subject)
+
+
+def _load(p: Path, subject: str | None) -> Scenario:
     mod_name = f"_exosandbox_scenario_{p.stem}"
     spec = importlib.util.spec_from_file_location(mod_name, p)
     if spec is None or spec.loader is None:
