@@ -548,11 +548,16 @@ _PREFERRED = ("daqp", "osqp")
 _ADAPTERS = {"daqp": "daqp_"}
 
 
+@functools.cache
+def _adapter_solve(module_name: str) -> Callable[..., QPResult]:
+    return importlib.import_module(f"{__name__}.{module_name}").solve
+
+
 def _adapter(name: str, module_name: str) -> Callable[..., QPResult]:
     """The ``solve`` of adapter module ``module_name``, imported on first call."""
 
     def solve(*args, **kwargs) -> QPResult:
-        return importlib.import_module(f"{__name__}.{module_name}").solve(*args, **kwargs)
+        return _adapter_solve(module_name)(*args, **kwargs)
 
     solve.__doc__ = f"The ``solve`` of :mod:`{__name__}.{module_name}` ({name})."
     return solve
@@ -632,7 +637,8 @@ def get_backend(name: str | None = None) -> Callable[..., QPResult]:
     if name is None:
         what, hint = "no QP backend is installed", f"to add one, {_install_hint(_PREFERRED[0])}"
     elif name in _known_solvers():
-        what, hint = f"QP backend {name!r} is known to qpsolvers but not installed", f"to add one, {_install_hint(name)}"
+        what = f"QP backend {name!r} is known to qpsolvers but not installed"
+        hint = f"to add one, {_install_hint(name)}"
     else:
         what = f"unknown QP backend {name!r}"
         hint = f"to add one, install a solver qpsolvers knows ({', '.join(_known_solvers())})"
