@@ -7,16 +7,8 @@ returns.  Internal rotation is what this activity needs most, and the
 robot's humeral-rotation joint comes within about 8 deg of its stop.
 """
 
-import math
-
 from sim.intent import JointIntent, Via
-from sim.scenario import Scenario
-
-
-def deg(*angles):
-    """Degrees to radians, for writing postures (joint order of models.human)."""
-    return tuple(math.radians(a) for a in angles)
-
+from sim.scenario import Scenario, deg
 
 # joints: gh flexion, gh abduction, gh rotation, elbow flexion, pronation, wrist flexion, wrist deviation
 HAND_ON_THIGH = deg(15, 10, 0, 80, 0, 0, 0)

@@ -13,13 +13,7 @@ import math
 
 from models.exo import EXO_JOINTS, ExoParams
 from sim.intent import JointIntent, Via
-from sim.scenario import Scenario
-
-
-def deg(*angles):
-    """Degrees to radians, for writing postures (joint order of models.human)."""
-    return tuple(math.radians(a) for a in angles)
-
+from sim.scenario import Scenario, deg
 
 ELBOW = EXO_JOINTS.index("exo_elbow")  # shares its axis and sign with the wearer's elbow flexion
 ELBOW_STOP_RAD = ExoParams().limits_rad()[1][ELBOW]  # the fitted robot keeps the default stops

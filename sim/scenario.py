@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import dataclasses
 import importlib.util
+import math
 import sys
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
@@ -31,7 +32,7 @@ from .intent import JointIntent
 from .plant import PlantParams
 from .sensors import EncoderParams, ForceSensorParams
 
-__all__ = ["Scenario", "ScenarioError", "load_scenario"]
+__all__ = ["Scenario", "ScenarioError", "load_scenario", "deg"]
 
 
 class ScenarioError(SandboxError, ValueError):
@@ -164,3 +165,23 @@ def load_scenario(path: str | Path, *, subject: str | None = None) -> Scenario:
     if not isinstance(scenario, Scenario):
         raise ScenarioError(f"{p}: for_subject({subject!r}) must return a Scenario, got {type(scenario).__name__}")
     return scenario
+
+
+def deg(*angles: float) -> tuple[float, ...]:
+    r"""Angles in degrees to a tuple of radians, for writing postures in scenario files.
+
+    Each angle becomes :math:`\theta_\text{rad} = \theta_\text{deg}\,\pi / 180`
+    (``math.radians``), in the order given, e.g. the joint order of
+    :mod:`models.human` for a posture.
+
+    Parameters
+    ----------
+    *angles : float
+        Angles [deg].
+
+    Returns
+    -------
+    tuple of float
+        The same angles [rad].
+    """
+    return tuple(math.radians(a) for a in angles)
