@@ -548,19 +548,9 @@ _PREFERRED = ("daqp", "osqp")
 _ADAPTERS = {"daqp": "daqp_"}
 
 
-@functools.cache
-def _adapter_solve(module_name: str) -> Callable[..., QPResult]:
+def _adapter(module_name: str) -> Callable[..., QPResult]:
+    """The ``solve`` of adapter module ``module_name`` (imported here: its solver is installed)."""
     return importlib.import_module(f"{__name__}.{module_name}").solve
-
-
-def _adapter(name: str, module_name: str) -> Callable[..., QPResult]:
-    """The ``solve`` of adapter module ``module_name``, imported on first call."""
-
-    def solve(*args, **kwargs) -> QPResult:
-        return _adapter_solve(module_name)(*args, **kwargs)
-
-    solve.__doc__ = f"The ``solve`` of :mod:`{__name__}.{module_name}` ({name})."
-    return solve
 
 
 def _through_qpsolvers(name: str) -> Callable[..., QPResult]:
@@ -577,7 +567,7 @@ def _installed() -> tuple[str, ...]:
 
 #: Installed backends: name -> ``solve`` function (read-only), default first.
 BACKENDS: Mapping[str, Callable[..., QPResult]] = types.MappingProxyType({
-    name: (_adapter(name, _ADAPTERS[name]) if name in _ADAPTERS else _through_qpsolvers(name))
+    name: (_adapter(_ADAPTERS[name]) if name in _ADAPTERS else _through_qpsolvers(name))
     for name in _installed()
 })
 
