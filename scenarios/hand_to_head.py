@@ -8,15 +8,7 @@ library: the robot's first shoulder joint travels 137 deg, at up to 2.7 rad/s
 (its velocity limit is 3 rad/s).
 """
 
-import math
-
-from sim import JointIntent, Scenario, Via
-
-
-def deg(*angles):
-    """Degrees to radians, for writing postures (joint order of models.human)."""
-    return tuple(math.radians(a) for a in angles)
-
+from sim import JointIntent, Scenario, Via, deg
 
 # joints: gh flexion, gh abduction, gh rotation, elbow flexion, pronation, wrist flexion, wrist deviation
 HAND_ON_THIGH = deg(15, 10, 0, 80, 0, 0, 0)

@@ -7,15 +7,7 @@ returns.  Internal rotation is what this activity needs most, and the
 robot's humeral-rotation joint comes within about 8 deg of its stop.
 """
 
-import math
-
-from sim import JointIntent, Scenario, Via
-
-
-def deg(*angles):
-    """Degrees to radians, for writing postures (joint order of models.human)."""
-    return tuple(math.radians(a) for a in angles)
-
+from sim import JointIntent, Scenario, Via, deg
 
 # joints: gh flexion, gh abduction, gh rotation, elbow flexion, pronation, wrist flexion, wrist deviation
 HAND_ON_THIGH = deg(15, 10, 0, 80, 0, 0, 0)

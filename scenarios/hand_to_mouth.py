@@ -8,15 +8,7 @@ way.  A body-proximal activity of daily living: the elbow works near the top
 of its range while the hand stays close to the face.
 """
 
-import math
-
-from sim import JointIntent, Scenario, Via
-
-
-def deg(*angles):
-    """Degrees to radians, for writing postures (joint order of models.human)."""
-    return tuple(math.radians(a) for a in angles)
-
+from sim import JointIntent, Scenario, Via, deg
 
 # joints: gh flexion, gh abduction, gh rotation, elbow flexion, pronation, wrist flexion, wrist deviation
 HAND_ON_THIGH = deg(15, 10, 0, 80, 0, 0, 0)

@@ -12,13 +12,7 @@ robot to follow the wearer all the way.
 import math
 
 from models.exo import EXO_JOINTS, ExoParams
-from sim import JointIntent, Scenario, Via
-
-
-def deg(*angles):
-    """Degrees to radians, for writing postures (joint order of models.human)."""
-    return tuple(math.radians(a) for a in angles)
-
+from sim import JointIntent, Scenario, Via, deg
 
 ELBOW = EXO_JOINTS.index("exo_elbow")  # shares its axis and sign with the wearer's elbow flexion
 ELBOW_STOP_RAD = ExoParams().limits_rad()[1][ELBOW]  # the fitted robot keeps the default stops

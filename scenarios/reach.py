@@ -6,15 +6,7 @@ the shoulder at shoulder height (where a cup stands on a shelf), pause, and
 bring the hand back, about one second each way.  Copy this file and edit it.
 """
 
-import math
-
-from sim import JointIntent, Scenario, Via
-
-
-def deg(*angles):
-    """Degrees to radians, for writing postures (joint order of models.human)."""
-    return tuple(math.radians(a) for a in angles)
-
+from sim import JointIntent, Scenario, Via, deg
 
 # joints: gh flexion, gh abduction, gh rotation, elbow flexion, pronation, wrist flexion, wrist deviation
 HAND_BESIDE_LAP = deg(15, 10, 0, 80, 0, 0, 0)

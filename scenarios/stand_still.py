@@ -7,15 +7,7 @@ neither drifts nor feeds the force sensors' noise back as motion the wearer
 would feel (the sensors have 0.3 N and 0.01 N m of noise by default).
 """
 
-import math
-
-from sim import JointIntent, Scenario
-
-
-def deg(*angles):
-    """Degrees to radians, for writing postures (joint order of models.human)."""
-    return tuple(math.radians(a) for a in angles)
-
+from sim import JointIntent, Scenario, deg
 
 # joints: gh flexion, gh abduction, gh rotation, elbow flexion, pronation, wrist flexion, wrist deviation
 HOLDING_TRAY = deg(20, 10, 0, 90, 0, 0, 0)

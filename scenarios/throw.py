@@ -10,15 +10,7 @@ limits (3 and 4 rad/s): a stress test of transparency at speed, and of what the
 ``walls`` variant's velocity limits do to a wearer who moves faster.
 """
 
-import math
-
-from sim import JointIntent, Scenario, Via
-
-
-def deg(*angles):
-    """Degrees to radians, for writing postures (joint order of models.human)."""
-    return tuple(math.radians(a) for a in angles)
-
+from sim import JointIntent, Scenario, Via, deg
 
 # joints: gh flexion, gh abduction, gh rotation, elbow flexion, pronation, wrist flexion, wrist deviation
 HAND_ON_THIGH = deg(15, 10, 0, 80, 0, 0, 0)

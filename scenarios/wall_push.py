@@ -13,17 +13,10 @@ hand's forward reach at BEHIND_WALL (``for_subject``), so every wearer meets it.
 """
 
 import dataclasses
-import math
 
 from models.cuffs import CuffParams
 from models.human import hand_position_m
-from sim import JointIntent, Scenario, Via
-
-
-def deg(*angles):
-    """Degrees to radians (joint order of models.human)."""
-    return tuple(math.radians(a) for a in angles)
-
+from sim import JointIntent, Scenario, Via, deg
 
 READY = deg(60, 0, 0, 80, 0, 0, 0)  # hand 5-6 cm in front of the wall
 BEHIND_WALL = deg(80, 0, 0, 25, 0, 0, 0)  # hand target 7-9 cm behind it

@@ -12,19 +12,12 @@ point of the wearer's intended slide, raised by ``PRESS_DEPTH_M``, so every
 wearer presses into it by at least that much all along the slide.
 """
 
-import math
 
 import numpy as np
 
 from models.cuffs import CuffParams
 from models.human import hand_position_m
-from sim import JointIntent, Scenario, Via
-
-
-def deg(*angles):
-    """Degrees to radians, for writing postures (joint order of models.human)."""
-    return tuple(math.radians(a) for a in angles)
-
+from sim import JointIntent, Scenario, Via, deg
 
 # joints: gh flexion, gh abduction, gh rotation, elbow flexion, pronation, wrist flexion, wrist deviation
 HOVER = deg(25, 5, 0, 112, 0, 0, 0)  # hand 3-4 cm above the board

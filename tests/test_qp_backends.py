@@ -3,7 +3,8 @@
 References: ``scipy.optimize.lsq_linear`` (bounded-variable least squares,
 method "bvls", an active-set method that is exact up to rounding) and cvxpy
 with the Clarabel interior-point solver; the degenerate problem also has a
-closed-form optimum.
+closed-form optimum. The backends are every solver of
+``qpsolvers.available_solvers`` (qpsolvers, https://github.com/qpsolvers/qpsolvers).
 """
 
 from __future__ import annotations
@@ -15,10 +16,13 @@ from pathlib import Path
 import cvxpy as cp
 import numpy as np
 import pytest
+import qpsolvers
 from scipy.optimize import lsq_linear
 
+from controllers import qp_backends
 from controllers.qp_backends import (
     DEFAULT_BACKEND,
+    SOLVER_SETTINGS,
     BackendNotFound,
     QPTolerances,
     available_backends,
@@ -91,6 +95,8 @@ def test_backend_matches_independent_reference_on_shared_problems(backend, probl
     res = get_backend(backend)(**data, tolerances=TOL, regularization=1e-8)
     assert res.found, f"{backend} on {name}: {res.status}"
     np.testing.assert_allclose(res.x, ref, atol=X_TOL, err_msg=f"{backend} on {name}")
+    # KKT residuals at the returned point (qpsolvers' definitions), within the agreement asked of x
+    assert res.primal_residual <= X_TOL and res.dual_residual <= X_TOL, (res.primal_residual, res.dual_residual)
 
 
 @pytest.mark.parametrize("backend", BACKENDS)
@@ -126,7 +132,13 @@ def test_infeasible_problem_is_reported_with_the_solver_status_and_no_point(back
     )
     assert not res.found
     assert res.x is None
-    assert "infeasible" in res.status
+    assert res.primal_residual is None
+    if backend in ("daqp", "osqp"):
+        assert "infeasible" in res.status
+    elif backend in ("clarabel", "scs"):  # their status as qpsolvers passes it: "PrimalInfeasible", "infeasible"
+        assert "infeasible" in res.status.lower()
+    else:  # qpsolvers' interface of this solver reports no status
+        assert res.status.startswith("not found")
 
 
 def test_unknown_backend_raises_listing_the_installed_ones():
@@ -134,6 +146,58 @@ def test_unknown_backend_raises_listing_the_installed_ones():
         get_backend("no-such-solver")
     assert isinstance(info.value, LookupError)
     assert "to add one" in str(info.value)
+    assert "'no-such-solver'" in str(info.value) and "\n" not in str(info.value)
+
+
+def test_a_solver_qpsolvers_knows_but_not_installed_names_its_package():
+    if "proxqp" in qpsolvers.available_solvers:
+        pytest.skip("proxqp is installed")
+    with pytest.raises(BackendNotFound) as info:
+        get_backend("proxqp")
+    msg = str(info.value)
+    # qpsolvers' extra "proxqp" installs the package proxsuite (qpsolvers' package metadata)
+    assert "'proxqp' is known to qpsolvers but not installed" in msg and "pip install proxsuite" in msg
+    assert f"installed backends: {', '.join(BACKENDS)}" in msg and "\n" not in msg
+
+
+def test_available_backends_are_qpsolvers_available_solvers_default_first():
+    assert sorted(BACKENDS) == sorted(qpsolvers.available_solvers)
+    assert BACKENDS[0] == DEFAULT_BACKEND and list(BACKENDS[1:]) == sorted(BACKENDS[1:])
+
+
+@pytest.mark.skipif("clarabel" not in BACKENDS, reason="clarabel not installed")
+def test_a_solver_without_a_tolerance_entry_runs_with_its_own_defaults(monkeypatch, caplog):
+    # Clarabel's own defaults (tolerances 1e-8) suffice for X_TOL; the entry is removed for this test only
+    monkeypatch.setattr(qp_backends, "SOLVER_SETTINGS", {k: v for k, v in SOLVER_SETTINGS.items() if k != "clarabel"})
+    data, ref = _box_ls()
+    with caplog.at_level("INFO", logger="controllers.qp_backends"):
+        res = get_backend("clarabel")(**data, tolerances=TOL)
+        assert qp_backends.solver_settings("clarabel", TOL) == {}
+    assert res.found, res.status
+    # said once per solver and process, not once per call
+    assert sum("'clarabel' has no entry in" in r.getMessage() for r in caplog.records) == 1
+    np.testing.assert_allclose(res.x, ref, atol=X_TOL)  # reference: scipy BVLS
+
+
+def test_the_tolerance_table_uses_the_solvers_own_keyword_names():
+    # OSQP, SCS and Clarabel reject an unknown keyword (ValueError, TypeError, AttributeError), so the shared
+    # problems above check their entries; DAQP's keywords are parameters of daqp.solve, and HiGHS only
+    # reports an unknown option or an out-of-range value through the status of setOptionValue
+    settings = {name: SOLVER_SETTINGS[name](TOL, 1e-8) for name in BACKENDS if name in SOLVER_SETTINGS}
+    assert settings, "no installed solver has a tolerance entry"
+    if "daqp" in settings:
+        import inspect
+
+        import daqp
+
+        assert set(settings["daqp"]) <= set(inspect.signature(daqp.solve).parameters)
+    if "highs" in settings:
+        import highspy
+
+        h = highspy.Highs()
+        h.setOptionValue("output_flag", False)
+        for k, v in settings["highs"].items():
+            assert h.setOptionValue(k, v) == highspy.HighsStatus.kOk, k
 
 
 @pytest.mark.skipif("osqp" not in BACKENDS, reason="osqp not installed")
@@ -147,8 +211,9 @@ def test_a_missing_solver_leaves_the_others_importable_and_osqp_the_default():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
                          cwd=Path(__file__).resolve().parents[1]).stdout.splitlines()
-    assert out[0] == "('osqp',) osqp"
-    assert "installed backends: osqp" in out[1] and "pip install daqp" in out[1]
+    others = sorted(s for s in qpsolvers.available_solvers if s not in ("daqp", "osqp"))
+    assert out[0] == f"{('osqp', *others)} osqp"
+    assert f"installed backends: {', '.join(('osqp', *others))}" in out[1] and "pip install daqp" in out[1]
 
 
 def test_default_backend_is_daqp_when_installed_else_osqp():

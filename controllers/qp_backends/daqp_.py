@@ -1,5 +1,16 @@
 r"""DAQP, a dense dual active-set QP solver [Arnstrom2022]_, called directly.
 
+Why this adapter is kept beside qpsolvers (every other solver goes through
+:func:`controllers.qp_backends.solve_with_qpsolvers`): qpsolvers' DAQP
+interface (qpsolvers 4.13) returns only ``found``; it drops DAQP's exit flag
+and iteration count. The hierarchy's :class:`~controllers.qp_backends.QPSolveError`
+names the solver's status, and a user must be able to tell an infeasible level
+(exit flag −1) from an iteration limit (−4) or from a singular ``P`` without
+proximal iterations (−5). The settings themselves come from the shared table,
+``SOLVER_SETTINGS["daqp"]`` (module docstring of
+:mod:`controllers.qp_backends`); the data are laid out as qpsolvers' DAQP
+interface lays them out.
+
 Solves
 
 .. math::
@@ -8,8 +19,7 @@ Solves
     \quad \text{s.t.} \quad G y \le h, \quad A y = b, \quad lb \le y \le ub
 
 with ``daqp.solve``, the data laid out as DAQP takes them (bounds first,
-then ``G y <= h``, then ``A y = b`` with sense 5), as qpsolvers' DAQP
-interface lays them out, without its per-call overhead. DAQP factorises ``P``
+then ``G y <= h``, then ``A y = b`` with sense 5). DAQP factorises ``P``
 and so needs it positive definite; a semidefinite ``P`` (a hierarchy level
 whose cost does not involve every variable) is handled by DAQP's
 proximal-point iterations [Rockafellar1976]_: it minimises
@@ -19,7 +29,7 @@ zero gradient, so the point is an exact minimiser of :math:`f`; a single step
 would be off by at most
 :math:`f(y_{j+1}) - f^\star \le \tfrac{\varepsilon}{2}\,\mathrm{dist}(y_j, Y^\star)^2`.
 
-Settings passed (all explicitly; every other DAQP setting keeps its default):
+Settings passed (the shared table; every other DAQP setting keeps its default):
 
 =================  ====================  ==========================  =============
 QPTolerances       DAQP setting          value passed                DAQP default
@@ -53,10 +63,11 @@ from ctypes import c_int
 
 import daqp
 import numpy as np
+import qpsolvers
 
 from models.errors import ParameterError
 
-from . import QPResult, QPSolveError, QPTolerances, check_qp
+from . import QPResult, QPSolveError, QPTolerances, check_qp, solver_settings
 
 __all__ = ["NAME", "solve"]
 
@@ -75,16 +86,6 @@ _EXIT_FLAGS = {
 }
 
 _BIG = 1e30  # DAQP's "no bound"
-
-
-def _settings(tolerances: QPTolerances, regularization: float) -> dict:
-    return {
-        "primal_tol": tolerances.eps_abs,
-        "dual_tol": tolerances.dual_tol,
-        "iter_limit": int(tolerances.max_iter),
-        "eps_prox": -float(regularization),
-        "eta_prox": tolerances.prox_tol,
-    }
 
 
 def _layout(P, q, G, h, A, b, lb, ub):
@@ -165,7 +166,7 @@ def solve(
     P, q, G, h, A, b, lb, ub = check_qp(P, q, G, h, A, b, lb, ub)
     if not (np.isfinite(regularization) and regularization >= 0):
         raise ParameterError(f"daqp: regularization must be a finite float >= 0, got {regularization!r}")
-    settings = _settings(tolerances, regularization)
+    settings = solver_settings(NAME, tolerances, regularization)
     initvals = None if warm_start is None else np.array(warm_start, dtype=float).reshape(q.shape)  # writable copy
     A_all, bupper, blower, sense, ms, mi = _layout(P, q, G, h, A, b, lb, ub)
     try:
@@ -176,8 +177,11 @@ def solve(
     iterations = int(info["iterations"]) if "iterations" in info else None
     if flag > 0:
         lam = np.asarray(info["lam"], dtype=float)
-        z = None if G is None else lam[ms: ms + mi].copy()
-        z_box = None if (lb is None and ub is None) else lam[:ms].copy()
-        return QPResult(np.array(x, dtype=float), True, "optimal", time.perf_counter() - start, iterations, z, z_box)
+        out = qpsolvers.Solution(qpsolvers.Problem(P, q, G, h, A, b, lb, ub), found=True, extras={"exitflag": flag})
+        out.x = np.array(x, dtype=float)
+        out.z = None if G is None else lam[ms: ms + mi].copy()
+        out.y = None if A is None else lam[ms + mi:].copy()
+        out.z_box = None if (lb is None and ub is None) else lam[:ms].copy()
+        return QPResult(out.x, True, "optimal", time.perf_counter() - start, iterations, out.z, out.z_box, out.y, out)
     status = f"{_EXIT_FLAGS.get(flag, 'unknown')} (exitflag {flag})"
     return QPResult(None, False, status, time.perf_counter() - start, iterations)

@@ -22,6 +22,7 @@ from __future__ import annotations
 import dataclasses
 import importlib.machinery
 import importlib.util
+import math
 import sys
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
@@ -39,7 +40,7 @@ from sim.physics.plant import PlantParams
 from sim.physics.sensors import EncoderParams, ForceSensorParams
 from sim.physics.wearer import HumanMotorParams
 
-__all__ = ["Scenario", "ScenarioError", "load_scenario", "scenario_folder_importable"]
+__all__ = ["Scenario", "ScenarioError", "load_scenario", "scenario_folder_importable", "deg"]
 
 
 class ScenarioError(SandboxError, ValueError):
@@ -235,3 +236,23 @@ def _load(p: Path, subject: str | None) -> Scenario:
     if not isinstance(scenario, Scenario):
         raise ScenarioError(f"{p}: for_subject({subject!r}) must return a Scenario, got {type(scenario).__name__}")
     return scenario
+
+
+def deg(*angles: float) -> tuple[float, ...]:
+    r"""Angles in degrees to a tuple of radians, for writing postures in scenario files.
+
+    Each angle becomes :math:`\theta_\text{rad} = \theta_\text{deg}\,\pi / 180`
+    (``math.radians``), in the order given, e.g. the joint order of
+    :mod:`models.human` for a posture.
+
+    Parameters
+    ----------
+    *angles : float
+        Angles [deg].
+
+    Returns
+    -------
+    tuple of float
+        The same angles [rad].
+    """
+    return tuple(math.radians(a) for a in angles)
