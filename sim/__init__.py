@@ -9,5 +9,5 @@ from sim.loop.scenario import Scenario, ScenarioError, deg, load_scenario
 from sim.loop.simulate import RunResult, SimulationError, run_scenario, simulate
 from sim.physics.intent import JointIntent, Via
 
-__all__ = ["JointIntent", "Via", "Run", "RunLog", "load_run", "Scenario", "ScenarioError", "deg", "load_scenario", "RunResult",
-           "SimulationError", "run_scenario", "simulate"]
+__all__ = ["JointIntent", "Via", "Run", "RunLog", "load_run", "Scenario", "ScenarioError", "deg", "load_scenario",
+           "RunResult", "SimulationError", "run_scenario", "simulate"]
