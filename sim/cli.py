@@ -194,8 +194,9 @@ def _cmd_check(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
 
 
 def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    from sim.experiments.run import run_scenario
     from sim.loop.scenario import load_scenario
-    from sim.loop.simulate import SimulationError, run_scenario
+    from sim.loop.simulation import SimulationError
 
     scenario = load_scenario(args.scenario)
     controller = args.controller or scenario.controllers[0]
@@ -319,8 +320,9 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     else:
         out = _fresh_folder(Path("runs") / "compare")
     if scenario_mode:
+        from sim.experiments.run import Batch, run_scenario
         from sim.loop.scenario import load_scenario
-        from sim.loop.simulate import SimulationError, run_scenario
+        from sim.loop.simulation import SimulationError
 
         if len(args.inputs) > 1:
             parser.error("give one scenario file, or run folders only")
@@ -333,13 +335,14 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
                 raise _UserError(f"scenario {scenario.name!r} supports the controllers "
                                  f"{', '.join(scenario.controllers)}; got {c!r}")
         run_dirs = []
+        batch = Batch()  # the runs of this comparison: one baseline, one warm-up per controller
         for c in controllers:
             bar = _progress_bar(f"{scenario.name}/{c}")
             # the human-alone baseline is the same for every controller: simulated once, then copied
             baseline = run_dirs[0] / "human_alone" if run_dirs else None
             try:
                 run_scenario(scenario, c, out / c, seed=args.seed, progress=bar.update if bar else None,
-                             baseline_from=baseline)
+                             baseline_from=baseline, batch=batch)
             except SimulationError as e:
                 raise _UserError(f"{e}; the runs so far are kept in {out}") from e
             finally:

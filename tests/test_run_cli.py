@@ -25,7 +25,8 @@ from controllers.registry import CONTROLLERS
 from models.records import Measurement
 from sim.cli import main
 from sim.loop.scenario import load_scenario
-from sim.loop.simulate import run_scenario, simulate
+from sim.experiments.run import run_scenario
+from sim.loop.simulate import simulate
 
 REPO = Path(__file__).resolve().parents[1]
 REACH = REPO / "scenarios" / "reach.py"
