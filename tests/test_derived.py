@@ -20,9 +20,9 @@ import pinocchio as pin
 import pytest
 
 from sim.analysis.derived import DERIVED_CUFF_COLUMNS, _joint_placements_loop, cuff_columns, joint_placements
+from sim.experiments.run import evaluate_run, run_scenario
 from sim.loop.runlog import Run, RunLogError, load_run
 from sim.loop.scenario import load_scenario
-from sim.experiments.run import evaluate_run, run_scenario
 from sim.physics.plant import CoupledPlant
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"

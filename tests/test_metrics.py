@@ -30,8 +30,8 @@ from sim.analysis.metrics import (
     wall_contacts,
     wall_cycle_energy_returned_J,
 )
-from sim.loop.scenario import load_scenario
 from sim.experiments.run import evaluate_run
+from sim.loop.scenario import load_scenario
 from sim.loop.simulate import simulate
 from sim.output.report import best_index, best_indices, comparison_rows, headline, sweep_verdicts
 from sim.physics.plant import PlantParams

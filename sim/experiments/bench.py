@@ -100,10 +100,10 @@ from models._checks import finite
 from models.chain import ChainParams, build_chain
 from models.errors import ParameterError, SandboxError
 from models.records import Measurement
-from sim.loop.runlog import RunLog, load_run
-from sim.loop.scenario import Scenario, load_scenario
 from sim.experiments.run import run_scenario
 from sim.experiments.sweep import plan_sweep, run_case, run_sweep, serve
+from sim.loop.runlog import RunLog, load_run
+from sim.loop.scenario import Scenario, load_scenario
 from sim.loop.simulate import simulate
 from sim.loop.simulation import build_assembly, controller_context
 from sim.physics.sensors import EncoderParams, JointSensing

@@ -325,7 +325,7 @@ class Simulation:
         self._controller, self._controller_name, self._asm, self._plant = controller, name, asm, plant
         self._diag_names, self._timing_diag = diag_names, timing_diag
         n = scenario.n_ticks
-        self._meta = {
+        self._meta = jsonable({  # plain JSON values, as meta.json holds them
             "scenario": scenario.name, "controller": name, "mode": mode,
             "seed": self.seed, "dt_s": T, "substeps": scenario.substeps, "n_ticks_planned": n,
             "cuffs": [c.name for c in asm.cuffs],
@@ -338,7 +338,7 @@ class Simulation:
             "walls": jsonable(scenario.walls),
             "parameters": jsonable(scenario), "exo_params": jsonable(asm.exo_params),
             "environment": environment_metadata(),
-        }
+        })
         self._columns = log_columns(mode, asm.exo.nq, asm.human.nq, len(asm.cuffs), diag_names)
         self._urdfs = {"exo.urdf": plant.exo.urdf, "human.urdf": plant.human.urdf}
         self._tick_times, self._controller_times = np.zeros(n), np.zeros(n)
@@ -509,7 +509,8 @@ class Simulation:
                 t0 = clock()
                 plant.update_cuffs()
                 if has_controller:
-                    q_e, v_e = plant.q_exo, plant.v_exo  # views of this tick's state (the plant replaces it as it steps)
+                    # views of this tick's state (the plant replaces it as it steps)
+                    q_e, v_e = plant.q_exo, plant.v_exo
                     tau_applied = actuators.applied_Nm
                     qm, dqm, taum = joints.measure(q_e, tau_applied)
                     # with no wearer the sensors read their noise and bias alone

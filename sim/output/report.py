@@ -7,10 +7,10 @@ closest to zero, to one, or to the commanded wall stiffness.
 
 from __future__ import annotations
 
+import json
 import math
 from collections.abc import Mapping, Sequence
 from pathlib import Path
-import json
 
 import numpy as np
 
