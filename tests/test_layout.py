@@ -195,3 +195,53 @@ def test_no_private_name_imported_across_modules():
 def test_no_private_name_of_models_or_controllers_imported_across_modules():
     found = [f for f in _private_imports() if _fixed_on_merge(f)]
     assert not found, "private names imported across modules: " + "; ".join(f"{m} imports {w}" for m, w in found)
+
+
+# -- no module-level mutable state in sim ----------------------------------------------------------------
+_MUTABLE_CALLS = ("dict", "list", "set", "defaultdict", "OrderedDict", "deque", "array", "zeros", "empty")
+
+
+def _module_level_mutables() -> list[tuple[str, str]]:
+    """``(module, name)`` of every module-level name of ``sim`` bound to a new dict, list, set or array
+    (``__all__`` aside): state a run could leave behind for the next one, or a forked worker inherit."""
+    found = []
+    for m, path in MODULES.items():
+        if not m.startswith("sim"):
+            continue
+        for node in ast.parse(path.read_text(encoding="utf-8")).body:
+            if not isinstance(node, (ast.Assign, ast.AnnAssign)) or node.value is None:
+                continue
+            v = node.value
+            call = v.func.id if isinstance(v, ast.Call) and isinstance(v.func, ast.Name) else (
+                v.func.attr if isinstance(v, ast.Call) and isinstance(v.func, ast.Attribute) else None)
+            if isinstance(v, (ast.Dict, ast.List, ast.Set, ast.DictComp, ast.ListComp, ast.SetComp)) or (
+                    call in _MUTABLE_CALLS):
+                targets = node.targets if isinstance(node, ast.Assign) else [node.target]
+                found += [(m, t.id) for t in targets if isinstance(t, ast.Name) and t.id != "__all__"]
+    return found
+
+
+def test_the_mutable_state_finder_finds_a_cache(tmp_path, monkeypatch):
+    path = tmp_path / "probe.py"
+    path.write_text("CACHE: dict = {}\nSEEN = set()\nLIMITS = MappingProxyType({'a': 1})\n__all__ = []\n",
+                    encoding="utf-8")
+    monkeypatch.setitem(MODULES, "sim.probe", path)
+    assert [f for f in _module_level_mutables() if f[0] == "sim.probe"] == [("sim.probe", "CACHE"),
+                                                                             ("sim.probe", "SEEN")]
+
+
+def test_no_module_level_mutable_state_in_sim():
+    # read-only arrays (flags.writeable = False) are immutable too
+    found = [f for f in _module_level_mutables() if f[0] != "sim.loop.runlog" and not _read_only_array(*f)]
+    assert not found, (f"module-level mutable state: {found}; make it immutable (a tuple, frozenset, "
+                       "MappingProxyType) or keep it in an object its user makes")
+
+
+@pytest.mark.xfail(strict=False, reason="sim/loop/runlog.py is rewritten on another line of work: fixed on merge")
+def test_no_module_level_mutable_state_in_the_run_log():
+    assert not [f for f in _module_level_mutables() if f[0] == "sim.loop.runlog"]
+
+
+def _read_only_array(module: str, name: str) -> bool:
+    value = getattr(importlib.import_module(module), name)
+    return hasattr(value, "flags") and not value.flags.writeable
