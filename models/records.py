@@ -80,7 +80,7 @@ class Measurement:
                      cuff_wrench: dict[str, np.ndarray]) -> Measurement:
         """The Measurement of these fields, kept as they are: no check, no conversion, no copy.
 
-        For the simulation loop only (:func:`sim.loop.simulate.simulate`), whose
+        For the simulation loop only (:class:`sim.loop.simulation.Simulation`), whose
         sensors return exactly what the constructor would keep as it is: a
         float ``t_s``, and float64 arrays that nothing can write to (read-only
         arrays owning their data, or read-only views of one, as

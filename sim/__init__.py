@@ -1,13 +1,18 @@
 """How the world evolves: the coupled exoskeleton-human loop, sensors, logging and the CLI.
 
-Main entry points: :func:`sim.load_scenario`, :func:`sim.run_scenario`,
-:func:`sim.simulate` and :func:`sim.load_run`.
+Main entry points: :func:`sim.load_scenario`, :class:`sim.Simulation` (a run
+tick by tick, in memory: notebooks and scripts), :func:`sim.run_scenario`
+(a run folder with its baseline, metrics and report), :func:`sim.simulate`
+and :func:`sim.load_run`. Scenario files import :class:`sim.Scenario`,
+:class:`sim.JointIntent`, :class:`sim.Via` and :func:`sim.deg` from here.
 """
 
+from sim.experiments.run import run_scenario
 from sim.loop.runlog import Run, RunLog, load_run
 from sim.loop.scenario import Scenario, ScenarioError, deg, load_scenario
-from sim.loop.simulate import RunResult, SimulationError, run_scenario, simulate
+from sim.loop.simulate import RunResult, simulate
+from sim.loop.simulation import Simulation, SimulationError, Trajectory
 from sim.physics.intent import JointIntent, Via
 
 __all__ = ["JointIntent", "Via", "Run", "RunLog", "load_run", "Scenario", "ScenarioError", "deg", "load_scenario",
-           "RunResult", "SimulationError", "run_scenario", "simulate"]
+           "RunResult", "SimulationError", "run_scenario", "simulate", "Simulation", "Trajectory"]

@@ -240,7 +240,8 @@ def _cmd_check(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
 
 
 def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
-    from sim.loop.simulate import SimulationError, run_scenario
+    from sim.experiments.run import run_scenario
+    from sim.loop.simulation import SimulationError
 
     _check_duration(args, parser)
     scenario = _scenario_for(args.scenario, args)
@@ -370,7 +371,8 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     else:
         out = _fresh_folder(Path("runs") / ("compare" if args.subject is None else f"compare-{args.subject}"))
     if scenario_mode:
-        from sim.loop.simulate import SimulationError, run_scenario
+        from sim.experiments.run import Batch, run_scenario
+        from sim.loop.simulation import SimulationError
 
         if len(args.inputs) > 1:
             parser.error("give one scenario file, or run folders only")
@@ -383,13 +385,14 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
                 raise _UserError(f"scenario {scenario.name!r} supports the controllers "
                                  f"{', '.join(scenario.controllers)}; got {c!r}")
         run_dirs = []
+        batch = Batch()  # the runs of this comparison: one baseline, one warm-up per controller
         for c in controllers:
             bar = _progress_bar(f"{scenario.name}/{c}")
             # the human-alone baseline is the same for every controller: simulated once, then copied
             baseline = run_dirs[0] / "human_alone" if run_dirs else None
             try:
                 run_scenario(scenario, c, out / c, seed=args.seed, progress=bar.update if bar else None,
-                             baseline_from=baseline)
+                             baseline_from=baseline, batch=batch)
             except SimulationError as e:
                 raise _UserError(f"{e}; the runs so far are kept in {out}") from e
             finally:

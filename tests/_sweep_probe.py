@@ -15,36 +15,36 @@ def _pid_file(case) -> Path:
     return folder.parent / f"{folder.name}.pid"
 
 
-def run_case_noting_pid(case):
+def run_case_noting_pid(case, batch=None):
     Path(case.folder).parent.mkdir(parents=True, exist_ok=True)
     _pid_file(case).write_text(str(os.getpid()))
-    return _run_case(case)
+    return _run_case(case, batch)
 
 
 def pid_of(case) -> int:
     return int(_pid_file(case).read_text())
 
 
-def run_case_exiting_in_a_worker(case):
+def run_case_exiting_in_a_worker(case, batch=None):
     """Stop the process at once (as a crash in compiled code would) when run by a sweep's worker."""
     import multiprocessing
 
     if multiprocessing.parent_process() is not None:
         os._exit(3)
-    return _run_case(case)
+    return _run_case(case, batch)
 
 
-def run_case_noting_registries(case):
-    """Note, beside the case's folder, the pid and whether the process knows the marker baseline (``MARKER``)."""
+def run_case_noting_registries(case, batch=None):
+    """Note, beside the case's folder, the pid and whether the process's batch knows the marker baseline
+    (``MARKER_KEY``, ``MARKER_PATH``)."""
     import json
-
-    from sim.loop.simulate import _BASELINES_MADE
 
     folder = Path(case.folder)
     folder.parent.mkdir(parents=True, exist_ok=True)
-    seen = {"pid": os.getpid(), "key": MARKER_KEY in sweep._BASELINES, "made": MARKER_PATH in _BASELINES_MADE}
+    seen = {"pid": os.getpid(), "key": batch is not None and batch.baseline_for(MARKER_KEY) is not None,
+            "made": batch is not None and batch.made(MARKER_PATH)}
     (folder.parent / f"{folder.name}.registries.json").write_text(json.dumps(seen))
-    return _run_case(case)
+    return _run_case(case, batch)
 
 
 def registries_of(case) -> dict:

@@ -46,7 +46,8 @@ from sim.experiments.bench import (
 )
 from sim.loop.runlog import load_run
 from sim.loop.scenario import load_scenario
-from sim.loop.simulate import build_assembly, controller_context, simulate
+from sim.loop.simulate import simulate
+from sim.loop.simulation import build_assembly, controller_context
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 

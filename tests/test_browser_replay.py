@@ -24,8 +24,8 @@ import pytest
 pytest.importorskip("meshcat")
 
 import sim.output.viz as viz  # noqa: E402
+from sim.experiments.run import run_scenario  # noqa: E402
 from sim.loop.scenario import load_scenario  # noqa: E402
-from sim.loop.simulate import run_scenario  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
 STEEL_BLUE = np.array([0.22, 0.40, 0.64]) * 255  # exo frame colour in the URDF

@@ -181,17 +181,19 @@ def test_a_worker_that_dies_fails_its_case_and_the_others_complete(tiny, tmp_pat
 
 
 def test_a_worker_reuses_only_the_baselines_it_made(tiny, tmp_path, monkeypatch):
-    # a forked worker starts as a copy of this process: it must forget the baselines this process made
+    # a forked worker starts as a copy of this process: it must not know the baselines this process made
     # before the sweep (reusable_baseline trusts only a baseline its own process simulated)
-    import importlib
     import os
 
     import _sweep_probe
 
-    monkeypatch.setattr("sim.experiments.sweep._BASELINES", {_sweep_probe.MARKER_KEY: "/nowhere"})
-    monkeypatch.setattr(importlib.import_module("sim.loop.simulate"), "_BASELINES_MADE", {_sweep_probe.MARKER_PATH})
+    from sim.experiments.run import Batch
+
+    batch = Batch()  # this process's, with a baseline made before the sweep
+    batch.share(_sweep_probe.MARKER_KEY, "/nowhere")
+    batch.record(_sweep_probe.MARKER_PATH)
     monkeypatch.setattr("sim.experiments.sweep.run_case", _sweep_probe.run_case_noting_registries)
-    result = run_sweep(tiny, ["gravity"], ["f5"], 3, out_dir=tmp_path / "out", jobs=2)
+    result = run_sweep(tiny, ["gravity"], ["f5"], 3, out_dir=tmp_path / "out", jobs=2, batch=batch)
     assert not result.failed
     seen = [_sweep_probe.registries_of(r.case) for r in result.results]
     workers = [s for s in seen if s["pid"] != os.getpid()]
@@ -227,7 +229,7 @@ def _simulated_baselines(monkeypatch):
     """A list that grows by one folder per human-alone run simulated from now on."""
     import importlib
 
-    module = importlib.import_module("sim.loop.simulate")  # the package's name "simulate" is the function
+    module = importlib.import_module("sim.experiments.run")  # run_scenario and the simulate it calls
     made, simulate = [], module.simulate
 
     def counting(scenario, controller, folder, **kw):
@@ -242,14 +244,15 @@ def _simulated_baselines(monkeypatch):
 def test_a_copied_baseline_is_the_one_the_run_would_simulate(tiny, tmp_path, monkeypatch):
     # reference: the baseline simulated for the same controller, scenario and seed without reuse; a
     # baseline made for another seed, or not by this process, is simulated again
+    from sim.experiments.run import Batch, reusable_baseline, run_scenario
     from sim.loop.scenario import load_scenario
-    from sim.loop.simulate import reusable_baseline, run_scenario
 
     sc = load_scenario(tiny)
     made = _simulated_baselines(monkeypatch)
-    first = run_scenario(sc, "gravity", tmp_path / "gravity", seed=4, report=False)
+    batch = Batch()
+    first = run_scenario(sc, "gravity", tmp_path / "gravity", seed=4, report=False, batch=batch)
     copied = run_scenario(sc, "transparent", tmp_path / "transparent", seed=4, report=False,
-                          baseline_from=first.folder / "human_alone")
+                          baseline_from=first.folder / "human_alone", batch=batch)
     assert len(made) == 1
     fresh = run_scenario(sc, "transparent", tmp_path / "fresh", seed=4, report=False)
     assert len(made) == 2
@@ -257,14 +260,17 @@ def test_a_copied_baseline_is_the_one_the_run_would_simulate(tiny, tmp_path, mon
     numbers = [{k: v for k, v in flat_metrics(r.metrics).items() if not is_timing_key(k)} for r in (copied, fresh)]
     assert numbers[0] == numbers[1]
     run_scenario(sc, "transparent", tmp_path / "seed5", seed=5, report=False,
-                 baseline_from=first.folder / "human_alone")
-    assert len(made) == 3 and not reusable_baseline(first.folder / "human_alone", sc, seed=5)
+                 baseline_from=first.folder / "human_alone", batch=batch)
+    assert len(made) == 3 and not reusable_baseline(first.folder / "human_alone", sc, seed=5, batch=batch)
     import shutil
 
     shutil.copytree(first.folder / "human_alone", tmp_path / "elsewhere")  # the same files, not made here
-    assert reusable_baseline(first.folder / "human_alone", sc, seed=4)
-    assert not reusable_baseline(tmp_path / "elsewhere", sc, seed=4)
-    assert not reusable_baseline(tmp_path / "nowhere", sc, seed=4)
+    assert reusable_baseline(first.folder / "human_alone", sc, seed=4, batch=batch)
+    assert not reusable_baseline(tmp_path / "elsewhere", sc, seed=4, batch=batch)
+    assert not reusable_baseline(tmp_path / "nowhere", sc, seed=4, batch=batch)
+    # another batch (another process's, or none) did not make it: it simulates its own
+    assert not reusable_baseline(first.folder / "human_alone", sc, seed=4, batch=Batch())
+    assert not reusable_baseline(first.folder / "human_alone", sc, seed=4)
 
 
 def test_a_task_object_in_a_variant_is_recorded_by_class_and_attributes_and_leaves_the_baseline_shared(
@@ -275,18 +281,19 @@ def test_a_task_object_in_a_variant_is_recorded_by_class_and_attributes_and_leav
     import dataclasses
 
     from sim.experiments.bench import PythonHandCeiling
+    from sim.experiments.run import Batch, run_scenario
     from sim.loop.scenario import load_scenario
-    from sim.loop.simulate import run_scenario
 
     sc = load_scenario(tiny)
     sc = dataclasses.replace(sc, variants={"ceiling": [[PythonHandCeiling(10.0)], ["transparency"]]},
                              controllers=(*sc.controllers, "ceiling"))
     made = _simulated_baselines(monkeypatch)
-    first = run_scenario(sc, "gravity", tmp_path / "gravity", seed=4, report=False)
+    batch = Batch()
+    first = run_scenario(sc, "gravity", tmp_path / "gravity", seed=4, report=False, batch=batch)
     more = dataclasses.replace(sc, variants={**sc.variants, "soft": [["transparency"]]},
                                controllers=(*sc.controllers, "soft"))
     run_scenario(more, "ceiling", tmp_path / "ceiling", seed=4, report=False,
-                 baseline_from=first.folder / "human_alone")
+                 baseline_from=first.folder / "human_alone", batch=batch)
     assert len(made) == 1
     recorded = json.loads((tmp_path / "ceiling" / "meta.json").read_text(encoding="utf-8"))["parameters"]
     task = recorded["variants"]["ceiling"][0][0]
@@ -296,8 +303,6 @@ def test_a_task_object_in_a_variant_is_recorded_by_class_and_attributes_and_leav
 
 
 def test_compare_and_a_one_job_sweep_simulate_one_baseline_per_wearer_and_seed(tiny, tmp_path, monkeypatch):
-    import sim.experiments.sweep
-
     made = _simulated_baselines(monkeypatch)
     out = tmp_path / "cmp"
     assert main(["compare", str(tiny), "--controller", "gravity", "--controller", "zero", "--controller",
@@ -305,7 +310,6 @@ def test_compare_and_a_one_job_sweep_simulate_one_baseline_per_wearer_and_seed(t
     assert len(made) == 1
     for c in ("zero", "transparent"):
         assert _baseline_files(out / c) == _baseline_files(out / "gravity")
-    monkeypatch.setattr(sim.experiments.sweep, "_BASELINES", {})
     made.clear()
     result = run_sweep(tiny, ["gravity", "transparent"], ["f5", "m95"], 2, out_dir=tmp_path / "sw", jobs=1)
     assert not result.failed and len(result.results) == 8

@@ -20,9 +20,9 @@ import pinocchio as pin
 import pytest
 
 from sim.analysis.derived import DERIVED_CUFF_COLUMNS, _joint_placements_loop, cuff_columns, joint_placements
+from sim.experiments.run import evaluate_run, run_scenario
 from sim.loop.runlog import Run, RunLog, RunLogError, load_run
 from sim.loop.scenario import load_scenario
-from sim.loop.simulate import evaluate_run, run_scenario
 from sim.physics.plant import CoupledPlant
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
@@ -56,7 +56,7 @@ def wall_run(tmp_path_factory):
     sc = dataclasses.replace(load_scenario(SCENARIOS / "wall_push.py"), duration_s=1.5)
     _RecordingPlant.records = {}
     mp = pytest.MonkeyPatch()
-    mp.setattr(importlib.import_module("sim.loop.simulate"), "CoupledPlant", _RecordingPlant)
+    mp.setattr(importlib.import_module("sim.loop.simulation"), "CoupledPlant", _RecordingPlant)
     try:
         run_scenario(sc, "walls", root / "run", report=False)
     finally:

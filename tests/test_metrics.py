@@ -38,8 +38,9 @@ from sim.analysis.metrics import (
     wall_contacts,
     wall_cycle_energy_returned_J,
 )
+from sim.experiments.run import evaluate_run
 from sim.loop.scenario import load_scenario
-from sim.loop.simulate import evaluate_run, simulate
+from sim.loop.simulate import simulate
 from sim.output.report import best_index, best_indices, comparison_rows, headline, sweep_verdicts
 from sim.physics.plant import PlantParams
 
@@ -342,7 +343,7 @@ def test_every_metric_key_documented_in_the_readme():
 
 
 def test_run_folder_metrics_hold_every_issue_key(tmp_path):
-    from sim.loop.simulate import run_scenario
+    from sim.experiments.run import run_scenario
 
     path = write_scenario(tmp_path / "s.py", duration_s="0.3", controllers='("transparent",)')
     r = run_scenario(load_scenario(path), "transparent", tmp_path / "run")

@@ -24,8 +24,9 @@ from controllers.base import Controller
 from controllers.registry import CONTROLLERS
 from models.records import Measurement
 from sim.cli import main
+from sim.experiments.run import run_scenario
 from sim.loop.scenario import load_scenario
-from sim.loop.simulate import run_scenario, simulate
+from sim.loop.simulate import simulate
 
 REPO = Path(__file__).resolve().parents[1]
 REACH = REPO / "scenarios" / "reach.py"
@@ -161,7 +162,8 @@ def test_duration_deviation_and_effort_match_the_log_and_its_human_alone_baselin
 
 
 def test_timing_metrics_come_from_the_wall_clock_tick_times(run_folder):
-    # tick times are kept apart from the log (timing.npz, sim/loop/simulate.py); realtime factor = sim time / wall time
+    # tick times are kept apart from the log (timing.npz, sim/loop/simulation.py);
+    # realtime factor = sim time / wall time
     with np.load(run_folder / "timing.npz") as f:
         ticks = f["tick_time_s"]
     m = json.loads((run_folder / "metrics.json").read_text())
@@ -193,7 +195,7 @@ def _all_logs(folder: Path) -> dict[str, bytes]:
 
 
 def test_same_seed_gives_the_same_log_bit_for_bit_and_another_seed_changes_the_sensed_wrenches(tmp_path):
-    # simulate.py: all randomness comes from one seed, the same seed gives bit-identical logs
+    # sim/loop/simulation.py: all randomness comes from one seed, the same seed gives bit-identical logs
     scenario = load_scenario(write_scenario(tmp_path / "short.py", duration_s="1.05"))  # 2 chunks of the log
     a = run_scenario(scenario, "gravity", tmp_path / "a", seed=3).folder
     b = run_scenario(scenario, "gravity", tmp_path / "b", seed=3).folder

@@ -20,7 +20,8 @@ from controllers.base import Controller
 from controllers.registry import CONTROLLERS
 from sim.cli import main
 from sim.loop.scenario import load_scenario
-from sim.loop.simulate import SimulationError, simulate
+from sim.loop.simulate import simulate
+from sim.loop.simulation import SimulationError
 
 REPO = Path(__file__).resolve().parents[1]
 REACH = REPO / "scenarios" / "reach.py"

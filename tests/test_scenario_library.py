@@ -31,8 +31,9 @@ from models.coupling import matching_exo_posture
 from models.human import SUBJECTS, hand_position_m
 from sim import load_run, simulate
 from sim.analysis.metrics import joint_limit_violation_count, plane_penetration_m
+from sim.experiments.run import run_scenario
 from sim.loop.scenario import load_scenario
-from sim.loop.simulate import build_assembly, run_scenario
+from sim.loop.simulation import build_assembly
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 FILES = tuple(sorted(p.stem for p in SCENARIOS.glob("*.py") if p.stem != "__init__"))

@@ -24,8 +24,8 @@ from models.records import Measurement
 from sim import load_run, simulate
 from sim.analysis.derived import cuff_columns
 from sim.analysis.metrics import joint_limit_violation_count, wall_metrics
+from sim.experiments.run import run_scenario
 from sim.loop.scenario import load_scenario
-from sim.loop.simulate import run_scenario
 
 SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 

@@ -20,9 +20,9 @@ pytest.importorskip("meshcat")
 
 import sim.output.viz as viz  # noqa: E402
 from sim.analysis.derived import cuff_columns  # noqa: E402
+from sim.experiments.run import run_scenario  # noqa: E402
 from sim.loop.runlog import load_run  # noqa: E402
 from sim.loop.scenario import load_scenario  # noqa: E402
-from sim.loop.simulate import run_scenario  # noqa: E402
 
 REPO = Path(__file__).resolve().parents[1]
 DURATION_S = 0.5

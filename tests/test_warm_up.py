@@ -1,4 +1,4 @@
-"""``sim.loop.simulate.warm_up``: the compiled kernels are loaded before a run's timed loop, once per process.
+"""``sim.experiments.run.warm_up``: the compiled kernels are loaded before a run's timed loop, once per batch.
 
 No timing is asserted here (the bench prints figures): these tests check the
 mechanism, that the warm-up leaves nothing behind, and that a failing warm-up
@@ -14,15 +14,16 @@ import tempfile
 import pytest
 from _scenario_files import write_scenario
 
+from sim.experiments.run import Batch
 from sim.loop.scenario import load_scenario
+from sim.loop.simulation import SimulationError
 
-simulate_module = importlib.import_module("sim.loop.simulate")  # the package's name "simulate" is the function
+simulate_module = importlib.import_module("sim.experiments.run")  # run_scenario, warm_up and the simulate they call
 
 
 @pytest.fixture()
 def fresh(monkeypatch, tmp_path):
-    """An empty registry of warmed pairs and a temporary folder of this test's own."""
-    monkeypatch.setattr(simulate_module, "_WARMED", set())
+    """A temporary folder of this test's own."""
     monkeypatch.setattr(tempfile, "tempdir", str(tmp_path / "tmp"))
     (tmp_path / "tmp").mkdir()
     return tmp_path
@@ -30,6 +31,7 @@ def fresh(monkeypatch, tmp_path):
 
 def test_warm_up_runs_once_per_scenario_and_controller_and_leaves_nothing(fresh, monkeypatch):
     sc = load_scenario(write_scenario(fresh / "s.py", name='"warm"'))
+    batch = Batch()  # an empty registry of warmed pairs
     runs = []
     simulate = simulate_module.simulate
 
@@ -38,9 +40,9 @@ def test_warm_up_runs_once_per_scenario_and_controller_and_leaves_nothing(fresh,
         return simulate(scenario, controller, folder, **kw)
 
     monkeypatch.setattr(simulate_module, "simulate", counting)
-    assert simulate_module.warm_up(sc, "gravity") > 0.0
-    assert simulate_module.warm_up(sc, "gravity") == 0.0  # already warm: nothing run
-    assert simulate_module.warm_up(sc, "zero") > 0.0  # another controller is another pair
+    assert simulate_module.warm_up(sc, "gravity", batch) > 0.0
+    assert simulate_module.warm_up(sc, "gravity", batch) == 0.0  # already warm: nothing run
+    assert simulate_module.warm_up(sc, "zero", batch) > 0.0  # another controller is another pair
     assert runs == [(simulate_module.WARM_UP_TICKS, "gravity"), (simulate_module.WARM_UP_TICKS, "zero")]
     assert list((fresh / "tmp").iterdir()) == []  # the throw-away runs are removed
 
@@ -63,18 +65,19 @@ def test_run_scenario_warms_up_before_its_runs_and_keeps_its_folder_as_before(fr
 
 def test_a_warm_up_that_fails_is_silent_and_the_run_reports_the_error(fresh, monkeypatch):
     sc = load_scenario(write_scenario(fresh / "s.py", name='"warm"'))
+    batch = Batch()
     simulate = simulate_module.simulate
 
     def failing(scenario, controller, folder, **kw):
-        raise simulate_module.SimulationError(f"non-finite plant state in {folder}")
+        raise SimulationError(f"non-finite plant state in {folder}")
 
     monkeypatch.setattr(simulate_module, "simulate", failing)
-    assert simulate_module.warm_up(sc, "gravity") >= 0.0  # no exception
-    assert ("warm", "gravity") not in simulate_module._WARMED  # tried again next time
-    with pytest.raises(simulate_module.SimulationError, match=re.escape(str(fresh / "out"))):
-        simulate_module.run_scenario(sc, "gravity", fresh / "out", report=False)
+    assert simulate_module.warm_up(sc, "gravity", batch) >= 0.0  # no exception
+    assert not batch.warmed("warm", "gravity")  # tried again next time
+    with pytest.raises(SimulationError, match=re.escape(str(fresh / "out"))):
+        simulate_module.run_scenario(sc, "gravity", fresh / "out", report=False, batch=batch)
     monkeypatch.setattr(simulate_module, "simulate", simulate)
-    assert simulate_module.warm_up(sc, "gravity") > 0.0 and ("warm", "gravity") in simulate_module._WARMED
+    assert simulate_module.warm_up(sc, "gravity", batch) > 0.0 and batch.warmed("warm", "gravity")
 
 
 def test_a_controller_loads_at_reset_the_kernel_of_its_rare_qp_ticks_with_their_argument_types(tmp_path,
@@ -136,7 +139,7 @@ def test_a_preload_that_fails_does_not_stop_the_reset(monkeypatch):
 
     from controllers.hqp import HierarchySolver, QPSolveError
     from controllers.registry import make_controller
-    from sim.loop.simulate import build_assembly, controller_context
+    from sim.loop.simulation import build_assembly, controller_context
 
     sc = load_scenario(Path(__file__).resolve().parents[1] / "scenarios" / "wall_push.py")
     context = controller_context(build_assembly(sc), sc.control_period_s)

@@ -38,6 +38,7 @@ joint types falls back to ``pinocchio.forwardKinematics`` tick by tick.
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from types import MappingProxyType
 
 import numpy as np
 import pinocchio as pin
@@ -50,7 +51,8 @@ __all__ = ["DERIVED_CUFF_COLUMNS", "cuff_columns", "joint_placements"]
 DERIVED_CUFF_COLUMNS = ("cuff_wrench_exo", "cuff_force_human_world")
 
 _BLOCK_TICKS = 4096  # ticks per block of the vectorised kinematics
-_UNIT_AXES = {"JointModelRX": (1.0, 0.0, 0.0), "JointModelRY": (0.0, 1.0, 0.0), "JointModelRZ": (0.0, 0.0, 1.0)}
+_UNIT_AXES = MappingProxyType(
+    {"JointModelRX": (1.0, 0.0, 0.0), "JointModelRY": (0.0, 1.0, 0.0), "JointModelRZ": (0.0, 0.0, 1.0)})
 
 
 def _revolute_axis(joint) -> np.ndarray | None:

@@ -23,8 +23,10 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from types import MappingProxyType
 
 import numpy as np
+import pinocchio as pin
 
 __all__ = [
     "interaction_force_norm_N",
@@ -446,8 +448,6 @@ def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: 
     potential energy (the same values as the separate algorithms, to rounding;
     tested); the products over the cuffs and joints run on all ticks at once.
     """
-    import pinocchio as pin
-
     model = arm.model
     data = model.createData()
     q, dq = np.asarray(arrays["q_exo"]), np.asarray(arrays["dq_exo"])
@@ -504,7 +504,8 @@ def _derived_column(arrays: Mapping[str, np.ndarray], name: str) -> np.ndarray:
 #: Quasi-static force limits [N] per body region, ISO/TS 15066:2016 Annex A ([ISO15066]_):
 #: hand and fingers 140 N (confirmed); upper arm and elbow 150 N, lower arm and wrist 160 N (from memory,
 #: unconfirmed).  Keyed by the default cuff names; a scenario may override or add (``force_limits_N``).
-BODY_REGION_FORCE_LIMITS_N: dict[str, float] = {"upper_arm": 150.0, "forearm": 160.0, "hand": 140.0}
+BODY_REGION_FORCE_LIMITS_N: Mapping[str, float] = MappingProxyType(
+    {"upper_arm": 150.0, "forearm": 160.0, "hand": 140.0})
 
 
 def force_limit_exceed_count(cuff_wrench: np.ndarray, names: Sequence[str], limits_N: Mapping[str, float]) -> int:
@@ -648,7 +649,7 @@ class MetricInfo:
 
 
 #: Every top-level scalar key of ``metrics.json``, in the order tables show them.
-METRICS: dict[str, MetricInfo] = {
+METRICS: Mapping[str, MetricInfo] = MappingProxyType({
     "interaction_force_rms_N": MetricInfo("N", "lower", "interaction force, RMS", True),
     "interaction_force_free_rms_N": MetricInfo("N", "lower", "interaction force outside the wall, RMS", True),
     "interaction_force_peak_N": MetricInfo("N", "lower", "interaction force, peak", True),
@@ -682,7 +683,7 @@ METRICS: dict[str, MetricInfo] = {
     "tick_time_p99_us": MetricInfo("us", "lower", "whole tick, 99th percentile"),
     "realtime_factor": MetricInfo("-", "higher", "realtime factor", True),
     "sim_duration_s": MetricInfo("s", None, "simulated time"),
-}
+})
 
 #: Keys that measure this machine's wall clock: they differ between executors and runs; every other key is a
 #: function of (scenario, controller, subject, seed) alone.

@@ -72,6 +72,7 @@ import contextlib
 import cProfile
 import dataclasses
 import functools
+import importlib
 import io
 import math
 import multiprocessing
@@ -81,9 +82,10 @@ import resource
 import tempfile
 import time
 import warnings
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 import pinocchio as pin
@@ -98,9 +100,12 @@ from models._checks import finite
 from models.chain import ChainParams, build_chain
 from models.errors import ParameterError, SandboxError
 from models.records import Measurement
+from sim.experiments.run import run_scenario
+from sim.experiments.sweep import plan_sweep, run_case, run_sweep, serve
 from sim.loop.runlog import RunLog, load_run
 from sim.loop.scenario import Scenario, load_scenario
-from sim.loop.simulate import build_assembly, controller_context, run_scenario, simulate
+from sim.loop.simulate import simulate
+from sim.loop.simulation import build_assembly, controller_context
 from sim.physics.sensors import EncoderParams, JointSensing
 
 __all__ = [
@@ -251,7 +256,7 @@ def tick_statistics(folder: str | Path, dt_s: float) -> dict:
 # where the time of a tick goes
 
 #: Stages of the control tick and the methods whose own time (without the nested stages) each one counts.
-TICK_STAGES: dict[str, tuple[tuple[str, str, str], ...]] = {
+TICK_STAGES: Mapping[str, tuple[tuple[str, str, str], ...]] = MappingProxyType({
     "plant": (("sim.physics.plant", "CoupledPlant", "advance"), ("sim.physics.plant", "CoupledPlant", "update_cuffs"),
               ("sim.physics.plant", "CoupledPlant", "hand_position"),
               ("sim.physics.plant", "CoupledPlant", "state_is_finite")),
@@ -264,7 +269,7 @@ TICK_STAGES: dict[str, tuple[tuple[str, str, str], ...]] = {
     "controller rows and solve": (("controllers.hqp_controller", "HQPController", "step"),),
     "wearer's motor": (("sim.physics.wearer", "HumanMotor", "torque"),),
     "logging": (("sim.loop.runlog", "RunLog", "append_row"), ("sim.loop.runlog", "RunLog", "append")),
-}
+})
 
 
 class _StageClock:
@@ -301,8 +306,6 @@ def tick_breakdown(scenario: Scenario, folder: str | Path, controller: str = "wa
     Means, so that the stages add up to the mean tick; the tick median of an
     instrumented run is not the bench's figure (that is the reference run).
     """
-    import importlib
-
     clock = _StageClock()
     per_tick = {stage: [] for stage in TICK_STAGES}
     last = dict.fromkeys(TICK_STAGES, 0.0)
@@ -807,8 +810,6 @@ def sweep_throughput(scenario_path: str | Path, subjects: Sequence[str], control
 
 def _sweep_child(scenario_path: str, controllers: list, subjects: list, seeds: int, duration_s: float, out_dir: str,
                  jobs: int) -> list[str]:
-    from sim.experiments.sweep import run_sweep
-
     result = run_sweep(scenario_path, controllers, subjects, seeds, out_dir=Path(out_dir), jobs=jobs,
                        duration_s=duration_s)
     return [c.error for c in result.results if c.error]
@@ -837,8 +838,6 @@ class TwoWarmProcesses:
 
     def __init__(self, scenario_path: str | Path, subject: str, controller: str, duration_s: float,
                  out_dir: str | Path) -> None:
-        from sim.experiments.sweep import plan_sweep
-
         self._template = plan_sweep(scenario_path, [controller], [subject], 1, out_dir, duration_s=duration_s)[0]
         self._out = Path(out_dir).resolve()
         self._seed = 10_000  # seeds of their own, far from a scenario's, each used once
@@ -861,8 +860,6 @@ class TwoWarmProcesses:
     @staticmethod
     def _exchange(workers: Sequence, cases: Sequence) -> list:
         """Send each worker its case, then collect the results; a worker that has gone is a BenchError."""
-        from sim.experiments.sweep import run_case
-
         try:
             for (_proc, conn), case in zip(workers, cases):
                 conn.send((run_case, case))
@@ -873,13 +870,11 @@ class TwoWarmProcesses:
                              f"{type(e).__name__}") from e
 
     def __enter__(self) -> TwoWarmProcesses:
-        from sim.experiments.sweep import _serve
-
         ctx = multiprocessing.get_context("spawn")
         try:
             for _ in range(2):
                 ours, theirs = ctx.Pipe()
-                proc = ctx.Process(target=_serve, args=(theirs,), name="exosandbox-bench-ceiling", daemon=True)
+                proc = ctx.Process(target=serve, args=(theirs,), name="exosandbox-bench-ceiling", daemon=True)
                 proc.start()
                 theirs.close()
                 self._workers.append((proc, ours))
@@ -924,7 +919,7 @@ def _memory_child(scenario_path: str, duration_s: float, out: str) -> dict:
 def memory_run(scenario_path: str | Path, duration_s: float, out: str | Path) -> dict:
     """Peak resident memory and log size of a reference run of ``duration_s``, in a fresh child process.
 
-    The child runs :func:`sim.loop.simulate.run_scenario` (coupled run, human-alone
+    The child runs :func:`sim.experiments.run.run_scenario` (coupled run, human-alone
     baseline, metrics) and reports ``resource.getrusage(RUSAGE_SELF).ru_maxrss``
     (KiB on Linux), so the benchmark process itself does not count.
     """

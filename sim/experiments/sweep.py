@@ -18,11 +18,12 @@ embarrassingly parallel map.  Two executors run the same function,
 A run's numbers depend only on its scenario, controller, subject and seed,
 never on the executor (the logs are bit-identical per seed), except the
 wall-clock figures (:data:`sim.analysis.metrics.TIMING_KEYS`). The human-alone
-baseline does not depend on the controller: a process that already ran a
-case of the same wearer and seed copies its baseline
-(:func:`sim.loop.simulate.run_scenario`'s ``baseline_from``) instead of
-simulating it again.  A run that fails is
-recorded with its error; the others go on.
+baseline does not depend on the controller: a local process that already ran
+a case of the same wearer and seed copies its baseline
+(:func:`sim.experiments.run.run_scenario`'s ``baseline_from``, through the
+process's :class:`~sim.experiments.run.Batch`) instead of simulating it again
+(a Dask task simulates its own).  A run that fails is recorded with its
+error; the others go on.
 
 Output folder::
 
@@ -55,12 +56,16 @@ run, and every table is then as the uninterrupted sweep's.
 from __future__ import annotations
 
 import csv
+import hashlib
 import json
 import math
+import multiprocessing
 import os
+import queue
 import shutil
 import statistics
 import sys
+import threading
 import time
 import traceback
 from collections.abc import Callable, Iterable, Mapping, Sequence
@@ -72,9 +77,15 @@ import numpy as np
 from models.errors import ParameterError, SandboxError, UnknownNameError
 from models.human import SUBJECTS
 from sim.analysis.metrics import METRICS, flat_metrics
+from sim.analysis.tables import run_rows, write_csv, write_json
+from sim.experiments.run import Batch, run_scenario
+from sim.loop.runlog import environment_metadata
 from sim.loop.scenario import load_scenario
+from sim.output.report import write_sweep_report, write_sweeps_report
 
-__all__ = ["SweepCase", "CaseResult", "SweepResult", "SweepError", "run_case", "run_sweep", "summarize"]
+__all__ = ["SweepCase", "CaseResult", "SweepResult", "SweepError", "run_case", "run_sweep", "summarize", "serve",
+           "baseline_key", "plan_sweep", "scenario_files", "scenario_folders", "sweep_plan", "check_plan",
+           "load_sweep", "PLAN_FILE"]
 
 
 class SweepError(SandboxError, ValueError):
@@ -129,29 +140,29 @@ class SweepResult:
         return tuple(r for r in self.results if not r.ok)
 
 
-#: Per process: (scenario file, subject, seed, duration) -> the human-alone baseline of a case this process ran.
-_BASELINES: dict[tuple, str] = {}
+def run_case(case: SweepCase, batch: Batch | None = None) -> CaseResult:
+    """Run one case (:func:`sim.experiments.run.run_scenario`) and return its metrics or its error.
 
-
-def run_case(case: SweepCase) -> CaseResult:
-    """Run one case (:func:`sim.loop.simulate.run_scenario`) and return its metrics or its error.
+    ``batch``: the :class:`~sim.experiments.run.Batch` of the process running
+    the case, whose human-alone baseline of another controller's case of the
+    same wearer and seed (:func:`baseline_key`) is copied instead of simulated
+    again; none (a Dask task): every case simulates its own.
 
     Never raises for a failing run: the error (type and message, plus the last
     traceback line for an unexpected one) is returned, so one bad combination
     does not stop a sweep.
     """
-    from sim.loop.simulate import run_scenario
-
     t0 = time.perf_counter()
-    key = _baseline_key(case)
+    key = baseline_key(case)
+    batch = Batch() if batch is None else batch
     try:
         scenario = load_scenario(case.scenario_path, subject=case.subject)
         if case.duration_s is not None:
             scenario = replace(scenario, duration_s=case.duration_s)
         # the human-alone baseline of another controller's case of this wearer and seed, if this process ran one
         result = run_scenario(scenario, case.controller, case.folder, seed=case.seed,
-                              baseline_from=_BASELINES.get(key))
-        _BASELINES.setdefault(key, str(Path(case.folder) / "human_alone"))
+                              baseline_from=batch.baseline_for(key), batch=batch)
+        batch.share(key, Path(case.folder) / "human_alone")
         return CaseResult(case, result.metrics, None, time.perf_counter() - t0)
     except SandboxError as e:
         return CaseResult(case, None, f"{type(e).__name__}: {e}", time.perf_counter() - t0)
@@ -240,7 +251,7 @@ def scenario_folders(scenario_paths: Sequence[str | Path]) -> dict[str, str]:
     return folders
 
 
-def _baseline_key(case: SweepCase) -> tuple:
+def baseline_key(case: SweepCase) -> tuple:
     """The cases of one key share their human-alone baseline (it does not depend on the controller)."""
     return (case.scenario_path, case.subject, case.seed, case.duration_s)
 
@@ -258,21 +269,21 @@ def _start_method() -> str:
     return "fork" if sys.platform.startswith("linux") else "spawn"
 
 
-def _serve(conn) -> None:
-    """A worker process: run each ``(function, case)`` it is sent and send back the result, until sent ``None``.
+def serve(conn) -> None:
+    """A worker process: run each ``(function, case)`` it is sent, as ``function(case, batch)``, and send back the
+    result, until sent ``None``.
 
-    A forked worker forgets the baselines its parent made: it reuses only those it
-    simulates itself, as a spawned one does.  Interrupted (Ctrl-C reaches every
-    process of the terminal), it stops quietly; the parent reports the case.
+    The worker makes its own :class:`~sim.experiments.run.Batch`: a forked
+    worker never trusts the baselines its parent made, and reuses only those
+    it simulates itself, as a spawned one does.  Interrupted (Ctrl-C reaches
+    every process of the terminal), it stops quietly; the parent reports the
+    case.
     """
-    from sim.loop.simulate import _BASELINES_MADE
-
-    _BASELINES.clear()
-    _BASELINES_MADE.clear()
+    batch = Batch()
     try:
         while (job := conn.recv()) is not None:
             fn, case = job
-            conn.send(fn(case))
+            conn.send(fn(case, batch))
     except (KeyboardInterrupt, EOFError, OSError):  # interrupted, or the parent has gone
         pass
     finally:
@@ -282,13 +293,11 @@ def _serve(conn) -> None:
 class _CaseQueue:
     """The cases left, handed out one at a time to the process that asks for one (thread-safe).
 
-    A process asks with the set of baseline keys (:func:`_baseline_key`) of
+    A process asks with the set of baseline keys (:func:`baseline_key`) of
     the cases it has taken, which :meth:`take` updates.
     """
 
     def __init__(self, cases: Iterable[SweepCase]) -> None:
-        import threading
-
         self._todo = list(cases)
         self._lock = threading.Lock()
         self._started: set[tuple] = set()  # keys some process has taken a case of
@@ -300,11 +309,11 @@ class _CaseQueue:
             todo = self._todo
             if not todo:
                 return None
-            i = next((i for i, c in enumerate(todo) if _baseline_key(c) in mine),
-                     next((i for i, c in enumerate(todo) if _baseline_key(c) not in self._started), 0))
+            i = next((i for i, c in enumerate(todo) if baseline_key(c) in mine),
+                     next((i for i, c in enumerate(todo) if baseline_key(c) not in self._started), 0))
             case = todo.pop(i)
-            self._started.add(_baseline_key(case))
-            mine.add(_baseline_key(case))
+            self._started.add(baseline_key(case))
+            mine.add(baseline_key(case))
             return case
 
     def clear(self) -> None:
@@ -312,7 +321,7 @@ class _CaseQueue:
             self._todo.clear()
 
 
-def _local(cases: Sequence[SweepCase], jobs: int) -> Iterable[CaseResult]:
+def _local(cases: Sequence[SweepCase], jobs: int, batch: Batch) -> Iterable[CaseResult]:
     """Run the cases ``jobs`` at a time: in ``jobs - 1`` worker processes and in this process.
 
     Every worker is started (:func:`_start_method`) before any thread, and is
@@ -328,12 +337,8 @@ def _local(cases: Sequence[SweepCase], jobs: int) -> Iterable[CaseResult]:
     """
     if jobs == 1:
         for c in cases:
-            yield run_case(c)
+            yield run_case(c, batch)
         return
-    import multiprocessing
-    import queue
-    import threading
-
     todo = _CaseQueue(cases)
     finished: queue.SimpleQueue = queue.SimpleQueue()
     _done = object()  # a driving thread's last item
@@ -363,7 +368,7 @@ def _local(cases: Sequence[SweepCase], jobs: int) -> Iterable[CaseResult]:
     try:
         for _ in range(jobs - 1):  # every worker before any thread: a fork copies no thread's locks
             ours, theirs = ctx.Pipe()
-            proc = ctx.Process(target=_serve, args=(theirs,), name="exosandbox-sweep-worker", daemon=True)
+            proc = ctx.Process(target=serve, args=(theirs,), name="exosandbox-sweep-worker", daemon=True)
             proc.start()
             theirs.close()
             workers.append((proc, ours))
@@ -371,7 +376,7 @@ def _local(cases: Sequence[SweepCase], jobs: int) -> Iterable[CaseResult]:
                    for w in workers]
         for t in threads:
             t.start()
-        mine: set[tuple] = set(_BASELINES)
+        mine: set[tuple] = set(batch.keys)
         running = len(threads)
         while True:
             while running and not finished.empty():
@@ -383,7 +388,7 @@ def _local(cases: Sequence[SweepCase], jobs: int) -> Iterable[CaseResult]:
             case = todo.take(mine)
             if case is None:
                 break
-            yield run_case(case)
+            yield run_case(case, batch)
         while running:
             item = finished.get()
             if item is _done:
@@ -432,6 +437,7 @@ def run_sweep(
     duration_s: float | None = None,
     on_result: Callable[[CaseResult], None] | None = None,
     resume: bool = False,
+    batch: Batch | None = None,
 ) -> SweepResult:
     """Run every (controller, subject, seed) of a scenario, or of several, and write the tables, plots and report.
 
@@ -475,6 +481,10 @@ def run_sweep(
         the same software versions (:func:`check_plan`); a run folder left
         unfinished (no ``report.md``) is deleted and run again, with the same
         seed, so with the same numbers.
+    batch : Batch, optional
+        The :class:`~sim.experiments.run.Batch` of this process (its
+        baselines and warmed-up pairs), to share with earlier runs of this
+        process; default: a new one.  Worker processes make their own.
 
     Returns
     -------
@@ -515,8 +525,6 @@ def run_sweep(
             if c.folder not in finished and Path(c.folder).exists():
                 shutil.rmtree(c.folder)
     else:
-        from sim.loop.simulate import write_json
-
         out.mkdir(parents=True, exist_ok=True)
         write_json(out / PLAN_FILE, plan)
     todo = [c for c in cases if c.folder not in finished]
@@ -524,8 +532,6 @@ def run_sweep(
     settings = {"controllers": list(dict.fromkeys(c.controller for c in cases)),
                 "subjects": list(dict.fromkeys(subjects)), "seeds": sorted({c.seed for c in cases}),
                 "duration_s": duration_s, "executor": executor}
-    from sim.output.report import write_sweep_report, write_sweeps_report
-
     left = {name: sum(c.scenario == name for c in todo) for name in folders.values()}
     parts: dict[str, SweepResult] = {}
     bar = _bar(len(cases), len(finished)) if progress else None
@@ -538,7 +544,8 @@ def run_sweep(
     if not todo:
         runner: Iterable[CaseResult] = ()
     else:
-        runner = _dask(todo, dask_address) if dask_address else _local(todo, min(jobs, len(todo)))
+        runner = (_dask(todo, dask_address) if dask_address
+                  else _local(todo, min(jobs, len(todo)), Batch() if batch is None else batch))
     try:
         for r in runner:
             done[r.case.folder] = r
@@ -575,10 +582,6 @@ def sweep_plan(cases: Sequence[SweepCase], out: Path) -> dict:
     """What a resumed sweep must share with the sweep it goes on with: its cases (folder relative to ``out``,
     scenario file, controller, subject, seed, duration), the SHA-256 of every scenario file, and the software
     (:func:`sim.loop.runlog.environment_metadata` without ``git_dirty``)."""
-    import hashlib
-
-    from sim.loop.runlog import environment_metadata
-
     root = out.resolve()
     files = {}
     for c in cases:
@@ -646,8 +649,6 @@ def _finished_cases(out: Path, cases: Sequence[SweepCase]) -> dict[str, CaseResu
 def _write_part(out: Path, last: SweepCase, cases: Sequence[SweepCase], done: Mapping[str, CaseResult],
                 settings: Mapping, t0: float, n_scenarios: int) -> SweepResult:
     """The one-scenario sweep folder of ``last``'s scenario in a sweep over several: its tables, plots and report."""
-    from sim.output.report import write_sweep_report
-
     mine = [c for c in cases if c.scenario == last.scenario]
     # as a one-scenario sweep of its own: the cases without the scenario's name, their folders relative to its folder
     results = tuple(replace(done[c.folder], case=replace(c, scenario="")) for c in mine)
@@ -663,8 +664,6 @@ def _write_part(out: Path, last: SweepCase, cases: Sequence[SweepCase], done: Ma
 
 def _bar(total: int, initial: int = 0):
     try:
-        import sys
-
         from tqdm import tqdm
 
         class Bar(tqdm):
@@ -676,34 +675,7 @@ def _bar(total: int, initial: int = 0):
         return None
 
 
-# -- tables ---------------------------------------------------------------------------------
-def run_rows(results: Sequence[CaseResult]) -> list[dict]:
-    """One flat row per run: controller, subject, seed, status, error, folder (relative to the sweep's), then every
-    scalar metric; in a sweep over several scenarios, the scenario first."""
-    rows = []
-    for r in results:
-        row = {"scenario": r.case.scenario} if r.case.scenario else {}
-        row |= {"controller": r.case.controller, "subject": r.case.subject, "seed": r.case.seed,
-                "status": "ok" if r.ok else "failed", "error": r.error or "", "folder": r.case.label,
-                "wall_time_s": round(r.wall_time_s, 3)}
-        if r.metrics is not None:
-            row |= flat_metrics(r.metrics)
-        rows.append(row)
-    return rows
-
-
-def write_csv(path: Path, rows: Sequence[dict]) -> None:
-    """Write rows (dicts) as CSV with the union of their keys as header, in first-seen order; atomically."""
-    keys = list(dict.fromkeys(k for row in rows for k in row))
-    tmp = path.with_name(path.name + ".tmp")
-    with tmp.open("w", newline="", encoding="utf-8") as f:
-        w = csv.DictWriter(f, fieldnames=keys, restval="")
-        w.writeheader()
-        for row in rows:
-            w.writerow({k: ("" if v is None else v) for k, v in row.items()})
-    tmp.replace(path)
-
-
+# -- summaries ---------------------------------------------------------------------------
 def _stats(values: list[float]) -> tuple[float | None, float | None, int]:
     """Mean, sample standard deviation (ddof = 1) and count of the finite values.
 

@@ -7,17 +7,18 @@ closest to zero, to one, or to the commanded wall stiffness.
 
 from __future__ import annotations
 
+import json
 import math
 from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 import numpy as np
 
+from sim.analysis.derived import cuff_columns
 from sim.analysis.metrics import METRICS, flat_metrics, hand_cuff_index, interaction_force_norm_N, wall_normal_series
-
-if TYPE_CHECKING:
-    from sim.loop.runlog import Run
+from sim.analysis.tables import run_rows, write_csv
+from sim.loop.runlog import Run, RunLogError, load_run
+from sim.output import plots
 
 __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
            "write_run_report", "compare_runs", "write_sweep_report", "write_sweeps_report", "sweep_verdicts",
@@ -173,8 +174,6 @@ def _wall_spec(meta: Mapping) -> dict | None:
 
 
 def _wall_series(run, spec: Mapping) -> tuple[np.ndarray, np.ndarray]:
-    from sim.analysis.derived import cuff_columns
-
     hand = hand_cuff_index(run.meta["cuffs"], spec.get("sensor", "hand"))
     return wall_normal_series(run.arrays | cuff_columns(run), spec["point_m"], spec["normal"], hand)
 
@@ -185,9 +184,6 @@ def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run:
     ``run``: the run already read from ``folder`` (:func:`sim.loop.runlog.load_run`),
     so that it is not read again (nor its derived columns computed again).
     """
-    from sim.loop.runlog import load_run
-    from sim.output import plots
-
     folder = Path(folder)
     run = load_run(folder) if run is None else run
     m = dict(run.metrics if metrics is None else metrics)
@@ -225,10 +221,6 @@ def compare_runs(run_dirs: Sequence[str | Path], out_dir: str | Path, labels: Se
     folder's name when two runs share one).  Returns the comparison rows, the
     labels and the Markdown report's path.
     """
-    from sim.experiments.sweep import write_csv
-    from sim.loop.runlog import RunLogError, load_run
-    from sim.output import plots
-
     runs = [load_run(d) for d in run_dirs]
     for d, r in zip(run_dirs, runs):
         if not r.metrics:
@@ -365,10 +357,6 @@ def summary_cells(summary: Sequence[Mapping], keys: Sequence[str]) -> tuple[list
 def _write_run_tables(out: Path, result, settings: Mapping) -> None:
     """``runs.csv``, ``runs.md`` and ``sweep.json`` of a sweep: one row per run (after its scenario in a sweep over
     several), each run's folder relative to ``out`` (:attr:`sim.experiments.sweep.SweepCase.label`)."""
-    import json
-
-    from sim.experiments.sweep import run_rows, write_csv
-
     rows = run_rows(result.results)
     write_csv(out / "runs.csv", rows)
     several = any(r.case.scenario for r in result.results)
@@ -385,10 +373,6 @@ def _write_run_tables(out: Path, result, settings: Mapping) -> None:
 
 def write_sweep_report(result, settings: Mapping) -> Path:
     """``summary.csv``, ``summary.md``, ``runs.md``, ``sweep.json``, ``report.md`` and plots of a sweep."""
-
-    from sim.experiments.sweep import write_csv
-    from sim.output import plots
-
     out = Path(result.out_dir)
     out.mkdir(parents=True, exist_ok=True)  # a scenario of a sweep over several whose every run failed has none yet
     summary = list(result.summary)
@@ -442,9 +426,6 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
     controller over every subject and seed, the better in bold; then each
     scenario's verdicts (:func:`sweep_verdicts`) and a link to its report.
     """
-
-    from sim.experiments.sweep import write_csv
-
     out = Path(result.out_dir)
     summary = list(result.summary)
     keys = [k for k, m in METRICS.items() if m.summary and any(r.get(f"{k}_mean") is not None for r in summary)]
@@ -473,8 +454,6 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
                     else "n/a" if v is None else f"{fmt(v)} ± {fmt(overall[c].get(f'{key}_std'), 2)}")
             row.append(f"**{cell}**" if i in top else cell)
         across.append(row)
-    from sim.output import plots
-
     force = METRICS["interaction_force_rms_N"]
     fig = plots.sweep_bars(bars, "transparency", out / "plots" / "transparency_across_scenarios.png",
                            ylabel=f"{force.label} [{force.unit}]",

@@ -60,6 +60,10 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pinocchio as pin
+
+from sim.analysis.derived import cuff_columns
+from sim.loop.runlog import load_run
 
 try:  # guarded: the module must import without meshcat
     import meshcat
@@ -124,6 +128,7 @@ BACKGROUND_BOTTOM = (0.82, 0.83, 0.84)
 
 _EPS_SCALE = 1e-6  # three.js dislikes an exactly zero scale
 _ROT_Y_TO_Z = np.array([[1.0, 0, 0, 0], [0, 0, -1.0, 0], [0, 1.0, 0, 0], [0, 0, 0, 1.0]])
+_ROT_Y_TO_Z.flags.writeable = False
 """+90 deg about x: maps meshcat's y-axis cylinders onto URDF's z-axis ones."""
 
 
@@ -253,8 +258,6 @@ class SceneModels:
         -------
         SceneModels
         """
-        import pinocchio as pin
-
         em = pin.buildModelFromXML(exo_urdf)
         eg = pin.buildGeomFromUrdfString(em, exo_urdf, pin.GeometryType.VISUAL)
         hm = pin.buildModelFromXML(human_urdf)
@@ -310,8 +313,6 @@ class SceneModels:
 
     def human_points(self, q_human: np.ndarray) -> np.ndarray:
         """World positions of the arm chain (shoulder, elbow, wrist, hand point), shape (k, 3)."""
-        import pinocchio as pin
-
         m, d = self.human_model, self.human_data
         pin.forwardKinematics(m, d, np.asarray(q_human, dtype=float))
         pts = [d.oMi[j].translation.copy() for j in self.chain_joints]
@@ -475,8 +476,6 @@ class Scene:
             self._obj(vis, f"{prefix}/joint_{k}/shape", mg.Sphere(shrink * r), mat)
 
     def _draw_trunk(self, vis) -> None:
-        import pinocchio as pin
-
         m = self.models
         gd = pin.GeometryData(m.human_geom)
         pin.forwardKinematics(m.human_model, m.human_data, pin.neutral(m.human_model))
@@ -539,8 +538,6 @@ class Scene:
         dict of str to ndarray (4, 4)
             Node path relative to the scene root -> homogeneous transform.
         """
-        import pinocchio as pin
-
         m = self.models
         out: dict[str, np.ndarray] = {}
         q_exo = np.asarray(q_exo, dtype=float)
@@ -642,8 +639,6 @@ def _workspace_centre(*point_sets: np.ndarray) -> np.ndarray:
 
 
 def _load(run_dir: str | Path, ghost: bool):
-    from sim.loop.runlog import load_run
-
     run = load_run(run_dir)
     base = None
     if ghost and (Path(run_dir) / "human_alone" / "meta.json").exists():
@@ -725,8 +720,6 @@ def draw_replay(vis: Any, run_dir: str | Path, fps: float = 30, ghost: bool = Tr
     Scene
         The drawn scene; its ``animation`` attribute holds the animation sent.
     """
-    from sim.analysis.derived import cuff_columns
-
     run, base = _load(run_dir, ghost)
     models = SceneModels.from_run_dir(run_dir)
     a = run.arrays | cuff_columns(run)

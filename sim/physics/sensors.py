@@ -20,7 +20,7 @@ sensor whose noise standard deviations are all zero never draws from it.  A
 force/torque sensor draws its noise :data:`NOISE_BLOCK_TICKS` ticks at a time
 (a Generator gives the same numbers in the same order drawn in one block as
 drawn one tick at a time), so give each sensor a Generator of its own, as
-:func:`sim.loop.simulate.simulate` does: a stream shared with another consumer
+:class:`sim.loop.simulation.Simulation` does: a stream shared with another consumer
 would be read in a different order.
 
 Both sensors keep preallocated internal buffers; every array they return is
@@ -47,7 +47,7 @@ from models._checks import nonnegative, positive, vector
 from models.errors import ParameterError
 
 __all__ = ["EncoderParams", "JointSensing", "ForceSensorParams", "ForceTorqueSensor", "ForceSensorBank",
-           "NOISE_BLOCK_TICKS", "lowpass_alpha"]
+           "NOISE_BLOCK_TICKS", "lowpass_alpha", "first_nonfinite"]
 
 
 #: Ticks of noise a force/torque sensor draws from its Generator at once (the same stream as one draw a tick).
@@ -94,7 +94,7 @@ def _is_c_float(value: object, shape: tuple[int, ...]) -> bool:
 
 
 @numba.njit(cache=True)
-def _first_nonfinite(a):
+def first_nonfinite(a):
     """Index of the first non-finite entry of the 1-d array ``a``, or -1."""
     for i in range(a.shape[0]):
         if not math.isfinite(a[i]):
@@ -468,7 +468,7 @@ class ForceTorqueSensor:
             The measured wrench, a new read-only array that owns its data.
         """
         w = wrench_true
-        if not _is_c_float(w, (6,)) or _first_nonfinite(w) >= 0:
+        if not _is_c_float(w, (6,)) or first_nonfinite(w) >= 0:
             w = _check_signal("ForceTorqueSensor", "measure wrench_true", w, (6,))
         if self._noisy and self._state[2] >= NOISE_BLOCK_TICKS:
             self._draw()
