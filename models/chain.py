@@ -18,7 +18,7 @@ from __future__ import annotations
 import operator
 from dataclasses import dataclass
 
-from ._checks import nonnegative, positive
+from .checks import nonnegative, positive
 from .arm import ArmModel, load_arm
 from .errors import ParameterError
 from .inertia import solid_cylinder

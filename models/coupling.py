@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pinocchio as pin
 
-from ._checks import vector
+from .checks import vector
 from .arm import ArmModel
 from .cuffs import HAND_GRIP, CuffParams
 from .errors import ParameterError, UnknownNameError

@@ -41,9 +41,10 @@ from functools import cached_property
 import numpy as np
 import pinocchio as pin
 
-from ._checks import nonnegative, positive, vector
+from .checks import nonnegative, positive, vector
 
-__all__ = ["CuffParams", "CuffWrench", "cuff_wrench", "cuff_wrenches", "cuff_energy", "HAND_GRIP"]
+__all__ = ["CuffParams", "CuffWrench", "cuff_wrench", "cuff_wrenches", "cuff_energy", "cuff_energy_terms", "cuff_power_terms",
+           "HAND_GRIP"]
 
 
 def _triple(owner: str, field: str, value, strict: bool) -> tuple[float, float, float]:
@@ -205,7 +206,7 @@ def cuff_wrenches(
         Spring energy and power drawn from the bodies, as in :class:`CuffWrench`.
     """
     w_a, w_b, e, ke = _cuff_wrench_terms(aMb, v_a, v_b, k_diag, d_diag)
-    return w_a, w_b, _cuff_energy_terms(e, ke), _cuff_power_terms(w_a, w_b, v_a, v_b)
+    return w_a, w_b, cuff_energy_terms(e, ke), cuff_power_terms(w_a, w_b, v_a, v_b)
 
 
 def _cuff_wrench_terms(aMb, v_a, v_b, k_diag, d_diag):
@@ -227,12 +228,12 @@ def _cuff_wrench_terms(aMb, v_a, v_b, k_diag, d_diag):
     return w_a, w_b, e, ke
 
 
-def _cuff_energy_terms(e, ke):
+def cuff_energy_terms(e, ke):
     """(k,) spring energy of each cuff [J], :math:`\\tfrac12 e^T K e`, from e and K e."""
     return 0.5 * np.einsum("ij,ij->i", e, ke)
 
 
-def _cuff_power_terms(w_a, w_b, v_a, v_b):
+def cuff_power_terms(w_a, w_b, v_a, v_b):
     """(k,) power each cuff draws from its bodies [W], :math:`-(w_A \\cdot v_A + w_B \\cdot v_B)`."""
     return -(np.einsum("ij,ij->i", w_a, v_a) + np.einsum("ij,ij->i", w_b, v_b))
 

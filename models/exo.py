@@ -49,7 +49,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ._checks import in_range, vector
+from .checks import in_range, vector
 from .arm import ArmModel, load_arm, read_urdf_file
 from .errors import ParameterError
 from .inertia import Inertial, combine, cylindrical_tube, solid_box, solid_cylinder

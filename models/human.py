@@ -71,7 +71,7 @@ from typing import Literal
 import numpy as np
 import pinocchio as pin
 
-from ._checks import in_range, positive, vector
+from .checks import in_range, positive, vector
 from .arm import ArmModel, load_arm
 from .errors import ParameterError, UnknownNameError
 from .inertia import Inertial

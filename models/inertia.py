@@ -18,7 +18,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._checks import positive, vector
+from .checks import positive, vector
 from .errors import ParameterError
 
 __all__ = [

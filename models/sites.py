@@ -6,7 +6,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Literal
 
-from ._checks import in_range, vector
+from .checks import in_range, vector
 from .errors import ParameterError
 from .urdf import Joint, Link
 

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 import pinocchio as pin
 
-from models._checks import in_range, nonnegative, positive, vector
+from models.checks import in_range, nonnegative, positive, vector
 from models.errors import ParameterError
 
 from . import _kernels

@@ -96,7 +96,7 @@ from controllers.hqp_controller import HQPController
 from controllers.qp_backends import available_backends
 from controllers.registry import make_controller
 from controllers.tasks import JointDamping, JointPositionLimits, JointVelocityLimits, Task, TickState, Transparency
-from models._checks import finite
+from models.checks import finite
 from models.chain import ChainParams, build_chain
 from models.errors import ParameterError, SandboxError
 from models.records import Measurement

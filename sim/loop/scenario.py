@@ -29,7 +29,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from models._checks import positive
+from models.checks import positive
 from models.coupling import DEFAULT_CUFFS, CuffSpec, Registration
 from models.errors import ParameterError, SandboxError
 from models.exo import ExoParams

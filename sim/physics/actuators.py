@@ -22,7 +22,7 @@ from dataclasses import dataclass
 import numba
 import numpy as np
 
-from models._checks import positive
+from models.checks import positive
 
 __all__ = ["ActuatorParams", "Actuators", "TorqueSourceActuators"]
 

@@ -23,7 +23,7 @@ from dataclasses import dataclass
 import numba
 import numpy as np
 
-from models._checks import nonnegative, positive, vector
+from models.checks import nonnegative, positive, vector
 from models.errors import ParameterError
 
 __all__ = ["minimum_jerk", "Via", "JointIntent"]

@@ -47,10 +47,10 @@ import numba
 import numpy as np
 import pinocchio as pin
 
-from models._checks import in_range, nonnegative, positive
+from models.checks import in_range, nonnegative, positive
 from models.arm import ArmModel
 from models.coupling import Assembly
-from models.cuffs import _cuff_energy_terms, _cuff_power_terms
+from models.cuffs import cuff_energy_terms, cuff_power_terms
 from models.errors import SandboxError
 
 __all__ = ["PlantParams", "CoupledPlant", "PlantMode"]
@@ -288,7 +288,7 @@ class CoupledPlant:
         """Spring energy of all cuffs [J] at the last cuff update (:func:`models.cuffs.cuff_wrenches`)."""
         if self._energy_J is None:
             t = self._terms
-            self._energy_J = float(_cuff_energy_terms(t[:, 0:6], t[:, 6:12]).sum())
+            self._energy_J = float(cuff_energy_terms(t[:, 0:6], t[:, 6:12]).sum())
         return self._energy_J
 
     @property
@@ -296,7 +296,7 @@ class CoupledPlant:
         """Power all cuffs draw from the two arms [W] at the last cuff update (:func:`models.cuffs.cuff_wrenches`)."""
         if self._power_W is None:
             t = self._terms
-            self._power_W = float(_cuff_power_terms(self.wrench_on_exo, self.wrench_on_human,
+            self._power_W = float(cuff_power_terms(self.wrench_on_exo, self.wrench_on_human,
                                                     t[:, 12:18], t[:, 18:24]).sum())
         return self._power_W
 

@@ -43,7 +43,7 @@ from dataclasses import dataclass
 import numba
 import numpy as np
 
-from models._checks import nonnegative, positive, vector
+from models.checks import nonnegative, positive, vector
 from models.errors import ParameterError
 
 __all__ = ["EncoderParams", "JointSensing", "ForceSensorParams", "ForceTorqueSensor", "ForceSensorBank",

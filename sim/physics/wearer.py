@@ -31,7 +31,7 @@ import numba
 import numpy as np
 import pinocchio as pin
 
-from models._checks import vector
+from models.checks import vector
 from models.arm import ArmModel
 from models.errors import ParameterError
 from models.human import HumanParams, girdle_posture
