@@ -18,8 +18,8 @@ from __future__ import annotations
 import operator
 from dataclasses import dataclass
 
-from .checks import nonnegative, positive
 from .arm import ArmModel, load_arm
+from .checks import nonnegative, positive
 from .errors import ParameterError
 from .inertia import solid_cylinder
 from .urdf import Joint, Link, RobotDescription, to_urdf

@@ -18,8 +18,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pinocchio as pin
 
-from .checks import vector
 from .arm import ArmModel
+from .checks import vector
 from .cuffs import HAND_GRIP, CuffParams
 from .errors import ParameterError, UnknownNameError
 from .exo import ExoParams, build_exo

@@ -43,8 +43,8 @@ import pinocchio as pin
 
 from .checks import nonnegative, positive, vector
 
-__all__ = ["CuffParams", "CuffWrench", "cuff_wrench", "cuff_wrenches", "cuff_energy", "cuff_energy_terms", "cuff_power_terms",
-           "HAND_GRIP"]
+__all__ = ["CuffParams", "CuffWrench", "cuff_wrench", "cuff_wrenches", "cuff_energy", "cuff_energy_terms",
+           "cuff_power_terms", "HAND_GRIP"]
 
 
 def _triple(owner: str, field: str, value, strict: bool) -> tuple[float, float, float]:

@@ -49,8 +49,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .checks import in_range, vector
 from .arm import ArmModel, load_arm, read_urdf_file
+from .checks import in_range, vector
 from .errors import ParameterError
 from .inertia import Inertial, combine, cylindrical_tube, solid_box, solid_cylinder
 from .sites import DEFAULT_SITES, SiteSpec, check_sites, site_frames

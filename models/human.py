@@ -71,8 +71,8 @@ from typing import Literal
 import numpy as np
 import pinocchio as pin
 
-from .checks import in_range, positive, vector
 from .arm import ArmModel, load_arm
+from .checks import in_range, positive, vector
 from .errors import ParameterError, UnknownNameError
 from .inertia import Inertial
 from .sites import SiteSpec, check_sites, site_frames

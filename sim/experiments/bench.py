@@ -96,8 +96,8 @@ from controllers.hqp_controller import HQPController
 from controllers.qp_backends import available_backends
 from controllers.registry import make_controller
 from controllers.tasks import JointDamping, JointPositionLimits, JointVelocityLimits, Task, TickState, Transparency
-from models.checks import finite
 from models.chain import ChainParams, build_chain
+from models.checks import finite
 from models.errors import ParameterError, SandboxError
 from models.records import Measurement
 from sim.experiments.run import run_scenario

@@ -47,8 +47,8 @@ import numba
 import numpy as np
 import pinocchio as pin
 
-from models.checks import in_range, nonnegative, positive
 from models.arm import ArmModel
+from models.checks import in_range, nonnegative, positive
 from models.coupling import Assembly
 from models.cuffs import cuff_energy_terms, cuff_power_terms
 from models.errors import SandboxError

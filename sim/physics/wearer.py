@@ -31,8 +31,8 @@ import numba
 import numpy as np
 import pinocchio as pin
 
-from models.checks import vector
 from models.arm import ArmModel
+from models.checks import vector
 from models.errors import ParameterError
 from models.human import HumanParams, girdle_posture
 from sim.physics.intent import JointIntent
