@@ -24,7 +24,7 @@ from models import HumanParams, build_exo, build_human
 from models.coupling import DEFAULT_CUFFS
 from models.errors import SandboxError
 from models.human import SUBJECTS
-from sim.loop.scenario import ScenarioError, load_scenario
+from sim.loop.scenario import ScenarioError, load_scenario, scenario_files_in
 
 __all__ = [
     "Catalog", "CuffEntry", "ModelFrames", "ParameterEntry", "ScenarioEntry", "SubjectEntry", "TaskEntry",
@@ -195,11 +195,6 @@ def _frames(model: str, arm) -> ModelFrames:
     return ModelFrames(model, arm.hand_frame, dict(arm.sites), links)
 
 
-def _scenario_files(folder: Path) -> list[Path]:
-    """The scenario files of a folder: its ``*.py`` files, sorted, but those starting with ``_``."""
-    return sorted(f for f in folder.glob("*.py") if not f.name.startswith("_"))
-
-
 def catalog(scenarios_folder: str | Path | None = None) -> Catalog:
     """List the scenarios of a folder (default: :func:`shipped_scenarios_folder`) and what they can name.
 
@@ -213,7 +208,7 @@ def catalog(scenarios_folder: str | Path | None = None) -> Catalog:
     exo, human = build_exo(), build_human(HumanParams(FRAMES_SUBJECT))
     return Catalog(
         scenarios_folder=str(folder),
-        scenarios=tuple(_scenario(f) for f in _scenario_files(folder)),
+        scenarios=tuple(_scenario(f) for f in scenario_files_in(folder)),
         variants=tuple(_variant(name) for name in CONTROLLERS),
         tasks=tuple(_task(name, cls) for name, cls in TASKS.items()),
         subjects=tuple(SubjectEntry(name, s.sex, s.stature_m, s.mass_kg) for name, s in SUBJECTS.items()),

@@ -195,3 +195,17 @@ def test_a_sweep_on_dask_workers_over_two_folders_with_modules_of_the_same_name(
     for stem, t in (("own_a", 0.5), ("own_b", 0.7)):
         meta = json.loads((tmp_path / "sweep" / stem / "mine" / "m50" / "seed0" / "meta.json").read_text())
         assert own_task(meta)["attributes"]["T"] == t
+
+
+def test_a_folder_lists_its_scenarios_and_not_the_modules_they_import(tmp_path):
+    from sim.experiments.sweep import scenario_files
+    from sim.loop.scenario import scenario_files_in
+
+    (tmp_path / "my_tasks.py").write_text("TAG = 1\n", encoding="utf-8")
+    (tmp_path / "reach_copy.py").write_text("SCENARIO = None\n", encoding="utf-8")
+    (tmp_path / "per_subject.py").write_text("def for_subject(subject):\n    return None\n", encoding="utf-8")
+    (tmp_path / "typed.py").write_text("SCENARIO: object = None\n", encoding="utf-8")
+    (tmp_path / "broken.py").write_text("def (:\n", encoding="utf-8")  # not Python: loading it will say why
+    expected = ["broken.py", "per_subject.py", "reach_copy.py", "typed.py"]
+    assert [f.name for f in scenario_files_in(tmp_path)] == expected
+    assert [f.name for f in scenario_files([tmp_path])] == expected

@@ -80,7 +80,7 @@ from sim.analysis.metrics import METRICS, flat_metrics
 from sim.analysis.tables import run_rows, write_csv, write_json
 from sim.experiments.run import Batch, run_scenario
 from sim.loop.runlog import environment_metadata
-from sim.loop.scenario import load_scenario
+from sim.loop.scenario import load_scenario, scenario_files_in
 from sim.output.report import write_sweep_report, write_sweeps_report
 
 __all__ = ["SweepCase", "CaseResult", "SweepResult", "SweepError", "run_case", "run_sweep", "summarize", "serve",
@@ -216,13 +216,13 @@ def plan_sweep(scenario_path: str | Path, controllers: Sequence[str] | None, sub
 
 
 def scenario_files(paths: Sequence[str | Path]) -> list[Path]:
-    """The scenario files of a sweep: each path as given, a folder by its ``*.py`` files (sorted by name, those
-    whose name starts with ``_``, such as ``__init__.py``, left out)."""
+    """The scenario files of a sweep: each path as given, a folder by its scenario files
+    (:func:`sim.loop.scenario.scenario_files_in`: sorted by name, modules without a ``SCENARIO`` left out)."""
     files: list[Path] = []
     for p in paths:
         path = Path(p)
         if path.is_dir():
-            found = sorted(f for f in path.glob("*.py") if not f.name.startswith("_"))
+            found = scenario_files_in(path)
             if not found:
                 raise SweepError(f"no scenario file (*.py) in the folder {str(path)!r}")
             files += found

@@ -19,6 +19,7 @@ its own (see :func:`scenario_folder_importable`).
 
 from __future__ import annotations
 
+import ast
 import dataclasses
 import importlib.machinery
 import importlib.util
@@ -40,7 +41,7 @@ from sim.physics.plant import PlantParams
 from sim.physics.sensors import EncoderParams, ForceSensorParams
 from sim.physics.wearer import HumanMotorParams
 
-__all__ = ["Scenario", "ScenarioError", "load_scenario", "scenario_folder_importable", "deg"]
+__all__ = ["Scenario", "ScenarioError", "load_scenario", "scenario_folder_importable", "scenario_files_in", "deg"]
 
 
 class ScenarioError(SandboxError, ValueError):
@@ -174,6 +175,33 @@ def scenario_folder_importable(folder: str | Path) -> Iterator[None]:
                     sys.modules[name] = before[name]
                 else:
                     del sys.modules[name]
+
+
+def _declares_scenario(path: Path) -> bool:
+    """Whether a file defines ``SCENARIO`` or ``for_subject`` at its top level (read, not run)."""
+    try:
+        tree = ast.parse(path.read_text(encoding="utf-8"), filename=str(path))
+    except (OSError, SyntaxError, UnicodeDecodeError, ValueError):
+        return True  # not readable as Python: loading it reports why
+    for node in tree.body:
+        if isinstance(node, ast.FunctionDef) and node.name == "for_subject":
+            return True
+        targets = (node.targets if isinstance(node, ast.Assign)
+                   else [node.target] if isinstance(node, ast.AnnAssign) else [])
+        if any(isinstance(t, ast.Name) and t.id == "SCENARIO" for t in targets):
+            return True
+    return False
+
+
+def scenario_files_in(folder: str | Path) -> list[Path]:
+    """The scenario files of a folder, sorted by name.
+
+    Its ``*.py`` files that define ``SCENARIO`` or ``for_subject`` at their
+    top level; files whose name starts with ``_`` (``__init__.py``) and
+    modules of tasks or helpers that a scenario imports (no ``SCENARIO``) are
+    left out, without running any file.
+    """
+    return sorted(f for f in Path(folder).glob("*.py") if not f.name.startswith("_") and _declares_scenario(f))
 
 
 def load_scenario(path: str | Path, *, subject: str | None = None) -> Scenario:
