@@ -25,7 +25,7 @@ from models.errors import ParameterError, UnknownNameError
 
 from .base import Controller
 from .basic import GravityCompensation, ZeroTorque
-from .hqp_controller import HQPController
+from .hqp import HQPController
 from .tasks import TASKS, JointDamping, JointPositionLimits, JointVelocityLimits, Task, Transparency
 
 __all__ = ["CONTROLLERS", "SHIPPED", "make_controller", "build_levels"]

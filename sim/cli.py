@@ -467,7 +467,7 @@ def _kernels_cached() -> bool:
     """Whether numba's on-disk cache holds the largest compiled kernels (False only when surely not)."""
     import os
 
-    from controllers import _hqp_kernels
+    from controllers.hqp import kernels as _hqp_kernels
     from sim import plant
 
     try:
