@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import copy
 from collections.abc import Callable, Mapping, Sequence
+from types import MappingProxyType
 
 from models.errors import ParameterError, UnknownNameError
 
@@ -58,7 +59,8 @@ CONTROLLERS: dict[str, Callable[[], Controller]] = {
     "walls": _walls_default,
 }
 #: Shipped factories that take the scenario's wall specs.
-_WITH_WALLS: dict[Callable[[], Controller], Callable[[Sequence[TaskSpec]], Controller]] = {_walls_default: _walls}
+_WITH_WALLS: Mapping[Callable[[], Controller], Callable[[Sequence[TaskSpec]], Controller]] = MappingProxyType(
+    {_walls_default: _walls})
 SHIPPED = tuple(CONTROLLERS)
 
 

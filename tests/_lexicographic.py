@@ -47,6 +47,7 @@ def cvxpy_lexicographic(entries, n, hard=(), *, hard_eq=(), lb=None, ub=None, mi
                 kept.append(sign * x[finite] <= sign * bound[finite])
     costs = []
     for k, (eq, ineq) in enumerate(entries):
+        eq, ineq = [e for e in eq if e[0].shape[0]], [e for e in ineq if e[0].shape[0]]  # entries without rows
         if not eq and not ineq:
             costs.append(0.0)
             continue

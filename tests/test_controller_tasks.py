@@ -290,3 +290,42 @@ def test_hand_point_is_the_cuff_deflection_rotated_to_the_world():
         p, w, comp = rng.normal(size=3), rng.normal(scale=20, size=6), rng.uniform(1e-4, 1e-3, size=3)
         np.testing.assert_allclose(kernels.hand_point(p, R, w, comp), p + R @ (comp * w[:3]), rtol=1e-13,
                                    atol=1e-16)
+
+
+def test_a_tick_that_stops_on_a_tasks_error_leaves_the_next_ticks_stack_whole():
+    # a user's task before constant rows writes a different number of rows each tick and fails on one tick;
+    # reference: the next ticks' stacks against each task's own rows (as the first test), and cvxpy
+    class Flaky(Task):
+        name, kind, tick = "flaky", "ineq", 0
+
+        def rows(self, state):
+            if self.tick == 2:
+                return [[1.0] * (2 * state.nv - 1)], [0.0]  # one column short: this tick falls back
+            k = self.tick % 3
+            return np.ones((k, 2 * state.nv)) * 1e-3, np.full(k, 50.0)
+
+    arm, ctx = _context()
+
+    def make():
+        return [[Flaky(), JointPositionLimits(), JointVelocityLimits()], [Transparency()], [JointDamping()]]
+
+    ctrl, ref = HQPController(make()), HQPController(make())
+    ctrl.reset(ctx)
+    ref.reset(ctx)
+    n = 7
+    for k, m in enumerate(_states(arm, 7, seed=12, wrench_scale=3.0, speed_scale=0.3, spread=0.03)):
+        ctrl.levels[0][0].tick = ref.levels[0][0].tick = k
+        tau = ctrl.step(m)
+        if k == 2:
+            assert ctrl.diagnostics()["fallback"] == 1.0 and "flaky" in ctrl.last_fallback_reason
+            continue
+        assert ctrl.diagnostics()["fallback"] == 0.0
+        rows = controller_rows(ref, m)
+        assert np.abs(tau - controller_lexicographic(rows)[7:]).max() < TOL_NM
+        s = ctrl.state
+        c = s.h - s.cuff_force
+        level = ctrl._fill_stack(s, c)[0][0]  # this tick's stack, with the torque eliminated as in the first test
+        C = np.vstack([e[0] for e in rows.levels[0][1] if e[0].shape[0]])
+        d = np.concatenate([e[1] for e in rows.levels[0][1]])
+        np.testing.assert_allclose(level.C, C[:, :n] + C[:, n:] @ s.M, rtol=1e-14, atol=1e-12)
+        np.testing.assert_allclose(level.d, d - C[:, n:] @ c, rtol=1e-14, atol=1e-12)

@@ -62,7 +62,7 @@ from models.records import Measurement
 
 from ..base import Controller, ControllerContext
 from ..tasks import Task, TickState
-from .kernels import stack_is_finite
+from .kernels import place_q_rows, stack_is_finite
 from .levels import Level, LevelStack
 from .params import HQPParams
 from .solver import HierarchySolver, compiled_head, solve_hierarchy
@@ -178,7 +178,8 @@ class HQPController(Controller):
             slot += len(tasks)
         self._constant_rows: list = [None] * slot  # (read-only rows, their q part, their tau part or None)
         self._raw_rows: list = []  # (level, task, A, b) as the tasks returned them this tick
-        self._min_norm_at = -1  # the first row of the minimum-norm level last tick (rows before it are rewritten)
+        self._placed: list = [None] * slot  # (q part, first row, weight) of the constant rows written last tick
+        self._min_norm_at = -1  # the first row of the minimum-norm level last tick
         self.fallback_count = 0
         self.last_fallback_reason = None
         self._diag = dict.fromkeys(self.diagnostic_names(), 0.0)
@@ -192,18 +193,22 @@ class HQPController(Controller):
         (``solve_levels_fast``), which numba would otherwise load inside the first such tick, typically the first
         wall contact: about 0.1 s, or a minute right after installing, a stall no control loop may take. An empty
         stack in the controller's own buffers, above its torque-limit rows, makes the same calls with the same
-        argument types (checked by the tests) and changes no state of the controller. Best effort: should that
-        trivial solve fail, the reset goes on, and a tick that fails later falls back as any failed tick does.
+        argument types (checked by the tests) and changes no state of the controller. The same for the copy of a
+        task's rows (``place_q_rows``), whose first call may come with a wall's first contact. Best effort:
+        should that trivial solve fail, the reset goes on, and a tick that fails later falls back as any failed
+        tick does.
         """
         if not self.eliminate_torque:  # that path calls solve_hierarchy on every tick: its first tick loads them
             return
         buf, p = self._buf, len(self.levels) + 1
+        n = buf.cols
+        place_q_rows(np.zeros((0, 2 * n)), np.zeros(0), n, buf.A, buf.b, buf.sw, 0, 1.0)  # writes nothing
         eq_off, in_off = np.zeros_like(buf.eq_off), np.zeros_like(buf.in_off)
         stack = LevelStack.from_arrays(buf.A[:0], buf.b[:0], buf.sw[:0], eq_off, buf.unit_eq, buf.C[:0], buf.d[:0],
                                        buf.wi[:0], in_off, buf.cols, self._stack_names, [([], [])] * p)
         try:
             self._hqp.solve_trusted(stack, np.zeros_like(self._G), np.zeros_like(self._h), "torque limits", None,
-                                   time.perf_counter())
+                                    time.perf_counter())
         except (SandboxError, np.linalg.LinAlgError) as e:  # the errors step() turns into a fallback
             _log.debug("controller %s: the reset's preload solve failed: %s", self.name, e)
 
@@ -245,6 +250,11 @@ class HQPController(Controller):
         cache = self._constant_rows
         raw = self._raw_rows
         raw.clear()
+        # constant rows written at the same place with the same weight last tick are still there: the rows are
+        # written in order every tick, so nothing has written over them since (only their right-hand side is new);
+        # a tick that stops on an error forgets them all, as it may have written anywhere
+        last, placed = self._placed, [None] * len(cache)
+        min_norm_at, self._placed, self._min_norm_at = self._min_norm_at, placed, -1
         layout = []
         ends = [0, 0]  # rows written so far: equality, inequality
         eq_off, in_off, unit_eq = buf.eq_off, buf.in_off, buf.unit_eq
@@ -265,24 +275,36 @@ class HQPController(Controller):
                     A, b = self._checked_rows(i, t, is_eq, A, b, cols)
                     if b.shape[0] == 0:
                         continue
+                    A_q = A_t = None  # this tick's own rows: placed below
                     if c is None:
-                        A_q, A_t = A, None
-                    else:
+                        A_q = A
+                    elif not (A.flags.writeable and b.flags.writeable and A.flags.c_contiguous
+                              and b.flags.c_contiguous):
                         A_t = A[:, n:]
                         A_q, A_t = A[:, :n], (A_t if np.count_nonzero(A_t) else None)
-                    if type(r[0]) is _NDARRAY and not r[0].flags.writeable and np.isfinite(A.sum()):
-                        cache[slot] = (r[0], A_q, A_t)  # constant rows: split them once
+                        if type(r[0]) is _NDARRAY and not r[0].flags.writeable and np.isfinite(A.sum()):
+                            cache[slot] = (r[0], A_q, A_t)  # constant rows: split them once
                 w = float(t.weight)
+                w_row = math.sqrt(w) if is_eq else w  # the equality rows carry the square roots of their weights
                 start = ends[not is_eq]
                 end = start + b.shape[0]
                 rows_buf, rhs_buf, w_buf = buf.parts(is_eq, end)
-                if A_t is not None:  # a row on the torques: tau = M qdd + c
-                    rows_buf[start:end] = A_q + A_t @ M
-                    rhs_buf[start:end] = b - A_t @ c
-                else:
-                    rows_buf[start:end] = A_q
-                    rhs_buf[start:end] = b
-                w_buf[start:end] = math.sqrt(w) if is_eq else w  # the equality rows carry the square roots
+                if A_q is None:  # one compiled copy of rows on q̈ alone; rows on the torques are eliminated below
+                    if not place_q_rows(A, b, n, rows_buf, rhs_buf, w_buf, start, w_row):
+                        A_q, A_t = A[:, :n], A[:, n:]
+                if A_q is not None:
+                    if A_t is not None:  # a row on the torques: tau = M qdd + c
+                        rows_buf[start:end] = A_q + A_t @ M
+                        rhs_buf[start:end] = b - A_t @ c
+                        w_buf[start:end] = w_row
+                    else:
+                        rhs_buf[start:end] = b
+                        prev = last[slot]
+                        if prev is None or prev[0] is not A_q or prev[1] != start or prev[2] != w:
+                            rows_buf[start:end] = A_q
+                            w_buf[start:end] = w_row
+                        if A_q is not A:  # only the split of cached constant rows is the same object next tick
+                            placed[slot] = (A_q, start, w)
                 spans[not is_eq].append((start, end, w))
                 if is_eq and w != 1.0:
                     unit = False
@@ -296,11 +318,11 @@ class HQPController(Controller):
         if c is not None:  # the minimum-norm level [I; M] qdd ~ [0; -c]: 1/2 ||qdd||^2 + 1/2 ||tau||^2
             end = m_e + 2 * n
             buf.parts(True, end)
-            if self._min_norm_at != m_e:  # else its constant half [I; 0] and its weights are still in place
+            if min_norm_at != m_e:  # else its constant half [I; 0] and its weights are still in place
                 buf.A[m_e:m_e + n] = self._eye
                 buf.b[m_e:m_e + n] = 0.0
                 buf.sw[m_e:end] = 1.0
-                self._min_norm_at = m_e
+            self._min_norm_at = m_e
             buf.A[m_e + n:end] = s.M
             np.negative(c, out=buf.b[m_e + n:end])
             layout.append(([(m_e, end, 1.0)], []))

@@ -7,7 +7,8 @@ update, frozen inequality rows, elimination of rows active at every optimum).
 The mathematics and every threshold are described in
 :mod:`controllers.hqp.solver` ([Kanoun2011]_; [Escande2014]_). The KKT
 conditions it checks before it keeps an active-set point are those of the
-level's convex QP ([NocedalWright2006]_, section 16.5, conditions (16.37)):
+level's convex QP (the first-order conditions of [NocedalWright2006]_,
+Theorem 12.1, which suffice for a convex QP):
 
 * stationarity: :math:`H z + G_W^T \lambda = g` (the KKT system solved, its
   residual checked against ``feas_tol``);
@@ -61,7 +62,7 @@ from numba.core import cgutils, types
 from numba.extending import intrinsic
 
 __all__ = ["CLOSED_FORM", "WORKING_SET", "NO_FREEDOM", "NEEDS_QP", "EMPTY", "METHODS", "OUT_HEADER", "HAVE_CLOCK",
-           "solve_level_fast", "solve_levels_fast", "solve_stack_fast", "stack_is_finite"]
+           "solve_level_fast", "solve_levels_fast", "solve_stack_fast", "stack_is_finite", "place_q_rows"]
 
 CLOSED_FORM, WORKING_SET, NO_FREEDOM, NEEDS_QP, EMPTY = 0, 1, 2, 3, 4
 METHODS = ("closed-form", "working-set", "no freedom", "qp", "empty")
@@ -423,19 +424,20 @@ def _working_set(x, N, has_N, G, h, C, d, wi, n_eq, V1, s1, c1, z_ls, tol, rank_
               \qquad H_S = V_1 S_1^2 V_1^T + C_S^T \Omega_S C_S,
               \quad g_S = V_1 S_1 c_1 + C_S^T \Omega_S d_S
 
-    (the equality-constrained QP of [NocedalWright2006]_ section 16.1, here by the Schur complement of H
-    when it is definite, else by least squares on the whole system), where S is the set of the level's own
-    inequality rows taken as violated (their weighted squared slack :math:`\omega (C_i z - d_i)^2` joins the
-    cost; at first those violated at :math:`z_{ls}`). It then adds the most violated row of the frozen and
-    hard ones to W, or else a row of the level's own that the point violates to S, or else drops from S a
-    row the point satisfies, or else drops from W the row of the most negative multiplier, and solves again
-    (the working-set updates of Algorithm 16.3, without its step-length rule), at most
-    :math:`\min(2 m + 2, 8)` times for m constraint rows (on 3000 ticks of the reference run,
-    ``scenarios/wall_push.py`` under ``walls``, no verified point needed more than 4, while a level that will
-    not verify -- dependent rows, cycling -- should reach the backend soon). The point is kept once the KKT
-    conditions of the module docstring hold: then the level's slacks are :math:`v = \max(C z - d, 0)` and
-    the cost's gradient is the one the system solved, so it is an optimum whatever path led there. Rows of
-    W with a clearly positive multiplier are returned for elimination (active at every optimum).
+    (the equality-constrained QP of [NocedalWright2006]_ section 16.1, from memory; here by the Schur
+    complement of H when it is definite, else by least squares on the whole system), where S is the set
+    of the level's own inequality rows taken as violated (their weighted squared slack
+    :math:`\omega (C_i z - d_i)^2` joins the cost; at first those violated at :math:`z_{ls}`). It then
+    adds the most violated row of the frozen and hard ones to W, or else a row of the level's own that the
+    point violates to S, or else drops from S a row the point satisfies, or else drops from W the row of
+    the most negative multiplier, and solves again (the working-set updates of Algorithm 16.3, without
+    its step-length rule), at most :math:`\min(2 m + 2, 8)` times for m constraint rows (on 3000 ticks of
+    the reference run, ``scenarios/wall_push.py`` under ``walls``, no verified point needed more than 4,
+    while a level that will not verify -- dependent rows, cycling -- should reach the backend soon). The
+    point is kept once the KKT conditions of the module docstring hold: then the level's slacks are
+    :math:`v = \max(C z - d, 0)` and the cost's gradient is the one the system solved, so it is an
+    optimum whatever path led there. Rows of W with a clearly positive multiplier are returned for
+    elimination (active at every optimum).
     """
     n = x.shape[0]
     none = np.zeros((0, n))
@@ -841,4 +843,24 @@ def stack_is_finite(A, b, C, d):
         for i in range(v.shape[0]):
             if not np.isfinite(v[i]):
                 return False
+    return True
+
+
+@nb.njit(cache=True)
+def place_q_rows(A, b, n, rows, rhs, weights, start, weight):
+    """Copy a task's rows ``A`` (m, 2 n) that do not act on the torques (every entry of ``A[:, n:]`` zero)
+    into ``rows[start:start + m]`` (their q̈ part), ``b`` into ``rhs`` and ``weight`` into ``weights``.
+
+    Returns False, writing nothing, when a row acts on the torques (the caller then eliminates them).
+    """
+    m = A.shape[0]
+    for i in range(m):
+        for j in range(n, 2 * n):
+            if A[i, j] != 0.0:
+                return False
+    for i in range(m):
+        for j in range(n):
+            rows[start + i, j] = A[i, j]
+        rhs[start + i] = b[i]
+        weights[start + i] = weight
     return True

@@ -58,7 +58,7 @@ is a QP in :math:`(z, v_k)` handed to a backend of
 :mod:`controllers.qp_backends`; before that, a few active-set iterations
 from the least-squares point are tried and kept only when the level's KKT
 conditions hold ([NocedalWright2006]_, Algorithm 16.3 and the KKT conditions
-(16.37); :func:`controllers.hqp.kernels.solve_level_fast`).
+of Theorem 12.1; :func:`controllers.hqp.kernels.solve_level_fast`).
 
 **One implementation.** The closed form, the active-set step and the freezing
 of a level's optimum are compiled (numba, :mod:`controllers.hqp.kernels`): every
@@ -107,6 +107,7 @@ from __future__ import annotations
 import math
 import time
 from collections.abc import Sequence
+from types import MappingProxyType
 
 import numpy as np
 
@@ -272,7 +273,7 @@ class _Solver:
         :math:`\tfrac12\|S_1 V_1^T z - c_1\|^2`), then the optimum is frozen for the levels below as the
         kernel freezes its own: the equality rows and the rows active at every optimum (a violated row of the
         level, a row with a clearly positive multiplier: complementary slackness, [NocedalWright2006]_
-        (16.37d)) through the null space, the other inequality rows as frozen rows.
+        Theorem 12.1) through the null space, the other inequality rows as frozen rows.
         """
         n_eq, n_in = level.A.shape[0], level.C.shape[0]
         if n_eq + n_in == 0:
@@ -418,8 +419,7 @@ class _LevelLabels:
         return f"level {k} ({name!r})" if name else f"level {k}"
 
 
-_METHOD_CODE = {name: code for code, name in enumerate(kernels.METHODS)}
-_INT_EMPTY = np.zeros(0, dtype=np.int64)
+_METHOD_CODE = MappingProxyType({name: code for code, name in enumerate(kernels.METHODS)})
 
 
 def _solve_compiled(work: _Solver, stack: LevelStack, labels, warm: list):
