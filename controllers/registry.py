@@ -20,12 +20,13 @@ from __future__ import annotations
 
 import copy
 from collections.abc import Callable, Mapping, Sequence
+from types import MappingProxyType
 
 from models.errors import ParameterError, UnknownNameError
 
 from .base import Controller
 from .basic import GravityCompensation, ZeroTorque
-from .hqp_controller import HQPController
+from .hqp import HQPController
 from .tasks import TASKS, JointDamping, JointPositionLimits, JointVelocityLimits, Task, Transparency
 
 __all__ = ["CONTROLLERS", "SHIPPED", "make_controller", "build_levels"]
@@ -58,7 +59,8 @@ CONTROLLERS: dict[str, Callable[[], Controller]] = {
     "walls": _walls_default,
 }
 #: Shipped factories that take the scenario's wall specs.
-_WITH_WALLS: dict[Callable[[], Controller], Callable[[Sequence[TaskSpec]], Controller]] = {_walls_default: _walls}
+_WITH_WALLS: Mapping[Callable[[], Controller], Callable[[Sequence[TaskSpec]], Controller]] = MappingProxyType(
+    {_walls_default: _walls})
 SHIPPED = tuple(CONTROLLERS)
 
 

@@ -2,7 +2,7 @@
 
 Main entry points: :func:`sim.load_scenario`, :class:`sim.Simulation` (a run
 tick by tick, in memory: notebooks and scripts), :func:`sim.run_scenario`
-(a run folder with its baseline, metrics and report), :func:`sim.simulate`
+(a run folder with its baseline, metrics and report), :func:`sim.loop.simulate`
 and :func:`sim.load_run`. Scenario files import :class:`sim.Scenario`,
 :class:`sim.JointIntent`, :class:`sim.Via` and :func:`sim.deg` from here.
 """

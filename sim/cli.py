@@ -565,11 +565,11 @@ def _kernels_cached() -> bool:
     """Whether numba's on-disk cache holds the largest compiled kernels (False only when surely not)."""
     import os
 
-    from controllers import _hqp_kernels
+    from controllers.hqp import kernels as hqp_kernels
     from sim.physics import plant
 
     try:
-        paths = [k._cache._cache_file._index_path for k in (_hqp_kernels.solve_levels_fast, plant._cuff_kernel)]
+        paths = [k._cache._cache_file._index_path for k in (hqp_kernels.solve_levels_fast, plant._cuff_kernel)]
     except AttributeError:  # numba's cache layout changed: say nothing
         return True
     return all(os.path.exists(p) for p in paths)

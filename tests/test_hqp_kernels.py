@@ -15,7 +15,7 @@ import time
 import numpy as np
 import pytest
 
-from controllers import _hqp_kernels as kernels
+from controllers.hqp import kernels
 
 SHAPES = [(1, 7), (3, 7), (7, 7), (14, 7), (7, 3), (2, 5), (14, 14), (30, 20), (10, 28)]
 

@@ -5,7 +5,7 @@ as functions of q̈, so the torques must agree with
 
 * the same controller in x = [q̈; τ] with the dynamics as hard equalities, and
 * an independent optimiser: the stack solved level by level with cvxpy
-  (:func:`sim.experiments.bench.solve_levels_cvxpy`, Kanoun, Lamiraux & Wieber 2011,
+  (``tests/_lexicographic.py``, Kanoun, Lamiraux & Wieber 2011,
   interior-point solver Clarabel),
 
 on random states that touch the wall, sit near joint limits and saturate
@@ -23,7 +23,7 @@ from controllers.registry import make_controller
 from models.records import Measurement
 
 pytest.importorskip("cvxpy")
-from sim.experiments.bench import solve_levels_cvxpy, stack_rows  # noqa: E402
+from _lexicographic import controller_lexicographic, controller_rows  # noqa: E402
 
 TOL_NM = 1e-5
 WALL = (("wall_plane", {"point_m": (0.40, 0.0, 0.0), "normal": (1.0, 0.0, 0.0), "law": (600.0, 5.0)}),)
@@ -60,8 +60,8 @@ def test_eliminated_torque_form_gives_the_torques_of_the_two_nv_form_and_of_cvxp
     for m in _states(arm, 12, seed=7):
         tau_fast = fast.step(m)
         tau_full = full.step(m)
-        rows = stack_rows(ref, m)
-        tau_cvx = solve_levels_cvxpy(rows)[7:]
+        rows = controller_rows(ref, m)
+        tau_cvx = controller_lexicographic(rows)[7:]
         assert fast.diagnostics()["fallback"] == 0.0 and full.diagnostics()["fallback"] == 0.0
         assert np.abs(tau_fast - tau_full).max() < TOL_NM
         assert np.abs(tau_fast - tau_cvx).max() < TOL_NM
@@ -74,7 +74,7 @@ def test_eliminated_torque_form_gives_the_torques_of_the_two_nv_form_and_of_cvxp
 
 def test_a_task_row_on_the_torques_is_carried_through_the_elimination():
     # gravity as a torque task (A acts on tau only): tau = g(q) exactly in both forms
-    from controllers.hqp_controller import HQPController
+    from controllers.hqp import HQPController
     from controllers.tasks import GravityTorque, JointDamping
 
     arm, ctx = _context()
@@ -118,7 +118,7 @@ def test_a_users_inequality_beside_an_equality_task_gives_the_torques_of_cvxpy_w
     # A joint-speed cap written as a user's task in the transparency level: a level with both kinds of rows, whose
     # inequality binds on the random states' fast joints. Every tick against cvxpy (level by level, Kanoun et al.
     # 2011); the ticks whose level the working-set step solves make no call of the QP backend.
-    from controllers.hqp_controller import HQPController
+    from controllers.hqp import HQPController
     from controllers.tasks import JointDamping, JointPositionLimits, Task, Transparency
 
     class SpeedCap(Task):
@@ -142,8 +142,8 @@ def test_a_users_inequality_beside_an_equality_task_gives_the_torques_of_cvxpy_w
     by_step = 0
     for m in _states(arm, 8, seed=23):
         tau = ctrl.step(m)
-        rows = stack_rows(ref, m)
-        assert np.abs(tau - solve_levels_cvxpy(rows)[7:]).max() < TOL_NM
+        rows = controller_rows(ref, m)
+        assert np.abs(tau - controller_lexicographic(rows)[7:]).max() < TOL_NM
         if ctrl.last_result.level_methods[1] == "working-set":
             by_step += 1
             C, d, _ = rows.levels[1][1][0]  # the cap's rows on [q̈; τ]; the solver's x is q̈
@@ -158,7 +158,7 @@ def _follows_cvxpy(make_levels, seed, ticks=6):
     A second controller of the same levels gives cvxpy its rows (their tasks keep their own state). Returns
     the stepped controller.
     """
-    from controllers.hqp_controller import HQPController
+    from controllers.hqp import HQPController
 
     arm, ctx = _context()
     ctrl, ref = HQPController(make_levels()), HQPController(make_levels())
@@ -166,7 +166,7 @@ def _follows_cvxpy(make_levels, seed, ticks=6):
     ref.reset(ctx)
     for m in _states(arm, ticks, seed=seed):
         tau = ctrl.step(m)
-        tau_cvx = solve_levels_cvxpy(stack_rows(ref, m))[7:]
+        tau_cvx = controller_lexicographic(controller_rows(ref, m))[7:]
         assert ctrl.diagnostics()["fallback"] == 0.0
         assert np.abs(tau - tau_cvx).max() < TOL_NM
     return ctrl
@@ -234,14 +234,14 @@ def test_the_result_read_after_a_tick_is_the_solvers_result_of_that_ticks_stack(
     ctrl = make_controller("walls", walls=WALL)
     ctrl.reset(ctx)
     seen = []
-    real = HierarchySolver._solve_kernel
+    real = HierarchySolver.solve_compiled
 
     def recording(self, stack, G, h):
         out = real(self, stack, G, h)
         seen.append((stack, G.copy(), h.copy(), out is not None))
         return out
 
-    monkeypatch.setattr(HierarchySolver, "_solve_kernel", recording)
+    monkeypatch.setattr(HierarchySolver, "solve_compiled", recording)
     kernel_ticks = 0
     for m in _states(arm, 12, seed=5):
         ctrl.step(m)

@@ -96,13 +96,12 @@ def test_level_stack_holds_the_levels_of_the_checked_constructor():
         np.testing.assert_array_equal(getattr(other, f), getattr(stack, f))
 
 
-@pytest.mark.parametrize("compiled", [True, False], ids=["compiled", "python"])
-def test_a_level_stack_solves_like_its_list_of_levels_and_like_cvxpy(compiled):
+def test_a_level_stack_solves_like_its_list_of_levels_and_like_cvxpy():
     pytest.importorskip("cvxpy")
     rng = np.random.default_rng(22)
     n = 6
     entries = _three_levels(rng, n)
-    params = HQPParams(compiled=compiled)
+    params = HQPParams()
     stack = LevelStack.from_entries(entries, n, ("limits", "tasks", "nothing", "rest"))
     levels = [Level(eq=eq, ineq=ineq) for eq, ineq in entries]
     a = solve_hierarchy(stack, n, params=params)

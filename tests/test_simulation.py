@@ -1,6 +1,6 @@
 """``sim.Simulation``: a run tick by tick or whole, in memory, from a notebook or a script.
 
-The reference is the run folder :func:`sim.simulate` writes for the same scenario, controller and seed, read
+The reference is the run folder :func:`sim.loop.simulate` writes for the same scenario, controller and seed, read
 back with :func:`sim.load_run`: the rows kept in memory must equal it to the bit, since the loop's arithmetic
 and its order are the same whichever way the rows go (in memory, or streamed to the log).
 """
@@ -29,7 +29,7 @@ def scenario(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def reference(scenario, tmp_path_factory):
-    """The run folders sim.simulate writes: the "transparent" variant, and the human-alone baseline."""
+    """The run folders sim.loop.simulate writes: the "transparent" variant, and the human-alone baseline."""
     d = tmp_path_factory.mktemp("reference")
     simulate(scenario, "transparent", d / "run", seed=SEED)
     simulate(scenario, "transparent", d / "base", seed=SEED, mode="human_alone")

@@ -17,9 +17,7 @@ import pinocchio as pin
 import pytest
 
 import models
-from controllers.tasks import BoxWall, JointPositionLimits, JointVelocityLimits, TickState
-from controllers.tasks import _kernels as kernels
-from controllers.tasks.library import WallLaw
+from controllers.tasks import BoxWall, JointPositionLimits, JointVelocityLimits, TickState, WallLaw, kernels
 from models.records import Measurement
 
 CUFFS = {"upper_arm": "exo_cuff_upper_arm", "forearm": "exo_cuff_forearm", "hand": "exo_cuff_hand"}

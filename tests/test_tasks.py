@@ -11,8 +11,7 @@ import pinocchio as pin
 import pytest
 
 import models
-from controllers.tasks import JointPositionLimits, TickState
-from controllers.tasks._common import operational_space
+from controllers.tasks import JointPositionLimits, TickState, operational_space
 from models.records import Measurement
 
 
@@ -127,8 +126,7 @@ def test_walls_are_one_sided_and_their_faces_follow_the_geometry():
 
 def test_plane_wall_row_holds_the_robot_still_when_the_wearer_pushes_with_the_spring_force():
     # quasi-static equilibrium of m_n a = f_n - K p - B v: zero acceleration when f_n = K p (Hooke)
-    from controllers.tasks import PlaneWall
-    from controllers.tasks.library import WallLaw
+    from controllers.tasks import PlaneWall, WallLaw
 
     q = np.radians([100, 5, -60, 20, 20, 0, 0])
     arm, s = _wall_state(q)

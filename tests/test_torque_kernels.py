@@ -10,7 +10,7 @@ import numpy as np
 import pinocchio as pin
 
 import models
-from controllers._torque_kernels import clipped_torque, torque_limit_rows
+from controllers.hqp.torque_kernels import clipped_torque, torque_limit_rows
 
 
 def _terms(seed):

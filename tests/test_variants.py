@@ -1,7 +1,7 @@
 """The shipped controller variants in their scenarios, and the HQP controller's own guarantees.
 
 Known answers: the closed form of force-feedback transparency derived from
-the dynamics (see controllers.tasks.library.Transparency); the commanded wall
+the dynamics (see controllers.tasks.Transparency); the commanded wall
 law (rendered stiffness within 15 % of the commanded one, the figure the
 issue sets); the fallback law tau = g(q) - D dq.
 """
@@ -16,7 +16,7 @@ import pytest
 
 import models
 from controllers import ControllerContext
-from controllers.hqp_controller import HQPController
+from controllers.hqp import HQPController
 from controllers.registry import build_levels, make_controller
 from controllers.tasks import JointDamping, Task, Transparency
 from models.errors import ParameterError, UnknownNameError

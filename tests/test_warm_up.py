@@ -82,7 +82,7 @@ def test_a_warm_up_that_fails_is_silent_and_the_run_reports_the_error(fresh, mon
 
 def test_a_controller_loads_at_reset_the_kernel_of_its_rare_qp_ticks_with_their_argument_types(tmp_path,
                                                                                                 monkeypatch):
-    # a tick on which a level needs the QP backend goes through solve_hierarchy's compiled path; the controller
+    # a tick on which a level needs the QP backend goes through solve_hierarchy's compiled levels; the controller
     # makes that call at reset (an empty stack in its own buffers), with exactly the argument types of the real
     # ticks, so the first wall contact does not wait for numba to load (or compile) the kernel
     import dataclasses
@@ -91,12 +91,12 @@ def test_a_controller_loads_at_reset_the_kernel_of_its_rare_qp_ticks_with_their_
     import numba
     import numpy as np
 
-    from controllers import _hqp_kernels
+    from controllers.hqp import kernels as hqp_kernels
     from controllers.registry import make_controller
     from sim.experiments.bench import _context_and_measurements
 
     calls = []
-    real = _hqp_kernels.solve_levels_fast
+    real = hqp_kernels.solve_levels_fast
 
     def recording(*args):
         calls.append(tuple(numba.typeof(a) for a in args))
@@ -104,7 +104,7 @@ def test_a_controller_loads_at_reset_the_kernel_of_its_rare_qp_ticks_with_their_
 
     # and the torque read back: every tick, those solved by the kernel and those by the backend alike, hands
     # clipped_torque the same argument types (one compiled signature, loaded by the first tick)
-    from controllers import hqp_controller
+    from controllers.hqp import controller as hqp_controller
 
     clip_calls = []
     real_clip = hqp_controller.clipped_torque
@@ -115,7 +115,7 @@ def test_a_controller_loads_at_reset_the_kernel_of_its_rare_qp_ticks_with_their_
 
     monkeypatch.setattr(hqp_controller, "clipped_torque", recording_clip)
 
-    monkeypatch.setattr(_hqp_kernels, "solve_levels_fast", recording)
+    monkeypatch.setattr(hqp_kernels, "solve_levels_fast", recording)
     wall_push = Path(__file__).resolve().parents[1] / "scenarios" / "wall_push.py"
     sc = dataclasses.replace(load_scenario(wall_push), duration_s=1.3)  # the hand meets the wall at about 1.18 s
     simulate_module.simulate(sc, "walls", tmp_path / "run")
@@ -149,6 +149,6 @@ def test_a_preload_that_fails_does_not_stop_the_reset(monkeypatch):
 
     ctrl = make_controller("walls", sc.variants, sc.walls)
     with monkeypatch.context() as m:
-        m.setattr(HierarchySolver, "_solve_owned", failing)
+        m.setattr(HierarchySolver, "solve_trusted", failing)
         ctrl.reset(context)  # no exception
     assert ctrl.fallback_count == 0 and ctrl.last_result is None

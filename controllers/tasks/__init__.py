@@ -1,23 +1,19 @@
-"""Tasks: one job each, rows in x = [q̈; τ], stacked in priority levels by the HQP controller."""
+"""Tasks: one job each, rows in x = [q̈; τ], stacked in priority levels by the HQP controller.
 
-from ._common import TickState
-from .base import Task
-from .library import (
-    BoxWall,
-    GravityTorque,
-    JointDamping,
-    JointPositionLimits,
-    JointVelocityLimits,
-    PlaneWall,
-    Posture,
-    SphereWall,
-    Transparency,
-    WallLaw,
-    WallTask,
-)
+Every task, shipped or a user's, implements the public :class:`Task` API (``bind(state)``, ``rows(state)``);
+:data:`TASKS` names the shipped ones for scenario files.
+"""
 
-#: Task classes by the names scenario files use.
-TASKS = {
+from types import MappingProxyType
+
+from .base import Task, constant_rows, q_rows
+from .joints import GravityTorque, JointDamping, JointPositionLimits, JointVelocityLimits, Posture
+from .state import TickState, operational_space
+from .transparency import Transparency
+from .walls import BoxWall, PlaneWall, SphereWall, WallLaw, WallTask
+
+#: Task classes by the names scenario files use (read-only).
+TASKS = MappingProxyType({
     "gravity": GravityTorque,
     "joint_limits": JointPositionLimits,
     "velocity_limits": JointVelocityLimits,
@@ -27,7 +23,8 @@ TASKS = {
     "wall_plane": PlaneWall,
     "wall_box": BoxWall,
     "wall_sphere": SphereWall,
-}
+})
 
 __all__ = ["TickState", "Task", "TASKS", "BoxWall", "GravityTorque", "JointDamping", "JointPositionLimits",
-           "JointVelocityLimits", "PlaneWall", "Posture", "SphereWall", "Transparency", "WallLaw", "WallTask"]
+           "JointVelocityLimits", "PlaneWall", "Posture", "SphereWall", "Transparency", "WallLaw", "WallTask",
+           "q_rows", "constant_rows", "operational_space"]

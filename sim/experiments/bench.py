@@ -29,9 +29,7 @@ machines differ).  Cases:
   the torques must agree to ``agreement_tol_Nm``; the ratio of the median
   solve times is ``cvxpy_speedup``.
 * **Against the QP backends**: each installed backend on the same ticks, its
-  largest torque difference to the default backend and its solve times; and
-  the row ``python``: the default backend with every level solved by the
-  Python path instead of the compiled kernel (``HQPParams(compiled=False)``).
+  largest torque difference to the default backend and its solve times.
 * **Growth**: tick time against the number of priority levels (1 to 6, the
   reference stack growing one level at a time) and against the number of
   joints (7, 14, 28: :func:`models.chain.build_chain` chains without a
@@ -41,9 +39,9 @@ machines differ).  Cases:
   plain Python, as a user writes one (:class:`PythonHandCeiling`, in the
   wall's level, a ceiling the hand never reaches, so both runs move alike),
   against the same run without it, the two alternating: ``user_task`` gives
-  both stacks' tick, rows and solve medians (:func:`user_task_cost`). Such a task's rows come from
-  its own ``rows`` each tick and are copied into the compiled program that
-  writes the shipped tasks' rows (:mod:`controllers.tasks._program`).
+  both stacks' tick, rows and solve medians (:func:`user_task_cost`). Every task, shipped or a
+  user's, gives its rows through its own ``rows`` each tick, so such a task costs what a shipped
+  one costs per row.
 * **Sweep throughput**: the same small sweep (:func:`sim.experiments.sweep.run_sweep`)
   with one and with two worker processes, alternating, ``sweep_repeats``
   times each (``jobs2_speedup`` = median wall time with 1 / median wall time
@@ -91,8 +89,7 @@ import numpy as np
 import pinocchio as pin
 
 from controllers.base import ControllerContext
-from controllers.hqp import HQPParams
-from controllers.hqp_controller import HQPController
+from controllers.hqp import HQPController
 from controllers.qp_backends import available_backends
 from controllers.registry import make_controller
 from controllers.tasks import JointDamping, JointPositionLimits, JointVelocityLimits, Task, TickState, Transparency
@@ -265,8 +262,8 @@ TICK_STAGES: Mapping[str, tuple[tuple[str, str, str], ...]] = MappingProxyType({
     "sensing": (("sim.physics.sensors", "JointSensing", "measure"),
                 ("sim.physics.sensors", "ForceSensorBank", "measure"),
                 ("sim.physics.sensors", "ForceTorqueSensor", "measure")),
-    "controller model terms": (("controllers.tasks._common", "TickState", "update"),),
-    "controller rows and solve": (("controllers.hqp_controller", "HQPController", "step"),),
+    "controller model terms": (("controllers.tasks.state", "TickState", "update"),),
+    "controller rows and solve": (("controllers.hqp.controller", "HQPController", "step"),),
     "wearer's motor": (("sim.physics.wearer", "HumanMotor", "torque"),),
     "logging": (("sim.loop.runlog", "RunLog", "append_row"), ("sim.loop.runlog", "RunLog", "append")),
 })
@@ -608,13 +605,6 @@ def compare_backends(scenario: Scenario, folder: str | Path, ticks: int) -> dict
             ref = tau
         out[name] = {"solve_median_us": float(np.median(t) * 1e6), "solve_p99_us": float(np.percentile(t, 99) * 1e6),
                      "max_torque_diff_to_default_Nm": float(np.abs(tau - ref).max())}
-    # the default backend with every level in Python (HQPParams.compiled=False): what the compiled levels buy
-    ctrl = make_controller("walls", scenario.variants, scenario.walls)
-    ctrl.params = HQPParams(compiled=False)
-    tau, t = replay(ctrl, context, sampled)
-    out[PYTHON_LEVELS] = {"solve_median_us": float(np.median(t) * 1e6),
-                          "solve_p99_us": float(np.percentile(t, 99) * 1e6),
-                          "max_torque_diff_to_default_Nm": float(np.abs(tau - ref).max()) if ref is not None else None}
     return out
 
 
@@ -624,9 +614,6 @@ WARMUP_S = 0.05
 BREAKDOWN_MAX_S = 3.0
 #: Measurements of the machine's own two-process speedup beside each pair of sweeps (each about 2 runs long).
 CEILING_MEASURES = 3
-
-#: the row of :func:`compare_backends` with the levels solved in Python instead of the compiled kernel
-PYTHON_LEVELS = "python"
 
 
 # --------------------------------------------------------------------------------------------
@@ -1102,8 +1089,6 @@ def format_report(report: dict) -> str:
         else:
             lines.append(f"{name:<10} {b['solve_median_us']:>10.1f} {b['solve_p99_us']:>10.1f} "
                          f"{_fmt(b['max_torque_diff_to_default_Nm'], '.2g'):>28}")
-    lines.append(f"  ({PYTHON_LEVELS}: the default backend with every level solved in Python, "
-                 "HQPParams(compiled=False))")
     lines += ["", f"{'levels':<10} {'tick median us':>15} {'HQP median us':>15}"]
     for p in r["levels_series"]:
         lines.append(f"{p['levels']:<10} {p['tick_time_median_us']:>15.1f} {_fmt(p['hqp_solve_median_us']):>15}")

@@ -27,7 +27,7 @@ In a notebook::
     row = sim.step()                    # one tick: row["q_exo"], row["tau_cmd"], ...
     trajectory = sim.run()              # the rest of the run, in memory
     trajectory.arrays["tau_cmd"]        # (ticks, joints) [N m]
-    trajectory.save("runs/my-run")      # a run folder, as sim.simulate writes it
+    trajectory.save("runs/my-run")      # a run folder, as sim.loop.simulate writes it
 """
 
 from __future__ import annotations
@@ -191,12 +191,12 @@ class Trajectory:
         return self.ticks
 
     def save(self, folder: str | Path) -> Path:
-        """Write the run folder of these rows, as :func:`sim.simulate` writes it, and return its path.
+        """Write the run folder of these rows, as :func:`sim.loop.simulate` writes it, and return its path.
 
         ``meta.json``, ``exo.urdf`` and ``human.urdf``, the log (through
         :class:`~sim.loop.runlog.RunLog`), ``timing.npz``, and for a run
         without the wearer-robot coupling the ``metrics.json`` that
-        :func:`sim.simulate` writes; :func:`sim.load_run` reads it back with the
+        :func:`sim.loop.simulate` writes; :func:`sim.load_run` reads it back with the
         same arrays.  ``folder`` must not hold a run already.
         """
         folder = Path(folder)
@@ -269,7 +269,7 @@ class Simulation:
     :meth:`step` and :meth:`run` keep the rows in memory, from the last
     :meth:`reset` (:attr:`trajectory`); ``run(log=...)`` streams a whole run
     to a :class:`~sim.loop.runlog.RunLog` instead, chunk by chunk, so that a
-    crash keeps every finished chunk (what :func:`sim.simulate` does).
+    crash keeps every finished chunk (what :func:`sim.loop.simulate` does).
     """
 
     def __init__(self, scenario: Scenario, controller: Controller | str | None, *, seed: int | None = None,

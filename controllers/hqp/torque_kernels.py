@@ -2,7 +2,7 @@ r"""Compiled (numba) arithmetic of the HQP controller's torque elimination.
 
 With the dynamics :math:`M \ddot q + h = \tau + \sum_c J_c^T w_c` the torque is the affine function
 :math:`\tau = M \ddot q + c` of the joint accelerations, :math:`c = h - \sum_c J_c^T w_c`
-(:mod:`controllers.hqp_controller`). These two functions do, in one call each, the few NumPy
+(:class:`controllers.hqp.HQPController`). These two functions do, in one call each, the few NumPy
 operations of a tick that build the torque-limit rows and read the torque back;
 ``tests/test_torque_kernels.py`` checks them against those NumPy expressions.
 """

@@ -1,13 +1,12 @@
-"""A stack written in one compiled call (``controllers.tasks._program``): shipped tasks computed there, a user's
-tasks (and subclasses) copied in from their own ``rows``.
+r"""The HQP controller's one path for every task: each task's public ``rows``, checked and copied into the
+controller's buffers, solved by the compiled hierarchy.
 
 References, each beside its check:
 
-* the controller's task-by-task stack (each task's ``rows``, then the elimination of the torque), itself
-  checked against cvxpy in ``test_hqp_torque_elimination.py``: the program must write the same rows, to
-  the bit, and so give the same torques;
-* cvxpy (Clarabel), level by level (``sim.experiments.bench.solve_levels_cvxpy``, Kanoun, Lamiraux & Wieber 2011): the
-  torques of a program-driven controller, to 1e-5 N m;
+* cvxpy (Clarabel), level by level (``tests/_lexicographic.py``, Kanoun, Lamiraux & Wieber 2011): the
+  torques of a controller holding every shipped task and a user's tasks, to 1e-5 N m;
+* each task's own ``rows`` as the stack's reference: the rows the controller stacks are those rows, with
+  the torque eliminated (:math:`(A_q + A_\tau M)\ddot q = b - A_\tau c`, the controller's docstring) in NumPy;
 * the wall shapes' touched faces against their geometry written in NumPy (a plane's signed distance
   :math:`n^T(p - x_0)`, a box's per-axis excess, a sphere's radial distance).
 """
@@ -19,8 +18,7 @@ import pytest
 
 import models
 from controllers.base import ControllerContext
-from controllers.hqp import HQPParams
-from controllers.hqp_controller import HQPController
+from controllers.hqp import HQPController
 from controllers.tasks import (
     BoxWall,
     GravityTorque,
@@ -33,13 +31,15 @@ from controllers.tasks import (
     Task,
     TickState,
     Transparency,
+    WallLaw,
+    kernels,
 )
-from controllers.tasks import _kernels as kernels
-from controllers.tasks.library import WallLaw
 from models.records import Measurement
 
 pytest.importorskip("cvxpy")
-from sim.experiments.bench import PythonHandCeiling, solve_levels_cvxpy, stack_rows  # noqa: E402
+from _lexicographic import controller_lexicographic, controller_rows  # noqa: E402
+
+from sim.experiments.bench import PythonHandCeiling  # noqa: E402
 
 CUFFS = {"upper_arm": "exo_cuff_upper_arm", "forearm": "exo_cuff_forearm", "hand": "exo_cuff_hand"}
 TOL_NM = 1e-5  # as the bench's cvxpy comparison
@@ -92,7 +92,7 @@ class _WristTorque(Task):
 
 
 class _NearerPlane(PlaneWall):
-    """A subclass of a shipped task (it may change faces): written from its own rows, as a user's task."""
+    """A subclass of a shipped task that changes its faces: its rows come from its own rows, as any task's."""
 
     def faces(self, p):
         return super().faces(np.asarray(p) + [0.01, 0.0, 0.0])
@@ -121,102 +121,84 @@ def _stacks(arm):
     }
 
 
-def _pair(make_levels, ctx):
-    """A controller with its program and one of the same levels written task by task."""
-    fast, slow = HQPController(make_levels()), HQPController(make_levels())
-    fast.reset(ctx)
-    slow.reset(ctx)
-    slow._program = None
-    assert fast._program is not None
-    return fast, slow
-
-
 @pytest.mark.parametrize("name", ["walls", "shapes", "torque", "user"])
-def test_the_program_writes_the_task_by_task_stack_to_the_bit(name):
-    # reference: the controller's task-by-task rows (each task's rows, then the elimination of the torque)
+def test_the_stack_holds_each_tasks_own_rows_with_the_torque_eliminated(name):
+    # reference: each task's rows as it returns them (tests/_lexicographic.controller_rows, the public API only)
+    # and the elimination of the torque written in NumPy: (A_q + A_tau M) qdd = b - A_tau c
     arm, ctx = _context()
-    fast, slow = _pair(_stacks(arm)[name], ctx)
+    ctrl, ref = HQPController(_stacks(arm)[name]()), HQPController(_stacks(arm)[name]())
+    ctrl.reset(ctx)
+    ref.reset(ctx)
+    n = 7
     touched = set()
     for m in _states(arm, 24, seed=5):
-        for ctrl in (fast, slow):
-            ctrl.state.update(m)
-        s = fast.state
+        rows = controller_rows(ref, m)
+        ctrl.state.update(m)
+        s = ctrl.state
         c = s.h - s.cuff_force
-        a, rows_a = fast._fill_program(s, c)
-        b, rows_b = slow._fill_stack(slow.state, c)
-        assert rows_a == rows_b
-        for key in ("A", "b", "sw", "C", "d", "wi", "eq_off", "in_off", "unit_eq"):
-            assert np.array_equal(getattr(a, key), getattr(b, key)), key
-        for k in range(len(a)):  # the lazy layout rebuilds the same levels
-            la, lb = a[k], b[k]
-            assert np.array_equal(la.A, lb.A) and np.array_equal(la.C, lb.C)
-            assert np.array_equal(la.weights_eq, lb.weights_eq) and np.array_equal(la.weights_ineq, lb.weights_ineq)
-        touched.update(t.name for (_, t), (start, _) in zip(fast._program.tasks, fast._program.spans) if start >= 0)
+        stack, count = ctrl._fill_stack(s, c)
+        assert count == sum(A.shape[0] for eq, ineq in rows.levels for A, _, _ in (*eq, *ineq) if A.shape[0])
+        for k, (eq, ineq) in enumerate(rows.levels):
+            level = stack[k]
+            for entries, M_, v_, w_ in ((eq, level.A, level.b, level.weights_eq),
+                                         (ineq, level.C, level.d, level.weights_ineq)):
+                entries = [e for e in entries if e[0].shape[0]]
+                if not entries:
+                    assert M_.shape[0] == 0
+                    continue
+                A = np.vstack([e[0] for e in entries])
+                b = np.concatenate([e[1] for e in entries])
+                w = np.concatenate([np.full(e[0].shape[0], e[2]) for e in entries])
+                np.testing.assert_allclose(M_, A[:, :n] + A[:, n:] @ s.M, rtol=1e-14, atol=1e-12)
+                np.testing.assert_allclose(v_, b - A[:, n:] @ c, rtol=1e-14, atol=1e-12)
+                np.testing.assert_array_equal(w_, w)
+        # the last level: the minimum norm of [qdd; tau], [I; M] qdd ~ [0; -c]
+        last = stack[len(rows.levels)]
+        np.testing.assert_array_equal(last.A, np.vstack([np.eye(n), s.M]))
+        np.testing.assert_array_equal(last.b, np.concatenate([np.zeros(n), -c]))
+        # walls hold no state between ticks: asking again which touched this tick changes nothing
+        touched.update(t.name for level in ref.levels for t in level
+                       if t.name.startswith("wall") and t.rows(ref.state) is not None)
     if name == "shapes":  # every wall shape wrote rows on some tick
         assert {"wall_box", "wall_sphere"} <= touched
-    if name == "user":  # the user's tasks and the subclass were copied in, each on some tick
-        names = ["python_hand_ceiling", "wall_plane", "wrist_torque"]
-        assert [t.name for _, _, t, _, _ in fast._program.external] == names
-        assert set(names) <= touched
 
 
 @pytest.mark.parametrize(("name", "tol_Nm"), [("walls", TOL_NM), ("shapes", 1e-4), ("torque", TOL_NM),
                                              ("user", TOL_NM)])
-def test_a_program_driven_controller_gives_the_torques_of_cvxpy(name, tol_Nm):
+def test_a_controller_of_every_shipped_task_and_a_users_gives_the_torques_of_cvxpy(name, tol_Nm):
     # reference: cvxpy (Clarabel) level by level on the rows of a controller of the same levels. The walls of
     # "shapes" hold the hand deep inside them, so most torques sit at their limits (80 N m), where the
     # reference, solved to Clarabel's default tolerances, is off by up to 6e-5 N m (common practice: compare
     # to the reference's own precision)
     arm, ctx = _context()
     make = _stacks(arm)[name]
-    fast, slow = _pair(make, ctx)
-    ref = HQPController(make())
+    ctrl, ref = HQPController(make()), HQPController(make())
+    ctrl.reset(ctx)
     ref.reset(ctx)
     for m in _states(arm, 8, seed=9, wrench_scale=3.0, speed_scale=0.3, spread=0.03):
-        tau = fast.step(m)
-        assert np.array_equal(tau, slow.step(m))  # the same stack, the same solve
-        assert fast.diagnostics()["fallback"] == 0.0
-        tau_cvx = solve_levels_cvxpy(stack_rows(ref, m))[7:]
+        tau = ctrl.step(m)
+        assert ctrl.diagnostics()["fallback"] == 0.0
+        tau_cvx = controller_lexicographic(controller_rows(ref, m))[7:]
         assert np.abs(tau - tau_cvx).max() < tol_Nm
 
 
-def test_a_program_copies_a_users_task_or_a_subclass_and_needs_a_shipped_task_and_the_q_ddot_form():
+def test_a_users_task_weight_is_read_every_tick():
+    # reference: the weight the task holds when its rows are written (sqrt(w) on its equality rows)
     arm, ctx = _context()
-    ctrl = HQPController([[_NearerPlane((0.4, 0, 0), (1, 0, 0))], [JointDamping()]])
+    ctrl = HQPController(_stacks(arm)["user"]())
     ctrl.reset(ctx)
-    assert [type(t) for _, _, t, _, _ in ctrl._program.external] == [_NearerPlane]
-    for levels, kwargs in (([[_NearerPlane((0.4, 0, 0), (1, 0, 0))], [_WristTorque()]], {}),  # nothing to compile
-                           ([[Transparency()], [JointDamping()]], {"eliminate_torque": False}),
-                           ([[Transparency()], [JointDamping()]], {"params": HQPParams(compiled=False)})):
-        ctrl = HQPController(levels, **kwargs)
-        ctrl.reset(ctx)
-        assert ctrl._program is None
-    ctrl = HQPController([[Transparency()], [JointDamping()]], params=HQPParams())
-    ctrl.reset(ctx)
-    assert ctrl._program is not None and not ctrl._program.external
-
-
-def test_a_users_task_weight_is_read_every_tick_as_task_by_task():
-    # reference: the task-by-task stack, which reads each task's weight when it writes its rows
-    arm, ctx = _context()
-    fast, slow = _pair(_stacks(arm)["user"], ctx)
     new_weight_seen = False
     for k, m in enumerate(_states(arm, 9, seed=3)):
         if k == 4:
-            for ctrl in (fast, slow):
-                ctrl.levels[2][1].weight = 0.25
-        for ctrl in (fast, slow):
-            ctrl.state.update(m)
-        c = fast.state.h - fast.state.cuff_force
-        a, _ = fast._fill_program(fast.state, c)
-        b, _ = slow._fill_stack(slow.state, c)
-        for key in ("A", "b", "sw", "unit_eq"):
-            assert np.array_equal(getattr(a, key), getattr(b, key)), (k, key)
+            ctrl.levels[2][1].weight = 0.25
+        ctrl.state.update(m)
+        c = ctrl.state.h - ctrl.state.cuff_force
+        a, _ = ctrl._fill_stack(ctrl.state, c)
         new_weight_seen |= 0.5 in a.sw  # sqrt(0.25): the wrist row of a tick after the change
     assert new_weight_seen
 
 
-def test_non_finite_rows_of_a_users_task_in_a_program_name_it_and_its_rows_are_called_once_a_tick():
+def test_non_finite_rows_of_a_users_task_name_it_and_its_rows_are_called_once_a_tick():
     class Glitch(_WristTorque):
         name = "glitch"
 
@@ -227,14 +209,13 @@ def test_non_finite_rows_of_a_users_task_in_a_program_name_it_and_its_rows_are_c
     arm, ctx = _context()
     ctrl = HQPController([[Transparency()], [Glitch(), JointDamping()]])
     ctrl.reset(ctx)
-    assert ctrl._program is not None
     for k, m in enumerate(_states(arm, 3, seed=2)):
         ctrl.step(m)
-        assert ctrl.levels[1][0].calls == k + 1  # also on the tick written again task by task for the message
+        assert ctrl.levels[1][0].calls == k + 1  # also on the tick whose error names the task
     assert ctrl.fallback_count == 1 and "glitch" in ctrl.last_fallback_reason
 
 
-def test_rows_of_a_users_task_with_the_wrong_columns_in_a_program_name_it():
+def test_rows_of_a_users_task_with_the_wrong_columns_name_it():
     class Short(_WristTorque):
         name = "short_rows"
 
@@ -244,20 +225,18 @@ def test_rows_of_a_users_task_with_the_wrong_columns_in_a_program_name_it():
     arm, ctx = _context()
     ctrl = HQPController([[Transparency()], [Short(), JointDamping()]])
     ctrl.reset(ctx)
-    assert ctrl._program is not None
     ctrl.step(next(_states(arm, 1, seed=4)))
     assert ctrl.fallback_count == 1
     assert "short_rows" in ctrl.last_fallback_reason and "expected 2 nv = 14" in ctrl.last_fallback_reason
 
 
-def test_non_finite_rows_of_a_program_name_their_task():
+def test_non_finite_rows_of_a_shipped_task_name_it():
     # a posture a float cannot reach: omega^2 (q* - q) overflows to inf in the posture task's right-hand side
     arm, ctx = _context()
     ctrl = HQPController([[Transparency()], [Posture((1e308,) * 7, weight=0.1)]])
     ctrl.reset(ctx)
-    assert ctrl._program is not None
     m = next(_states(arm, 1, seed=1))
-    with np.errstate(over="ignore"):  # the task-by-task rows, written again for the message, overflow in NumPy
+    with np.errstate(over="ignore"):  # the posture rows overflow in NumPy
         tau = ctrl.step(m)
     assert ctrl.fallback_count == 1 and "posture" in ctrl.last_fallback_reason
     np.testing.assert_allclose(tau, ctrl.state.g - ctrl.fallback_damping * m.dq_rad_s)
@@ -311,3 +290,42 @@ def test_hand_point_is_the_cuff_deflection_rotated_to_the_world():
         p, w, comp = rng.normal(size=3), rng.normal(scale=20, size=6), rng.uniform(1e-4, 1e-3, size=3)
         np.testing.assert_allclose(kernels.hand_point(p, R, w, comp), p + R @ (comp * w[:3]), rtol=1e-13,
                                    atol=1e-16)
+
+
+def test_a_tick_that_stops_on_a_tasks_error_leaves_the_next_ticks_stack_whole():
+    # a user's task before constant rows writes a different number of rows each tick and fails on one tick;
+    # reference: the next ticks' stacks against each task's own rows (as the first test), and cvxpy
+    class Flaky(Task):
+        name, kind, tick = "flaky", "ineq", 0
+
+        def rows(self, state):
+            if self.tick == 2:
+                return [[1.0] * (2 * state.nv - 1)], [0.0]  # one column short: this tick falls back
+            k = self.tick % 3
+            return np.ones((k, 2 * state.nv)) * 1e-3, np.full(k, 50.0)
+
+    arm, ctx = _context()
+
+    def make():
+        return [[Flaky(), JointPositionLimits(), JointVelocityLimits()], [Transparency()], [JointDamping()]]
+
+    ctrl, ref = HQPController(make()), HQPController(make())
+    ctrl.reset(ctx)
+    ref.reset(ctx)
+    n = 7
+    for k, m in enumerate(_states(arm, 7, seed=12, wrench_scale=3.0, speed_scale=0.3, spread=0.03)):
+        ctrl.levels[0][0].tick = ref.levels[0][0].tick = k
+        tau = ctrl.step(m)
+        if k == 2:
+            assert ctrl.diagnostics()["fallback"] == 1.0 and "flaky" in ctrl.last_fallback_reason
+            continue
+        assert ctrl.diagnostics()["fallback"] == 0.0
+        rows = controller_rows(ref, m)
+        assert np.abs(tau - controller_lexicographic(rows)[7:]).max() < TOL_NM
+        s = ctrl.state
+        c = s.h - s.cuff_force
+        level = ctrl._fill_stack(s, c)[0][0]  # this tick's stack, with the torque eliminated as in the first test
+        C = np.vstack([e[0] for e in rows.levels[0][1] if e[0].shape[0]])
+        d = np.concatenate([e[1] for e in rows.levels[0][1]])
+        np.testing.assert_allclose(level.C, C[:, :n] + C[:, n:] @ s.M, rtol=1e-14, atol=1e-12)
+        np.testing.assert_allclose(level.d, d - C[:, n:] @ c, rtol=1e-14, atol=1e-12)

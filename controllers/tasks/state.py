@@ -4,6 +4,13 @@
 own model and measured state, then hands out the mass matrix, the bias and
 gravity terms, frame Jacobians, frame drift accelerations and the generalized
 force of the measured cuff wrenches.  Frame quantities are cached per tick.
+
+References
+----------
+.. [Khatib1987] O. Khatib, "A unified approach for motion and force control of robot manipulators: the
+   operational space formulation", IEEE J. Robotics and Automation 3(1):43-53, 1987.
+.. [Featherstone2005] R. Featherstone, "Efficient factorization of the joint-space inertia matrix for
+   branched kinematic trees", Int. J. Robotics Research 24(6), 2005.
 """
 
 from __future__ import annotations
@@ -14,9 +21,9 @@ import pinocchio as pin
 from models.arm import ArmModel
 from models.records import Measurement
 
-from . import _kernels
+from . import kernels
 
-__all__ = ["TickState"]
+__all__ = ["TickState", "operational_space"]
 
 
 class TickState:
@@ -73,8 +80,8 @@ class TickState:
                 jacobians[k] = J
                 wrenches[k] = w
                 k += 1
-        self.M, self.Minv, self.h, self.g, self.cuff_force = _kernels.tick_terms(U, Minv, nle, g, jacobians,
-                                                                                  wrenches, k)
+        self.M, self.Minv, self.h, self.g, self.cuff_force = kernels.tick_terms(U, Minv, nle, g, jacobians,
+                                                                                 wrenches, k)
 
     def jacobian(self, frame_id: int, reference=pin.LOCAL_WORLD_ALIGNED) -> np.ndarray:
         """(6, nv) frame Jacobian in ``reference`` (cached for the tick)."""
@@ -111,8 +118,7 @@ def operational_space(M: np.ndarray, J: np.ndarray) -> tuple[np.ndarray, np.ndar
         \\Lambda = (J M^{-1} J^T)^{-1}, \\qquad \\bar J = M^{-1} J^T \\Lambda, \\qquad
         N^T = I - J^T \\bar J^T
 
-    (Khatib 1987, IEEE J. Robotics and Automation 3(1):43-53; REFERENCES.md
-    section 12).  Returns ``(Lambda, Jbar, N_T)``; J must have full row rank.
+    (Khatib 1987, see References).  Returns ``(Lambda, Jbar, N_T)``; J must have full row rank.
     """
     Minv_JT = np.linalg.solve(M, J.T)
     Lam = np.linalg.inv(J @ Minv_JT)

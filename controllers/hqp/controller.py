@@ -9,7 +9,7 @@ wrenches and the torque limits,
     |\\tau| \\le \\tau_{max},
 
 then the levels, highest first (:func:`controllers.hqp.solve_hierarchy`;
-Kanoun, Lamiraux & Wieber 2011), then the minimum-norm level
+[Kanoun2011]_), then the minimum-norm level
 :math:`\\min \\tfrac12 \\|x\\|^2` that makes the answer unique.  The command is
 the τ part of the solution.
 
@@ -26,21 +26,26 @@ feasible set and cost as a function of q̈, hence the same optimum; the
 difference to the 2 nv form is rounding and solver tolerance (tested against
 it and against cvxpy).  The torque is clipped to its limits to remove the
 rounding of the hard rows (at most the feasibility tolerance).
-**One compiled call for the rows.**  When the torque is eliminated, the
-controller writes the whole stack in one compiled call
-(:func:`controllers.tasks._kernels.fill_program`): the rows of the shipped
-classes (:data:`controllers.tasks._program.PROGRAM_TASKS`) computed there with
-the same functions as the tasks' own ``rows``, those of any other task (a
-user's, a subclass) taken from its ``rows`` each tick, checked and put in q̈
-in Python as task by task, and copied in: the same rows, to the bit (tested).
-Such a program reads the shipped tasks' parameters (weights included) when
-the controller is reset: a parameter changed later takes effect at the next
-reset (another task's weight is read every tick).  A stack with no shipped
-task, or solved in [q̈; τ], is written task by task.
+
+**One path for every task.**  Each tick the controller calls every task's
+``rows(state)`` (shipped or a user's: the same public API), checks the shape
+and finiteness of what it returned (an error names the level and the task),
+puts the rows in q̈ as above and copies them into row buffers it owns, then
+solves the stack with a :class:`~controllers.hqp.HierarchySolver`.  A task's
+weight and parameters are read every tick.  Rows a task returns as the same
+read-only array every tick (constant rows) are split into their q̈ and τ
+parts once.
+
 If a solve fails, a task's linear algebra fails or the hard constraints cannot hold, the controller never
 uses a made-up answer: it commands the safe fallback
 :math:`\\tau = g(q) - D \\dot q` (gravity compensation and joint damping),
 counts the event and keeps its reason.
+
+References
+----------
+.. [Kanoun2011] O. Kanoun, F. Lamiraux, P.-B. Wieber, "Kinematic control of
+   redundant manipulators: generalizing the task-priority framework to
+   inequality tasks", IEEE Trans. Robotics 27(4):785-792, 2011.
 """
 
 from __future__ import annotations
@@ -55,13 +60,13 @@ import numpy as np
 from models.errors import ParameterError, SandboxError
 from models.records import Measurement
 
-from ._hqp_kernels import stack_is_finite
-from ._torque_kernels import clipped_torque, torque_limit_rows
-from .base import Controller, ControllerContext
-from .hqp import HierarchySolver, HQPParams, Level, LevelStack, _kernel_head, solve_hierarchy
-from .tasks import Task, TickState
-from .tasks import _kernels as _task_kernels
-from .tasks._program import LazyLayout, TaskProgram
+from ..base import Controller, ControllerContext
+from ..tasks import Task, TickState
+from .kernels import place_q_rows, stack_is_finite
+from .levels import Level, LevelStack
+from .params import HQPParams
+from .solver import HierarchySolver, compiled_head, solve_hierarchy
+from .torque_kernels import clipped_torque, torque_limit_rows
 
 __all__ = ["HQPController"]
 
@@ -87,9 +92,9 @@ class _StackBuffers:
 
     def parts(self, is_eq: bool, rows: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """``(A, b, sw)`` or ``(C, d, wi)``, first grown (doubled, keeping the rows written) to hold ``rows`` rows."""
-        names = ("A", "b", "sw") if is_eq else ("C", "d", "wi")
-        arrays = tuple(getattr(self, name) for name in names)
+        arrays = (self.A, self.b, self.sw) if is_eq else (self.C, self.d, self.wi)
         if rows > arrays[0].shape[0]:
+            names = ("A", "b", "sw") if is_eq else ("C", "d", "wi")
             size = max(rows, 2 * arrays[0].shape[0])
             grown = []
             for name, old in zip(names, arrays):
@@ -172,16 +177,9 @@ class HQPController(Controller):
             self._plan.append([(slot + j, t, t.kind == "eq") for j, t in enumerate(tasks)])
             slot += len(tasks)
         self._constant_rows: list = [None] * slot  # (read-only rows, their q part, their tau part or None)
+        self._raw_rows: list = []  # (level, task, A, b) as the tasks returned them this tick
         self._placed: list = [None] * slot  # (q part, first row, weight) of the constant rows written last tick
         self._min_norm_at = -1  # the first row of the minimum-norm level last tick
-        self._raw_rows: list = []  # (level, task, A, b) as the tasks returned them this tick
-        # a stack of shipped tasks only is written in one compiled call (the same rows as _fill_stack)
-        self._program = None
-        if self.eliminate_torque and (self.params is None or self.params.compiled):
-            self._program = TaskProgram.build(self.levels, self.state)
-            if self._program is not None:
-                self._buf.parts(True, self._program.max_eq)
-                self._buf.parts(False, self._program.max_in)
         self.fallback_count = 0
         self.last_fallback_reason = None
         self._diag = dict.fromkeys(self.diagnostic_names(), 0.0)
@@ -195,18 +193,22 @@ class HQPController(Controller):
         (``solve_levels_fast``), which numba would otherwise load inside the first such tick, typically the first
         wall contact: about 0.1 s, or a minute right after installing, a stall no control loop may take. An empty
         stack in the controller's own buffers, above its torque-limit rows, makes the same calls with the same
-        argument types (checked by the tests) and changes no state of the controller. Best effort: should that
-        trivial solve fail, the reset goes on, and a tick that fails later falls back as any failed tick does.
+        argument types (checked by the tests) and changes no state of the controller. The same for the copy of a
+        task's rows (``place_q_rows``), whose first call may come with a wall's first contact. Best effort:
+        should that trivial solve fail, the reset goes on, and a tick that fails later falls back as any failed
+        tick does.
         """
         if not self.eliminate_torque:  # that path calls solve_hierarchy on every tick: its first tick loads them
             return
         buf, p = self._buf, len(self.levels) + 1
+        n = buf.cols
+        place_q_rows(np.zeros((0, 2 * n)), np.zeros(0), n, buf.A, buf.b, buf.sw, 0, 1.0)  # writes nothing
         eq_off, in_off = np.zeros_like(buf.eq_off), np.zeros_like(buf.in_off)
         stack = LevelStack.from_arrays(buf.A[:0], buf.b[:0], buf.sw[:0], eq_off, buf.unit_eq, buf.C[:0], buf.d[:0],
                                        buf.wi[:0], in_off, buf.cols, self._stack_names, [([], [])] * p)
         try:
-            self._hqp._solve_owned(stack, np.zeros_like(self._G), np.zeros_like(self._h), "torque limits", None,
-                                   time.perf_counter())
+            self._hqp.solve_trusted(stack, np.zeros_like(self._G), np.zeros_like(self._h), "torque limits", None,
+                                    time.perf_counter())
         except (SandboxError, np.linalg.LinAlgError) as e:  # the errors step() turns into a fallback
             _log.debug("controller %s: the reset's preload solve failed: %s", self.name, e)
 
@@ -219,7 +221,7 @@ class HQPController(Controller):
         prev = self._prev
         if type(prev) is tuple:  # a tick the compiled kernel solved whole: its record is built when first read
             out, p, seconds = prev
-            prev = self._prev = self._hqp._kernel_result(out, p, seconds)
+            prev = self._prev = self._hqp.compiled_result(out, p, seconds)
         return prev
 
     def diagnostic_names(self) -> tuple[str, ...]:
@@ -231,16 +233,16 @@ class HQPController(Controller):
     def diagnostics(self):
         return self._diag
 
-    def _fill_stack(self, s: TickState, c: np.ndarray | None, given: dict | None = None) -> tuple[LevelStack, int]:
+    def _fill_stack(self, s: TickState, c: np.ndarray | None) -> tuple[LevelStack, int]:
         """Every level's rows of this tick written into the controller's buffers (in q̈ when ``c`` is given).
 
-        Returns the stack over the buffers (valid until the next tick) and the number of task rows. Rows
-        that are 2-D and 1-D float arrays of matching shapes go in as they are (their finiteness is
-        checked once on the whole stack, :meth:`_check_finite`); any other entry goes through the checks
-        of :class:`~controllers.hqp.Level` (:meth:`_checked_rows`). An entry with no rows is left out, as
-        one that returned None. With ``c``, a row on the torques :math:`A_q \\ddot q + A_\\tau \\tau = b` is
-        written as :math:`(A_q + A_\\tau M)\\ddot q = b - A_\\tau c` (module docstring). ``given`` maps a
-        task's slot to what its ``rows`` already returned this tick (so that it is called once a tick).
+        Calls each task's ``rows(state)`` once. Returns the stack over the buffers (valid until the next
+        tick) and the number of task rows. Rows that are 2-D and 1-D float arrays of matching shapes go in
+        as they are (their finiteness is checked once on the whole stack, :meth:`_check_finite`); any other
+        entry goes through the checks of :class:`~controllers.hqp.Level` (:meth:`_checked_rows`). An entry
+        with no rows is left out, as one that returned None. With ``c``, a row on the torques
+        :math:`A_q \\ddot q + A_\\tau \\tau = b` is written as :math:`(A_q + A_\\tau M)\\ddot q = b - A_\\tau c`
+        (module docstring).
         """
         n, buf = s.nv, self._buf
         cols = 2 * n
@@ -248,9 +250,11 @@ class HQPController(Controller):
         cache = self._constant_rows
         raw = self._raw_rows
         raw.clear()
-        # constant rows written at the same place last tick with the same weight are still there: every row
-        # is written in order each tick, so nothing has written over them since (only b is new)
+        # constant rows written at the same place with the same weight last tick are still there: the rows are
+        # written in order every tick, so nothing has written over them since (only their right-hand side is new);
+        # a tick that stops on an error forgets them all, as it may have written anywhere
         last, placed = self._placed, [None] * len(cache)
+        min_norm_at, self._placed, self._min_norm_at = self._min_norm_at, placed, -1
         layout = []
         ends = [0, 0]  # rows written so far: equality, inequality
         eq_off, in_off, unit_eq = buf.eq_off, buf.in_off, buf.unit_eq
@@ -258,7 +262,7 @@ class HQPController(Controller):
             spans = ([], [])  # per kind, (first row, end row, weight) of each entry
             unit = True
             for slot, t, is_eq in level:
-                r = given[slot] if given is not None and slot in given else t.rows(s)
+                r = t.rows(s)
                 if r is None:
                     continue
                 A, b = r[0], r[1]
@@ -271,30 +275,36 @@ class HQPController(Controller):
                     A, b = self._checked_rows(i, t, is_eq, A, b, cols)
                     if b.shape[0] == 0:
                         continue
+                    A_q = A_t = None  # this tick's own rows: placed below
                     if c is None:
-                        A_q, A_t = A, None
-                    else:
+                        A_q = A
+                    elif not (A.flags.writeable and b.flags.writeable and A.flags.c_contiguous
+                              and b.flags.c_contiguous):
                         A_t = A[:, n:]
                         A_q, A_t = A[:, :n], (A_t if np.count_nonzero(A_t) else None)
-                    if type(r[0]) is _NDARRAY and not r[0].flags.writeable and np.isfinite(A.sum()):
-                        cache[slot] = (r[0], A_q, A_t)  # constant rows: split them once
+                        if type(r[0]) is _NDARRAY and not r[0].flags.writeable and np.isfinite(A.sum()):
+                            cache[slot] = (r[0], A_q, A_t)  # constant rows: split them once
                 w = float(t.weight)
+                w_row = math.sqrt(w) if is_eq else w  # the equality rows carry the square roots of their weights
                 start = ends[not is_eq]
                 end = start + b.shape[0]
                 rows_buf, rhs_buf, w_buf = buf.parts(is_eq, end)
-                w_row = math.sqrt(w) if is_eq else w  # the equality rows carry the square roots of their weights
-                if A_t is not None:  # a row on the torques: tau = M qdd + c
-                    rows_buf[start:end] = A_q + A_t @ M
-                    rhs_buf[start:end] = b - A_t @ c
-                    w_buf[start:end] = w_row
-                else:
-                    rhs_buf[start:end] = b
-                    prev = last[slot]
-                    if prev is None or prev[0] is not A_q or prev[1] != start or prev[2] != w:
-                        rows_buf[start:end] = A_q
+                if A_q is None:  # one compiled copy of rows on q̈ alone; rows on the torques are eliminated below
+                    if not place_q_rows(A, b, n, rows_buf, rhs_buf, w_buf, start, w_row):
+                        A_q, A_t = A[:, :n], A[:, n:]
+                if A_q is not None:
+                    if A_t is not None:  # a row on the torques: tau = M qdd + c
+                        rows_buf[start:end] = A_q + A_t @ M
+                        rhs_buf[start:end] = b - A_t @ c
                         w_buf[start:end] = w_row
-                    if A_q is not A:  # only a split of cached constant rows is the same object next tick
-                        placed[slot] = (A_q, start, w)
+                    else:
+                        rhs_buf[start:end] = b
+                        prev = last[slot]
+                        if prev is None or prev[0] is not A_q or prev[1] != start or prev[2] != w:
+                            rows_buf[start:end] = A_q
+                            w_buf[start:end] = w_row
+                        if A_q is not A:  # only the split of cached constant rows is the same object next tick
+                            placed[slot] = (A_q, start, w)
                 spans[not is_eq].append((start, end, w))
                 if is_eq and w != 1.0:
                     unit = False
@@ -308,11 +318,11 @@ class HQPController(Controller):
         if c is not None:  # the minimum-norm level [I; M] qdd ~ [0; -c]: 1/2 ||qdd||^2 + 1/2 ||tau||^2
             end = m_e + 2 * n
             buf.parts(True, end)
-            if self._min_norm_at != m_e:  # else its constant half [I; 0] and weights are in place (as above)
+            if min_norm_at != m_e:  # else its constant half [I; 0] and its weights are still in place
                 buf.A[m_e:m_e + n] = self._eye
                 buf.b[m_e:m_e + n] = 0.0
                 buf.sw[m_e:end] = 1.0
-                self._min_norm_at = m_e
+            self._min_norm_at = m_e
             buf.A[m_e + n:end] = s.M
             np.negative(c, out=buf.b[m_e + n:end])
             layout.append(([(m_e, end, 1.0)], []))
@@ -320,7 +330,6 @@ class HQPController(Controller):
             p = len(self.levels)
             buf.eq_off[p + 1], buf.in_off[p + 1], buf.unit_eq[p] = m_e, m_i, True
             names = self._stack_names
-        self._placed = placed
         stack = LevelStack.from_arrays(buf.A[:m_e], buf.b[:m_e], buf.sw[:m_e], buf.eq_off, buf.unit_eq, buf.C[:m_i],
                                        buf.d[:m_i], buf.wi[:m_i], buf.in_off, buf.cols, names, layout)
         return stack, rows
@@ -338,75 +347,6 @@ class HQPController(Controller):
                 raise ParameterError(f"{self._level_names[i]}: task {t.name!r} returned {A.shape[1]} "
                                      f"columns, expected 2 nv = {cols}")
         return A, b
-
-    def _external_rows(self, s: TickState, c: np.ndarray) -> tuple[dict, int, int]:
-        """The rows of this tick of the program's external tasks (a user's, a subclass), in q̈, into the
-        program's ``ext_rows``, ``ext_rhs`` and ``ext_spans``, and their weights into its parameters.
-
-        The same checks and the same arithmetic as :meth:`_fill_stack` (:meth:`_checked_rows`, then
-        :math:`(A_q + A_\\tau M)\\ddot q = b - A_\\tau c` when a row acts on the torques), so the same rows to the bit.
-        Returns what each task's ``rows`` returned, by slot, and the equality and inequality rows written.
-        """
-        prog, n, M = self._program, s.nv, s.M
-        cols, fp, spans = 2 * n, prog.fp, prog.ext_spans
-        given: dict = {}
-        at, n_eq, n_in = 0, 0, 0
-        for e, (slot, i, t, is_eq, o) in enumerate(prog.external):
-            given[slot] = r = t.rows(s)
-            spans[e, 0] = -1
-            if r is None:
-                continue
-            A, b = self._checked_rows(i, t, is_eq, r[0], r[1], cols)
-            m = b.shape[0]
-            if m == 0:
-                continue
-            A_t = A[:, n:]
-            if np.count_nonzero(A_t):
-                rows, rhs = A[:, :n] + A_t @ M, b - A_t @ c
-            else:
-                rows, rhs = A[:, :n], b
-            prog.reserve(at + m)
-            prog.ext_rows[at:at + m] = rows
-            prog.ext_rhs[at:at + m] = rhs
-            spans[e, 0], spans[e, 1] = at, at + m
-            w = float(t.weight)  # read every tick, as task by task
-            fp[o], fp[o + 1] = w, math.sqrt(w)
-            at += m
-            if is_eq:
-                n_eq += m
-            else:
-                n_in += m
-        return given, n_eq, n_in
-
-    def _fill_program(self, s: TickState, c: np.ndarray) -> tuple[LevelStack, int]:
-        """:meth:`_fill_stack` (with ``c``) and :meth:`_check_finite` of the stack, in one compiled call
-        (:func:`controllers.tasks._kernels.fill_program`, the same rows): the shipped tasks' rows computed
-        there, the external tasks' rows (:meth:`_external_rows`) copied. Rows that are not finite are written
-        again task by task (each task's rows called once a tick all the same), so that the error names the task."""
-        prog, buf = self._program, self._buf
-        given = None
-        if prog.external:
-            given, n_eq, n_in = self._external_rows(s, c)
-            if prog.max_eq + n_eq > buf.b.shape[0]:
-                buf.parts(True, prog.max_eq + n_eq)
-            if prog.max_in + n_in > buf.d.shape[0]:
-                buf.parts(False, prog.max_in + n_in)
-        prog.gather(s)
-        m_e, m_i, rows, finite = _task_kernels.fill_program(
-            prog.prog, prog.fp, s.q, s.dq, s.M, s.Minv, s.g, s.cuff_force, c, s.dt_s, prog.frames, prog.ext_rows,
-            prog.ext_rhs, prog.ext_spans, buf.A, buf.b, buf.sw, buf.C, buf.d, buf.wi, buf.eq_off, buf.in_off,
-            buf.unit_eq, prog.spans)
-        if not finite:
-            # the program wrote over the rows _fill_stack keeps in place: it writes them all again
-            self._placed = [None] * len(self._placed)
-            self._min_norm_at = -1
-            stack, rows = self._fill_stack(s, c, given)
-            self._check_finite(stack)
-            return stack, rows
-        stack = LevelStack.from_arrays(buf.A[:m_e], buf.b[:m_e], buf.sw[:m_e], buf.eq_off, buf.unit_eq, buf.C[:m_i],
-                                       buf.d[:m_i], buf.wi[:m_i], buf.in_off, buf.cols, self._stack_names,
-                                       LazyLayout(prog, m_e))
-        return stack, rows
 
     def _check_finite(self, stack: LevelStack) -> None:
         """Raise naming the first task whose rows are not finite, if the stacked rows are not.
@@ -435,21 +375,18 @@ class HQPController(Controller):
                 # tau = M qdd + c, and the torque limits -tau_max <= M qdd + c <= tau_max as rows G qdd <= h
                 G, h = self._G, self._h
                 c = torque_limit_rows(M, s.h, s.cuff_force, self._tau_max, G, h)
-                if self._program is not None:
-                    stack, rows = self._fill_program(s, c)
-                else:
-                    stack, rows = self._fill_stack(s, c)
-                    self._check_finite(stack)
+                stack, rows = self._fill_stack(s, c)
+                self._check_finite(stack)
                 t_solve = time.perf_counter()
                 # the stack, G and h are the controller's own C-ordered float64 buffers: no checks needed
-                out = self._hqp._solve_kernel(stack, G, h)
+                out = self._hqp.solve_compiled(stack, G, h)
                 if out is not None:  # nearly every tick: the compiled kernel solved every level
                     # the result record is built only if read (last_result), a few µs a tick saved
                     p_all = len(stack.names)
                     res = (out, p_all, time.perf_counter() - t_solve)
-                    x, residuals_all, times_all = _kernel_head(out, n, p_all)
+                    x, residuals_all, times_all = compiled_head(out, n, p_all)
                 else:
-                    res = self._hqp._solve_backend(stack, G, h, "torque limits", self.last_result)
+                    res = self._hqp.solve_with_backend(stack, G, h, "torque limits", self.last_result)
                     # a writable copy, as the kernel's output is: a read-only x would make numba load (or
                     # compile) another clipped_torque inside the first such tick
                     x = res.x.copy()
