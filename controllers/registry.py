@@ -52,12 +52,12 @@ def _walls_default() -> Controller:
 
 
 #: Name -> factory of a fresh controller (no arguments).
-CONTROLLERS: dict[str, Callable[[], Controller]] = {
+CONTROLLERS: Mapping[str, Callable[[], Controller]] = MappingProxyType({
     "zero": ZeroTorque,
     "gravity": GravityCompensation,
     "transparent": _transparent,
     "walls": _walls_default,
-}
+})
 #: Shipped factories that take the scenario's wall specs.
 _WITH_WALLS: Mapping[Callable[[], Controller], Callable[[Sequence[TaskSpec]], Controller]] = MappingProxyType(
     {_walls_default: _walls})

@@ -46,6 +46,7 @@ import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 
@@ -78,7 +79,7 @@ _LINKS = (
     "exo_wrist_link",
     "exo_hand",
 )
-_SEGMENT_LINK = {"upper_arm": "exo_upper_arm", "forearm": "exo_forearm_b", "hand": "exo_hand"}
+_SEGMENT_LINK = MappingProxyType({"upper_arm": "exo_upper_arm", "forearm": "exo_forearm_b", "hand": "exo_hand"})
 HAND_FRAME = "exo_hand_point"
 
 _deg = math.radians

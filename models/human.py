@@ -66,6 +66,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
+from types import MappingProxyType
 from typing import Literal
 
 import numpy as np
@@ -99,6 +100,12 @@ Sex = Literal["female", "male"]
 _deg = math.radians
 
 
+def _frozen(table):
+    """A read-only copy of a table of tables (nested dicts become read-only mappings)."""
+    return MappingProxyType({k: _frozen(v) if isinstance(v, dict) else v for k, v in table.items()})
+
+
+
 @dataclass(frozen=True)
 class SegmentRow:
     """One row of de Leva (1996) Table 4 for one sex.
@@ -121,7 +128,7 @@ class SegmentRow:
 #: transcription ([deLeva1996]_, Table 4); mean lengths from memory.
 #: The axis meaning of the "sagittal" and "transverse" radii is taken as the
 #: antero-posterior and medio-lateral axis (from memory).
-DE_LEVA_1996: Mapping[str, Mapping[str, object]] = {
+DE_LEVA_1996: Mapping[str, Mapping[str, object]] = _frozen({
     "female": {
         "stature_m": 1.735,
         "length_m": {"upper_arm": 0.2751, "forearm": 0.2643, "hand": 0.0780},
@@ -140,7 +147,7 @@ DE_LEVA_1996: Mapping[str, Mapping[str, object]] = {
             "hand": SegmentRow(0.0061, 0.7900, 0.628, 0.513, 0.401),
         },
     },
-}
+})
 
 
 @dataclass(frozen=True)
@@ -177,14 +184,14 @@ class Subject:
 #: data, unweighted percentiles of stature and of body mass ([Gordon2014]_).
 #: Pairing a stature percentile with the same mass percentile is
 #: common practice, not a joint percentile.
-SUBJECTS: Mapping[str, Subject] = {
+SUBJECTS: Mapping[str, Subject] = MappingProxyType({
     "f5": Subject(1.525, 51.3, "female"),
     "f50": Subject(1.626, 66.8, "female"),
     "f95": Subject(1.740, 87.1, "female"),
     "m5": Subject(1.648, 64.4, "male"),
     "m50": Subject(1.755, 84.6, "male"),
     "m95": Subject(1.870, 110.7, "male"),
-}
+})
 
 
 @dataclass(frozen=True)
@@ -264,8 +271,8 @@ NOMINAL_INERTIAL = Inertial(1e-6, (0.0, 0.0, 0.0), (1e-12, 1e-12, 1e-12, 0.0, 0.
 
 _SKIN_RGBA = (0.87, 0.66, 0.52, 1.0)
 _TORSO_RGBA = (0.55, 0.62, 0.58, 1.0)
-_ARM_AXES = [(0, -1, 0), (-1, 0, 0), (0, 0, 1), (0, -1, 0), (0, 0, 1), (1, 0, 0), (0, -1, 0)]
-_SEG_LINK = {"upper_arm": "human_upper_arm", "forearm": "human_forearm", "hand": "human_hand"}
+_ARM_AXES = ((0, -1, 0), (-1, 0, 0), (0, 0, 1), (0, -1, 0), (0, 0, 1), (1, 0, 0), (0, -1, 0))
+_SEG_LINK = MappingProxyType({"upper_arm": "human_upper_arm", "forearm": "human_forearm", "hand": "human_hand"})
 
 
 @dataclass(frozen=True)

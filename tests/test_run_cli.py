@@ -14,12 +14,14 @@ import json
 import subprocess
 import sys
 from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 import pytest
 from _scenario_files import write_scenario
 
 import sim
+from controllers import registry
 from controllers.base import Controller
 from controllers.registry import CONTROLLERS
 from models.records import Measurement
@@ -231,7 +233,7 @@ class _Spy(Controller):
 
 
 def test_controller_receives_only_a_read_only_measurement_of_the_sensors(tmp_path, monkeypatch):
-    monkeypatch.setitem(CONTROLLERS, "spy", _Spy)
+    monkeypatch.setattr(registry, "CONTROLLERS", MappingProxyType({**CONTROLLERS, "spy": _Spy}))
     monkeypatch.setattr(_Spy, "seen", [])
     scenario = load_scenario(write_scenario(tmp_path / "spy.py", duration_s="0.05", controllers='("spy",)'))
     folder = simulate(scenario, "spy", tmp_path / "run", seed=1).folder

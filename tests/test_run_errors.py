@@ -10,12 +10,14 @@ from __future__ import annotations
 import subprocess
 import sys
 from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 import pytest
 from _scenario_files import write_scenario
 
 import sim
+from controllers import registry
 from controllers.base import Controller
 from controllers.registry import CONTROLLERS
 from sim.cli import main
@@ -145,7 +147,7 @@ class _NaNTorque(Controller):
 
 
 def test_controller_returning_nan_raises_simulation_error_naming_the_controller(tmp_path, monkeypatch):
-    monkeypatch.setitem(CONTROLLERS, "nan_torque", _NaNTorque)
+    monkeypatch.setattr(registry, "CONTROLLERS", MappingProxyType({**CONTROLLERS, "nan_torque": _NaNTorque}))
     scenario = load_scenario(write_scenario(tmp_path / "nan.py", controllers='("nan_torque",)'))
     with pytest.raises(SimulationError, match="'nan_torque'"):
         simulate(scenario, "nan_torque", tmp_path / "run", seed=0)
@@ -154,7 +156,7 @@ def test_controller_returning_nan_raises_simulation_error_naming_the_controller(
 
 
 def test_controller_returning_nan_gives_one_line_from_main(tmp_path, monkeypatch, capsys):
-    monkeypatch.setitem(CONTROLLERS, "nan_torque", _NaNTorque)
+    monkeypatch.setattr(registry, "CONTROLLERS", MappingProxyType({**CONTROLLERS, "nan_torque": _NaNTorque}))
     path = write_scenario(tmp_path / "nan.py", controllers='("nan_torque",)')
     assert main(["run", str(path), "--out", str(tmp_path / "run")]) != 0
     err = capsys.readouterr().err

@@ -126,6 +126,7 @@ import types
 import warnings
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
+from types import MappingProxyType
 
 import numpy as np
 import qpsolvers
@@ -545,7 +546,7 @@ def solve_with_qpsolvers(
 _PREFERRED = ("daqp", "osqp")
 
 #: Solvers with their own adapter module here (the module docstring says why).
-_ADAPTERS = {"daqp": "daqp_"}
+_ADAPTERS = MappingProxyType({"daqp": "daqp_"})
 
 
 def _adapter(module_name: str) -> Callable[..., QPResult]:

@@ -60,6 +60,7 @@ from __future__ import annotations
 
 import time
 from ctypes import c_int
+from types import MappingProxyType
 
 import daqp
 import numpy as np
@@ -74,7 +75,7 @@ __all__ = ["NAME", "solve"]
 NAME = "daqp"
 
 #: DAQP exit flags (``daqp.h``, ``EXIT_*``).
-_EXIT_FLAGS = {
+_EXIT_FLAGS = MappingProxyType({
     2: "soft optimal",
     1: "optimal",
     -1: "infeasible",
@@ -83,7 +84,7 @@ _EXIT_FLAGS = {
     -4: "iteration limit",
     -5: "nonconvex (singular P without proximal iterations)",
     -6: "overdetermined initial working set",
-}
+})
 
 _BIG = 1e30  # DAQP's "no bound"
 

@@ -115,7 +115,7 @@ from dataclasses import dataclass, field
 from importlib import import_module
 from importlib import metadata as importlib_metadata
 from pathlib import Path, PurePath
-from types import TracebackType
+from types import MappingProxyType, TracebackType
 from typing import Any
 
 import numpy as np
@@ -139,7 +139,7 @@ FORMAT_VERSION = 3
 """Version of the run-folder layout written, stored in ``meta.json`` as ``format_version``."""
 READ_FORMAT_VERSIONS = (FORMAT_VERSION,)
 """Versions :func:`load_run` reads (3: Parquet chunks)."""
-_OLD_FORMATS = {1: "uncompressed .npz chunks", 2: "zip chunks of the project's own codec"}
+_OLD_FORMATS = MappingProxyType({1: "uncompressed .npz chunks", 2: "zip chunks of the project's own codec"})
 
 META_FILE = "meta.json"
 METRICS_FILE = "metrics.json"
@@ -156,8 +156,8 @@ _RESERVED_META_KEYS = frozenset(
 _ALLOWED_DTYPE_KINDS = "biufc"  # bool, signed/unsigned int, float, complex
 _GIT_TIMEOUT_S = 2.0
 #: Reported name -> installed distribution whose version is read (without importing it).
-_VERSIONED_MODULES = {"numpy": "numpy", "pinocchio": "pin", "qpsolvers": "qpsolvers", "osqp": "osqp",
-                      "meshcat": "meshcat", "mujoco": "mujoco"}
+_VERSIONED_MODULES = MappingProxyType({"numpy": "numpy", "pinocchio": "pin", "qpsolvers": "qpsolvers", "osqp": "osqp",
+                                       "pyarrow": "pyarrow", "meshcat": "meshcat", "mujoco": "mujoco"})
 
 ColumnSpec = tuple[int, ...] | tuple[tuple[int, ...], DTypeLike]
 

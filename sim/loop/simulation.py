@@ -254,7 +254,7 @@ class Simulation:
     ----------
     scenario : Scenario
     controller : Controller or str
-        A controller object (e.g. an :class:`~controllers.hqp_controller.HQPController`
+        A controller object (e.g. an :class:`~controllers.hqp.HQPController`
         built in a notebook), reset with the run's context at every
         :meth:`reset`; or a variant name known to
         :func:`controllers.registry.make_controller` (the scenario's own
