@@ -7,8 +7,14 @@ References used below, each named beside its check:
 * an independent level-by-level solution with the frozen-slack formulation of
   Kanoun, Lamiraux & Wieber (2011), with cvxpy + Clarabel (``tests/_lexicographic.py``);
 * numpy closed forms (weighted least squares, ``numpy.linalg.lstsq``);
-* the strict-priority property of REFERENCES.md section 8 ("adding a
-  lower-priority task leaves every higher-level residual unchanged").
+* the strict-priority property of the frozen-slack formulation (Kanoun 2011): adding a
+  lower-priority task leaves every higher-level residual unchanged.
+
+Siciliano B., Slotine J.-J.E. (1991), A general framework for managing multiple tasks in highly
+redundant robotic systems, Proc. 5th International Conference on Advanced Robotics (ICAR), Pisa,
+1211-1216 (pages from memory). Kanoun O., Lamiraux F., Wieber P.-B. (2011), Kinematic control of
+redundant manipulators: generalizing the task-priority framework to inequality tasks, IEEE
+Transactions on Robotics 27(4):785-792.
 """
 
 from __future__ import annotations
@@ -309,7 +315,7 @@ def test_a_level_with_both_kinds_of_rows_is_solved_by_the_working_set_step(case)
 
 
 # ------------------------------------------------------------------------------------------
-# Strict priority (REFERENCES.md section 8)
+# Strict priority (Kanoun 2011)
 
 
 @pytest.mark.parametrize("backend", BACKENDS)
@@ -323,7 +329,7 @@ def test_adding_or_changing_a_lower_level_never_increases_a_higher_residual(back
         for extra in _random_levels(rng, n, 2):
             added = solve_hierarchy([*levels, extra], n, backend, **bounds).level_residuals
             changed = solve_hierarchy([*levels[:2], extra], n, backend, **bounds).level_residuals
-            # strict priority: a higher level's residual does not grow (REFERENCES.md section 8)
+            # strict priority: a higher level's residual does not grow (Kanoun 2011)
             assert np.all(added[:3] <= base + 1e-7 * (1.0 + base))
             assert np.all(changed[:2] <= base[:2] + 1e-7 * (1.0 + base[:2]))
 

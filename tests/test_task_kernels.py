@@ -6,8 +6,10 @@ References, each beside its check:
   the one-tick position bound, as written in the docstring of ``JointPositionLimits``;
 * joint velocity limits: :math:`|\\dot q + \\ddot q \\Delta t| \\le \\dot q_{max}` solved for q̈;
 * wall rows: the operational-space mass along the normal, :math:`m_n = \\alpha / (n^T J M^{-1} J^T n)`
-  (Khatib 1987, REFERENCES.md section 12), with :math:`M^{-1}` from ``numpy.linalg.inv`` of pinocchio's
+  (Khatib 1987), with :math:`M^{-1}` from ``numpy.linalg.inv`` of pinocchio's
   mass matrix, and the spring-damper law of ``WallTask``.
+
+Khatib 1987: Khatib O. (1987), A unified approach for motion and force control of robot manipulators: the operational space formulation, IEEE Journal of Robotics and Automation 3(1):43-53.
 """
 
 from __future__ import annotations

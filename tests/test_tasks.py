@@ -1,7 +1,7 @@
 """Tasks and their shared math against closed forms.
 
-Sources: Khatib (1987) operational-space identities (REFERENCES.md section
-12); uniform-deceleration kinematics v^2 = 2 a d for the braking distance.
+Sources: Khatib (1987) operational-space identities (Khatib O. (1987), A unified approach for motion and force control of robot manipulators: the operational space formulation, IEEE Journal of Robotics and Automation 3(1):43-53);
+uniform-deceleration kinematics v^2 = 2 a d for the braking distance.
 """
 
 from __future__ import annotations
@@ -55,7 +55,7 @@ def test_point_mass_on_three_prismatic_joints_has_operational_inertia_m_times_id
 
 
 def test_operational_inertia_of_a_two_link_arm_diverges_at_the_stretched_singularity():
-    # Lambda grows without bound as q2 -> 0 along the singular direction (REFERENCES.md 12)
+    # Lambda grows without bound as q2 -> 0 along the singular direction (Khatib 1987)
     model = pin.Model()
     j1 = model.addJoint(0, pin.JointModelRZ(), pin.SE3.Identity(), "j1")
     model.appendBodyToJoint(j1, pin.Inertia(1.0, np.array([0.15, 0, 0]), np.eye(3) * 1e-3), pin.SE3.Identity())
