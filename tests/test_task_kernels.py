@@ -9,7 +9,8 @@ References, each beside its check:
   (Khatib 1987), with :math:`M^{-1}` from ``numpy.linalg.inv`` of pinocchio's
   mass matrix, and the spring-damper law of ``WallTask``.
 
-Khatib 1987: Khatib O. (1987), A unified approach for motion and force control of robot manipulators: the operational space formulation, IEEE Journal of Robotics and Automation 3(1):43-53.
+Khatib 1987: Khatib O. (1987), A unified approach for motion and force control of robot manipulators: the
+operational space formulation, IEEE Journal of Robotics and Automation 3(1):43-53.
 """
 
 from __future__ import annotations

@@ -1,6 +1,8 @@
 """Tasks and their shared math against closed forms.
 
-Sources: Khatib (1987) operational-space identities (Khatib O. (1987), A unified approach for motion and force control of robot manipulators: the operational space formulation, IEEE Journal of Robotics and Automation 3(1):43-53);
+Sources: Khatib (1987) operational-space identities (Khatib O. (1987), A unified approach for motion and force
+control of robot manipulators: the operational space formulation, IEEE Journal of Robotics and Automation
+3(1):43-53);
 uniform-deceleration kinematics v^2 = 2 a d for the braking distance.
 """
 
