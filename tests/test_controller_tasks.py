@@ -3,7 +3,7 @@ controller's buffers, solved by the compiled hierarchy.
 
 References, each beside its check:
 
-* cvxpy (Clarabel), level by level (``tests/_lexicographic.py``, Kanoun, Lamiraux & Wieber 2011): the
+* cvxpy (Clarabel), level by level (``sim/experiments/lexicographic.py``, Kanoun, Lamiraux & Wieber 2011): the
   torques of a controller holding every shipped task and a user's tasks, to 1e-5 N m;
 * each task's own ``rows`` as the stack's reference: the rows the controller stacks are those rows, with
   the torque eliminated (:math:`(A_q + A_\tau M)\ddot q = b - A_\tau c`, the controller's docstring) in NumPy;
@@ -37,9 +37,8 @@ from controllers.tasks import (
 from models.records import Measurement
 
 pytest.importorskip("cvxpy")
-from _lexicographic import controller_lexicographic, controller_rows  # noqa: E402
-
 from sim.experiments.bench import PythonHandCeiling  # noqa: E402
+from sim.experiments.lexicographic import controller_lexicographic, controller_rows  # noqa: E402
 
 CUFFS = {"upper_arm": "exo_cuff_upper_arm", "forearm": "exo_cuff_forearm", "hand": "exo_cuff_hand"}
 TOL_NM = 1e-5  # as the bench's cvxpy comparison
@@ -123,7 +122,7 @@ def _stacks(arm):
 
 @pytest.mark.parametrize("name", ["walls", "shapes", "torque", "user"])
 def test_the_stack_holds_each_tasks_own_rows_with_the_torque_eliminated(name):
-    # reference: each task's rows as it returns them (tests/_lexicographic.controller_rows, the public API only)
+    # reference: each task's rows as it returns them (sim.experiments.lexicographic.controller_rows, public API)
     # and the elimination of the torque written in NumPy: (A_q + A_tau M) qdd = b - A_tau c
     arm, ctx = _context()
     ctrl, ref = HQPController(_stacks(arm)[name]()), HQPController(_stacks(arm)[name]())

@@ -11,7 +11,6 @@ import dataclasses
 
 import numpy as np
 import pytest
-from _lexicographic import cvxpy_lexicographic
 
 from controllers.hqp import (
     HierarchySolver,
@@ -24,6 +23,7 @@ from controllers.hqp import (
     solver,
 )
 from models.errors import ParameterError
+from sim.experiments.lexicographic import cvxpy_lexicographic
 
 
 def _torque_like_stack(rng, n, *, mixed=False, full_rank_last=True):

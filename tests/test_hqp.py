@@ -5,7 +5,7 @@ References used below, each named beside its check:
 * the recursive null-space projection of Siciliano & Slotine (1991),
   written here with ``numpy.linalg.pinv``;
 * an independent level-by-level solution with the frozen-slack formulation of
-  Kanoun, Lamiraux & Wieber (2011), with cvxpy + Clarabel (``tests/_lexicographic.py``);
+  Kanoun, Lamiraux & Wieber (2011), with cvxpy + Clarabel (``sim/experiments/lexicographic.py``);
 * numpy closed forms (weighted least squares, ``numpy.linalg.lstsq``);
 * the strict-priority property of the frozen-slack formulation (Kanoun 2011): adding a
   lower-priority task leaves every higher-level residual unchanged.
@@ -24,11 +24,11 @@ import functools
 import cvxpy as cp
 import numpy as np
 import pytest
-from _lexicographic import cvxpy_lexicographic
 
 from controllers.hqp import HQPInfeasibleError, HQPParams, Level, QPSolveError, solve_hierarchy
 from controllers.qp_backends import available_backends
 from models.errors import ParameterError
+from sim.experiments.lexicographic import cvxpy_lexicographic
 
 BACKENDS = available_backends()
 # (closed form, working-set step, backend): every level through the compiled closed form where it applies,
@@ -114,7 +114,7 @@ def test_overdetermined_equality_stack_equals_recursive_projection(path):
 
 
 def cvxpy_hierarchy(levels, n, hard=None, lb=None, ub=None):
-    """Independent level-by-level solution (the suite's one cvxpy reference, ``tests/_lexicographic.py``):
+    """Independent level-by-level solution (the suite's one cvxpy reference, ``sim/experiments/lexicographic.py``):
     min sum w||Ax-b||^2 + sum w||v||^2, Cx - d <= v, higher levels frozen at A_l x - b_l = e_l*,
     C_l x <= d_l + v_l*, then min ||x||^2. Returns (x, per-level optimal cost)."""
     entries = [(list(level.eq), list(level.ineq)) for level in levels]

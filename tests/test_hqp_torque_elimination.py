@@ -5,7 +5,7 @@ as functions of q̈, so the torques must agree with
 
 * the same controller in x = [q̈; τ] with the dynamics as hard equalities, and
 * an independent optimiser: the stack solved level by level with cvxpy
-  (``tests/_lexicographic.py``, Kanoun, Lamiraux & Wieber 2011,
+  (``sim/experiments/lexicographic.py``, Kanoun, Lamiraux & Wieber 2011,
   interior-point solver Clarabel),
 
 on random states that touch the wall, sit near joint limits and saturate
@@ -23,7 +23,7 @@ from controllers.registry import make_controller
 from models.records import Measurement
 
 pytest.importorskip("cvxpy")
-from _lexicographic import controller_lexicographic, controller_rows  # noqa: E402
+from sim.experiments.lexicographic import controller_lexicographic, controller_rows  # noqa: E402
 
 TOL_NM = 1e-5
 WALL = (("wall_plane", {"point_m": (0.40, 0.0, 0.0), "normal": (1.0, 0.0, 0.0), "law": (600.0, 5.0)}),)

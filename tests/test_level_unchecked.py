@@ -11,9 +11,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from _lexicographic import cvxpy_lexicographic
 
 from controllers.hqp import HQPParams, Level, LevelStack, solve_hierarchy
+from sim.experiments.lexicographic import cvxpy_lexicographic
 
 
 def _entries(rng, n):

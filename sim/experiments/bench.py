@@ -24,8 +24,8 @@ machines differ).  Cases:
   (:func:`tick_breakdown`).
 * **Against cvxpy**: the measurements of the reference run are replayed; on a
   sample of ticks the same stack is solved level by level with cvxpy
-  (:func:`solve_levels_cvxpy`, the lexicographic formulation of Kanoun,
-  Lamiraux & Wieber 2011 with an interior-point solver), in the same process;
+  (:func:`sim.experiments.lexicographic.controller_lexicographic`, the lexicographic
+  formulation of Kanoun, Lamiraux & Wieber 2011 with an interior-point solver), in the same process;
   the torques must agree to ``agreement_tol_Nm``; the ratio of the median
   solve times is ``cvxpy_speedup``.
 * **Against the QP backends**: each installed backend on the same ticks, its
@@ -79,9 +79,8 @@ import pstats
 import resource
 import tempfile
 import time
-import warnings
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from types import MappingProxyType
 
@@ -97,6 +96,7 @@ from models.chain import ChainParams, build_chain
 from models.checks import finite
 from models.errors import ParameterError, SandboxError
 from models.records import Measurement
+from sim.experiments.lexicographic import ReferenceSolveError, controller_lexicographic, controller_rows
 from sim.experiments.run import run_scenario
 from sim.experiments.sweep import plan_sweep, run_case, run_sweep, serve
 from sim.loop.runlog import RunLog, load_run
@@ -108,13 +108,10 @@ from sim.physics.sensors import EncoderParams, JointSensing
 __all__ = [
     "BenchParams",
     "BenchError",
-    "StackRows",
     "reference_scenario",
     "tick_statistics",
     "measurements_from_run",
     "replay",
-    "stack_rows",
-    "solve_levels_cvxpy",
     "compare_cvxpy",
     "compare_backends",
     "level_stacks",
@@ -415,126 +412,6 @@ def replay(controller: HQPController, context: ControllerContext, measurements: 
     return tau, times
 
 
-# --------------------------------------------------------------------------------------------
-# the level-by-level cvxpy formulation
-
-
-@dataclass(frozen=True, eq=False)
-class StackRows:
-    r"""One tick of an HQP stack, as rows in :math:`x = [\ddot q; \tau]`.
-
-    Attributes
-    ----------
-    M : (nv, nv) ndarray
-        Joint-space inertia [kg m^2].
-    h : (nv,) ndarray
-        Bias torques [N m].
-    cuff_force : (nv,) ndarray
-        Generalized force of the measured cuff wrenches [N m].
-    tau_max : (nv,) ndarray
-        Torque limits [N m].
-    levels : list of (eq, ineq)
-        Per level, lists of ``(A, b, w)`` equality and ``(C, d, w)``
-        inequality entries, each A of shape (m, 2 nv).
-    """
-
-    M: np.ndarray
-    h: np.ndarray
-    cuff_force: np.ndarray
-    tau_max: np.ndarray
-    levels: list = field(default_factory=list)
-
-
-def stack_rows(controller: HQPController, measurement: Measurement) -> StackRows:
-    """The rows of ``controller``'s stack at ``measurement`` (the controller must have been reset).
-
-    Only the controller's tick state and tasks are used, not its solver.
-    """
-    s = controller.state
-    s.update(measurement)
-    levels = []
-    for tasks in controller.levels:
-        eq, ineq = [], []
-        for t in tasks:
-            r = t.rows(s)
-            if r is None:
-                continue
-            (eq if t.kind == "eq" else ineq).append((np.array(r[0], dtype=float), np.array(r[1], dtype=float),
-                                                      float(t.weight)))
-        levels.append((eq, ineq))
-    return StackRows(s.M.copy(), s.h.copy(), s.cuff_force.copy(), controller.context.arm.model.effortLimit.copy(),
-                     levels)
-
-
-def solve_levels_cvxpy(rows: StackRows, *, freeze_tol: float = 1e-9, solver: str = "CLARABEL") -> np.ndarray:
-    r"""Solve a stack level by level with cvxpy, as a user would write it by hand.
-
-    Hard constraints :math:`M \ddot q - \tau = \sum_c J_c^T w_c - h` and
-    :math:`|\tau| \le \tau_{max}`.  Level k solves
-
-    .. math::
-        \min_{x, v} \tfrac12 \sum_i w_i \|A_i x - b_i\|^2 + \tfrac12 \sum_j \omega_j \|v_j\|^2
-        \;\text{s.t.}\; C_j x - d_j \le v_j,\ \text{hard},\ \text{levels above frozen},
-
-    then freezes its optimum: :math:`|A_i x - b_i - e_i^\star| \le \epsilon` and
-    :math:`C_j x - d_j \le v_j^\star + \epsilon` with
-    :math:`e^\star = A x^\star - b`, :math:`v^\star = \max(C x^\star - d, 0)`
-    and :math:`\epsilon` = ``freeze_tol`` :math:`(1 + |b|)` (a small band so
-    that rounding cannot make a frozen level infeasible).  A last level
-    :math:`\min \tfrac12 \|x\|^2` makes the answer unique (Kanoun, Lamiraux &
-    Wieber 2011).
-
-    Returns
-    -------
-    (2 nv,) ndarray
-        :math:`x = [\ddot q; \tau]`.
-
-    Raises
-    ------
-    BenchError
-        If cvxpy is not installed or a level does not solve to optimality.
-    """
-    try:
-        import cvxpy as cp
-    except ImportError as e:
-        raise BenchError("the cvxpy comparison needs cvxpy: pip install cvxpy (part of the test extra)") from e
-    n = rows.M.shape[0]
-    x = cp.Variable(2 * n)
-    hard = [rows.M @ x[:n] - x[n:] == rows.cuff_force - rows.h, x[n:] <= rows.tau_max, x[n:] >= -rows.tau_max]
-    frozen: list = []
-
-    def solve(cost, cons, what):
-        prob = cp.Problem(cp.Minimize(cost), hard + frozen + cons)
-        try:
-            with warnings.catch_warnings():  # "solution may be inaccurate": the agreement check decides
-                warnings.simplefilter("ignore", UserWarning)
-                prob.solve(solver=solver)
-        except cp.error.SolverError as e:
-            raise BenchError(f"cvxpy ({solver}) failed on {what}: {e}") from e
-        if prob.status not in (cp.OPTIMAL, cp.OPTIMAL_INACCURATE) or x.value is None:
-            raise BenchError(f"cvxpy ({solver}) did not solve {what}: status {prob.status}")
-        return np.array(x.value)  # an inaccurate level is judged by the torque agreement of the caller
-
-    for k, (eq, ineq) in enumerate(rows.levels):
-        if not eq and not ineq:
-            continue
-        cost, cons = 0.0, []
-        for A, b, w in eq:
-            cost = cost + 0.5 * w * cp.sum_squares(A @ x - b)
-        for C, d, w in ineq:
-            v = cp.Variable(len(d))
-            cons.append(C @ x - d <= v)
-            cost = cost + 0.5 * w * cp.sum_squares(v)
-        xs = solve(cost, cons, f"level {k}")
-        for A, b, _ in eq:
-            e = A @ xs - b
-            frozen.append(cp.abs(A @ x - b - e) <= freeze_tol * (1.0 + np.abs(b)))
-        for C, d, _ in ineq:
-            v = np.maximum(C @ xs - d, 0.0)
-            frozen.append(C @ x - d <= v + freeze_tol * (1.0 + np.abs(d)))
-    return solve(0.5 * cp.sum_squares(x), [], "the minimum-norm level")
-
-
 def _context_and_measurements(scenario: Scenario, folder: Path):
     asm = build_assembly(scenario)
     return controller_context(asm, scenario.control_period_s), measurements_from_run(folder)
@@ -545,7 +422,8 @@ def _sample(n: int, k: int) -> np.ndarray:
 
 
 def compare_cvxpy(scenario: Scenario, folder: str | Path, ticks: int, agreement_tol_Nm: float = 1e-5) -> dict:
-    """Our solver against :func:`solve_levels_cvxpy` on ``ticks`` evenly spaced ticks of a run.
+    """Our solver against :func:`sim.experiments.lexicographic.controller_lexicographic` on ``ticks`` evenly
+    spaced ticks of a run.
 
     Both see the same measurements; ours is replayed in order over the
     sampled ticks (warm-starting from the previous sampled tick).  Our time is
@@ -568,10 +446,13 @@ def compare_cvxpy(scenario: Scenario, folder: str | Path, ticks: int, agreement_
     n, n_tasks = context.arm.nv, sum(len(tasks) for tasks in ref.levels)
     tau_cvx, t_cvx, wall_ticks = np.zeros_like(tau_ours), np.zeros(len(sampled)), 0
     for i, m in enumerate(sampled):
-        rows = stack_rows(ref, m)
+        rows = controller_rows(ref, m)
         wall_ticks += sum(len(eq) + len(ineq) for eq, ineq in rows.levels) == n_tasks  # the wall is touched
         t0 = time.perf_counter()
-        tau_cvx[i] = solve_levels_cvxpy(rows)[n:]
+        try:
+            tau_cvx[i] = controller_lexicographic(rows)[n:]
+        except ReferenceSolveError as e:
+            raise BenchError(str(e)) from e
         t_cvx[i] = time.perf_counter() - t0
     diff = float(np.abs(tau_cvx - tau_ours).max())
     if diff > agreement_tol_Nm:

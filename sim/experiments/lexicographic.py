@@ -1,23 +1,52 @@
-"""The one independent reference of the test suite for hierarchies of levels: cvxpy (Clarabel), one problem
-per level.
+r"""The level-by-level reference of a hierarchy, written directly in cvxpy.
 
-Each level's optimal slacks are frozen for the levels below: the lexicographic formulation of Kanoun,
-Lamiraux & Wieber (2011), written directly in cvxpy, with none of the project's solver code. Level k solves
+The one independent reference for stacks of priority levels, used by the
+test suite and by ``exosandbox bench``: cvxpy with the Clarabel solver, one
+problem per level, none of the project's solver code. Each level's optimal
+slacks are frozen for the levels below, the lexicographic formulation of
+[Kanoun2011]_. Level k solves
 
-    min  sum_i w_i ||A_i x - b_i||^2 + sum_j w_j ||v_j||^2
-    s.t. C_j x - d_j <= v_j, the hard rows, the levels above frozen at their optimal slacks,
+.. math::
+    \min_{x, v} \sum_i w_i \|A_i x - b_i\|^2 + \sum_j w_j \|v_j\|^2
+    \;\text{s.t.}\; C_j x - d_j \le v_j,\ \text{the hard rows},\ \text{the levels above frozen},
 
-and, when asked, a last level min ||x||^2 makes the answer unique.
+and, when asked, a last level :math:`\min \|x\|^2` makes the answer unique.
+cvxpy is an optional dependency (the ``test`` extra); it is imported when a
+reference is asked for.
 
-Reference: O. Kanoun, F. Lamiraux, P.-B. Wieber, "Kinematic control of redundant manipulators: generalizing
-the task-priority framework to inequality tasks", IEEE Trans. Robotics 27(4):785-792, 2011.
+References
+----------
+.. [Kanoun2011] O. Kanoun, F. Lamiraux, P.-B. Wieber, "Kinematic control of redundant manipulators:
+   generalizing the task-priority framework to inequality tasks", *IEEE Transactions on Robotics*
+   27(4):785-792, 2011.
 """
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
+
+from models.errors import SandboxError
+
+__all__ = ["ReferenceSolveError", "cvxpy_lexicographic", "ControllerRows", "controller_rows",
+           "controller_lexicographic"]
+
+
+class ReferenceSolveError(SandboxError, RuntimeError):
+    """cvxpy is missing, or a level of the reference did not solve."""
+
+
+def _solve(prob, cp, ok, what: str) -> None:
+    with warnings.catch_warnings():  # "solution may be inaccurate": the status check decides
+        warnings.simplefilter("ignore", UserWarning)
+        try:
+            prob.solve(solver="CLARABEL")
+        except cp.error.SolverError as e:
+            raise ReferenceSolveError(f"cvxpy (CLARABEL) failed on {what}: {e}") from e
+    if prob.status not in ok:
+        raise ReferenceSolveError(f"cvxpy (CLARABEL) did not solve {what}: status {prob.status}")
 
 
 def cvxpy_lexicographic(entries, n, hard=(), *, hard_eq=(), lb=None, ub=None, min_norm=False, eq_band=None,
@@ -31,10 +60,16 @@ def cvxpy_lexicographic(entries, n, hard=(), *, hard_eq=(), lb=None, ub=None, mi
     (+ 1e-9). ``min_norm``: a last level min ||x||^2. A level must solve to optimality (or, with
     ``accept_inaccurate``, to Clarabel's reduced accuracy: the caller's comparison then decides). With
     ``objectives`` returns ``(x, per-level optimal cost)``.
-    """
-    import warnings
 
-    import cvxpy as cp
+    Raises
+    ------
+    ReferenceSolveError
+        cvxpy is not installed, or a level does not solve.
+    """
+    try:
+        import cvxpy as cp
+    except ImportError as e:
+        raise ReferenceSolveError("the cvxpy reference needs cvxpy: pip install cvxpy (part of the test extra)") from e
 
     ok = (cp.OPTIMAL, cp.OPTIMAL_INACCURATE) if accept_inaccurate else (cp.OPTIMAL,)
     x = cp.Variable(n)
@@ -56,10 +91,9 @@ def cvxpy_lexicographic(entries, n, hard=(), *, hard_eq=(), lb=None, ub=None, mi
             w * cp.sum_squares(s) for s, (_, _, w) in zip(slacks, ineq))
         own = [M @ x - v <= s for s, (M, v, _) in zip(slacks, ineq)]
         prob = cp.Problem(cp.Minimize(cost), kept + own)
-        with warnings.catch_warnings():  # "solution may be inaccurate": the status check below decides
-            warnings.simplefilter("ignore", UserWarning)
-            prob.solve(solver="CLARABEL")
-        assert prob.status in ok and x.value is not None, f"cvxpy level {k}: {prob.status}"
+        _solve(prob, cp, ok, f"level {k}")
+        if x.value is None:
+            raise ReferenceSolveError(f"cvxpy (CLARABEL) returned no point for level {k}")
         costs.append(prob.value)
         xs = x.value.copy()
         if eq_band is None:
@@ -69,18 +103,17 @@ def cvxpy_lexicographic(entries, n, hard=(), *, hard_eq=(), lb=None, ub=None, mi
         kept += [M @ x - v <= np.maximum(s.value, 0.0) + 1e-9 for s, (M, v, _) in zip(slacks, ineq)]
     if min_norm:
         prob = cp.Problem(cp.Minimize(cp.sum_squares(x)), kept)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore", UserWarning)
-            prob.solve(solver="CLARABEL")
-        assert prob.status in ok and x.value is not None, f"cvxpy minimum-norm level: {prob.status}"
+        _solve(prob, cp, ok, "the minimum-norm level")
+        if x.value is None:
+            raise ReferenceSolveError("cvxpy (CLARABEL) returned no point for the minimum-norm level")
     out = np.array(x.value)
     return (out, np.array(costs, dtype=float)) if objectives else out
 
 
 @dataclass
 class ControllerRows:
-    """One tick of an HQP controller's stack as rows in x = [q̈; τ]: inertia M, bias h, cuff force, torque
-    limits (nv,) [N m] and, per level, ``(eq, ineq)`` lists of ``(A, b, w)`` as the tasks returned them."""
+    """One tick of an HQP controller's stack as rows in x = [q̈; τ]: inertia M [kg m²], bias h, cuff force and
+    torque limits (nv,) [N m] and, per level, ``(eq, ineq)`` lists of ``(A, b, w)`` as the tasks returned them."""
 
     M: np.ndarray
     h: np.ndarray
