@@ -323,7 +323,7 @@ class Simulation:
         self._human = (HumanMotor(plant.human, scenario.human, scenario.intent, scenario.motor)
                        if plant.has_human else None)
         self._controller, self._controller_name, self._asm, self._plant = controller, name, asm, plant
-        self._diag_names, self._timing_diag = diag_names, timing_diag
+        self._diag_names = diag_names
         n = scenario.n_ticks
         self._meta = jsonable({  # plain JSON values, as meta.json holds them
             "scenario": scenario.name, "controller": name, "mode": mode,
