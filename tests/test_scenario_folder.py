@@ -209,3 +209,14 @@ def test_a_folder_lists_its_scenarios_and_not_the_modules_they_import(tmp_path):
     expected = ["broken.py", "per_subject.py", "reach_copy.py", "typed.py"]
     assert [f.name for f in scenario_files_in(tmp_path)] == expected
     assert [f.name for f in scenario_files([tmp_path])] == expected
+
+
+def test_a_scenario_written_for_the_flat_layout_is_told_where_the_names_are(tmp_path):
+    from sim.loop.scenario import ScenarioError, load_scenario
+
+    path = tmp_path / "old.py"
+    path.write_text("from sim.intent import JointIntent\nfrom sim.scenario import Scenario\n", encoding="utf-8")
+    with pytest.raises(ScenarioError, match=r"the module sim\.intent is gone; a scenario file imports from sim "
+                                            r"\(from sim import JointIntent, Scenario, Via, deg\)") as err:
+        load_scenario(path)
+    assert "\n" not in str(err.value)

@@ -227,6 +227,10 @@ def load_scenario(path: str | Path, *, subject: str | None = None) -> Scenario:
         return _load(p, subject)
 
 
+#: Modules of the flat layout of ``sim`` that scenario files used to import from.
+_MOVED_MODULES = frozenset({"sim.intent", "sim.scenario"})
+
+
 def _load(p: Path, subject: str | None) -> Scenario:
     mod_name = f"_exosandbox_scenario_{p.stem}"
     spec = importlib.util.spec_from_file_location(mod_name, p)
@@ -238,6 +242,12 @@ def _load(p: Path, subject: str | None) -> Scenario:
         spec.loader.exec_module(module)
     except SandboxError as e:
         raise ScenarioError(f"{p}: {e}") from e
+    except ModuleNotFoundError as e:
+        if e.name in _MOVED_MODULES:
+            # a file written for the flat layout of sim: say where the names are now
+            raise ScenarioError(f"{p}: the module {e.name} is gone; a scenario file imports from sim "
+                                f"(from sim import JointIntent, Scenario, Via, deg)") from e
+        raise ScenarioError(f"{p}: {type(e).__name__}: {e}") from e
     except TypeError as e:
         # a missing or unknown field of Scenario(...) or another record
         raise ScenarioError(f"{p}: {e}") from e
