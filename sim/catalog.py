@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import dataclasses
 import inspect
+import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -142,7 +143,8 @@ def shipped_scenarios_folder() -> Path:
 def _summary(obj) -> str:
     """First line of an object's docstring ('' without one)."""
     doc = inspect.getdoc(obj) or ""
-    return doc.strip().splitlines()[0] if doc.strip() else ""
+    line = doc.strip().splitlines()[0] if doc.strip() else ""
+    return re.sub(r":\w+:`([^`]*)`", r"\1", line).replace("``", "")  # reST roles and literals as plain text
 
 
 def _task_names(levels: Sequence[Sequence[Task]]) -> tuple[tuple[str, ...], ...]:
