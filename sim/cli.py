@@ -120,7 +120,7 @@ def build_parser() -> argparse.ArgumentParser:
                        "files, run them all in one sweep: each in a folder of its own (named by the file), and "
                        "the tables and a report across them.")
     w.add_argument("scenario", metavar="SCENARIO", nargs="+",
-                   help="scenario file(s), or a folder of them (its *.py files but those starting with _)")
+                   help="scenario file(s), or a folder of them (its *.py files that define SCENARIO or for_subject)")
     w.add_argument("--controllers", metavar="A,B", help="comma-separated controller variants "
                    "(default: all the scenario's; each must be in every scenario given)")
     w.add_argument("--controller", action="append", default=[], metavar="NAME",
