@@ -638,14 +638,21 @@ class MetricInfo:
     """What a metric key means for a comparison.
 
     ``better``: ``"lower"``, ``"higher"``, ``"zero"`` (closest to 0), ``"one"``
-    (closest to 1), ``"commanded"`` (closest to the commanded wall stiffness)
-    or None (no better side).  ``summary``: shown in sweep summaries.
+    (closest to 1), ``"commanded"`` (closest to the commanded value, the key
+    ``reference`` of the same run) or None (no better side).  ``summary``:
+    shown in sweep summaries.
     """
 
     unit: str
     better: str | None
     label: str
     summary: bool = False
+    reference: str | None = None
+
+    def __post_init__(self):
+        if (self.better == "commanded") != (self.reference is not None):
+            raise ValueError(f"MetricInfo {self.label!r}: better='commanded' needs a reference key, and a reference "
+                             f"key needs better='commanded'; got better={self.better!r}, reference={self.reference!r}")
 
 
 #: Every top-level scalar key of ``metrics.json``, in the order tables show them.
@@ -664,8 +671,10 @@ METRICS: Mapping[str, MetricInfo] = MappingProxyType({
     "human_effort_ratio": MetricInfo("-", "one", "human effort / human alone", True),
     "path_deviation_rms_rad": MetricInfo("rad", "lower", "path deviation from human alone, RMS", True),
     "wall_stiffness_commanded_N_per_m": MetricInfo("N/m", None, "wall stiffness, commanded"),
-    "wall_stiffness_rendered_N_per_m": MetricInfo("N/m", "commanded", "wall stiffness at the hand", True),
-    "wall_stiffness_rendered_robot_N_per_m": MetricInfo("N/m", "commanded", "wall stiffness at the robot"),
+    "wall_stiffness_rendered_N_per_m": MetricInfo("N/m", "commanded", "wall stiffness at the hand", True,
+                                                  reference="wall_stiffness_commanded_N_per_m"),
+    "wall_stiffness_rendered_robot_N_per_m": MetricInfo("N/m", "commanded", "wall stiffness at the robot",
+                                                        reference="wall_stiffness_commanded_N_per_m"),
     "wall_penetration_max_m": MetricInfo("m", "lower", "wall penetration, max", True),
     "wall_energy_returned_J": MetricInfo("J", "lower", "wall energy returned, worst cycle", True),
     "wall_bounce_count": MetricInfo("-", "lower", "wall contact bounces"),

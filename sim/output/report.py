@@ -120,12 +120,12 @@ def comparison_rows(labels: Sequence[str], metrics: Sequence[Mapping]) -> list[d
     flats = [flat_metrics(m) for m in metrics]
     keys = [k for k in METRICS if any(k in f for f in flats)]
     keys += [k for k in dict.fromkeys(k for f in flats for k in f) if k not in METRICS]
-    commanded = [f.get("wall_stiffness_commanded_N_per_m") for f in flats]
     rows = []
     for k in keys:
         unit, better, _ = key_info(k)
         values = [f.get(k) for f in flats]
-        b = best_index(values, better, commanded)
+        ref = METRICS[k].reference if k in METRICS else None
+        b = best_index(values, better, [f.get(ref) for f in flats] if ref else None)
         rows.append({"key": k, "unit": unit, **dict(zip(labels, values)), "best": labels[b] if b is not None else ""})
     return rows
 
@@ -280,7 +280,7 @@ def headline(summary: Sequence[Mapping], key: str = "interaction_force_rms_N") -
     if len(overall) < 2:
         return []
     top = best_indices([r[f"{key}_mean"] for r in overall], info.better,
-                       [r.get("wall_stiffness_commanded_N_per_m_mean") for r in overall])
+                       [r.get(f"{info.reference}_mean") for r in overall] if info.reference else None)
     bests = [overall[i] for i in top]
 
     def stat(r: Mapping) -> str:
@@ -337,8 +337,9 @@ def summary_cells(summary: Sequence[Mapping], keys: Sequence[str]) -> tuple[list
     for k in keys:
         for subject in dict.fromkeys(r["subject"] for r in summary):
             group = [r for r in summary if r["subject"] == subject]
+            ref = METRICS[k].reference
             i = best_index([r.get(f"{k}_mean") for r in group], METRICS[k].better,
-                           [r.get("wall_stiffness_commanded_N_per_m_mean") for r in group])
+                           [r.get(f"{ref}_mean") for r in group] if ref else None)
             if i is not None:
                 best[(k, subject)] = group[i]["controller"]
     rows = []
