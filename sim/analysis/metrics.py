@@ -247,27 +247,27 @@ def rendered_wall_damping_N_s_per_m(
     :math:`m_n` (a share of the robot's own operational-space mass) pushed by
     the wearer and held by the spring-damper, so the wearer feels
     :math:`K p + B \\dot p + m_n \\ddot p`.  Over a push and release,
-    :math:`\\ddot p` correlates with :math:`\\dot p` (the hand enters
-    decelerating and leaves accelerating), so a fit of
+    :math:`\\ddot p` correlates with :math:`\\dot p` (the hand enters fast
+    and is stopped by the wall, and leaves more slowly), so a fit of
     :math:`F = k p + b \\dot p + c` alone (``inertia=False``) puts part of the
     inertia into b (omitted-variable bias): on ``scenarios/wall_push.py`` under
     ``walls`` it reads -0.8 N s/m for a commanded 5, against 3.0 with the
     mass column.
 
     What is still missing at the hand is the physics of the rendering, not
-    the fit.  Measured on that scenario (K = 600 N/m, B = 5 N s/m) with the
-    plant's actuators or sensors made ideal one at a time: the 2 ms
+    the fit.  Measured on that scenario (K = 600 N/m, B = 5 N s/m, 3.0 felt)
+    with one part of the plant changed at a time: the compliant hand cuff
+    between the robot's hand point and the wearer's hand, in series with the
+    rendered mass-spring-damper, costs the most (with the hand cuff five
+    times stiffer, at the same damping ratio, the wearer feels 5.3 N s/m;
+    the same fit against the robot's own hand point gives 4.2); the 2 ms
     first-order lag of the torque-source actuators
-    (:class:`sim.physics.actuators.ActuatorParams`) costs about 1 N s/m (a
-    spring rendered with an effective delay :math:`\\tau` loses
+    (:class:`sim.physics.actuators.ActuatorParams`) about 1 (3.9 with an ideal
+    actuator; a spring rendered with an effective delay :math:`\\tau` loses
     :math:`K \\tau` of damping, :math:`K p(t - \\tau) \\approx K p - K \\tau
-    \\dot p`, here 600 x 0.002 = 1.2: the sampled-spring effect of Colgate &
-    Schenkel 1997 [ColgateSchenkel1997]_); the filters and delays of the force
-    sensor and the encoders under 0.2 each; and the compliant cuff between the
-    robot's hand point and the wearer's hand, in series with the rendered
-    mass-spring-damper, 1.2 to 1.8 (the same fit against the robot's hand
-    point gives 4.2, and 5.6 with ideal actuators and sensors, when the
-    wearer's hand gets 3.8).
+    \\dot p`, here up to 600 x 0.002 = 1.2: the sampled-spring effect of
+    Colgate & Schenkel 1997 [ColgateSchenkel1997]_); the filters and delays
+    of the force sensor and the encoders under 0.2 each.
 
     Returns None when fewer than 20 ticks qualify, or the penetration or its
     rate does not vary (:func:`wall_impedance_fit`).
