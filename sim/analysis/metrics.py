@@ -492,13 +492,15 @@ class MassFit:
     intercept_N: float | None
 
     def __post_init__(self) -> None:
-        acc, force = np.asarray(self.acc_m_s2, dtype=float), np.asarray(self.force_N, dtype=float)
+        acc, force = np.array(self.acc_m_s2, dtype=float), np.array(self.force_N, dtype=float)  # own copies
         if acc.shape != force.shape or acc.ndim != 1:
             raise ValueError(f"MassFit: acc_m_s2 and force_N must be 1-D of the same length; got shapes "
                              f"{acc.shape} and {force.shape}")
         if (self.mass_kg is None) == (self.reason is None):
             raise ValueError(f"MassFit: a reason is given exactly when mass_kg is None; got mass_kg={self.mass_kg!r}, "
                              f"reason={self.reason!r}")
+        acc.setflags(write=False)
+        force.setflags(write=False)
         object.__setattr__(self, "acc_m_s2", acc)
         object.__setattr__(self, "force_N", force)
 
