@@ -108,6 +108,11 @@ class _StackBuffers:
         return arrays
 
 
+def _task_bases(t: Task) -> list[str]:
+    """Names of the Task classes ``t``'s class derives from, nearest first, without Task itself."""
+    return [c.__name__ for c in type(t).__mro__[1:] if isinstance(c, type) and issubclass(c, Task) and c is not Task]
+
+
 class HQPController(Controller):
     """Strict-priority stack of tasks.
 
@@ -255,9 +260,12 @@ class HQPController(Controller):
 
     def structure(self) -> dict:
         """:meth:`Controller.structure` with every level's tasks, highest priority first, and the solver's
-        settings (``solver``: the QP backend asked for, None for the default; ``eliminate_torque``)."""
+        settings (``solver``: the QP backend asked for, None for the default; ``eliminate_torque``;
+        ``binding_tol``). Each task also lists ``bases``: the names of the Task classes its class derives from
+        (e.g. ``["WallTask"]`` for a plane wall), so that a report can tell a user's wall from its family."""
         levels = [{"level": i, "tasks": [{"name": str(t.name), "type": type(t).__name__, "kind": str(t.kind),
-                                          "weight": plain_value(t.weight), "params": t.params()} for t in tasks]}
+                                          "weight": plain_value(t.weight), "params": t.params(),
+                                          "bases": _task_bases(t)} for t in tasks]}
                   for i, tasks in enumerate(self.levels)]
         return {**super().structure(), "levels": levels, "solver": self.solver,
                 "eliminate_torque": self.eliminate_torque, "binding_tol": self.binding_tol}
