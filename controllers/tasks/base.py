@@ -61,7 +61,7 @@ class Task(ABC):
         The rule, the same for every task: each argument of the class's ``__init__`` that the task keeps as an
         attribute of the same name (the shipped tasks keep every one), in the order of the signature; a
         dataclass value (e.g. a :class:`~controllers.tasks.WallLaw`) is spread into ``NAME.FIELD`` entries.
-        ``weight`` is left out (it is the task's own entry in
+        ``weight``, ``name`` and ``kind`` are left out (they are the task's own entries in
         :meth:`controllers.base.Controller.structure`). When an argument is not kept under its name, or the
         class has no ``__init__`` of its own, the public instance attributes not listed yet are added as they
         are, as far as they can be shown (:func:`plain_value`). A task may override this method.
@@ -75,7 +75,7 @@ class Task(ABC):
             names = []
         missing = type(self).__init__ is object.__init__ or type(self).__init__ is Task.__init__
         for name in names:
-            if name == "weight":
+            if name in ("weight", "name", "kind"):  # the task's own entries in Controller.structure
                 continue
             if name in getattr(self, "__dict__", {}) or hasattr(type(self), name):
                 _spread(out, name, getattr(self, name))

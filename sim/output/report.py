@@ -605,11 +605,14 @@ def headline(summary: Sequence[Mapping], key: str = "interaction_force_rms_N") -
     def stat(r: Mapping) -> str:
         return fmt_stat(r[f"{key}_mean"], r.get(f"{key}_std"), info.unit)
 
+    def listed(items) -> str:
+        items = list(items)
+        return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " and " + items[-1]
+
     out = []
     if len(bests) > 1:
-        out.append(" and ".join(f"`{r['controller']}`" for r in bests) + f" are level on {info.label}: "
-                   + " and ".join(stat(r) for r in bests) + ", over "
-                   + " and ".join(str(r["n_ok"]) for r in bests) + " runs.")
+        out.append(listed(f"`{r['controller']}`" for r in bests) + f" are level on {info.label}: "
+                   + listed(stat(r) for r in bests) + ", over " + listed(str(r["n_ok"]) for r in bests) + " runs.")
     for best in bests:
         for i, r in enumerate(overall):
             if i in top:
