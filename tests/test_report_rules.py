@@ -278,7 +278,8 @@ def test_sweep_tables_mark_no_timing_key_and_print_no_plus_minus_zero():
 
 
 def test_fmt_stat_gives_the_spread_two_significant_digits_and_the_mean_its_last_digit():
-    # the rule worked by hand (GUM, JCGM 100:2008, 7.2.6: at most two significant digits for the uncertainty)
+    # the rule worked by hand (GUM, JCGM 100:2008, 7.2.6, from memory: at most two significant digits for the
+    # uncertainty)
     assert fmt_stat(8.4337, 0.2634) == "8.43 ± 0.26"
     assert fmt_stat(590.2, 5.0, "N/m") == "590.2 ± 5.0 N/m"
     assert fmt_stat(12345.0, 250.0) == "12340 ± 250"
@@ -341,6 +342,8 @@ def test_the_run_report_has_the_controller_section_and_the_level_timeline(wall_r
     assert "## Controller" in md and "![level_timeline](plots/level_timeline.png)" in md
     assert "| 0 | joint_limits | JointPositionLimits | ineq | 1 | braking_accel_rad_s2 = 20, margin_rad = 0.02 |" in md
     assert "| level | tasks | active [%] | binding [%] | QP backend [%]" in md and "99th-percentile" in md
+    # transparency takes every joint: the damping below it is never met
+    assert "- Level 2 (damping) is binding on 100 % of the solved ticks" in md
     assert (wall_run / "plots" / "level_timeline.png").stat().st_size > 5000
     # the shares in the table are those of the logged columns
     run = load_run(wall_run)

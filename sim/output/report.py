@@ -83,7 +83,7 @@ def fmt(v, digits: int = 4) -> str:
 
 def fmt_stat(mean, std, unit: str = "") -> str:
     """``mean ± std`` by the rule of the reports (common practice for a measured value and its spread, as in
-    the GUM, JCGM 100:2008, section 7.2.6: the uncertainty to at most two significant digits).
+    the GUM, JCGM 100:2008, section 7.2.6, from memory: the uncertainty to at most two significant digits).
 
     * ``std`` None or 0 (one run, or runs that agree to the bit): the mean alone, as :func:`fmt` (4
       significant digits), never ``± 0``;
@@ -396,12 +396,28 @@ def controller_section(meta: Mapping, metrics: Mapping, arrays: Mapping[str, np.
              "row's right-hand side) and was solved by the QP backend, and its solve time.", "",
              markdown_table(["level", "tasks", "active [%]", "binding [%]", "QP backend [%]",
                              "solve median [us]", "solve p99 [us]"], rows), "",
+             *[f"- {x}" for x in _activity_sentences(activity, levels)], "",
              "Why this matters: a level the compiled solve cannot finish goes to the QP backend, whose solve "
              "time is longer and varies from tick to tick, so those ticks set the 99th-percentile tick time. A "
              "level that is often binding is one the controller cannot meet because of the levels above it "
              "(or, for limits, one whose bound holds back every level below): its task is met only as far as "
              "the higher priorities allow.", ""]
     return text
+
+
+def _activity_sentences(activity, levels: Sequence[Mapping]) -> list[str]:
+    """One sentence per level worth a word: binding on most solved ticks, or ever sent to the QP backend."""
+    out = []
+    for a in activity:
+        name = f"Level {a.level} ({_level_label(levels[a.level])})" if a.level < len(levels) else f"Level {a.level}"
+        binding, qp = a.share("binding") or 0.0, a.share("qp") or 0.0
+        if binding >= 0.5:
+            out.append(f"{name} is binding on {fmt(100 * binding)} % of the solved ticks: the levels above it "
+                       "(or its own bounds) decide those ticks, not its task.")
+        if qp > 0:
+            out.append(f"{name} went to the QP backend on {fmt(100 * qp)} % of the solved ticks "
+                       f"({int(np.count_nonzero(a.qp))} ticks): those ticks' solve times set the 99th percentile.")
+    return out or ["No level is binding on most ticks, and none went to the QP backend."]
 
 
 def _timeline(run, meta: Mapping, folder: Path) -> list[Path]:
