@@ -89,3 +89,15 @@ class Controller(ABC):
     def diagnostics(self) -> Mapping[str, float]:
         """Diagnostics of the last :meth:`step`, one float per name."""
         return {}
+
+    def structure(self) -> dict:
+        """What the controller is, as plain JSON values, for reports and ``meta.json``.
+
+        ``{"type": class name, "name": its name, "description": one line, "levels": [...]}``. ``levels`` lists
+        the priority levels, highest first, each ``{"level": i, "tasks": [{"name", "type", "kind", "weight",
+        "params"}]}`` (:meth:`controllers.tasks.Task.params`); it is empty for a controller without a hierarchy
+        of tasks, as here. ``description`` is the first line of the class's docstring.
+        """
+        doc = (type(self).__doc__ or "").strip().splitlines()
+        return {"type": type(self).__name__, "name": self.name, "description": doc[0] if doc else "",
+                "levels": []}

@@ -467,7 +467,7 @@ _SWEEP_COLUMNS = ("interaction_force_rms_N", "interaction_force_free_rms_N", "ap
 def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     from sim.experiments.sweep import run_sweep, scenario_files, scenario_folders
     from sim.loop.scenario import load_scenario
-    from sim.output.report import fmt, has_wall, sweep_verdicts, text_table
+    from sim.output.report import fmt_stat, has_wall, sweep_verdicts, text_table
 
     controllers = [c.strip() for c in (args.controllers or "").split(",") + args.controller if c.strip()] or None
     subjects = [s.strip() for s in (args.subjects or "").split(",") + args.subject if s.strip()] or ["m50"]
@@ -503,7 +503,7 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     def cell(r: dict, k: str) -> str:
         if r.get(f"{k}_mean") is None or (k == "interaction_force_free_rms_N" and not walled[r.get("scenario", "")]):
             return "n/a"
-        return fmt(r[f"{k}_mean"]) + " ± " + fmt(r[f"{k}_std"])
+        return fmt_stat(r[f"{k}_mean"], r[f"{k}_std"])
 
     first = ["scenario"] if several else []
     shown = [r for r in result.summary if r["subject"] == "all"] if several else result.summary

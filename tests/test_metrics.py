@@ -299,7 +299,8 @@ def test_the_sweep_verdict_calls_equal_means_level_and_compares_each_with_the_re
     assert sum("better than `gravity`" in s and "(-47 %)" in s for s in lines) == 2
     # a difference under one per cent is printed with its digits, not as "+0 %"
     close = headline([row("a", 8.434, 0.26), row("b", 8.437, 0.26)])
-    assert close == ["`a` is better than `b` on interaction force, RMS: 8.434 ± 0.26 N against 8.437 ± 0.26 N "
+    # (means to the last digit of their spread, the spread to 2 significant digits: sim.output.report.fmt_stat)
+    assert close == ["`a` is better than `b` on interaction force, RMS: 8.43 ± 0.26 N against 8.44 ± 0.26 N "
                      "(-0.036 %), over 4 and 4 runs."]
 
 
@@ -320,8 +321,8 @@ def test_with_a_wall_the_verdict_judges_transparency_outside_it_and_the_wall_by_
     assert v["Which is more transparent"][0].startswith("`walls` is better than `transparent` on interaction force "
                                                         "outside the wall")
     assert v["Which renders the wall closest to its commanded stiffness"] == [
-        "`walls` is better than `soft` on wall stiffness at the hand: 590 ± 5 N/m against 300 ± 5 N/m (+97 %), "
-        "over 3 and 3 runs."]
+        "`walls` is better than `soft` on wall stiffness at the hand: 590.0 ± 5.0 N/m against 300.0 ± 5.0 N/m "
+        "(+97 %), over 3 and 3 runs."]
     free_rows = [{k: r for k, r in row(c, f, f, None).items() if not k.startswith("wall_")}
                  for c, f in (("a", 2.0), ("b", 3.0))]
     assert list(sweep_verdicts(free_rows)) == ["Which is more transparent"]  # no wall: one question

@@ -171,9 +171,13 @@ def test_the_table_across_scenarios_marks_every_controller_level_at_the_top(tmp_
     md = write_sweeps_report(SweepResult(tmp_path, (), summary, 1.0),
                              {"controllers": ["a", "b", "c"], "subjects": ["m50"], "seeds": [0], "executor": "test"},
                              parts).read_text()
-    assert "| tie | whole run | **2 ± 0.1** | **2 ± 0.1** | 3 ± 0.1 |" in md
-    assert "| same | whole run | 1 ± 0.1 | 1 ± 0.1 | 1 ± 0.1 |" in md
-    assert md.count("No verdict") == 1  # the scenario where all three are level
+    # (means to the last digit of their spread, the spread to 2 significant digits: sim.output.report.fmt_stat)
+    assert "| tie | whole run | **2.00 ± 0.10** | **2.00 ± 0.10** | 3.00 ± 0.10 |" in md
+    assert "| same | whole run | 1.00 ± 0.10 | 1.00 ± 0.10 | 1.00 ± 0.10 |" in md
+    # the scenario where all three are level says so (a tie is a verdict, not the absence of one)
+    assert ("- `a`, `b` and `c` are level on interaction force, RMS: 1.00 ± 0.10 N, 1.00 ± 0.10 N and "
+            "1.00 ± 0.10 N") in md
+    assert "No verdict" not in md
 
 
 def test_a_scenario_whose_every_run_fails_gets_its_folder_and_the_others_complete(two, tmp_path):

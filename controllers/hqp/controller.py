@@ -62,7 +62,9 @@ from models.records import Measurement
 
 from ..base import Controller, ControllerContext
 from ..tasks import Task, TickState
+from ..tasks.base import plain_value
 from .kernels import place_q_rows, stack_is_finite
+from .level_status import level_status
 from .levels import Level, LevelStack
 from .params import HQPParams
 from .solver import HierarchySolver, compiled_head, solve_hierarchy
@@ -106,6 +108,11 @@ class _StackBuffers:
         return arrays
 
 
+def _task_bases(t: Task) -> list[str]:
+    """Names of the Task classes ``t``'s class derives from, nearest first, without Task itself."""
+    return [c.__name__ for c in type(t).__mro__[1:] if isinstance(c, type) and issubclass(c, Task) and c is not Task]
+
+
 class HQPController(Controller):
     """Strict-priority stack of tasks.
 
@@ -125,11 +132,25 @@ class HQPController(Controller):
         equalities. Both give the same torques.
     params : HQPParams, optional
         Tolerances and switches of the hierarchical solver (default: its defaults).
+    binding_tol : float, default 1e-6
+        Relative tolerance of the per-level diagnostic ``binding_i``
+        (:mod:`controllers.hqp.level_status`): ten times the solver's default ``slack_tol``, so that a
+        backend's rounding is not taken for an unmet row (common practice).
+
+    Notes
+    -----
+    Per-tick diagnostics (:meth:`diagnostic_names`): ``solve_time_s``, ``rows_time_s`` [s], ``fallback``
+    (1.0 on a fallback tick), ``active_rows`` (task rows this tick), ``qp_solves`` (calls of the QP
+    backend), and per level i (0 = highest priority): ``residual_i`` (the level's weighted squared error at
+    the answer), ``level_i_time_s`` [s], ``active_i`` (1.0: the level had rows this tick), ``binding_i``
+    (1.0: an equality row of the level is not met or an inequality row sits at its bound, within
+    ``binding_tol``) and ``qp_i`` (1.0: the compiled solve could not verify the level and the QP backend
+    solved it). On a fallback tick the per-level values are NaN.
     """
 
     def __init__(self, levels: Sequence[Sequence[Task]], *, name: str = "hqp", solver: str | None = None,
                  fallback_damping_Nm_s_per_rad: float = 1.0, eliminate_torque: bool = True,
-                 params: HQPParams | None = None) -> None:
+                 params: HQPParams | None = None, binding_tol: float = 1e-6) -> None:
         super().__init__()
         self.name = name
         self.levels = [list(level) for level in levels]
@@ -143,6 +164,10 @@ class HQPController(Controller):
             raise ParameterError(f"controller {name!r}: eliminate_torque must be a bool, got {eliminate_torque!r}")
         if params is not None and not isinstance(params, HQPParams):
             raise ParameterError(f"controller {name!r}: params must be an HQPParams, got {type(params).__name__}")
+        if not (isinstance(binding_tol, (int, float)) and not isinstance(binding_tol, bool)
+                and math.isfinite(binding_tol) and 0 < binding_tol < 1):
+            raise ParameterError(f"controller {name!r}: binding_tol must be in (0, 1), got {binding_tol!r}")
+        self.binding_tol = float(binding_tol)
         self.params = params
         self.solver = solver
         self.eliminate_torque = eliminate_torque
@@ -184,6 +209,11 @@ class HQPController(Controller):
         self.last_fallback_reason = None
         self._diag = dict.fromkeys(self.diagnostic_names(), 0.0)
         self._level_keys = [(f"residual_{i}", f"level_{i}_time_s") for i in range(len(self.levels))]
+        p = len(self.levels)
+        self._status_keys = [(f"active_{i}", f"binding_{i}", f"qp_{i}") for i in range(p)]
+        # per level: had rows, binding (level_status), solved by the QP backend; and the answer, copied in
+        self._active, self._binding, self._qp_level = np.zeros(p), np.zeros(p), np.zeros(p)
+        self._x = np.zeros(self._buf.cols)
         self._preload()
 
     def _preload(self) -> None:
@@ -198,9 +228,13 @@ class HQPController(Controller):
         should that trivial solve fail, the reset goes on, and a tick that fails later falls back as any failed
         tick does.
         """
+        buf = self._buf
+        # the per-level status of every tick: loaded now, with the argument types of a tick
+        level_status(self._x, buf.A[:0], buf.b[:0], buf.eq_off, buf.C[:0], buf.d[:0], buf.in_off, self.binding_tol,
+                     self._active[:0], self._binding[:0])
         if not self.eliminate_torque:  # that path calls solve_hierarchy on every tick: its first tick loads them
             return
-        buf, p = self._buf, len(self.levels) + 1
+        p = len(self.levels) + 1
         n = buf.cols
         place_q_rows(np.zeros((0, 2 * n)), np.zeros(0), n, buf.A, buf.b, buf.sw, 0, 1.0)  # writes nothing
         eq_off, in_off = np.zeros_like(buf.eq_off), np.zeros_like(buf.in_off)
@@ -224,11 +258,24 @@ class HQPController(Controller):
             prev = self._prev = self._hqp.compiled_result(out, p, seconds)
         return prev
 
+    def structure(self) -> dict:
+        """:meth:`Controller.structure` with every level's tasks, highest priority first, and the solver's
+        settings (``solver``: the QP backend asked for, None for the default; ``eliminate_torque``;
+        ``binding_tol``). Each task also lists ``bases``: the names of the Task classes its class derives from
+        (e.g. ``["WallTask"]`` for a plane wall), so that a report can tell a user's wall from its family."""
+        levels = [{"level": i, "tasks": [{"name": str(t.name), "type": type(t).__name__, "kind": str(t.kind),
+                                          "weight": plain_value(t.weight), "params": t.params(),
+                                          "bases": _task_bases(t)} for t in tasks]}
+                  for i, tasks in enumerate(self.levels)]
+        return {**super().structure(), "levels": levels, "solver": self.solver,
+                "eliminate_torque": self.eliminate_torque, "binding_tol": self.binding_tol}
+
     def diagnostic_names(self) -> tuple[str, ...]:
         p = range(len(self.levels))
         return (("solve_time_s", "rows_time_s", "fallback", "active_rows", "qp_solves")
                 + tuple(f"residual_{i}" for i in p)
-                + tuple(f"level_{i}_time_s" for i in p))
+                + tuple(f"level_{i}_time_s" for i in p)
+                + tuple(f"{kind}_{i}" for i in p for kind in ("active", "binding", "qp")))
 
     def diagnostics(self):
         return self._diag
@@ -407,13 +454,23 @@ class HQPController(Controller):
             t_end = time.perf_counter()
             self._prev = res
             fallback = 0.0
+            qp_level = self._qp_level
             if type(res) is tuple:  # the kernel's output, read in place
                 residuals, level_times = residuals_all[:p].tolist(), times_all[:p].tolist()
                 qp_solves = 0.0
+                qp_level[:] = 0.0
+                self._x[:] = x
             else:
                 residuals = res.level_residuals[:p].tolist()
                 level_times = res.level_times_s[:p].tolist()
                 qp_solves = float(res.qp_solves)
+                methods = res.level_methods
+                for i in range(p):
+                    qp_level[i] = 1.0 if methods[i] == "qp" else 0.0
+                self._x[:] = res.x
+            level_status(self._x, stack.A, stack.b, stack.eq_off, stack.C, stack.d, stack.in_off, self.binding_tol,
+                         self._active, self._binding)
+            status = (self._active.tolist(), self._binding.tolist(), qp_level.tolist())
         except (SandboxError, np.linalg.LinAlgError) as e:  # a singular task matrix is a failed tick too
             t_end = time.perf_counter()
             tau = s.g - self.fallback_damping * s.dq
@@ -425,6 +482,7 @@ class HQPController(Controller):
             qp_solves = math.nan  # the tick has no solve to count
             residuals = [np.nan] * p
             level_times = [np.nan] * p
+            status = ([np.nan] * p,) * 3
         d = self._diag
         if t_solve is None:  # the rows failed: no solve this tick
             d["rows_time_s"], d["solve_time_s"] = t_end - t0, math.nan
@@ -436,4 +494,7 @@ class HQPController(Controller):
         for i, (residual_key, time_key) in enumerate(self._level_keys):
             d[residual_key] = residuals[i]
             d[time_key] = level_times[i]
+        active, binding, qp_level = status
+        for i, (active_key, binding_key, qp_key) in enumerate(self._status_keys):
+            d[active_key], d[binding_key], d[qp_key] = active[i], binding[i], qp_level[i]
         return tau

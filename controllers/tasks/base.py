@@ -16,14 +16,17 @@ as the same read-only array every tick (:func:`constant_rows`): the controller t
 
 from __future__ import annotations
 
+import dataclasses
+import inspect
 from abc import ABC, abstractmethod
+from collections.abc import Mapping
 from typing import Literal
 
 import numpy as np
 
 from .state import TickState
 
-__all__ = ["Task", "TaskKind", "q_rows", "constant_rows"]
+__all__ = ["Task", "TaskKind", "q_rows", "constant_rows", "plain_value"]
 
 TaskKind = Literal["eq", "ineq"]
 
@@ -52,6 +55,39 @@ class Task(ABC):
         """One line for logs and reports."""
         return f"{self.name} ({self.kind})"
 
+    def params(self) -> dict:
+        """The task's parameters as plain JSON values, for reports and ``meta.json``.
+
+        The rule, the same for every task: each argument of the class's ``__init__`` that the task keeps as an
+        attribute of the same name (the shipped tasks keep every one), in the order of the signature; a
+        dataclass value (e.g. a :class:`~controllers.tasks.WallLaw`) is spread into ``NAME.FIELD`` entries.
+        ``weight``, ``name`` and ``kind`` are left out (they are the task's own entries in
+        :meth:`controllers.base.Controller.structure`). When an argument is not kept under its name, or the
+        class has no ``__init__`` of its own, the public instance attributes not listed yet are added as they
+        are, as far as they can be shown (:func:`plain_value`). A task may override this method.
+        """
+        out: dict = {}
+        try:
+            sig = inspect.signature(type(self).__init__)
+            names = [p.name for p in list(sig.parameters.values())[1:]
+                     if p.kind not in (p.VAR_POSITIONAL, p.VAR_KEYWORD)]
+        except (TypeError, ValueError):  # a signature Python cannot read
+            names = []
+        missing = type(self).__init__ is object.__init__ or type(self).__init__ is Task.__init__
+        for name in names:
+            if name in ("weight", "name", "kind"):  # the task's own entries in Controller.structure
+                continue
+            if name in getattr(self, "__dict__", {}) or hasattr(type(self), name):
+                _spread(out, name, getattr(self, name))
+            else:
+                missing = True
+        if missing:
+            for name, value in getattr(self, "__dict__", {}).items():
+                if not name.startswith("_") and name not in ("name", "kind", "weight") and name not in out \
+                        and not any(k.startswith(f"{name}.") for k in out):
+                    _spread(out, name, value)
+        return out
+
 
 def q_rows(nv: int, rows: np.ndarray) -> np.ndarray:
     """(m, nv) rows on q̈ embedded into (m, 2 nv) rows on x = [q̈; τ] (zeros on τ)."""
@@ -64,3 +100,32 @@ def constant_rows(A: np.ndarray) -> np.ndarray:
     """``A`` made read-only, to be returned every tick by a task whose rows do not depend on the state."""
     A.setflags(write=False)
     return A
+
+
+def plain_value(value):
+    """``value`` as a plain JSON value for a report: numbers, strings, booleans and None as they are (numpy
+    scalars as Python ones), arrays and sequences as lists (an array of more than 64 entries as its shape),
+    mappings as dicts, a dataclass by its fields, anything else by its ``repr`` (cut at 80 characters)."""
+    if value is None or isinstance(value, (bool, int, float, str)):
+        return value
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, np.ndarray):
+        return value.tolist() if value.size <= 64 else f"array of shape {value.shape}"
+    if isinstance(value, (list, tuple)):
+        return [plain_value(v) for v in value]
+    if isinstance(value, Mapping):
+        return {str(k): plain_value(v) for k, v in value.items()}
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return {f.name: plain_value(getattr(value, f.name)) for f in dataclasses.fields(value)}
+    text = repr(value)
+    return text if len(text) <= 80 else text[:77] + "..."
+
+
+def _spread(out: dict, name: str, value) -> None:
+    """``out[name] = plain_value(value)``; a dataclass value as one ``name.FIELD`` entry per field."""
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        for f in dataclasses.fields(value):
+            out[f"{name}.{f.name}"] = plain_value(getattr(value, f.name))
+    else:
+        out[name] = plain_value(value)

@@ -70,6 +70,7 @@ class JointPositionLimits(Task):
     def __init__(self, braking_accel_rad_s2: float = 20.0, margin_rad: float = 0.02, weight: float = 1.0) -> None:
         self.a = positive("JointPositionLimits", "braking_accel_rad_s2", braking_accel_rad_s2, "rad/s^2")
         self.margin = nonnegative("JointPositionLimits", "margin_rad", margin_rad, "rad")
+        self.braking_accel_rad_s2, self.margin_rad = self.a, self.margin  # the arguments, by name (Task.params)
         self.weight = positive("JointPositionLimits", "weight", weight)
 
     def bind(self, state: TickState) -> None:
@@ -107,6 +108,7 @@ class JointDamping(Task):
 
     def __init__(self, time_constant_s: float = 0.2, weight: float = 1e-3) -> None:
         self.T = positive("JointDamping", "time_constant_s", time_constant_s, "s")
+        self.time_constant_s = self.T  # the argument, by name (Task.params)
         self.weight = positive("JointDamping", "weight", weight)
 
     def bind(self, state: TickState) -> None:
@@ -123,8 +125,10 @@ class Posture(Task):
 
     def __init__(self, posture_rad, frequency_Hz: float = 1.0, damping_ratio: float = 1.0, weight: float = 1e-3):
         self.q_ref = np.array(posture_rad, dtype=float)
-        self.w = 2 * math.pi * positive("Posture", "frequency_Hz", frequency_Hz, "Hz")
+        self.frequency_Hz = positive("Posture", "frequency_Hz", frequency_Hz, "Hz")
+        self.w = 2 * math.pi * self.frequency_Hz
         self.z = nonnegative("Posture", "damping_ratio", damping_ratio)
+        self.posture_rad, self.damping_ratio = self.q_ref, self.z  # the arguments, by name (Task.params)
         self.weight = positive("Posture", "weight", weight)
 
     def bind(self, state: TickState) -> None:

@@ -39,6 +39,7 @@ class Transparency(Task):
 
     def __init__(self, inertia_compensation: float = 0.5, weight: float = 1.0) -> None:
         self.c = in_range("Transparency", "inertia_compensation", inertia_compensation, 0.0, 0.9)
+        self.inertia_compensation = self.c  # the argument, by name (Task.params)
         self.weight = positive("Transparency", "weight", weight)
 
     def rows(self, state: TickState):

@@ -87,13 +87,15 @@ class WallTask(Task):
                  cuff_stiffness_N_per_m=None) -> None:
         self.law = law if isinstance(law, WallLaw) else WallLaw(*law)
         self.frame, self.sensor = frame, sensor
-        self.cuff_compliance = None
+        self.cuff_compliance = self.cuff_stiffness_N_per_m = None
         if cuff_stiffness_N_per_m is not None:
             k = np.array(vector(type(self).__name__, "cuff_stiffness_N_per_m", cuff_stiffness_N_per_m, 3))
             if np.any(k <= 0):
                 raise ParameterError(f"{type(self).__name__}.cuff_stiffness_N_per_m must be > 0, got {k}")
-            self.cuff_compliance = 1.0 / k
-        self.alpha = 1.0 - in_range(type(self).__name__, "inertia_compensation", inertia_compensation, 0.0, 0.9)
+            self.cuff_compliance, self.cuff_stiffness_N_per_m = 1.0 / k, k
+        self.inertia_compensation = in_range(type(self).__name__, "inertia_compensation", inertia_compensation,
+                                             0.0, 0.9)
+        self.alpha = 1.0 - self.inertia_compensation
         self.weight = positive(type(self).__name__, "weight", weight)
 
     def bind(self, state: TickState) -> None:
@@ -140,6 +142,7 @@ class PlaneWall(WallTask):
         if not np.linalg.norm(n) > 0:
             raise ParameterError("PlaneWall.normal must be non-zero")
         self.n = n / np.linalg.norm(n)
+        self.point_m, self.normal = self.x0, self.n  # the arguments, by name (Task.params; the normal made unit)
 
     def faces(self, p):
         return _faces(kernels.plane_faces, self.n, self.x0, *_point(p))
@@ -156,6 +159,7 @@ class BoxWall(WallTask):
         super().__init__(law, frame, sensor, inertia_compensation, weight, cuff_stiffness_N_per_m)
         self.lo = np.array(vector("BoxWall", "lower_m", lower_m, 3))
         self.hi = np.array(vector("BoxWall", "upper_m", upper_m, 3))
+        self.lower_m, self.upper_m = self.lo, self.hi  # the arguments, by name (Task.params)
         if not np.all(self.lo < self.hi):
             raise ParameterError(f"BoxWall: lower_m {self.lo} must be below upper_m {self.hi} on every axis")
 
@@ -175,6 +179,7 @@ class SphereWall(WallTask):
         self.c = np.array(vector("SphereWall", "center_m", center_m, 3))
         self.r = positive("SphereWall", "radius_m", radius_m, "m")
         self.inside = bool(inside)
+        self.center_m, self.radius_m = self.c, self.r  # the arguments, by name (Task.params)
 
     def faces(self, p):
         return _faces(kernels.sphere_faces, self.c, self.r, self.inside, *_point(p))

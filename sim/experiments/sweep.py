@@ -81,7 +81,7 @@ from sim.analysis.tables import run_rows, write_csv, write_json
 from sim.experiments.run import Batch, run_scenario
 from sim.loop.runlog import environment_metadata
 from sim.loop.scenario import load_scenario, scenario_files_in
-from sim.output.report import write_sweep_report, write_sweeps_report
+from sim.output.report import is_applicable, write_sweep_report, write_sweeps_report
 
 __all__ = ["SweepCase", "CaseResult", "SweepResult", "SweepError", "run_case", "run_sweep", "summarize", "serve",
            "baseline_key", "plan_sweep", "scenario_files", "scenario_folders", "sweep_plan", "check_plan",
@@ -690,14 +690,35 @@ def _stats(values: list[float]) -> tuple[float | None, float | None, int]:
     return float(statistics.mean(v)), float(statistics.stdev(v)) if len(v) > 1 else 0.0, len(v)
 
 
+def _run_meta(folder: str) -> dict | None:
+    """The ``meta.json`` of a run folder, None when it has none (or it cannot be read)."""
+    try:
+        return json.loads((Path(folder) / "meta.json").read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return None
+
+
 def summarize(results: Sequence[CaseResult], keys: Sequence[str] | None = None) -> list[dict]:
     """Mean and sample standard deviation (ddof = 1) of each summary metric.
 
     One row per controller over all its subjects and seeds (``subject`` =
     ``"all"``), then one per (controller, subject) over seeds.  Each row holds
     ``n_ok`` / ``n_failed`` and, per metric key, ``KEY_mean``, ``KEY_std``.
+
+    A run's value counts only where the metric applies to it
+    (:func:`sim.output.report.is_applicable`, from the ``meta.json`` in the
+    run's folder when there is one): a variant that renders no wall has no
+    wall rows, so its ``KEY_mean`` is None (``n/a``) rather than a number that
+    would be compared with the wall variants'.
     """
     keys = list(keys) if keys is not None else [k for k, m in METRICS.items() if m.summary]
+    flats = {id(r): flat_metrics(r.metrics) for r in results if r.ok}
+    metas = {id(r): _run_meta(r.case.folder) for r in results if r.ok}
+
+    def value(r: CaseResult, k: str):
+        flat, meta = flats[id(r)], metas[id(r)]
+        return flat.get(k) if meta is None or is_applicable(k, flat, meta) else None
+
     groups: dict[tuple[str, str], list[CaseResult]] = {}
     for r in results:
         groups.setdefault((r.case.controller, "all"), []).append(r)
@@ -708,7 +729,7 @@ def summarize(results: Sequence[CaseResult], keys: Sequence[str] | None = None) 
         ok = [r for r in rs if r.ok]
         row = {"controller": controller, "subject": subject, "n_ok": len(ok), "n_failed": len(rs) - len(ok)}
         for k in keys:
-            mean, std, n = _stats([flat_metrics(r.metrics).get(k) for r in ok])
+            mean, std, n = _stats([value(r, k) for r in ok])
             row[f"{k}_mean"], row[f"{k}_std"] = mean, std
         rows.append(row)
     return rows

@@ -336,6 +336,8 @@ class Simulation:
                                                 asm.human.model.frames[c.human_frame_id].name] for c in asm.cuffs},
                        "cuff_human_offsets": {c.name: c.human_offset.homogeneous for c in asm.cuffs}},
             "walls": jsonable(scenario.walls),
+            # the controller's levels and tasks with their parameters (Controller.structure), for the reports
+            "controller_structure": controller.structure() if controller is not None else None,
             "parameters": jsonable(scenario), "exo_params": jsonable(asm.exo_params),
             "environment": environment_metadata(),
         })

@@ -13,7 +13,8 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["force_over_time", "force_against_penetration", "bars", "solve_time_histograms", "sweep_bars"]
+__all__ = ["force_over_time", "force_against_penetration", "bars", "solve_time_histograms", "sweep_bars",
+           "level_timeline"]
 
 
 def _plt():
@@ -152,3 +153,54 @@ def sweep_bars(rows: Sequence[Mapping], key: str, path: Path, *, ylabel: str, ti
     # fixed margins in inches (the y label and its ticks, the subjects, a title of up to two lines): no second
     # drawing for the layout
     return _save(fig, path, margins=(0.95 / width_in, 0.4 / height_in, 1 - 0.15 / width_in, 1 - 0.55 / height_in))
+
+
+def _segments(mask: np.ndarray, t: np.ndarray, dt: float) -> list[tuple[float, float]]:
+    """(start [s], width [s]) of each run of True in ``mask`` over the ticks at times ``t``, each tick ``dt`` long."""
+    m = np.asarray(mask, dtype=bool)
+    if not m.any():
+        return []
+    edges = np.flatnonzero(np.diff(np.concatenate([[0], m.astype(np.int8), [0]])))
+    return [(float(t[a]), float((b - a) * dt)) for a, b in zip(edges[::2], edges[1::2])]
+
+
+def level_timeline(t: np.ndarray, lanes: Sequence[tuple[str, np.ndarray, np.ndarray, np.ndarray]], path: Path, *,
+                   title: str = "priority levels over time") -> Path:
+    """One lane per priority level (the highest on top) over time [s]: a pale band where the level had rows, a
+    dark band inside it where it was binding, and a short bar above the band where the QP backend solved it.
+
+    ``lanes``: ``(label, active, binding, qp)`` per level, the last three boolean arrays over the ticks ``t``.
+    """
+    plt = _plt()
+    t = np.asarray(t, dtype=float)
+    dt = float(np.median(np.diff(t))) if t.size > 1 else 1e-3
+    n = max(len(lanes), 1)
+    fig, ax = plt.subplots(figsize=(8, 1.2 + 0.55 * n))
+    colours = {"active": "#c9d9ec", "binding": "#2d5f8b", "qp": "#d9822b"}
+    for row, (_, active, binding, qp) in enumerate(lanes):
+        y = n - 1 - row
+        ax.broken_barh(_segments(active, t, dt), (y - 0.35, 0.7), facecolors=colours["active"], lw=0)
+        ax.broken_barh(_segments(binding, t, dt), (y - 0.2, 0.4), facecolors=colours["binding"], lw=0)
+        ax.broken_barh(_segments(qp, t, dt), (y + 0.22, 0.13), facecolors=colours["qp"], lw=0)
+    ax.set_yticks(range(n))
+    ax.set_yticklabels([lanes[n - 1 - y][0] for y in range(n)] if lanes else [""], fontsize=8)
+    ax.set_ylim(-0.6, n - 0.4)
+    if t.size:
+        ax.set_xlim(float(t[0]), float(t[-1]) + dt)
+    ax.set_xlabel("time [s]")
+    ax.set_ylabel("level (highest priority on top)", fontsize=8)
+    ax.grid(axis="x", alpha=0.3)
+    from matplotlib.patches import Patch
+
+    fig.legend(handles=[Patch(color=colours["active"], label="has rows (active)"),
+                        Patch(color=colours["binding"], label="binding"),
+                        Patch(color=colours["qp"], label="solved by the QP backend")],
+               loc="lower center", ncol=3, fontsize=8, frameon=False)
+    ax.set_title(title, fontsize=10)
+    height = fig.get_size_inches()[1]
+    fig.tight_layout(rect=(0.0, 0.32 / height, 1.0, 1.0))  # the lane labels, the title; the legend's strip below
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+    return path

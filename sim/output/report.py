@@ -3,6 +3,18 @@
 Each report holds the metrics, the plots (:mod:`sim.output.plots`) and the cautions.
 The "better" value of a row follows :data:`sim.analysis.metrics.METRICS`: lower, higher,
 closest to zero, to one, or to the commanded wall stiffness.
+
+Rules every comparison here follows (a run's ``meta.json`` tells what its controller is,
+``controller_structure``):
+
+* timing rows (:func:`sim.analysis.metrics.is_timing_key`) measure the machine, not the controller: they are
+  shown, never marked better, and no verdict is drawn from them;
+* a row that does not apply to a variant (:func:`is_applicable`) is ``n/a`` for it and marks nothing: the wall
+  rows of a variant that renders no wall (:func:`renders_wall`), a per-level row of a level the variant does
+  not have or whose tasks differ between the variants compared, a value the metrics give as null (e.g. a
+  felt mass the fit rejected, its reason in ``apparent_mass_hand_note``);
+* numbers follow one rule of significant digits (:func:`fmt`, :func:`fmt_stat`), and a mean over runs that
+  agree (one run, or a spread of exactly 0) is printed without "± 0".
 """
 
 from __future__ import annotations
@@ -15,14 +27,23 @@ from pathlib import Path
 import numpy as np
 
 from sim.analysis.derived import cuff_columns
-from sim.analysis.metrics import METRICS, flat_metrics, hand_cuff_index, interaction_force_norm_N, wall_normal_series
+from sim.analysis.levels import level_activity
+from sim.analysis.metrics import (
+    METRICS,
+    flat_metrics,
+    hand_cuff_index,
+    interaction_force_norm_N,
+    is_timing_key,
+    wall_normal_series,
+)
 from sim.analysis.tables import run_rows, write_csv
 from sim.loop.runlog import Run, RunLogError, load_run
 from sim.output import plots
 
 __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
            "write_run_report", "compare_runs", "write_sweep_report", "write_sweeps_report", "sweep_verdicts",
-           "has_wall", "transparency_key"]
+           "has_wall", "transparency_key", "fmt", "fmt_stat", "renders_wall", "is_applicable", "TIMING_NOTE",
+           "controller_section", "variant_differences"]
 
 #: Printed in every report.
 CAUTION = (
@@ -34,8 +55,19 @@ CAUTION = (
 )
 
 
+#: Said once in every report that shows timing rows.
+TIMING_NOTE = ("Timing rows (tick and solve times, the realtime factor, per-level solve times) measure this "
+               "machine and what else ran on it, not the controller: they are shown but never marked better, "
+               "and no verdict is drawn from them.")
+
+
 def fmt(v, digits: int = 4) -> str:
-    """A number for a table: 4 significant digits, ``n/a`` for None."""
+    """A number for a table or a sentence: ``digits`` (4) significant digits, ``n/a`` for None.
+
+    The rule of every report: a value on its own (one run's metric) has 4 significant digits; integers and
+    booleans are printed as they are; a mean with its spread follows :func:`fmt_stat` (the spread to 2
+    significant digits, the mean to the spread's last digit, no "± 0").
+    """
     if v is None:
         return "n/a"
     if isinstance(v, bool):
@@ -47,6 +79,40 @@ def fmt(v, digits: int = 4) -> str:
             return str(v)
         return f"{v:.{digits}g}"
     return str(v)
+
+
+def fmt_stat(mean, std, unit: str = "") -> str:
+    """``mean ± std`` by the rule of the reports (common practice for a measured value and its spread, as in
+    the GUM, JCGM 100:2008, section 7.2.6, from memory: the uncertainty to at most two significant digits).
+
+    * ``std`` None or 0 (one run, or runs that agree to the bit): the mean alone, as :func:`fmt` (4
+      significant digits), never ``± 0``;
+    * else the spread to 2 significant digits and the mean rounded to the same decimal place, both in fixed
+      notation: ``8.4337 ± 0.2634`` -> ``8.43 ± 0.26``, ``590.2 ± 5`` -> ``590.2 ± 5.0``, ``12345 ± 250`` ->
+      ``12340 ± 250``; where that would need more than 8 decimals or the mean is 10^7 or more, 3 and 2
+      significant digits in exponent notation.
+
+    ``unit`` is appended after a space when given. None for the mean gives ``n/a``.
+    """
+    tail = f" {unit}" if unit else ""
+    if mean is None:
+        return "n/a"
+    if not isinstance(mean, (int, float)) or isinstance(mean, bool) or not math.isfinite(mean):
+        return fmt(mean) + tail
+    if std is None or not isinstance(std, (int, float)) or not math.isfinite(std) or std == 0:
+        return fmt(mean) + tail
+    std = abs(float(std))
+    place = math.floor(math.log10(std)) - 1  # the decimal place of the spread's second significant digit
+    rounded = round(std, -place)
+    if rounded > 0 and math.floor(math.log10(rounded)) - 1 > place:  # 0.0996 -> 0.10: one place coarser
+        place += 1
+        rounded = round(std, -place)
+    if -place > 8 or abs(mean) >= 1e7:
+        return f"{mean:.3g} ± {std:.2g}{tail}"
+    if place >= 0:
+        step = 10 ** place
+        return f"{round(mean / step) * step:.0f} ± {round(std / step) * step:.0f}{tail}"
+    return f"{mean:.{-place}f} ± {rounded:.{-place}f}{tail}"
 
 
 def best_indices(values: Sequence, better: str | None, commanded: Sequence | None = None) -> tuple[int, ...]:
@@ -114,18 +180,101 @@ def key_info(key: str) -> tuple[str, str | None, str]:
     return "", None, ""
 
 
-def comparison_rows(labels: Sequence[str], metrics: Sequence[Mapping]) -> list[dict]:
+def _structure(meta: Mapping | None) -> Mapping | None:
+    s = (meta or {}).get("controller_structure")
+    return s if isinstance(s, Mapping) else None
+
+
+def _task_entries(meta: Mapping | None):
+    s = _structure(meta)
+    for level in (s or {}).get("levels") or []:
+        yield from level.get("tasks") or []
+
+
+#: The task classes of the wall family (``controllers.tasks.WallTask`` and the shipped walls), by class name.
+_WALL_CLASSES = frozenset({"WallTask", "PlaneWall", "BoxWall", "SphereWall"})
+
+
+def renders_wall(meta: Mapping | None) -> bool:
+    """Whether the run's controller renders a virtual wall: a task of its ``controller_structure`` (``meta.json``)
+    is of the wall family (its class or a base class is ``WallTask`` or a shipped wall, or, for a task whose
+    classes are not recorded, its name starts with ``wall``).
+
+    A run recorded without ``controller_structure`` (before it was recorded) counts as rendering one, so that
+    its rows are shown as they were.
+    """
+    if _structure(meta) is None:
+        return True
+    for t in _task_entries(meta):
+        classes = {str(t.get("type")), *map(str, t.get("bases") or ())}
+        if classes & _WALL_CLASSES or str(t.get("name", "")).startswith("wall"):
+            return True
+    return False
+
+
+def _level_signature(meta: Mapping | None, level: int):
+    """The tasks of ``level`` (type, name, kind) in the run's ``controller_structure``; None without it, ``()`` if
+    the controller has no such level."""
+    s = _structure(meta)
+    if s is None:
+        return None
+    levels = s.get("levels") or []
+    if level >= len(levels):
+        return ()
+    return tuple((t.get("type"), t.get("name"), t.get("kind")) for t in levels[level].get("tasks") or [])
+
+
+def is_applicable(key: str, metrics: Mapping, meta: Mapping | None) -> bool:
+    """Whether the flat metric ``key`` applies to a run (its ``metrics.json`` and ``meta.json``).
+
+    Not applicable (shown ``n/a``, marking nothing):
+
+    * a value the metrics give as null (e.g. ``apparent_mass_hand_kg`` when the fit was rejected; the reason is
+      in ``apparent_mass_hand_note``) or a key the run does not have;
+    * the wall rows (every ``wall_*`` key: stiffness and damping commanded and rendered, penetration, energy
+      returned, bounces, contacts) of a run whose controller renders no wall (:func:`renders_wall`): there is no
+      wall to render, and the hand's excursion past a plane the variant does not know is no penetration;
+    * a per-level row (``hqp_levels.I.*``) of a level the controller does not have.
+
+    Per-level rows of stacks whose level I holds different tasks are not comparable either: that needs the
+    other runs, and :func:`comparison_rows` checks it.
+    """
+    value = metrics.get(key) if key in metrics else flat_metrics(metrics).get(key)
+    if value is None:
+        return False
+    if key.startswith("wall_") and not renders_wall(meta):
+        return False
+    if key.startswith("hqp_levels."):
+        sig = _level_signature(meta, int(key.split(".")[1]))
+        if sig == ():
+            return False
+    return True
+
+
+def comparison_rows(labels: Sequence[str], metrics: Sequence[Mapping], metas: Sequence[Mapping] | None = None
+                    ) -> list[dict]:
     """One row per metric key present in any run: ``key``, ``unit``, one value per label and ``best`` (a label or
-    empty).  Known keys come in :data:`sim.analysis.metrics.METRICS` order, per-cuff and per-level keys after them."""
+    empty).  Known keys come in :data:`sim.analysis.metrics.METRICS` order, per-cuff and per-level keys after them.
+
+    With the runs' ``metas`` (``meta.json``), a value that does not apply to its run (:func:`is_applicable`) is
+    None (``n/a``), and a per-level row is None for every run when the runs' stacks hold different tasks at
+    that level. Timing rows (:func:`sim.analysis.metrics.is_timing_key`) never have a ``best``. Text notes
+    (keys ending in ``_note``) are left out: the reports print them below their tables.
+    """
     flats = [flat_metrics(m) for m in metrics]
+    metas = list(metas) if metas is not None else [None] * len(flats)
     keys = [k for k in METRICS if any(k in f for f in flats)]
-    keys += [k for k in dict.fromkeys(k for f in flats for k in f) if k not in METRICS]
+    keys += [k for k in dict.fromkeys(k for f in flats for k in f) if k not in METRICS and not k.endswith("_note")]
     rows = []
     for k in keys:
         unit, better, _ = key_info(k)
-        values = [f.get(k) for f in flats]
+        values = [f.get(k) if meta is None or is_applicable(k, f, meta) else None for f, meta in zip(flats, metas)]
+        if k.startswith("hqp_levels."):
+            sigs = {_level_signature(meta, int(k.split(".")[1])) for meta, v in zip(metas, values) if v is not None}
+            if len(sigs) > 1:  # level I is not the same level in every stack: no side by side
+                values = [None] * len(values)
         ref = METRICS[k].reference if k in METRICS else None
-        b = best_index(values, better, [f.get(ref) for f in flats] if ref else None)
+        b = None if is_timing_key(k) else best_index(values, better, [f.get(ref) for f in flats] if ref else None)
         rows.append({"key": k, "unit": unit, **dict(zip(labels, values)), "best": labels[b] if b is not None else ""})
     return rows
 
@@ -178,6 +327,112 @@ def _wall_series(run, spec: Mapping) -> tuple[np.ndarray, np.ndarray]:
     return wall_normal_series(run.arrays | cuff_columns(run), spec["point_m"], spec["normal"], hand)
 
 
+def _value_text(v) -> str:
+    """A task parameter as text: numbers by :func:`fmt`, lists in brackets."""
+    if isinstance(v, float):
+        return fmt(v)
+    if isinstance(v, list):
+        return "[" + ", ".join(_value_text(x) for x in v) + "]"
+    if isinstance(v, Mapping):
+        return "{" + ", ".join(f"{k}: {_value_text(x)}" for k, x in v.items()) + "}"
+    return str(v)
+
+
+def _params_text(params: Mapping | None) -> str:
+    return ", ".join(f"{k} = {_value_text(v)}" for k, v in (params or {}).items()) or "—"
+
+
+def _level_label(level: Mapping) -> str:
+    return ", ".join(str(t.get("name")) for t in level.get("tasks") or [])
+
+
+def _stack_text(structure: Mapping | None) -> str:
+    """``[a, b] > [c] > [d]`` for a stack of levels; the class and its description for a controller without."""
+    if structure is None:
+        return "not recorded (a run from before meta.json held the controller's structure)"
+    levels = structure.get("levels") or []
+    if not levels:
+        return f"{structure.get('type')}: {structure.get('description') or 'no priority levels'}"
+    return " > ".join(f"[{_level_label(level)}]" for level in levels)
+
+
+def controller_section(meta: Mapping, metrics: Mapping, arrays: Mapping[str, np.ndarray]) -> list[str]:
+    """The "Controller" section of a run report (Markdown lines, without the timeline figure): the levels and
+    their tasks in priority order with their parameters, then per level the share of ticks it was active,
+    binding and solved by the QP backend (:func:`sim.analysis.levels.level_activity`) with its solve times."""
+    structure = _structure(meta)
+    text = ["## Controller", ""]
+    if structure is None:
+        return text + ["The controller's structure is not recorded in this run's meta.json.", ""]
+    levels = structure.get("levels") or []
+    head = f"`{structure.get('name', meta.get('controller'))}` ({structure.get('type')})"
+    if not levels:
+        return text + [f"{head}: {structure.get('description') or 'no priority levels'}. It has no priority "
+                       "levels: it computes its torque directly.", ""]
+    text += [f"{head}: {len(levels)} priority levels, the highest first. A level below can use only the "
+             "freedom the levels above leave; the tasks of one level combine by their weights.", "",
+             markdown_table(["level", "task", "type", "kind", "weight", "parameters"],
+                            [[str(level.get("level", i)), str(t.get("name")), str(t.get("type")), str(t.get("kind")),
+                              _value_text(t.get("weight")), _params_text(t.get("params"))]
+                             for i, level in enumerate(levels) for t in level.get("tasks") or []]), ""]
+    activity = level_activity(arrays)
+    times = {d.get("level"): d for d in metrics.get("hqp_levels") or [] if isinstance(d, Mapping)}
+    if not activity:
+        return text + ["This run has no per-level diagnostics (it was logged before they were).", ""]
+    n_ticks = len(np.asarray(arrays["t"])) if "t" in arrays else activity[0].solved_ticks
+
+    def pct(x):
+        return "n/a" if x is None else fmt(100.0 * x)
+
+    rows = []
+    for a in activity:
+        label = _level_label(levels[a.level]) if a.level < len(levels) else ""
+        tm = times.get(a.level, {})
+        rows.append([str(a.level), label, pct(a.share("active")), pct(a.share("binding")), pct(a.share("qp")),
+                     fmt(tm.get("solve_median_us")), fmt(tm.get("solve_p99_us"))])
+    text += [f"Per level over the {activity[0].solved_ticks} solved ticks (of {n_ticks}; a fallback tick solves "
+             "nothing): the share of ticks on which it had rows (active), was binding (an equality row not met, "
+             f"or an inequality row at its bound, within {fmt(structure.get('binding_tol'))} relative to the "
+             "row's right-hand side) and was solved by the QP backend, and its solve time.", "",
+             markdown_table(["level", "tasks", "active [%]", "binding [%]", "QP backend [%]",
+                             "solve median [us]", "solve p99 [us]"], rows), "",
+             *[f"- {x}" for x in _activity_sentences(activity, levels)], "",
+             "Why this matters: a level the compiled solve cannot finish goes to the QP backend, whose solve "
+             "time is longer and varies from tick to tick, so those ticks set the 99th-percentile tick time. A "
+             "level that is often binding is one the controller cannot meet because of the levels above it "
+             "(or, for limits, one whose bound holds back every level below): its task is met only as far as "
+             "the higher priorities allow.", ""]
+    return text
+
+
+def _activity_sentences(activity, levels: Sequence[Mapping]) -> list[str]:
+    """One sentence per level worth a word: binding on most solved ticks, or ever sent to the QP backend."""
+    out = []
+    for a in activity:
+        name = f"Level {a.level} ({_level_label(levels[a.level])})" if a.level < len(levels) else f"Level {a.level}"
+        binding, qp = a.share("binding") or 0.0, a.share("qp") or 0.0
+        if binding >= 0.5:
+            out.append(f"{name} is binding on {fmt(100 * binding)} % of the solved ticks: the levels above it "
+                       "(or its own bounds) decide those ticks, not its task.")
+        if qp > 0:
+            out.append(f"{name} went to the QP backend on {fmt(100 * qp)} % of the solved ticks "
+                       f"({int(np.count_nonzero(a.qp))} ticks): those ticks' solve times set the 99th percentile.")
+    return out or ["No level is binding on most ticks, and none went to the QP backend."]
+
+
+def _timeline(run, meta: Mapping, folder: Path) -> list[Path]:
+    """The level timeline figure of a run with per-level diagnostics (none without them)."""
+    activity = level_activity(run.arrays)
+    structure = _structure(meta)
+    if not activity:
+        return []
+    levels = (structure or {}).get("levels") or []
+    lanes = [(f"{a.level}: {_level_label(levels[a.level])}" if a.level < len(levels) else str(a.level),
+              a.active, a.binding, a.qp) for a in activity]
+    return [plots.level_timeline(np.asarray(run["t"]), lanes, folder / "plots" / "level_timeline.png",
+                                 title=f"{meta['scenario']} / {meta['controller']}: priority levels over time")]
+
+
 def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run: Run | None = None) -> Path:
     """``report.md`` and ``plots/*.png`` of one coupled run folder: key metrics, force plots, cautions.
 
@@ -201,12 +456,21 @@ def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run:
         figs.append(plots.force_against_penetration({meta["controller"]: (pen, felt)},
                                                     folder / "plots" / "wall_force_penetration.png",
                                                     commanded_N_per_m=m.get("wall_stiffness_commanded_N_per_m")))
+    timeline = _timeline(run, meta, folder)
     flat = flat_metrics(m)
-    rows = [[k, key_info(k)[0], fmt(v), key_info(k)[2]] for k, v in flat.items()]
+    rows = [[k, key_info(k)[0], fmt(v) if is_applicable(k, flat, meta) else "n/a", key_info(k)[2]]
+            for k, v in flat.items() if not k.endswith("_note")]
+    notes = [f"{key_info(k[:-5] + '_kg')[2] or k}: n/a, {v}" if k == "apparent_mass_hand_note" else f"{k}: {v}"
+             for k, v in flat.items() if k.endswith("_note") and v]
+    if not renders_wall(meta) and any(k.startswith("wall_") for k in flat):
+        notes.append("The wall rows are n/a: this controller renders no wall.")
     text = [f"# Run report: {meta['scenario']} / {meta['controller']} / seed {meta['seed']}", "",
             f"Status: {meta.get('status', 'unknown')}, {fmt(m.get('sim_duration_s'))} s simulated at "
-            f"{1.0 / float(meta['dt_s']):g} Hz control, {meta['substeps']} physics substeps.", "", CAUTION, "",
-            "## Metrics", "", markdown_table(["key", "unit", "value", "meaning"], rows), "", "## Plots", ""]
+            f"{1.0 / float(meta['dt_s']):g} Hz control, {meta['substeps']} physics substeps.", "", CAUTION, ""]
+    text += controller_section(meta, m, run.arrays)
+    text += [f"![{p.stem}](plots/{p.name})" for p in timeline] + ([""] if timeline else [])
+    text += ["## Metrics", "", markdown_table(["key", "unit", "value", "meaning"], rows), ""]
+    text += [f"- {n}" for n in notes] + ([""] if notes else []) + [TIMING_NOTE, "", "## Plots", ""]
     text += [f"![{p.stem}](plots/{p.name})" for p in figs]
     out = folder / "report.md"
     out.write_text("\n".join(text) + "\n", encoding="utf-8")
@@ -232,7 +496,7 @@ def compare_runs(run_dirs: Sequence[str | Path], out_dir: str | Path, labels: Se
     labels = list(labels)
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
-    rows = comparison_rows(labels, [r.metrics for r in runs])
+    rows = comparison_rows(labels, [r.metrics for r in runs], [r.meta for r in runs])
     write_csv(out / "compare.csv", rows)
     figs = []
     figs.append(plots.force_over_time(
@@ -260,12 +524,75 @@ def compare_runs(run_dirs: Sequence[str | Path], out_dir: str | Path, labels: Se
     text = ["# Comparison: " + ", ".join(labels), "",
             f"Scenario(s): {', '.join(scen)}. Runs: " + ", ".join(f"`{Path(d).name}`" for d in run_dirs) + ".", "",
             "The better value of each row is in bold (lower, higher, closest to zero or one, or closest to the "
-            "commanded wall stiffness, as the metric calls for; timing rows depend on this machine).", "",
-            CAUTION, "", markdown_table(header, _marked(rows, labels, "md")), "", "## Plots", ""]
+            "commanded wall stiffness, as the metric calls for). n/a: the row does not apply to that variant "
+            "(the wall rows of a variant that renders no wall; a per-level row where the variants' levels hold "
+            "different tasks, see below) or the run gave no value; such a row marks nothing. " + TIMING_NOTE, "",
+            CAUTION, "", markdown_table(header, _marked(rows, labels, "md")), ""]
+    notes = [f"`{lab}`: felt mass at the hand n/a, {r.metrics['apparent_mass_hand_note']}"
+             for lab, r in zip(labels, runs) if r.metrics.get("apparent_mass_hand_note")]
+    text += [f"- {n}" for n in notes] + ([""] if notes else [])
+    text += variant_differences(labels, [r.meta for r in runs], [r.metrics for r in runs])
+    text += ["## Plots", ""]
     text += [f"![{p.stem}](plots/{p.name})" for p in figs]
     md = out / "compare.md"
     md.write_text("\n".join(text) + "\n", encoding="utf-8")
     return rows, labels, md
+
+
+def variant_differences(labels: Sequence[str], metas: Sequence[Mapping], metrics: Sequence[Mapping] | None = None
+                        ) -> list[str]:
+    """The "What differs between the variants" section of a comparison (Markdown lines), from each run's
+    ``controller_structure`` (``meta.json``): each variant's levels, the tasks only some variants have, the task
+    parameters (and level and weight) that differ between the variants that share a task, and each variant's
+    per-level solve times with the tasks of each level (the main table leaves them n/a where the levels
+    differ). Tasks are matched by name (the k-th task of a name with the k-th of the same name)."""
+    text = ["## What differs between the variants", ""]
+    structures = [_structure(m) for m in metas]
+    text += [f"- `{lab}`: {_stack_text(s)}" for lab, s in zip(labels, structures)] + [""]
+    tasks: dict[tuple[str, int], dict[str, dict]] = {}  # (name, k) -> label -> {"level", "weight", params...}
+    for lab, s in zip(labels, structures):
+        seen: dict[str, int] = {}
+        for i, level in enumerate((s or {}).get("levels") or []):
+            for t in level.get("tasks") or []:
+                name = str(t.get("name"))
+                k = seen[name] = seen.get(name, -1) + 1
+                tasks.setdefault((name, k), {})[lab] = {"type": t.get("type"), "level": level.get("level", i),
+                                                         "weight": t.get("weight"), **(t.get("params") or {})}
+    def task_name(name: str, k: int) -> str:
+        return name if k == 0 else f"{name} #{k + 1}"
+
+    partial = [(task_name(*key), [lab for lab in labels if lab in by]) for key, by in tasks.items()
+               if 0 < len(by) < len(labels)]
+    if partial:
+        text += ["Tasks not in every variant:", ""]
+        text += [f"- {name}: only in " + ", ".join(f"`{lab}`" for lab in have) for name, have in partial] + [""]
+    diff_rows = []
+    for key, by in tasks.items():
+        if len(by) < 2:
+            continue
+        have = [lab for lab in labels if lab in by]
+        for p in dict.fromkeys(q for lab in have for q in by[lab]):
+            values = [by[lab].get(p) for lab in have]
+            if any(v != values[0] for v in values[1:]):
+                diff_rows.append([task_name(*key), p] + [_value_text(by[lab][p]) if lab in by and p in by[lab]
+                                                         else "—" for lab in labels])
+    if diff_rows:
+        text += ["Task settings that differ between the variants that have the task (— : the variant does not "
+                 "have it):", "", markdown_table(["task", "setting", *labels], diff_rows), ""]
+    elif len([s for s in structures if s and s.get("levels")]) > 1:
+        text += ["The tasks the variants share have the same level, weight and parameters in each.", ""]
+    if metrics is not None:
+        rows = []
+        for lab, s, m in zip(labels, structures, metrics):
+            levels = (s or {}).get("levels") or []
+            for d in m.get("hqp_levels") or []:
+                i = d.get("level")
+                name = _level_label(levels[i]) if isinstance(i, int) and i < len(levels) else ""
+                rows.append([lab, str(i), name, fmt(d.get("solve_median_us")), fmt(d.get("solve_p99_us"))])
+        if rows:
+            text += ["Per-level solve times, each level with its tasks (timing: this machine):", "",
+                     markdown_table(["variant", "level", "tasks", "median [us]", "p99 [us]"], rows), ""]
+    return text
 
 
 def headline(summary: Sequence[Mapping], key: str = "interaction_force_rms_N") -> list[str]:
@@ -273,24 +600,35 @@ def headline(summary: Sequence[Mapping], key: str = "interaction_force_rms_N") -
 
     Controllers that share the best mean (e.g. a wall variant in a scenario
     without wall contact gives the same torques as the variant without the
-    wall) are said to be level, and each is then compared with the others.
+    wall) are said to be level, and each is then compared with the others;
+    when every controller has the same mean, they are all said to be level.
+    A timing key (:func:`sim.analysis.metrics.is_timing_key`) has no verdict:
+    it measures the machine. Means and spreads are printed by :func:`fmt_stat`.
     """
+    if is_timing_key(key):
+        return []
     info = METRICS[key]
     overall = [r for r in summary if r["subject"] == "all" and r.get(f"{key}_mean") is not None]
     if len(overall) < 2:
         return []
-    top = best_indices([r[f"{key}_mean"] for r in overall], info.better,
+    means = [r[f"{key}_mean"] for r in overall]
+    top = best_indices(means, info.better,
                        [r.get(f"{info.reference}_mean") for r in overall] if info.reference else None)
+    if not top and len(set(means)) == 1:  # every one the same: all level
+        top = tuple(range(len(overall)))
     bests = [overall[i] for i in top]
 
     def stat(r: Mapping) -> str:
-        return f"{fmt(r[f'{key}_mean'])} ± {fmt(r[f'{key}_std'], 2)} {info.unit}"
+        return fmt_stat(r[f"{key}_mean"], r.get(f"{key}_std"), info.unit)
+
+    def listed(items) -> str:
+        items = list(items)
+        return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " and " + items[-1]
 
     out = []
     if len(bests) > 1:
-        out.append(" and ".join(f"`{r['controller']}`" for r in bests) + f" are level on {info.label}: "
-                   + " and ".join(stat(r) for r in bests) + ", over "
-                   + " and ".join(str(r["n_ok"]) for r in bests) + " runs.")
+        out.append(listed(f"`{r['controller']}`" for r in bests) + f" are level on {info.label}: "
+                   + listed(stat(r) for r in bests) + ", over " + listed(str(r["n_ok"]) for r in bests) + " runs.")
     for best in bests:
         for i, r in enumerate(overall):
             if i in top:
@@ -318,12 +656,12 @@ def sweep_verdicts(summary: Sequence[Mapping]) -> dict[str, list[str]]:
     With a wall in the scenario, transparency is judged on
     ``interaction_force_free_rms_N`` (the hand outside the wall, the same ticks
     for every variant): inside, the force is the wall itself, which a wall
-    variant renders on purpose and a variant without it does not.  Without a
-    wall, on ``interaction_force_rms_N``.
+    variant renders on purpose and a variant without it does not; variants
+    that tie on it are said to be level on it (never judged on the whole-run
+    force instead).  Without a wall, on ``interaction_force_rms_N``.
     """
     walled = has_wall(summary)
-    out = {"Which is more transparent": (headline(summary, transparency_key(summary)) if walled else [])
-           or headline(summary)}
+    out = {"Which is more transparent": headline(summary, transparency_key(summary))}
     if walled:
         out["Which renders the wall closest to its commanded stiffness"] = headline(
             summary, "wall_stiffness_rendered_N_per_m")
@@ -331,10 +669,13 @@ def sweep_verdicts(summary: Sequence[Mapping]) -> dict[str, list[str]]:
 
 
 def summary_cells(summary: Sequence[Mapping], keys: Sequence[str]) -> tuple[list[str], list[list[str]]]:
-    """Header and text cells of a sweep summary: ``mean ± std`` per key; the better overall mean in bold."""
+    """Header and text cells of a sweep summary: ``mean ± std`` per key (:func:`fmt_stat`: no "± 0"); the better
+    mean per subject group in bold, except on timing keys (they measure the machine)."""
     header = ["controller", "subject", "runs ok", "failed"] + [f"{k} [{METRICS[k].unit}]" for k in keys]
     best = {}
     for k in keys:
+        if is_timing_key(k):
+            continue
         for subject in dict.fromkeys(r["subject"] for r in summary):
             group = [r for r in summary if r["subject"] == subject]
             ref = METRICS[k].reference
@@ -346,8 +687,7 @@ def summary_cells(summary: Sequence[Mapping], keys: Sequence[str]) -> tuple[list
     for r in summary:
         cells = [r["controller"], r["subject"], str(r["n_ok"]), str(r["n_failed"])]
         for k in keys:
-            m, s = r.get(f"{k}_mean"), r.get(f"{k}_std")
-            c = "n/a" if m is None else f"{fmt(m)} ± {fmt(s, 2)}"
+            c = fmt_stat(r.get(f"{k}_mean"), r.get(f"{k}_std"))
             if best.get((k, r["subject"])) == r["controller"]:
                 c = f"**{c}**"
             cells.append(c)
@@ -400,7 +740,9 @@ def write_sweep_report(result, settings: Mapping) -> Path:
     for question, lines in sweep_verdicts(summary).items():
         text += [f"## {question}", ""] + [f"- {s}" for s in lines] + [""]
     text += ["## Summary (mean ± standard deviation; subject 'all' pools every subject and seed)", "",
-             "The better value per subject group is in bold.", "", markdown_table(header, cells), ""]
+             "The better value per subject group is in bold. A value without ± is one run's, or the same in every "
+             "run; n/a: the metric does not apply to the variant (e.g. the wall rows of a variant that renders "
+             "no wall) or no run gave it. " + TIMING_NOTE, "", markdown_table(header, cells), ""]
     if failed:
         text += ["## Failed runs", ""] + [f"- `{r.case.label}`: {r.error}" for r in failed] + [""]
     text += ["## Plots", ""] + [f"![{p.stem}](plots/{p.name})" for p in figs]
@@ -452,7 +794,7 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
         for i, c in enumerate(controllers):
             v = values[i]
             cell = ("—" if c not in overall else "every run failed" if not overall[c]["n_ok"]
-                    else "n/a" if v is None else f"{fmt(v)} ± {fmt(overall[c].get(f'{key}_std'), 2)}")
+                    else "n/a" if v is None else fmt_stat(v, overall[c].get(f"{key}_std")))
             row.append(f"**{cell}**" if i in top else cell)
         across.append(row)
     force = METRICS["interaction_force_rms_N"]
@@ -471,7 +813,7 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
             "standard deviation over every subject and seed; in a scenario with a wall, over the ticks with the "
             "hand outside it (`interaction_force_free_rms_N`), since inside it the force is the wall a variant "
             "renders on purpose. The better value per scenario is in bold (each of those level at the top); — : not "
-            "run in that scenario.", "",
+            "run in that scenario; a value without ± is one run's, or the same in every run.", "",
             markdown_table(["scenario", "ticks", *controllers], across), "", f"![{fig.stem}](plots/{fig.name})", "",
             "## Scenario by scenario", ""]
     for name, part in parts:
@@ -480,8 +822,7 @@ def write_sweeps_report(result, settings: Mapping, parts: Sequence[tuple[str, ob
         for question, lines in verdicts.items():
             text += [f"{question}:", ""] + [f"- {s}" for s in lines] + [""]
         if not verdicts:
-            text += ["No verdict: the variants are level (equal means) on every question, or fewer than two have "
-                     "the figures.", ""]
+            text += ["No verdict: fewer than two variants have the figures.", ""]
     if failed:
         text += ["## Failed runs", ""] + [f"- `{r.case.label}`: {r.error}" for r in failed] + [""]
     text += ["Every run's metrics: `runs.csv`; every summary row: `summary.csv`; each scenario's tables, plots and "
