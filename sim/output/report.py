@@ -264,7 +264,8 @@ def comparison_rows(labels: Sequence[str], metrics: Sequence[Mapping], metas: Se
     flats = [flat_metrics(m) for m in metrics]
     metas = list(metas) if metas is not None else [None] * len(flats)
     keys = [k for k in METRICS if any(k in f for f in flats)]
-    keys += [k for k in dict.fromkeys(k for f in flats for k in f) if k not in METRICS and not k.endswith("_note")]
+    keys += [k for k in dict.fromkeys(k for f in flats for k in f) if k not in METRICS]
+    keys = [k for k in keys if not k.endswith("_note")]
     rows = []
     for k in keys:
         unit, better, _ = key_info(k)
