@@ -412,12 +412,19 @@ def _activity_sentences(activity, levels: Sequence[Mapping]) -> list[str]:
     for a in activity:
         name = f"Level {a.level} ({_level_label(levels[a.level])})" if a.level < len(levels) else f"Level {a.level}"
         binding, qp = a.share("binding") or 0.0, a.share("qp") or 0.0
-        if binding >= 0.5:
-            out.append(f"{name} is binding on {fmt(100 * binding)} % of the solved ticks: the levels above it "
-                       "(or its own bounds) decide those ticks, not its task.")
+        kinds = {t.get("kind") for t in levels[a.level].get("tasks", [])} if a.level < len(levels) else set()
+        if binding >= 0.5 and kinds == {"ineq"}:
+            out.append(f"{name} has a bound reached on {fmt(100 * binding)} % of the solved ticks: there it holds "
+                       "back the levels below.")
+        elif binding >= 0.5:
+            above = "the levels above it decide" if a.level > 0 else "its own rows conflict on"
+            out.append(f"{name} is not met exactly on {fmt(100 * binding)} % of the solved ticks: {above} those "
+                       "ticks, not its task.")
         if qp > 0:
-            out.append(f"{name} went to the QP backend on {fmt(100 * qp)} % of the solved ticks "
-                       f"({int(np.count_nonzero(a.qp))} ticks): those ticks' solve times set the 99th percentile.")
+            n = int(np.count_nonzero(a.qp))
+            out.append(f"{name} went to the QP backend on {fmt(100 * qp)} % of the solved ticks ({n} "
+                       f"{'tick' if n == 1 else 'ticks'}): those are among the slowest ticks, which set the 99th "
+                       "percentile.")
     return out or ["No level is binding on most ticks, and none went to the QP backend."]
 
 
