@@ -19,8 +19,8 @@ joint_torque.png           commanded (and applied) torque per joint against     
 wall_force_penetration.png wall-normal force against penetration                the scenario has a plane wall
 felt_mass_fit.png          force against acceleration along the movement and    a movement to fit (50 moving ticks)
                            the fitted line whose slope is the felt mass
-limit_phase.png            velocity against angle of the joint nearest its      a robot joint comes within
-                           stop, the stop and the limit task's braking curve    :data:`LIMIT_APPROACH_RAD` of a stop
+limit_phase.png            velocity against angle of each joint near its stop,  a robot joint comes within
+                           the stop and the limit task's braking curve          :data:`LIMIT_APPROACH_RAD` of a stop
 ========================== ==================================================== =====================================
 
 A comparison draws the force over time of every run, the joint angles, hand
@@ -127,19 +127,17 @@ def hand_views(paths: Sequence[np.ndarray], walls: Sequence[Mapping] = ()) -> li
     return [tuple(sorted((order[0], order[1]))), tuple(sorted((order[0], order[2])))]
 
 
-def limit_approach(q: np.ndarray, lower: np.ndarray, upper: np.ndarray) -> tuple[int, bool, float] | None:
-    """The joint that comes closest to a stop: (index, True for the upper stop, closest distance [rad]), or None
-    when no joint comes within :data:`LIMIT_APPROACH_RAD` (a distance past the stop is negative)."""
+def limit_approach(q: np.ndarray, lower: np.ndarray, upper: np.ndarray) -> list[tuple[int, bool, float]]:
+    """The joints that come within :data:`LIMIT_APPROACH_RAD` of a stop, closest first: (index, True for the
+    upper stop, closest distance [rad]; negative past the stop)."""
     q = np.asarray(q, float)
     if not len(q):
-        return None
+        return []
     lo, hi = np.asarray(lower, float), np.asarray(upper, float)
-    d_hi, d_lo = np.min(hi - q, axis=0), np.min(q - lo, axis=0)
-    d_hi = np.where(np.isfinite(hi), d_hi, np.inf)
-    d_lo = np.where(np.isfinite(lo), d_lo, np.inf)
-    j = int(np.argmin(np.minimum(d_hi, d_lo)))
-    dist = float(min(d_hi[j], d_lo[j]))
-    return (j, bool(d_hi[j] <= d_lo[j]), dist) if dist < LIMIT_APPROACH_RAD else None
+    d_hi = np.where(np.isfinite(hi), np.min(hi - q, axis=0), np.inf)
+    d_lo = np.where(np.isfinite(lo), np.min(q - lo, axis=0), np.inf)
+    found = [(j, bool(d_hi[j] <= d_lo[j]), float(min(d_hi[j], d_lo[j]))) for j in range(q.shape[1])]
+    return sorted((f for f in found if f[2] < LIMIT_APPROACH_RAD), key=lambda f: f[2])
 
 
 def position_limit_task(meta: Mapping) -> tuple[float, float, str] | None:
@@ -276,35 +274,53 @@ def run_figure_plan(run: Run, metrics: Mapping | None = None) -> dict[str, str]:
     return skipped
 
 
-def _phase_series(run: Run, arm) -> tuple[int, bool, float, float] | None:
-    """(joint, upper, stop [rad], closest distance [rad]) of a run's limit approach, or None."""
-    if arm is None or "q_exo" not in run.arrays:
+def _near_stops(runs: Sequence[Run], arm) -> list[tuple[int, bool, float]]:
+    """The robot joints that come near a stop in any of ``runs`` (:func:`limit_approach`), each once, closest
+    first."""
+    if arm is None:
+        return []
+    lo, hi = arm.position_limits()
+    best: dict[int, tuple[int, bool, float]] = {}
+    for r in runs:
+        if "q_exo" in r.arrays:
+            for j, up, d in limit_approach(r["q_exo"], lo, hi):
+                if j not in best or d < best[j][2]:
+                    best[j] = (j, up, d)
+    return sorted(best.values(), key=lambda f: f[2])
+
+
+def _draw_limit_phase(runs: Mapping[str, Run], arm, path: Path, *, title: str) -> Path | None:
+    """The phase plot of every robot joint near a stop (one panel each, one line per run), or None if none is."""
+    near = _near_stops(list(runs.values()), arm)
+    if not near:
         return None
     lo, hi = arm.position_limits()
-    found = limit_approach(run["q_exo"], lo, hi)
-    if found is None:
-        return None
-    j, upper, dist = found
-    return j, upper, float(hi[j] if upper else lo[j]), dist
-
-
-def _draw_limit_phase(series: Mapping[str, tuple[np.ndarray, np.ndarray]], path: Path, *, title: str, joint: int,
-                      upper: bool, stop: float, task: tuple[float, float, str] | None, joint_name: str,
-                      arm) -> Path:
-    q_from = min(float(np.min(q)) for q, _ in series.values()) if upper else max(
-        float(np.max(q)) for q, _ in series.values())
-    braking = label = margin = None
+    meta = next(iter(runs.values())).meta
+    tasks = {lab: position_limit_task(r.meta) for lab, r in runs.items()}
+    task = next((tk for tk in tasks.values() if tk is not None), None)
+    names = meta.get("exo_joints") or []
+    panels = []
+    for j, upper, _ in near:
+        series = {lab: (r["q_exo"][:, j], r["dq_exo"][:, j]) for lab, r in runs.items()}
+        stop = float(hi[j] if upper else lo[j])
+        panel = {"joint": "robot " + (joint_label(names[j]) if j < len(names) else f"joint {j}"), "series": series,
+                 "stop_rad": stop, "upper": upper, "velocity_limit_rad_s": float(arm.model.velocityLimit[j])}
+        if task is not None:
+            a, margin, _ = task
+            q_from = min(float(np.min(q)) for q, _ in series.values()) if upper else max(
+                float(np.max(q)) for q, _ in series.values())
+            panel |= {"braking": braking_curve(stop, margin, a, q_from, upper=upper), "margin_rad": margin,
+                      "braking_label": f"braking curve of the limit task, a = {a:g} rad/s²"}
+        panels.append(panel)
     if task is not None:
         a, margin, source = task
-        braking = braking_curve(stop, margin, a, q_from, upper=upper)
-        label = f"braking curve, {a:g} rad/s²"
+        users = [lab for lab, tk in tasks.items() if tk is not None]
         note = (f"Braking curve: the largest velocity from which the position-limit task stops at the stop less its "
-                f"margin of {math.degrees(margin):.2g} deg, v = √(2 a d), a = {a:g} rad/s² ({source}).")
+                f"margin of {math.degrees(margin):.2g} deg, v = √(2 a d), a = {a:g} rad/s² ({source})"
+                + (f"; in {', '.join(users)} only." if len(users) < len(tasks) else "."))
     else:
-        note = "The controller has no position-limit task: no braking curve."
-    return plots.limit_phase(series, path, title=title, stop_rad=stop, braking=braking,
-                             braking_label=label or "braking curve", margin_rad=margin, joint_label=joint_name,
-                             velocity_limit_rad_s=float(arm.model.velocityLimit[joint]), note=note)
+        note = "No controller here has a position-limit task: no braking curve."
+    return plots.limit_phase(panels, path, title=title, note=note)
 
 
 def run_figures(run: Run, metrics: Mapping | None, folder: str | Path) -> list[Path]:
@@ -388,14 +404,11 @@ def run_figures(run: Run, metrics: Mapping | None, folder: str | Path) -> list[P
         figs.append(plots.mass_scatter({meta["controller"]: _mass_fit(run, metrics)}, out / "felt_mass_fit.png",
                                        title=_title(meta, "felt mass at the hand: force against acceleration")))
 
-    phase = _phase_series(run, arm) if "limit_phase" not in skipped else None
-    if phase is not None:
-        j, upper, stop, _ = phase
-        name = joint_label((meta.get("exo_joints") or [f"joint {j}"] * (j + 1))[j])
-        figs.append(_draw_limit_phase({meta["controller"]: (run["q_exo"][:, j], run["dq_exo"][:, j])},
-                                      out / "limit_phase.png", joint=j, upper=upper, stop=stop,
-                                      task=position_limit_task(meta), joint_name=f"robot {name}", arm=arm,
-                                      title=_title(meta, f"robot {name} near its stop: velocity against angle")))
+    if "limit_phase" not in skipped:
+        png = _draw_limit_phase({meta["controller"]: run}, arm, out / "limit_phase.png",
+                                title=_title(meta, "robot joints near a stop, velocity against angle"))
+        if png is not None:
+            figs.append(png)
     return figs
 
 
@@ -469,18 +482,10 @@ def compare_figures(runs: Sequence[Run], labels: Sequence[str], out_dir: str | P
                                        title="felt mass at the hand: force against acceleration along the movement"))
 
     if same and runs:
-        arm = _arm(runs[0])
-        found = [_phase_series(r, arm) for r in runs]
-        near = [f for f in found if f is not None]
-        if near:
-            j, upper, stop, _ = min(near, key=lambda f: f[3])
-            name = joint_label((runs[0].meta.get("exo_joints") or [f"joint {j}"] * (j + 1))[j])
-            series = {lab: (r["q_exo"][:, j], r["dq_exo"][:, j]) for lab, r in zip(labels, runs)}
-            tasks = [position_limit_task(r.meta) for r in runs]
-            task = next((tk for tk in tasks if tk is not None), None)
-            figs.append(_draw_limit_phase(series, out / "limit_phase.png", joint=j, upper=upper, stop=stop, task=task,
-                                          joint_name=f"robot {name}", arm=arm,
-                                          title=f"{scen}: robot {name} near its stop, velocity against angle"))
+        png = _draw_limit_phase(dict(zip(labels, runs)), _arm(runs[0]), out / "limit_phase.png",
+                                title=f"{scen}: robot joints near a stop with each controller, velocity against angle")
+        if png is not None:
+            figs.append(png)
 
     solve = {}
     for lab, r in zip(labels, runs):

@@ -477,51 +477,60 @@ def mass_scatter(fits: Mapping[str, object], path: Path, *, title: str, max_poin
 
 
 @_styled
-def limit_phase(series: Mapping[str, tuple[np.ndarray, np.ndarray]], path: Path, *, title: str, stop_rad: float,
-                braking: tuple[np.ndarray, np.ndarray] | None = None, braking_label: str = "braking curve",
-                margin_rad: float | None = None, joint_label: str = "joint", velocity_limit_rad_s: float | None = None,
-                note: str | None = None) -> Path:
-    """Phase plot of one joint: velocity [deg/s] against angle [deg] per label ``(q [rad], dq [rad/s])``.
+def limit_phase(panels: Sequence[Mapping], path: Path, *, title: str, note: str | None = None) -> Path:
+    """Phase plots of joints near a stop: velocity [deg/s] against angle [deg], one panel per joint.
 
-    The stop ``stop_rad`` is a vertical line with its far side shaded;
-    ``margin_rad`` (the limit task's margin) a dotted line at the stop minus
-    (or plus) it; ``braking`` ``(q [rad], dq [rad/s])`` the largest velocity
-    from which the limit task can still stop before the stop (its law is the
-    caller's, e.g. :func:`sim.output.figures.braking_curve`);
-    ``velocity_limit_rad_s`` dotted lines at plus and minus the joint's
-    velocity limit; ``note`` a line of text under the plot (e.g. where the
-    braking curve's parameters come from).
+    Each panel is a mapping with ``joint`` (its name), ``series`` (label ->
+    ``(q [rad], dq [rad/s])``), ``stop_rad``, ``upper`` (True for an upper
+    stop) and optionally ``margin_rad`` (the limit task's margin: a dotted
+    line that far inside the stop), ``braking`` ``(q [rad], dq [rad/s])`` (the
+    largest velocity from which the limit task can still stop short of the
+    stop; its law is the caller's, e.g. :func:`sim.output.figures.braking_curve`),
+    ``braking_label`` and ``velocity_limit_rad_s`` (dotted lines at plus and
+    minus it).  The far side of the stop is shaded.  ``note``: a line of text
+    under the panels (e.g. where the braking curve's parameters come from).
     """
     plt = _plt()
-    fig, ax = plt.subplots(figsize=(7, 5.0 if note else 4.8))
-    qs = [np.degrees(q) for q, _ in series.values()]
-    for i, (label, (q, dq)) in enumerate(series.items()):
-        ax.plot(np.degrees(q), np.degrees(dq), lw=1.2, color=PALETTE[i % len(PALETTE)], label=label)
-    if braking is not None:
-        ax.plot(np.degrees(braking[0]), np.degrees(braking[1]), "--", color="k", lw=1.2, label=braking_label)
-    ax.autoscale_view()
-    x0, x1 = ax.get_xlim()
-    stop = math.degrees(stop_rad)
-    upper = not qs or stop >= max(float(np.median(q)) for q in qs)
-    pad = 0.06 * (max(x1, stop) - min(x0, stop))
-    x0, x1 = min(x0, stop - pad), max(x1, stop + pad)
-    ax.axvline(stop, color=ROLE_COLOURS["limit"], lw=1.6, label="joint stop")
-    ax.axvspan(stop, x1, color=ROLE_COLOURS["limit fill"], lw=0, zorder=0) if upper else ax.axvspan(
-        x0, stop, color=ROLE_COLOURS["limit fill"], lw=0, zorder=0)
-    if margin_rad:
-        edge = stop - math.degrees(margin_rad) if upper else stop + math.degrees(margin_rad)
-        ax.axvline(edge, color=ROLE_COLOURS["limit"], lw=0.9, ls=":", label="stop less the task's margin")
-    ax.axhline(0.0, color="0.5", lw=0.7)
-    if velocity_limit_rad_s:
-        v = math.degrees(velocity_limit_rad_s)
-        ax.axhline(v, color="0.35", lw=0.9, ls=(0, (1, 2)), label="velocity limit of the joint")
-        ax.axhline(-v, color="0.35", lw=0.9, ls=(0, (1, 2)))
-    ax.set_xlim(x0, x1)
-    ax.set_xlabel(f"{joint_label} angle [deg]")
-    ax.set_ylabel(f"{joint_label} velocity [deg/s]")
-    ax.grid(True)
-    handles, labels = _handles(ax)
-    _frame(fig, title, handles=handles, labels=labels, left_in=0.85, bottom_in=0.75 if note else 0.5)
+    n = max(1, len(panels))
+    ncols = min(n, 2)
+    nrows = math.ceil(n / ncols)
+    fig, axes = plt.subplots(nrows, ncols, squeeze=False,
+                             figsize=(6.4 if ncols == 1 else 5.0 * ncols + 0.4, 3.6 * nrows + (1.5 if note else 1.3)))
+    axes = list(axes.ravel())
+    for ax in axes[len(panels):]:
+        ax.set_visible(False)
+    for ax, panel in zip(axes, panels):
+        for i, (label, (q, dq)) in enumerate(panel["series"].items()):
+            ax.plot(np.degrees(q), np.degrees(dq), lw=1.2, color=PALETTE[i % len(PALETTE)], label=label)
+        braking = panel.get("braking")
+        if braking is not None:
+            ax.plot(np.degrees(braking[0]), np.degrees(braking[1]), "--", color="k", lw=1.2,
+                    label=panel.get("braking_label", "braking curve"))
+        ax.autoscale_view()
+        x0, x1 = ax.get_xlim()
+        stop, upper = math.degrees(panel["stop_rad"]), bool(panel["upper"])
+        pad = 0.06 * (max(x1, stop) - min(x0, stop))
+        x0, x1 = min(x0, stop - pad), max(x1, stop + pad)
+        ax.axvline(stop, color=ROLE_COLOURS["limit"], lw=1.6, label="joint stop")
+        ax.axvspan(*((stop, x1) if upper else (x0, stop)), color=ROLE_COLOURS["limit fill"], lw=0, zorder=0)
+        margin = panel.get("margin_rad")
+        if margin:
+            edge = stop - math.degrees(margin) if upper else stop + math.degrees(margin)
+            ax.axvline(edge, color=ROLE_COLOURS["limit"], lw=0.9, ls=":", label="stop less the task's margin")
+        ax.axhline(0.0, color="0.5", lw=0.7)
+        vlim = panel.get("velocity_limit_rad_s")
+        if vlim:
+            v = math.degrees(vlim)
+            ax.axhline(v, color="0.35", lw=0.9, ls=(0, (1, 2)), label="velocity limit of the joint")
+            ax.axhline(-v, color="0.35", lw=0.9, ls=(0, (1, 2)))
+        ax.set_xlim(x0, x1)
+        ax.set_title(f"{panel['joint']} ({'upper' if upper else 'lower'} stop {stop:.4g} deg)", loc="left")
+        ax.set_xlabel("angle [deg]")
+        ax.set_ylabel("velocity [deg/s]")
+        ax.grid(True)
+    handles, labels = _handles(axes)
+    _frame(fig, title, handles=handles, labels=labels, left_in=0.85, bottom_in=0.8 if note else 0.5, hspace=0.45,
+           wspace=0.3)
     if note:
         fig.text(0.01, 0.01, wrap_title(note, fig.get_size_inches()[0] - 0.2, STYLE["tick"]), fontsize=STYLE["tick"],
                  va="bottom", ha="left", color="0.3")
