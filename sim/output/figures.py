@@ -365,6 +365,7 @@ def run_figures(run: Run, metrics: Mapping | None, folder: str | Path) -> list[P
                    "wearer alone (baseline run)": plots.ROLE_COLOURS["alone"]}
         figs.append(plots.joint_angles(series, names, out / "joint_angles.png", colours=colours,
                                        dashed=("intended (scripted target)",), note=note,
+                                       underlay=("wearer alone (baseline run)",),
                                        title=_title(meta, "joint angles of the wearer")))
 
     if "hand_path" not in skipped:
@@ -441,15 +442,17 @@ def compare_figures(runs: Sequence[Run], labels: Sequence[str], out_dir: str | P
         base = baseline_run(runs[0])
         if base is not None and "q_human" in base.arrays:
             series["wearer alone (baseline run)"] = (np.asarray(base["t"], float), np.degrees(base["q_human"]))
-            colours["wearer alone (baseline run)"] = "#222222"
+            colours["wearer alone (baseline run)"] = plots.ROLE_COLOURS["alone"]
         else:
             note = "No human-alone baseline next to the first run: the wearer-alone line is left out."
+        others = [c for c in plots.PALETTE if c != plots.ROLE_COLOURS["alone"]]  # the alone line keeps its colour
         for i, (lab, r) in enumerate(zip(labels, runs)):
             series[lab] = (np.asarray(r["t"], float), np.degrees(r["q_human"]))
-            colours[lab] = plots.PALETTE[i % len(plots.PALETTE)]
+            colours[lab] = others[i % len(others)]
         names = _joint_names(runs[0].meta.get("human_joints"), runs[0]["q_human"].shape[1])
         figs.append(plots.joint_angles(series, names, out / "joint_angles.png", colours=colours, note=note,
-                                       dashed=("intended (scripted target)", "wearer alone (baseline run)"),
+                                       dashed=("intended (scripted target)",),
+                                       underlay=("wearer alone (baseline run)",),
                                        title=f"{scen}: joint angles of the wearer with each controller"))
 
     if same and runs and all("p_hand_human" in r.arrays for r in runs):

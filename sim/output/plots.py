@@ -38,7 +38,7 @@ __all__ = ["PALETTE", "ROLE_COLOURS", "STYLE", "force_over_time", "force_against
 PALETTE = ("#23507a", "#c98a1b", "#5b7f2b", "#a13d63", "#5a6470", "#b8612f", "#2a8c89", "#6e4d99")
 #: The colour of a recurring meaning, the same in every figure.
 ROLE_COLOURS = MappingProxyType({
-    "intent": "#8c8c8c",      # the scripted target: grey, dashed
+    "intent": "#333333",      # the scripted target: near black, dashed
     "with robot": PALETTE[0],  # the wearer in the robot
     "alone": PALETTE[1],       # the wearer without the robot (the baseline run)
     "robot": PALETTE[3],       # the robot's own point or joint
@@ -291,21 +291,25 @@ def _panels(plt, n: int, *, ncols: int = 2, panel_in: tuple[float, float] = (3.9
 @_styled
 def joint_angles(series: Mapping[str, tuple[np.ndarray, np.ndarray]], joint_names: Sequence[str], path: Path, *,
                  title: str, colours: Mapping[str, str] | None = None, dashed: Sequence[str] = (),
-                 note: str | None = None, min_span_deg: float = 10.0) -> Path:
+                 note: str | None = None, min_span_deg: float = 10.0, underlay: Sequence[str] = ()) -> Path:
     """Joint angles over time, one small panel per joint: per label ``(t [s], q [deg] of shape (ticks, joints))``.
 
     Each panel's y range spans at least ``min_span_deg``, so that a joint
     that hardly moves shows as the flat line it is.
     ``colours`` fixes a label's colour (default: :data:`PALETTE` in order), ``dashed`` the labels drawn dashed
-    (e.g. the intent); ``note`` is a line of text under the panels (e.g. why a line is missing).
+    (e.g. the intent), ``underlay`` the labels drawn wide and pale beneath the others (e.g. a baseline that
+    follows the intent closely, which then still shows through); ``note`` is a line of text under the panels
+    (e.g. why a line is missing).
     """
     plt = _plt()
     fig, axes = _panels(plt, len(joint_names), extra_h_in=1.45 if note else 1.3)
     for ax, j, name in zip(axes, range(len(joint_names)), joint_names):
         for i, (label, (t, q)) in enumerate(series.items()):
             c = (colours or {}).get(label, PALETTE[i % len(PALETTE)])
-            ax.plot(t, q[:, j], lw=1.2 if label in dashed else 1.6, ls=(0, (4, 2)) if label in dashed else "-",
-                    color=c, label=label, zorder=3 if label in dashed else 2)
+            wide = label in underlay
+            ax.plot(t, q[:, j], lw=1.2 if label in dashed else 3.2 if wide else 1.5,
+                    ls=(0, (4, 2)) if label in dashed else "-", alpha=0.55 if wide else 1.0,
+                    color=c, label=label, zorder=3 if label in dashed else 1 if wide else 2)
         lo, hi = ax.get_ylim()
         if hi - lo < min_span_deg:  # a joint that hardly moves: a few tenths of a degree must not look like a swing
             mid = 0.5 * (lo + hi)
