@@ -36,6 +36,7 @@ import inspect
 import math
 from collections.abc import Mapping, Sequence
 from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 
@@ -66,7 +67,7 @@ __all__ = ["LIMIT_APPROACH_RAD", "AXIS_NAMES", "run_figures", "compare_figures",
 LIMIT_APPROACH_RAD = math.radians(5.0)
 #: World axes of a run (base frame of the robot, :mod:`models.exo`).
 AXIS_NAMES = ("x forward", "y left", "z up")
-_VIEW_NAMES = {(0, 1): "seen from above", (0, 2): "seen from the side", (1, 2): "seen from the front"}
+_VIEW_NAMES = MappingProxyType({(0, 1): "seen from above", (0, 2): "seen from the side", (1, 2): "seen from the front"})
 
 
 def joint_label(name: str) -> str:

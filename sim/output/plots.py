@@ -49,9 +49,10 @@ ROLE_COLOURS = MappingProxyType({
 #: Text sizes [pt] and figure resolution [dpi].
 STYLE = MappingProxyType({"title": 10.0, "label": 9.0, "tick": 8.0, "legend": 8.0, "panel": 8.5, "dpi": 110})
 
-_RC = {"axes.titlesize": STYLE["panel"], "axes.labelsize": STYLE["label"], "xtick.labelsize": STYLE["tick"],
-       "ytick.labelsize": STYLE["tick"], "legend.fontsize": STYLE["legend"],
-       "axes.spines.top": False, "axes.spines.right": False, "grid.alpha": 0.3}
+_RC = MappingProxyType({
+    "axes.titlesize": STYLE["panel"], "axes.labelsize": STYLE["label"], "xtick.labelsize": STYLE["tick"],
+    "ytick.labelsize": STYLE["tick"], "legend.fontsize": STYLE["legend"], "axes.spines.top": False,
+    "axes.spines.right": False, "grid.alpha": 0.3})
 _LINE_IN = 1.3 / 72  # height of one line of text per point of font size [in]
 
 
