@@ -22,6 +22,7 @@ from _scenario_files import write_scenario
 
 from sim.analysis.metrics import (
     METRICS,
+    apparent_mass_fit,
     apparent_mass_kg,
     compensation_shares,
     flat_metrics,
@@ -164,8 +165,11 @@ def test_felt_mass_leaves_out_the_ticks_inside_a_wall():
     t, x, force_on_human, inside, u = _push_into_a_wall()
     m = PUSH_MASS_KG
     assert 100 < np.count_nonzero(inside) < len(t) // 2
-    with_wall = apparent_mass_kg(force_on_human, x[:, None] * u, DT)
+    fit = apparent_mass_fit(force_on_human, x[:, None] * u, DT)
+    with_wall = fit.fitted_kg
     assert abs(with_wall - m) > 0.3  # the wall's spring is mistaken for inertia
+    # ... and the fit says so: the slope is rejected with its reason (apparent_mass_fit's rules)
+    assert fit.mass_kg is None and apparent_mass_kg(force_on_human, x[:, None] * u, DT) is None and fit.reason
     assert apparent_mass_kg(force_on_human, x[:, None] * u, DT, exclude=inside) == pytest.approx(m, rel=0.02)
     with pytest.raises(ValueError, match="one flag per tick"):
         apparent_mass_kg(force_on_human, x[:, None] * u, DT, exclude=inside[:-1])
@@ -360,7 +364,8 @@ def test_run_folder_metrics_hold_every_issue_key(tmp_path):
 
 def test_robot_interaction_terms_match_pinocchios_separate_algorithms(monkeypatch):
     # reference: per tick, pinocchio's separate algorithms (computeJointJacobians, forwardKinematics,
-    # getFrameVelocity/getFrameJacobian, computeGeneralizedGravity, crba, computePotentialEnergy) and numpy products
+    # getFrameVelocity/getFrameJacobian, computeGeneralizedGravity, nonLinearEffects, crba, computePotentialEnergy)
+    # and numpy products
     import pinocchio as pin
 
     import models
@@ -391,6 +396,8 @@ def test_robot_interaction_terms_match_pinocchios_separate_algorithms(monkeypatc
             tau += pin.getFrameJacobian(model, data, fid, pin.LOCAL).T @ arrays["cuff_wrench_exo"][k, c]
         np.testing.assert_allclose(terms["tau_interaction"][k], tau, atol=1e-11)
         np.testing.assert_allclose(terms["tau_gravity"][k], pin.computeGeneralizedGravity(model, data, q), atol=1e-11)
+        np.testing.assert_allclose(terms["tau_coriolis"][k], pin.nonLinearEffects(model, data, q, dq)
+                                   - pin.computeGeneralizedGravity(model, data, q), atol=1e-10)
         M = pin.crba(model, data, q)
         M = np.triu(M) + np.triu(M, 1).T
         np.testing.assert_allclose(terms["tau_inertia"][k], M @ ddq[k], rtol=1e-12, atol=1e-9)

@@ -40,6 +40,8 @@ __all__ = [
     "interaction_torque_norm_Nm",
     "plane_penetration_m",
     "rendered_wall_stiffness_N_per_m",
+    "rendered_wall_damping_N_s_per_m",
+    "wall_impedance_fit",
     "joint_limit_violation_count",
     "joint_limit_excursion_max_rad",
     "wall_contacts",
@@ -52,6 +54,11 @@ __all__ = [
     "interaction_power_W",
     "interaction_work_J",
     "apparent_mass_kg",
+    "apparent_mass_fit",
+    "MassFit",
+    "MASS_FIT_MIN_R2",
+    "MASS_FIT_MAX_REL_CI95",
+    "MASS_FIT_MIN_SAMPLES",
     "compensation_shares",
     "robot_interaction_terms",
     "BODY_REGION_FORCE_LIMITS_N",
@@ -185,6 +192,90 @@ def rendered_wall_stiffness_N_per_m(
     return float(np.polyfit(p[sel], F[sel], 1)[0])
 
 
+def wall_impedance_fit(
+    force_N: np.ndarray, penetration_m: np.ndarray, dt_s: float, *,
+    min_penetration_m: float = 1e-3, inertia: bool = True,
+) -> dict[str, float | int | None] | None:
+    """Joint least squares :math:`F = k\\,p + b\\,\\dot p\\, [+\\, m\\,\\ddot p] + c` over the contact ticks.
+
+    The ticks with penetration above ``min_penetration_m``;
+    :math:`\\dot p, \\ddot p` central differences (``numpy.gradient``) of the
+    penetration, the m column only with ``inertia`` (see
+    :func:`rendered_wall_damping_N_s_per_m` for why it is there).  Returns
+    ``stiffness_N_per_m`` (k), ``damping_N_s_per_m`` (b), ``mass_kg`` (m, None
+    without ``inertia``), ``offset_N`` (c) and ``n_samples``; None when fewer
+    than 20 ticks qualify, the penetration or its rate does not vary, or the
+    columns are not independent.
+    """
+    p = np.asarray(penetration_m, dtype=float)
+    F = np.asarray(force_N, dtype=float)
+    if len(p) < 3:
+        return None
+    v = np.gradient(p, dt_s)
+    sel = p > min_penetration_m
+    n = int(np.count_nonzero(sel))
+    if n < 20 or np.ptp(p[sel]) < 1e-4 or np.ptp(v[sel]) < 1e-4:
+        return None
+    cols = [p[sel], v[sel]]
+    if inertia:
+        cols.append(np.gradient(v, dt_s)[sel])
+    cols.append(np.ones(n))
+    X = np.column_stack(cols)
+    if np.linalg.matrix_rank(X) < X.shape[1]:
+        return None
+    coef = np.linalg.lstsq(X, F[sel], rcond=None)[0]
+    return {"stiffness_N_per_m": float(coef[0]), "damping_N_s_per_m": float(coef[1]),
+            "mass_kg": float(coef[2]) if inertia else None, "offset_N": float(coef[-1]), "n_samples": n}
+
+
+def rendered_wall_damping_N_s_per_m(
+    force_N: np.ndarray, penetration_m: np.ndarray, dt_s: float, *,
+    min_penetration_m: float = 1e-3, inertia: bool = True,
+) -> float | None:
+    """Damping of a wall as felt [N s/m]: joint least squares of force on penetration, its rate and its acceleration.
+
+    Over the contact ticks (penetration above ``min_penetration_m``, as
+    :func:`rendered_wall_stiffness_N_per_m`), moving or not, fit
+
+    .. math:: F = k\\,p + b\\,\\dot p + m\\,\\ddot p + c
+
+    and return b; :math:`\\dot p, \\ddot p` are central differences
+    (``numpy.gradient``).  A Kelvin-Voigt spring-damper :math:`F = k p + b \\dot p`
+    gives its b back (and m = 0).  The m column is there because a wall
+    rendered by a robot is felt with a mass: the wall task
+    (:class:`controllers.tasks.WallTask`) moves the hand point as the mass
+    :math:`m_n` (a share of the robot's own operational-space mass) pushed by
+    the wearer and held by the spring-damper, so the wearer feels
+    :math:`K p + B \\dot p + m_n \\ddot p`.  Over a push and release,
+    :math:`\\ddot p` correlates with :math:`\\dot p` (the hand enters
+    decelerating and leaves accelerating), so a fit of
+    :math:`F = k p + b \\dot p + c` alone (``inertia=False``) puts part of the
+    inertia into b (omitted-variable bias): on ``scenarios/wall_push.py`` under
+    ``walls`` it reads -0.8 N s/m for a commanded 5, against 3.0 with the
+    mass column.
+
+    What is still missing at the hand is the physics of the rendering, not
+    the fit.  Measured on that scenario (K = 600 N/m, B = 5 N s/m) with the
+    plant's actuators or sensors made ideal one at a time: the 2 ms
+    first-order lag of the torque-source actuators
+    (:class:`sim.physics.actuators.ActuatorParams`) costs about 1 N s/m (a
+    spring rendered with an effective delay :math:`\\tau` loses
+    :math:`K \\tau` of damping, :math:`K p(t - \\tau) \\approx K p - K \\tau
+    \\dot p`, here 600 x 0.002 = 1.2: the sampled-spring effect of Colgate &
+    Schenkel 1997 [ColgateSchenkel1997]_); the filters and delays of the force
+    sensor and the encoders under 0.2 each; and the compliant cuff between the
+    robot's hand point and the wearer's hand, in series with the rendered
+    mass-spring-damper, 1.2 to 1.8 (the same fit against the robot's hand
+    point gives 4.2, and 5.6 with ideal actuators and sensors, when the
+    wearer's hand gets 3.8).
+
+    Returns None when fewer than 20 ticks qualify, or the penetration or its
+    rate does not vary (:func:`wall_impedance_fit`).
+    """
+    fit = wall_impedance_fit(force_N, penetration_m, dt_s, min_penetration_m=min_penetration_m, inertia=inertia)
+    return None if fit is None else fit["damping_N_s_per_m"]
+
+
 def joint_limit_violation_count(q: np.ndarray, lower: np.ndarray, upper: np.ndarray, tol_rad: float = 1e-9) -> int:
     """Number of ticks in which any joint is outside ``[lower - tol, upper + tol]``."""
     q = np.asarray(q)
@@ -281,13 +372,16 @@ def wall_normal_series(arrays: Mapping[str, np.ndarray], point_m, normal, hand_c
 
 
 def wall_metrics(arrays: Mapping[str, np.ndarray], *, point_m, normal, stiffness_N_per_m: float,
-                 hand_cuff: int, dt_s: float) -> dict:
+                 hand_cuff: int, dt_s: float, damping_N_s_per_m: float | None = None) -> dict:
     """The wall keys of ``metrics.json`` for a plane wall.
 
     The force is the one the human feels: the hand cuff's force on the human
     along :math:`-n` (the wall pushes back).  Stiffness is fitted against the
     penetration of the human's hand point (``wall_stiffness_rendered_N_per_m``)
-    and of the robot's (``wall_stiffness_rendered_robot_N_per_m``); the energy
+    and of the robot's (``wall_stiffness_rendered_robot_N_per_m``); damping
+    (``wall_damping_rendered_N_s_per_m``, :func:`rendered_wall_damping_N_s_per_m`)
+    against the human's, next to the commanded ``damping_N_s_per_m``
+    (``wall_damping_commanded_N_s_per_m``; None if not given); the energy
     and bounce keys use the human's hand, since they are what the wearer meets.
     ``wall_energy_returned_J`` is the largest :func:`wall_cycle_energy_returned_J`
     over the finished contacts, each taken from rest to rest
@@ -312,6 +406,8 @@ def wall_metrics(arrays: Mapping[str, np.ndarray], *, point_m, normal, stiffness
         "wall_stiffness_commanded_N_per_m": float(stiffness_N_per_m),
         "wall_stiffness_rendered_N_per_m": rendered_wall_stiffness_N_per_m(felt, pen_h, dt_s),
         "wall_stiffness_rendered_robot_N_per_m": rendered_wall_stiffness_N_per_m(felt, pen_r, dt_s),
+        "wall_damping_commanded_N_s_per_m": None if damping_N_s_per_m is None else float(damping_N_s_per_m),
+        "wall_damping_rendered_N_s_per_m": rendered_wall_damping_N_s_per_m(felt, pen_h, dt_s),
         "wall_penetration_max_m": float(max(0.0, pen_h.max())) if len(pen_h) else 0.0,
         "wall_energy_returned_J": max((c["energy_returned_J"] for c in cycles), default=None),
         "wall_bounce_count": wall_bounce_count(pen_h, dt_s),
@@ -349,10 +445,68 @@ def _moving_average(x: np.ndarray, n: int) -> np.ndarray:
     return np.apply_along_axis(lambda c: np.convolve(c, k, mode="valid"), 0, xp)
 
 
-def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: float, *,
-                     min_speed_m_s: float = 0.05, smooth_s: float = 0.01,
-                     exclude: np.ndarray | None = None) -> float | None:
-    """Felt mass at the hand [kg]: least-squares slope of force on acceleration along the movement.
+#: Smallest R² of the felt-mass line for :func:`apparent_mass_fit` to report the mass (common practice).
+MASS_FIT_MIN_R2 = 0.5
+#: Largest 95 % half-width of the felt-mass slope, relative to the slope, for it to be reported (common practice).
+MASS_FIT_MAX_REL_CI95 = 0.5
+#: Fewest moving ticks :func:`apparent_mass_fit` fits.
+MASS_FIT_MIN_SAMPLES = 50
+
+
+@dataclass(frozen=True, eq=False)
+class MassFit:
+    """The felt mass at the hand and the quality of its fit (:func:`apparent_mass_fit`).
+
+    Attributes
+    ----------
+    mass_kg : float or None [kg]
+        The felt mass; None when the fit is rejected (``reason`` says why).
+    fitted_kg : float or None [kg]
+        The fitted slope, also when rejected; None when there was nothing to fit.
+    r2 : float or None [-]
+        Coefficient of determination of the line ``force_N`` against ``acc_m_s2``.
+    ci95_kg : float or None [kg]
+        Half-width of the 95 % confidence interval of the slope.
+    n_samples : int
+        Ticks in the fit.
+    reason : str or None
+        Why ``mass_kg`` is None (None when it is not).
+    acc_m_s2 : ndarray [m/s^2]
+        The fitted acceleration samples along the movement.
+    force_N : ndarray [N]
+        The force samples against the motion, less the fit's other columns
+        than the intercept (the felt weight), so that
+        ``force_N ≈ fitted_kg * acc_m_s2 + intercept_N``: the scatter of the fit.
+    intercept_N : float or None [N]
+        The fitted steady offset.
+    """
+
+    mass_kg: float | None
+    fitted_kg: float | None
+    r2: float | None
+    ci95_kg: float | None
+    n_samples: int
+    reason: str | None
+    acc_m_s2: np.ndarray
+    force_N: np.ndarray
+    intercept_N: float | None
+
+    def __post_init__(self) -> None:
+        acc, force = np.asarray(self.acc_m_s2, dtype=float), np.asarray(self.force_N, dtype=float)
+        if acc.shape != force.shape or acc.ndim != 1:
+            raise ValueError(f"MassFit: acc_m_s2 and force_N must be 1-D of the same length; got shapes "
+                             f"{acc.shape} and {force.shape}")
+        if (self.mass_kg is None) == (self.reason is None):
+            raise ValueError(f"MassFit: a reason is given exactly when mass_kg is None; got mass_kg={self.mass_kg!r}, "
+                             f"reason={self.reason!r}")
+        object.__setattr__(self, "acc_m_s2", acc)
+        object.__setattr__(self, "force_N", force)
+
+
+def apparent_mass_fit(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: float, *,
+                      min_speed_m_s: float = 0.05, smooth_s: float = 0.01,
+                      exclude: np.ndarray | None = None) -> MassFit:
+    """Felt mass at the hand [kg] with the quality of its fit: least-squares slope of force on acceleration.
 
     With :math:`u_k = v_k / \\lVert v_k \\rVert` the movement direction (ticks
     faster than ``min_speed_m_s``; 0.05 m/s, common practice),
@@ -367,13 +521,34 @@ def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: f
     one gives 0.  Velocity and acceleration are central differences of the
     hand position (``numpy.gradient``), force and acceleration both smoothed by
     the same centred moving average of ``smooth_s`` (so that noise in the
-    regressor does not bias the slope toward zero).  None when fewer than 50
-    ticks move or the acceleration does not vary.
+    regressor does not bias the slope toward zero).
+
+    Quality of the fit, from the ordinary-least-squares theory (e.g. Draper &
+    Smith, *Applied Regression Analysis*, 3rd ed., 1998, ch. 1 and 5): with
+    X the columns, :math:`\\hat\\sigma^2 = \\mathrm{SSR} / (n - p)` and the
+    covariance :math:`\\hat\\sigma^2 (X^T X)^{-1}`, the 95 % half-width of the
+    slope is :math:`t_{0.975,\\,n-p} \\sqrt{[\\hat\\sigma^2 (X^T X)^{-1}]_{mm}}`
+    (Student's t, ``scipy.stats.t``); R² is that of the scatter the fit
+    draws, ``force_N`` (F less the weight column) against ``acc_m_s2``:
+    :math:`1 - \\mathrm{SSR} / \\sum_k (F'_k - \\bar F')^2`.  The ticks are
+    serially correlated (1 kHz sampling, the moving average), so the nominal
+    interval is narrower than a true 95 % one: it tells a tight fit from a
+    loose one rather than giving an exact coverage.
+
+    The mass is rejected (``mass_kg`` None, ``reason`` set; ``fitted_kg``,
+    ``r2`` and ``ci95_kg`` still given) when the slope is negative (no mass
+    feels like that: the force is not the inertia of the motion), when R² is
+    below :data:`MASS_FIT_MIN_R2` (0.5: less than half the force's variation
+    along the movement follows the acceleration), or when the half-width is
+    more than :data:`MASS_FIT_MAX_REL_CI95` (half) of the slope; both
+    thresholds common practice.  There is nothing to fit (``fitted_kg`` None
+    too) when fewer than :data:`MASS_FIT_MIN_SAMPLES` ticks move or the
+    acceleration does not vary.
 
     The weight column holds a constant felt weight only.  A weight that varies
     with the posture (a robot left uncompensated) is confounded with inertia on
-    paths that go out and back the same way, so :func:`run_metrics` reports
-    None when more than half the robot's weight is left to the wearer
+    paths that go out and back the same way, so :func:`run_metrics` rejects
+    the mass when more than half the robot's weight is left to the wearer
     (``gravity_share_left > 0.5``).
 
     ``exclude`` (bool per tick) leaves ticks out of the fit, and with them every
@@ -384,8 +559,13 @@ def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: f
     """
     p = np.asarray(p_hand_m, dtype=float)
     f = np.asarray(force_on_human_N, dtype=float)
+    empty = np.zeros(0)
+
+    def nothing(reason: str, n: int = 0) -> MassFit:
+        return MassFit(None, None, None, None, n, reason, empty, empty, None)
+
     if len(p) < 5:
-        return None
+        return nothing(f"only {len(p)} ticks: nothing to fit")
     v = np.gradient(p, dt_s, axis=0)
     a = np.gradient(v, dt_s, axis=0)
     n = max(1, int(round(smooth_s / dt_s)))
@@ -398,40 +578,165 @@ def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: f
             raise ValueError(f"exclude must hold one flag per tick, shape ({len(p)},); got shape {ex.shape}")
         # the moving average (and the differences) carry an excluded tick's force into its neighbours
         sel &= np.convolve(ex.astype(float), np.ones(2 * n + 3), mode="same") == 0.0
-    if np.count_nonzero(sel) < 50:
-        return None
+    n_sel = int(np.count_nonzero(sel))
+    if n_sel < MASS_FIT_MIN_SAMPLES:
+        return nothing(f"{n_sel} ticks move faster than {min_speed_m_s:g} m/s (outside any wall), fewer than "
+                       f"{MASS_FIT_MIN_SAMPLES}: nothing to fit", n_sel)
     u = v[sel] / speed[sel, None]
     acc = np.einsum("ki,ki->k", a[sel], u)
     F = -np.einsum("ki,ki->k", f[sel], u)
     if np.ptp(acc) < 1e-6:
-        return None
+        return nothing("the acceleration along the movement does not vary: nothing to fit", n_sel)
     cols = [acc, np.ones_like(acc)]
     if np.std(u[:, 2]) > 0.05:
         cols.append(9.81 * u[:, 2])
-    return float(np.linalg.lstsq(np.column_stack(cols), F, rcond=None)[0][0])
+    X = np.column_stack(cols)
+    coef = np.linalg.lstsq(X, F, rcond=None)[0]
+    slope, intercept = float(coef[0]), float(coef[1])
+    force = F - X[:, 2:] @ coef[2:]  # F less the weight column: the scatter of the line
+    resid = force - (slope * acc + intercept)
+    ssr = float(resid @ resid)
+    dev = force - force.mean()
+    sst = float(dev @ dev)
+    r2 = 1.0 - ssr / sst if sst > 0 else None
+    dof = len(F) - X.shape[1]
+    from scipy.stats import t as student_t
+
+    cov = ssr / dof * np.linalg.pinv(X.T @ X)
+    ci95 = float(student_t.ppf(0.975, dof) * np.sqrt(cov[0, 0]))
+    reason = None
+    if slope < 0:
+        reason = (f"negative slope {slope:.3g} kg: the force against the motion does not follow the acceleration "
+                  "as a mass's would")
+    elif r2 is None or r2 < MASS_FIT_MIN_R2:
+        reason = (f"poor fit: R² = {r2:.2f}, below {MASS_FIT_MIN_R2:g}" if r2 is not None
+                  else "poor fit: the force along the movement does not vary")
+    elif ci95 > MASS_FIT_MAX_REL_CI95 * slope:
+        reason = (f"loose fit: 95 % half-width {ci95:.3g} kg is more than {MASS_FIT_MAX_REL_CI95:g} of the slope "
+                  f"{slope:.3g} kg")
+    return MassFit(None if reason else slope, slope, r2, ci95, len(F), reason, acc, force, intercept)
 
 
-def compensation_shares(tau_interaction: np.ndarray, tau_gravity: np.ndarray, tau_inertia: np.ndarray
+def apparent_mass_kg(force_on_human_N: np.ndarray, p_hand_m: np.ndarray, dt_s: float, *,
+                     min_speed_m_s: float = 0.05, smooth_s: float = 0.01,
+                     exclude: np.ndarray | None = None) -> float | None:
+    """Felt mass at the hand [kg], or None: ``apparent_mass_fit(...).mass_kg`` (see :func:`apparent_mass_fit`)."""
+    return apparent_mass_fit(force_on_human_N, p_hand_m, dt_s, min_speed_m_s=min_speed_m_s, smooth_s=smooth_s,
+                             exclude=exclude).mass_kg
+
+
+def compensation_shares(tau_interaction: np.ndarray, tau_gravity: np.ndarray, tau_inertia: np.ndarray, *,
+                        tau_coriolis: np.ndarray | None = None, dq: np.ndarray | None = None,
+                        coulomb_smoothing_rad_s: float = 0.01, exclude: np.ndarray | None = None,
                         ) -> tuple[float | None, float | None]:
     """Shares of the robot's gravity and inertia left for the human to carry [-].
 
-    The robot's dynamics :math:`M\\ddot q + C\\dot q + g = \\tau_{act} + \\tau_{int}`
-    with :math:`\\tau_{int} = \\sum_c J_c^T w_c` the torque the human applies
-    through the cuffs.  Least squares over every tick and joint of
+    The robot's dynamics with the joint friction of the plant
+    (:class:`sim.physics.plant.PlantParams`: viscous b and smoothed Coulomb
+    :math:`\\tau_c`, per joint) are
 
-    .. math:: \\tau_{int} \\approx \\alpha\\, g(q) + \\beta\\, M(q)\\ddot q
+    .. math:: M\\ddot q + C\\dot q + g + b \\dot q + \\tau_c \\tanh(\\dot q / v_s)
+              = \\tau_{act} + \\tau_{int}
 
-    gives :math:`\\alpha` (share of gravity left: 1 with no compensation, 0
-    with perfect gravity compensation) and :math:`\\beta` (share of inertia
-    left: 1 uncompensated, 0.5 when half the inertia is compensated).
-    Returns (None, None) if the two regressors are not independent.
+    (Lagrange's equations of a rigid multibody system, e.g. Featherstone,
+    *Rigid Body Dynamics Algorithms*, 2008, ch. 1 and 5), with
+    :math:`\\tau_{int} = \\sum_c J_c^T w_c` the torque the human applies
+    through the cuffs.  A controller that leaves a share :math:`\\alpha` of
+    the weight, :math:`\\beta` of :math:`M\\ddot q` and :math:`\\gamma` of
+    :math:`C\\dot q` to the wearer, and compensates friction in part or not
+    at all, gives
+
+    .. math:: \\tau_{int} = \\alpha\\, g(q) + \\beta\\, M(q)\\ddot q + \\gamma\\, C(q,\\dot q)\\dot q
+              + \\sum_j \\big(b'_j \\dot q_j + c'_j \\tanh(\\dot q_j / v_s)\\big)\\, e_j
+
+    fitted by least squares over every tick and joint: :math:`\\alpha` (share
+    of gravity left: 1 with no compensation, 0 with perfect gravity
+    compensation) and :math:`\\beta` (share of inertia left: 1
+    uncompensated, 0.5 when half the inertia is compensated) are returned;
+    :math:`\\gamma` and the per-joint friction coefficients
+    :math:`b'_j, c'_j` (one viscous and one Coulomb column per joint, the
+    plant's own friction law) are nuisance terms.  They are in the fit because
+    a term left out of a least-squares fit biases the kept coefficients by its
+    correlation with them (omitted-variable bias; Greene, *Econometric
+    Analysis*, 7th ed., 2012, the chapter on specification analysis; chapter
+    from memory), and on an
+    out-and-back movement friction and the velocity-product torques
+    correlate with :math:`g` and :math:`M\\ddot q`: without them a robot
+    under gravity compensation alone reads :math:`\\beta \\approx 0.84`
+    instead of 1 on ``scenarios/reach.py``.  :math:`C\\dot q` has a share of
+    its own rather than joining :math:`M\\ddot q` because a controller may
+    compensate the two by different shares: the transparency task
+    (:class:`controllers.tasks.Transparency`) compensates all of
+    :math:`C\\dot q + g` and a share c of :math:`M\\ddot q`, so that
+    :math:`\\tau_{int} = (1 - c)(M\\ddot q + \\tau_f)`; one column for both
+    would read 0.53 there instead of 0.5.
+
+    Parameters
+    ----------
+    tau_interaction, tau_gravity, tau_inertia : (N, nv) arrays [N m]
+        :math:`\\tau_{int}`, :math:`g(q)`, :math:`M(q)\\ddot q` per tick
+        (:func:`robot_interaction_terms`).
+    tau_coriolis : (N, nv) array [N m], optional
+        :math:`C(q,\\dot q)\\dot q`; without it the fit has no such column.
+    dq : (N, nv) array [rad/s], optional
+        Joint velocities, for the friction columns; without it the fit has
+        none (the robot is taken to be frictionless).
+    coulomb_smoothing_rad_s : float [rad/s]
+        :math:`v_s` of the Coulomb columns: the plant's
+        ``coulomb_smoothing_rad_s`` (0.01 rad/s by default, as the plant's).
+    exclude : (N,) bool array, optional
+        Ticks left out of the fit: :func:`run_metrics` passes those with the
+        hand past the scenario's wall, whose force is neither weight nor
+        inertia.
+
+    The nuisance columns are removed first (Frisch-Waugh-Lovell theorem:
+    regressing every column on the per-joint friction columns, joint by joint,
+    and fitting the residuals gives the coefficients of the full least
+    squares; Lovell, "Seasonal adjustment of economic time series and
+    multiple regression analysis", *J. Am. Stat. Assoc.* 58(304):993-1010,
+    1963).  A joint that does not move has zero friction columns and loses
+    nothing.  Returns (None, None) if :math:`g` and :math:`M\\ddot q` (with
+    :math:`C\\dot q`, if given and not zero) are not independent after that.
     """
-    y = np.asarray(tau_interaction, dtype=float).ravel()
-    X = np.column_stack([np.asarray(tau_gravity, dtype=float).ravel(), np.asarray(tau_inertia, dtype=float).ravel()])
-    if len(y) < 4 or np.linalg.matrix_rank(X) < 2:
+    cols = [np.asarray(tau_gravity, dtype=float), np.asarray(tau_inertia, dtype=float)]
+    y = np.asarray(tau_interaction, dtype=float)
+    if tau_coriolis is not None:
+        cols.append(np.asarray(tau_coriolis, dtype=float))
+    if exclude is not None:
+        ex = np.asarray(exclude, dtype=bool)
+        if ex.shape != (len(y),):
+            raise ValueError(f"exclude must hold one flag per tick, shape ({len(y)},); got shape {ex.shape}")
+        y, cols = y[~ex], [c[~ex] for c in cols]
+        dq = None if dq is None else np.asarray(dq, dtype=float)[~ex]
+    if dq is not None:
+        v = np.asarray(dq, dtype=float)
+        if v.shape != y.shape:
+            raise ValueError(f"dq must have the shape of tau_interaction, {y.shape}; got {v.shape}")
+        if not coulomb_smoothing_rad_s > 0:
+            raise ValueError(f"coulomb_smoothing_rad_s must be > 0 [rad/s], got {coulomb_smoothing_rad_s!r}")
+        y, cols = _without_friction(y, cols, v, coulomb_smoothing_rad_s)
+    y = y.ravel()
+    X = np.column_stack([c.ravel() for c in cols])
+    if X.shape[1] == 3 and not np.any(X[:, 2]):  # no velocity, no velocity-product torque: nothing to fit
+        X = X[:, :2]
+    if len(y) < 4 or np.linalg.matrix_rank(X) < X.shape[1]:
         return None, None
-    alpha, beta = np.linalg.lstsq(X, y, rcond=None)[0]
-    return float(alpha), float(beta)
+    coef = np.linalg.lstsq(X, y, rcond=None)[0]
+    return float(coef[0]), float(coef[1])
+
+
+def _without_friction(y: np.ndarray, cols: list[np.ndarray], dq: np.ndarray, v_s: float
+                      ) -> tuple[np.ndarray, list[np.ndarray]]:
+    """``y`` and ``cols`` (each (N, nv)) less their least-squares projection, joint by joint, on that joint's
+    friction columns :math:`\\dot q_j` and :math:`\\tanh(\\dot q_j / v_s)` (see :func:`compensation_shares`)."""
+    stacked = np.stack([y] + cols, axis=-1)  # (N, nv, 1 + len(cols))
+    out = stacked.copy()
+    for j in range(dq.shape[1]):
+        F = np.column_stack([dq[:, j], np.tanh(dq[:, j] / v_s)])
+        if not np.any(F):
+            continue
+        out[:, j] -= F @ np.linalg.lstsq(F, stacked[:, j], rcond=None)[0]
+    return out[..., 0], [out[..., i + 1] for i in range(len(cols))]
 
 
 def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: Sequence[str], dt_s: float
@@ -442,11 +747,16 @@ def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: 
     the cuff frames' spatial velocities (``getFrameVelocity``, LOCAL, the frame
     of ``cuff_wrench_exo``), :math:`\\tau_{int} = \\sum_c J_c^T w_c`
     (``getFrameJacobian``, LOCAL), :math:`g(q)`, :math:`M(q)\\ddot q`
-    (:math:`\\ddot q` the central difference of ``dq_exo``), the kinetic energy
+    (:math:`\\ddot q` the central difference of ``dq_exo``), the
+    velocity-product (Coriolis and centrifugal) torque
+    :math:`C(q,\\dot q)\\dot q` (``tau_coriolis``: ``data.nle - data.g``, the
+    recursive Newton-Euler torque at zero acceleration less gravity;
+    Featherstone, *Rigid Body Dynamics Algorithms*, 2008, ch. 5), the kinetic energy
     :math:`\\tfrac12 \\dot q^T M \\dot q` and the potential energy. One
-    ``computeAllTerms`` per tick gives the kinematics, Jacobians, M, g and the
-    potential energy (the same values as the separate algorithms, to rounding;
-    tested); the products over the cuffs and joints run on all ticks at once.
+    ``computeAllTerms`` per tick gives the kinematics, Jacobians, M, the
+    nonlinear effects, g and the potential energy (the same values as the
+    separate algorithms, to rounding; tested); the products over the cuffs and
+    joints run on all ticks at once.
     """
     model = arm.model
     data = model.createData()
@@ -455,11 +765,11 @@ def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: 
     n, nv = q.shape[0], model.nv
     ddq = np.gradient(dq, dt_s, axis=0) if n > 2 else np.zeros_like(dq)
     fids = [model.getFrameId(f) for f in cuff_frames]
-    out = {k: np.zeros((n, nv)) for k in ("tau_interaction", "tau_gravity", "tau_inertia")}
+    out = {k: np.zeros((n, nv)) for k in ("tau_interaction", "tau_gravity", "tau_inertia", "tau_coriolis")}
     out["cuff_twist"] = twist = np.zeros(w.shape)
     out["kinetic_J"] = np.zeros(n)
     out["potential_J"] = potential = np.zeros(n)
-    gravity = out["tau_gravity"]
+    gravity, coriolis = out["tau_gravity"], out["tau_coriolis"]
     local = pin.ReferenceFrame.LOCAL
     all_terms, placements, velocity, jacobian = (pin.computeAllTerms, pin.updateFramePlacements, pin.getFrameVelocity,
                                                  pin.getFrameJacobian)
@@ -477,6 +787,7 @@ def robot_interaction_terms(arm, arrays: Mapping[str, np.ndarray], cuff_frames: 
                 jac[i, c] = jacobian(model, data, fid, local)
             M[i] = data.M  # the upper triangle (crba's), mirrored below
             gravity[k] = data.g
+            coriolis[k] = data.nle - data.g
             potential[k] = data.potential_energy
         m = end - start
         Mb = M[:m]
@@ -561,6 +872,7 @@ def run_metrics(
     force_limits_N: Mapping[str, float] | None = None,
     hand_cuff: int | None = None,
     wall_contact: np.ndarray | None = None,
+    coulomb_smoothing_rad_s: float = 0.01,
 ) -> dict:
     """The ``metrics.json`` of a coupled run (keys exactly as documented in the README).
 
@@ -569,8 +881,10 @@ def run_metrics(
     ``wall_contact`` (bool per tick: the hand past the plane of the
     scenario's wall, whether or not the variant renders it, so that every
     variant is measured over the same stretch of the movement) leaves those
-    ticks out of the felt mass and of ``interaction_force_free_rms_N``; the
-    others default as documented.
+    ticks out of the felt mass, of the compensation shares and of
+    ``interaction_force_free_rms_N``; ``coulomb_smoothing_rad_s`` is the
+    plant's (:class:`sim.physics.plant.PlantParams`), for the friction columns
+    of :func:`compensation_shares`; the others default as documented.
     """
     n = len(arrays["t"])
     wall = float(np.sum(tick_times_s))
@@ -584,6 +898,8 @@ def run_metrics(
         c["force_limit_ratio"] = c["force_peak_N"] / lim if lim else None
     hand = hand_cuff_index(cuff_names) if hand_cuff is None else hand_cuff
     torque = interaction_torque_norm_Nm(w_h)
+    mass = apparent_mass_fit(_derived_column(arrays, "cuff_force_human_world")[:, hand], arrays["p_hand_human"],
+                             dt_s, exclude=wall_contact)
     out = {
         "sim_duration_s": n * dt_s,
         "interaction_force_rms_N": interaction_force_rms_N(w_h),
@@ -594,8 +910,10 @@ def run_metrics(
         "cuffs": cuffs,
         "interaction_work_J": None,
         "interaction_power_peak_W": None,
-        "apparent_mass_hand_kg": apparent_mass_kg(_derived_column(arrays, "cuff_force_human_world")[:, hand],
-                                                  arrays["p_hand_human"], dt_s, exclude=wall_contact),
+        "apparent_mass_hand_kg": mass.mass_kg,
+        "apparent_mass_hand_r2": mass.r2,
+        "apparent_mass_hand_ci95_kg": mass.ci95_kg,
+        "apparent_mass_hand_note": mass.reason,
         "gravity_share_left": None,
         "inertia_share_left": None,
         "human_effort_rms_Nm": effort,
@@ -616,11 +934,18 @@ def run_metrics(
         out["interaction_work_J"] = interaction_work_J(P, dt_s)
         out["interaction_power_peak_W"] = float(np.abs(P).max()) if n else 0.0
         out["gravity_share_left"], out["inertia_share_left"] = compensation_shares(
-            robot_terms["tau_interaction"], robot_terms["tau_gravity"], robot_terms["tau_inertia"])
-        if out["gravity_share_left"] is not None and out["gravity_share_left"] > 0.5:
+            robot_terms["tau_interaction"], robot_terms["tau_gravity"], robot_terms["tau_inertia"],
+            tau_coriolis=robot_terms.get("tau_coriolis"), dq=arrays.get("dq_exo"),
+            coulomb_smoothing_rad_s=coulomb_smoothing_rad_s, exclude=wall_contact)
+        share = out["gravity_share_left"]
+        if share is not None and share > 0.5:
             # most of the robot's weight is left to the wearer: that posture-dependent force is confounded with
-            # inertia on out-and-back paths, and the fit of apparent_mass_kg means nothing (see its docstring)
+            # inertia on out-and-back paths, and the fit of apparent_mass_fit means nothing (see its docstring)
             out["apparent_mass_hand_kg"] = None
+            out["apparent_mass_hand_note"] = (
+                f"most of the robot's weight is left to the wearer (gravity_share_left = {share:.2f} > 0.5): a "
+                "weight that varies with the posture passes for inertia" + (f"; also {mass.reason}" if mass.reason
+                                                                             else ""))
     if limits_rad is not None:
         lo, hi = limits_rad
         out["joint_limit_violation_count"] = joint_limit_violation_count(arrays["q_exo"], lo, hi)
@@ -655,7 +980,8 @@ class MetricInfo:
                              f"key needs better='commanded'; got better={self.better!r}, reference={self.reference!r}")
 
 
-#: Every top-level scalar key of ``metrics.json``, in the order tables show them.
+#: Every top-level scalar key of ``metrics.json``, in the order tables show them (all numbers or None but
+#: ``apparent_mass_hand_note``, a string or None).
 METRICS: Mapping[str, MetricInfo] = MappingProxyType({
     "interaction_force_rms_N": MetricInfo("N", "lower", "interaction force, RMS", True),
     "interaction_force_free_rms_N": MetricInfo("N", "lower", "interaction force outside the wall, RMS", True),
@@ -665,6 +991,9 @@ METRICS: Mapping[str, MetricInfo] = MappingProxyType({
     "interaction_work_J": MetricInfo("J", "zero", "net work of the human on the robot", True),
     "interaction_power_peak_W": MetricInfo("W", "lower", "interaction power, peak"),
     "apparent_mass_hand_kg": MetricInfo("kg", "zero", "felt mass at the hand", True),
+    "apparent_mass_hand_r2": MetricInfo("-", None, "felt mass at the hand, R² of its fit"),
+    "apparent_mass_hand_ci95_kg": MetricInfo("kg", None, "felt mass at the hand, 95 % half-width"),
+    "apparent_mass_hand_note": MetricInfo("", None, "felt mass at the hand, why it is null"),
     "gravity_share_left": MetricInfo("-", "zero", "share of robot gravity left to the human", True),
     "inertia_share_left": MetricInfo("-", "zero", "share of robot inertia left to the human", True),
     "human_effort_rms_Nm": MetricInfo("N m", "lower", "human joint effort, RMS"),
@@ -675,6 +1004,9 @@ METRICS: Mapping[str, MetricInfo] = MappingProxyType({
                                                   reference="wall_stiffness_commanded_N_per_m"),
     "wall_stiffness_rendered_robot_N_per_m": MetricInfo("N/m", "commanded", "wall stiffness at the robot",
                                                         reference="wall_stiffness_commanded_N_per_m"),
+    "wall_damping_commanded_N_s_per_m": MetricInfo("N s/m", None, "wall damping, commanded"),
+    "wall_damping_rendered_N_s_per_m": MetricInfo("N s/m", "commanded", "wall damping at the hand",
+                                                  reference="wall_damping_commanded_N_s_per_m"),
     "wall_penetration_max_m": MetricInfo("m", "lower", "wall penetration, max", True),
     "wall_energy_returned_J": MetricInfo("J", "lower", "wall energy returned, worst cycle", True),
     "wall_bounce_count": MetricInfo("-", "lower", "wall contact bounces"),

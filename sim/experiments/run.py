@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from controllers.registry import build_levels, make_controller
-from controllers.tasks import WallTask
+from controllers.tasks import WallLaw, WallTask
 from models.arm import load_arm
 from sim.analysis.derived import cuff_columns
 from sim.analysis.metrics import (
@@ -38,6 +38,7 @@ from sim.loop.scenario import Scenario
 from sim.loop.simulate import RunResult, simulate
 from sim.loop.simulation import Observer, Progress, jsonable
 from sim.output.report import write_run_report
+from sim.physics.plant import PlantParams
 
 __all__ = ["Batch", "WARM_UP_TICKS", "run_scenario", "warm_up", "reusable_baseline", "evaluate_run",
            "renders_walls"]
@@ -154,10 +155,11 @@ def run_scenario(
     plane = next((w for w in scenario.walls if isinstance(w, tuple) and w and w[0] == "wall_plane"), None)
     if plane is not None:
         spec = dict(plane[1])
-        law = spec.get("law", (1000.0, 10.0))
-        stiffness = law.stiffness_N_per_m if hasattr(law, "stiffness_N_per_m") else float(law[0])
+        law = spec.get("law", WallLaw())
+        law = law if isinstance(law, WallLaw) else WallLaw(*law)
         wall = {"point_m": spec["point_m"], "normal": spec["normal"], "sensor": spec.get("sensor", "hand"),
-                "stiffness_N_per_m": stiffness, "rendered": renders_walls(scenario, controller_name)}
+                "stiffness_N_per_m": law.stiffness_N_per_m, "damping_N_s_per_m": law.damping_N_s_per_m,
+                "rendered": renders_walls(scenario, controller_name)}
     run = load_run(out)  # read once, for the metrics and the report
     metrics = evaluate_run(out, wall=wall, force_limits_N=scenario.force_limits_N, run=run)
     write_json(out / "metrics.json", metrics)
@@ -238,8 +240,10 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     ----------
     wall : dict, optional
         A plane wall: ``point_m``, ``normal``, ``stiffness_N_per_m``,
-        ``sensor`` (cuff name) and ``rendered`` (False: the variant commands no
-        wall, so the stiffness keys are None and the commanded one 0).
+        ``damping_N_s_per_m`` (optional: without it the commanded damping is
+        None), ``sensor`` (cuff name) and ``rendered`` (False: the variant
+        commands no wall, so the rendered stiffness and damping keys are None
+        and the commanded ones 0).
     force_limits_N : dict, optional
         Body-region force limit per cuff name, over
         :data:`sim.analysis.metrics.BODY_REGION_FORCE_LIMITS_N`.
@@ -266,6 +270,10 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
                    armature_kg_m2=meta.get("exo_params", {}).get("armature_kg_m2"), source=str(out / "exo.urdf"))
     cuff_names = list(meta["cuffs"])
     terms = robot_interaction_terms(arm, arrays, [models_meta["cuff_frames"][c][0] for c in cuff_names], dt)
+    # the plant's Coulomb smoothing, for the friction columns of the compensation shares (the default of PlantParams
+    # for a run that does not record it)
+    smoothing = float(((meta.get("parameters") or {}).get("plant") or {}).get(
+        "coulomb_smoothing_rad_s", PlantParams().coulomb_smoothing_rad_s))
     limits = dict(BODY_REGION_FORCE_LIMITS_N) | dict(force_limits_N or {})
     hand = hand_cuff_index(cuff_names, wall.get("sensor", "hand") if wall else "hand")
     # the hand past the wall's plane: the wall's spring is no inertia and its force is no lack of transparency;
@@ -276,13 +284,17 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     metrics = run_metrics(arrays, cuff_names=cuff_names, baseline=base.arrays if base else None, dt_s=dt,
                           tick_times_s=timing.get("tick_time_s", np.zeros(0)), timing=timing, robot_terms=terms,
                           limits_rad=arm.position_limits(), force_limits_N=limits, hand_cuff=hand,
-                          wall_contact=contact)
+                          wall_contact=contact, coulomb_smoothing_rad_s=smoothing)
     if wall is not None:
+        rendered = wall.get("rendered", True)
+        damping = wall.get("damping_N_s_per_m")
         metrics |= wall_metrics(arrays, point_m=wall["point_m"], normal=wall["normal"],
-                                stiffness_N_per_m=wall["stiffness_N_per_m"] if wall.get("rendered", True) else 0.0,
+                                stiffness_N_per_m=wall["stiffness_N_per_m"] if rendered else 0.0,
+                                damping_N_s_per_m=(damping if rendered else 0.0) if damping is not None else None,
                                 hand_cuff=hand, dt_s=dt)
-        if not wall.get("rendered", True):  # a slope of force on penetration means nothing without a wall
+        if not rendered:  # a slope of force on penetration (or its rate) means nothing without a wall
             metrics["wall_stiffness_rendered_N_per_m"] = metrics["wall_stiffness_rendered_robot_N_per_m"] = None
+            metrics["wall_damping_rendered_N_s_per_m"] = None
     return metrics
 
 
