@@ -21,6 +21,7 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
+from sim.analysis.metrics import MassFit
 from sim.experiments.run import run_scenario
 from sim.loop.runlog import load_run
 from sim.loop.scenario import load_scenario
@@ -53,7 +54,7 @@ def _not_blank(png: Path) -> None:
     assert float(np.var(img[..., :3])) > 1e-3, f"{png.name} looks blank"
 
 
-ALWAYS = ("interaction_force", "joint_angles", "hand_path", "joint_torque")
+ALWAYS = ("interaction_force", "joint_angles", "hand_path", "joint_torque", "felt_mass_fit")
 
 
 @pytest.mark.parametrize("name,extra", [("reach", ()), ("wall_push", ("wall_force_penetration",)),
@@ -201,18 +202,38 @@ def test_a_long_title_is_wrapped_inside_the_figure(tmp_path, monkeypatch):
     assert "\n" in plots.wrap_title(long, 8.0)
 
 
-def test_mass_scatter_draws_an_accepted_and_a_rejected_fit(tmp_path):
+def test_mass_scatter_draws_an_accepted_a_rejected_and_an_empty_fit(tmp_path):
     rng = np.random.default_rng(3)
     acc = rng.uniform(-3.0, 3.0, 500)
-    accepted = SimpleNamespace(acc_m_s2=acc, force_N=1.5 * acc + 0.2 + rng.normal(0, 0.1, 500), fitted_kg=1.5,
-                               intercept_N=0.2, r2=0.98, ci95_kg=0.02, mass_kg=1.5, n_samples=500, reason=None)
-    rejected = SimpleNamespace(acc_m_s2=acc, force_N=rng.normal(0, 1.0, 500), fitted_kg=0.01, intercept_N=0.0,
-                               r2=0.001, ci95_kg=0.1, mass_kg=None, n_samples=500, reason="R² below 0.5")
+    accepted = MassFit(mass_kg=1.5, fitted_kg=1.5, r2=0.98, ci95_kg=0.02, n_samples=500, reason=None, acc_m_s2=acc,
+                       force_N=1.5 * acc + 0.2 + rng.normal(0, 0.1, 500), intercept_N=0.2)
+    rejected = MassFit(mass_kg=None, fitted_kg=0.01, r2=0.001, ci95_kg=0.1, n_samples=500, reason="R² below 0.5",
+                       acc_m_s2=acc, force_N=rng.normal(0, 1.0, 500), intercept_N=0.0)
+    # any object with the fields will do (the drawing reads them by name)
     empty = SimpleNamespace(acc_m_s2=np.zeros(0), force_N=np.zeros(0), fitted_kg=None, intercept_N=None, r2=None,
                             ci95_kg=None, mass_kg=None, n_samples=0, reason="fewer than 50 moving ticks")
     png = plots.mass_scatter({"walls": accepted, "zero": rejected, "still": empty}, tmp_path / "fit.png",
                              title="felt mass at the hand")
     _not_blank(png)
+
+
+def test_the_run_reports_felt_mass_fit_is_the_metric_s_fit(runs, monkeypatch, tmp_path):
+    seen = {}
+    real = plots.mass_scatter
+
+    def spy(fits, *a, **k):
+        seen.update(fits)
+        return real(fits, *a, **k)
+
+    monkeypatch.setattr(plots, "mass_scatter", spy)
+    run = load_run(runs["reach"])
+    figures.run_figures(run, run.metrics, tmp_path)
+    fit = seen["walls"]
+    assert fit.mass_kg == run.metrics["apparent_mass_hand_kg"]
+    assert fit.r2 == run.metrics["apparent_mass_hand_r2"] and fit.reason == run.metrics["apparent_mass_hand_note"]
+    if fit.fitted_kg is not None:  # the line drawn is the least-squares line of the points drawn
+        slope, icpt = np.polyfit(fit.acc_m_s2, fit.force_N, 1)
+        assert slope == pytest.approx(fit.fitted_kg, rel=1e-6) and icpt == pytest.approx(fit.intercept_N, abs=1e-6)
 
 
 def test_compare_draws_the_joint_angles_hand_paths_and_limit_phase_of_every_run(runs, tmp_path):
@@ -221,7 +242,8 @@ def test_compare_draws_the_joint_angles_hand_paths_and_limit_phase_of_every_run(
     run_scenario(scenario, "zero", tmp_path / "zero", report=False)
     _, labels, md = compare_runs([runs["limit_approach"], tmp_path / "zero"], tmp_path / "cmp")
     text = md.read_text(encoding="utf-8")
-    for stem in ("interaction_force", "joint_angles", "hand_path", "limit_phase", "felt_mass", "solve_time"):
+    for stem in ("interaction_force", "joint_angles", "hand_path", "limit_phase", "felt_mass", "felt_mass_fit",
+                 "solve_time"):
         png = tmp_path / "cmp" / "plots" / f"{stem}.png"
         assert png.is_file(), stem
         _not_blank(png)

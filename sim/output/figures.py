@@ -32,6 +32,7 @@ run's report: seven panels times several variants would hide the limits.
 
 from __future__ import annotations
 
+import dataclasses
 import inspect
 import math
 from collections.abc import Mapping, Sequence
@@ -44,17 +45,13 @@ from controllers.tasks import JointPositionLimits
 from models.arm import load_arm
 from sim.analysis.derived import cuff_columns
 from sim.analysis.metrics import (
+    apparent_mass_fit,
     hand_cuff_index,
     interaction_force_norm_N,
     plane_penetration_m,
     wall_contacts,
     wall_normal_series,
 )
-
-try:  # the fit behind the felt mass, with its samples
-    from sim.analysis.metrics import apparent_mass_fit
-except ImportError:  # an analysis layer without it: the scatter is skipped
-    apparent_mass_fit = None
 from sim.loop.runlog import Run, RunLogError, load_run
 from sim.output import plots
 
@@ -245,8 +242,6 @@ def _mass_fit(run: Run, metrics: Mapping | None):
                             exclude=exclude)
     metrics = metrics or {}
     if fit.mass_kg is not None and "apparent_mass_hand_kg" in metrics and metrics["apparent_mass_hand_kg"] is None:
-        import dataclasses
-
         fit = dataclasses.replace(fit, mass_kg=None, reason=metrics.get("apparent_mass_hand_note")
                                   or "the run's metrics report no felt mass")
     return fit
@@ -268,8 +263,6 @@ def run_figure_plan(run: Run, metrics: Mapping | None = None) -> dict[str, str]:
         skipped["wall_force_penetration"] = "the scenario has no plane wall"
     if "cuff_wrench_human" not in cols or "p_hand_human" not in cols:
         skipped["felt_mass_fit"] = "no hand force or hand point in the log"
-    elif apparent_mass_fit is None:
-        skipped["felt_mass_fit"] = "sim.analysis.metrics has no apparent_mass_fit"
     if "q_exo" not in cols:
         skipped["limit_phase"] = "no robot joints in the log"
     return skipped
@@ -480,8 +473,8 @@ def compare_figures(runs: Sequence[Run], labels: Sequence[str], out_dir: str | P
                            out / "felt_mass.png", ylabel="felt mass at the hand [kg]",
                            title="apparent (felt) mass at the hand"))
     fits = {lab: _mass_fit(r, r.metrics) for lab, r in zip(labels, runs)
-            if apparent_mass_fit is not None and "cuff_wrench_human" in r.arrays and "p_hand_human" in r.arrays}
-    if fits and apparent_mass_fit is not None:
+            if "cuff_wrench_human" in r.arrays and "p_hand_human" in r.arrays}
+    if fits:
         figs.append(plots.mass_scatter(fits, out / "felt_mass_fit.png",
                                        title="felt mass at the hand: force against acceleration along the movement"))
 

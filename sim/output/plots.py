@@ -101,9 +101,9 @@ def _legend_rows(labels: Sequence[str], width_in: float) -> int:
 
 def _frame(fig, title: str, *, handles: Sequence = (), labels: Sequence[str] = (), left_in: float = 0.75,
            bottom_in: float = 0.5, right_in: float = 0.2, hspace: float | None = None,
-           wspace: float | None = None) -> None:
+           wspace: float | None = None, panel_title_in: float = 0.2) -> None:
     """Place the wrapped ``title`` at the top, the legend (``handles``, ``labels``) in rows beneath it, and the
-    axes in what is left (margins in inches)."""
+    axes in what is left (margins in inches; ``panel_title_in`` is the room for the titles of the top panels)."""
     w, h = fig.get_size_inches()
     text = wrap_title(title, w - 0.2)
     n_title = text.count("\n") + 1
@@ -115,7 +115,7 @@ def _frame(fig, title: str, *, handles: Sequence = (), labels: Sequence[str] = (
         fig.legend(handles, labels, loc="upper center", bbox_to_anchor=(0.5, 1 - (top_in + 0.02) / h), ncol=ncol,
                    frameon=False, fontsize=STYLE["legend"], handlelength=2.0, columnspacing=1.2, borderaxespad=0.0)
         top_in += 0.08 + rows * STYLE["legend"] * 1.45 / 72
-    top_in += 0.2  # room for the panel titles
+    top_in += panel_title_in
     fig.subplots_adjust(left=left_in / w, bottom=bottom_in / h, right=1 - right_in / w, top=1 - top_in / h,
                         hspace=hspace, wspace=wspace)
 
@@ -444,10 +444,12 @@ def mass_scatter(fits: Mapping[str, object], path: Path, *, title: str, max_poin
     n = max(1, len(fits))
     ncols = min(n, 3)
     nrows = math.ceil(n / ncols)
-    fig, axes = plt.subplots(nrows, ncols, squeeze=False, figsize=(3.9 * ncols + 0.5, 3.3 * nrows + 1.3))
+    width = max(6.0, 3.9 * ncols + 0.5)
+    fig, axes = plt.subplots(nrows, ncols, squeeze=False, figsize=(width, 3.3 * nrows + 1.8))
     axes = list(axes.ravel())
     for ax in axes[len(fits):]:
         ax.set_visible(False)
+    n_lines = 1
     for i, (ax, (label, fit)) in enumerate(zip(axes, fits.items())):
         a = np.asarray(getattr(fit, "acc_m_s2", np.zeros(0)), float)
         f = np.asarray(getattr(fit, "force_N", np.zeros(0)), float)
@@ -461,23 +463,25 @@ def mass_scatter(fits: Mapping[str, object], path: Path, *, title: str, max_poin
             ax.plot(x, slope * x + (icpt or 0.0), "-" if accepted else "--", color="k", lw=1.3,
                     label="fitted line" if accepted else "fitted line (rejected)")
             ci = getattr(fit, "ci95_kg", None)
-            lines.append(f"slope {slope:.3g} kg" + (f" ± {ci:.2g}" if ci is not None else ""))
             r2 = getattr(fit, "r2", None)
-            if r2 is not None:
-                lines.append(f"R² {r2:.2f}, {len(a)} samples")
+            lines.append(f"slope {slope:.3g}" + (f" ± {ci:.2g}" if ci is not None else "") + " kg"
+                         + (f", R² {r2:.2f}" if r2 is not None else "") + f", {len(a)} samples")
         reason = getattr(fit, "reason", None)
         if not accepted:
             lines.append("no felt mass: " + (reason or "not fitted"))
         if not len(a):
             ax.text(0.5, 0.5, "no samples", ha="center", va="center", transform=ax.transAxes, color="0.4")
-        ax.text(0.02, 0.98, wrap_title("\n".join(lines), 3.6, STYLE["tick"]), transform=ax.transAxes, va="top",
-                ha="left", fontsize=STYLE["tick"], bbox={"facecolor": "white", "alpha": 0.8, "lw": 0})
-        ax.set_title(label, loc="left")
+        # the fit's figures go in the panel's title, above the data, never over it
+        text = "\n".join([label, *(wrap_title(x, width / ncols - 0.5, STYLE["panel"]) for x in lines)])
+        n_lines = max(n_lines, text.count("\n") + 1)
+        ax.set_title(text, loc="left")
         ax.set_xlabel("hand acceleration along the movement [m/s²]")
         ax.set_ylabel("force against the movement [N]")
         ax.grid(True)
     handles, labels = _handles(axes)
-    _frame(fig, title, handles=handles, labels=labels, hspace=0.5, wspace=0.35)
+    title_in = 0.08 + n_lines * STYLE["panel"] * _LINE_IN
+    _frame(fig, title, handles=handles, labels=labels, hspace=0.35 + title_in / 3.3, wspace=0.35,
+           panel_title_in=title_in)
     return _save(fig, path)
 
 
