@@ -394,7 +394,8 @@ def torque_against_limits(t: np.ndarray, torques: Mapping[str, np.ndarray], limi
     """Torque per joint over time [N m], one small panel per joint, the limits ``±limits_Nm`` drawn as bands.
 
     ``torques``: label -> (ticks, joints), e.g. the commanded and the applied
-    torque; ``saturated`` (ticks, joints) bool marks the ticks whose command
+    torque (the first drawn thin on top of the others, which are wide and
+    pale, so that where they agree both show); ``saturated`` (ticks, joints) bool marks the ticks whose command
     the drive clipped.  Each panel's title gives the peak of the first label
     as a share of the joint's limit; the y range always holds the limit, so
     that the distance to it reads at a glance.
@@ -410,9 +411,9 @@ def torque_against_limits(t: np.ndarray, torques: Mapping[str, np.ndarray], limi
         ax.axhspan(-top, -lim, color=ROLE_COLOURS["limit fill"], lw=0, zorder=0)
         ax.axhline(lim, color=ROLE_COLOURS["limit"], lw=0.9, label="torque limit")
         ax.axhline(-lim, color=ROLE_COLOURS["limit"], lw=0.9)
-        for i, (label, tau) in enumerate(torques.items()):
-            ax.plot(t, tau[:, j], lw=1.1 if i == 0 else 0.9, ls="-" if i == 0 else ":", color=PALETTE[i % len(PALETTE)],
-                    label=label)
+        for i, (label, tau) in enumerate(torques.items()):  # the first thin on top, the others wide and pale beneath
+            ax.plot(t, tau[:, j], lw=0.9 if i == 0 else 2.8, alpha=1.0 if i == 0 else 0.45, zorder=3 if i == 0 else 2,
+                    color=PALETTE[i % len(PALETTE)], label=label)
         if saturated is not None and np.any(saturated[:, j]):
             k = np.flatnonzero(saturated[:, j])
             ax.plot(t[k], first[k, j], "|", ms=5, color=ROLE_COLOURS["limit"], label="clipped by the drive")
