@@ -77,6 +77,7 @@ def test_figures_that_do_not_apply_are_skipped_with_a_reason(runs):
     # no robot joint of the reach comes within 5 deg of a stop: no phase plot
     arm_lo, arm_hi = _limits(runs["reach"])
     assert figures.limit_approach(reach["q_exo"], arm_lo, arm_hi) == []
+    assert plan["limit_phase"] == "no robot joint comes within 5 deg of a stop"
     assert not (runs["reach"] / "plots" / "limit_phase.png").exists()
     # a log without the robot's joints (a human-alone run) has no torque or phase plot to draw
     alone = load_run(runs["reach"] / "human_alone")

@@ -247,7 +247,7 @@ def _mass_fit(run: Run, metrics: Mapping | None):
     return fit
 
 
-def run_figure_plan(run: Run, metrics: Mapping | None = None) -> dict[str, str]:
+def run_figure_plan(run: Run) -> dict[str, str]:
     """Why each figure of :func:`run_figures` that does not apply to ``run`` is skipped: file stem -> reason."""
     skipped = {}
     cols = run.arrays
@@ -265,6 +265,14 @@ def run_figure_plan(run: Run, metrics: Mapping | None = None) -> dict[str, str]:
         skipped["felt_mass_fit"] = "no hand force or hand point in the log"
     if "q_exo" not in cols:
         skipped["limit_phase"] = "no robot joints in the log"
+    if "joint_torque" not in skipped or "limit_phase" not in skipped:
+        arm = _arm(run)
+        if arm is None:
+            for stem in ("joint_torque", "limit_phase"):
+                skipped.setdefault(stem, "the run folder has no robot model (exo.urdf) to read the limits from")
+        elif "limit_phase" not in skipped and not _near_stops([run], arm):
+            skipped["limit_phase"] = (f"no robot joint comes within {math.degrees(LIMIT_APPROACH_RAD):g} deg of a "
+                                      "stop")
     return skipped
 
 
@@ -325,7 +333,7 @@ def run_figures(run: Run, metrics: Mapping | None, folder: str | Path) -> list[P
     """
     out = Path(folder) / "plots"
     meta = run.meta
-    skipped = run_figure_plan(run, metrics)
+    skipped = run_figure_plan(run)
     figs: list[Path] = []
     t = np.asarray(run["t"], float)
     walls = plane_walls(meta)
@@ -376,7 +384,7 @@ def run_figures(run: Run, metrics: Mapping | None, folder: str | Path) -> list[P
     arm = None
     if "joint_torque" not in skipped or "limit_phase" not in skipped:
         arm = _arm(run)
-    if "joint_torque" not in skipped and arm is not None:
+    if "joint_torque" not in skipped:
         torques = {"commanded": np.asarray(run["tau_cmd"], float)}
         if "tau_applied" in run.arrays:
             torques["applied by the drives"] = np.asarray(run["tau_applied"], float)
