@@ -342,44 +342,50 @@ def hand_path(paths: Mapping[str, np.ndarray], views: Sequence[tuple[int, int]],
     (the side the normal points to, where the penetration
     :math:`(x - p) \\cdot n` is positive) is shaded.
     """
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch, Polygon
+
     plt = _plt()
     fig, axes = plt.subplots(1, len(views), figsize=(4.3 * len(views) + 0.5, 5.0), squeeze=False)
     axes = list(axes.ravel())
+    walled = False
     for k, (ax, (i, j)) in enumerate(zip(axes, views)):
         for n_lab, (label, p) in enumerate(paths.items()):
             c = (colours or {}).get(label, PALETTE[n_lab % len(PALETTE)])
             ax.plot(p[:, i], p[:, j], lw=1.3, color=c, label=label)
             ax.plot(p[0, i], p[0, j], "o", ms=6, color=c, mfc="white", zorder=4)
             ax.plot(p[-1, i], p[-1, j], "s", ms=4.5, color=c, zorder=4)
-        ax.set_aspect("equal", adjustable="datalim")
-        ax.autoscale_view()
-        ax.margins(0.08)
-        lo = np.array([ax.get_xlim()[0], ax.get_ylim()[0]])
-        hi = np.array([ax.get_xlim()[1], ax.get_ylim()[1]])
+        ax.set_aspect("equal", adjustable="datalim")  # metres alike on both axes: the path's true shape
+        lo, hi = ax.dataLim.min, ax.dataLim.max
         for point, normal in walls:
             p0, n = np.asarray(point, float), np.asarray(normal, float)
             n2 = n[[i, j]]
             if np.linalg.norm(n2) < 0.99 * np.linalg.norm(n):  # the plane is not seen edge on in this view
                 continue
-            d = np.array([-n2[1], n2[0]])
+            walled = True
+            d = np.array([-n2[1], n2[0]]) / np.linalg.norm(n2)
             c0 = p0[[i, j]]
-            span = np.linalg.norm(hi - lo) * 2
+            mid = 0.5 * (lo + hi)
+            ax.update_datalim([c0 + d * float((mid - c0) @ d)])  # the wall in view even where the hand keeps clear
+            span = 4.0 * (np.linalg.norm(hi - lo) + np.linalg.norm(c0 - 0.5 * (lo + hi))) + 1.0
             a, b = c0 - span * d, c0 + span * d
-            ax.plot([a[0], b[0]], [a[1], b[1]], color=ROLE_COLOURS["limit"], lw=1.6, label="wall plane")
             out = span * n2 / np.linalg.norm(n2)  # the normal points into the wall: penetration (p - p0).n > 0
-            beyond = np.array([a, b, b + out, a + out])
-            ax.fill(beyond[:, 0], beyond[:, 1], color=ROLE_COLOURS["limit fill"], alpha=0.6, lw=0, zorder=0,
-                    label="past the wall")
-        ax.set_xlim(lo[0], hi[0])
-        ax.set_ylim(lo[1], hi[1])
+            # added as plain artists, so that the long line and band do not widen the axes' limits
+            ax.add_artist(Line2D([a[0], b[0]], [a[1], b[1]], color=ROLE_COLOURS["limit"], lw=1.6))
+            ax.add_artist(Polygon(np.array([a, b, b + out, a + out]), closed=True, color=ROLE_COLOURS["limit fill"],
+                                  alpha=0.6, lw=0, zorder=0))
+        ax.autoscale_view()
+        ax.margins(0.08)
         ax.set_xlabel(f"{axis_names[i]} [m]")
         ax.set_ylabel(f"{axis_names[j]} [m]")
         if view_names:
             ax.set_title(view_names[k], loc="left")
         ax.grid(True)
-    from matplotlib.lines import Line2D
-
     handles, labels = _handles(axes)
+    if walled:
+        handles += [Line2D([], [], color=ROLE_COLOURS["limit"], lw=1.6),
+                    Patch(color=ROLE_COLOURS["limit fill"], alpha=0.6, lw=0)]
+        labels += ["wall plane", "past the wall"]
     handles += [Line2D([], [], ls="", marker="o", mfc="white", color="0.2", ms=6),
                 Line2D([], [], ls="", marker="s", color="0.2", ms=4.5)]
     labels += ["start", "end"]
