@@ -8,8 +8,8 @@ and call the drawing function; a figure that does not apply is skipped
 ========================== ==================================================== =====================================
 file                       what it shows                                        applies when
 ========================== ==================================================== =====================================
-interaction_force.png      force magnitude over time per cuff and in total,     always (a coupled run)
-                           the periods of wall contact shaded
+interaction_force.png      force magnitude over time per cuff and in total,     always (a coupled run); the shading
+                           the periods of wall contact shaded                   needs a plane wall
 joint_angles.png           each joint of the wearer over time: the intent, the  the log has ``q_human``; the alone
                            wearer with the robot, the wearer alone              line needs the ``human_alone`` folder
 hand_path.png              the hand of the wearer and of the robot in the two   the log has both hand points
@@ -17,8 +17,8 @@ hand_path.png              the hand of the wearer and of the robot in the two   
 joint_torque.png           commanded (and applied) torque per joint against     the log has ``tau_cmd`` and the run
                            the model's effort limits                            folder its ``exo.urdf``
 wall_force_penetration.png wall-normal force against penetration                the scenario has a plane wall
-felt_mass_fit.png          force against acceleration along the movement and    a movement to fit (50 moving ticks)
-                           the fitted line whose slope is the felt mass
+felt_mass_fit.png          force against acceleration along the movement and    the log has the hand force and point
+                           the fitted line whose slope is the felt mass         (a rejected fit shows its reason)
 limit_phase.png            velocity against angle of each joint near its stop,  a robot joint comes within
                            the stop and the limit task's braking curve          :data:`LIMIT_APPROACH_RAD` of a stop
 ========================== ==================================================== =====================================
