@@ -26,19 +26,16 @@ from pathlib import Path
 
 import numpy as np
 
-from sim.analysis.derived import cuff_columns
 from sim.analysis.levels import level_activity
 from sim.analysis.metrics import (
     METRICS,
     flat_metrics,
-    hand_cuff_index,
-    interaction_force_norm_N,
     is_timing_key,
-    wall_normal_series,
 )
 from sim.analysis.tables import run_rows, write_csv
 from sim.loop.runlog import Run, RunLogError, load_run
 from sim.output import plots
+from sim.output.figures import compare_figures, run_figures
 
 __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
            "write_run_report", "compare_runs", "write_sweep_report", "write_sweeps_report", "sweep_verdicts",
@@ -316,18 +313,6 @@ def _marked(rows: Sequence[Mapping], labels: Sequence[str], mark: str) -> list[l
     return out
 
 
-def _wall_spec(meta: Mapping) -> dict | None:
-    for w in meta.get("walls") or []:
-        if isinstance(w, list) and len(w) == 2 and w[0] == "wall_plane":
-            return w[1]
-    return None
-
-
-def _wall_series(run, spec: Mapping) -> tuple[np.ndarray, np.ndarray]:
-    hand = hand_cuff_index(run.meta["cuffs"], spec.get("sensor", "hand"))
-    return wall_normal_series(run.arrays | cuff_columns(run), spec["point_m"], spec["normal"], hand)
-
-
 def _value_text(v) -> str:
     """A task parameter as text: numbers by :func:`fmt`, lists in brackets."""
     if isinstance(v, float):
@@ -451,19 +436,7 @@ def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run:
     run = load_run(folder) if run is None else run
     m = dict(run.metrics if metrics is None else metrics)
     meta = run.meta
-    t = np.asarray(run["t"])
-    w = np.asarray(run["cuff_wrench_human"])
-    series = {"all cuffs": (t, interaction_force_norm_N(w))}
-    for i, name in enumerate(meta["cuffs"]):
-        series[name] = (t, np.linalg.norm(w[:, i, :3], axis=-1))
-    figs = [plots.force_over_time(series, folder / "plots" / "interaction_force.png",
-                                  title=f"{meta['scenario']} / {meta['controller']}: interaction force")]
-    spec = _wall_spec(meta)
-    if spec is not None:
-        pen, felt = _wall_series(run, spec)
-        figs.append(plots.force_against_penetration({meta["controller"]: (pen, felt)},
-                                                    folder / "plots" / "wall_force_penetration.png",
-                                                    commanded_N_per_m=m.get("wall_stiffness_commanded_N_per_m")))
+    figs = run_figures(run, m, folder)
     timeline = _timeline(run, meta, folder)
     flat = flat_metrics(m)
     rows = [[k, key_info(k)[0], fmt(v) if is_applicable(k, flat, meta) else "n/a", key_info(k)[2]]
@@ -506,27 +479,7 @@ def compare_runs(run_dirs: Sequence[str | Path], out_dir: str | Path, labels: Se
     out.mkdir(parents=True, exist_ok=True)
     rows = comparison_rows(labels, [r.metrics for r in runs], [r.meta for r in runs])
     write_csv(out / "compare.csv", rows)
-    figs = []
-    figs.append(plots.force_over_time(
-        {lab: (np.asarray(r["t"]), interaction_force_norm_N(r["cuff_wrench_human"])) for lab, r in zip(labels, runs)},
-        out / "plots" / "interaction_force.png", title="interaction force, all cuffs"))
-    walls = {lab: (r, _wall_spec(r.meta)) for lab, r in zip(labels, runs)}
-    if any(spec is not None for _, spec in walls.values()):
-        commanded = max((r.metrics.get("wall_stiffness_commanded_N_per_m") or 0.0) for r in runs) or None
-        figs.append(plots.force_against_penetration(
-            {lab: _wall_series(r, spec) for lab, (r, spec) in walls.items() if spec is not None},
-            out / "plots" / "wall_force_penetration.png", commanded_N_per_m=commanded))
-    figs.append(plots.bars({lab: r.metrics.get("apparent_mass_hand_kg") for lab, r in zip(labels, runs)},
-                           out / "plots" / "felt_mass.png", ylabel="felt mass at the hand [kg]",
-                           title="apparent (felt) mass at the hand"))
-    solve = {}
-    for lab, d in zip(labels, run_dirs):
-        p = Path(d) / "timing.npz"
-        if p.is_file():
-            with np.load(p, allow_pickle=False) as f:
-                if "diag_solve_time_s" in f.files:
-                    solve[lab] = f["diag_solve_time_s"]
-    figs.append(plots.solve_time_histograms(solve, out / "plots" / "solve_time.png"))
+    figs = compare_figures(runs, labels, out)
     header = ["metric", "unit", *labels]
     scen = sorted({str(r.meta.get("scenario")) for r in runs})
     text = ["# Comparison: " + ", ".join(labels), "",
