@@ -218,7 +218,7 @@ def sight_blocked(eye_m, target_m, wall) -> bool:
 
 def frame_view(hand_path_m, arm_points_m, walls: Sequence = (), body_centre_m=None,
                fallback_normal=(0.0, -1.0, 0.0), fov_deg: float = 34.0, aspect: float = 4.0 / 3.0,
-               fill: float = 0.8) -> View:
+               fill: float = 0.8, raise_deg: float = 0.0) -> View:
     """A camera that looks along the normal of the hand path's plane and frames the arm.
 
     1. Direction: :func:`path_normal` of ``hand_path_m`` (with ``prefer=fallback_normal``);
@@ -230,9 +230,14 @@ def frame_view(hand_path_m, arm_points_m, walls: Sequence = (), body_centre_m=No
        (:func:`sight_blocked`) is taken; on a tie, the one on the arm's side
        of ``body_centre_m`` (so the trunk is behind the arm); then the one
        turned least; then the one from above.
-    3. Screen axes: up is world z projected on the image plane (world x when
+    3. Optionally the camera is raised by ``raise_deg`` (turned about the
+       horizontal screen axis toward world +z), unless it already looks within
+       30 deg of straight down or up: a view from a little above shows the
+       floor in depth, and shortens lengths in the path's plane by at most
+       :math:`1 - \\cos` ``raise_deg`` (3.4 % at 15 deg).
+    4. Screen axes: up is world z projected on the image plane (world x when
        looking straight down or up), right = up x direction.
-    4. Target and distance: the points ``arm_points_m`` are projected on the
+    5. Target and distance: the points ``arm_points_m`` are projected on the
        screen axes; the target is the middle of their extent, and the
        distance is the smallest at which a pinhole camera of vertical field
        of view ``fov_deg`` and width/height ``aspect`` sees them within the
@@ -259,6 +264,8 @@ def frame_view(hand_path_m, arm_points_m, walls: Sequence = (), body_centre_m=No
         Picture width / height assumed for the horizontal extent.
     fill : float, optional
         Fraction of the picture's height (and width) the points may span, in (0, 1].
+    raise_deg : float, optional
+        Elevation added to the camera [deg], in [0, 45].
 
     Returns
     -------
@@ -272,6 +279,8 @@ def frame_view(hand_path_m, arm_points_m, walls: Sequence = (), body_centre_m=No
         raise ValueError(f"aspect must be positive, got {aspect!r}")
     if not 0 < fov_deg < 180:
         raise ValueError(f"fov_deg must lie in (0, 180) degrees, got {fov_deg!r}")
+    if not 0 <= raise_deg <= 45:
+        raise ValueError(f"raise_deg must lie in [0, 45] degrees, got {raise_deg!r}")
     fb = np.asarray(fallback_normal, dtype=float)
     if fb.shape != (3,) or not np.linalg.norm(fb) > 0:
         raise ValueError(f"fallback_normal must be a non-zero 3-vector, got {fallback_normal!r}")
@@ -301,6 +310,11 @@ def frame_view(hand_path_m, arm_points_m, walls: Sequence = (), body_centre_m=No
                 -c[2]), c
 
     direction = min((candidate(1.0), candidate(-1.0)), key=lambda sc: sc[0])[1]
+    horizontal = math.hypot(direction[0], direction[1])
+    if raise_deg > 0 and horizontal > math.sin(math.radians(30.0)):
+        elevation = math.atan2(direction[2], horizontal) + math.radians(raise_deg)
+        direction = np.array([direction[0] / horizontal * math.cos(elevation),
+                              direction[1] / horizontal * math.cos(elevation), math.sin(elevation)])
     z = np.array([0.0, 0.0, 1.0])
     up = z - (z @ direction) * direction
     if np.linalg.norm(up) < 1e-6:
