@@ -103,6 +103,19 @@ def test_distance_frames_the_points_within_the_requested_fill():
     assert worst > 0.6 * fill  # and not lost in the middle of it (the bound is conservative in depth)
 
 
+def test_raised_camera_keeps_its_azimuth_and_gains_the_elevation():
+    pts = _plane_path(normal=np.array([0.0, -1.0, 0.0]))  # a movement in the sagittal (x-z) plane
+    flat = framing.frame_view(pts, pts, fallback_normal=(0.0, -1.0, 0.0))
+    raised = framing.frame_view(pts, pts, fallback_normal=(0.0, -1.0, 0.0), raise_deg=15.0)
+    el = [math.degrees(math.asin(v.direction[2])) for v in (flat, raised)]
+    assert el[1] - el[0] == pytest.approx(15.0, abs=1e-9)
+    az = [math.atan2(v.direction[1], v.direction[0]) for v in (flat, raised)]
+    assert az[1] == pytest.approx(az[0], abs=1e-12)
+    assert np.linalg.norm(raised.direction) == pytest.approx(1.0)
+    with pytest.raises(ValueError, match="raise_deg"):
+        framing.frame_view(pts, pts, raise_deg=60.0)
+
+
 def test_degenerate_paths():
     line = np.outer(np.linspace(0, 0.3, 50), [1.0, 1.0, 0.0]) / math.sqrt(2)  # a horizontal line
     n = framing.path_normal(line)

@@ -1220,7 +1220,8 @@ def replay_captions(run_dir: str | Path, fps: float = 30, ghost: bool = True) ->
         ``duration_s``, ``t_s`` (simulated time of each animation frame [s]),
         ``cuffs`` (names), ``force_N`` (per frame, the magnitude of the force
         on the wearer at each cuff [N], 0.1 N resolution), ``force_scale_cm_per_N``,
-        ``grid_cm`` and ``ghost`` (bool).
+        ``force_cap_N`` (force drawn at the longest arrow [N]), ``grid_cm``,
+        ``ghost`` (bool) and ``walls`` (how many).
     """
     run = load_run(run_dir)
     meta = run.meta
@@ -1253,6 +1254,7 @@ def replay_captions(run_dir: str | Path, fps: float = 30, ghost: bool = True) ->
         "force_cap_N": round(FORCE_ARROW_MAX_M / FORCE_SCALE_M_PER_N, 1),
         "grid_cm": round(100.0 * FLOOR_GRID_M, 3),
         "ghost": bool(ghost),
+        "walls": len(meta.get("walls") or []),
     }
 
 
@@ -1289,7 +1291,9 @@ def add_captions(html: str, captions: Mapping[str, Any]) -> str:
            (TRAIL, "hand path")]
     if captions.get("ghost"):
         key.insert(1, (GHOST, "the arm alone, without the robot (baseline), and its hand path"))
-    key += [(WALL, "virtual wall"), (GRID_MAJOR, f"floor grid: {captions['grid_cm']:g} cm squares")]
+    if captions.get("walls"):
+        key.append((WALL, "virtual wall"))
+    key.append((GRID_MAJOR, f"floor grid: {captions['grid_cm']:g} cm squares"))
     rows = "".join(f'<div><span class="xs-sw" style="background:{_css(c)}"></span>{esc(label)}</div>'
                    for c, label in key)
     head = (f'<div id="xs-caption"><div id="xs-scenario">{esc(captions["scenario"])}</div>'
