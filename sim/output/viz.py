@@ -252,8 +252,9 @@ def arrow_base(point_m: Sequence[float], force_N: Sequence[float], axis: Sequenc
     perpendicular to the limb, :math:`F - (F \\cdot a) a`; it then points along
     :math:`F`, so that it never enters the limb.  When the force runs nearly
     along the limb (its perpendicular part under a quarter of :math:`|F|`),
-    :math:`e` is the part of ``toward`` (the direction to the camera)
-    perpendicular to the limb, so the arrow runs in front of the limb.
+    :math:`e` is the part of ``toward`` perpendicular to the limb (the scene
+    passes the direction across the limb in the picture, toward its top), so
+    the arrow runs beside the limb.
 
     Parameters
     ----------
@@ -951,7 +952,10 @@ class Scene:
             T[:3, :3] = _rotation_y_to(f) if total > 0 else np.eye(3)
             p = pin.updateFramePlacement(m.human_model, m.human_data, fid).translation
             i = segs[k]
-            T[:3, 3] = arrow_base(p, f, pts[i + 1] - pts[i], self.cuff_radius_m(k, q_human), self.view.direction)
+            axis = pts[i + 1] - pts[i]
+            beside = np.cross(axis, self.view.direction)  # across the limb in the picture, toward its top
+            beside = -beside if beside @ self.view.up < 0 else beside
+            T[:3, 3] = arrow_base(p, f, axis, self.cuff_radius_m(k, q_human), beside)
             out[node] = T
             out[f"{node}/head"] = _translation([0.0, shaft, 0.0])
         if self.ghost and q_ghost is not None:
