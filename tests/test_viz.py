@@ -187,6 +187,19 @@ def test_arrow_nodes_follow_the_force(run_dir):
     np.testing.assert_allclose(off / np.linalg.norm(off), f_perp / np.linalg.norm(f_perp), atol=1e-12)
 
 
+def test_arrow_base_stays_outside_the_limb():
+    """The arrow's base is on the cuff's surface on the force's side; a force along the limb is moved beside it."""
+    p, axis, r = np.array([0.1, 0.2, 0.3]), np.array([0.0, 0.0, 2.0]), 0.05
+    base = viz.arrow_base(p, [3.0, 4.0, 10.0], axis, r)  # perpendicular part (3, 4, 0)
+    np.testing.assert_allclose(base, p + r * np.array([0.6, 0.8, 0.0]))
+    # every point of the arrow base + s F (s >= 0) stays at least r from the limb's axis
+    for s in np.linspace(0.0, 0.05, 11):
+        q = base + s * np.array([3.0, 4.0, 10.0]) - p
+        assert np.linalg.norm(q[:2]) >= r - 1e-12
+    along = viz.arrow_base(p, [0.0, 0.0, -5.0], axis, r, toward=[0.0, 1.0, 1.0])
+    np.testing.assert_allclose(along, p + [0.0, r, 0.0])
+
+
 def test_live_viewer_throttles_with_fake_clock(run_dir, vis):
     now = [0.0]
     live = viz.LiveViewer(run_dir, max_fps=10, vis=vis, clock=lambda: now[0])
