@@ -1035,11 +1035,6 @@ def _frame_indices(t: np.ndarray, dt: float, fps: float) -> np.ndarray:
     return np.clip(idx, 0, n_ticks - 1)
 
 
-def _workspace_centre(*point_sets: np.ndarray) -> np.ndarray:
-    pts = np.concatenate([np.asarray(p, dtype=float).reshape(-1, 3) for p in point_sets])
-    return 0.5 * (pts.min(axis=0) + pts.max(axis=0))
-
-
 def _side_normal(models: SceneModels) -> np.ndarray:
     """World direction from the trunk out through the drawn arm's shoulder (horizontal)."""
     lateral = -1.0 if models.body is None or models.body.side == "right" else 1.0
