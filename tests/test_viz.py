@@ -79,6 +79,48 @@ def test_scene_has_expected_objects(run_dir, vis):
         assert f"{root}/forces/{cuff}/head/shape" in paths
     assert f"{root}/trail" in paths
     assert {"/Cameras/default", "/Cameras/default/rotated/<object>"} <= paths
+    # one cuff visual per cuff: the URDF's cuff shells (one per cuff in the shipped robot) are drawn hidden
+    assert len(scene.hidden) == len(meta["cuffs"]) and all(h.startswith("exo/") for h in scene.hidden)
+    # the baseline's hand path, and the context of the wearer's size
+    assert f"{root}/ghost_trail" in paths
+    for name in ("trunk", "head", "seat", "backrest", "floor", "grid_minor", "grid_major", "mount_column"):
+        assert f"{root}/body/{name}" in paths, name
+
+
+def test_seated_body_follows_the_wearer():
+    """Drawn proportions against their sources: Drillis & Contini (1966) as drawn in Winter (2009), Fig. 4.1
+    (shoulder at 0.818 H, top of the head at H: the head's top 0.182 H above the shoulder, from memory) and
+    ANSUR II (sitting acromial height 0.346 H, from memory)."""
+    from models.human import SUBJECTS
+
+    for name in ("f5", "m95"):
+        H = SUBJECTS[name].stature_m
+        body = viz.SeatedBody(H, 0.086 * H * np.cos(np.radians(20.0)))
+        shapes = {n: (kind, size, pose) for n, kind, size, pose, _ in body.shapes()}
+        _, size, pose = shapes["head"]
+        assert pose[2, 3] + size[2] == pytest.approx((1.0 - 0.818) * H)  # top of the head
+        assert body.seat_z_m == pytest.approx(-0.346 * H)
+        _, size, pose = shapes["seat"]
+        assert pose[2, 3] + size[2] / 2 == pytest.approx(body.seat_z_m)  # the seat's top carries the wearer
+        _, size, pose = shapes["trunk"]
+        assert pose[1, 3] == pytest.approx(body.midline_y_m) and size[1] < body.shoulder_half_breadth_m
+        assert pose[2, 3] - size[0] / 2 == pytest.approx(body.seat_z_m)  # the trunk sits on the seat
+        assert body.floor_z_m < body.seat_z_m - 0.2 * H
+    left = viz.SeatedBody(1.75, 0.14, side="left")
+    assert left.midline_y_m == pytest.approx(-0.14)
+    with pytest.raises(ValueError, match="stature_m"):
+        viz.SeatedBody(0.3, 0.14)
+
+
+def test_seated_body_from_meta(run_dir):
+    meta = load_run(run_dir).meta
+    body = viz.seated_body(meta)
+    from models.human import HumanParams
+
+    hp = HumanParams("m50")  # the reach scenario's wearer
+    assert body.stature_m == pytest.approx(hp.subject.stature_m) and body.side == "right"
+    assert body.shoulder_half_breadth_m == pytest.approx(abs(hp.clavicle_vector_m()[1]))
+    assert viz.seated_body({"parameters": {}}) is None
 
 
 def test_walls_are_drawn(wall_run_dir, vis):
@@ -128,12 +170,34 @@ def test_arrow_nodes_follow_the_force(run_dir):
     head = s[f"{node}/head"][1] * viz.FORCE_HEAD_M
     assert shaft + head == pytest.approx(0.12)
     assert T[f"{node}/head"][1, 3] == pytest.approx(shaft)  # the head sits at the shaft's end
-    # the arrow starts at the human cuff frame
+    # the arrow starts in the human cuff frame's cross-section of the limb, on the cuff's outer surface, on the
+    # side the force points to (so that the arrow stays outside the limb)
     import pinocchio as pin
 
-    pin.forwardKinematics(models.human_model, models.human_data, run.arrays["q_human"][0])
+    q_h = run.arrays["q_human"][0]
+    pts = models.human_points(q_h)
     p = pin.updateFramePlacement(models.human_model, models.human_data, models.cuff_human_frames[0]).translation
-    np.testing.assert_allclose(T[node][:3, 3], p)
+    seg = scene.cuff_segments(q_h)[0]
+    assert seg == 0  # the upper-arm cuff sits on the first segment
+    axis = (pts[1] - pts[0]) / np.linalg.norm(pts[1] - pts[0])
+    off = T[node][:3, 3] - p
+    assert off @ axis == pytest.approx(0.0, abs=1e-12)
+    assert np.linalg.norm(off) == pytest.approx(models.segment_radii[0] + viz.CUFF_BAND_M)
+    f_perp = f[0] - (f[0] @ axis) * axis
+    np.testing.assert_allclose(off / np.linalg.norm(off), f_perp / np.linalg.norm(f_perp), atol=1e-12)
+
+
+def test_arrow_base_stays_outside_the_limb():
+    """The arrow's base is on the cuff's surface on the force's side; a force along the limb is moved beside it."""
+    p, axis, r = np.array([0.1, 0.2, 0.3]), np.array([0.0, 0.0, 2.0]), 0.05
+    base = viz.arrow_base(p, [3.0, 4.0, 10.0], axis, r)  # perpendicular part (3, 4, 0)
+    np.testing.assert_allclose(base, p + r * np.array([0.6, 0.8, 0.0]))
+    # every point of the arrow base + s F (s >= 0) stays at least r from the limb's axis
+    for s in np.linspace(0.0, 0.05, 11):
+        q = base + s * np.array([3.0, 4.0, 10.0]) - p
+        assert np.linalg.norm(q[:2]) >= r - 1e-12
+    along = viz.arrow_base(p, [0.0, 0.0, -5.0], axis, r, toward=[0.0, 1.0, 1.0])
+    np.testing.assert_allclose(along, p + [0.0, r, 0.0])
 
 
 def test_live_viewer_throttles_with_fake_clock(run_dir, vis):
@@ -182,6 +246,26 @@ def test_html_file_contains_the_scene(run_dir, vis, tmp_path):
     for name in (b"set_animation", f"{viz.ROOT}/exo/".encode(), f"{viz.ROOT}/human/seg_0".encode(),
                  b"forces/hand", b"cuffs/forearm", b"trail", b"ghost/seg_1"):
         assert name in cmds, name
+    # our title and the caption with its data, driven by the viewer's animation clock
+    assert "<title>exosandbox replay: reach with the gravity controller</title>" in html
+    assert "MeshCat</title>" not in html
+    assert 'id="xs-scenario">reach<' in html and 'id="xs-controller">gravity<' in html
+    assert "1 cm per N" in html and "10 cm squares" in html and "animator" in html
+
+
+def test_captions_follow_the_animation_frames(run_dir):
+    run = load_run(run_dir)
+    cap = viz.replay_captions(run_dir, fps=30)
+    duration = len(run.arrays["t"]) * run.meta["dt_s"]
+    assert len(cap["t_s"]) == len(cap["force_N"]) == round(duration * 30)
+    assert cap["scenario"] == "reach" and cap["controller"] == "gravity" and cap["cuffs"] == run.meta["cuffs"]
+    forces = cuff_columns(run)["cuff_force_human_world"]
+    for k in (0, len(cap["t_s"]) // 2, len(cap["t_s"]) - 1):  # frame k shows the last tick at or before k / fps
+        i = int(np.searchsorted(run.arrays["t"], run.arrays["t"][0] + k / 30 + 1e-9, side="right")) - 1
+        assert cap["t_s"][k] == pytest.approx(run.arrays["t"][i], abs=1e-4)
+        np.testing.assert_allclose(cap["force_N"][k], np.linalg.norm(forces[i], axis=-1), atol=0.051)
+    with pytest.raises(ValueError, match="</body>"):
+        viz.add_captions("<html></html>", cap)
 
 
 def test_write_html_with_own_server_stops_it(run_dir, tmp_path, monkeypatch):

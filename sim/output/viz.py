@@ -10,30 +10,43 @@ What is drawn (the scene tree under ``/meshcat/exosandbox``):
 
 ``exo/<geometry>``
     the exoskeleton links from the URDF's visual geometry (boxes, cylinders,
-    spheres), in their URDF colours;
+    spheres), in their URDF colours; the URDF's cuff shells (visuals centred
+    on a cuff frame) are kept but hidden, so that each cuff is drawn once;
 ``human/seg_<i>``, ``human/joint_<i>``
     the wearer's arm as capsules (a cylinder and two spheres per segment,
-    shoulder -> elbow -> wrist -> hand point) in a skin tone, and the trunk from
-    the human URDF as a muted box;
+    shoulder -> elbow -> wrist -> hand point) in :data:`SKIN`;
+``body/...``
+    context of the wearer's size, in a neutral mannequin tone: a seated trunk,
+    neck, head, thighs, lower legs and feet sized from the stature
+    (:class:`SeatedBody`), a seat with a backrest, a floor with a grid of
+    :data:`FLOOR_GRID_M` squares, and a column from the floor to the robot's
+    base (:data:`MOUNT`);
 ``cuffs/<name>``
-    a thin ring (short open-looking disc) at each cuff frame of the robot;
+    one band around the limb at each cuff frame of the robot;
 ``forces/<name>``
-    an arrow at each human cuff frame for the interaction force *on the
-    human*: cylinder shaft and cone head, of length :data:`FORCE_SCALE_M_PER_N`
-    (1 cm per N) times the magnitude, capped at :data:`FORCE_ARROW_MAX_M`
-    (see :func:`arrow_lengths`);
-``trail``
+    an arrow for the interaction force *on the human* at each cuff: it starts
+    on the cuff's outer surface, on the side the force points to, and points
+    along the force (:func:`arrow_base`); cylinder shaft and cone head, of
+    length :data:`FORCE_SCALE_M_PER_N` (1 cm per N) times the magnitude,
+    capped at :data:`FORCE_ARROW_MAX_M` (see :func:`arrow_lengths`);
+``trail``, ``ghost_trail``
     the path of the human hand point (the whole run in replays, the last
-    :data:`LIVE_TRAIL_S` seconds in the live viewer);
+    :data:`LIVE_TRAIL_S` seconds in the live viewer), and the baseline's;
 ``ghost/...``
-    optionally, the human-alone baseline arm as a translucent ghost;
+    optionally, the human-alone baseline arm as a thinner arm in
+    :data:`GHOST` violet;
 ``walls/<i>``
-    the virtual walls as translucent shapes (a plane as a large thin box).
+    the virtual walls as outlines with a faint face (a plane as a pane that
+    covers the arm's reach across it).
 
-The whole scene is offset so that the middle of the arm's workspace sits at
-the world origin, which is where meshcat's orbit camera looks; the camera is
-then placed in front of and to the right of the wearer at
-:data:`CAMERA_DISTANCE_M`.
+The camera looks along the normal of the hand path's plane, from the side
+where no wall and not the trunk stands between it and the arm, at the distance
+that frames the arm's joints over the whole run
+(:func:`sim.output.framing.frame_view`); the scene is offset so that the
+framed point sits at the world origin, where meshcat's orbit camera looks.
+The HTML replay adds a caption (:func:`replay_captions`) that shows the
+scenario, the controller, the simulated time and the interaction forces,
+driven by the replay's clock.
 
 Moving parts are meshcat *group* nodes that carry only a transform; their
 shapes are child nodes with a fixed offset.  Animations therefore target nodes
@@ -42,6 +55,18 @@ static HTML export regardless of the order in which its commands load.
 
 meshcat is imported lazily-guarded: ``import sim.output.viz`` works without it and
 the :class:`ImportError` with the install hint is raised when a viewer is made.
+
+References
+----------
+.. [Drillis1966] R. Drillis, R. Contini, *Body Segment Parameters*, Report
+   1166-03, Office of Vocational Rehabilitation, New York University, 1966;
+   the segment lengths as fractions of stature are drawn in D. A. Winter,
+   *Biomechanics and Motor Control of Human Movement*, 4th ed., Wiley, 2009,
+   Fig. 4.1 (fractions from memory).
+.. [Gordon2014] C. C. Gordon et al., *2012 Anthropometric Survey of U.S. Army
+   Personnel: Methods and Summary Statistics* (ANSUR II), NATICK/TR-15/007,
+   2014 (sitting acromial height about 0.346 of stature in both sexes, from
+   memory).
 """
 
 from __future__ import annotations
@@ -51,6 +76,7 @@ import io
 import json
 import logging
 import math
+import re
 import threading
 import time
 from collections import deque
@@ -62,8 +88,10 @@ from typing import Any
 import numpy as np
 import pinocchio as pin
 
+from models.human import HumanParams, Subject
 from sim.analysis.derived import cuff_columns
 from sim.loop.runlog import load_run
+from sim.output.framing import View, frame_view
 
 try:  # guarded: the module must import without meshcat
     import meshcat
@@ -80,7 +108,13 @@ __all__ = [
     "FORCE_ARROW_MAX_M",
     "SceneModels",
     "Scene",
+    "SeatedBody",
     "arrow_lengths",
+    "arrow_base",
+    "seated_body",
+    "replay_view",
+    "replay_captions",
+    "add_captions",
     "open_visualizer",
     "close_visualizer",
     "build_animation",
@@ -102,29 +136,47 @@ FORCE_SCALE_M_PER_N = 0.01
 #: Longest force arrow [m]; larger forces are drawn at this length.
 FORCE_ARROW_MAX_M = 0.30
 #: Length of the arrow head [m] (shorter for arrows under 2.5 head lengths).
-FORCE_HEAD_M = 0.03
+FORCE_HEAD_M = 0.035
+#: Radii of the arrow's shaft and of the base of its head [m].
+FORCE_SHAFT_RADIUS_M = 0.009
+FORCE_HEAD_RADIUS_M = 0.02
+#: Radial thickness of a cuff band over the limb's surface [m].
+CUFF_BAND_M = 0.012
+#: Axial width of a cuff band [m].
+CUFF_WIDTH_M = 0.04
 #: Seconds of hand path kept by the live viewer's trail.
 LIVE_TRAIL_S = 3.0
-#: Distance from the camera to the middle of the arm's workspace [m].
-CAMERA_DISTANCE_M = 1.6
-#: Direction from the workspace middle to the camera (front-right, a little above).
-CAMERA_DIRECTION = (0.78, -0.55, 0.30)
 #: Vertical field of view of the camera [deg].
 CAMERA_FOV_DEG = 34.0
+#: Fraction of the picture's height (and of a 4:3 picture's width) the arm's joints span over the run.
+CAMERA_FILL = 0.55
+#: Elevation added to the camera over the hand path's plane normal, so the floor reads in depth [deg].
+CAMERA_RAISE_DEG = 15.0
+#: Side of the floor grid's squares [m].
+FLOOR_GRID_M = 0.1
+#: Radius of the ghost arm relative to the wearer's arm.
+GHOST_RADIUS_RATIO = 0.6
 
 ROOT = "exosandbox"
 """Name of the scene's root node under ``/meshcat``."""
 
 # Our own palette (RGB in 0..1).  The robot keeps its URDF colours.
-SKIN = (0.89, 0.67, 0.52)
-TRUNK = (0.55, 0.60, 0.50)
-GHOST = (0.70, 0.62, 0.90)
-CUFF_RING = (0.18, 0.72, 0.58)
-FORCE_ARROW = (0.86, 0.22, 0.30)
+SKIN = (0.80, 0.56, 0.42)
+BODY = (0.60, 0.63, 0.67)  # the context mannequin (trunk, head, legs): neutral, so the arm stands out
+SEAT = (0.47, 0.42, 0.38)
+MOUNT = (0.36, 0.38, 0.40)
+FLOOR = (0.93, 0.92, 0.89)
+GRID_MINOR = (0.74, 0.74, 0.72)
+GRID_MAJOR = (0.55, 0.55, 0.53)
+GHOST = (0.55, 0.30, 0.90)
+CUFF_RING = (0.13, 0.62, 0.50)
+FORCE_ARROW = (0.86, 0.12, 0.22)
 TRAIL = (0.95, 0.55, 0.10)
-WALL = (0.55, 0.75, 0.88)
-BACKGROUND_TOP = (0.96, 0.96, 0.94)
-BACKGROUND_BOTTOM = (0.82, 0.83, 0.84)
+WALL = (0.30, 0.58, 0.80)
+WALL_EDGE = (0.12, 0.36, 0.58)
+_EXO_KEY = (0.22, 0.40, 0.64)  # the frame colour of the shipped exoskeleton URDF, for the key
+BACKGROUND_TOP = (0.97, 0.97, 0.95)
+BACKGROUND_BOTTOM = (0.86, 0.87, 0.88)
 
 _EPS_SCALE = 1e-6  # three.js dislikes an exactly zero scale
 _ROT_Y_TO_Z = np.array([[1.0, 0, 0, 0], [0, 0, -1.0, 0], [0, 1.0, 0, 0], [0, 0, 0, 1.0]])
@@ -191,9 +243,192 @@ def arrow_lengths(force_N: Sequence[float]) -> tuple[float, float, float]:
     return total, total - head, head
 
 
+def arrow_base(point_m: Sequence[float], force_N: Sequence[float], axis: Sequence[float], radius_m: float,
+               toward: Sequence[float] = (0.0, -1.0, 0.0)) -> np.ndarray:
+    """Start of a force arrow: on the cuff's outer surface, on the side the force points to.
+
+    With the limb axis :math:`a` (unit) and the force :math:`F`, the arrow
+    starts at :math:`p + r e`, where :math:`e` is the unit part of :math:`F`
+    perpendicular to the limb, :math:`F - (F \\cdot a) a`; it then points along
+    :math:`F`, so that it never enters the limb.  When the force runs nearly
+    along the limb (its perpendicular part under a quarter of :math:`|F|`),
+    :math:`e` is the part of ``toward`` perpendicular to the limb (the scene
+    passes the direction across the limb in the picture, toward its top), so
+    the arrow runs beside the limb.
+
+    Parameters
+    ----------
+    point_m : array_like, shape (3,)
+        Cuff point on the limb's axis [m].
+    force_N : array_like, shape (3,)
+        Force [N].
+    axis : array_like, shape (3,)
+        Direction of the limb at the cuff.
+    radius_m : float
+        Outer radius of the cuff [m].
+    toward : array_like, shape (3,), optional
+        Direction used for forces along the limb.
+
+    Returns
+    -------
+    ndarray, shape (3,)
+        Arrow base [m].
+    """
+    p = np.asarray(point_m, dtype=float)
+    f = np.asarray(force_N, dtype=float)
+    a = np.asarray(axis, dtype=float)
+    a = a / max(float(np.linalg.norm(a)), 1e-12)
+    perp = f - (f @ a) * a
+    if not np.linalg.norm(perp) >= 0.25 * np.linalg.norm(f) or not np.linalg.norm(perp) > 0:
+        t = np.asarray(toward, dtype=float)
+        perp = t - (t @ a) * a
+        if np.linalg.norm(perp) < 1e-9:
+            perp = np.cross(a, [0.0, 0.0, 1.0]) if abs(a[2]) < 0.9 else np.cross(a, [1.0, 0.0, 0.0])
+    return p + float(radius_m) * perp / np.linalg.norm(perp)
+
+
+@dataclass(frozen=True)
+class SeatedBody:
+    """Sizes of the context drawn around the arm: a seated wearer, a seat and the floor.
+
+    Lengths are fractions of stature :math:`H` ([Drillis1966]_, from
+    memory) except the shoulder's height above the seat, the sitting
+    acromial height, about :math:`0.346 H` ([Gordon2014]_, from memory), and
+    the shoulders' half-breadth, which is the lateral reach of the human
+    model's clavicle (:meth:`models.human.HumanParams.clavicle_vector_m`), so
+    the trunk meets the arm where the model puts the shoulder.
+
+    Coordinates are in the thorax frame of the human model: origin at the
+    glenohumeral centre of the drawn arm, x forward, y to the wearer's left,
+    z up.
+
+    Attributes
+    ----------
+    stature_m : float
+        Wearer's stature [m].
+    shoulder_half_breadth_m : float
+        Mid-sagittal plane to the glenohumeral centre [m].
+    side : {"right", "left"}
+        The drawn (moving) arm.
+    """
+
+    stature_m: float
+    shoulder_half_breadth_m: float
+    side: str = "right"
+
+    def __post_init__(self) -> None:
+        if not (math.isfinite(self.stature_m) and 1.0 <= self.stature_m <= 2.5):
+            raise ValueError(f"SeatedBody.stature_m must lie in [1.0, 2.5] m, got {self.stature_m!r}")
+        if not (math.isfinite(self.shoulder_half_breadth_m) and 0.05 <= self.shoulder_half_breadth_m <= 0.4):
+            raise ValueError("SeatedBody.shoulder_half_breadth_m must lie in [0.05, 0.4] m, got "
+                             f"{self.shoulder_half_breadth_m!r}")
+        if self.side not in ("right", "left"):
+            raise ValueError(f"SeatedBody.side must be 'right' or 'left', got {self.side!r}")
+
+    @property
+    def midline_y_m(self) -> float:
+        """y of the mid-sagittal plane [m] (to the left of a right arm)."""
+        return self.shoulder_half_breadth_m if self.side == "right" else -self.shoulder_half_breadth_m
+
+    @property
+    def seat_z_m(self) -> float:
+        """Top of the seat, 0.346 H below the shoulder [m]."""
+        return -0.346 * self.stature_m
+
+    @property
+    def thigh_radius_m(self) -> float:
+        return 0.034 * self.stature_m
+
+    @property
+    def floor_z_m(self) -> float:
+        """Floor: the knee height (0.285 H) below the thighs' axis [m]."""
+        return self.seat_z_m + self.thigh_radius_m - 0.285 * self.stature_m
+
+    @property
+    def trunk_depth_m(self) -> float:
+        return 0.11 * self.stature_m
+
+    @property
+    def trunk_x_m(self) -> float:
+        """Front-back middle of the trunk (2 cm behind the shoulder centre, as the human URDF's thorax) [m]."""
+        return -0.02
+
+    @property
+    def centre_m(self) -> np.ndarray:
+        """A point inside the trunk, at mid-height [m]."""
+        return np.array([self.trunk_x_m, self.midline_y_m, 0.5 * self.seat_z_m])
+
+    def shapes(self) -> list[tuple[str, str, tuple[float, ...], np.ndarray, tuple[float, float, float]]]:
+        """The shapes to draw: ``(name, kind, size, pose, rgb)``, poses in the thorax frame.
+
+        ``kind`` is ``"box"`` (size: x, y, z extents), ``"ellipsoid"`` (size:
+        semi-axes) or ``"cylinder"`` (size: height, radius along local x,
+        radius along local y; axis local z).
+        """
+        H, ym = self.stature_m, self.midline_y_m
+        w = self.shoulder_half_breadth_m
+        zs, zf = self.seat_z_m, self.floor_z_m
+        rt = self.thigh_radius_m
+        xt, dt = self.trunk_x_m, self.trunk_depth_m
+        half_w = 0.9 * w  # the trunk's side stays inside the shoulder's centre
+        top = -0.02 * H
+        out = []
+
+        def T(p, R=None):
+            M = np.eye(4)
+            if R is not None:
+                M[:3, :3] = R
+            M[:3, 3] = p
+            return M
+
+        out.append(("trunk", "cylinder", (top - zs, half_w, 0.5 * dt), T([xt, ym, 0.5 * (top + zs)]), BODY))
+        out.append(("shoulders", "ellipsoid", (0.5 * dt, half_w, 0.045 * H), T([xt, ym, top]), BODY))
+        out.append(("neck", "cylinder", (0.07 * H, 0.028 * H, 0.028 * H), T([xt, ym, 0.03 * H]), BODY))
+        head_z = (1.0 - 0.065 - 0.818) * H  # head's middle: vertex 0.182 H above the shoulder, 0.130 H tall
+        out.append(("head", "ellipsoid", (0.056 * H, 0.045 * H, 0.065 * H), T([xt + 0.01, ym, head_z]), BODY))
+        thigh = 0.245 * H
+        shank = 0.285 * H
+        knee_x = xt + thigh
+        along_x = np.array([[0.0, 0.0, 1.0], [0.0, 1.0, 0.0], [-1.0, 0.0, 0.0]])  # local z -> world x
+        for k, dy in (("right", -0.05 * H), ("left", 0.05 * H)):
+            y = ym + dy
+            out.append((f"thigh_{k}", "cylinder", (thigh, rt, rt), T([xt + 0.5 * thigh, y, zs + rt], along_x), BODY))
+            out.append((f"shank_{k}", "cylinder", (shank - 0.04 * H, 0.8 * rt, 0.8 * rt),
+                        T([knee_x, y, zf + 0.5 * (shank + 0.04 * H)]), BODY))
+            out.append((f"foot_{k}", "box", (0.152 * H, 0.055 * H, 0.04 * H), T([knee_x + 0.05 * H, y, zf + 0.02 * H]),
+                        BODY))
+        seat_w = 0.27 * H
+        back_x = xt - 0.5 * dt - 0.025
+        front_x = xt + 0.6 * thigh
+        seat_x = 0.5 * (front_x + back_x)
+        out.append(("seat", "box", (front_x - back_x, seat_w, 0.04), T([seat_x, ym, zs - 0.02]), SEAT))
+        out.append(("backrest", "box", (0.03, seat_w, 0.22 * H), T([back_x - 0.015, ym, zs + 0.02 + 0.11 * H]), SEAT))
+        out.append(("seat_post", "cylinder", (zs - 0.04 - zf, 0.025, 0.025),
+                    T([0.5 * (front_x + back_x), ym, 0.5 * (zs - 0.04 + zf)]), SEAT))
+        out.append(("seat_foot", "cylinder", (0.02, 0.2, 0.2), T([0.5 * (front_x + back_x), ym, zf + 0.01]), SEAT))
+        return out
+
+
 # ----------------------------------------------------------------------------------------------
 # models of a run
 # ----------------------------------------------------------------------------------------------
+
+
+def seated_body(meta: Mapping[str, Any]) -> SeatedBody | None:
+    """The wearer's :class:`SeatedBody` from a run's ``meta.json`` (None when it names no subject).
+
+    The stature and sex come from ``parameters.subject.subject``, the clavicle
+    and the side from the same entry, through :class:`models.human.HumanParams`.
+    """
+    try:
+        sp = meta["parameters"]["subject"]
+        hp = HumanParams(Subject(**sp["subject"]), clavicle_length_m=sp.get("clavicle_length_m"),
+                         side=sp.get("side", "right"))
+    except (KeyError, TypeError, ValueError) as e:
+        _log.info("no wearer context drawn: %s", e)
+        return None
+    return SeatedBody(hp.subject.stature_m, float(abs(hp.clavicle_vector_m()[1])), hp.side)
+
 
 
 @dataclass
@@ -221,6 +456,10 @@ class SceneModels:
         Wall specifications as stored in ``meta.json``.
     segment_radii : list of float
         Capsule radius per segment [m].
+    body : SeatedBody or None
+        Sizes of the drawn wearer, seat and floor (None: not drawn).
+    thorax : ndarray, shape (4, 4)
+        World placement of the human model's thorax frame (the body's frame).
     """
 
     exo_model: Any
@@ -237,10 +476,13 @@ class SceneModels:
     cuff_human_frames: list[int]
     walls: list = field(default_factory=list)
     segment_radii: list[float] = field(default_factory=list)
+    body: SeatedBody | None = None
+    thorax: np.ndarray = field(default_factory=lambda: np.eye(4))
 
     @classmethod
     def from_urdf(cls, exo_urdf: str, human_urdf: str, cuff_frames: Mapping[str, Sequence[str]],
-                  human_hand_frame: str = "human_hand_point", walls: Sequence = ()) -> SceneModels:
+                  human_hand_frame: str = "human_hand_point", walls: Sequence = (),
+                  body: SeatedBody | None = None) -> SceneModels:
         """Models from URDF texts.
 
         Parameters
@@ -253,6 +495,8 @@ class SceneModels:
             Name of the human hand point frame.
         walls : sequence, optional
             Wall specifications ``(kind, params)`` as in ``meta["walls"]``.
+        body : SeatedBody, optional
+            The wearer's context to draw (none when omitted).
 
         Returns
         -------
@@ -277,12 +521,17 @@ class SceneModels:
             return model.getFrameId(name)
 
         names = list(cuff_frames)
+        hd = hm.createData()
+        thorax = np.eye(4)
+        if hm.existFrame("human_thorax"):
+            pin.forwardKinematics(hm, hd, pin.neutral(hm))
+            thorax = pin.updateFramePlacement(hm, hd, hm.getFrameId("human_thorax")).homogeneous.copy()
         return cls(exo_model=em, exo_data=em.createData(), exo_geom=eg, exo_geom_data=pin.GeometryData(eg),
-                   human_model=hm, human_data=hm.createData(), human_geom=hg, chain_joints=chain,
+                   human_model=hm, human_data=hd, human_geom=hg, chain_joints=chain,
                    human_hand_frame=frame(hm, human_hand_frame), cuffs=names,
                    cuff_exo_frames=[frame(em, cuff_frames[c][0]) for c in names],
                    cuff_human_frames=[frame(hm, cuff_frames[c][1]) for c in names],
-                   walls=[list(w) for w in walls], segment_radii=radii)
+                   walls=[list(w) for w in walls], segment_radii=radii, body=body, thorax=thorax)
 
     @classmethod
     def from_run_dir(cls, run_dir: str | Path) -> SceneModels:
@@ -309,7 +558,7 @@ class SceneModels:
                              (folder / mm["human_urdf"]).read_text(encoding="utf-8"),
                              {c: cuff_frames[c] for c in order},
                              human_hand_frame=mm.get("human_hand_frame", "human_hand_point"),
-                             walls=meta.get("walls", []))
+                             walls=meta.get("walls", []), body=seated_body(meta))
 
     def human_points(self, q_human: np.ndarray) -> np.ndarray:
         """World positions of the arm chain (shoulder, elbow, wrist, hand point), shape (k, 3)."""
@@ -333,32 +582,44 @@ class Scene:
     models : SceneModels
         What to draw.
     centre : array_like, shape (3,)
-        World point put at the viewer's origin (where the camera looks).
+        World point put at the viewer's origin (where the camera looks);
+        ignored when ``view`` is given (its target is used).
     ghost : bool, optional
-        Whether to draw a second, translucent human arm (the baseline).
+        Whether to draw a second, thinner human arm (the baseline).
     trail : bool, optional
         Whether to draw the hand path.
+    view : sim.output.framing.View, optional
+        Camera; without it the camera looks at ``centre`` from the drawn
+        arm's side, level with it.
 
     Attributes
     ----------
     paths : set of str
         Full meshcat paths of every node this scene has sent an object,
         transform or property to: the registry the tests inspect.
+    hidden : set of str
+        Paths (relative to the scene root) of nodes drawn hidden (the URDF's cuff shells).
     """
 
-    def __init__(self, models: SceneModels, centre: Sequence[float], ghost: bool = False, trail: bool = True):
+    def __init__(self, models: SceneModels, centre: Sequence[float], ghost: bool = False, trail: bool = True,
+                 view: View | None = None):
         self.models = models
-        self.centre = np.asarray(centre, dtype=float)
+        m = models
+        if view is None:
+            view = View(np.asarray(centre, dtype=float), _side_normal(m), [0.0, 0.0, 1.0], 1.6, CAMERA_FOV_DEG)
+        self.view = view
+        self.centre = np.asarray(view.target_m, dtype=float)
         self.ghost = ghost
         self.trail = trail
         self.paths: set[str] = set()
-        m = models
+        self.hidden: set[str] = set()
         self.exo_nodes = [f"exo/{go.name}" for go in m.exo_geom.geometryObjects]
         n_seg = len(m.chain_joints)
         self.seg_lengths: list[float] = []
         self.cuff_nodes = [f"cuffs/{c}" for c in m.cuffs]
         self.force_nodes = [f"forces/{c}" for c in m.cuffs]
         self._n_seg = n_seg
+        self._cuff_segment: list[int] | None = None
         self.animation: Any = None
 
     # -- helpers ------------------------------------------------------------------------------
@@ -366,17 +627,42 @@ class Scene:
     def _full(self, rel: str) -> str:
         return f"/meshcat/{ROOT}/{rel}" if rel else f"/meshcat/{ROOT}"
 
-    def _obj(self, vis, rel: str, geometry, material, offset: np.ndarray | None = None) -> None:
+    def _obj(self, vis, rel: str, geometry, material, offset: np.ndarray | None = None, kind=None) -> None:
         node = vis[ROOT][rel] if rel else vis[ROOT]
-        node.set_object(geometry, material)
+        if kind is None:
+            node.set_object(geometry, material)
+        else:
+            node.set_object(kind(geometry, material))
         if offset is not None:
             node.set_transform(offset)
         self.paths.add(self._full(rel))
 
+    def cuff_segments(self, q_human: np.ndarray) -> list[int]:
+        """Index of the arm segment each cuff sits on (the nearest one to its human frame)."""
+        if self._cuff_segment is None:
+            m = self.models
+            pts = m.human_points(q_human)  # leaves human_data at q_human
+            segs = []
+            for fid in m.cuff_human_frames:
+                p = pin.updateFramePlacement(m.human_model, m.human_data, fid).translation
+                dist = []
+                for i in range(len(pts) - 1):
+                    a, b = pts[i], pts[i + 1]
+                    t = float(np.clip((p - a) @ (b - a) / max(float((b - a) @ (b - a)), 1e-12), 0.0, 1.0))
+                    dist.append(float(np.linalg.norm(a + t * (b - a) - p)))
+                segs.append(int(np.argmin(dist)))
+            self._cuff_segment = segs
+        return self._cuff_segment
+
+    def cuff_radius_m(self, k: int, q_human: np.ndarray) -> float:
+        """Outer radius of the band of cuff ``k`` [m]: the limb's radius plus :data:`CUFF_BAND_M`."""
+        radii = self.models.segment_radii
+        return radii[min(self.cuff_segments(q_human)[k], len(radii) - 1)] + CUFF_BAND_M
+
     # -- static part ----------------------------------------------------------------------------
 
     def draw(self, vis, q_exo0: np.ndarray, q_human0: np.ndarray, hand_path: np.ndarray | None = None,
-             q_ghost0: np.ndarray | None = None) -> None:
+             q_ghost0: np.ndarray | None = None, ghost_path: np.ndarray | None = None) -> None:
         """Send every object, the camera and the initial poses.
 
         Parameters
@@ -389,6 +675,8 @@ class Scene:
             Hand path drawn as the trail (world coordinates).
         q_ghost0 : ndarray, optional
             First configuration of the ghost arm.
+        ghost_path : ndarray, shape (N, 3), optional
+            Hand path of the baseline, drawn in the ghost's colour.
         """
         _require_meshcat()
         m = self.models
@@ -397,7 +685,8 @@ class Scene:
         self.paths.add(self._full(""))
         self._setup_view(vis)
         # robot links: one group per geometry object, the shape as its child
-        for go, node in zip(m.exo_geom.geometryObjects, self.exo_nodes):
+        shells = self._cuff_shells(q_exo0)
+        for i, (go, node) in enumerate(zip(m.exo_geom.geometryObjects, self.exo_nodes)):
             shape = self._shape(go.geometry)
             if shape is None:
                 _log.info("exo geometry %s (%s) is not drawn", go.name, type(go.geometry).__name__)
@@ -405,37 +694,42 @@ class Scene:
             geom, offset = shape
             rgba = np.asarray(go.meshColor, dtype=float)
             self._obj(vis, f"{node}/shape", geom, _material(rgba[:3], float(rgba[3])), offset)
+            if i in shells:  # the cuff is drawn once, as the band under cuffs/
+                vis[ROOT][node].set_property("visible", False)
+                self.hidden.add(node)
         # the wearer
         pts = m.human_points(q_human0)
         self.seg_lengths = [float(np.linalg.norm(pts[i + 1] - pts[i])) for i in range(self._n_seg)]
         self._draw_arm(vis, "human", SKIN, 1.0)
-        self._draw_trunk(vis)
         if self.ghost and q_ghost0 is not None:
-            self._draw_arm(vis, "ghost", GHOST, 0.35, shrink=0.9)
-        for node in self.cuff_nodes:
-            self._obj(vis, f"{node}/ring", mg.Cylinder(0.022, radius=0.058), _material(CUFF_RING, 0.55),
-                      _ROT_Y_TO_Z)
+            self._draw_arm(vis, "ghost", GHOST, 1.0, shrink=GHOST_RADIUS_RATIO)
+        self._draw_context(vis, q_exo0)
+        for k, node in enumerate(self.cuff_nodes):
+            self._obj(vis, f"{node}/ring", mg.Cylinder(CUFF_WIDTH_M, radius=self.cuff_radius_m(k, q_human0)),
+                      _material(CUFF_RING), _ROT_Y_TO_Z)
         for node in self.force_nodes:
-            self._obj(vis, f"{node}/shaft/shape", mg.Cylinder(1.0, radius=0.007), _material(FORCE_ARROW),
+            self._obj(vis, f"{node}/shaft/shape", mg.Cylinder(1.0, radius=FORCE_SHAFT_RADIUS_M), _material(FORCE_ARROW),
                       _translation([0.0, 0.5, 0.0]))
             self._obj(vis, f"{node}/head/shape",
-                      mg.Cylinder(FORCE_HEAD_M, radiusTop=0.0, radiusBottom=0.016), _material(FORCE_ARROW),
+                      mg.Cylinder(FORCE_HEAD_M, radiusTop=0.0, radiusBottom=FORCE_HEAD_RADIUS_M),
+                      _material(FORCE_ARROW),
                       _translation([0.0, FORCE_HEAD_M / 2, 0.0]))
-        self._draw_walls(vis)
+        self._draw_walls(vis, hand_path if hand_path is not None else pts)
         if self.trail and hand_path is not None and len(hand_path) > 1:
             self.set_trail(vis, hand_path)
+        if self.trail and self.ghost and ghost_path is not None and len(ghost_path) > 1:
+            self.set_trail(vis, ghost_path, "ghost_trail", GHOST)
         for rel, T in self.transforms(q_exo0, q_human0, np.zeros((len(m.cuffs), 3)), q_ghost0).items():
             vis[ROOT][rel].set_transform(T)
             self.paths.add(self._full(rel))
         for rel, s in self.scales(np.zeros((len(m.cuffs), 3))).items():
             vis[ROOT][rel].set_property("scale", s)
 
-    def set_trail(self, vis, hand_path: np.ndarray) -> None:
-        """Draw (or redraw) the hand path as a line through ``hand_path`` (world, shape (N, 3))."""
+    def set_trail(self, vis, hand_path: np.ndarray, rel: str = "trail", rgb: Sequence[float] = TRAIL) -> None:
+        """Draw (or redraw) a hand path as a line through ``hand_path`` (world, shape (N, 3))."""
         pts = np.ascontiguousarray(np.asarray(hand_path, dtype=np.float32).T)
-        vis[ROOT]["trail"].set_object(mg.Line(mg.PointsGeometry(pts),
-                                              mg.LineBasicMaterial(color=_hex(TRAIL), linewidth=2)))
-        self.paths.add(self._full("trail"))
+        vis[ROOT][rel].set_object(mg.Line(mg.PointsGeometry(pts), mg.LineBasicMaterial(color=_hex(rgb), linewidth=2)))
+        self.paths.add(self._full(rel))
 
     def _setup_view(self, vis) -> None:
         vis["/Background"].set_property("top_color", list(BACKGROUND_TOP))
@@ -443,12 +737,11 @@ class Scene:
         vis["/Grid"].set_property("visible", False)
         vis["/Axes"].set_property("visible", False)
         vis["/Cameras/default"].set_transform(np.eye(4))
-        d = np.asarray(CAMERA_DIRECTION, dtype=float)
-        p = CAMERA_DISTANCE_M * d / np.linalg.norm(d)
+        p = self.view.distance_m * self.view.direction
         # the camera node is rotated so that three.js' y-up frame becomes z-up: (x, y, z) -> (x, z, -y)
         cam = vis["/Cameras/default/rotated/<object>"]
         cam.set_property("position", [float(p[0]), float(p[2]), float(-p[1])])
-        cam.set_property("fov", CAMERA_FOV_DEG)
+        cam.set_property("fov", float(self.view.fov_deg))
         self.paths.update({"/Cameras/default", "/Cameras/default/rotated/<object>", "/Background", "/Grid",
                            "/Axes"})
 
@@ -463,6 +756,20 @@ class Scene:
             return mg.Sphere(float(geometry.radius)), None
         return None
 
+    def _cuff_shells(self, q_exo: np.ndarray) -> set[int]:
+        """Exo geometry objects centred (within 1 cm) on a cuff frame of the same link: the URDF's cuff shells."""
+        m = self.models
+        pin.forwardKinematics(m.exo_model, m.exo_data, np.asarray(q_exo, dtype=float))
+        pin.updateGeometryPlacements(m.exo_model, m.exo_data, m.exo_geom, m.exo_geom_data)
+        cuffs = [(m.exo_model.frames[f].parentJoint, pin.updateFramePlacement(m.exo_model, m.exo_data, f).translation)
+                 for f in m.cuff_exo_frames]
+        out = set()
+        for i, go in enumerate(m.exo_geom.geometryObjects):
+            c = m.exo_geom_data.oMg[i].translation
+            if any(j == go.parentJoint and np.linalg.norm(c - p) < 0.01 for j, p in cuffs):
+                out.add(i)
+        return out
+
     def _draw_arm(self, vis, prefix: str, rgb, opacity: float, shrink: float = 1.0) -> None:
         mat = _material(rgb, opacity)
         radii = self.models.segment_radii
@@ -475,36 +782,122 @@ class Scene:
                 r = max(radii[k - 1], radii[k])
             self._obj(vis, f"{prefix}/joint_{k}/shape", mg.Sphere(shrink * r), mat)
 
-    def _draw_trunk(self, vis) -> None:
+    def _draw_context(self, vis, q_exo0: np.ndarray) -> None:
+        """The seated wearer, the seat, the floor with its grid, and the column under the robot's base."""
         m = self.models
-        gd = pin.GeometryData(m.human_geom)
-        pin.forwardKinematics(m.human_model, m.human_data, pin.neutral(m.human_model))
-        pin.updateGeometryPlacements(m.human_model, m.human_data, m.human_geom, gd)
-        for i, go in enumerate(m.human_geom.geometryObjects):
-            if go.parentJoint != 0:
-                continue  # the arm itself is drawn as capsules
-            shape = self._shape(go.geometry)
-            if shape is None:
-                continue
-            geom, offset = shape
-            T = gd.oMg[i].homogeneous
-            self._obj(vis, f"human/trunk_{i}", geom, _material(TRUNK, 0.8), T if offset is None else T @ offset)
+        body = m.body
+        if body is None:
+            return
+        Tb = np.asarray(m.thorax, dtype=float)
+        for name, kind, size, pose, rgb in body.shapes():
+            T = Tb @ pose
+            if kind == "box":
+                geom = mg.Box(list(size))
+            elif kind == "ellipsoid":
+                geom = mg.Ellipsoid(list(size))
+            else:  # a unit cylinder along local z, stretched to the two radii
+                geom = mg.Cylinder(1.0, radius=1.0)
+                T = T @ np.diag([size[1], size[2], size[0], 1.0]) @ _ROT_Y_TO_Z
+            self._obj(vis, f"body/{name}", geom, _material(rgb), T)
+        # floor: a slab and a grid of FLOOR_GRID_M squares around the seat
+        z = float((Tb @ [0.0, 0.0, body.floor_z_m, 1.0])[2])
+        c = (Tb @ [0.25, body.midline_y_m, 0.0, 1.0])[:2]
+        half = 1.0
+        self._obj(vis, "body/floor", mg.Box([2 * half, 2 * half, 0.01]), _material(FLOOR),
+                  _translation([c[0], c[1], z - 0.006]))
+        minor, major = [], []
+        n = int(round(half / FLOOR_GRID_M))
+        for k in range(-n, n + 1):
+            off = k * FLOOR_GRID_M
+            seg = [[c[0] + off, c[1] - half, z], [c[0] + off, c[1] + half, z],
+                   [c[0] - half, c[1] + off, z], [c[0] + half, c[1] + off, z]]
+            (major if k % 5 == 0 else minor).extend(seg)
+        for rel, lines, rgb in (("body/grid_minor", minor, GRID_MINOR), ("body/grid_major", major, GRID_MAJOR)):
+            pts = np.ascontiguousarray(np.asarray(lines, dtype=np.float32).T)
+            self._obj(vis, rel, mg.PointsGeometry(pts), mg.LineBasicMaterial(color=_hex(rgb)), kind=mg.LineSegments)
+        # the robot's base stands on a column from the floor
+        mount = self._base_bottom(q_exo0)
+        if mount is not None and mount[2] > z + 0.05:
+            h = float(mount[2] - z)
+            self._obj(vis, "body/mount_column", mg.Box([0.07, 0.07, h]), _material(MOUNT),
+                      _translation([mount[0], mount[1], z + h / 2]))
+            self._obj(vis, "body/mount_foot", mg.Box([0.3, 0.3, 0.02]), _material(MOUNT),
+                      _translation([mount[0], mount[1], z + 0.01]))
 
-    def _draw_walls(self, vis) -> None:
-        mat = _material(WALL, 0.25)
+    def _base_bottom(self, q_exo0: np.ndarray) -> np.ndarray | None:
+        """Below the middle of the robot's fixed geometry: (x, y) of its centre and z of its lowest point."""
+        m = self.models
+        pin.forwardKinematics(m.exo_model, m.exo_data, np.asarray(q_exo0, dtype=float))
+        pin.updateGeometryPlacements(m.exo_model, m.exo_data, m.exo_geom, m.exo_geom_data)
+        centres, lows = [], []
+        for i, go in enumerate(m.exo_geom.geometryObjects):
+            if go.parentJoint != 0:
+                continue
+            M = m.exo_geom_data.oMg[i]
+            g, kind = go.geometry, type(go.geometry).__name__
+            if kind == "Box":
+                reach = float(np.abs(M.rotation[2]) @ np.asarray(g.halfSide, dtype=float))
+            elif kind == "Cylinder":
+                reach = float(abs(M.rotation[2, 2]) * g.halfLength + g.radius)
+            elif kind == "Sphere":
+                reach = float(g.radius)
+            else:
+                continue
+            centres.append(M.translation)
+            lows.append(M.translation[2] - reach)
+        if not centres:
+            return None
+        c = np.mean(centres, axis=0)
+        return np.array([c[0], c[1], min(lows)])
+
+    def _draw_walls(self, vis, reach_points: np.ndarray) -> None:
+        face = mg.MeshLambertMaterial(color=_hex(WALL), transparent=True, opacity=0.12, depthWrite=False)
+        edge = mg.LineBasicMaterial(color=_hex(WALL_EDGE))
+        hatch = mg.LineBasicMaterial(color=_hex(WALL), transparent=True, opacity=0.6)
+        pts = np.asarray(reach_points, dtype=float).reshape(-1, 3)
         for i, wall in enumerate(self.models.walls):
             kind, p = wall[0], wall[1] if len(wall) > 1 else {}
             if kind == "wall_plane":
-                T = np.eye(4)
                 n = np.asarray(p["normal"], dtype=float)
-                T[:3, :3] = _rotation_y_to(n)
-                T[:3, 3] = p["point_m"]
-                self._obj(vis, f"walls/{i}", mg.Box([0.6, 0.004, 0.6]), mat, T)  # a 0.6 m pane around the point
+                n = n / np.linalg.norm(n)
+                R = _rotation_y_to(n)  # pane in the local x-z plane
+                x0 = np.asarray(p["point_m"], dtype=float)
+                local = (pts - x0) @ R
+                lo = np.minimum(local.min(axis=0), 0.0) - 0.15
+                hi = np.maximum(local.max(axis=0), 0.0) + 0.15
+                mid = 0.5 * (lo + hi)
+                size = np.maximum(hi - lo, 0.5)
+                T = np.eye(4)
+                T[:3, :3] = R
+                T[:3, 3] = x0 + R @ [mid[0], 0.0, mid[2]]
+                self._obj(vis, f"walls/{i}", mg.Box([size[0], 0.002, size[2]]), face, T)
+                hx, hz = size[0] / 2, size[2] / 2
+                rim = [[-hx, 0, -hz], [hx, 0, -hz], [hx, 0, -hz], [hx, 0, hz],
+                       [hx, 0, hz], [-hx, 0, hz], [-hx, 0, hz], [-hx, 0, -hz]]
+                lines = []
+                for k in range(1, int(size[2] / FLOOR_GRID_M)):
+                    zk = -hz + k * FLOOR_GRID_M
+                    lines += [[-hx, 0, zk], [hx, 0, zk]]
+                self._obj(vis, f"walls/{i}/edges", mg.PointsGeometry(np.asarray(rim, dtype=np.float32).T),
+                          edge, kind=mg.LineSegments)
+                if lines:
+                    self._obj(vis, f"walls/{i}/hatch", mg.PointsGeometry(np.asarray(lines, dtype=np.float32).T),
+                              hatch, kind=mg.LineSegments)
             elif kind == "wall_box":
                 lo, hi = np.asarray(p["lower_m"], dtype=float), np.asarray(p["upper_m"], dtype=float)
-                self._obj(vis, f"walls/{i}", mg.Box(list(hi - lo)), mat, _translation((lo + hi) / 2))
+                self._obj(vis, f"walls/{i}", mg.Box(list(hi - lo)), face, _translation((lo + hi) / 2))
+                h = (hi - lo) / 2
+                corners = [np.array([sx, sy, sz]) * h for sx in (-1, 1) for sy in (-1, 1) for sz in (-1, 1)]
+                rim = [[corners[a], corners[b]] for a in range(8) for b in range(a + 1, 8)
+                       if np.count_nonzero(corners[a] != corners[b]) == 1]
+                self._obj(vis, f"walls/{i}/edges",
+                          mg.PointsGeometry(np.asarray(rim, dtype=np.float32).reshape(-1, 3).T), edge,
+                          kind=mg.LineSegments)
             elif kind == "wall_sphere":
-                self._obj(vis, f"walls/{i}", mg.Sphere(float(p["radius_m"])), mat, _translation(p["center_m"]))
+                r = float(p["radius_m"])
+                self._obj(vis, f"walls/{i}", mg.Sphere(r), face, _translation(p["center_m"]))
+                self._obj(vis, f"walls/{i}/edges", mg.Sphere(r),
+                          mg.MeshBasicMaterial(color=_hex(WALL_EDGE), wireframe=True, transparent=True, opacity=0.35))
             else:
                 _log.warning("wall kind %r is not drawn", kind)
 
@@ -537,6 +930,8 @@ class Scene:
         -------
         dict of str to ndarray (4, 4)
             Node path relative to the scene root -> homogeneous transform.
+            A force arrow's node sits at its base (:func:`arrow_base`) with its
+            local y axis along the force.
         """
         m = self.models
         out: dict[str, np.ndarray] = {}
@@ -547,13 +942,20 @@ class Scene:
             out[node] = m.exo_geom_data.oMg[i].homogeneous
         for fid, node in zip(m.cuff_exo_frames, self.cuff_nodes):
             out[node] = pin.updateFramePlacement(m.exo_model, m.exo_data, fid).homogeneous
+        segs = self.cuff_segments(q_human)
         self._arm_transforms("human", q_human, out)  # leaves human_data at q_human
+        pts = m.human_points(q_human)
         forces = np.asarray(cuff_forces_world, dtype=float).reshape(len(m.cuffs), 3)
-        for fid, node, f in zip(m.cuff_human_frames, self.force_nodes, forces):
+        for k, (fid, node, f) in enumerate(zip(m.cuff_human_frames, self.force_nodes, forces)):
             total, shaft, _ = arrow_lengths(f)
             T = np.eye(4)
             T[:3, :3] = _rotation_y_to(f) if total > 0 else np.eye(3)
-            T[:3, 3] = pin.updateFramePlacement(m.human_model, m.human_data, fid).translation
+            p = pin.updateFramePlacement(m.human_model, m.human_data, fid).translation
+            i = segs[k]
+            axis = pts[i + 1] - pts[i]
+            beside = np.cross(axis, self.view.direction)  # across the limb in the picture, toward its top
+            beside = -beside if beside @ self.view.up < 0 else beside
+            T[:3, 3] = arrow_base(p, f, axis, self.cuff_radius_m(k, q_human), beside)
             out[node] = T
             out[f"{node}/head"] = _translation([0.0, shaft, 0.0])
         if self.ghost and q_ghost is not None:
@@ -633,9 +1035,44 @@ def _frame_indices(t: np.ndarray, dt: float, fps: float) -> np.ndarray:
     return np.clip(idx, 0, n_ticks - 1)
 
 
-def _workspace_centre(*point_sets: np.ndarray) -> np.ndarray:
-    pts = np.concatenate([np.asarray(p, dtype=float).reshape(-1, 3) for p in point_sets])
-    return 0.5 * (pts.min(axis=0) + pts.max(axis=0))
+def _side_normal(models: SceneModels) -> np.ndarray:
+    """World direction from the trunk out through the drawn arm's shoulder (horizontal)."""
+    lateral = -1.0 if models.body is None or models.body.side == "right" else 1.0
+    return np.asarray(models.thorax[:3, :3] @ [0.0, lateral, 0.0], dtype=float)
+
+
+def replay_view(models: SceneModels, q_human: np.ndarray, hand_path: np.ndarray,
+                extra_points: np.ndarray | None = None, fov_deg: float = CAMERA_FOV_DEG,
+                fill: float = CAMERA_FILL, raise_deg: float = CAMERA_RAISE_DEG) -> View:
+    """The camera of a replay: :func:`sim.output.framing.frame_view` of the hand path and the arm's joints.
+
+    Parameters
+    ----------
+    models : SceneModels
+        The run's models (walls, body).
+    q_human : ndarray, shape (N, nq)
+        Human configurations over the run (up to 200 of them, evenly spread, are used).
+    hand_path : ndarray, shape (N, 3)
+        Hand positions over the run [m].
+    extra_points : ndarray, shape (M, 3), optional
+        Further points to keep in the picture [m].
+    fov_deg, fill, raise_deg : float, optional
+        Passed to :func:`~sim.output.framing.frame_view`.
+
+    Returns
+    -------
+    View
+    """
+    q = np.asarray(q_human, dtype=float)
+    picks = np.unique(np.linspace(0, len(q) - 1, min(len(q), 200)).round().astype(int))
+    pts = [models.human_points(q[i]) for i in picks]
+    if extra_points is not None:
+        pts.append(np.asarray(extra_points, dtype=float).reshape(-1, 3))
+    body_centre = None
+    if models.body is not None:
+        body_centre = (models.thorax @ np.append(models.body.centre_m, 1.0))[:3]
+    return frame_view(hand_path, np.concatenate(pts), walls=models.walls, body_centre_m=body_centre,
+                      fallback_normal=_side_normal(models), fov_deg=fov_deg, fill=fill, raise_deg=raise_deg)
 
 
 def _load(run_dir: str | Path, ghost: bool):
@@ -723,10 +1160,12 @@ def draw_replay(vis: Any, run_dir: str | Path, fps: float = 30, ghost: bool = Tr
     run, base = _load(run_dir, ghost)
     models = SceneModels.from_run_dir(run_dir)
     a = run.arrays | cuff_columns(run)
-    pts = [a["p_hand_human"], a["p_hand_exo"], models.human_points(a["q_human"][0])]
-    scene = Scene(models, _workspace_centre(*pts), ghost=base is not None)
+    hand = np.asarray(a["p_hand_human"], dtype=float)
+    view = replay_view(models, a["q_human"], hand)
+    scene = Scene(models, view.target_m, ghost=base is not None, view=view)
     q_g0 = base.arrays["q_human"][0] if base is not None else None
-    scene.draw(vis, a["q_exo"][0], a["q_human"][0], hand_path=a["p_hand_human"], q_ghost0=q_g0)
+    g_path = base.arrays["p_hand_human"] if base is not None else None
+    scene.draw(vis, a["q_exo"][0], a["q_human"][0], hand_path=hand, q_ghost0=q_g0, ghost_path=g_path)
     anim = build_animation(scene, a, float(run.meta["dt_s"]), fps,
                            ghost_arrays=base.arrays if base is not None else None)
     vis.set_animation(anim, play=True, repetitions=1)
@@ -761,6 +1200,161 @@ def replay(run_dir: str | Path, vis: Any = None, fps: float = 30, ghost: bool = 
     return vis, vis.url()
 
 
+def replay_captions(run_dir: str | Path, fps: float = 30, ghost: bool = True) -> dict[str, Any]:
+    """What the HTML replay's caption shows, frame by frame (JSON-able).
+
+    Parameters
+    ----------
+    run_dir : str or Path
+        Folder written by ``exosandbox run``.
+    fps : float, optional
+        Frames per second of simulated time (as in :func:`build_animation`).
+    ghost : bool, optional
+        Whether the baseline arm is drawn (adds its key entry).
+
+    Returns
+    -------
+    dict
+        ``title``, ``scenario``, ``controller``, ``subject`` (str), ``fps``,
+        ``duration_s``, ``t_s`` (simulated time of each animation frame [s]),
+        ``cuffs`` (names), ``force_N`` (per frame, the magnitude of the force
+        on the wearer at each cuff [N], 0.1 N resolution), ``force_scale_cm_per_N``,
+        ``force_cap_N`` (force drawn at the longest arrow [N]), ``grid_cm``,
+        ``ghost`` (bool) and ``walls`` (how many).
+    """
+    run = load_run(run_dir)
+    meta = run.meta
+    dt = float(meta["dt_s"])
+    t = np.asarray(run.arrays["t"], dtype=float)
+    idx = _frame_indices(t, dt, fps)
+    forces = cuff_columns(run).get("cuff_force_human_world")
+    cuffs = list(meta.get("cuffs", []))
+    mags = (np.zeros((len(idx), len(cuffs))) if forces is None
+            else np.linalg.norm(np.asarray(forces, dtype=float)[idx], axis=-1))
+    body = seated_body(meta)
+    subject = ""
+    with contextlib.suppress(KeyError, TypeError):
+        sp = meta["parameters"]["subject"]["subject"]
+        subject = f"{sp['sex']}, {sp['stature_m']:.3f} m, {sp['mass_kg']:.1f} kg"
+    if body is not None:
+        subject += f", {body.side} arm"
+    scenario, controller = str(meta.get("scenario", "?")), str(meta.get("controller", "?"))
+    return {
+        "title": f"exosandbox replay: {scenario} with the {controller} controller",
+        "scenario": scenario,
+        "controller": controller,
+        "subject": subject,
+        "fps": float(fps),
+        "duration_s": round(len(t) * dt, 6),
+        "t_s": [round(float(x), 4) for x in t[idx]],
+        "cuffs": cuffs,
+        "force_N": np.round(mags, 1).tolist(),
+        "force_scale_cm_per_N": round(100.0 * FORCE_SCALE_M_PER_N, 3),
+        "force_cap_N": round(FORCE_ARROW_MAX_M / FORCE_SCALE_M_PER_N, 1),
+        "grid_cm": round(100.0 * FLOOR_GRID_M, 3),
+        "ghost": bool(ghost),
+        "walls": len(meta.get("walls") or []),
+    }
+
+
+def _css(rgb: Sequence[float]) -> str:
+    return f"#{_hex(rgb):06x}"
+
+
+def add_captions(html: str, captions: Mapping[str, Any]) -> str:
+    """The meshcat page ``html`` with our title, a caption driven by the replay's clock, and a key.
+
+    The caption reads the animation's time from the viewer (the largest
+    ``time`` of its animation actions, which is what the scene shows) and
+    shows the frame's simulated time and cuff forces from ``captions``
+    (:func:`replay_captions`).
+
+    Parameters
+    ----------
+    html : str
+        A page from ``meshcat.Visualizer.static_html()``.
+    captions : mapping
+        From :func:`replay_captions`.
+
+    Returns
+    -------
+    str
+    """
+    import html as html_lib
+
+    esc = html_lib.escape
+    data = json.dumps(dict(captions), separators=(",", ":")).replace("</", "<\\/")
+    key = [(SKIN, "the wearer's arm"), (_EXO_KEY, "the robot"), (CUFF_RING, "cuffs"),
+           (FORCE_ARROW, f"force on the wearer, from the cuff's surface, "
+                         f"{captions['force_scale_cm_per_N']:g} cm per N"),
+           (TRAIL, "hand path")]
+    if captions.get("ghost"):
+        key.insert(1, (GHOST, "the arm alone, without the robot (baseline), and its hand path"))
+    if captions.get("walls"):
+        key.append((WALL, "virtual wall"))
+    key.append((GRID_MAJOR, f"floor grid: {captions['grid_cm']:g} cm squares"))
+    rows = "".join(f'<div><span class="xs-sw" style="background:{_css(c)}"></span>{esc(label)}</div>'
+                   for c, label in key)
+    head = (f'<div id="xs-caption"><div id="xs-scenario">{esc(captions["scenario"])}</div>'
+            f'<div>controller <b id="xs-controller">{esc(captions["controller"])}</b></div>'
+            f'<div id="xs-subject">{esc(captions["subject"])}</div>'
+            f'<div>simulated time <b id="xs-time">{captions["t_s"][0] if captions["t_s"] else 0:.2f} s</b>'
+            f' of {captions["duration_s"]:.2f} s</div>'
+            '<div class="xs-head">force on the wearer</div><div id="xs-forces"></div></div>'
+            f'<div id="xs-key">{rows}</div>')
+    style = """<style>
+#xs-caption, #xs-key { position: absolute; font: 13px/1.45 system-ui, sans-serif; color: #262a2e;
+  background: rgba(255, 255, 252, 0.8); border-left: 4px solid #d98b1b; padding: 8px 12px; pointer-events: none; }
+#xs-caption { top: 12px; left: 12px; min-width: 230px; }
+#xs-key { bottom: 12px; right: 12px; font-size: 12px; }
+#xs-scenario { font-size: 17px; font-weight: 600; }
+.xs-head { margin-top: 4px; color: #555c63; }
+.xs-sw { display: inline-block; width: 10px; height: 10px; margin-right: 7px; border-radius: 2px; }
+.xs-row { display: flex; align-items: center; gap: 6px; font-variant-numeric: tabular-nums; }
+.xs-name { width: 72px; } .xs-val { width: 56px; text-align: right; }
+.xs-bar { height: 6px; background: #db1f38; border-radius: 3px; }
+</style>"""
+    script = """<script>
+(function () {
+  var D = JSON.parse(document.getElementById("xs-data").textContent);
+  var box = document.getElementById("xs-forces"), vals = [], bars = [];
+  D.cuffs.forEach(function (c) {
+    var row = document.createElement("div"); row.className = "xs-row";
+    var n = document.createElement("span"); n.className = "xs-name"; n.textContent = c.replace(/_/g, " ");
+    var v = document.createElement("span"); v.className = "xs-val";
+    var b = document.createElement("span"); b.className = "xs-bar";
+    row.appendChild(n); row.appendChild(v); row.appendChild(b); box.appendChild(row);
+    vals.push(v); bars.push(b);
+  });
+  function show() {
+    var t = 0, a = window.viewer && window.viewer.animator;
+    if (a && a.actions) { a.actions.forEach(function (x) { t = Math.max(t, x.time); }); }
+    var k = Math.max(0, Math.min(D.t_s.length - 1, Math.floor(t * D.fps + 1e-6)));
+    document.getElementById("xs-time").textContent = (D.t_s.length ? D.t_s[k] : 0).toFixed(2) + " s";
+    var f = D.force_N[k] || [];
+    for (var i = 0; i < vals.length; i++) {
+      var x = f[i] || 0;
+      vals[i].textContent = x.toFixed(1) + " N";
+      bars[i].style.width = Math.min(x, D.force_cap_N) * 3 + "px";
+    }
+  }
+  show();
+  var a = window.viewer && window.viewer.animator;
+  if (a && a.update) {  // refresh right after each animation step, so the caption matches the drawn frame
+    var step = a.update.bind(a);
+    a.update = function () { step(); show(); };
+  }
+  setInterval(show, 100);
+})();
+</script>"""
+    block = (f'{style}{head}<script type="application/json" id="xs-data">{data}</script>{script}')
+    out = re.sub(r"<title>.*?</title>", f"<title>{esc(captions['title'])}</title>", html, count=1, flags=re.S)
+    i = out.rfind("</body>")
+    if i < 0:
+        raise ValueError("add_captions: the page has no </body>; expected a page from meshcat's static_html()")
+    return out[:i] + block + out[i:]
+
+
 def write_replay_html(run_dir: str | Path, html_path: str | Path, fps: float = 30, ghost: bool = True,
                       vis: Any = None) -> Path:
     """Write a self-contained HTML replay of a run that opens offline and plays on load.
@@ -768,6 +1362,10 @@ def write_replay_html(run_dir: str | Path, html_path: str | Path, fps: float = 3
     The animation is stored with meshcat's ``play`` option set, which makes the
     viewer start it as soon as the page has loaded; it plays once and then
     rests at its first frame (use the Animations panel to replay or scrub).
+    The page carries its own title and a caption (:func:`replay_captions`,
+    :func:`add_captions`): scenario, controller, wearer, simulated time and
+    the force on the wearer at each cuff, following the replay's clock, and a
+    key to the colours and scales.
 
     Parameters
     ----------
@@ -792,11 +1390,12 @@ def write_replay_html(run_dir: str | Path, html_path: str | Path, fps: float = 3
     if own:
         vis = open_visualizer()
     try:
-        draw_replay(vis, run_dir, fps, ghost)
+        scene = draw_replay(vis, run_dir, fps, ghost)
         html = vis.static_html()
     finally:
         if own:
             close_visualizer(vis)
+    html = add_captions(html, replay_captions(run_dir, fps, ghost=scene.ghost))
     out = Path(html_path)
     out.write_text(html, encoding="utf-8")
     _log.info("replay written to %s", out)
@@ -915,8 +1514,11 @@ class LiveViewer:
         hand = m.human_points(q_human)[-1]
         if self._scene is None:
             pts = m.human_points(q_human)
-            centre = _workspace_centre(pts, pts[-1:] + [0.25, 0.0, 0.1])  # room for the reach ahead
-            self._scene = Scene(m, centre, ghost=False)
+            ahead = pts[-1:] + m.thorax[:3, :3] @ [0.25, 0.0, 0.1]  # room for the reach ahead
+            view = frame_view(pts[-1:], np.concatenate([pts, ahead]), walls=m.walls,
+                              fallback_normal=_side_normal(m), fov_deg=CAMERA_FOV_DEG, fill=CAMERA_FILL,
+                              raise_deg=CAMERA_RAISE_DEG)
+            self._scene = Scene(m, view.target_m, ghost=False, view=view)
             self._scene.draw(self.vis, q_exo, q_human)
         vis, scene = self.vis, self._scene
         for rel, T in scene.transforms(q_exo, q_human, forces).items():
