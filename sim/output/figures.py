@@ -155,7 +155,8 @@ def position_limit_task(meta: Mapping) -> tuple[float, float, str] | None:
     for level in (meta.get("controller_structure") or {}).get("levels") or []:
         for task in level.get("tasks") or []:
             if task.get("type") == JointPositionLimits.__name__ or task.get("name") == JointPositionLimits.name:
-                return (*params(task.get("params") or {}), "the run's recorded controller structure")
+                return (*params(task.get("params") or {}),
+                        f"the recorded structure of the run's controller {meta.get('controller')!r}")
     name = meta.get("controller")
     variants = ((meta.get("parameters") or {}).get("variants") or {})
     if name in variants:
