@@ -139,6 +139,9 @@ def build_parser() -> argparse.ArgumentParser:
     w.add_argument("--resume", action="store_true",
                    help="go on with the interrupted sweep in --out DIR, given the same scenarios and options: "
                    "its finished runs are kept, the others run")
+    w.add_argument("--run-figures", action="store_true",
+                   help="draw each run's figures in its report.md too (about 2 s per run; by default a sweep "
+                   "draws only its own)")
     w.set_defaults(func=_cmd_sweep)
 
     g = sub.add_parser("catalog", help="list the scenarios of a folder, the controller variants, the tasks, the "
@@ -489,7 +492,8 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
         out = _fresh_folder(Path("runs") / f"sweep-{load_scenario(files[0]).name}")
     try:
         result = run_sweep(args.scenario, controllers, subjects, args.seeds, out_dir=out, jobs=args.jobs,
-                           dask_address=args.dask, progress=True, duration_s=args.duration, resume=args.resume)
+                           dask_address=args.dask, progress=True, duration_s=args.duration, resume=args.resume,
+                           run_figures=args.run_figures)
     except KeyboardInterrupt:
         raise _UserError(f"interrupted; the runs finished so far are in {out / 'runs.csv'}; the same command with "
                          f"--out {out} --resume goes on with the others") from None

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import csv
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -76,6 +77,21 @@ def test_sweep_same_numbers_with_one_or_two_jobs_and_a_table_per_subject(tiny, t
     assert (tmp_path / "j2" / "plots" / "interaction_force_rms_N.png").is_file()
     doc = json.loads((tmp_path / "j2" / "sweep.json").read_text())
     assert len(doc["runs"]) == 8 and doc["runs"][0]["folder"] == "gravity/f5/seed0"
+
+
+def test_a_sweeps_run_reports_draw_their_figures_only_when_asked(tiny, tmp_path):
+    # a run's figures take longer to draw than a short run: a sweep leaves them out of each run's report unless
+    # run_figures, and says how to draw them; the controller section and the metrics are there either way
+    plain = run_sweep(tiny, ["transparent"], ["m50"], 1, out_dir=tmp_path / "plain", jobs=1)
+    drawn = run_sweep(tiny, ["transparent"], ["m50"], 1, out_dir=tmp_path / "drawn", jobs=1, run_figures=True)
+    assert _numbers(plain) == _numbers(drawn)
+    run_plain, run_drawn = (Path(r.results[0].case.folder) for r in (plain, drawn))
+    md = (run_plain / "report.md").read_text()
+    assert "## Controller" in md and "## Metrics" in md and "--run-figures" in md
+    assert not (run_plain / "plots" / "interaction_force.png").exists()
+    assert "--run-figures" not in (run_drawn / "report.md").read_text()
+    for png in ("interaction_force", "joint_angles", "hand_path", "joint_torque"):
+        assert (run_drawn / "plots" / f"{png}.png").stat().st_size > 1000
 
 
 def test_dask_local_cluster_gives_the_same_numbers_as_the_local_pool(tiny, tmp_path):

@@ -112,6 +112,7 @@ def run_scenario(
     progress: Progress | None = None,
     observer: Observer | None = None,
     report: bool = True,
+    figures: bool = True,
     baseline_from: str | Path | None = None,
     batch: Batch | None = None,
 ) -> RunResult:
@@ -164,7 +165,7 @@ def run_scenario(
     metrics = evaluate_run(out, wall=wall, force_limits_N=scenario.force_limits_N, run=run)
     write_json(out / "metrics.json", metrics)
     if report:
-        write_run_report(out, metrics, run=run)
+        write_run_report(out, metrics, run=run, figures=figures)
     return RunResult(out, metrics, True)
 
 

@@ -104,6 +104,8 @@ class SweepCase:
     duration_s: float | None = None
     #: The scenario's folder in a sweep over several scenarios (its file's stem); ``""`` in a one-scenario sweep.
     scenario: str = ""
+    #: Whether the run's report draws its figures (:func:`sim.output.report.write_run_report`).
+    run_figures: bool = False
 
     @property
     def label(self) -> str:
@@ -160,7 +162,7 @@ def run_case(case: SweepCase, batch: Batch | None = None) -> CaseResult:
         if case.duration_s is not None:
             scenario = replace(scenario, duration_s=case.duration_s)
         # the human-alone baseline of another controller's case of this wearer and seed, if this process ran one
-        result = run_scenario(scenario, case.controller, case.folder, seed=case.seed,
+        result = run_scenario(scenario, case.controller, case.folder, seed=case.seed, figures=case.run_figures,
                               baseline_from=batch.baseline_for(key), batch=batch)
         batch.share(key, Path(case.folder) / "human_alone")
         return CaseResult(case, result.metrics, None, time.perf_counter() - t0)
@@ -438,6 +440,7 @@ def run_sweep(
     on_result: Callable[[CaseResult], None] | None = None,
     resume: bool = False,
     batch: Batch | None = None,
+    run_figures: bool = False,
 ) -> SweepResult:
     """Run every (controller, subject, seed) of a scenario, or of several, and write the tables, plots and report.
 
@@ -485,6 +488,11 @@ def run_sweep(
         The :class:`~sim.experiments.run.Batch` of this process (its
         baselines and warmed-up pairs), to share with earlier runs of this
         process; default: a new one.  Worker processes make their own.
+    run_figures : bool
+        Draw every run's figures in its ``report.md`` (about 2 s per run,
+        longer than a short run); by default a sweep's run reports carry the
+        tables and the controller section, and the sweep's own report its
+        figures.
 
     Returns
     -------
@@ -516,6 +524,8 @@ def run_sweep(
     else:
         folders = {}
         cases = plan_sweep(paths[0], controllers, subjects, seeds, out, duration_s=duration_s)
+    if run_figures:
+        cases = [replace(c, run_figures=True) for c in cases]
     plan = sweep_plan(cases, out)
     finished: dict[str, CaseResult] = {}
     if resume:

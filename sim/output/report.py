@@ -426,17 +426,22 @@ def _timeline(run, meta: Mapping, folder: Path) -> list[Path]:
                                  title=f"{meta['scenario']} / {meta['controller']}: priority levels over time")]
 
 
-def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run: Run | None = None) -> Path:
-    """``report.md`` and ``plots/*.png`` of one coupled run folder: key metrics, force plots, cautions.
+def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run: Run | None = None,
+                     figures: bool = True) -> Path:
+    """``report.md`` and ``plots/*.png`` of one coupled run folder: the controller, the metrics, the figures
+    (:func:`sim.output.figures.run_figures`), the cautions.
 
     ``run``: the run already read from ``folder`` (:func:`sim.loop.runlog.load_run`),
     so that it is not read again (nor its derived columns computed again).
+    ``figures``: False leaves the figures out (the level timeline of the
+    controller section stays): drawing them takes about 2 s, longer than a
+    short run, so a sweep leaves them out unless asked (``run_figures``).
     """
     folder = Path(folder)
     run = load_run(folder) if run is None else run
     m = dict(run.metrics if metrics is None else metrics)
     meta = run.meta
-    figs = run_figures(run, m, folder)
+    figs = run_figures(run, m, folder) if figures else []
     timeline = _timeline(run, meta, folder)
     flat = flat_metrics(m)
     rows = [[k, key_info(k)[0], fmt(v) if is_applicable(k, flat, meta) else "n/a", key_info(k)[2]]
@@ -453,6 +458,10 @@ def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run:
     text += ["## Metrics", "", markdown_table(["key", "unit", "value", "meaning"], rows), ""]
     text += [f"- {n}" for n in notes] + ([""] if notes else []) + [TIMING_NOTE, "", "## Plots", ""]
     text += [f"![{p.stem}](plots/{p.name})" for p in figs]
+    if not figures:
+        text += ["Not drawn: a sweep leaves each run's figures out, since drawing them takes longer than a short "
+                 "run. `exosandbox sweep --run-figures` draws them; for this folder alone, "
+                 "`sim.output.report.write_run_report(FOLDER)`."]
     out = folder / "report.md"
     out.write_text("\n".join(text) + "\n", encoding="utf-8")
     return out
