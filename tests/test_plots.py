@@ -250,3 +250,24 @@ def test_compare_draws_the_joint_angles_hand_paths_and_limit_phase_of_every_run(
         _not_blank(png)
         assert f"(plots/{stem}.png)" in text
     assert labels == ["walls", "zero"]
+
+
+def test_the_envelope_thins_a_long_series_and_keeps_every_bucket_extreme():
+    # min-max decimation (common practice): each bucket of consecutive ticks keeps its smallest and largest sample;
+    # checked against the buckets computed one by one, and a one-tick spike survives
+    from sim.output.plots import envelope
+
+    rng = np.random.default_rng(3)
+    t = np.arange(60_001) * 1e-3
+    y = np.cumsum(rng.normal(size=t.size))
+    y[12_345] += 500.0
+    tt, yy = envelope(t, y, max_points=4000)
+    assert len(yy) <= 4000 and np.all(np.diff(tt) > 0)
+    assert yy.max() == y.max() == y[12_345] and yy.min() == y.min()
+    size = -(-len(y) // 2000)
+    for b in range(0, len(y) // size, 97):  # whole buckets of samples (the last ones are padding)
+        chunk = slice(b * size, min((b + 1) * size, len(y)))
+        kept = yy[(tt >= t[chunk][0]) & (tt <= t[chunk][-1])]
+        assert kept.max() == y[chunk].max() and kept.min() == y[chunk].min()
+    short_t, short_y = envelope(t[:100], y[:100])
+    assert short_y is not None and np.array_equal(short_y, y[:100]) and np.array_equal(short_t, t[:100])
