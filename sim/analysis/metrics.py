@@ -721,9 +721,11 @@ def compensation_shares(tau_interaction: np.ndarray, tau_gravity: np.ndarray, ta
     X = np.column_stack([c.ravel() for c in cols])
     if X.shape[1] == 3 and not np.any(X[:, 2]):  # no velocity, no velocity-product torque: nothing to fit
         X = X[:, :2]
-    if len(y) < 4 or np.linalg.matrix_rank(X) < X.shape[1]:
+    if len(y) < 4:
         return None, None
-    coef = np.linalg.lstsq(X, y, rcond=None)[0]
+    coef, _, rank, _ = np.linalg.lstsq(X, y, rcond=None)  # its rank: numpy.linalg.matrix_rank's, without a copy
+    if rank < X.shape[1]:
+        return None, None
     return float(coef[0]), float(coef[1])
 
 
@@ -731,13 +733,12 @@ def _without_friction(y: np.ndarray, cols: list[np.ndarray], dq: np.ndarray, v_s
                       ) -> tuple[np.ndarray, list[np.ndarray]]:
     """``y`` and ``cols`` (each (N, nv)) less their least-squares projection, joint by joint, on that joint's
     friction columns :math:`\\dot q_j` and :math:`\\tanh(\\dot q_j / v_s)` (see :func:`compensation_shares`)."""
-    stacked = np.stack([y] + cols, axis=-1)  # (N, nv, 1 + len(cols))
-    out = stacked.copy()
+    out = np.stack([y] + cols, axis=-1)  # (N, nv, 1 + len(cols)), a new array: projected in place
     for j in range(dq.shape[1]):
         F = np.column_stack([dq[:, j], np.tanh(dq[:, j] / v_s)])
         if not np.any(F):
             continue
-        out[:, j] -= F @ np.linalg.lstsq(F, stacked[:, j], rcond=None)[0]
+        out[:, j] -= F @ np.linalg.lstsq(F, out[:, j], rcond=None)[0]
     return out[..., 0], [out[..., i + 1] for i in range(len(cols))]
 
 
