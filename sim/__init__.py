@@ -4,7 +4,8 @@ Main entry points: :func:`sim.load_scenario`, :class:`sim.Simulation` (a run
 tick by tick, in memory: notebooks and scripts), :func:`sim.run_scenario`
 (a run folder with its baseline, metrics and report), :func:`sim.loop.simulate`
 and :func:`sim.load_run`. Scenario files import :class:`sim.Scenario`,
-:class:`sim.JointIntent`, :class:`sim.Via` and :func:`sim.deg` from here.
+:class:`sim.JointIntent`, :class:`sim.Via`, :func:`sim.deg` and the faults of
+:mod:`sim.physics.faults` (:class:`sim.SensorDropout`, ...) from here.
 """
 
 from sim.experiments.run import run_scenario
@@ -12,7 +13,26 @@ from sim.loop.runlog import Run, RunLog, load_run
 from sim.loop.scenario import Scenario, ScenarioError, deg, load_scenario
 from sim.loop.simulate import RunResult, simulate
 from sim.loop.simulation import Simulation, SimulationError, Trajectory
+from sim.physics.faults import (
+                                ControlDelay,
+                                CuffSlip,
+                                EncoderGlitch,
+                                Fault,
+                                SensorBiasDrift,
+                                SensorBiasStep,
+                                SensorDelay,
+                                SensorDropout,
+                                SensorNoiseBurst,
+                                StuckDrive,
+                                StuckEncoder,
+                                TorqueLoss,
+                                WearerJerk,
+                                random_faults,
+)
 from sim.physics.intent import JointIntent, Via
 
 __all__ = ["JointIntent", "Via", "Run", "RunLog", "load_run", "Scenario", "ScenarioError", "deg", "load_scenario",
-           "RunResult", "SimulationError", "run_scenario", "simulate", "Simulation", "Trajectory"]
+           "RunResult", "SimulationError", "run_scenario", "simulate", "Simulation", "Trajectory",
+           "Fault", "SensorDropout", "SensorBiasStep", "SensorBiasDrift", "SensorNoiseBurst", "EncoderGlitch",
+           "StuckEncoder", "SensorDelay", "ControlDelay", "TorqueLoss", "StuckDrive", "CuffSlip", "WearerJerk",
+           "random_faults"]

@@ -36,6 +36,7 @@ from models.errors import ParameterError, SandboxError
 from models.exo import ExoParams
 from models.human import HumanParams
 from sim.physics.actuators import ActuatorParams
+from sim.physics.faults import Fault, check_faults
 from sim.physics.intent import JointIntent
 from sim.physics.plant import PlantParams
 from sim.physics.sensors import EncoderParams, ForceSensorParams
@@ -83,6 +84,9 @@ class Scenario:
     #: Body-region force limits [N] per cuff name, over the defaults of
     #: :data:`sim.analysis.metrics.BODY_REGION_FORCE_LIMITS_N` (ISO/TS 15066 Annex A).
     force_limits_N: Mapping[str, float] = field(default_factory=dict)
+    #: Timed faults of the run (:mod:`sim.physics.faults`), e.g.
+    #: ``(SensorDropout(name="hand sensor drops", cuff="hand", start_s=2.0, end_s=2.5),)``.
+    faults: tuple[Fault, ...] = ()
 
     def __post_init__(self) -> None:
         o = f"Scenario({self.name!r})"
@@ -112,6 +116,16 @@ class Scenario:
             raise ParameterError(f"{o}.substeps must be an integer >= 1, got {self.substeps!r}")
         if not (isinstance(self.seed, int) and self.seed >= 0):
             raise ParameterError(f"{o}.seed must be an integer >= 0, got {self.seed!r}")
+        faults = check_faults(self.faults, o)
+        cuff_names = tuple(getattr(c, "name", None) for c in self.cuffs)
+        for i, f in enumerate(faults):
+            if f.start_s >= self.duration_s:
+                raise ParameterError(f"{o}.faults[{i}] {f.owner}.start_s must be before the run's end "
+                                     f"({self.duration_s:g} s), got {f.start_s:g}")
+            if hasattr(f, "cuff") and f.cuff not in cuff_names:
+                raise ParameterError(f"{o}.faults[{i}] {f.owner}.cuff must name one of the scenario's cuffs "
+                                     f"({', '.join(map(str, cuff_names))}), got {f.cuff!r}")
+        object.__setattr__(self, "faults", faults)
 
     @property
     def human(self) -> HumanParams:

@@ -51,6 +51,7 @@ from models.records import Measurement
 from sim.loop.runlog import RunLog, environment_metadata, load_run
 from sim.loop.scenario import Scenario
 from sim.physics.actuators import TorqueSourceActuators
+from sim.physics.faults import FaultSchedule, FaultTargets
 from sim.physics.plant import CoupledPlant, PlantMode
 from sim.physics.sensors import ForceSensorBank, ForceTorqueSensor, JointSensing, first_nonfinite
 from sim.physics.wearer import HumanMotor
@@ -110,8 +111,13 @@ def jsonable(obj):
     return repr(obj)
 
 
-def log_columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple[str, ...]) -> dict:
-    """The logged columns of a run (name -> per-tick shape, or (shape, dtype)), in the order of a row."""
+def log_columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple[str, ...], *,
+                n_faults: int = 0) -> dict:
+    """The logged columns of a run (name -> per-tick shape, or (shape, dtype)), in the order of a row.
+
+    With faults, the last column ``fault_active`` (n_faults,) bool says which are active at each tick (in
+    the order of ``scenario.faults``); a run without faults has no such column.
+    """
     cols: dict = {"t": ()}
     if mode != "exo_alone":
         cols |= {"q_human": (nq_h,), "dq_human": (nq_h,), "tau_human": (nq_h,), "q_human_intent": (nq_h,),
@@ -124,6 +130,8 @@ def log_columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple
         cols |= {f"diag_{d}": () for d in diag}
     if mode == "coupled":  # the cuff wrenches on the robot and the world forces follow from these: sim.analysis.derived
         cols |= {"cuff_wrench_human": (n_cuffs, 6), "cuff_wrench_meas": (n_cuffs, 6)}
+    if n_faults:
+        cols["fault_active"] = ((n_faults,), "bool")
     return cols
 
 
@@ -302,8 +310,15 @@ class Simulation:
         asm = build_assembly(scenario)
         plant = CoupledPlant(asm, scenario.plant, mode)
         T = scenario.control_period_s
-        rng_joint, *rng_cuffs = (np.random.default_rng(s) for s in
-                                 np.random.SeedSequence(self.seed).spawn(1 + len(asm.cuffs)))
+        # one stream for the joints, one per cuff sensor, then one per fault (a run without faults draws as before)
+        streams = np.random.SeedSequence(self.seed).spawn(1 + len(asm.cuffs) + len(scenario.faults))
+        rng_joint, *rng_cuffs = (np.random.default_rng(s) for s in streams[:1 + len(asm.cuffs)])
+        # the faults' names are checked against the run's cuffs and joints here, before anything is written
+        self._faults = (FaultSchedule(scenario.faults, FaultTargets(tuple(c.name for c in asm.cuffs),
+                                                                    tuple(asm.exo.joint_names),
+                                                                    tuple(asm.human.joint_names)),
+                                      T, [np.random.default_rng(s) for s in streams[1 + len(asm.cuffs):]])
+                        if scenario.faults else None)
         self._joints = self._cuff_sensors = self._actuators = None
         if controller is not None:
             controller.reset(controller_context(asm, T))
@@ -339,9 +354,12 @@ class Simulation:
             # the controller's levels and tasks with their parameters (Controller.structure), for the reports
             "controller_structure": controller.structure() if controller is not None else None,
             "parameters": jsonable(scenario), "exo_params": jsonable(asm.exo_params),
+            # the faults (name, kind, start_s, end_s, parameters), in the order of the fault_active column
+            "faults": [f.describe() for f in scenario.faults],
             "environment": environment_metadata(),
         })
-        self._columns = log_columns(mode, asm.exo.nq, asm.human.nq, len(asm.cuffs), diag_names)
+        self._columns = log_columns(mode, asm.exo.nq, asm.human.nq, len(asm.cuffs), diag_names,
+                                    n_faults=len(scenario.faults))
         self._urdfs = {"exo.urdf": plant.exo.urdf, "human.urdf": plant.human.urdf}
         self._tick_times, self._controller_times = np.zeros(n), np.zeros(n)
         self._timing = {d: np.zeros(n) for d in timing_diag}
@@ -503,20 +521,30 @@ class Simulation:
         has_controller, has_human, coupled = controller is not None, human is not None, mode == "coupled"
         exo_torque = actuators if has_controller else zero_e  # the actuators' lag runs alongside the plant
         has_cuffs = bool(plant.cuffs)
+        faults = self._faults  # None without faults: the ticks below then do exactly what they did before
         clock, nan = time.perf_counter, np.nan
         # a blow-up is detected below and reported as SimulationError, not as numpy warnings
         with np.errstate(over="ignore", invalid="ignore"):
             for k in range(self._k, stop):
                 t = k * T
                 t0 = clock()
+                if faults is not None:
+                    row["fault_active"] = faults.begin_tick(k, t)
+                    faults.coupling(plant)  # a slipping cuff's stiffness and damping, before the cuff update
                 plant.update_cuffs()
                 if has_controller:
                     # views of this tick's state (the plant replaces it as it steps)
                     q_e, v_e = plant.q_exo, plant.v_exo
                     tau_applied = actuators.applied_Nm
-                    qm, dqm, taum = joints.measure(q_e, tau_applied)
-                    # with no wearer the sensors read their noise and bias alone
-                    meas_wrench = cuff_sensors.measure(plant.wrench_on_exo if has_cuffs else zero_w)
+                    if faults is None:
+                        qm, dqm, taum = joints.measure(q_e, tau_applied)
+                        # with no wearer the sensors read their noise and bias alone
+                        meas_wrench = cuff_sensors.measure(plant.wrench_on_exo if has_cuffs else zero_w)
+                    else:  # the drives' faults, then what the encoders read, then the readings' faults
+                        tau_applied = faults.applied(tau_applied)
+                        qm, dqm, taum = joints.measure(*faults.encoder(q_e, tau_applied))
+                        meas_wrench = cuff_sensors.measure(plant.wrench_on_exo if has_cuffs else zero_w)
+                        qm, dqm, taum, meas_wrench = faults.readings(qm, dqm, taum, meas_wrench)
                     # new read-only arrays and read-only rows of the bank's new reading: what the checked
                     # constructor would keep as they are, so the unchecked one (a float t as well)
                     m = Measurement._from_frozen(t, qm, dqm, taum, dict(zip(cuff_names, meas_wrench)))
@@ -528,14 +556,19 @@ class Simulation:
                         raise SimulationError(
                             f"controller {controller_name!r} returned a non-finite or mis-shaped torque at "
                             f"t = {t:.4f} s: {tau_cmd!r}")
-                    saturated = actuators.hold(tau_cmd)
+                    held = tau_cmd if faults is None else faults.command(tau_cmd)  # what the drives take
+                    saturated = actuators.hold(held)
                     if k == 0:  # the run starts in steady state: the drives already apply the first command
-                        actuators.reset(np.clip(tau_cmd, -asm.exo.model.effortLimit, asm.exo.model.effortLimit))
+                        actuators.reset(np.clip(held, -asm.exo.model.effortLimit, asm.exo.model.effortLimit))
                         tau_applied = actuators.applied_Nm
+                        if faults is not None:
+                            tau_applied = faults.applied(tau_applied)
                 row["t"] = t
                 if has_human:
                     q_h, v_h = plant.q_human, plant.v_human
                     tau_h = human.torque(t, q_h, v_h)
+                    if faults is not None:
+                        tau_h = faults.wearer(tau_h)
                     row["q_human"], row["dq_human"] = q_h, v_h
                     row["tau_human"], row["q_human_intent"] = tau_h, human.last_desired_q
                 else:
@@ -561,7 +594,8 @@ class Simulation:
                     for a, value in zip(stored, row.values()):
                         a[k] = value
                 self._k = k + 1
-                plant.advance(exo_torque, tau_h, h, n_sub)
+                plant.advance(exo_torque if faults is None or not has_controller else faults.drives(exo_torque),
+                              tau_h, h, n_sub)
                 bad = plant.state_is_finite()
                 tick_times[k] = clock() - t0
                 if bad is not None:

@@ -178,6 +178,7 @@ class CoupledPlant:
                        [cp.d_diag for cp in self._cuff_params]]).reshape(2, nc, 6)
         # both in one array (the pair's kernels take it as one argument, see _cuff_blocks); named views below
         self._cuff_const = np.concatenate((place.ravel(), kd.ravel()))
+        self._kd_nominal = kd.copy()  # the cuffs' own K and D diagonals (scale_cuffs multiplies them)
         # in-place views of the Data's joint placements and velocities and of the forces aba reads
         # (fixed-size storage, so they stay valid): one compiled call reads and writes them all
         # (with the pair model, both arms' views are one)
@@ -238,6 +239,20 @@ class CoupledPlant:
         f, nje, off = self._fext, self.exo.model.njoints, self._human_joint_offset
         return ([f[j].vector.copy() for j in range(nje)],
                 [f[0].vector.copy()] + [f[j + off].vector.copy() for j in range(1, self.human.model.njoints)])
+
+    def scale_cuffs(self, scale: np.ndarray) -> None:
+        """Multiply each cuff's own stiffness and damping diagonals by factors (a cuff that slips).
+
+        ``scale`` (n_cuffs, 2): row c gives the factors on cuff c's K (column 0) and D (column 1); ones give
+        the cuffs' own values back exactly.  The cuff wrenches are recomputed at the next update.
+        """
+        scale = np.asarray(scale, dtype=float)
+        if scale.shape != (len(self.cuffs), 2) or not np.all(np.isfinite(scale)) or np.any(scale < 0):
+            raise SandboxError(f"CoupledPlant.scale_cuffs: scale must be ({len(self.cuffs)}, 2) finite factors "
+                               f">= 0, got {scale!r}")
+        self._kd[0] = self._kd_nominal[0] * scale[:, 0:1]
+        self._kd[1] = self._kd_nominal[1] * scale[:, 1:2]
+        self._cuffs_fresh = False
 
     def invalidate(self) -> None:
         """Mark the cuff wrenches stale; call after changing a state vector in place."""
