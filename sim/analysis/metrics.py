@@ -1027,6 +1027,7 @@ METRICS: Mapping[str, MetricInfo] = MappingProxyType({
     "tick_time_p99_us": MetricInfo("us", "lower", "whole tick, 99th percentile"),
     "realtime_factor": MetricInfo("-", "higher", "realtime factor", True),
     "sim_duration_s": MetricInfo("s", None, "simulated time"),
+    "fault_count": MetricInfo("-", None, "faults of the scenario"),
 })
 
 #: Keys that measure this machine's wall clock: they differ between executors and runs; every other key is a

@@ -296,6 +296,10 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
         if not rendered:  # a slope of force on penetration (or its rate) means nothing without a wall
             metrics["wall_stiffness_rendered_N_per_m"] = metrics["wall_stiffness_rendered_robot_N_per_m"] = None
             metrics["wall_damping_rendered_N_s_per_m"] = None
+    # the scenario's faults, as meta.json lists them (sim.physics.faults)
+    faults = meta.get("faults") or []
+    metrics["fault_count"] = len(faults)
+    metrics["faults"] = [{k: f[k] for k in ("name", "kind", "start_s", "end_s")} for f in faults]
     return metrics
 
 

@@ -57,7 +57,7 @@ from sim.output import plots
 
 __all__ = ["LIMIT_APPROACH_RAD", "AXIS_NAMES", "run_figures", "compare_figures", "run_figure_plan", "plane_walls",
            "baseline_run", "intent_deg", "hand_views", "limit_approach", "position_limit_task", "braking_curve",
-           "joint_label"]
+           "joint_label", "fault_spans"]
 
 #: A robot joint whose angle comes this close to a stop [rad] (5 deg; common practice for "near the stop", our
 #: choice) gets the phase plot of :func:`limit_approach`.
@@ -326,6 +326,19 @@ def _draw_limit_phase(runs: Mapping[str, Run], arm, path: Path, *, title: str) -
     return plots.limit_phase(panels, path, title=title, note=note)
 
 
+def fault_spans(meta: Mapping, t_end_s: float) -> list[tuple[float, float]]:
+    """The periods [s] with a fault active (``meta["faults"]``), overlapping ones merged, cut at ``t_end_s``."""
+    spans = sorted((float(f["start_s"]), min(float(f["end_s"]), t_end_s)) for f in meta.get("faults") or []
+                   if float(f["start_s"]) <= t_end_s)
+    merged: list[tuple[float, float]] = []
+    for a, b in spans:
+        if merged and a <= merged[-1][1]:
+            merged[-1] = (merged[-1][0], max(merged[-1][1], b))
+        else:
+            merged.append((a, b))
+    return merged
+
+
 def run_figures(run: Run, metrics: Mapping | None, folder: str | Path) -> list[Path]:
     """The figures of one coupled run in ``folder/plots`` (the table of the module docstring); their paths.
 
@@ -349,6 +362,7 @@ def run_figures(run: Run, metrics: Mapping | None, folder: str | Path) -> list[P
         for i, name in enumerate(meta["cuffs"]):
             series[f"{joint_label(name)} cuff"] = (t, np.linalg.norm(w[:, i, :3], axis=-1))
         figs.append(plots.force_over_time(series, out / "interaction_force.png", shaded=contacts,
+                                          faulted=fault_spans(meta, float(t[-1]) if len(t) else 0.0),
                                           title=_title(meta, "force between wearer and robot (magnitude)")))
 
     if "joint_angles" not in skipped:

@@ -45,6 +45,7 @@ ROLE_COLOURS = MappingProxyType({
     "limit": "#b23a2e",        # a wall, a stop, a torque limit
     "limit fill": "#f2d4cf",   # the forbidden side of a limit
     "contact": "#e7e1f2",      # shading of the periods of wall contact
+    "fault": "#f6e2c0",        # shading of the periods with a fault active
 })
 #: Text sizes [pt] and figure resolution [dpi].
 STYLE = MappingProxyType({"title": 10.0, "label": 9.0, "tick": 8.0, "legend": 8.0, "panel": 8.5, "dpi": 110})
@@ -160,22 +161,23 @@ def _handles(axes) -> tuple[list, list[str]]:
     return list(seen.values()), list(seen)
 
 
-def _shade(ax, spans: Sequence[tuple[float, float]], label: str | None) -> None:
+def _shade(ax, spans: Sequence[tuple[float, float]], label: str | None, role: str = "contact") -> None:
     for i, (a, b) in enumerate(spans):
-        ax.axvspan(a, b, color=ROLE_COLOURS["contact"], lw=0, zorder=0, label=label if i == 0 else None)
+        ax.axvspan(a, b, color=ROLE_COLOURS[role], lw=0, zorder=0, label=label if i == 0 else None)
 
 
 @_styled
 def force_over_time(series: Mapping[str, tuple[np.ndarray, np.ndarray]], path: Path, *,
                     title: str = "interaction force", shaded: Sequence[tuple[float, float]] = (),
-                    shade_label: str = "hand past the wall") -> Path:
+                    shade_label: str = "hand past the wall", faulted: Sequence[tuple[float, float]] = ()) -> Path:
     """One line per label: (t [s], F [N]), e.g. the overall interaction force of each variant or each cuff.
 
     ``shaded``: time spans [s] drawn as a light band behind the lines (e.g. the periods of wall contact),
-    named ``shade_label`` in the legend.
+    named ``shade_label`` in the legend; ``faulted``: the spans with a fault active, in a band of their own.
     """
     plt = _plt()
     fig, ax = plt.subplots(figsize=(8, 3.8))
+    _shade(ax, faulted, "a fault active", "fault")
     _shade(ax, shaded, shade_label)
     for i, (label, (t, f)) in enumerate(series.items()):
         ax.plot(*envelope(t, f), lw=1.4 if i == 0 else 1.0, label=label, color=PALETTE[i % len(PALETTE)])

@@ -40,7 +40,7 @@ from sim.output.figures import compare_figures, run_figures
 __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
            "write_run_report", "compare_runs", "write_sweep_report", "write_sweeps_report", "sweep_verdicts",
            "has_wall", "transparency_key", "fmt", "fmt_stat", "renders_wall", "is_applicable", "TIMING_NOTE",
-           "controller_section", "variant_differences"]
+           "controller_section", "variant_differences", "faults_section"]
 
 #: Printed in every report.
 CAUTION = (
@@ -426,6 +426,20 @@ def _timeline(run, meta: Mapping, folder: Path) -> list[Path]:
                                  title=f"{meta['scenario']} / {meta['controller']}: priority levels over time")]
 
 
+def faults_section(meta: Mapping) -> list[str]:
+    """The "Faults" section of a run report (Markdown lines): a table of the scenario's faults with their times
+    and parameters (``meta["faults"]``); nothing for a run without faults."""
+    faults = meta.get("faults") or []
+    if not faults:
+        return []
+    rows = [[f["name"], f["kind"], fmt(f["start_s"]), fmt(f["end_s"]), _params_text(f.get("parameters"))]
+            for f in faults]
+    return ["## Faults", "",
+            f"{len(faults)} timed fault(s), each active for start <= t < end; the log's `fault_active` column "
+            "says which at each tick, and the interaction-force figure shades their periods.", "",
+            markdown_table(["fault", "kind", "start [s]", "end [s]", "parameters"], rows), ""]
+
+
 def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run: Run | None = None,
                      figures: bool = True) -> Path:
     """``report.md`` and ``plots/*.png`` of one coupled run folder: the controller, the metrics, the figures
@@ -455,6 +469,7 @@ def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run:
             f"{1.0 / float(meta['dt_s']):g} Hz control, {meta['substeps']} physics substeps.", "", CAUTION, ""]
     text += controller_section(meta, m, run.arrays)
     text += [f"![{p.stem}](plots/{p.name})" for p in timeline] + ([""] if timeline else [])
+    text += faults_section(meta)
     text += ["## Metrics", "", markdown_table(["key", "unit", "value", "meaning"], rows), ""]
     text += [f"- {n}" for n in notes] + ([""] if notes else []) + [TIMING_NOTE, "", "## Plots", ""]
     text += [f"![{p.stem}](plots/{p.name})" for p in figs]

@@ -1220,7 +1220,9 @@ def replay_captions(run_dir: str | Path, fps: float = 30, ghost: bool = True) ->
         ``cuffs`` (names), ``force_N`` (per frame, the magnitude of the force
         on the wearer at each cuff [N], 0.1 N resolution), ``force_scale_cm_per_N``,
         ``force_cap_N`` (force drawn at the longest arrow [N]), ``grid_cm``,
-        ``ghost`` (bool) and ``walls`` (how many).
+        ``ghost`` (bool), ``walls`` (how many), ``faults`` (the names of the
+        scenario's faults) and ``fault_text`` (per frame, the active faults'
+        names, "fault: NAME, NAME", or "" when none is active).
     """
     run = load_run(run_dir)
     meta = run.meta
@@ -1239,6 +1241,12 @@ def replay_captions(run_dir: str | Path, fps: float = 30, ghost: bool = True) ->
     if body is not None:
         subject += f", {body.side} arm"
     scenario, controller = str(meta.get("scenario", "?")), str(meta.get("controller", "?"))
+    fault_names = [str(f["name"]) for f in meta.get("faults") or []]
+    fault_text = [""] * len(idx)
+    if fault_names and "fault_active" in run.arrays:
+        active = np.asarray(run.arrays["fault_active"], dtype=bool)[idx]
+        fault_text = [("fault: " + ", ".join(n for n, on in zip(fault_names, row) if on)) if row.any() else ""
+                      for row in active]
     return {
         "title": f"exosandbox replay: {scenario} with the {controller} controller",
         "scenario": scenario,
@@ -1254,6 +1262,8 @@ def replay_captions(run_dir: str | Path, fps: float = 30, ghost: bool = True) ->
         "grid_cm": round(100.0 * FLOOR_GRID_M, 3),
         "ghost": bool(ghost),
         "walls": len(meta.get("walls") or []),
+        "faults": fault_names,
+        "fault_text": fault_text,
     }
 
 
@@ -1300,7 +1310,8 @@ def add_captions(html: str, captions: Mapping[str, Any]) -> str:
             f'<div id="xs-subject">{esc(captions["subject"])}</div>'
             f'<div>simulated time <b id="xs-time">{captions["t_s"][0] if captions["t_s"] else 0:.2f} s</b>'
             f' of {captions["duration_s"]:.2f} s</div>'
-            '<div class="xs-head">force on the wearer</div><div id="xs-forces"></div></div>'
+            '<div class="xs-head">force on the wearer</div><div id="xs-forces"></div>'
+            '<div id="xs-faults"></div></div>'
             f'<div id="xs-key">{rows}</div>')
     style = """<style>
 #xs-caption, #xs-key { position: absolute; font: 13px/1.45 system-ui, sans-serif; color: #262a2e;
@@ -1313,6 +1324,7 @@ def add_captions(html: str, captions: Mapping[str, Any]) -> str:
 .xs-row { display: flex; align-items: center; gap: 6px; font-variant-numeric: tabular-nums; }
 .xs-name { width: 72px; } .xs-val { width: 56px; text-align: right; }
 .xs-bar { height: 6px; background: #db1f38; border-radius: 3px; }
+#xs-faults { margin-top: 4px; color: #9a4a06; font-weight: 600; }
 </style>"""
     script = """<script>
 (function () {
@@ -1331,6 +1343,7 @@ def add_captions(html: str, captions: Mapping[str, Any]) -> str:
     if (a && a.actions) { a.actions.forEach(function (x) { t = Math.max(t, x.time); }); }
     var k = Math.max(0, Math.min(D.t_s.length - 1, Math.floor(t * D.fps + 1e-6)));
     document.getElementById("xs-time").textContent = (D.t_s.length ? D.t_s[k] : 0).toFixed(2) + " s";
+    document.getElementById("xs-faults").textContent = (D.fault_text && D.fault_text[k]) || "";
     var f = D.force_N[k] || [];
     for (var i = 0; i < vals.length; i++) {
       var x = f[i] || 0;
