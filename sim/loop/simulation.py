@@ -51,7 +51,7 @@ from models.records import Measurement
 from sim.loop.runlog import RunLog, environment_metadata, load_run
 from sim.loop.scenario import Scenario
 from sim.physics.actuators import TorqueSourceActuators
-from sim.physics.faults import FaultSchedule, FaultTargets
+from sim.physics.faults import FaultSchedule, FaultTargets, fault_rng
 from sim.physics.plant import CoupledPlant, PlantMode
 from sim.physics.sensors import ForceSensorBank, ForceTorqueSensor, JointSensing, first_nonfinite
 from sim.physics.wearer import HumanMotor
@@ -310,14 +310,13 @@ class Simulation:
         asm = build_assembly(scenario)
         plant = CoupledPlant(asm, scenario.plant, mode)
         T = scenario.control_period_s
-        # one stream for the joints, one per cuff sensor, then one per fault (a run without faults draws as before)
-        streams = np.random.SeedSequence(self.seed).spawn(1 + len(asm.cuffs) + len(scenario.faults))
-        rng_joint, *rng_cuffs = (np.random.default_rng(s) for s in streams[:1 + len(asm.cuffs)])
+        rng_joint, *rng_cuffs = (np.random.default_rng(s) for s in
+                                 np.random.SeedSequence(self.seed).spawn(1 + len(asm.cuffs)))
         # the faults' names are checked against the run's cuffs and joints here, before anything is written
         self._faults = (FaultSchedule(scenario.faults, FaultTargets(tuple(c.name for c in asm.cuffs),
                                                                     tuple(asm.exo.joint_names),
                                                                     tuple(asm.human.joint_names)),
-                                      T, [np.random.default_rng(s) for s in streams[1 + len(asm.cuffs):]])
+                                      T, [fault_rng(self.seed, f.name) for f in scenario.faults])
                         if scenario.faults else None)
         self._joints = self._cuff_sensors = self._actuators = None
         if controller is not None:

@@ -30,10 +30,10 @@ tick, the fault's own generator and memory, and the previous tick's values.
 
 Faults of one hook act in the order of ``scenario.faults``, except that those
 whose ``order`` is 0 (the delays, which replace a value by an older one) act
-first.  Each fault with noise draws from its own ``numpy.random.Generator``,
-spawned from the run's seed (:class:`sim.loop.simulation.Simulation`), so a
-fault's draws do not depend on the other faults, and a run without faults
-draws exactly what it drew before faults existed.
+first.  Each fault with noise draws from its own ``numpy.random.Generator``
+(:func:`fault_rng`: from the run's seed and the fault's name), so a fault's
+draws do not depend on the other faults, and the sensors' streams are those
+of a run without faults.
 
 :func:`random_faults` draws a seeded random schedule (a Poisson process of
 fault starts) for soak tests.
@@ -43,6 +43,7 @@ from __future__ import annotations
 
 import dataclasses
 import operator
+import zlib
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import ClassVar
@@ -54,7 +55,8 @@ from models.errors import ParameterError
 
 __all__ = ["Fault", "FaultTargets", "FaultState", "FaultSchedule", "SensorDropout", "SensorBiasStep",
            "SensorBiasDrift", "SensorNoiseBurst", "EncoderGlitch", "StuckEncoder", "SensorDelay", "ControlDelay",
-           "TorqueLoss", "StuckDrive", "CuffSlip", "WearerJerk", "FAULT_KINDS", "HOOKS", "random_faults"]
+           "TorqueLoss", "StuckDrive", "CuffSlip", "WearerJerk", "FAULT_KINDS", "HOOKS", "random_faults", "fault_rng",
+           "check_faults"]
 
 #: The hooks a fault can override, in the order they come in a control tick.
 HOOKS: tuple[str, ...] = ("coupling", "encoder", "readings", "command", "drive", "wearer")
@@ -434,6 +436,16 @@ FAULT_KINDS: dict[str, type[Fault]] = {c.kind: c for c in (
     ControlDelay, TorqueLoss, StuckDrive, CuffSlip, WearerJerk)}
 
 
+def fault_rng(seed: int, name: str) -> np.random.Generator:
+    """The generator of the fault ``name`` in a run of ``seed``: ``SeedSequence(seed, spawn_key=(0xFA, crc32))``.
+
+    The CRC-32 of the UTF-8 name (``zlib.crc32``) makes the stream depend on the seed and the name alone; the
+    spawn key of length 2 keeps it apart from the sensors' streams (``SeedSequence(seed).spawn``, keys of
+    length 1).
+    """
+    return np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(0xFA, zlib.crc32(name.encode("utf-8")))))
+
+
 def check_faults(faults: object, owner: str = "Scenario") -> tuple[Fault, ...]:
     """``faults`` as a tuple of :class:`Fault` with distinct names, or a ParameterError naming the culprit."""
     if isinstance(faults, Fault):
@@ -608,7 +620,8 @@ def random_faults(seed: int, duration_s: float, cuffs: Sequence[str], joints: Se
     """A seeded random fault schedule: starts of a Poisson process of rate ``rate_per_s`` [1/s] over
     ``duration_s`` [s], each a kind drawn uniformly with moderate random parameters.
 
-    Fault lengths are uniform in [1 ms, ``max_length_s``] (encoder glitches 1-3 ms); faults may overlap.
+    Fault lengths are uniform in [2 ms, ``max_length_s``] (encoder glitches 2-4 ms) and every fault starts at
+    least 2 ms before the end, so each is active for at least one tick of 1 ms; faults may overlap.
     Wearer jerks are drawn only if ``wearer_joints`` are given.  The same arguments give the same faults
     (``numpy.random.default_rng(seed)``); the times of a Poisson process are cumulative sums of exponential
     gaps of mean 1 / rate (e.g. Ross, *Introduction to Probability Models*, ch. 5).
@@ -618,7 +631,7 @@ def random_faults(seed: int, duration_s: float, cuffs: Sequence[str], joints: Se
         raise ParameterError(f"{o}.seed must be an integer >= 0, got {seed!r}")
     duration_s = positive(o, "duration_s", duration_s, "s")
     rate_per_s = positive(o, "rate_per_s", rate_per_s, "1/s")
-    max_length_s = in_range(o, "max_length_s", max_length_s, 1e-3, 60.0, "s")
+    max_length_s = in_range(o, "max_length_s", max_length_s, 2e-3, 60.0, "s")
     cuffs, joints, wearer_joints = tuple(cuffs), tuple(joints), tuple(wearer_joints)
     if not cuffs or not joints:
         raise ParameterError(f"{o} needs at least one cuff and one joint, got cuffs={cuffs!r}, joints={joints!r}")
@@ -626,12 +639,12 @@ def random_faults(seed: int, duration_s: float, cuffs: Sequence[str], joints: Se
     kinds = [k for k in FAULT_KINDS if k != "wearer_jerk" or wearer_joints]
     out: list[Fault] = []
     t = rng.exponential(1.0 / rate_per_s)
-    while t < duration_s:
+    while t < duration_s - 2e-3:
         kind = kinds[int(rng.integers(len(kinds)))]
-        length = (float(rng.integers(1, 4)) * 1e-3 if kind == "encoder_glitch"
-                  else float(rng.uniform(1e-3, max_length_s)))
+        length = (float(rng.integers(2, 5)) * 1e-3 if kind == "encoder_glitch"
+                  else float(rng.uniform(2e-3, max_length_s)))
         start = round(float(t), 6)
-        base = {"name": f"{kind} {len(out) + 1}", "start_s": start, "end_s": start + max(length, 1e-3)}
+        base = {"name": f"{kind} {len(out) + 1}", "start_s": start, "end_s": start + length}
         cuff = cuffs[int(rng.integers(len(cuffs)))]
         joint = joints[int(rng.integers(len(joints)))]
         sign = float(rng.choice((-1.0, 1.0)))
