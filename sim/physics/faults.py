@@ -44,8 +44,9 @@ from __future__ import annotations
 import dataclasses
 import operator
 import zlib
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from types import MappingProxyType
 from typing import ClassVar
 
 import numpy as np
@@ -431,9 +432,9 @@ class WearerJerk(Fault):
 
 
 #: The shipped kinds, by their ``kind`` name.
-FAULT_KINDS: dict[str, type[Fault]] = {c.kind: c for c in (
+FAULT_KINDS: Mapping[str, type[Fault]] = MappingProxyType({c.kind: c for c in (
     SensorDropout, SensorBiasStep, SensorBiasDrift, SensorNoiseBurst, EncoderGlitch, StuckEncoder, SensorDelay,
-    ControlDelay, TorqueLoss, StuckDrive, CuffSlip, WearerJerk)}
+    ControlDelay, TorqueLoss, StuckDrive, CuffSlip, WearerJerk)})
 
 
 def fault_rng(seed: int, name: str) -> np.random.Generator:
