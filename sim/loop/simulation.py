@@ -11,6 +11,12 @@ One control tick of period T (default 1 ms):
 5. the tick's row is kept: in memory (a :class:`Trajectory`), or streamed to a
    :class:`~sim.loop.runlog.RunLog` as the run goes.
 
+A scenario's timed faults (:mod:`sim.physics.faults`) act at hooks of this
+tick through a :class:`~sim.physics.faults.FaultSchedule`: the cuffs' stiffness
+before the cuff update, what the encoders read and what the controller gets in
+1, what the drives take and deliver in 2 and 4, the wearer's torque in 3.  A
+run without faults skips every hook.
+
 Runs are deterministic: all randomness comes from one seed through
 ``numpy.random.SeedSequence``; the same seed gives bit-identical rows, whether
 the run is stepped, run in memory or streamed to a log.  Wall-clock timings are

@@ -9,7 +9,7 @@ and call the drawing function; a figure that does not apply is skipped
 file                       what it shows                                        applies when
 ========================== ==================================================== =====================================
 interaction_force.png      force magnitude over time per cuff and in total,     always (a coupled run); the shading
-                           the periods of wall contact shaded                   needs a plane wall
+                           the periods of wall contact and of faults shaded     needs a plane wall or faults
 joint_angles.png           each joint of the wearer over time: the intent, the  the log has ``q_human``; the alone
                            wearer with the robot, the wearer alone              line needs the ``human_alone`` folder
 hand_path.png              the hand of the wearer and of the robot in the two   the log has both hand points

@@ -45,8 +45,8 @@ that frames the arm's joints over the whole run
 (:func:`sim.output.framing.frame_view`); the scene is offset so that the
 framed point sits at the world origin, where meshcat's orbit camera looks.
 The HTML replay adds a caption (:func:`replay_captions`) that shows the
-scenario, the controller, the simulated time and the interaction forces,
-driven by the replay's clock.
+scenario, the controller, the simulated time, the interaction forces and
+the names of the faults active at that time, driven by the replay's clock.
 
 Moving parts are meshcat *group* nodes that carry only a transform; their
 shapes are child nodes with a fixed offset.  Animations therefore target nodes
