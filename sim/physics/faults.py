@@ -54,10 +54,10 @@ import numpy as np
 from models.checks import finite, in_range, nonnegative, positive, vector
 from models.errors import ParameterError
 
-__all__ = ["Fault", "FaultTargets", "FaultState", "FaultSchedule", "SensorDropout", "SensorBiasStep",
-           "SensorBiasDrift", "SensorNoiseBurst", "EncoderGlitch", "StuckEncoder", "SensorDelay", "ControlDelay",
-           "TorqueLoss", "StuckDrive", "CuffSlip", "WearerJerk", "FAULT_KINDS", "HOOKS", "random_faults", "fault_rng",
-           "check_faults"]
+__all__ = ["Fault", "CuffFault", "JointFault", "FaultTargets", "FaultState", "FaultSchedule", "SensorDropout",
+           "SensorBiasStep", "SensorBiasDrift", "SensorNoiseBurst", "EncoderGlitch", "StuckEncoder", "SensorDelay",
+           "ControlDelay", "TorqueLoss", "StuckDrive", "CuffSlip", "WearerJerk", "FAULT_KINDS", "HOOKS",
+           "random_faults", "fault_rng", "check_faults"]
 
 #: The hooks a fault can override, in the order they come in a control tick.
 HOOKS: tuple[str, ...] = ("coupling", "encoder", "readings", "command", "drive", "wearer")
@@ -213,7 +213,9 @@ class FaultState:
 
 # -- the kinds ------------------------------------------------------------------------------------------
 @dataclass(frozen=True, kw_only=True)
-class _OnCuff(Fault):
+class CuffFault(Fault):
+    """A fault on one cuff (its sensor or its strap): ``cuff`` names it, checked against the run's cuffs."""
+
     cuff: str
 
     def check_targets(self, targets: FaultTargets) -> None:
@@ -221,7 +223,9 @@ class _OnCuff(Fault):
 
 
 @dataclass(frozen=True, kw_only=True)
-class _OnJoint(Fault):
+class JointFault(Fault):
+    """A fault on one robot joint (its encoder or its drive): ``joint`` names it, checked against the robot's."""
+
     joint: str
 
     def check_targets(self, targets: FaultTargets) -> None:
@@ -229,7 +233,7 @@ class _OnJoint(Fault):
 
 
 @dataclass(frozen=True, kw_only=True)
-class SensorDropout(_OnCuff):
+class SensorDropout(CuffFault):
     """A cuff's force/torque sensor drops out: its reading is 0 (``mode="zero"``) or stays at the last reading
     before the fault (``mode="stuck"``), on all six axes, then comes back (common practice)."""
 
@@ -252,7 +256,7 @@ class SensorDropout(_OnCuff):
 
 
 @dataclass(frozen=True, kw_only=True)
-class SensorBiasStep(_OnCuff):
+class SensorBiasStep(CuffFault):
     """A step of bias on a cuff's force/torque reading: :math:`y = y_0 + b` during the fault."""
 
     force_N: tuple[float, float, float] = (0.0, 0.0, 0.0)
@@ -268,7 +272,7 @@ class SensorBiasStep(_OnCuff):
 
 
 @dataclass(frozen=True, kw_only=True)
-class SensorBiasDrift(_OnCuff):
+class SensorBiasDrift(CuffFault):
     """A bias that grows linearly on a cuff's force/torque reading: :math:`y = y_0 + r (t - t_{start})` during
     the fault (a thermal drift; common practice), gone after it (the sensor is tared again)."""
 
@@ -285,7 +289,7 @@ class SensorBiasDrift(_OnCuff):
 
 
 @dataclass(frozen=True, kw_only=True)
-class SensorNoiseBurst(_OnCuff):
+class SensorNoiseBurst(CuffFault):
     """Extra white Gaussian noise on a cuff's force/torque reading: :math:`y = y_0 + \\sigma \\circ n`,
     :math:`n \\sim \\mathcal N(0, I_6)` drawn from the fault's own seeded generator every active tick."""
 
@@ -303,7 +307,7 @@ class SensorNoiseBurst(_OnCuff):
 
 
 @dataclass(frozen=True, kw_only=True)
-class EncoderGlitch(_OnJoint):
+class EncoderGlitch(JointFault):
     """A spike on one joint's encoder: it reads :math:`q + \\Delta q` while the fault lasts (make it one or a
     few ticks long); the velocity estimate sees the jump, as on a real drive (common practice)."""
 
@@ -318,7 +322,7 @@ class EncoderGlitch(_OnJoint):
 
 
 @dataclass(frozen=True, kw_only=True)
-class StuckEncoder(_OnJoint):
+class StuckEncoder(JointFault):
     """One joint's encoder holds its last reading: it reads the position of the tick before the fault, so the
     measured position stays at that reading and the velocity estimate decays to 0."""
 
@@ -371,7 +375,7 @@ class ControlDelay(Fault):
 
 
 @dataclass(frozen=True, kw_only=True)
-class TorqueLoss(_OnJoint):
+class TorqueLoss(JointFault):
     """One joint's drive delivers no torque (a tripped amplifier, a broken cable): :math:`\\tau_j = 0`."""
 
     kind: ClassVar[str] = "torque_loss"
@@ -381,7 +385,7 @@ class TorqueLoss(_OnJoint):
 
 
 @dataclass(frozen=True, kw_only=True)
-class StuckDrive(_OnJoint):
+class StuckDrive(JointFault):
     """One joint's drive holds the torque it delivered just before the fault, whatever the command."""
 
     kind: ClassVar[str] = "stuck_drive"
@@ -395,7 +399,7 @@ class StuckDrive(_OnJoint):
 
 
 @dataclass(frozen=True, kw_only=True)
-class CuffSlip(_OnCuff):
+class CuffSlip(CuffFault):
     """A cuff slips on the limb: its stiffness and damping are multiplied by ``factor`` in (0, 1], so for the
     same displacement the spring force is ``factor`` times as large (Hooke's law, :math:`f = K e`)."""
 
