@@ -4,9 +4,11 @@ Main entry points: :func:`sim.load_scenario`, :class:`sim.Simulation` (a run
 tick by tick, in memory: notebooks and scripts), :func:`sim.run_scenario`
 (a run folder with its baseline, metrics and report), :func:`sim.loop.simulate`
 and :func:`sim.load_run`. Scenario files import :class:`sim.Scenario`,
-:class:`sim.JointIntent`, :class:`sim.Via` and :func:`sim.deg` from here.
+:class:`sim.JointIntent`, :class:`sim.Via`, :func:`sim.deg` and
+:class:`sim.SafetyParams` (the safety monitor's settings) from here.
 """
 
+from controllers.safety import SafetyParams
 from sim.experiments.run import run_scenario
 from sim.loop.runlog import Run, RunLog, load_run
 from sim.loop.scenario import Scenario, ScenarioError, deg, load_scenario
@@ -15,4 +17,4 @@ from sim.loop.simulation import Simulation, SimulationError, Trajectory
 from sim.physics.intent import JointIntent, Via
 
 __all__ = ["JointIntent", "Via", "Run", "RunLog", "load_run", "Scenario", "ScenarioError", "deg", "load_scenario",
-           "RunResult", "SimulationError", "run_scenario", "simulate", "Simulation", "Trajectory"]
+           "RunResult", "SimulationError", "run_scenario", "simulate", "Simulation", "Trajectory", "SafetyParams"]

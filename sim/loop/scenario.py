@@ -30,6 +30,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from controllers.safety import SafetyParams
 from models.checks import positive
 from models.coupling import DEFAULT_CUFFS, CuffSpec, Registration
 from models.errors import ParameterError, SandboxError
@@ -83,6 +84,9 @@ class Scenario:
     #: Body-region force limits [N] per cuff name, over the defaults of
     #: :data:`sim.analysis.metrics.BODY_REGION_FORCE_LIMITS_N` (ISO/TS 15066 Annex A).
     force_limits_N: Mapping[str, float] = field(default_factory=dict)
+    #: The safety monitor of the run's controller (:class:`controllers.safety.SafetyParams`; its force limits
+    #: are its own, ``force_limits_N`` above only sets the metrics' reference lines); None: no monitor.
+    safety: SafetyParams | None = field(default_factory=SafetyParams)
 
     def __post_init__(self) -> None:
         o = f"Scenario({self.name!r})"
@@ -112,6 +116,8 @@ class Scenario:
             raise ParameterError(f"{o}.substeps must be an integer >= 1, got {self.substeps!r}")
         if not (isinstance(self.seed, int) and self.seed >= 0):
             raise ParameterError(f"{o}.seed must be an integer >= 0, got {self.seed!r}")
+        if self.safety is not None and not isinstance(self.safety, SafetyParams):
+            raise ParameterError(f"{o}.safety must be SafetyParams(...) or None, got {self.safety!r}")
 
     @property
     def human(self) -> HumanParams:

@@ -296,7 +296,7 @@ class Simulation:
         if mode == "human_alone":
             controller, name = None, None
         elif isinstance(spec, str):
-            controller, name = make_controller(spec, scenario.variants, scenario.walls), spec
+            controller, name = make_controller(spec, scenario.variants, scenario.walls, scenario.safety), spec
         else:
             controller, name = spec, spec.name
         asm = build_assembly(scenario)
