@@ -13,7 +13,8 @@ diagnostics:
 * ``joint_torque``: the inner controller's command :math:`|\\tau_i|` against
   ``torque_limit_factor`` times the model's effort limit;
 * ``solve_time``: a watchdog on the inner controller's ``solve_time_s``
-  diagnostic [s] (over the budget, or NaN on a tick that is not a fallback);
+  diagnostic [s] (over the budget, or NaN on a tick that is not a fallback,
+  on ``solve_time_overrun_ticks`` consecutive ticks);
 * ``fallback_rate``: the share of the inner controller's ``fallback`` ticks
   over a sliding window.
 
@@ -114,7 +115,10 @@ class SafetyParams:
     solve_time_budget_s : float or None, default 0.05
         Watchdog on the inner controller's ``solve_time_s`` [s]: 50 control periods at 1 kHz, generous on
         purpose so that a busy shared machine does not trip it (a real-time target would use one period).
-        None: no watchdog.
+        None: no watchdog.  The only watch on wall-clock time: a run it trips is not reproducible.
+    solve_time_overrun_ticks : int, default 3
+        Consecutive ticks over the budget (or NaN) that trip the watchdog: one late tick on a shared machine is
+        the scheduler, several in a row are a controller that cannot keep up.
     fallback_window_s : float, default 0.1
         Sliding window of the fallback-rate watch [s].
     fallback_max_fraction : float, default 0.1
@@ -137,6 +141,7 @@ class SafetyParams:
     speed_limit_factor: float = 2.0
     torque_limit_factor: float = 1.0
     solve_time_budget_s: float | None = 0.05
+    solve_time_overrun_ticks: int = 3
     fallback_window_s: float = 0.1
     fallback_max_fraction: float = 0.1
     safe_state: str = "damp"
@@ -162,6 +167,10 @@ class SafetyParams:
         set_(self, "torque_limit_factor", _number(o, "torque_limit_factor", self.torque_limit_factor, ""))
         if self.solve_time_budget_s is not None:
             set_(self, "solve_time_budget_s", _number(o, "solve_time_budget_s", self.solve_time_budget_s, "s"))
+        n = self.solve_time_overrun_ticks
+        if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1:
+            raise ParameterError(f"{o}.solve_time_overrun_ticks must be an integer >= 1, got {n!r}")
+        set_(self, "solve_time_overrun_ticks", int(n))
         set_(self, "fallback_window_s", _number(o, "fallback_window_s", self.fallback_window_s, "s"))
         set_(self, "fallback_max_fraction",
              _number(o, "fallback_max_fraction", self.fallback_max_fraction, "", low_open=False, high=1.0))
@@ -236,6 +245,7 @@ class SafetyMonitor:
         self._window = max(1, int(round(p.fallback_window_s / context.dt_s)))
         self._fallbacks = np.zeros(self._window, dtype=bool)
         self._fb_count, self._fb_at = 0, 0
+        self._overruns = 0
         self._model = arm.model
         self._data = arm.model.createData()
         self._state = TickState(arm, dict(context.cuff_frames), context.dt_s) if p.safe_state == "stop" else None
@@ -273,7 +283,11 @@ class SafetyMonitor:
             st = float(diag["solve_time_s"])
             if math.isnan(st) and is_fallback:  # no solve on this tick: the fallback-rate watch judges it
                 st = 0.0
-            out.append(("solve_time", "", st if math.isfinite(st) else math.inf, budget))
+            st = st if math.isfinite(st) else math.inf
+            self._overruns = self._overruns + 1 if st > budget else 0
+            # over the budget counts only on the n-th consecutive late tick; the release judges the tick itself
+            late = self._overruns >= self.params.solve_time_overrun_ticks or (self.tripped and st > budget)
+            out.append(("solve_time", "", st if late else min(st, budget), budget))
         if fallback is not None:
             slot = self._fb_at
             self._fb_count += int(is_fallback) - int(self._fallbacks[slot])

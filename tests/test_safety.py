@@ -104,7 +104,7 @@ def test_body_region_limits_are_those_of_iso_ts_15066_annex_a():
                                           ("solve_time_budget_s", math.nan), ("fallback_max_fraction", 1.5),
                                           ("safe_state", "float"), ("release", "sometimes"),
                                           ("release_fraction", 0.0), ("stop_deceleration_rad_s2", 0.0),
-                                          ("force_limits_N", {"hand": -3.0})])
+                                          ("force_limits_N", {"hand": -3.0}), ("solve_time_overrun_ticks", 0)])
 def test_bad_parameters_are_refused_naming_the_field(field, value):
     with pytest.raises(ParameterError, match=field):
         SafetyParams(**{field: value})
@@ -177,7 +177,7 @@ def test_torque_watch_lets_a_command_at_the_limit_pass_and_trips_beyond(context)
 
 
 def test_solve_time_watchdog_counts_over_budget_and_nan_but_not_a_fallback_tick(context):
-    ctrl = supervised(context, solve_time_budget_s=0.01, fallback_max_fraction=0.5)
+    ctrl = supervised(context, solve_time_budget_s=0.01, solve_time_overrun_ticks=1, fallback_max_fraction=0.5)
     ctrl.inner.diag.update(solve_time_s=0.009)
     ctrl.step(meas(context))
     ctrl.inner.diag.update(solve_time_s=math.nan, fallback=1.0)  # no solve on a fallback tick: not the watchdog's
@@ -186,10 +186,23 @@ def test_solve_time_watchdog_counts_over_budget_and_nan_but_not_a_fallback_tick(
     ctrl.inner.diag.update(solve_time_s=0.011, fallback=0.0)
     ctrl.step(meas(context, t=2 * DT))
     assert ctrl.trips[-1].reason == "solve_time" and ctrl.trips[-1].value == 0.011
-    ctrl = supervised(context)
+    ctrl = supervised(context, solve_time_overrun_ticks=1)
     ctrl.inner.diag.update(solve_time_s=math.nan)
     ctrl.step(meas(context))
     assert ctrl.trips[-1].reason == "solve_time" and ctrl.trips[-1].value == math.inf
+
+
+def test_solve_time_watchdog_trips_on_the_nth_consecutive_late_tick_only(context):
+    ctrl = supervised(context, solve_time_budget_s=0.05, solve_time_overrun_ticks=3)
+    times = [0.06, 0.06, 0.01, 0.06, 0.06, 0.01, 0.2, 0.2]  # never three late ticks in a row
+    for k, st in enumerate(times):
+        ctrl.inner.diag["solve_time_s"] = st
+        ctrl.step(meas(context, t=k * DT))
+    assert not ctrl.trips
+    ctrl.inner.diag["solve_time_s"] = 0.07
+    ctrl.step(meas(context, t=len(times) * DT))  # the third in a row
+    trip = ctrl.trips[0]
+    assert (trip.reason, trip.value, trip.limit, trip.t_s) == ("solve_time", 0.07, 0.05, len(times) * DT)
 
 
 def test_no_watchdog_for_a_controller_without_the_diagnostic_or_with_no_budget(context):
@@ -340,6 +353,14 @@ def test_a_run_logs_the_safety_diagnostics_and_keeps_wall_clock_ones_out():
     assert "diag_solve_time_s" not in sim.columns
     off = Simulation(dataclasses.replace(sc, safety=None), "transparent")
     assert not any(c.startswith("diag_safety") for c in off.columns)
+    # meta.json: the variant's own structure, and the monitor's settings beside it (None when off)
+    assert sim.meta["controller_structure"] == json.loads(json.dumps(make_controller("transparent").structure()))
+    assert sim.meta["safety"]["safe_state"] == "damp" and off.meta["safety"] is None
+    # an object built in code runs supervised too (not twice), and a zero-torque one never
+    assert isinstance(Simulation(sc, make_controller("transparent")).controller, Supervised)
+    wrapped = Supervised(make_controller("gravity"), SafetyParams(release="never"))
+    assert Simulation(sc, wrapped).controller is wrapped
+    assert isinstance(Simulation(sc, ZeroTorque()).controller, ZeroTorque)
     a, b = sim.run(0.2).arrays, off.run(0.2).arrays
     for k in b:  # the monitor changes nothing while it does not trip
         np.testing.assert_array_equal(a[k], b[k])

@@ -393,10 +393,10 @@ def controller_section(meta: Mapping, metrics: Mapping, arrays: Mapping[str, np.
 
 def safety_section(meta: Mapping, metrics: Mapping) -> list[str]:
     """The "Safety" section of a run report (Markdown lines): the safety monitor's settings as recorded in
-    ``controller_structure`` (``meta.json``), its trips (``safety_trips`` of ``metrics.json``), and the ticks
+    ``meta.json`` (``safety``), its trips (``safety_trips`` of ``metrics.json``), and the ticks
     above a body-region force limit."""
     text = ["## Safety", ""]
-    settings = (_structure(meta) or {}).get("safety")
+    settings = (meta or {}).get("safety")
     n = metrics.get("safety_trip_count")
     exceed = metrics.get("force_limit_exceed_count")
     if settings is None and n is None:
