@@ -239,6 +239,20 @@ def test_non_finite_reading_counts_as_over_its_limit(context):
 
 
 # -- pass-through, safe state, latch and release ----------------------------------------------------------------
+def test_a_non_finite_command_trips_to_the_safe_state_and_the_run_goes_on():
+    class NaNAfter(Controller):
+        name = "nan_after"
+
+        def step(self, m):
+            return np.full(len(m.q_rad), np.nan if m.t_s >= 0.005 else 0.0)
+
+    sim = Simulation(load_scenario(REPO / "scenarios" / "reach.py"), NaNAfter())
+    a = sim.run(0.02).arrays
+    trip = sim.controller.trips[0]
+    assert (trip.reason, trip.value, trip.t_s) == ("joint_torque", math.inf, 0.005)
+    assert np.all(np.isfinite(a["tau_cmd"])) and a["diag_safety_tripped"][5:].all()
+
+
 def test_untripped_wrapper_returns_the_inner_command_itself(context):
     ctrl = supervised(context)
     ctrl.inner.tau = np.linspace(-1, 1, context.arm.nv)
