@@ -124,7 +124,10 @@ class SafetyParams:
     fallback_max_fraction : float, default 0.1
         Largest share of fallback ticks in the window; more trips.
     safe_state : {"damp", "stop"}, default "damp"
-        Gravity compensation with joint damping, or a controlled stop.
+        Gravity compensation with joint damping, or a controlled stop.  The stop brakes to standstill and then
+        holds it under power (stop category 2), against the wearer too: in ``scenarios/demos/safety_trip.py``
+        it held the arm while the wearer pulled back, up to 157 N at a cuff (the hand's limit is 140 N), where
+        "damp" stayed under 78 N.  With a wearer, prefer "damp".
     damping_Nm_s_per_rad : float, default 2.0
         D of the "damp" safe state [N m s/rad] (common practice: a few N m s/rad for an arm).
     stop_deceleration_rad_s2 : float, default 10.0

@@ -532,6 +532,11 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
         lines.append(f"{len(result.failed)} of {len(result.results)} runs failed:")
         lines += [f"  {r.case.label}: {r.error}" for r in result.failed]
     lines.append(f"report {out / 'report.md'}, tables {out / 'summary.csv'} and {out / 'runs.csv'}")
+    from sim.experiments.run import run_warnings
+
+    # after the results, one line per run that must not go unnoticed; the exit code stays as it is
+    lines += [f"warning: {r.case.label}: {w}" for r in result.results if r.ok and r.metrics
+              for w in run_warnings(r.metrics)]
     return "\n".join(lines)
 
 
