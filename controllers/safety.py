@@ -318,7 +318,7 @@ class SafetyMonitor:
         reason = self._latched[0]
         # the worst cuff or joint of the latched watch (largest ratio): all of them under the fraction
         held = next((r for r in readings if r[0] == reason), None)
-        ok = held is None or held[2] < self.params.release_fraction * held[3]
+        ok = violated is None and (held is None or held[2] < self.params.release_fraction * held[3])
         if not ok:
             self._under_since = None
         elif self._under_since is None:
@@ -327,8 +327,6 @@ class SafetyMonitor:
             last = self.trips[-1]
             self.trips[-1] = Trip(last.reason, last.t_s, last.value, last.limit, last.where, released_s=t)
             self.tripped, self._latched, self._under_since = False, None, None
-            if violated is not None:  # something else is over its limit at the release: trip on it at once
-                self._trip(violated, t)
         return self.tripped
 
     def _trip(self, reading: tuple[str, str, float, float], t: float) -> None:

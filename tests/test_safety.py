@@ -337,6 +337,19 @@ def test_release_after_the_hold_time_under_the_fraction_and_not_before(context):
     assert len(ctrl.trips) == 2 and ctrl.trips[1].released_s is None
 
 
+def test_no_release_while_another_watch_is_violated(context):
+    ctrl = supervised(context, release="hold", release_fraction=0.5, release_hold_s=0.05)
+    ctrl.step(meas(context, forces={"hand": 200.0}))  # trips on the force
+    fast = np.zeros(context.arm.nv)
+    fast[3] = 9.0  # the elbow over twice its rated 4 rad/s
+    for k in range(1, 200):  # the force is back under half its limit, the speed is not under its own
+        ctrl.step(meas(context, t=k * DT, dq=fast))
+    assert ctrl.diagnostics()["safety_tripped"] == 1.0 and len(ctrl.trips) == 1
+    for k in range(200, 260):
+        ctrl.step(meas(context, t=k * DT))
+    assert ctrl.trips[0].released_s == pytest.approx(0.25, abs=1e-9)  # 0.200 s + the 0.05 s hold
+
+
 def test_trip_reason_codes_round_trip():
     assert TRIP_REASONS[0] == "none" and all(TRIP_REASONS[TRIP_CODES[n]] == n for n in TRIP_CODES)
 
