@@ -453,3 +453,14 @@ def test_demo_run_reports_the_trips_and_the_cli_warns_with_exit_code_0(tmp_path,
                                                       for x in lines[1:])
     saved = json.loads((tmp_path / "cli" / "metrics.json").read_text())
     assert saved["safety_trip_count"] >= 1 and saved["safety_trips"][0]["reason"] == "joint_speed"
+
+
+def test_compare_warns_for_the_run_that_tripped_only_and_a_shipped_run_prints_no_warning(tmp_path, capsys):
+    assert main(["compare", str(DEMO), "--duration", "0.3", "--out", str(tmp_path / "cmp")]) == 0
+    warnings = [x for x in capsys.readouterr().out.splitlines() if x.startswith("warning:")]
+    assert warnings and all(x.startswith("warning: pushy: the safety monitor tripped") for x in warnings)
+    assert main(["run", str(REPO / "scenarios" / "reach.py"), "--controller", "transparent", "--duration", "0.3",
+                 "--out", str(tmp_path / "reach")]) == 0
+    out = capsys.readouterr().out
+    assert "results in" in out and "warning:" not in out
+    assert json.loads((tmp_path / "reach" / "metrics.json").read_text())["safety_trip_count"] == 0
