@@ -14,6 +14,15 @@ list of tasks given by name (see :data:`controllers.tasks.TASKS`), by
 ``(name, {parameter: value})`` or as Task objects; a Task object is a
 template, copied (:func:`copy.deepcopy`) for every controller built, so a task
 that keeps state between ticks starts afresh in every run.
+
+**Safety monitor.** :func:`make_controller` with ``safety`` (a
+:class:`controllers.safety.SafetyParams`) wraps the controller in the safety
+monitor (:class:`controllers.safety.Supervised`); a scenario's run passes its
+``Scenario.safety`` (``SafetyParams()`` by default), so ``gravity``,
+``transparent``, ``walls`` and a scenario's own variants run supervised unless
+the scenario says ``safety=None``.  ``zero`` is never wrapped: it is the
+unpowered reference (the wearer carries the robot), and a safe state would
+power it.
 """
 
 from __future__ import annotations
@@ -27,9 +36,10 @@ from models.errors import ParameterError, UnknownNameError
 from .base import Controller
 from .basic import GravityCompensation, ZeroTorque
 from .hqp import HQPController
+from .safety import SafetyParams, Supervised
 from .tasks import TASKS, JointDamping, JointPositionLimits, JointVelocityLimits, Task, Transparency
 
-__all__ = ["CONTROLLERS", "SHIPPED", "make_controller", "build_levels"]
+__all__ = ["CONTROLLERS", "SHIPPED", "UNSUPERVISED", "make_controller", "build_levels"]
 
 TaskSpec = str | tuple | Task
 LevelsSpec = Sequence[Sequence[TaskSpec]]
@@ -62,6 +72,8 @@ CONTROLLERS: Mapping[str, Callable[[], Controller]] = MappingProxyType({
 _WITH_WALLS: Mapping[Callable[[], Controller], Callable[[Sequence[TaskSpec]], Controller]] = MappingProxyType(
     {_walls_default: _walls})
 SHIPPED = tuple(CONTROLLERS)
+#: Shipped variants never wrapped in the safety monitor (``zero``: the unpowered reference commands nothing).
+UNSUPERVISED = frozenset({"zero"})
 
 
 def _task(spec: TaskSpec, where: str) -> Task:
@@ -96,12 +108,24 @@ def build_levels(spec: LevelsSpec, variant: str = "variant") -> list[list[Task]]
 
 
 def make_controller(name: str, variants: Mapping[str, LevelsSpec] | None = None,
-                    walls: Sequence[TaskSpec] = ()) -> Controller:
+                    walls: Sequence[TaskSpec] = (), safety: SafetyParams | None = None) -> Controller:
     """A new controller by name: a scenario's own variant first, then the shipped ones.
 
     ``walls`` (task specs, e.g. ``("wall_plane", {...})``) are the scenario's
     virtual walls, used by the ``walls`` variant; each call builds fresh tasks.
+    ``safety``: wrap the controller in the safety monitor with these
+    parameters (:class:`controllers.safety.Supervised`; not ``zero``, see
+    :data:`UNSUPERVISED`); None: unwrapped.
     """
+    if safety is not None and not isinstance(safety, SafetyParams):
+        raise ParameterError(f"make_controller: safety must be SafetyParams or None, got {type(safety).__name__}")
+    controller = _make(name, variants, walls)
+    if safety is None or (name in UNSUPERVISED and not (variants and name in variants)):
+        return controller
+    return Supervised(controller, safety)
+
+
+def _make(name: str, variants: Mapping[str, LevelsSpec] | None, walls: Sequence[TaskSpec]) -> Controller:
     if variants and name in variants:
         return HQPController(build_levels(variants[name], name), name=name)
     factory = CONTROLLERS.get(name)

@@ -4,10 +4,11 @@ Main entry points: :func:`sim.load_scenario`, :class:`sim.Simulation` (a run
 tick by tick, in memory: notebooks and scripts), :func:`sim.run_scenario`
 (a run folder with its baseline, metrics and report), :func:`sim.loop.simulate`
 and :func:`sim.load_run`. Scenario files import :class:`sim.Scenario`,
-:class:`sim.JointIntent`, :class:`sim.Via`, :func:`sim.deg` and the faults of
-:mod:`sim.physics.faults` (:class:`sim.SensorDropout`, ...) from here.
+:class:`sim.JointIntent`, :class:`sim.Via`, :func:`sim.deg`, :class:`sim.SafetyParams` (the safety
+monitor's settings) and the faults of :mod:`sim.physics.faults` (:class:`sim.SensorDropout`, ...) from here.
 """
 
+from controllers.safety import SafetyParams
 from sim.experiments.run import run_scenario
 from sim.loop.runlog import Run, RunLog, load_run
 from sim.loop.scenario import Scenario, ScenarioError, deg, load_scenario
@@ -35,4 +36,4 @@ __all__ = ["JointIntent", "Via", "Run", "RunLog", "load_run", "Scenario", "Scena
            "RunResult", "SimulationError", "run_scenario", "simulate", "Simulation", "Trajectory",
            "Fault", "SensorDropout", "SensorBiasStep", "SensorBiasDrift", "SensorNoiseBurst", "EncoderGlitch",
            "StuckEncoder", "SensorDelay", "ControlDelay", "TorqueLoss", "StuckDrive", "CuffSlip", "WearerJerk",
-           "random_faults"]
+           "random_faults", "SafetyParams"]

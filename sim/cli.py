@@ -281,9 +281,12 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     wall = "".join(f", {k} = {m[k]:{spec}}" for k, spec in (("interaction_force_free_rms_N", ".2f"),
                                                              ("wall_stiffness_rendered_N_per_m", ".1f"))
                    if m.get("wall_penetration_max_m") is not None and m.get(k) is not None)
+    from sim.experiments.run import run_warnings
+
+    warnings = "".join(f"\nwarning: {w}" for w in run_warnings(m))  # after the results; the exit code stays 0
     return (f"results in {out}: interaction_force_rms_N = {m['interaction_force_rms_N']:.2f}, "
             f"human_effort_ratio = {m['human_effort_ratio']:.3f}, realtime_factor = {m['realtime_factor']:.2f}{wall} "
-            f"(all metrics in {out / 'metrics.json'}, report with plots in {out / 'report.md'})")
+            f"(all metrics in {out / 'metrics.json'}, report with plots in {out / 'report.md'}){warnings}")
 
 
 class _LazyViewer:
@@ -411,7 +414,12 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     rows, labels, md = compare_runs(run_dirs, out)
     table = text_table(["metric", "unit", *labels], [[r["key"], r["unit"]] + [
         fmt(r[lab]) + (" *" if r["best"] == lab else "") for lab in labels] for r in rows])
-    return f"{table}\n(* the better value)\nreport {md}, table {out / 'compare.csv'}, plots in {out / 'plots'}"
+    from sim.experiments.run import run_warnings
+
+    warnings = "".join(f"\nwarning: {lab}: {w}" for lab, d in zip(labels, run_dirs)
+                       for w in run_warnings(load_run(d).metrics or {}))
+    return (f"{table}\n(* the better value)\nreport {md}, table {out / 'compare.csv'}, plots in {out / 'plots'}"
+            f"{warnings}")
 
 
 def _cmd_catalog(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
@@ -524,6 +532,11 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
         lines.append(f"{len(result.failed)} of {len(result.results)} runs failed:")
         lines += [f"  {r.case.label}: {r.error}" for r in result.failed]
     lines.append(f"report {out / 'report.md'}, tables {out / 'summary.csv'} and {out / 'runs.csv'}")
+    from sim.experiments.run import run_warnings
+
+    # after the results, one line per run that must not go unnoticed; the exit code stays as it is
+    lines += [f"warning: {r.case.label}: {w}" for r in result.results if r.ok and r.metrics
+              for w in run_warnings(r.metrics)]
     return "\n".join(lines)
 
 

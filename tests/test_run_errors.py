@@ -148,7 +148,8 @@ class _NaNTorque(Controller):
 
 def test_controller_returning_nan_raises_simulation_error_naming_the_controller(tmp_path, monkeypatch):
     monkeypatch.setattr(registry, "CONTROLLERS", MappingProxyType({**CONTROLLERS, "nan_torque": _NaNTorque}))
-    scenario = load_scenario(write_scenario(tmp_path / "nan.py", controllers='("nan_torque",)'))
+    # without the safety monitor, which would command its safe state instead (tests/test_safety.py)
+    scenario = load_scenario(write_scenario(tmp_path / "nan.py", controllers='("nan_torque",)', safety="None"))
     with pytest.raises(SimulationError, match="'nan_torque'"):
         simulate(scenario, "nan_torque", tmp_path / "run", seed=0)
     run = sim.load_run(tmp_path / "run")
@@ -157,7 +158,7 @@ def test_controller_returning_nan_raises_simulation_error_naming_the_controller(
 
 def test_controller_returning_nan_gives_one_line_from_main(tmp_path, monkeypatch, capsys):
     monkeypatch.setattr(registry, "CONTROLLERS", MappingProxyType({**CONTROLLERS, "nan_torque": _NaNTorque}))
-    path = write_scenario(tmp_path / "nan.py", controllers='("nan_torque",)')
+    path = write_scenario(tmp_path / "nan.py", controllers='("nan_torque",)', safety="None")  # no monitor
     assert main(["run", str(path), "--out", str(tmp_path / "run")]) != 0
     err = capsys.readouterr().err
     assert len(err.strip().splitlines()) == 1 and "'nan_torque'" in err and "Traceback" not in err

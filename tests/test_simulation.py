@@ -7,6 +7,8 @@ and its order are the same whichever way the rows go (in memory, or streamed to 
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pytest
 from _scenario_files import write_scenario
@@ -152,7 +154,8 @@ class _NaNAfter(Controller):
 
 
 def test_a_run_that_cannot_go_on_names_the_tick_and_keeps_its_rows(scenario):
-    sim = Simulation(scenario, _NaNAfter(), seed=SEED)
+    # without the safety monitor, which would command its safe state instead (tests/test_safety.py)
+    sim = Simulation(dataclasses.replace(scenario, safety=None), _NaNAfter(), seed=SEED)
     with pytest.raises(SimulationError, match=r"'nan_after'.*t = 0\.0050 s"):
         sim.run()
     assert sim.trajectory.ticks == 5 and np.all(np.isfinite(sim.trajectory.arrays["q_exo"]))

@@ -28,6 +28,9 @@ from types import MappingProxyType
 import numpy as np
 import pinocchio as pin
 
+from controllers.safety import BODY_REGION_FORCE_LIMITS_N as SAFETY_FORCE_LIMITS_N
+from controllers.safety import TRIP_REASONS
+
 __all__ = [
     "interaction_force_norm_N",
     "interaction_force_rms_N",
@@ -63,6 +66,8 @@ __all__ = [
     "robot_interaction_terms",
     "BODY_REGION_FORCE_LIMITS_N",
     "force_limit_exceed_count",
+    "safety_trips",
+    "safety_metrics",
     "solver_metrics",
     "run_metrics",
     "MetricInfo",
@@ -818,8 +823,8 @@ def _derived_column(arrays: Mapping[str, np.ndarray], name: str) -> np.ndarray:
 #: Quasi-static force limits [N] per body region, ISO/TS 15066:2016 Annex A ([ISO15066]_):
 #: hand and fingers 140 N (confirmed); upper arm and elbow 150 N, lower arm and wrist 160 N (from memory,
 #: unconfirmed).  Keyed by the default cuff names; a scenario may override or add (``force_limits_N``).
-BODY_REGION_FORCE_LIMITS_N: Mapping[str, float] = MappingProxyType(
-    {"upper_arm": 150.0, "forearm": 160.0, "hand": 140.0})
+#: The same mapping as the safety monitor's (:data:`controllers.safety.BODY_REGION_FORCE_LIMITS_N`).
+BODY_REGION_FORCE_LIMITS_N: Mapping[str, float] = SAFETY_FORCE_LIMITS_N
 
 
 def force_limit_exceed_count(cuff_wrench: np.ndarray, names: Sequence[str], limits_N: Mapping[str, float]) -> int:
@@ -828,6 +833,56 @@ def force_limit_exceed_count(cuff_wrench: np.ndarray, names: Sequence[str], limi
     f = np.linalg.norm(np.asarray(cuff_wrench)[..., :3], axis=-1)
     lim = np.array([limits_N.get(nm, np.inf) for nm in names], dtype=float)
     return int(np.count_nonzero(np.any(f > lim, axis=-1))) if f.size else 0
+
+
+def safety_trips(arrays: Mapping[str, np.ndarray], cuff_names: Sequence[str], joint_names: Sequence[str] | None,
+                 dt_s: float) -> list[dict]:
+    """The safety monitor's trips from its logged diagnostics (``diag_safety_tripped``, ``diag_safety_reason``,
+    ``diag_safety_value``, ``diag_safety_limit``, ``diag_safety_where``; :class:`controllers.safety.Supervised`).
+
+    A trip is a tick where ``safety_tripped`` rises to 1 (or a tick where the reason changes while tripped: a
+    release and a new trip on the same tick).  Each is ``{"reason", "t_s", "value", "limit"}`` plus ``"cuff"``
+    (a force trip) or ``"joint"`` (a speed or torque trip) by name, and ``"released_s"``: the time of the first
+    tick after it with ``safety_tripped`` 0 (None if it stayed latched to the end).
+    """
+    tripped = np.asarray(arrays["diag_safety_tripped"], dtype=float) > 0.5
+    reason = np.asarray(arrays["diag_safety_reason"], dtype=float)
+    value = np.asarray(arrays.get("diag_safety_value", np.full(len(tripped), np.nan)), dtype=float)
+    limit = np.asarray(arrays.get("diag_safety_limit", np.full(len(tripped), np.nan)), dtype=float)
+    where = np.asarray(arrays.get("diag_safety_where", np.full(len(tripped), -1.0)), dtype=float)
+    t = np.asarray(arrays["t"], dtype=float) if "t" in arrays else np.arange(len(tripped)) * dt_s
+    prev_tripped = np.concatenate([[False], tripped[:-1]])
+    prev_reason = np.concatenate([[0.0], reason[:-1]])
+    starts = np.flatnonzero(tripped & (~prev_tripped | (reason != prev_reason)))
+    off = np.flatnonzero(~tripped)
+    out = []
+    for k in starts:
+        name = TRIP_REASONS.get(int(reason[k]), f"code {int(reason[k])}")
+        trip = {"reason": name, "t_s": float(t[k]), "value": _finite_or_none(value[k]),
+                "limit": _finite_or_none(limit[k])}
+        i = int(where[k])
+        if name == "cuff_force":
+            trip["cuff"] = cuff_names[i] if 0 <= i < len(cuff_names) else None
+        elif name in ("joint_speed", "joint_torque"):
+            trip["joint"] = joint_names[i] if joint_names is not None and 0 <= i < len(joint_names) else i
+        later = off[off > k]
+        trip["released_s"] = float(t[later[0]]) if later.size else None
+        out.append(trip)
+    return out
+
+
+def _finite_or_none(x: float) -> float | None:
+    return float(x) if np.isfinite(x) else None
+
+
+def safety_metrics(arrays: Mapping[str, np.ndarray], cuff_names: Sequence[str], joint_names: Sequence[str] | None,
+                   dt_s: float) -> dict:
+    """``safety_trip_count`` and ``safety_trips`` (:func:`safety_trips`); None and [] for a run without the
+    safety monitor (``Scenario.safety=None``, or the ``zero`` variant)."""
+    if "diag_safety_tripped" not in arrays or "diag_safety_reason" not in arrays:
+        return {"safety_trip_count": None, "safety_trips": []}
+    trips = safety_trips(arrays, cuff_names, joint_names, dt_s)
+    return {"safety_trip_count": len(trips), "safety_trips": trips}
 
 
 # -- solver -------------------------------------------------------------------------------------
@@ -842,12 +897,12 @@ def _median_p99_us(x) -> tuple[float | None, float | None]:
 def solver_metrics(timing: Mapping[str, np.ndarray], fallback: np.ndarray | None,
                    qp_solves: np.ndarray | None = None) -> dict:
     """Solve-time median and 99th percentile per tick [us] (``diag_solve_time_s`` of ``timing.npz``) and per
-    level (``diag_level_i_time_s``), the number of fallback ticks, and the number of ticks on which the QP
+    level (``diag_level_i_time_s``), the number and share of fallback ticks, and the number of ticks on which the QP
     backend solved a level (``qp_solves`` > 0, the controller's ``diag_qp_solves``; None for a run logged
     without it); None for a controller without a QP."""
     if "diag_solve_time_s" not in timing:
         return {"hqp_solve_median_us": None, "hqp_solve_p99_us": None, "hqp_fallback_count": None,
-                "hqp_backend_tick_count": None, "hqp_levels": []}
+                "hqp_fallback_fraction": None, "hqp_backend_tick_count": None, "hqp_levels": []}
     med, p99 = _median_p99_us(timing["diag_solve_time_s"])
     levels = []
     i = 0
@@ -857,7 +912,9 @@ def solver_metrics(timing: Mapping[str, np.ndarray], fallback: np.ndarray | None
         i += 1
     n_fb = int(np.count_nonzero(np.asarray(fallback) > 0.5)) if fallback is not None else 0
     n_qp = int(np.count_nonzero(np.asarray(qp_solves) > 0.5)) if qp_solves is not None else None
+    n_ticks = len(fallback) if fallback is not None else 0
     return {"hqp_solve_median_us": med, "hqp_solve_p99_us": p99, "hqp_fallback_count": n_fb,
+            "hqp_fallback_fraction": n_fb / n_ticks if n_ticks else None,
             "hqp_backend_tick_count": n_qp, "hqp_levels": levels}
 
 
@@ -876,6 +933,7 @@ def run_metrics(
     hand_cuff: int | None = None,
     wall_contact: np.ndarray | None = None,
     coulomb_smoothing_rad_s: float = 0.01,
+    joint_names: Sequence[str] | None = None,
 ) -> dict:
     """The ``metrics.json`` of a coupled run (keys exactly as documented in the README).
 
@@ -887,7 +945,8 @@ def run_metrics(
     ticks out of the felt mass, of the compensation shares and of
     ``interaction_force_free_rms_N``; ``coulomb_smoothing_rad_s`` is the
     plant's (:class:`sim.physics.plant.PlantParams`), for the friction columns
-    of :func:`compensation_shares`; the others default as documented.
+    of :func:`compensation_shares`; ``joint_names`` (the robot's) name the joint of a
+    safety trip (:func:`safety_metrics`; without them, its index); the others default as documented.
     """
     n = len(arrays["t"])
     wall = float(np.sum(tick_times_s))
@@ -932,6 +991,7 @@ def run_metrics(
         "realtime_factor": (n * dt_s / wall) if wall > 0 else None,
     }
     out |= solver_metrics(timing or {}, arrays.get("diag_fallback"), arrays.get("diag_qp_solves"))
+    out |= safety_metrics(arrays, cuff_names, joint_names, dt_s)
     if robot_terms is not None:
         P = interaction_power_W(_derived_column(arrays, "cuff_wrench_exo"), robot_terms["cuff_twist"])
         out["interaction_work_J"] = interaction_work_J(P, dt_s)
@@ -1022,6 +1082,8 @@ METRICS: Mapping[str, MetricInfo] = MappingProxyType({
     "hqp_solve_median_us": MetricInfo("us", "lower", "HQP solve time, median", True),
     "hqp_solve_p99_us": MetricInfo("us", "lower", "HQP solve time, 99th percentile"),
     "hqp_fallback_count": MetricInfo("-", "lower", "fallback ticks", True),
+    "hqp_fallback_fraction": MetricInfo("-", "lower", "share of fallback ticks"),
+    "safety_trip_count": MetricInfo("-", "lower", "safety monitor trips", True),
     "hqp_backend_tick_count": MetricInfo("-", "lower", "ticks needing the QP backend"),
     "tick_time_median_us": MetricInfo("us", "lower", "whole tick, median"),
     "tick_time_p99_us": MetricInfo("us", "lower", "whole tick, 99th percentile"),

@@ -41,7 +41,11 @@ from sim.output.report import write_run_report
 from sim.physics.plant import PlantParams
 
 __all__ = ["Batch", "WARM_UP_TICKS", "run_scenario", "warm_up", "reusable_baseline", "evaluate_run",
-           "renders_walls"]
+           "renders_walls", "run_warnings", "FALLBACK_WARN_FRACTION"]
+
+#: A run warns when more than this share of its ticks fell back (1 %, common practice: an occasional failed
+#: solve is survivable, a controller that fails often is not the controller that was designed).
+FALLBACK_WARN_FRACTION = 0.01
 
 #: Control ticks of :func:`warm_up`'s throw-away run.
 WARM_UP_TICKS = 20
@@ -285,7 +289,8 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     metrics = run_metrics(arrays, cuff_names=cuff_names, baseline=base.arrays if base else None, dt_s=dt,
                           tick_times_s=timing.get("tick_time_s", np.zeros(0)), timing=timing, robot_terms=terms,
                           limits_rad=arm.position_limits(), force_limits_N=limits, hand_cuff=hand,
-                          wall_contact=contact, coulomb_smoothing_rad_s=smoothing)
+                          wall_contact=contact, coulomb_smoothing_rad_s=smoothing,
+                          joint_names=meta.get("exo_joints"))
     if wall is not None:
         rendered = wall.get("rendered", True)
         damping = wall.get("damping_N_s_per_m")
@@ -301,6 +306,36 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     metrics["fault_count"] = len(faults)
     metrics["faults"] = [{k: f[k] for k in ("name", "kind", "start_s", "end_s")} for f in faults]
     return metrics
+
+
+def run_warnings(metrics: dict) -> list[str]:
+    """What a run's ``metrics.json`` holds that its user must not miss, one line each (empty: nothing).
+
+    A line when the safety monitor tripped (``safety_trip_count`` > 0, with each trip's reason, time and value),
+    when a cuff force exceeded its body-region limit (``force_limit_exceed_count`` > 0) and when the controller
+    fell back on more than :data:`FALLBACK_WARN_FRACTION` of the ticks (``hqp_fallback_fraction``).
+    """
+    out = []
+    trips = metrics.get("safety_trips") or []
+    if metrics.get("safety_trip_count"):
+        first = "; ".join(_trip_text(t) for t in trips[:3]) + ("; ..." if len(trips) > 3 else "")
+        out.append(f"the safety monitor tripped {metrics['safety_trip_count']} time(s): {first}")
+    n_force = metrics.get("force_limit_exceed_count")
+    if n_force:
+        out.append(f"a cuff force exceeded its body-region limit on {n_force} tick(s) (force_limit_exceed_count)")
+    share = metrics.get("hqp_fallback_fraction")
+    if share is not None and share > FALLBACK_WARN_FRACTION:
+        out.append(f"the controller fell back to gravity + damping on {metrics.get('hqp_fallback_count')} ticks "
+                   f"({100 * share:.1f} % of the run, more than {100 * FALLBACK_WARN_FRACTION:g} %; "
+                   "hqp_fallback_count)")
+    return out
+
+
+def _trip_text(trip: dict) -> str:
+    where = trip.get("cuff") or trip.get("joint")
+    value, limit = trip.get("value"), trip.get("limit")
+    vl = f" {value:.4g} > {limit:.4g}" if value is not None and limit is not None else ""
+    return f"{trip.get('reason')}{f' ({where})' if where is not None else ''} at t = {trip.get('t_s', 0.0):.3f} s{vl}"
 
 
 def renders_walls(scenario: Scenario, controller_name: str) -> bool:

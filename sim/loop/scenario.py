@@ -30,6 +30,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from controllers.safety import SafetyParams
 from models.checks import positive
 from models.coupling import DEFAULT_CUFFS, CuffSpec, Registration
 from models.errors import ParameterError, SandboxError
@@ -87,6 +88,9 @@ class Scenario:
     #: Timed faults of the run (:mod:`sim.physics.faults`), e.g.
     #: ``(SensorDropout(name="hand sensor drops", cuff="hand", start_s=2.0, end_s=2.5),)``.
     faults: tuple[Fault, ...] = ()
+    #: The safety monitor of the run's controller (:class:`controllers.safety.SafetyParams`; its force limits
+    #: are its own, ``force_limits_N`` above only sets the metrics' reference lines); None: no monitor.
+    safety: SafetyParams | None = field(default_factory=SafetyParams)
 
     def __post_init__(self) -> None:
         o = f"Scenario({self.name!r})"
@@ -124,6 +128,8 @@ class Scenario:
                 raise ParameterError(f"{o}.faults[{i}] {f.owner}.cuff must name one of the scenario's cuffs "
                                      f"({', '.join(map(str, cuff_names))}), got {f.cuff!r}")
         object.__setattr__(self, "faults", faults)
+        if self.safety is not None and not isinstance(self.safety, SafetyParams):
+            raise ParameterError(f"{o}.safety must be SafetyParams(...) or None, got {self.safety!r}")
 
     @property
     def human(self) -> HumanParams:

@@ -48,7 +48,9 @@ from types import MappingProxyType
 import numpy as np
 
 from controllers.base import Controller, ControllerContext
+from controllers.basic import ZeroTorque
 from controllers.registry import make_controller
+from controllers.safety import SafetyParams, Supervised
 from controllers.tasks import Task
 from models.coupling import Assembly, assemble
 from models.errors import ParameterError, SandboxError
@@ -63,7 +65,7 @@ from sim.physics.sensors import ForceSensorBank, ForceTorqueSensor, JointSensing
 from sim.physics.wearer import HumanMotor
 
 __all__ = ["SimulationError", "Simulation", "Trajectory", "Progress", "Observer", "PLANT_MODES", "build_assembly",
-           "controller_context", "log_columns", "jsonable", "start_run_folder", "finish_run_folder"]
+           "controller_context", "supervised", "log_columns", "jsonable", "start_run_folder", "finish_run_folder"]
 
 #: Called after every tick with (ticks done, ticks of the run).
 Progress = Callable[[int, int], None]
@@ -273,7 +275,10 @@ class Simulation:
         :meth:`reset`; or a variant name known to
         :func:`controllers.registry.make_controller` (the scenario's own
         variants first), built anew at every :meth:`reset`.  Ignored (may be
-        None) for ``mode="human_alone"``.
+        None) for ``mode="human_alone"``.  Either runs under the scenario's
+        safety monitor (``Scenario.safety``; :func:`supervised`), so
+        :attr:`controller` is then the :class:`controllers.safety.Supervised`
+        wrapping it.
     seed : int, optional
         Overrides ``scenario.seed``.
     mode : {"coupled", "human_alone", "exo_alone"}
@@ -310,9 +315,9 @@ class Simulation:
         if mode == "human_alone":
             controller, name = None, None
         elif isinstance(spec, str):
-            controller, name = make_controller(spec, scenario.variants, scenario.walls), spec
-        else:
-            controller, name = spec, spec.name
+            controller, name = make_controller(spec, scenario.variants, scenario.walls, scenario.safety), spec
+        else:  # an object built in code runs under the scenario's safety monitor as a variant by name does
+            controller, name = supervised(spec, scenario.safety), spec.name
         asm = build_assembly(scenario)
         plant = CoupledPlant(asm, scenario.plant, mode)
         T = scenario.control_period_s
@@ -356,8 +361,10 @@ class Simulation:
                                                 asm.human.model.frames[c.human_frame_id].name] for c in asm.cuffs},
                        "cuff_human_offsets": {c.name: c.human_offset.homogeneous for c in asm.cuffs}},
             "walls": jsonable(scenario.walls),
-            # the controller's levels and tasks with their parameters (Controller.structure), for the reports
-            "controller_structure": controller.structure() if controller is not None else None,
+            # the controller's levels and tasks with their parameters (Controller.structure), for the reports;
+            # the safety monitor's settings apart (None: no monitor), so that the structure is the variant's own
+            "controller_structure": _unsupervised(controller).structure() if controller is not None else None,
+            "safety": controller.params.settings() if isinstance(controller, Supervised) else None,
             "parameters": jsonable(scenario), "exo_params": jsonable(asm.exo_params),
             # the faults (name, kind, start_s, end_s, parameters), in the order of the fault_active column
             "faults": [f.describe() for f in scenario.faults],
@@ -615,6 +622,18 @@ class Simulation:
     def __repr__(self) -> str:
         return (f"Simulation({self.scenario.name!r}, controller={self._controller_name!r}, mode={self.mode!r}, "
                 f"seed={self.seed}, tick {self._k} of {self.scenario.n_ticks})")
+
+
+def supervised(controller: Controller, safety: SafetyParams | None) -> Controller:
+    """``controller`` under the safety monitor with ``safety`` (:class:`controllers.safety.Supervised`): as is when
+    ``safety`` is None, when it is supervised already, or for a zero-torque controller (the unpowered reference)."""
+    if safety is None or isinstance(controller, (Supervised, ZeroTorque)):
+        return controller
+    return Supervised(controller, safety)
+
+
+def _unsupervised(controller: Controller) -> Controller:
+    return controller.inner if isinstance(controller, Supervised) else controller
 
 
 def _seed(seed) -> int:

@@ -40,7 +40,7 @@ from sim.output.figures import compare_figures, run_figures
 __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
            "write_run_report", "compare_runs", "write_sweep_report", "write_sweeps_report", "sweep_verdicts",
            "has_wall", "transparency_key", "fmt", "fmt_stat", "renders_wall", "is_applicable", "TIMING_NOTE",
-           "controller_section", "variant_differences", "faults_section"]
+           "controller_section", "variant_differences", "faults_section", "safety_section"]
 
 #: Printed in every report.
 CAUTION = (
@@ -391,6 +391,46 @@ def controller_section(meta: Mapping, metrics: Mapping, arrays: Mapping[str, np.
     return text
 
 
+def safety_section(meta: Mapping, metrics: Mapping) -> list[str]:
+    """The "Safety" section of a run report (Markdown lines): the safety monitor's settings as recorded in
+    ``meta.json`` (``safety``), its trips (``safety_trips`` of ``metrics.json``), and the ticks
+    above a body-region force limit."""
+    text = ["## Safety", ""]
+    settings = (meta or {}).get("safety")
+    n = metrics.get("safety_trip_count")
+    exceed = metrics.get("force_limit_exceed_count")
+    if settings is None and n is None:
+        text.append("The safety monitor was off for this run (the scenario's `safety=None`, or the `zero` variant, "
+                    "which commands no torque).")
+    else:
+        if isinstance(settings, Mapping):
+            release = ("stays latched until the run ends" if settings.get("release") == "never" else
+                       f"releases once the tripping quantity has stayed under {fmt(settings.get('release_fraction'))}"
+                       f" of its limit for {fmt(settings.get('release_hold_s'))} s")
+            state = ("gravity compensation with joint damping "
+                     f"{fmt(settings.get('damping_Nm_s_per_rad'))} N m s/rad" if settings.get("safe_state") == "damp"
+                     else f"a controlled stop at up to {fmt(settings.get('stop_deceleration_rad_s2'))} rad/s²")
+            text += [f"Monitor: safe state {state}; it {release}. Joint speed limit "
+                     f"{fmt(settings.get('speed_limit_factor'))} × the model's, torque limit "
+                     f"{fmt(settings.get('torque_limit_factor'))} × the model's, solve-time budget "
+                     f"{fmt(settings.get('solve_time_budget_s'))} s, fallback share at most "
+                     f"{fmt(settings.get('fallback_max_fraction'))} over {fmt(settings.get('fallback_window_s'))} s.",
+                     ""]
+        trips = metrics.get("safety_trips") or []
+        if not trips:
+            text.append("The monitor did not trip.")
+        else:
+            text += [f"The monitor tripped {len(trips)} time(s):", "",
+                     markdown_table(["reason", "t [s]", "value", "limit", "cuff or joint", "released at [s]"],
+                                    [[str(t.get("reason")), fmt(t.get("t_s")), fmt(t.get("value")), fmt(t.get("limit")),
+                                      str(t.get("cuff", t.get("joint", ""))),
+                                      "latched" if t.get("released_s") is None else fmt(t.get("released_s"))]
+                                     for t in trips])]
+    if exceed:
+        text += ["", f"A cuff force exceeded its body-region limit on {exceed} tick(s) (`force_limit_exceed_count`)."]
+    return text + [""]
+
+
 def _activity_sentences(activity, levels: Sequence[Mapping]) -> list[str]:
     """One sentence per level worth a word: binding on most solved ticks, or ever sent to the QP backend."""
     out = []
@@ -469,6 +509,7 @@ def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run:
             f"{1.0 / float(meta['dt_s']):g} Hz control, {meta['substeps']} physics substeps.", "", CAUTION, ""]
     text += controller_section(meta, m, run.arrays)
     text += [f"![{p.stem}](plots/{p.name})" for p in timeline] + ([""] if timeline else [])
+    text += safety_section(meta, m)
     text += faults_section(meta)
     text += ["## Metrics", "", markdown_table(["key", "unit", "value", "meaning"], rows), ""]
     text += [f"- {n}" for n in notes] + ([""] if notes else []) + [TIMING_NOTE, "", "## Plots", ""]
