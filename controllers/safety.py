@@ -363,7 +363,7 @@ class Supervised(Controller):
     -----
     Diagnostics: the inner controller's (same names), then ``safety_tripped`` (1.0 while the safe state is
     commanded), ``safety_reason`` (the :data:`TRIP_REASONS` code of the trip held, 0 when not tripped),
-    ``safety_value``, ``safety_limit`` (the tripping value and its limit, NaN when not tripped) and
+    ``safety_value``, ``safety_limit`` (the tripping value and its limit, 0 when not tripped: a log without NaN) and
     ``safety_where`` (index of the tripping cuff in the context's cuffs, or of the joint; -1 for the inner
     controller's watches and when not tripped).  The name is the inner controller's.
     """
@@ -390,8 +390,8 @@ class Supervised(Controller):
     def _safety_diag(self) -> dict[str, float]:
         mon = self.monitor
         if not mon.tripped:
-            return {"safety_tripped": 0.0, "safety_reason": 0.0, "safety_value": math.nan,
-                    "safety_limit": math.nan, "safety_where": -1.0}
+            return {"safety_tripped": 0.0, "safety_reason": 0.0, "safety_value": 0.0,
+                    "safety_limit": 0.0, "safety_where": -1.0}
         trip = mon.trips[-1]
         names = self._cuffs if trip.reason == "cuff_force" else self._joints
         where = float(names.index(trip.where)) if trip.where in names else -1.0
