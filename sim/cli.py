@@ -230,7 +230,9 @@ def _cmd_check(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     arm = load_exo(Path(args.file), sites=sites, hand_frame=args.hand or "")
     m = arm.model
     mass = sum(m.inertias[i].mass for i in range(1, m.njoints))
-    lines = [f"{args.file}: ok, {arm.nq} revolute joints, {mass:.3f} kg moving mass"]
+    bodies = sum(1 for f in m.frames if f.type.name == "BODY" and f.parentJoint > 0)
+    lines = [f"{args.file}: ok, {arm.nq} revolute joints, {mass:.3f} kg moving mass "
+             f"(mass, centre of mass and inertia of the {bodies} moving links as built match the file)"]
     lines.append(f"  {'joint':<24} {'lower rad':>10} {'upper rad':>10} {'effort N m':>11} {'vel rad/s':>10}")
     for i, name in enumerate(arm.joint_names):
         lines.append(f"  {name:<24} {m.lowerPositionLimit[i]:>10.4f} {m.upperPositionLimit[i]:>10.4f} "
