@@ -17,6 +17,9 @@ Anything that could crash the interpreter (a very deep URDF chain) runs in a sub
 
 from __future__ import annotations
 
+import dataclasses
+import functools
+import math
 import subprocess
 import sys
 from pathlib import Path
@@ -26,9 +29,11 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from models.arm import MAX_LINK_MASS_KG, MAX_URDF_LINKS, load_arm
-from models.errors import ModelError, SandboxError
+from models.errors import ModelError, ParameterError, SandboxError
 from models.exo import ExoParams, exo_urdf
 from sim.cli import main
+from sim.loop.scenario import MAX_DURATION_S, MAX_SENSOR_DELAY_S, MAX_SUBSTEPS, MAX_TICKS, load_scenario
+from sim.physics.sensors import MAX_DELAY_TICKS, ForceSensorParams
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -176,3 +181,59 @@ def test_random_small_urdf_variations_give_a_model_or_one_project_error(n, mass,
         assert "\n" not in str(e) and str(e)
     else:
         assert arm.nq >= 1
+
+
+# -- scenario values that would exhaust memory or never finish ----------------------------------
+@functools.cache
+def _reach():
+    return load_scenario(ROOT / "scenarios" / "reach.py")
+
+
+@pytest.mark.parametrize(("change", "match"), [
+    ({"duration_s": 1e9}, rf"duration_s must be at most {MAX_DURATION_S:g} s"),
+    ({"duration_s": math.inf}, "duration_s must be finite"),
+    ({"substeps": 10**9}, rf"substeps must be at most {MAX_SUBSTEPS}, got 1000000000"),
+    ({"control_period_s": 100.0}, r"control_period_s must be at most duration_s .* \(at least one tick\)"),
+    ({"control_period_s": 1e-9}, rf"at most {MAX_TICKS} ticks"),
+    ({"plant": {}}, "plant must be a PlantParams, got dict"),
+])
+def test_scenario_values_that_never_finish_are_refused_naming_the_field_and_the_limit(change, match):
+    with pytest.raises(ParameterError, match=match):
+        dataclasses.replace(_reach(), **change)
+
+
+def test_a_sensor_delay_is_limited_in_seconds_and_its_delay_line_in_ticks():
+    with pytest.raises(ParameterError, match=rf"ForceSensorParams.delay_ticks must be at most {MAX_DELAY_TICKS}"):
+        ForceSensorParams(delay_ticks=10**12)
+    late = ForceSensorParams(delay_ticks=2000)  # 2 s at 1 kHz
+    with pytest.raises(ParameterError,
+                       match=rf"force_sensor.delay_ticks = 2000 is 2 s .* at most {MAX_SENSOR_DELAY_S:g} s"):
+        dataclasses.replace(_reach(), force_sensor=late)
+    dataclasses.replace(_reach(), force_sensor=ForceSensorParams(delay_ticks=1000))  # exactly 1 s is allowed
+
+
+def test_a_run_refused_for_its_duration_leaves_no_folder(tmp_path, capsys):
+    out = tmp_path / "run"
+    line = _one_line_error(capsys, ["run", str(ROOT / "scenarios" / "reach.py"), "--duration", "1e9",
+                                    "--out", str(out)])
+    assert "duration_s must be at most 3600 s" in line
+    assert not out.exists() and list(tmp_path.iterdir()) == []
+
+
+_FLOATS = st.one_of(st.floats(allow_nan=True, allow_infinity=True), st.sampled_from([1e-3, 0.5, 3600.0, 3600.1]))
+
+
+@settings(max_examples=150, deadline=None)
+@given(duration=_FLOATS, period=_FLOATS, substeps=st.one_of(st.integers(-5, 10**12), st.booleans(), st.just(2.0)),
+       delay=st.integers(-3, 10**13))
+def test_random_scenario_timing_is_accepted_within_the_limits_or_refused_in_one_line(duration, period, substeps,
+                                                                                        delay):
+    try:
+        s = dataclasses.replace(_reach(), duration_s=duration, control_period_s=period, substeps=substeps,
+                                force_sensor=ForceSensorParams(delay_ticks=delay))
+    except ParameterError as e:
+        assert "\n" not in str(e) and ("Scenario('reach')" in str(e) or "ForceSensorParams" in str(e))
+    else:  # every limit holds (project bounds, documented in sim.loop.scenario)
+        assert 0 < s.duration_s <= MAX_DURATION_S and 1 <= s.n_ticks <= MAX_TICKS
+        assert 1 <= s.substeps <= MAX_SUBSTEPS
+        assert s.force_sensor.delay_ticks * s.control_period_s <= MAX_SENSOR_DELAY_S
