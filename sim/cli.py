@@ -259,11 +259,12 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     seed = scenario.seed if args.seed is None else args.seed
     if args.out:
         out = Path(args.out)
-        if out.exists() and (not out.is_dir() or any(out.iterdir())):
+        if out.is_dir() and any(out.iterdir()):
             raise _UserError(f"run folder {str(out)!r} already holds something; choose another --out")
     else:
         who = f"-{args.subject}" if args.subject is not None else ""
         out = _fresh_folder(Path("runs") / f"{scenario.name}-{controller}{who}-seed{seed}")
+    _writable_folder(out, "--out" if args.out else "run folder")
     bar = _progress_bar(f"{scenario.name}/{controller}")
     viewer = _LazyViewer(out) if args.view else None
     try:
@@ -311,10 +312,10 @@ def _cmd_replay(args: argparse.Namespace, parser: argparse.ArgumentParser) -> st
     from sim.loop.runlog import load_run
     from sim.output import viz
 
+    if not 0 < args.fps <= MAX_REPLAY_FPS:  # also refuses nan and inf
+        parser.error(f"--fps must be a number of frames per second in (0, {MAX_REPLAY_FPS:g}], got {args.fps}")
     run_dir = Path(args.run_dir)
     load_run(run_dir)  # a clear error for a missing or broken run folder
-    if not args.fps > 0:
-        parser.error(f"--fps must be > 0, got {args.fps}")
     if args.html:
         path = viz.write_replay_html(run_dir, Path(args.html), fps=args.fps)
         return f"wrote {path} (open it in any browser; it needs no connection)"
@@ -339,15 +340,70 @@ def _cmd_bench(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     if args.profile < 0:
         parser.error(f"--profile must be >= 0, got {args.profile}")
     params = BenchParams.quick() if args.quick else BenchParams()
+    if args.json:
+        _writable_file(Path(args.json), "--json")  # before the long bench, not after
     if args.profile:
         return profile_reference(args.scenario, min(params.reference_duration_s, 3.0), top=args.profile)
     report = run_bench(args.scenario, params, progress=lambda msg: print(msg, file=sys.stderr, flush=True))
+    text = format_report(report)
     if args.json:
         try:
             Path(args.json).write_text(json.dumps(report, indent=2) + "\n", encoding="utf-8")
         except OSError as e:
-            raise _UserError(f"cannot write {args.json!r}: {e.strerror or e}") from e
-    return format_report(report)
+            print(text, flush=True)  # the figures took minutes: never lose them
+            raise _UserError(f"cannot write {args.json!r}: {e.strerror or e}; the figures are printed above") from e
+    return text
+
+
+def _writable_folder(out: Path, option: str = "--out") -> None:
+    """One line, before anything runs, unless ``out`` is (or can become) a folder this process can write in.
+
+    Creates the missing folders, writes and removes a probe file, and removes the folders it created: a run
+    refused later leaves nothing behind.
+    """
+    if out.exists() and not out.is_dir():
+        raise _UserError(f"{option} {str(out)!r} is a file; expected a folder (new or empty)")
+    missing = []
+    for folder in (out, *out.parents):
+        if folder.exists():
+            if not folder.is_dir():
+                raise _UserError(f"{option} {str(out)!r}: {str(folder)!r} is a file, not a folder")
+            break
+        missing.append(folder)
+    probe = out / ".write-probe"
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        probe.write_bytes(b"")
+        probe.unlink()
+    except OSError as e:
+        raise _UserError(f"{option} {str(out)!r} is not writable: {e.strerror or e}") from e
+    finally:
+        for folder in missing:  # deepest first
+            try:
+                folder.rmdir()
+            except OSError:
+                break
+
+
+def _writable_file(path: Path, option: str) -> None:
+    """One line, before anything runs, unless ``path`` is a file this process can create or replace."""
+    if path.is_dir():
+        raise _UserError(f"{option} {str(path)!r} is a folder; expected a file name")
+    parent = path.parent
+    if not parent.is_dir():
+        raise _UserError(f"{option} {str(path)!r}: the folder {str(parent)!r} does not exist")
+    existed = path.exists()
+    try:
+        with path.open("a", encoding="utf-8"):
+            pass
+    except OSError as e:
+        raise _UserError(f"{option} {str(path)!r} is not writable: {e.strerror or e}") from e
+    if not existed:
+        path.unlink()
+
+
+#: Highest replay frame rate [frames/s]: a browser draws at most a few hundred (a project bound).
+MAX_REPLAY_FPS = 1000.0
 
 
 def _fresh_folder(base: Path) -> Path:
@@ -371,7 +427,7 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     _check_duration(args, parser)
     if args.out:
         out = Path(args.out)
-        if out.exists() and (not out.is_dir() or any(out.iterdir())):
+        if out.is_dir() and any(out.iterdir()):
             raise _UserError(f"output folder {str(out)!r} already holds something; choose another --out")
     else:
         out = _fresh_folder(Path("runs") / ("compare" if args.subject is None else f"compare-{args.subject}"))
@@ -389,6 +445,7 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
             if c not in scenario.controllers:
                 raise _UserError(f"scenario {scenario.name!r} supports the controllers "
                                  f"{', '.join(scenario.controllers)}; got {c!r}")
+        _writable_folder(out, "--out" if args.out else "output folder")
         run_dirs = []
         batch = Batch()  # the runs of this comparison: one baseline, one warm-up per controller
         for c in controllers:
@@ -410,6 +467,7 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
         run_dirs = [Path(d) for d in args.inputs]
         for d in run_dirs:
             load_run(d)  # a clear error for a missing or broken folder, before anything is written
+        _writable_folder(out, "--out" if args.out else "output folder")
     rows, labels, md = compare_runs(run_dirs, out)
     table = text_table(["metric", "unit", *labels], [[r["key"], r["unit"]] + [
         fmt(r[lab]) + (" *" if r["best"] == lab else "") for lab in labels] for r in rows])
@@ -488,6 +546,7 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     several = n_scenarios > 1
     if args.out:
         out = Path(args.out)
+        _writable_folder(out)
     elif several:
         out = _fresh_folder(Path("runs") / f"sweep-{n_scenarios}-scenarios")
     else:

@@ -237,3 +237,78 @@ def test_random_scenario_timing_is_accepted_within_the_limits_or_refused_in_one_
         assert 0 < s.duration_s <= MAX_DURATION_S and 1 <= s.n_ticks <= MAX_TICKS
         assert 1 <= s.substeps <= MAX_SUBSTEPS
         assert s.force_sensor.delay_ticks * s.control_period_s <= MAX_SENSOR_DELAY_S
+
+
+# -- CLI paths -------------------------------------------------------------------------------
+@functools.cache
+def _tiny_run(folder: str) -> Path:
+    out = Path(folder) / "run"
+    assert main(["run", str(ROOT / "scenarios" / "reach.py"), "--duration", "0.02", "--out", str(out)]) == 0
+    return out
+
+
+@pytest.fixture
+def tiny_run(tmp_path_factory):
+    return _tiny_run(str(tmp_path_factory.getbasetemp() / "tiny"))
+
+
+@pytest.mark.parametrize("command", ["run", "compare", "sweep"])
+@pytest.mark.parametrize("where", ["file", "under_file", "unwritable"])
+def test_an_out_folder_that_cannot_be_one_is_refused_before_running(tmp_path, capsys, command, where):
+    a_file = tmp_path / "a_file"
+    a_file.write_text("x")
+    out = {"file": a_file, "under_file": a_file / "sub",
+           "unwritable": Path("/proc/no-such-folder/run")}[where]  # /proc refuses new entries, even to root
+    line = _one_line_error(capsys, [command, str(ROOT / "scenarios" / "reach.py"), "--duration", "0.02",
+                                    "--out", str(out)])
+    assert repr(str(out)) in line
+    assert {"file": "is a file; expected a folder", "under_file": "is a file, not a folder",
+            "unwritable": "is not writable"}[where] in line
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a_file"]
+
+
+@pytest.mark.parametrize("fps", ["inf", "nan", "0", "-5", "1e6"])
+def test_replay_fps_outside_0_to_1000_is_a_usage_error(tiny_run, capsys, fps):
+    with pytest.raises(SystemExit) as e:
+        main(["replay", str(tiny_run), "--fps", fps])
+    err = capsys.readouterr().err
+    assert e.value.code == 2 and "Traceback" not in err
+    assert err.strip().endswith(f"--fps must be a number of frames per second in (0, 1000], got {float(fps)}")
+
+
+def _no_bench(*_, **__):
+    raise AssertionError("the bench must not start when --json cannot be written")
+
+
+@pytest.mark.parametrize(("target", "expected"), [
+    ("missing/bench.json", "the folder"),
+    ("a_folder", "is a folder; expected a file name"),
+    ("/proc/bench.json", "is not writable"),
+])
+def test_bench_json_that_cannot_be_written_is_refused_before_the_bench(tmp_path, capsys, monkeypatch, target,
+                                                                        expected):
+    import sim.experiments.bench as bench
+
+    monkeypatch.setattr(bench, "run_bench", _no_bench)
+    (tmp_path / "a_folder").mkdir()
+    monkeypatch.chdir(tmp_path)
+    line = _one_line_error(capsys, ["bench", "--quick", "--json", target])
+    assert expected in line and repr(target) in line
+
+
+def test_bench_figures_are_printed_when_the_json_write_fails_after_the_bench(tmp_path, capsys, monkeypatch):
+    import sim.experiments.bench as bench
+
+    folder = tmp_path / "gone"
+    folder.mkdir()
+
+    def fake_bench(*_, **__):  # the folder disappears while the bench runs
+        folder.rmdir()
+        return {"figure": 1.0}
+
+    monkeypatch.setattr(bench, "run_bench", fake_bench)
+    monkeypatch.setattr(bench, "format_report", lambda report: f"FIGURES {report['figure']}")
+    assert main(["bench", "--quick", "--json", str(folder / "b.json")]) == 1
+    out, err = capsys.readouterr()
+    assert "FIGURES 1.0" in out
+    assert err.count("\n") == 1 and "the figures are printed above" in err
