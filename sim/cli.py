@@ -284,9 +284,13 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     wall = "".join(f", {k} = {m[k]:{spec}}" for k, spec in (("interaction_force_free_rms_N", ".2f"),
                                                              ("wall_stiffness_rendered_N_per_m", ".1f"))
                    if m.get("wall_penetration_max_m") is not None and m.get(k) is not None)
-    return (f"results in {out}: interaction_force_rms_N = {m['interaction_force_rms_N']:.2f}, "
+    text = (f"results in {out}: interaction_force_rms_N = {m['interaction_force_rms_N']:.2f}, "
             f"human_effort_ratio = {m['human_effort_ratio']:.3f}, realtime_factor = {m['realtime_factor']:.2f}{wall} "
             f"(all metrics in {out / 'metrics.json'}, report with plots in {out / 'report.md'})")
+    if m.get("hqp_fallback_count"):
+        text += (f"\nwarning: controller {controller!r} fell back to gravity + damping on {m['hqp_fallback_count']} "
+                 f"of {scenario.n_ticks} ticks (hqp_fallback_count in metrics.json; the first reason is printed above)")
+    return text
 
 
 class _LazyViewer:

@@ -312,3 +312,46 @@ def test_bench_figures_are_printed_when_the_json_write_fails_after_the_bench(tmp
     out, err = capsys.readouterr()
     assert "FIGURES 1.0" in out
     assert err.count("\n") == 1 and "the figures are printed above" in err
+
+
+# -- a user's task whose rows() raises -------------------------------------------------------------
+_BOOM_SCENARIO = '''
+import dataclasses
+from controllers.tasks import Task
+from sim.loop.scenario import load_scenario
+
+
+class Boom(Task):
+    name, kind = "boom", "eq"
+
+    def rows(self, state):
+        if state.measurement.t_s > 0.01:
+            raise ZeroDivisionError("a bug in the user's task")
+        return None
+
+
+SCENARIO = dataclasses.replace(load_scenario({reach!r}), name="boomy", controllers=("boomy",),
+                               variants={{"boomy": [["joint_limits"], [Boom()], ["transparency"]]}})
+'''
+
+
+def test_a_task_that_raises_falls_back_for_its_ticks_and_the_run_says_so(tmp_path, capsys, caplog):
+    import json
+    import logging
+
+    f = tmp_path / "boomy.py"
+    f.write_text(_BOOM_SCENARIO.format(reach=str(ROOT / "scenarios" / "reach.py")))
+    out = tmp_path / "run"
+    caplog.set_level(logging.WARNING)  # on the root logger: the warm-up's own silence stays in force
+    rc = main(["run", str(f), "--duration", "0.04", "--out", str(out)])
+    stdout, stderr = capsys.readouterr()
+    assert rc == 0 and "Traceback" not in stderr
+    metrics = json.loads((out / "metrics.json").read_text())
+    # ticks at t > 0.01 s of 40 ticks of 1 ms fail: about 29 of them, every one a fallback
+    assert 25 <= metrics["hqp_fallback_count"] <= 30
+    warnings = [r.getMessage() for r in caplog.records if "fell back" in r.getMessage()]
+    assert len(warnings) == 1  # the first only, not one per tick
+    assert "task 'boom': rows() raised ZeroDivisionError: a bug in the user's task" in warnings[0]
+    last = stdout.strip().splitlines()[-1]
+    assert last.startswith("warning: controller 'boomy' fell back to gravity + damping on "
+                           f"{metrics['hqp_fallback_count']} of 40 ticks")

@@ -309,7 +309,11 @@ class HQPController(Controller):
             spans = ([], [])  # per kind, (first row, end row, weight) of each entry
             unit = True
             for slot, t, is_eq in level:
-                r = t.rows(s)
+                try:
+                    r = t.rows(s)
+                except Exception as e:  # a task's own error fails this tick, as a non-finite row does
+                    raise SandboxError(f"{self._level_names[i]}, task {t.name!r}: rows() raised "
+                                       f"{type(e).__name__}: {e}") from e
                 if r is None:
                     continue
                 A, b = r[0], r[1]
@@ -476,7 +480,10 @@ class HQPController(Controller):
             tau = s.g - self.fallback_damping * s.dq
             self.fallback_count += 1
             self.last_fallback_reason = f"t = {measurement.t_s:.3f} s: {e}"
-            _log.warning("controller %s fell back to gravity + damping: %s", self.name, self.last_fallback_reason)
+            # the first fallback of a run is a warning; the others only for debugging, or a task that fails on
+            # every tick would print thousands of lines (the run's count is hqp_fallback_count)
+            _log.log(logging.WARNING if self.fallback_count == 1 else logging.DEBUG,
+                     "controller %s fell back to gravity + damping: %s", self.name, self.last_fallback_reason)
             self._prev = None
             fallback = 1.0
             qp_solves = math.nan  # the tick has no solve to count

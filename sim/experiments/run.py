@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+import logging
 import shutil
 import tempfile
 import time
@@ -185,12 +186,17 @@ def warm_up(scenario: Scenario, controller_name: str, batch: Batch | None = None
     if batch is not None and batch.warmed(scenario.name, controller_name):
         return 0.0
     t0 = time.perf_counter()
+    quiet = logging.getLogger("controllers")  # the real run warns about its own fallbacks, once
+    level = quiet.level
+    quiet.setLevel(logging.ERROR)
     try:
         short = dataclasses.replace(scenario, duration_s=WARM_UP_TICKS * scenario.control_period_s)
         with tempfile.TemporaryDirectory(prefix="exosandbox-warm-up-") as tmp:
             simulate(short, controller_name, Path(tmp) / "run")
     except Exception:  # the real run reports it
         return time.perf_counter() - t0
+    finally:
+        quiet.setLevel(level)
     if batch is not None:
         batch.mark_warm(scenario.name, controller_name)
     return time.perf_counter() - t0
