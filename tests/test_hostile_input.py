@@ -355,3 +355,81 @@ def test_a_task_that_raises_falls_back_for_its_ticks_and_the_run_says_so(tmp_pat
     last = stdout.strip().splitlines()[-1]
     assert last.startswith("warning: controller 'boomy' fell back to gravity + damping on "
                            f"{metrics['hqp_fallback_count']} of 40 ticks")
+
+
+# -- run folders from elsewhere --------------------------------------------------------------------
+@pytest.mark.parametrize("bad", ["../../etc/passwd", "/etc/hostname", "..", ""])
+@pytest.mark.parametrize("key", ["exo_urdf", "human_urdf"])
+def test_a_meta_path_out_of_the_run_folder_is_refused_by_load_run_replay_and_compare(tiny_run, tmp_path, capsys,
+                                                                                      bad, key):
+    import json
+    import shutil
+
+    from sim.loop.runlog import RunLogError, load_run
+
+    run = tmp_path / "copied"
+    shutil.copytree(tiny_run, run)
+    meta = json.loads((run / "meta.json").read_text())
+    meta["models"][key] = bad
+    (run / "meta.json").write_text(json.dumps(meta))
+    with pytest.raises(RunLogError, match=rf"models.{key} = {bad!r} must name a file inside the run folder"):
+        load_run(run)
+    assert "must name a file inside" in _one_line_error(capsys, ["replay", str(run), "--html",
+                                                                 str(tmp_path / "r.html")])
+    assert "must name a file inside" in _one_line_error(capsys, ["compare", str(tiny_run), str(run),
+                                                                 "--out", str(tmp_path / "cmp")])
+    assert not (tmp_path / "cmp").exists() and not (tmp_path / "r.html").exists()
+
+
+def _bomb_run(folder: Path, rows: int) -> Path:
+    """A closed one-column log of 5 ticks in chunks of 10, whose only chunk is replaced by ``rows`` zeros that
+    compress to a few hundred bytes; the chunk's own metadata and meta.json are made consistent with it."""
+    import json
+
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    from sim.loop.runlog import CHUNK_DIR, CHUNK_METADATA_KEY, RunLog
+
+    with RunLog(folder, {"t": ()}, chunk_ticks=10, metadata={"n_ticks_planned": 5}) as log:
+        for k in range(5):
+            log.append(t=float(k))
+    path = folder / CHUNK_DIR / "chunk_000000.parquet"
+    table = pq.read_table(path)
+    info = json.loads(table.schema.metadata[CHUNK_METADATA_KEY])
+    info["ticks"] = rows
+    bomb = pa.table({"t": np.zeros(rows)}).replace_schema_metadata({CHUNK_METADATA_KEY: json.dumps(info)})
+    pq.write_table(bomb, path, compression="zstd", row_group_size=rows)
+    meta = json.loads((folder / "meta.json").read_text())
+    meta["ticks"] = rows
+    (folder / "meta.json").write_text(json.dumps(meta))
+    return path
+
+
+def test_a_decompression_bomb_chunk_is_refused_from_its_footer_before_it_is_expanded(tmp_path, monkeypatch):
+    import pyarrow.parquet as pq
+
+    from sim.loop import runlog
+
+    path = _bomb_run(tmp_path / "run", 2_000_000)
+    assert path.stat().st_size < 100_000  # 16 MB of zeros as stored
+    monkeypatch.setattr(pq, "read_table", _no_bench)  # nothing may be decompressed
+    with pytest.raises(runlog.RunLogError, match=r"declares 2000000 rows; at most 5 are expected"):
+        runlog.load_run(tmp_path / "run")
+
+
+def test_a_chunk_declaring_more_values_than_the_limit_is_refused(tmp_path, monkeypatch):
+    import json
+
+    from sim.loop import runlog
+
+    _bomb_run(tmp_path / "run", 1000)
+    meta = json.loads((tmp_path / "run" / "meta.json").read_text())
+    meta["chunk_ticks"], meta["n_ticks_planned"] = 10**12, 10**12  # a meta.json that lies as well
+    (tmp_path / "run" / "meta.json").write_text(json.dumps(meta))
+    monkeypatch.setattr(runlog, "MAX_CHUNK_VALUES", 999)
+    with pytest.raises(runlog.RunLogError, match=r"declares 1000 rows x 1 columns; at most 999 values are read"):
+        runlog.load_run(tmp_path / "run")
+    monkeypatch.setattr(runlog, "MAX_CHUNK_VALUES", 1000)
+    assert runlog.load_run(tmp_path / "run").ticks == 1000  # within every limit: read as before
