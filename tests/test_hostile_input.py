@@ -24,6 +24,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
@@ -433,3 +434,54 @@ def test_a_chunk_declaring_more_values_than_the_limit_is_refused(tmp_path, monke
         runlog.load_run(tmp_path / "run")
     monkeypatch.setattr(runlog, "MAX_CHUNK_VALUES", 1000)
     assert runlog.load_run(tmp_path / "run").ticks == 1000  # within every limit: read as before
+
+
+class _Raising:
+    """A user's task that fails in ``rows()`` (or, with ``in_bind``, already in ``bind()``)."""
+
+    def __new__(cls, in_bind: bool = False):
+        from controllers.tasks import Task
+
+        class Broken(Task):
+            name, kind = "broken", "eq"
+
+            def bind(self, state):
+                if in_bind:
+                    raise KeyError("no_such_frame")
+
+            def rows(self, state):
+                return 1 / 0
+
+        return Broken()
+
+
+def test_the_fallback_tick_of_a_raising_task_commands_gravity_plus_damping():
+    import pinocchio as pin
+
+    import models
+    from controllers.base import ControllerContext
+    from controllers.hqp import HQPController
+    from controllers.tasks import JointDamping
+    from models.records import Measurement
+
+    arm = models.build_exo()
+    ctrl = HQPController([[_Raising()], [JointDamping()]], name="broken", fallback_damping_Nm_s_per_rad=2.0)
+    ctrl.reset(ControllerContext(arm=arm, cuff_frames={"hand": "exo_cuff_hand"}))
+    q, dq = np.radians([30, 10, 0, 45, 0, 0, 0]), np.full(7, 0.1)
+    tau = ctrl.step(Measurement(0.25, q, dq, np.zeros(7), {"hand": np.zeros(6)}))
+    # the fallback law of the controller's docstring, tau = g(q) - D dq, with g from pinocchio's own RNEA gravity
+    g = pin.computeGeneralizedGravity(arm.model, arm.model.createData(), q)
+    np.testing.assert_allclose(tau, g - 2.0 * dq, rtol=1e-9, atol=1e-9)
+    assert ctrl.diagnostics()["fallback"] == 1.0 and ctrl.fallback_count == 1
+    assert ctrl.last_fallback_reason == ("t = 0.250 s: level 0 (broken), task 'broken': rows() raised "
+                                         "ZeroDivisionError: division by zero")
+
+
+def test_a_task_whose_bind_raises_is_refused_at_reset_in_one_line():
+    import models
+    from controllers.base import ControllerContext
+    from controllers.hqp import HQPController
+
+    ctrl = HQPController([[_Raising(in_bind=True)]], name="broken")
+    with pytest.raises(ParameterError, match=r"level 0 \(broken\), task 'broken': bind\(\) raised KeyError"):
+        ctrl.reset(ControllerContext(arm=models.build_exo(), cuff_frames={"hand": "exo_cuff_hand"}))

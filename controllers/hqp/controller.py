@@ -180,9 +180,15 @@ class HQPController(Controller):
     def reset(self, context: ControllerContext) -> None:
         super().reset(context)
         self.state = TickState(context.arm, dict(context.cuff_frames), context.dt_s)
-        for level in self.levels:
+        for i, level in enumerate(self.levels):
             for t in level:
-                t.bind(self.state)
+                try:
+                    t.bind(self.state)
+                except SandboxError:
+                    raise  # names its culprit already (e.g. an unknown frame)
+                except Exception as e:  # a task's own error: one line naming it, before the run starts
+                    raise ParameterError(f"{self._level_names[i]}, task {t.name!r}: bind() raised "
+                                         f"{type(e).__name__}: {e}") from e
         n = context.arm.nv
         tau_max = np.array(context.arm.model.effortLimit, dtype=float)
         self._tau_max = tau_max
