@@ -178,6 +178,10 @@ def _check_duration(args: argparse.Namespace, parser: argparse.ArgumentParser) -
         parser.error(f"--duration must be > 0, got {d}")
     if d is not None and d == float("inf"):
         parser.error(f"--duration must be a finite number of seconds, got {d}")
+    from sim.loop.scenario import MAX_DURATION_S
+
+    if d is not None and d > MAX_DURATION_S:  # before a sweep starts runs that would each be refused
+        parser.error(f"--duration must be at most {MAX_DURATION_S:g} s (1 h of simulated time), got {d}")
 
 
 def _scenario_for(path: str | Path, args: argparse.Namespace):
@@ -287,10 +291,16 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     text = (f"results in {out}: interaction_force_rms_N = {m['interaction_force_rms_N']:.2f}, "
             f"human_effort_ratio = {m['human_effort_ratio']:.3f}, realtime_factor = {m['realtime_factor']:.2f}{wall} "
             f"(all metrics in {out / 'metrics.json'}, report with plots in {out / 'report.md'})")
-    if m.get("hqp_fallback_count"):
-        text += (f"\nwarning: controller {controller!r} fell back to gravity + damping on {m['hqp_fallback_count']} "
-                 f"of {scenario.n_ticks} ticks (hqp_fallback_count in metrics.json; the first reason is printed above)")
-    return text
+    return text + _fallback_warning(controller, m, scenario.n_ticks)
+
+
+def _fallback_warning(controller: str, metrics: dict, n_ticks: int) -> str:
+    """A line (with its leading newline) when the controller fell back on some ticks, else ``""``."""
+    n = metrics.get("hqp_fallback_count")
+    if not n:
+        return ""
+    return (f"\nwarning: controller {controller!r} fell back to gravity + damping on {n} of {n_ticks} ticks "
+            "(hqp_fallback_count in metrics.json; the first reason is printed above)")
 
 
 class _LazyViewer:
@@ -451,14 +461,16 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
                                  f"{', '.join(scenario.controllers)}; got {c!r}")
         _writable_folder(out, "--out" if args.out else "output folder")
         run_dirs = []
+        warnings = ""
         batch = Batch()  # the runs of this comparison: one baseline, one warm-up per controller
         for c in controllers:
             bar = _progress_bar(f"{scenario.name}/{c}")
             # the human-alone baseline is the same for every controller: simulated once, then copied
             baseline = run_dirs[0] / "human_alone" if run_dirs else None
             try:
-                run_scenario(scenario, c, out / c, seed=args.seed, progress=bar.update if bar else None,
-                             baseline_from=baseline, batch=batch)
+                result = run_scenario(scenario, c, out / c, seed=args.seed, progress=bar.update if bar else None,
+                                      baseline_from=baseline, batch=batch)
+                warnings += _fallback_warning(c, result.metrics, scenario.n_ticks)
             except SimulationError as e:
                 raise _UserError(f"{e}; the runs so far are kept in {out}") from e
             finally:
@@ -475,7 +487,8 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     rows, labels, md = compare_runs(run_dirs, out)
     table = text_table(["metric", "unit", *labels], [[r["key"], r["unit"]] + [
         fmt(r[lab]) + (" *" if r["best"] == lab else "") for lab in labels] for r in rows])
-    return f"{table}\n(* the better value)\nreport {md}, table {out / 'compare.csv'}, plots in {out / 'plots'}"
+    return (f"{table}\n(* the better value)\nreport {md}, table {out / 'compare.csv'}, plots in {out / 'plots'}"
+            + (warnings if scenario_mode else ""))
 
 
 def _cmd_catalog(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:

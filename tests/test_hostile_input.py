@@ -213,12 +213,15 @@ def test_a_sensor_delay_is_limited_in_seconds_and_its_delay_line_in_ticks():
     dataclasses.replace(_reach(), force_sensor=ForceSensorParams(delay_ticks=1000))  # exactly 1 s is allowed
 
 
-def test_a_run_refused_for_its_duration_leaves_no_folder(tmp_path, capsys):
+def test_a_scenario_file_with_a_duration_over_the_limit_is_refused_and_leaves_no_folder(tmp_path, capsys):
+    f = tmp_path / "forever.py"
+    f.write_text("import dataclasses\nfrom sim.loop.scenario import load_scenario\n"
+                 f"SCENARIO = dataclasses.replace(load_scenario({str(ROOT / 'scenarios' / 'reach.py')!r}), "
+                 "duration_s=1e9)\n")
     out = tmp_path / "run"
-    line = _one_line_error(capsys, ["run", str(ROOT / "scenarios" / "reach.py"), "--duration", "1e9",
-                                    "--out", str(out)])
-    assert "duration_s must be at most 3600 s" in line
-    assert not out.exists() and list(tmp_path.iterdir()) == []
+    line = _one_line_error(capsys, ["run", str(f), "--out", str(out)])
+    assert "forever.py" in line and "duration_s must be at most 3600 s" in line
+    assert not out.exists() and sorted(p.name for p in tmp_path.iterdir()) == ["forever.py"]
 
 
 _FLOATS = st.one_of(st.floats(allow_nan=True, allow_infinity=True), st.sampled_from([1e-3, 0.5, 3600.0, 3600.1]))
@@ -485,3 +488,14 @@ def test_a_task_whose_bind_raises_is_refused_at_reset_in_one_line():
     ctrl = HQPController([[_Raising(in_bind=True)]], name="broken")
     with pytest.raises(ParameterError, match=r"level 0 \(broken\), task 'broken': bind\(\) raised KeyError"):
         ctrl.reset(ControllerContext(arm=models.build_exo(), cuff_frames={"hand": "exo_cuff_hand"}))
+
+
+@pytest.mark.parametrize("command", ["run", "compare", "sweep"])
+def test_a_duration_option_over_the_limit_is_a_usage_error_before_any_folder(tmp_path, capsys, command):
+    out = tmp_path / "out"
+    with pytest.raises(SystemExit) as e:
+        main([command, str(ROOT / "scenarios" / "reach.py"), "--duration", "1e9", "--out", str(out)])
+    err = capsys.readouterr().err
+    assert e.value.code == 2 and "Traceback" not in err and err.count("\n") == 1
+    assert f"--duration must be at most {MAX_DURATION_S:g} s" in err
+    assert not out.exists()
