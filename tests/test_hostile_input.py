@@ -499,3 +499,15 @@ def test_a_duration_option_over_the_limit_is_a_usage_error_before_any_folder(tmp
     assert e.value.code == 2 and "Traceback" not in err and err.count("\n") == 1
     assert f"--duration must be at most {MAX_DURATION_S:g} s" in err
     assert not out.exists()
+
+
+def test_a_urdf_file_over_the_size_limit_is_refused_before_it_is_read(tmp_path, monkeypatch):
+    import models.arm as arm_module
+
+    f = tmp_path / "big.urdf"
+    f.write_text(_chain(3))
+    monkeypatch.setattr(arm_module, "MAX_URDF_BYTES", 100)
+    with pytest.raises(ModelError, match=r"big.urdf' is \d+ bytes; at most 100 bytes are read"):
+        arm_module.read_urdf_file(f)
+    with pytest.raises(ModelError, match=r"at most 100 are read"):
+        arm_module.check_urdf(_chain(3))
