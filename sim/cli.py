@@ -178,6 +178,10 @@ def _check_duration(args: argparse.Namespace, parser: argparse.ArgumentParser) -
         parser.error(f"--duration must be > 0, got {d}")
     if d is not None and d == float("inf"):
         parser.error(f"--duration must be a finite number of seconds, got {d}")
+    from sim.loop.scenario import MAX_DURATION_S
+
+    if d is not None and d > MAX_DURATION_S:  # before a sweep starts runs that would each be refused
+        parser.error(f"--duration must be at most {MAX_DURATION_S:g} s (1 h of simulated time), got {d}")
 
 
 def _scenario_for(path: str | Path, args: argparse.Namespace):
@@ -230,7 +234,9 @@ def _cmd_check(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     arm = load_exo(Path(args.file), sites=sites, hand_frame=args.hand or "")
     m = arm.model
     mass = sum(m.inertias[i].mass for i in range(1, m.njoints))
-    lines = [f"{args.file}: ok, {arm.nq} revolute joints, {mass:.3f} kg moving mass"]
+    bodies = sum(1 for f in m.frames if f.type.name == "BODY" and f.parentJoint > 0)
+    lines = [f"{args.file}: ok, {arm.nq} revolute joints, {mass:.3f} kg moving mass "
+             f"(mass, centre of mass and inertia of the {bodies} moving links as built match the file)"]
     lines.append(f"  {'joint':<24} {'lower rad':>10} {'upper rad':>10} {'effort N m':>11} {'vel rad/s':>10}")
     for i, name in enumerate(arm.joint_names):
         lines.append(f"  {name:<24} {m.lowerPositionLimit[i]:>10.4f} {m.upperPositionLimit[i]:>10.4f} "
@@ -257,11 +263,12 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     seed = scenario.seed if args.seed is None else args.seed
     if args.out:
         out = Path(args.out)
-        if out.exists() and (not out.is_dir() or any(out.iterdir())):
+        if out.is_dir() and any(out.iterdir()):
             raise _UserError(f"run folder {str(out)!r} already holds something; choose another --out")
     else:
         who = f"-{args.subject}" if args.subject is not None else ""
         out = _fresh_folder(Path("runs") / f"{scenario.name}-{controller}{who}-seed{seed}")
+    _writable_folder(out, "--out" if args.out else "run folder")
     bar = _progress_bar(f"{scenario.name}/{controller}")
     viewer = _LazyViewer(out) if args.view else None
     try:
@@ -312,10 +319,10 @@ def _cmd_replay(args: argparse.Namespace, parser: argparse.ArgumentParser) -> st
     from sim.loop.runlog import load_run
     from sim.output import viz
 
+    if not 0 < args.fps <= MAX_REPLAY_FPS:  # also refuses nan and inf
+        parser.error(f"--fps must be a number of frames per second in (0, {MAX_REPLAY_FPS:g}], got {args.fps}")
     run_dir = Path(args.run_dir)
     load_run(run_dir)  # a clear error for a missing or broken run folder
-    if not args.fps > 0:
-        parser.error(f"--fps must be > 0, got {args.fps}")
     if args.html:
         path = viz.write_replay_html(run_dir, Path(args.html), fps=args.fps)
         return f"wrote {path} (open it in any browser; it needs no connection)"
@@ -340,15 +347,70 @@ def _cmd_bench(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     if args.profile < 0:
         parser.error(f"--profile must be >= 0, got {args.profile}")
     params = BenchParams.quick() if args.quick else BenchParams()
+    if args.json:
+        _writable_file(Path(args.json), "--json")  # before the long bench, not after
     if args.profile:
         return profile_reference(args.scenario, min(params.reference_duration_s, 3.0), top=args.profile)
     report = run_bench(args.scenario, params, progress=lambda msg: print(msg, file=sys.stderr, flush=True))
+    text = format_report(report)
     if args.json:
         try:
             Path(args.json).write_text(json.dumps(report, indent=2) + "\n", encoding="utf-8")
         except OSError as e:
-            raise _UserError(f"cannot write {args.json!r}: {e.strerror or e}") from e
-    return format_report(report)
+            print(text, flush=True)  # the figures took minutes: never lose them
+            raise _UserError(f"cannot write {args.json!r}: {e.strerror or e}; the figures are printed above") from e
+    return text
+
+
+def _writable_folder(out: Path, option: str = "--out") -> None:
+    """One line, before anything runs, unless ``out`` is (or can become) a folder this process can write in.
+
+    Creates the missing folders, writes and removes a probe file, and removes the folders it created: a run
+    refused later leaves nothing behind.
+    """
+    if out.exists() and not out.is_dir():
+        raise _UserError(f"{option} {str(out)!r} is a file; expected a folder (new or empty)")
+    missing = []
+    for folder in (out, *out.parents):
+        if folder.exists():
+            if not folder.is_dir():
+                raise _UserError(f"{option} {str(out)!r}: {str(folder)!r} is a file, not a folder")
+            break
+        missing.append(folder)
+    probe = out / ".write-probe"
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        probe.write_bytes(b"")
+        probe.unlink()
+    except OSError as e:
+        raise _UserError(f"{option} {str(out)!r} is not writable: {e.strerror or e}") from e
+    finally:
+        for folder in missing:  # deepest first
+            try:
+                folder.rmdir()
+            except OSError:
+                break
+
+
+def _writable_file(path: Path, option: str) -> None:
+    """One line, before anything runs, unless ``path`` is a file this process can create or replace."""
+    if path.is_dir():
+        raise _UserError(f"{option} {str(path)!r} is a folder; expected a file name")
+    parent = path.parent
+    if not parent.is_dir():
+        raise _UserError(f"{option} {str(path)!r}: the folder {str(parent)!r} does not exist")
+    existed = path.exists()
+    try:
+        with path.open("a", encoding="utf-8"):
+            pass
+    except OSError as e:
+        raise _UserError(f"{option} {str(path)!r} is not writable: {e.strerror or e}") from e
+    if not existed:
+        path.unlink()
+
+
+#: Highest replay frame rate [frames/s]: a browser draws at most a few hundred (a project bound).
+MAX_REPLAY_FPS = 1000.0
 
 
 def _fresh_folder(base: Path) -> Path:
@@ -372,7 +434,7 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     _check_duration(args, parser)
     if args.out:
         out = Path(args.out)
-        if out.exists() and (not out.is_dir() or any(out.iterdir())):
+        if out.is_dir() and any(out.iterdir()):
             raise _UserError(f"output folder {str(out)!r} already holds something; choose another --out")
     else:
         out = _fresh_folder(Path("runs") / ("compare" if args.subject is None else f"compare-{args.subject}"))
@@ -390,6 +452,7 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
             if c not in scenario.controllers:
                 raise _UserError(f"scenario {scenario.name!r} supports the controllers "
                                  f"{', '.join(scenario.controllers)}; got {c!r}")
+        _writable_folder(out, "--out" if args.out else "output folder")
         run_dirs = []
         batch = Batch()  # the runs of this comparison: one baseline, one warm-up per controller
         for c in controllers:
@@ -411,6 +474,7 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
         run_dirs = [Path(d) for d in args.inputs]
         for d in run_dirs:
             load_run(d)  # a clear error for a missing or broken folder, before anything is written
+        _writable_folder(out, "--out" if args.out else "output folder")
     rows, labels, md = compare_runs(run_dirs, out)
     table = text_table(["metric", "unit", *labels], [[r["key"], r["unit"]] + [
         fmt(r[lab]) + (" *" if r["best"] == lab else "") for lab in labels] for r in rows])
@@ -494,6 +558,7 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     several = n_scenarios > 1
     if args.out:
         out = Path(args.out)
+        _writable_folder(out)
     elif several:
         out = _fresh_folder(Path("runs") / f"sweep-{n_scenarios}-scenarios")
     else:

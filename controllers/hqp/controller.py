@@ -180,9 +180,15 @@ class HQPController(Controller):
     def reset(self, context: ControllerContext) -> None:
         super().reset(context)
         self.state = TickState(context.arm, dict(context.cuff_frames), context.dt_s)
-        for level in self.levels:
+        for i, level in enumerate(self.levels):
             for t in level:
-                t.bind(self.state)
+                try:
+                    t.bind(self.state)
+                except SandboxError:
+                    raise  # names its culprit already (e.g. an unknown frame)
+                except Exception as e:  # a task's own error: one line naming it, before the run starts
+                    raise ParameterError(f"{self._level_names[i]}, task {t.name!r}: bind() raised "
+                                         f"{type(e).__name__}: {e}") from e
         n = context.arm.nv
         tau_max = np.array(context.arm.model.effortLimit, dtype=float)
         self._tau_max = tau_max
@@ -309,7 +315,11 @@ class HQPController(Controller):
             spans = ([], [])  # per kind, (first row, end row, weight) of each entry
             unit = True
             for slot, t, is_eq in level:
-                r = t.rows(s)
+                try:
+                    r = t.rows(s)
+                except Exception as e:  # a task's own error fails this tick, as a non-finite row does
+                    raise SandboxError(f"{self._level_names[i]}, task {t.name!r}: rows() raised "
+                                       f"{type(e).__name__}: {e}") from e
                 if r is None:
                     continue
                 A, b = r[0], r[1]
@@ -476,7 +486,10 @@ class HQPController(Controller):
             tau = s.g - self.fallback_damping * s.dq
             self.fallback_count += 1
             self.last_fallback_reason = f"t = {measurement.t_s:.3f} s: {e}"
-            _log.warning("controller %s fell back to gravity + damping: %s", self.name, self.last_fallback_reason)
+            # the first fallback of a run is a warning; the others only for debugging, or a task that fails on
+            # every tick would print thousands of lines (the run's count is hqp_fallback_count)
+            _log.log(logging.WARNING if self.fallback_count == 1 else logging.DEBUG,
+                     "controller %s fell back to gravity + damping: %s", self.name, self.last_fallback_reason)
             self._prev = None
             fallback = 1.0
             qp_solves = math.nan  # the tick has no solve to count

@@ -784,9 +784,49 @@ def _read_json(path: Path) -> dict[str, Any]:
     return obj
 
 
-def _read_chunk(path: Path, columns: Mapping[str, _Column]) -> dict[str, np.ndarray]:
+#: Most values (rows x columns) one chunk file may declare: 400 MB of float64 (a project bound; a chunk of the
+#: shipped runs holds 1000 ticks x about 120 columns).
+MAX_CHUNK_VALUES = 50_000_000
+#: Bytes of uncompressed Parquet data a chunk may declare per value, and per column on top (page headers and
+#: encodings; a project bound, about twice what the writer produces).
+_BYTES_PER_VALUE, _BYTES_PER_COLUMN = 16, 4096
+
+
+def _check_chunk_size(path: Path, columns: Mapping[str, _Column], max_rows: int) -> None:
+    """Refuse a chunk whose footer declares more data than the run can hold, before anything is decompressed.
+
+    The Parquet footer (file metadata) gives each row group's rows and each column chunk's uncompressed size; a
+    decompression bomb declares either too many rows (more than ``max_rows``: the meta's ``chunk_ticks``, or the
+    planned ticks left), too many values (:data:`MAX_CHUNK_VALUES`) or too many uncompressed bytes.
+    """
+    where = f"chunk file {str(path)!r}"
+    try:
+        with pq.ParquetFile(path) as f:
+            md = f.metadata
+            rows, n_cols = md.num_rows, md.num_columns
+            unpacked = sum(md.row_group(i).column(j).total_uncompressed_size
+                           for i in range(md.num_row_groups) for j in range(n_cols))
+    except (OSError, pa.ArrowException, ValueError, EOFError) as e:
+        raise RunLogError(f"{where} is corrupt or truncated: {type(e).__name__}: {e}") from e
+    expected = sum(len(col.parquet_names(name)) for name, col in columns.items())
+    if n_cols > expected:
+        raise RunLogError(f"{where} declares {n_cols} columns; meta.json records {expected}")
+    if rows > max_rows:
+        raise RunLogError(f"{where} declares {rows} rows; at most {max_rows} are expected (chunk_ticks and the "
+                          "planned ticks of meta.json)")
+    if rows * n_cols > MAX_CHUNK_VALUES:
+        raise RunLogError(f"{where} declares {rows} rows x {n_cols} columns; at most {MAX_CHUNK_VALUES} values "
+                          "are read")
+    limit = _BYTES_PER_VALUE * rows * n_cols + _BYTES_PER_COLUMN * n_cols
+    if unpacked > limit:
+        raise RunLogError(f"{where} declares {unpacked} bytes of uncompressed data for {rows} rows x {n_cols} "
+                          f"columns; at most {limit} are read")
+
+
+def _read_chunk(path: Path, columns: Mapping[str, _Column], max_rows: int) -> dict[str, np.ndarray]:
     """One chunk file as arrays of shape (ticks, *shape) per column, checked against ``columns`` (of meta.json)."""
     where = f"chunk file {str(path)!r}"
+    _check_chunk_size(path, columns, max_rows)
     try:
         table = pq.read_table(path, use_threads=False, page_checksum_verification=True)
     except (OSError, pa.ArrowException, ValueError, EOFError) as e:
@@ -822,6 +862,30 @@ def _read_chunk(path: Path, columns: Mapping[str, _Column]) -> dict[str, np.ndar
             flat[j] = values.to_numpy()
         out[name] = np.ascontiguousarray(flat.T).view(col.dtype).reshape(rows, *col.shape)
     return out
+
+
+def _check_model_paths(root: Path, meta: Mapping[str, Any], meta_path: Path) -> None:
+    """Every file ``meta["models"]`` names (``*_urdf``) must be a relative path inside the run folder.
+
+    A run folder comes from anywhere (a colleague, a download): its meta.json must not make a reader open
+    ``../../etc/passwd`` or an absolute path.
+    """
+    models = meta.get("models")
+    if models is None:
+        return
+    if not isinstance(models, Mapping):
+        raise RunLogError(f"{str(meta_path)!r}: models must be a JSON object, got {type(models).__name__}")
+    inside = root.resolve()
+    for key, value in models.items():
+        if not str(key).endswith("_urdf"):
+            continue
+        ok = isinstance(value, str) and value and not Path(value).is_absolute()
+        if ok:
+            target = (root / value).resolve()
+            ok = target != inside and inside in target.parents
+        if not ok:
+            raise RunLogError(f"{str(meta_path)!r}: models.{key} = {value!r} must name a file inside the run folder "
+                              f"{str(root)!r} (a relative path without '..' out of it)")
 
 
 def load_run(path: str | os.PathLike[str]) -> Run:
@@ -869,6 +933,7 @@ def load_run(path: str | os.PathLike[str]) -> Run:
                           f"{what}; this version reads format_version {FORMAT_VERSION} (Parquet chunks) only:"
                           f" run the scenario again to get a readable log")
     columns = _columns_from_json(meta.get("columns"), str(meta_path))
+    _check_model_paths(root, meta, meta_path)
     chunk_ticks = meta.get("chunk_ticks")
     if isinstance(chunk_ticks, bool) or not isinstance(chunk_ticks, int) or chunk_ticks < 1:
         raise RunLogError(f"{str(meta_path)!r}: chunk_ticks must be an int >= 1, got {chunk_ticks!r}")
@@ -887,11 +952,15 @@ def load_run(path: str | os.PathLike[str]) -> Run:
         if found != expected:
             raise RunLogError(f"chunk file {str(chunk_dir / _chunk_name(expected))!r} is missing")
 
+    planned = meta.get("n_ticks_planned")  # written by the simulation; a log of another origin may lack it
+    left = planned if isinstance(planned, int) and not isinstance(planned, bool) and planned >= 0 else None
     parts: dict[str, list[np.ndarray]] = {name: [] for name in columns}
     for i in indices:
         chunk_path = chunk_dir / _chunk_name(i)
-        chunk = _read_chunk(chunk_path, columns)
+        chunk = _read_chunk(chunk_path, columns, chunk_ticks if left is None else min(chunk_ticks, left))
         n = len(next(iter(chunk.values())))
+        if left is not None:
+            left -= n
         if i < len(indices) - 1 and n != chunk_ticks:
             raise RunLogError(f"chunk file {str(chunk_path)!r} has {n} ticks; all but the last must have {chunk_ticks}")
         for name, arr in chunk.items():

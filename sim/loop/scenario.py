@@ -43,7 +43,17 @@ from sim.physics.plant import PlantParams
 from sim.physics.sensors import EncoderParams, ForceSensorParams
 from sim.physics.wearer import HumanMotorParams
 
-__all__ = ["Scenario", "ScenarioError", "load_scenario", "scenario_folder_importable", "scenario_files_in", "deg"]
+__all__ = ["Scenario", "ScenarioError", "load_scenario", "scenario_folder_importable", "scenario_files_in", "deg",
+           "MAX_DURATION_S", "MAX_TICKS", "MAX_SUBSTEPS", "MAX_SENSOR_DELAY_S"]
+
+#: Longest simulated duration of one run [s]: 1 h (a project bound; the 60 s reference run is the longest shipped).
+MAX_DURATION_S = 3600.0
+#: Most control ticks of one run: 1 h at 1 kHz (a project bound on run time and log size).
+MAX_TICKS = 3_600_000
+#: Most physics substeps per control tick (a project bound; the default is 4).
+MAX_SUBSTEPS = 1000
+#: Longest force-sensor delay [s] (a project bound; sensor latencies are milliseconds).
+MAX_SENSOR_DELAY_S = 1.0
 
 
 class ScenarioError(SandboxError, ValueError):
@@ -103,6 +113,9 @@ class Scenario:
         if not isinstance(self.intent, JointIntent):
             raise ParameterError(f"{o}.intent must be a JointIntent, got {type(self.intent).__name__}")
         object.__setattr__(self, "duration_s", positive(o, "duration_s", self.duration_s, "s"))
+        if self.duration_s > MAX_DURATION_S:
+            raise ParameterError(f"{o}.duration_s must be at most {MAX_DURATION_S:g} s (1 h of simulated time), "
+                                 f"got {self.duration_s!r}")
         ctrl = (self.controllers,) if isinstance(self.controllers, str) else tuple(self.controllers)
         if not ctrl or not all(isinstance(c, str) and c for c in ctrl):
             raise ParameterError(f"{o}.controllers must name at least one controller, got {self.controllers!r}")
@@ -116,8 +129,28 @@ class Scenario:
         object.__setattr__(self, "force_limits_N", {k: float(v) for k, v in limits.items()})
         object.__setattr__(self, "control_period_s",
                            positive(o, "control_period_s", self.control_period_s, "s"))
-        if not (isinstance(self.substeps, int) and self.substeps >= 1):
+        ticks = self.duration_s / self.control_period_s
+        if not ticks >= 0.5:  # n_ticks rounds to 0: the run would have no tick at all
+            raise ParameterError(f"{o}.control_period_s must be at most duration_s = {self.duration_s!r} s "
+                                 f"(at least one tick), got {self.control_period_s!r}")
+        if ticks >= MAX_TICKS + 0.5:
+            raise ParameterError(f"{o}.control_period_s = {self.control_period_s!r} s gives {ticks:.3g} ticks in "
+                                 f"duration_s = {self.duration_s!r} s; at most {MAX_TICKS} ticks (1 h at 1 kHz)")
+        if not (isinstance(self.substeps, int) and not isinstance(self.substeps, bool) and self.substeps >= 1):
             raise ParameterError(f"{o}.substeps must be an integer >= 1, got {self.substeps!r}")
+        if self.substeps > MAX_SUBSTEPS:
+            raise ParameterError(f"{o}.substeps must be at most {MAX_SUBSTEPS}, got {self.substeps!r}")
+        for name, kind in (("exo", (ExoParams, type(None))), ("registration", Registration),
+                           ("motor", HumanMotorParams), ("plant", PlantParams), ("encoder", EncoderParams),
+                           ("force_sensor", ForceSensorParams), ("actuators", ActuatorParams)):
+            if not isinstance(getattr(self, name), kind):
+                want = kind[0].__name__ + " or None" if isinstance(kind, tuple) else kind.__name__
+                raise ParameterError(f"{o}.{name} must be a {want}, got {type(getattr(self, name)).__name__}")
+        delay_s = self.force_sensor.delay_ticks * self.control_period_s
+        if delay_s > MAX_SENSOR_DELAY_S:
+            raise ParameterError(f"{o}.force_sensor.delay_ticks = {self.force_sensor.delay_ticks} is "
+                                 f"{delay_s:.6g} s at control_period_s = {self.control_period_s!r} s; at most "
+                                 f"{MAX_SENSOR_DELAY_S:g} s")
         if not (isinstance(self.seed, int) and self.seed >= 0):
             raise ParameterError(f"{o}.seed must be an integer >= 0, got {self.seed!r}")
         faults = check_faults(self.faults, o)

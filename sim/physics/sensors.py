@@ -47,7 +47,7 @@ from models.checks import nonnegative, positive, vector
 from models.errors import ParameterError
 
 __all__ = ["EncoderParams", "JointSensing", "ForceSensorParams", "ForceTorqueSensor", "ForceSensorBank",
-           "NOISE_BLOCK_TICKS", "lowpass_alpha", "first_nonfinite"]
+           "NOISE_BLOCK_TICKS", "MAX_DELAY_TICKS", "lowpass_alpha", "first_nonfinite"]
 
 
 #: Ticks of noise a force/torque sensor draws from its Generator at once (the same stream as one draw a tick).
@@ -343,6 +343,11 @@ class JointSensing:
         return out[0], out[1], out[2]
 
 
+#: Largest delay line of a force sensor [ticks]: 1 s at 100 kHz, 4.8 MB of state (a project bound; a scenario
+#: further limits the delay to 1 s at its own control period).
+MAX_DELAY_TICKS = 100_000
+
+
 @dataclass(frozen=True)
 class ForceSensorParams:
     """A 6-axis force/torque sensor: bias, white noise, a first-order low-pass and a pure delay.
@@ -390,6 +395,8 @@ class ForceSensorParams:
             raise ParameterError(f"{o}.delay_ticks must be an integer >= 0, got {d!r}") from e
         if di < 0 or isinstance(d, bool):
             raise ParameterError(f"{o}.delay_ticks must be an integer >= 0, got {d!r}")
+        if di > MAX_DELAY_TICKS:
+            raise ParameterError(f"{o}.delay_ticks must be at most {MAX_DELAY_TICKS} (1 s at 100 kHz), got {d!r}")
         object.__setattr__(self, "delay_ticks", di)
 
 
