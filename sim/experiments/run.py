@@ -331,12 +331,13 @@ def run_warnings(metrics: dict) -> list[str]:
     if n_force:
         out.append(f"a cuff force exceeded its body-region limit on {n_force} tick(s) (force_limit_exceed_count)")
     share, n_fb = metrics.get("hqp_fallback_fraction"), metrics.get("hqp_fallback_count")
-    if n_fb:  # every fallback is said (a user's task that raised, a singular stack); more than a few, loudly
-        over = share is not None and share > FALLBACK_WARN_FRACTION
-        out.append(f"the controller fell back to gravity + damping on {n_fb} tick(s)"
-                   + (f" ({100 * share:.2g} % of the run" + (f", more than {100 * FALLBACK_WARN_FRACTION:g} %"
-                                                           if over else "") + ")" if share is not None else "")
-                   + "; hqp_fallback_count in metrics.json, the first reason is logged above")
+    over = share is not None and share > FALLBACK_WARN_FRACTION
+    if n_fb or over:  # every fallback is said (a user's task that raised, a singular stack); more than a few, loudly
+        count = f" on {n_fb} tick(s)" if n_fb else ""
+        part = f" ({100 * share:.1f} % of the run" if share is not None else ""
+        part += (f", more than {100 * FALLBACK_WARN_FRACTION:g} %)" if over else ")") if part else ""
+        out.append(f"the controller fell back to gravity + damping{count}{part}; hqp_fallback_count in "
+                   "metrics.json, the first reason is logged above")
     return out
 
 
