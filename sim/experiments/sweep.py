@@ -631,7 +631,8 @@ def check_plan(out: Path, plan: Mapping) -> None:
 
 
 def _finished_cases(out: Path, cases: Sequence[SweepCase]) -> dict[str, CaseResult]:
-    """The cases of an interrupted sweep whose run finished: its ``report.md``, written last, is there.
+    """The cases of an interrupted sweep whose run finished: its ``report.md``, written last, is there, and its
+    ``meta.json`` says ``"complete"``.
 
     Their metrics are read back from ``metrics.json``; their wall times from
     the sweep's ``runs.csv`` where it has them (NaN otherwise).  A run that
@@ -646,7 +647,7 @@ def _finished_cases(out: Path, cases: Sequence[SweepCase]) -> dict[str, CaseResu
     finished = {}
     for c in cases:
         folder = Path(c.folder)
-        if not (folder / "report.md").is_file():
+        if not (folder / "report.md").is_file() or (_run_meta(c.folder) or {}).get("status") != "complete":
             continue
         try:
             metrics = json.loads((folder / "metrics.json").read_text(encoding="utf-8"))

@@ -100,6 +100,7 @@ References
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import json
 import logging
@@ -130,6 +131,7 @@ __all__ = [
     "RunLog",
     "Run",
     "load_run",
+    "mark_run",
     "environment_metadata",
 ]
 
@@ -306,14 +308,24 @@ def _temporary(path: Path) -> Path:
 
 
 def _atomic_write_bytes(path: Path, data: bytes | memoryview) -> None:
+    """Write ``data`` under the temporary name, then move it into place; a failed write (a full disk: ENOSPC,
+    EDQUOT) leaves no temporary file behind."""
     tmp = _temporary(path)
-    tmp.write_bytes(data)
-    os.replace(tmp, path)
+    try:
+        tmp.write_bytes(data)
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+        raise
 
 
 def _write_json(path: Path, obj: Mapping[str, Any]) -> None:
     text = json.dumps(obj, indent=2, allow_nan=False) + "\n"
-    _atomic_write_bytes(path, text.encode("utf-8"))
+    try:
+        _atomic_write_bytes(path, text.encode("utf-8"))
+    except OSError as e:
+        raise RunLogError(f"could not write {str(path)!r}: {e}") from e
 
 
 def _chunk_table(arrays: Mapping[str, np.ndarray], columns: Mapping[str, _Column], rows: int) -> pa.Table:
@@ -497,6 +509,7 @@ class RunLog:
         self._row = 0
         self._ticks = 0
         self._chunks = 0  # chunks on disk
+        self._ticks_on_disk = 0  # the ticks of those chunks
         self._closed = False
 
     # -- properties ------------------------------------------------------------------------------
@@ -619,6 +632,7 @@ class RunLog:
             return
         self._job.result()
         _log.debug("wrote %s (%d ticks)", self._job.path.name, self._job.rows)
+        self._ticks_on_disk += self._job.rows
         self._job = None
         self._chunks += 1
 
@@ -707,11 +721,44 @@ class RunLog:
         tb: TracebackType | None,
     ) -> bool:
         if exc is None:
-            self.close("complete")
+            status, reason = "complete", None
         else:
             status = "failed" if isinstance(exc, Exception) else "interrupted"
-            self.close(status, reason=_one_line(exc))
+            reason = _one_line(exc)
+        try:
+            self.close(status, reason=reason)
+        except RunLogError as e:  # a chunk or a file that cannot be written (a full disk): the run failed
+            self.close_failed(_one_line(e) if reason is None else f"{reason}; then {_one_line(e)}")
+            if exc is None:
+                raise
         return False
+
+    def close_failed(self, reason: str) -> None:
+        """Record the run as ``"failed"`` with ``reason``, keeping only the chunks already on disk.  Idempotent.
+
+        The way out when :meth:`close` cannot write (a full disk: ENOSPC or
+        EDQUOT): the chunk in flight gets one more attempt, the rows still
+        buffered are dropped, and ``meta.json`` records the ticks and chunks
+        on disk, so that :func:`load_run` reads every finished chunk.  If even
+        ``meta.json`` cannot be written, the error is logged and the folder
+        keeps its last status (``"running"``: the trace of a run that did not
+        end well).
+        """
+        if self._closed:
+            return
+        try:
+            self._wait_writer()
+        except RunLogError as e:
+            _log.warning("dropping the chunk that could not be written: %s", e)
+        self._job = None
+        self._row = 0
+        self._meta.update(status="failed", reason=" ".join(reason.split()), ticks=self._ticks_on_disk,
+                          chunks=self._chunks)
+        try:
+            _write_json(self._folder / META_FILE, self._meta)
+        except RunLogError as e:
+            _log.error("run %s failed (%s), and its meta.json could not record it: %s", self._folder, reason, e)
+        self._closed = True
 
     def __repr__(self) -> str:
         state = "closed" if self._closed else "open"
@@ -912,6 +959,30 @@ def load_run(path: str | os.PathLike[str]) -> Run:
     metrics_path = root / METRICS_FILE
     metrics = _read_json(metrics_path) if metrics_path.exists() else {}
     return Run(arrays=arrays, meta=meta, metrics=metrics, complete=status == "complete", folder=root)
+
+
+def mark_run(path: str | os.PathLike[str], status: str, reason: str) -> None:
+    """Change the final status of a closed run folder to ``"failed"`` or ``"interrupted"``, with ``reason``.
+
+    For what goes wrong after the log is closed but before the run is done
+    (its human-alone baseline, its metrics, its report): ``meta.json`` then
+    never says ``"complete"`` of a run that has no metrics.  The tick and
+    chunk counts stay as they are.
+
+    Raises
+    ------
+    RunLogError
+        If the folder holds no closed run, ``status`` is not one of the two,
+        or ``meta.json`` cannot be written (naming it).
+    """
+    if status not in ("failed", "interrupted"):
+        raise RunLogError(f"mark_run: status must be 'failed' or 'interrupted', got {status!r}")
+    meta_path = Path(path) / META_FILE
+    meta = _read_json(meta_path)
+    if meta.get("status") not in _FINAL_STATUSES:
+        raise RunLogError(f"{str(meta_path)!r}: the run is not closed (status {meta.get('status')!r})")
+    meta.update(status=status, reason=" ".join(str(reason).split()))
+    _write_json(meta_path, meta)
 
 
 # ----------------------------------------------------------------------------------------------
