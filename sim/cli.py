@@ -306,6 +306,7 @@ class _LazyViewer:
 
 
 def _cmd_replay(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    from sim.loop.interrupt import stop_on_signals
     from sim.loop.runlog import load_run
     from sim.output import viz
 
@@ -316,13 +317,16 @@ def _cmd_replay(args: argparse.Namespace, parser: argparse.ArgumentParser) -> st
     if args.html:
         path = viz.write_replay_html(run_dir, Path(args.html), fps=args.fps)
         return f"wrote {path} (open it in any browser; it needs no connection)"
-    vis, url = viz.replay(run_dir, fps=args.fps)
-    print(f"replay at {url} (Ctrl-C to stop)", flush=True)
-    try:
-        while True:
-            time.sleep(1.0)
-    except KeyboardInterrupt:
-        return "stopped"
+    with stop_on_signals():  # SIGTERM stops the replay like Ctrl-C: its server with it
+        vis, url = viz.replay(run_dir, fps=args.fps)
+        try:
+            print(f"replay at {url} (Ctrl-C to stop)", flush=True)
+            while True:
+                time.sleep(1.0)
+        except KeyboardInterrupt:
+            return "stopped"
+        finally:
+            viz.close_visualizer(vis)
 
 
 def _cmd_bench(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
