@@ -2,7 +2,9 @@
 
 Errors a user can cause (a bad option, an unknown subject, an out-of-range
 parameter, an unwritable file) print one line and exit with status 2 (usage)
-or 1 (anything else); there is no traceback.
+or 1 (anything else); there is no traceback.  A run stopped by Ctrl-C or
+SIGTERM exits with status 1, as does a sweep in which every run failed
+(after its table).
 """
 
 from __future__ import annotations
@@ -471,7 +473,7 @@ _SWEEP_COLUMNS = ("interaction_force_rms_N", "interaction_force_free_rms_N", "ap
                   "human_effort_ratio", "wall_stiffness_rendered_N_per_m", "hqp_fallback_count")
 
 
-def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str | tuple[str, int]:
     from sim.experiments.sweep import run_sweep, scenario_files, scenario_folders
     from sim.loop.scenario import load_scenario
     from sim.output.report import fmt_stat, has_wall, sweep_verdicts, text_table
@@ -528,6 +530,9 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
         lines.append(f"{len(result.failed)} of {len(result.results)} runs failed:")
         lines += [f"  {r.case.label}: {r.error}" for r in result.failed]
     lines.append(f"report {out / 'report.md'}, tables {out / 'summary.csv'} and {out / 'runs.csv'}")
+    if result.results and not any(r.ok for r in result.results):  # nothing to compare: a script must see it
+        lines.append("every run failed")
+        return "\n".join(lines), 1
     return "\n".join(lines)
 
 
@@ -596,9 +601,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     except (SandboxError, _UserError) as e:
         print(f"{PROG}: error: {e}", file=sys.stderr)
         return 1
+    status = 0
+    if isinstance(message, tuple):  # (message, exit status): a result that is printed, yet not a success
+        message, status = message
     if message:
         print(message)
-    return 0
+    return status
 
 
 if __name__ == "__main__":  # pragma: no cover
