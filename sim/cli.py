@@ -270,7 +270,8 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
         result = run_scenario(scenario, controller, out, seed=seed, progress=bar.update if bar else None,
                               observer=viewer)
     except KeyboardInterrupt:
-        raise _UserError(f"interrupted; the finished part of the log is kept in {out}") from None
+        raise _UserError(f"interrupted; the finished part of the log is kept in {out}, with the metrics of that "
+                         "part (marked partial)") from None
     except SimulationError as e:
         raise _UserError(f"{e}; the log up to that tick is kept in {out}") from e
     finally:
