@@ -61,7 +61,7 @@ its version and the one it reads.
 Design notes
 ------------
 * **Atomic files.**  Each chunk and each JSON file is written under a hidden
-  temporary name (``.<name>.tmp``, which Parquet dataset readers such as
+  temporary name (``.<name>.<thread>.tmp``, which Parquet dataset readers such as
   ``pyarrow.dataset`` skip) in the same directory and moved into place with
   :func:`os.replace`, so a reader never sees half a file.  This protects
   against the process dying; it does not ``fsync`` and so gives no guarantee
@@ -303,8 +303,9 @@ def _to_json(value: Any, where: str) -> Any:
 
 
 def _temporary(path: Path) -> Path:
-    """The hidden temporary name a file is written under before it is moved into place."""
-    return path.with_name(f".{path.name}.tmp")
+    """The hidden temporary name a file is written under before it is moved into place: one per thread, so that
+    two writers of the same file (a chunk handed over again after an interruption) never share one."""
+    return path.with_name(f".{path.name}.{threading.get_ident()}.tmp")
 
 
 def _atomic_write_bytes(path: Path, data: bytes | memoryview) -> None:
@@ -375,6 +376,7 @@ class _ChunkJob:
         self.path, self._arrays, self._columns, self.rows = path, arrays, columns, rows
         self._error: BaseException | None = None
         self.done = False
+        self._finished = threading.Event()
         self._thread: threading.Thread | None = threading.Thread(
             target=self._run, name=f"run log writer {path.name}", daemon=False)
         self._thread.start()
@@ -386,10 +388,13 @@ class _ChunkJob:
             self._error = e
         finally:
             self.done = True
+            self._finished.set()
 
     def result(self) -> None:
         if self._thread is not None:
-            self._thread.join()
+            # not Thread.join: a join interrupted by a signal's exception can mark a thread stopped while it still
+            # runs (CPython's _wait_for_tstate_lock, bpo-45274), and the next join then returns at once
+            self._finished.wait()
             self._thread = None
         else:  # a retry of a failed write
             self._run()
@@ -507,7 +512,6 @@ class RunLog:
                                  for col in self._columns.values())
         self._job: _ChunkJob | None = None  # the chunk in flight (or whose write failed), at most one
         self._row = 0
-        self._ticks = 0
         self._chunks = 0  # chunks on disk
         self._ticks_on_disk = 0  # the ticks of those chunks
         self._closed = False
@@ -522,7 +526,7 @@ class RunLog:
     @property
     def ticks(self) -> int:
         """int : number of ticks appended so far [ticks] (written or buffered)."""
-        return self._ticks
+        return self._ticks_on_disk + (self._job.rows if self._job is not None else 0) + self._row
 
     @property
     def column_names(self) -> tuple[str, ...]:
@@ -621,8 +625,7 @@ class RunLog:
         row = self._row
         for buffer, value in zip(self._buffer_list, values):
             buffer[row] = value
-        self._row += 1
-        self._ticks += 1
+        self._row += 1  # one store: an interruption counts the row whole or not at all
         if self._row == self._chunk_ticks:
             self._hand_over()
 
@@ -630,20 +633,22 @@ class RunLog:
         """Wait for the chunk in flight; re-raise its error (it is then written again by the next call)."""
         if self._job is None:
             return
-        self._job.result()
-        _log.debug("wrote %s (%d ticks)", self._job.path.name, self._job.rows)
-        self._ticks_on_disk += self._job.rows
-        self._job = None
-        self._chunks += 1
+        job = self._job
+        job.result()  # interrupted before the stores below, a later call waits again (or writes the same file again)
+        # stores without a call between them: Python runs a signal's handler (which raises) at a call or a backward
+        # jump only, so an interruption leaves these counts all changed or none
+        self._job, self._chunks, self._ticks_on_disk = None, self._chunks + 1, self._ticks_on_disk + job.rows
+        _log.debug("wrote %s (%d ticks)", job.path.name, job.rows)
 
     def _hand_over(self) -> None:
         """Give the filled rows to the writer thread and continue in the other buffer set."""
         self._wait_writer()  # at most one chunk in flight: after this the other buffer set is free
         path = self._folder / CHUNK_DIR / _chunk_name(self._chunks)
-        self._job = _ChunkJob(path, self._buffers, self._columns, self._row)
-        self._buffers = self._buffer_sets[1] if self._buffers is self._buffer_sets[0] else self._buffer_sets[0]
-        self._buffer_list = list(self._buffers.values())
-        self._row = 0
+        other = self._buffer_sets[1] if self._buffers is self._buffer_sets[0] else self._buffer_sets[0]
+        other_list = list(other.values())
+        job = _ChunkJob(path, self._buffers, self._columns, self._row)
+        # the job, the buffers and the row change together (stores without a call between them: see _wait_writer)
+        self._job, self._buffers, self._buffer_list, self._row = job, other, other_list, 0
 
     def sync(self) -> None:
         """Wait until every chunk handed to the writer is on disk (the partial chunk stays buffered).
@@ -703,7 +708,7 @@ class RunLog:
         self._wait_writer()
         if metrics_json is not None:
             _write_json(self._folder / METRICS_FILE, metrics_json)
-        self._meta.update(status=status, reason=reason, ticks=self._ticks, chunks=self._chunks)
+        self._meta.update(status=status, reason=reason, ticks=self._ticks_on_disk, chunks=self._chunks)
         _write_json(self._folder / META_FILE, self._meta)
         self._closed = True
 
@@ -762,7 +767,7 @@ class RunLog:
 
     def __repr__(self) -> str:
         state = "closed" if self._closed else "open"
-        return f"RunLog({str(self._folder)!r}, columns={list(self._columns)}, ticks={self._ticks}, {state})"
+        return f"RunLog({str(self._folder)!r}, columns={list(self._columns)}, ticks={self.ticks}, {state})"
 
 
 def _one_line(exc: BaseException) -> str:
