@@ -80,6 +80,7 @@ import os
 import re
 import subprocess
 import sys
+import tempfile
 import threading
 import time
 from collections import deque
@@ -999,7 +1000,9 @@ def start_server(host: str = viewer_server.DEFAULT_HOST) -> tuple[subprocess.Pop
     """
     cmd = [sys.executable, "-u", viewer_server.__file__, "--host", host, "--parent-pid", str(os.getpid())]
     # a session of its own, as meshcat does: a Ctrl-C at the terminal reaches this process, which stops it
-    proc = subprocess.Popen(cmd, stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+    # its messages go to a file, not a pipe that nobody reads and that would block it once full
+    errors = tempfile.TemporaryFile()
+    proc = subprocess.Popen(cmd, stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=errors,
                             start_new_session=True)
     urls = {}
     try:
@@ -1007,7 +1010,8 @@ def start_server(host: str = viewer_server.DEFAULT_HOST) -> tuple[subprocess.Pop
             line = proc.stdout.readline().decode("utf-8", "replace").strip()
             if not line:
                 if proc.poll() is not None:
-                    err = proc.stderr.read().decode("utf-8", "replace").strip().splitlines()
+                    errors.seek(0)
+                    err = errors.read().decode("utf-8", "replace").strip().splitlines()
                     raise RuntimeError(f"the viewer's server stopped at start (exit code {proc.returncode})"
                                        + (f": {err[-1]}" if err else ""))
                 continue
@@ -1017,7 +1021,9 @@ def start_server(host: str = viewer_server.DEFAULT_HOST) -> tuple[subprocess.Pop
     except BaseException:
         _stop_server(proc)
         raise
-    proc.stdout.close()  # it prints nothing more; its errors stay in the pipe unread (a few lines at most)
+    finally:
+        errors.close()  # the server keeps its own descriptor of the file
+    proc.stdout.close()  # it prints nothing more there
     return proc, urls["zmq_url"], urls["web_url"]
 
 
