@@ -2,7 +2,9 @@
 
 Errors a user can cause (a bad option, an unknown subject, an out-of-range
 parameter, an unwritable file) print one line and exit with status 2 (usage)
-or 1 (anything else); there is no traceback.
+or 1 (anything else); there is no traceback.  A run stopped by Ctrl-C or
+SIGTERM exits with status 1, as does a sweep in which every run failed
+(after its table).
 """
 
 from __future__ import annotations
@@ -275,7 +277,8 @@ def _cmd_run(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
         result = run_scenario(scenario, controller, out, seed=seed, progress=bar.update if bar else None,
                               observer=viewer)
     except KeyboardInterrupt:
-        raise _UserError(f"interrupted; the finished part of the log is kept in {out}") from None
+        raise _UserError(f"interrupted; the finished part of the log is kept in {out}, with the metrics of that "
+                         "part (marked partial)") from None
     except SimulationError as e:
         raise _UserError(f"{e}; the log up to that tick is kept in {out}") from e
     finally:
@@ -316,6 +319,7 @@ class _LazyViewer:
 
 
 def _cmd_replay(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    from sim.loop.interrupt import stop_on_signals
     from sim.loop.runlog import load_run
     from sim.output import viz
 
@@ -326,13 +330,16 @@ def _cmd_replay(args: argparse.Namespace, parser: argparse.ArgumentParser) -> st
     if args.html:
         path = viz.write_replay_html(run_dir, Path(args.html), fps=args.fps)
         return f"wrote {path} (open it in any browser; it needs no connection)"
-    vis, url = viz.replay(run_dir, fps=args.fps)
-    print(f"replay at {url} (Ctrl-C to stop)", flush=True)
-    try:
-        while True:
-            time.sleep(1.0)
-    except KeyboardInterrupt:
-        return "stopped"
+    with stop_on_signals():  # SIGTERM stops the replay like Ctrl-C: its server with it
+        vis, url = viz.replay(run_dir, fps=args.fps)
+        try:
+            print(f"replay at {url} (Ctrl-C to stop)", flush=True)
+            while True:
+                time.sleep(1.0)
+        except KeyboardInterrupt:
+            return "stopped"
+        finally:
+            viz.close_visualizer(vis)
 
 
 def _cmd_bench(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
@@ -539,7 +546,7 @@ _SWEEP_COLUMNS = ("interaction_force_rms_N", "interaction_force_free_rms_N", "ap
                   "human_effort_ratio", "wall_stiffness_rendered_N_per_m", "hqp_fallback_count")
 
 
-def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str | tuple[str, int]:
     from sim.experiments.sweep import run_sweep, scenario_files, scenario_folders
     from sim.loop.scenario import load_scenario
     from sim.output.report import fmt_stat, has_wall, sweep_verdicts, text_table
@@ -602,6 +609,9 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     # after the results, one line per run that must not go unnoticed; the exit code stays as it is
     lines += [f"warning: {r.case.label}: {w}" for r in result.results if r.ok and r.metrics
               for w in run_warnings(r.metrics)]
+    if result.results and not any(r.ok for r in result.results):  # nothing to compare: a script must see it
+        lines.append("every run failed")
+        return "\n".join(lines), 1
     return "\n".join(lines)
 
 
@@ -670,9 +680,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     except (SandboxError, _UserError) as e:
         print(f"{PROG}: error: {e}", file=sys.stderr)
         return 1
+    status = 0
+    if isinstance(message, tuple):  # (message, exit status): a result that is printed, yet not a success
+        message, status = message
     if message:
         print(message)
-    return 0
+    return status
 
 
 if __name__ == "__main__":  # pragma: no cover

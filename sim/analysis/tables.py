@@ -13,7 +13,7 @@ from pathlib import Path
 
 from sim.analysis.metrics import flat_metrics
 
-__all__ = ["run_rows", "write_csv", "write_json"]
+__all__ = ["run_rows", "write_csv", "write_json", "write_text"]
 
 
 def run_rows(results: Sequence) -> list[dict]:
@@ -48,7 +48,17 @@ def write_csv(path: Path, rows: Sequence[dict]) -> None:
 
 
 def write_json(path: Path, obj) -> None:
-    """Write JSON atomically (temporary file, then rename)."""
+    """Write JSON atomically (:func:`write_text`)."""
+    write_text(path, json.dumps(obj, indent=2, allow_nan=False) + "\n")
+
+
+def write_text(path: Path, text: str) -> None:
+    """Write UTF-8 text atomically: a temporary file, then a rename; a failed write (a full disk: ENOSPC,
+    EDQUOT) leaves neither a temporary file nor a half-written ``path``."""
     tmp = path.with_name(path.name + ".tmp")
-    tmp.write_text(json.dumps(obj, indent=2, allow_nan=False) + "\n", encoding="utf-8")
-    tmp.replace(path)
+    try:
+        tmp.write_text(text, encoding="utf-8")
+        tmp.replace(path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise

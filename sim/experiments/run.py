@@ -34,7 +34,8 @@ from sim.analysis.metrics import (
     wall_metrics,
 )
 from sim.analysis.tables import write_json
-from sim.loop.runlog import Run, environment_metadata, load_run
+from sim.loop.interrupt import stop_on_signals
+from sim.loop.runlog import Run, RunLogError, environment_metadata, load_run, mark_run
 from sim.loop.scenario import Scenario
 from sim.loop.simulate import RunResult, simulate
 from sim.loop.simulation import Observer, Progress, jsonable
@@ -47,6 +48,8 @@ __all__ = ["Batch", "WARM_UP_TICKS", "run_scenario", "warm_up", "reusable_baseli
 #: A run warns when more than this share of its ticks fell back (1 %, common practice: an occasional failed
 #: solve is survivable, a controller that fails often is not the controller that was designed).
 FALLBACK_WARN_FRACTION = 0.01
+
+_log = logging.getLogger(__name__)
 
 #: Control ticks of :func:`warm_up`'s throw-away run.
 WARM_UP_TICKS = 20
@@ -140,6 +143,14 @@ def run_scenario(
     The first call of a batch for a scenario and controller first runs
     :func:`warm_up`, so that the run's timing keys time the loop, not the
     loading of the compiled kernels (with no ``batch``, every call does).
+
+    A run that does not end well says so in ``out_dir/meta.json``:
+    ``"interrupted"`` on SIGINT or SIGTERM (in the main thread,
+    :func:`sim.loop.interrupt.stop_on_signals`), also during the baseline,
+    with the metrics of the part done marked ``"partial"`` in
+    ``metrics.json``; ``"failed"`` with a one-line ``reason`` when the
+    baseline, the metrics or the report cannot be made (a full disk).  The
+    exception is raised again (:class:`KeyboardInterrupt` for a signal).
     """
     batch = Batch() if batch is None else batch
     out = Path(out_dir)
@@ -148,15 +159,71 @@ def run_scenario(
     n = scenario.n_ticks
     coupled_progress = (lambda k, _n: progress(k, 2 * n)) if progress else None
     base_progress = (lambda k, _n: progress(n + k, 2 * n)) if progress else None
-    simulate(scenario, controller_name, out, seed=seed, progress=coupled_progress, observer=observer)
-    base = out / "human_alone"
-    if baseline_from is not None and not base.exists() and reusable_baseline(baseline_from, scenario, seed, batch):
-        shutil.copytree(baseline_from, base)
-        if progress:
-            progress(2 * n, 2 * n)
-    else:
-        simulate(scenario, controller_name, base, seed=seed, mode="human_alone", progress=base_progress)
-        batch.record(base)
+    with stop_on_signals():
+        try:
+            simulate(scenario, controller_name, out, seed=seed, progress=coupled_progress, observer=observer)
+        except KeyboardInterrupt as e:  # SIGINT or SIGTERM: the metrics of the part done, marked partial
+            _partial_metrics(out, scenario, controller_name, f"the run was interrupted ({_one_line(e)})")
+            raise
+        base = out / "human_alone"
+        try:
+            if (baseline_from is not None and not base.exists()
+                    and reusable_baseline(baseline_from, scenario, seed, batch)):
+                shutil.copytree(baseline_from, base)
+                if progress:
+                    progress(2 * n, 2 * n)
+            else:
+                simulate(scenario, controller_name, base, seed=seed, mode="human_alone", progress=base_progress)
+                batch.record(base)
+        except BaseException as e:  # the run is complete, its baseline not: the run is not done
+            interrupted = not isinstance(e, Exception)
+            why = f"its human-alone baseline was {'interrupted' if interrupted else 'not made'} ({_one_line(e)})"
+            _mark(out, "interrupted" if interrupted else "failed", why)
+            if interrupted:
+                _partial_metrics(out, scenario, controller_name, why)
+            raise
+        try:
+            return _finish(out, scenario, controller_name, report, figures)
+        except BaseException as e:  # e.g. a full disk: never "complete" without its metrics and report
+            _mark(out, "failed" if isinstance(e, Exception) else "interrupted",
+                  f"its metrics or report could not be written ({_one_line(e)})")
+            raise
+
+
+def _one_line(exc: BaseException) -> str:
+    message = " ".join(str(exc).split())
+    return f"{type(exc).__name__}: {message}" if message else type(exc).__name__
+
+
+def _mark(out: Path, status: str, reason: str) -> None:
+    """Record in the run's ``meta.json`` that it did not end well (best effort: the error at hand is raised)."""
+    try:
+        mark_run(out, status, reason)
+    except RunLogError as e:
+        _log.error("%s: %s; %s", out, reason, e)
+
+
+def _partial_metrics(out: Path, scenario: Scenario, controller_name: str, why: str) -> None:
+    """Write the metrics of the part of the run that was done, with ``"partial"`` saying why (best effort)."""
+    note = {"reason": why}
+    try:
+        run = load_run(out)
+        note |= {"ticks": run.ticks, "planned_ticks": scenario.n_ticks}
+        metrics = evaluate_run(out, wall=_wall(scenario, controller_name), force_limits_N=scenario.force_limits_N,
+                               run=run)
+    except Exception as e:  # too little was done to measure (or the folder cannot be read)
+        metrics = {}
+        note["metrics"] = f"none: {_one_line(e)}"
+    partial = metrics.get("partial", {})
+    metrics["partial"] = note | {k: v for k, v in partial.items() if k == "baseline"}
+    try:
+        write_json(out / "metrics.json", metrics)
+    except (OSError, ValueError) as e:
+        _log.error("%s: the metrics of the part done could not be written: %s", out, e)
+
+
+def _wall(scenario: Scenario, controller_name: str) -> dict | None:
+    """The scenario's plane wall as :func:`evaluate_run` takes it, or None."""
     wall = None
     plane = next((w for w in scenario.walls if isinstance(w, tuple) and w and w[0] == "wall_plane"), None)
     if plane is not None:
@@ -166,8 +233,14 @@ def run_scenario(
         wall = {"point_m": spec["point_m"], "normal": spec["normal"], "sensor": spec.get("sensor", "hand"),
                 "stiffness_N_per_m": law.stiffness_N_per_m, "damping_N_s_per_m": law.damping_N_s_per_m,
                 "rendered": renders_walls(scenario, controller_name)}
+    return wall
+
+
+def _finish(out: Path, scenario: Scenario, controller_name: str, report: bool, figures: bool) -> RunResult:
+    """The metrics and the report of a run whose coupled run and baseline are done."""
     run = load_run(out)  # read once, for the metrics and the report
-    metrics = evaluate_run(out, wall=wall, force_limits_N=scenario.force_limits_N, run=run)
+    metrics = evaluate_run(out, wall=_wall(scenario, controller_name), force_limits_N=scenario.force_limits_N,
+                           run=run)
     write_json(out / "metrics.json", metrics)
     if report:
         write_run_report(out, metrics, run=run, figures=figures)
@@ -262,12 +335,26 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
         The run already read from ``folder`` (:func:`sim.loop.runlog.load_run`),
         so that it is not read again; the columns derived from it are then
         kept for the next reader (the run's report).
+
+    Notes
+    -----
+    A baseline that is not complete, or not as long as the run, is not used:
+    the keys that compare with it are None and ``metrics["partial"]["baseline"]``
+    says why.  :func:`run_scenario` adds ``metrics["partial"]["reason"]``
+    (and ``ticks``, ``planned_ticks``) to the metrics of a run that was
+    interrupted; a complete run's metrics have no ``"partial"`` key.
     """
     out = Path(folder)
     run = load_run(out) if run is None else run
     arrays = run.arrays | cuff_columns(run)
     base_dir = out / "human_alone"
     base = load_run(base_dir) if base_dir.is_dir() else None
+    base_note = None
+    if base is not None and (not base.complete or base.ticks != run.ticks):  # never compared with part of a run
+        base_note = (f"the human-alone baseline is {base.meta.get('status')!s} with {base.ticks} of the run's "
+                     f"{run.ticks} ticks: the keys that compare with it (human_effort_ratio, path_deviation_rms_rad) "
+                     "are null")
+        base = None
     meta = run.meta
     dt = float(meta["dt_s"])
     timing_path = out / "timing.npz"
@@ -311,6 +398,8 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     faults = meta.get("faults") or []
     metrics["fault_count"] = len(faults)
     metrics["faults"] = [{k: f[k] for k in ("name", "kind", "start_s", "end_s")} for f in faults]
+    if base_note is not None:
+        metrics["partial"] = {"baseline": base_note}
     return metrics
 
 

@@ -55,6 +55,7 @@ run, and every table is then as the uninterrupted sweep's.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import hashlib
 import json
@@ -63,6 +64,7 @@ import multiprocessing
 import os
 import queue
 import shutil
+import signal
 import statistics
 import sys
 import threading
@@ -271,16 +273,37 @@ def _start_method() -> str:
     return "fork" if sys.platform.startswith("linux") else "spawn"
 
 
-def serve(conn) -> None:
+#: How often a sweep's worker process checks that the sweep's process is alive [s].
+PARENT_POLL_S = 0.5
+#: How long a worker whose sweep has gone may take to close its run before it exits regardless [s].
+ORPHAN_GRACE_S = 10.0
+
+
+def _watch_parent(parent_pid: int) -> None:
+    """In a worker: once the sweep's process ``parent_pid`` has gone (this one re-parented), stop as on SIGTERM
+    (the run going on is recorded as interrupted), and exit after :data:`ORPHAN_GRACE_S` whatever happens."""
+    while os.getppid() == parent_pid:
+        time.sleep(PARENT_POLL_S)
+    os.kill(os.getpid(), signal.SIGTERM)
+    time.sleep(ORPHAN_GRACE_S)
+    os._exit(1)
+
+
+def serve(conn, parent_pid: int | None = None) -> None:
     """A worker process: run each ``(function, case)`` it is sent, as ``function(case, batch)``, and send back the
     result, until sent ``None``.
 
     The worker makes its own :class:`~sim.experiments.run.Batch`: a forked
     worker never trusts the baselines its parent made, and reuses only those
     it simulates itself, as a spawned one does.  Interrupted (Ctrl-C reaches
-    every process of the terminal), it stops quietly; the parent reports the
-    case.
+    every process of the terminal, SIGTERM), it stops quietly; the parent
+    reports the case.  It also stops when the process ``parent_pid`` (default:
+    its parent at the call) has gone, killed or not, checking every
+    :data:`PARENT_POLL_S` s: a sweep never leaves a worker behind.
     """
+    parent_pid = os.getppid() if parent_pid is None else parent_pid
+    threading.Thread(target=_watch_parent, args=(parent_pid,), name="exosandbox-sweep-parent-watch",
+                     daemon=True).start()
     batch = Batch()
     try:
         while (job := conn.recv()) is not None:
@@ -370,7 +393,8 @@ def _local(cases: Sequence[SweepCase], jobs: int, batch: Batch) -> Iterable[Case
     try:
         for _ in range(jobs - 1):  # every worker before any thread: a fork copies no thread's locks
             ours, theirs = ctx.Pipe()
-            proc = ctx.Process(target=serve, args=(theirs,), name="exosandbox-sweep-worker", daemon=True)
+            proc = ctx.Process(target=serve, args=(theirs, os.getpid()), name="exosandbox-sweep-worker",
+                               daemon=True)
             proc.start()
             theirs.close()
             workers.append((proc, ours))
@@ -397,6 +421,12 @@ def _local(cases: Sequence[SweepCase], jobs: int, batch: Batch) -> Iterable[Case
                 running -= 1
             else:
                 yield item
+    except BaseException:  # interrupted (SIGINT, SIGTERM): the workers stop too, their runs marked interrupted
+        for proc, _ in workers:
+            if proc.is_alive():
+                with contextlib.suppress(OSError):
+                    os.kill(proc.pid, signal.SIGTERM)
+        raise
     finally:
         todo.clear()  # no new case to the workers; cases already running finish
         for t in threads:
@@ -631,7 +661,8 @@ def check_plan(out: Path, plan: Mapping) -> None:
 
 
 def _finished_cases(out: Path, cases: Sequence[SweepCase]) -> dict[str, CaseResult]:
-    """The cases of an interrupted sweep whose run finished: its ``report.md``, written last, is there.
+    """The cases of an interrupted sweep whose run finished: its ``report.md``, written last, is there, and its
+    ``meta.json`` says ``"complete"``.
 
     Their metrics are read back from ``metrics.json``; their wall times from
     the sweep's ``runs.csv`` where it has them (NaN otherwise).  A run that
@@ -646,7 +677,7 @@ def _finished_cases(out: Path, cases: Sequence[SweepCase]) -> dict[str, CaseResu
     finished = {}
     for c in cases:
         folder = Path(c.folder)
-        if not (folder / "report.md").is_file():
+        if not (folder / "report.md").is_file() or (_run_meta(c.folder) or {}).get("status") != "complete":
             continue
         try:
             metrics = json.loads((folder / "metrics.json").read_text(encoding="utf-8"))

@@ -61,7 +61,7 @@ its version and the one it reads.
 Design notes
 ------------
 * **Atomic files.**  Each chunk and each JSON file is written under a hidden
-  temporary name (``.<name>.tmp``, which Parquet dataset readers such as
+  temporary name (``.<name>.<thread>.tmp``, which Parquet dataset readers such as
   ``pyarrow.dataset`` skip) in the same directory and moved into place with
   :func:`os.replace`, so a reader never sees half a file.  This protects
   against the process dying; it does not ``fsync`` and so gives no guarantee
@@ -100,6 +100,7 @@ References
 
 from __future__ import annotations
 
+import contextlib
 import functools
 import json
 import logging
@@ -130,6 +131,7 @@ __all__ = [
     "RunLog",
     "Run",
     "load_run",
+    "mark_run",
     "environment_metadata",
 ]
 
@@ -301,19 +303,30 @@ def _to_json(value: Any, where: str) -> Any:
 
 
 def _temporary(path: Path) -> Path:
-    """The hidden temporary name a file is written under before it is moved into place."""
-    return path.with_name(f".{path.name}.tmp")
+    """The hidden temporary name a file is written under before it is moved into place: one per thread, so that
+    two writers of the same file (a chunk handed over again after an interruption) never share one."""
+    return path.with_name(f".{path.name}.{threading.get_ident()}.tmp")
 
 
 def _atomic_write_bytes(path: Path, data: bytes | memoryview) -> None:
+    """Write ``data`` under the temporary name, then move it into place; a failed write (a full disk: ENOSPC,
+    EDQUOT) leaves no temporary file behind."""
     tmp = _temporary(path)
-    tmp.write_bytes(data)
-    os.replace(tmp, path)
+    try:
+        tmp.write_bytes(data)
+        os.replace(tmp, path)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+        raise
 
 
 def _write_json(path: Path, obj: Mapping[str, Any]) -> None:
     text = json.dumps(obj, indent=2, allow_nan=False) + "\n"
-    _atomic_write_bytes(path, text.encode("utf-8"))
+    try:
+        _atomic_write_bytes(path, text.encode("utf-8"))
+    except OSError as e:
+        raise RunLogError(f"could not write {str(path)!r}: {e}") from e
 
 
 def _chunk_table(arrays: Mapping[str, np.ndarray], columns: Mapping[str, _Column], rows: int) -> pa.Table:
@@ -363,6 +376,7 @@ class _ChunkJob:
         self.path, self._arrays, self._columns, self.rows = path, arrays, columns, rows
         self._error: BaseException | None = None
         self.done = False
+        self._finished = threading.Event()
         self._thread: threading.Thread | None = threading.Thread(
             target=self._run, name=f"run log writer {path.name}", daemon=False)
         self._thread.start()
@@ -374,10 +388,13 @@ class _ChunkJob:
             self._error = e
         finally:
             self.done = True
+            self._finished.set()
 
     def result(self) -> None:
         if self._thread is not None:
-            self._thread.join()
+            # not Thread.join: a join interrupted by a signal's exception can mark a thread stopped while it still
+            # runs (CPython's _wait_for_tstate_lock, bpo-45274), and the next join then returns at once
+            self._finished.wait()
             self._thread = None
         else:  # a retry of a failed write
             self._run()
@@ -495,8 +512,8 @@ class RunLog:
                                  for col in self._columns.values())
         self._job: _ChunkJob | None = None  # the chunk in flight (or whose write failed), at most one
         self._row = 0
-        self._ticks = 0
         self._chunks = 0  # chunks on disk
+        self._ticks_on_disk = 0  # the ticks of those chunks
         self._closed = False
 
     # -- properties ------------------------------------------------------------------------------
@@ -509,7 +526,7 @@ class RunLog:
     @property
     def ticks(self) -> int:
         """int : number of ticks appended so far [ticks] (written or buffered)."""
-        return self._ticks
+        return self._ticks_on_disk + (self._job.rows if self._job is not None else 0) + self._row
 
     @property
     def column_names(self) -> tuple[str, ...]:
@@ -608,8 +625,7 @@ class RunLog:
         row = self._row
         for buffer, value in zip(self._buffer_list, values):
             buffer[row] = value
-        self._row += 1
-        self._ticks += 1
+        self._row += 1  # one store: an interruption counts the row whole or not at all
         if self._row == self._chunk_ticks:
             self._hand_over()
 
@@ -617,19 +633,22 @@ class RunLog:
         """Wait for the chunk in flight; re-raise its error (it is then written again by the next call)."""
         if self._job is None:
             return
-        self._job.result()
-        _log.debug("wrote %s (%d ticks)", self._job.path.name, self._job.rows)
-        self._job = None
-        self._chunks += 1
+        job = self._job
+        job.result()  # interrupted before the stores below, a later call waits again (or writes the same file again)
+        # stores without a call between them: Python runs a signal's handler (which raises) at a call or a backward
+        # jump only, so an interruption leaves these counts all changed or none
+        self._job, self._chunks, self._ticks_on_disk = None, self._chunks + 1, self._ticks_on_disk + job.rows
+        _log.debug("wrote %s (%d ticks)", job.path.name, job.rows)
 
     def _hand_over(self) -> None:
         """Give the filled rows to the writer thread and continue in the other buffer set."""
         self._wait_writer()  # at most one chunk in flight: after this the other buffer set is free
         path = self._folder / CHUNK_DIR / _chunk_name(self._chunks)
-        self._job = _ChunkJob(path, self._buffers, self._columns, self._row)
-        self._buffers = self._buffer_sets[1] if self._buffers is self._buffer_sets[0] else self._buffer_sets[0]
-        self._buffer_list = list(self._buffers.values())
-        self._row = 0
+        other = self._buffer_sets[1] if self._buffers is self._buffer_sets[0] else self._buffer_sets[0]
+        other_list = list(other.values())
+        job = _ChunkJob(path, self._buffers, self._columns, self._row)
+        # the job, the buffers and the row change together (stores without a call between them: see _wait_writer)
+        self._job, self._buffers, self._buffer_list, self._row = job, other, other_list, 0
 
     def sync(self) -> None:
         """Wait until every chunk handed to the writer is on disk (the partial chunk stays buffered).
@@ -689,7 +708,7 @@ class RunLog:
         self._wait_writer()
         if metrics_json is not None:
             _write_json(self._folder / METRICS_FILE, metrics_json)
-        self._meta.update(status=status, reason=reason, ticks=self._ticks, chunks=self._chunks)
+        self._meta.update(status=status, reason=reason, ticks=self._ticks_on_disk, chunks=self._chunks)
         _write_json(self._folder / META_FILE, self._meta)
         self._closed = True
 
@@ -707,15 +726,48 @@ class RunLog:
         tb: TracebackType | None,
     ) -> bool:
         if exc is None:
-            self.close("complete")
+            status, reason = "complete", None
         else:
             status = "failed" if isinstance(exc, Exception) else "interrupted"
-            self.close(status, reason=_one_line(exc))
+            reason = _one_line(exc)
+        try:
+            self.close(status, reason=reason)
+        except RunLogError as e:  # a chunk or a file that cannot be written (a full disk): the run failed
+            self.close_failed(_one_line(e) if reason is None else f"{reason}; then {_one_line(e)}")
+            if exc is None:
+                raise
         return False
+
+    def close_failed(self, reason: str) -> None:
+        """Record the run as ``"failed"`` with ``reason``, keeping only the chunks already on disk.  Idempotent.
+
+        The way out when :meth:`close` cannot write (a full disk: ENOSPC or
+        EDQUOT): the chunk in flight gets one more attempt, the rows still
+        buffered are dropped, and ``meta.json`` records the ticks and chunks
+        on disk, so that :func:`load_run` reads every finished chunk.  If even
+        ``meta.json`` cannot be written, the error is logged and the folder
+        keeps its last status (``"running"``: the trace of a run that did not
+        end well).
+        """
+        if self._closed:
+            return
+        try:
+            self._wait_writer()
+        except RunLogError as e:
+            _log.warning("dropping the chunk that could not be written: %s", e)
+        self._job = None
+        self._row = 0
+        self._meta.update(status="failed", reason=" ".join(reason.split()), ticks=self._ticks_on_disk,
+                          chunks=self._chunks)
+        try:
+            _write_json(self._folder / META_FILE, self._meta)
+        except RunLogError as e:
+            _log.error("run %s failed (%s), and its meta.json could not record it: %s", self._folder, reason, e)
+        self._closed = True
 
     def __repr__(self) -> str:
         state = "closed" if self._closed else "open"
-        return f"RunLog({str(self._folder)!r}, columns={list(self._columns)}, ticks={self._ticks}, {state})"
+        return f"RunLog({str(self._folder)!r}, columns={list(self._columns)}, ticks={self.ticks}, {state})"
 
 
 def _one_line(exc: BaseException) -> str:
@@ -981,6 +1033,30 @@ def load_run(path: str | os.PathLike[str]) -> Run:
     metrics_path = root / METRICS_FILE
     metrics = _read_json(metrics_path) if metrics_path.exists() else {}
     return Run(arrays=arrays, meta=meta, metrics=metrics, complete=status == "complete", folder=root)
+
+
+def mark_run(path: str | os.PathLike[str], status: str, reason: str) -> None:
+    """Change the final status of a closed run folder to ``"failed"`` or ``"interrupted"``, with ``reason``.
+
+    For what goes wrong after the log is closed but before the run is done
+    (its human-alone baseline, its metrics, its report): ``meta.json`` then
+    never says ``"complete"`` of a run that has no metrics.  The tick and
+    chunk counts stay as they are.
+
+    Raises
+    ------
+    RunLogError
+        If the folder holds no closed run, ``status`` is not one of the two,
+        or ``meta.json`` cannot be written (naming it).
+    """
+    if status not in ("failed", "interrupted"):
+        raise RunLogError(f"mark_run: status must be 'failed' or 'interrupted', got {status!r}")
+    meta_path = Path(path) / META_FILE
+    meta = _read_json(meta_path)
+    if meta.get("status") not in _FINAL_STATUSES:
+        raise RunLogError(f"{str(meta_path)!r}: the run is not closed (status {meta.get('status')!r})")
+    meta.update(status=status, reason=" ".join(str(reason).split()))
+    _write_json(meta_path, meta)
 
 
 # ----------------------------------------------------------------------------------------------

@@ -32,7 +32,7 @@ from sim.analysis.metrics import (
     flat_metrics,
     is_timing_key,
 )
-from sim.analysis.tables import run_rows, write_csv
+from sim.analysis.tables import run_rows, write_csv, write_text
 from sim.loop.runlog import Run, RunLogError, load_run
 from sim.output import plots
 from sim.output.figures import compare_figures, run_figures
@@ -519,7 +519,7 @@ def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run:
                  "run. `exosandbox sweep --run-figures` draws them; for this folder alone, "
                  "`sim.output.report.write_run_report(FOLDER)`."]
     out = folder / "report.md"
-    out.write_text("\n".join(text) + "\n", encoding="utf-8")
+    write_text(out, "\n".join(text) + "\n")  # atomic: a sweep takes a run with its report.md as finished
     return out
 
 

@@ -76,7 +76,11 @@ import io
 import json
 import logging
 import math
+import os
 import re
+import subprocess
+import sys
+import tempfile
 import threading
 import time
 from collections import deque
@@ -91,6 +95,7 @@ import pinocchio as pin
 from models.human import HumanParams, Subject
 from sim.analysis.derived import cuff_columns
 from sim.loop.runlog import load_run
+from sim.output import viewer_server
 from sim.output.framing import View, frame_view
 
 try:  # guarded: the module must import without meshcat
@@ -103,6 +108,7 @@ except ImportError:  # pragma: no cover - exercised by reloading with meshcat hi
     Animation = None
 
 __all__ = [
+    "start_server",
     "MESHCAT_INSTALL_HINT",
     "FORCE_SCALE_M_PER_N",
     "FORCE_ARROW_MAX_M",
@@ -979,8 +985,63 @@ class Scene:
 # ----------------------------------------------------------------------------------------------
 
 
+def start_server(host: str = viewer_server.DEFAULT_HOST) -> tuple[subprocess.Popen, str, str]:
+    """Start the viewer's server (:mod:`sim.output.viewer_server`) listening on ``host`` only.
+
+    The server stops when this process has gone (however it ended); stop it
+    sooner with :func:`close_visualizer` (or ``proc.terminate()``).
+
+    Returns
+    -------
+    proc : subprocess.Popen
+        The server process.
+    zmq_url, web_url : str
+        Where it takes drawing commands, and the page to open in a browser.
+    """
+    cmd = [sys.executable, "-u", viewer_server.__file__, "--host", host, "--parent-pid", str(os.getpid())]
+    # a session of its own, as meshcat does: a Ctrl-C at the terminal reaches this process, which stops it
+    # its messages go to a file, not a pipe that nobody reads and that would block it once full
+    errors = tempfile.TemporaryFile()
+    proc = subprocess.Popen(cmd, stdin=subprocess.DEVNULL, stdout=subprocess.PIPE, stderr=errors,
+                            start_new_session=True)
+    urls = {}
+    try:
+        while len(urls) < 2:
+            line = proc.stdout.readline().decode("utf-8", "replace").strip()
+            if not line:
+                if proc.poll() is not None:
+                    errors.seek(0)
+                    err = errors.read().decode("utf-8", "replace").strip().splitlines()
+                    raise RuntimeError(f"the viewer's server stopped at start (exit code {proc.returncode})"
+                                       + (f": {err[-1]}" if err else ""))
+                continue
+            key, sep, value = line.partition("=")
+            if sep and key in ("zmq_url", "web_url"):
+                urls[key] = value
+    except BaseException:
+        _stop_server(proc)
+        raise
+    finally:
+        errors.close()  # the server keeps its own descriptor of the file
+    proc.stdout.close()  # it prints nothing more there
+    return proc, urls["zmq_url"], urls["web_url"]
+
+
+def _stop_server(proc: subprocess.Popen) -> None:
+    if proc.poll() is None:
+        proc.terminate()
+        try:
+            proc.wait(timeout=5)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait(timeout=10)
+    for stream in (proc.stdout, proc.stderr):
+        if stream is not None:
+            stream.close()
+
+
 def open_visualizer(zmq_url: str | None = None) -> Any:
-    """A meshcat visualizer; starts a loopback server when ``zmq_url`` is None.
+    """A meshcat visualizer; starts a server on 127.0.0.1 when ``zmq_url`` is None (:func:`start_server`).
 
     meshcat's own "open the URL" message is sent to the log instead of stdout.
 
@@ -992,6 +1053,8 @@ def open_visualizer(zmq_url: str | None = None) -> Any:
     Returns
     -------
     meshcat.Visualizer
+        Its ``window.server_proc`` is the server it started, if any, which
+        :func:`close_visualizer` stops.
 
     Raises
     ------
@@ -999,9 +1062,18 @@ def open_visualizer(zmq_url: str | None = None) -> Any:
         If meshcat is not installed (with the install hint).
     """
     _require_meshcat()
+    proc = None
+    if zmq_url is None:
+        proc, zmq_url, _ = start_server()
     buf = io.StringIO()
-    with contextlib.redirect_stdout(buf):
-        vis = meshcat.Visualizer(zmq_url=zmq_url)
+    try:
+        with contextlib.redirect_stdout(buf):
+            vis = meshcat.Visualizer(zmq_url=zmq_url)
+    except BaseException:
+        if proc is not None:
+            _stop_server(proc)
+        raise
+    vis.window.server_proc = proc if proc is not None else vis.window.server_proc
     _log.info("meshcat viewer at %s", vis.url())
     return vis
 
@@ -1015,9 +1087,8 @@ def close_visualizer(vis: Any) -> None:
     sock = getattr(window, "zmq_socket", None)
     if sock is not None:
         sock.close(linger=0)
-    if proc is not None and proc.poll() is None:
-        proc.kill()
-        proc.wait(timeout=10)
+    if proc is not None:
+        _stop_server(proc)
 
 
 # ----------------------------------------------------------------------------------------------
