@@ -7,26 +7,16 @@ the replay's caption show when.  Copy this file and edit the faults (the kinds
 are listed in the README, "Faults").
 """
 
-from sim import CuffSlip, JointIntent, Scenario, SensorBiasDrift, SensorDropout, Via, WearerJerk, deg
+import dataclasses
 
-# joints: gh flexion, gh abduction, gh rotation, elbow flexion, pronation, wrist flexion, wrist deviation
-HAND_BESIDE_LAP = deg(15, 10, 0, 80, 0, 0, 0)
-CUP_ON_SHELF = deg(85, 5, 0, 15, 20, 0, 0)
+from reach import SCENARIO as REACH  # a scenario file imports its neighbours in the folder
 
-SCENARIO = Scenario(
+from sim import CuffSlip, SensorBiasDrift, SensorDropout, WearerJerk
+
+SCENARIO = dataclasses.replace(
+    REACH,
     name="sensor_faults",
     description="the seated reach with a stuck hand sensor, a bias drift, a slipping cuff and a jerk",
-    subject="m50",
-    intent=JointIntent(
-        start_rad=HAND_BESIDE_LAP,
-        start_hold_s=0.3,
-        vias=(
-            Via(CUP_ON_SHELF, move_s=1.0, hold_s=0.4),
-            Via(HAND_BESIDE_LAP, move_s=1.0, hold_s=0.4),
-        ),
-    ),
-    duration_s=3.1,
-    controllers=("gravity", "zero", "transparent", "walls"),
     faults=(
         SensorDropout(name="hand sensor sticks", cuff="hand", mode="stuck", start_s=0.8, end_s=1.1),
         SensorBiasDrift(name="forearm sensor drifts", cuff="forearm", rate_N_per_s=(4.0, 0.0, 0.0),
