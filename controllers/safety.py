@@ -300,8 +300,7 @@ class SafetyMonitor:
         return out
 
     def _worst_joint(self, reason: str, values: np.ndarray, limits: np.ndarray) -> tuple[str, str, float, float]:
-        ratio = np.where(np.isfinite(values), values / limits, np.inf)
-        i = int(np.argmax(ratio))
+        i = int(np.argmax(values / limits))  # an infinite ratio ranks high, a NaN first (numpy.argmax's rule)
         return reason, self._joint_names[i], float(values[i]) if np.isfinite(values[i]) else math.inf, float(limits[i])
 
     def check(self, m: Measurement, tau_cmd: np.ndarray, diag: Mapping[str, float]) -> bool:
@@ -387,11 +386,14 @@ class Supervised(Controller):
         self._joints = list(context.arm.joint_names)
         self._diag = {**dict.fromkeys(self._inner_names, math.nan), **self._safety_diag()}
 
-    def _safety_diag(self) -> dict[str, float]:
+    #: The monitor's diagnostics while nothing is tripped (the same values every tick).
+    _IDLE = MappingProxyType({"safety_tripped": 0.0, "safety_reason": 0.0, "safety_value": 0.0, "safety_limit": 0.0,
+                              "safety_where": -1.0})
+
+    def _safety_diag(self) -> Mapping[str, float]:
         mon = self.monitor
         if not mon.tripped:
-            return {"safety_tripped": 0.0, "safety_reason": 0.0, "safety_value": 0.0,
-                    "safety_limit": 0.0, "safety_where": -1.0}
+            return self._IDLE
         trip = mon.trips[-1]
         names = self._cuffs if trip.reason == "cuff_force" else self._joints
         where = float(names.index(trip.where)) if trip.where in names else -1.0
@@ -403,8 +405,7 @@ class Supervised(Controller):
         inner_diag = self.inner.diagnostics()
         tripped = self.monitor.check(measurement, tau, inner_diag)
         d = self._diag
-        for k in self._inner_names:
-            d[k] = inner_diag.get(k, math.nan)
+        d.update(inner_diag)  # one float per name of the inner's diagnostic_names (Controller.diagnostics)
         d.update(self._safety_diag())
         return self.monitor.safe_torque(measurement) if tripped else tau
 
