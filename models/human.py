@@ -90,6 +90,7 @@ __all__ = [
     "hand_position_m",
     "HUMAN_ARM_JOINTS",
     "HUMAN_GIRDLE_JOINTS",
+    "HUMAN_ARM_LIMITS_RAD",
     "human_description",
     "human_urdf",
     "build_human",
@@ -256,6 +257,9 @@ HAND_FRAME = "human_hand_point"
 
 #: AAOS (1965) normal active ROM, Norkin & White Table A.1 [deg]; adduction from memory.
 _ROM_DEG = ((-60, 180), (-45, 180), (-90, 70), (0, 150), (-80, 80), (-70, 80), (-30, 20))
+#: The same ranges [rad], (lower, upper) per joint of :data:`HUMAN_ARM_JOINTS` (the model's own joint limits).
+HUMAN_ARM_LIMITS_RAD: tuple[tuple[float, float], ...] = tuple((math.radians(lo), math.radians(hi))
+                                                             for lo, hi in _ROM_DEG)
 #: Clavicle ranges [deg], from memory: elevation up to about 45, protraction/retraction about 30.
 _GIRDLE_ROM_DEG = ((-10, 45), (-30, 30))
 #: Peak voluntary joint torques of an adult [N m], from memory (order of magnitude only).

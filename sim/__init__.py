@@ -5,7 +5,9 @@ tick by tick, in memory: notebooks and scripts), :func:`sim.run_scenario`
 (a run folder with its baseline, metrics and report), :func:`sim.loop.simulate`
 and :func:`sim.load_run`. Scenario files import :class:`sim.Scenario`,
 :class:`sim.JointIntent`, :class:`sim.Via`, :func:`sim.deg`, :class:`sim.SafetyParams` (the safety
-monitor's settings) and the faults of :mod:`sim.physics.faults` (:class:`sim.SensorDropout`, ...) from here.
+monitor's settings), the faults of :mod:`sim.physics.faults` (:class:`sim.SensorDropout`, ...) and the
+wearer's impairment of :mod:`sim.physics.impairment` (:class:`sim.Impairment`, :class:`sim.Weakness`,
+:class:`sim.Spasticity`, :class:`sim.Contracture`, :class:`sim.Tremor`) from here.
 """
 
 from controllers.safety import SafetyParams
@@ -30,10 +32,11 @@ from sim.physics.faults import (
                                 WearerJerk,
                                 random_faults,
 )
+from sim.physics.impairment import Contracture, Impairment, Spasticity, Tremor, Weakness
 from sim.physics.intent import JointIntent, Via
 
 __all__ = ["JointIntent", "Via", "Run", "RunLog", "load_run", "Scenario", "ScenarioError", "deg", "load_scenario",
            "RunResult", "SimulationError", "run_scenario", "simulate", "Simulation", "Trajectory",
            "Fault", "SensorDropout", "SensorBiasStep", "SensorBiasDrift", "SensorNoiseBurst", "EncoderGlitch",
            "StuckEncoder", "SensorDelay", "ControlDelay", "TorqueLoss", "StuckDrive", "CuffSlip", "WearerJerk",
-           "random_faults", "SafetyParams"]
+           "random_faults", "SafetyParams", "Impairment", "Weakness", "Spasticity", "Contracture", "Tremor"]

@@ -13,6 +13,9 @@ References
 .. [ColgateSchenkel1997] J. E. Colgate, G. G. Schenkel, "Passivity of a class
    of sampled-data systems: application to haptic interfaces", *Journal of
    Robotic Systems* 14(1):37-47, 1997.
+.. [FlashHogan1985] T. Flash, N. Hogan, "The coordination of arm movements: an
+   experimentally confirmed mathematical model", *Journal of Neuroscience*
+   5(7):1688-1703, 1985.
 .. [ISO15066] ISO/TS 15066:2016 (first edition, 2016-02-15), International
    Organization for Standardization, Annex A, quasi-static force limits per
    body region (hand and fingers 140 N confirmed; upper arm and elbow 150 N,
@@ -70,6 +73,11 @@ __all__ = [
     "safety_metrics",
     "solver_metrics",
     "run_metrics",
+    "TARGET_TOLERANCE_M",
+    "intended_reach",
+    "movement_completion",
+    "time_to_target_s",
+    "completion_metrics",
     "MetricInfo",
     "METRICS",
     "TIMING_KEYS",
@@ -918,6 +926,72 @@ def solver_metrics(timing: Mapping[str, np.ndarray], fallback: np.ndarray | None
             "hqp_backend_tick_count": n_qp, "hqp_levels": levels}
 
 
+# -- completion of the intended movement --------------------------------------------------------
+#: The hand is at the target within this distance [m] (2 cm, common practice for reaching tasks).
+TARGET_TOLERANCE_M = 0.02
+#: An intended hand displacement shorter than this [m] is no movement: the completion keys are then None.
+MIN_INTENDED_DISPLACEMENT_M = 1e-3
+
+
+def intended_reach(p_hand_intent: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
+    """The start, the target and the start tick of an intended hand path (N, 3) [m].
+
+    The start is the intended hand position at the first tick, the target the
+    intended position farthest from it, the start tick the last tick before
+    the intended hand first moves (the end of the initial hold).
+    """
+    p = np.asarray(p_hand_intent, dtype=float)
+    start = p[0]
+    d = np.linalg.norm(p - start, axis=1)
+    moved = np.flatnonzero(d > 0.0)
+    k0 = max(int(moved[0]) - 1, 0) if len(moved) else 0
+    return start, p[int(np.argmax(d))], k0
+
+
+def movement_completion(p_hand: np.ndarray, start: np.ndarray, target: np.ndarray) -> float | None:
+    r"""Share of the intended hand displacement reached.
+
+    .. math::
+        c = \mathrm{clip}\Big(\max_k \frac{(p_k - p_s) \cdot (p_t - p_s)}{\lVert p_t - p_s \rVert^2},
+        0, 1\Big)
+
+    the hand's greatest progress along start -> target over the distance (None when
+    :math:`\lVert p_t - p_s \rVert` < :data:`MIN_INTENDED_DISPLACEMENT_M`: no intended movement).
+    """
+    p, s, g = (np.asarray(x, dtype=float) for x in (p_hand, start, target))
+    D = g - s
+    L2 = float(D @ D)
+    if len(p) == 0 or L2 < MIN_INTENDED_DISPLACEMENT_M ** 2:
+        return None
+    return float(np.clip(np.max((p - s) @ D) / L2, 0.0, 1.0))
+
+
+def time_to_target_s(t_s: np.ndarray, p_hand: np.ndarray, target: np.ndarray, t_start_s: float,
+                     tolerance_m: float = TARGET_TOLERANCE_M) -> float | None:
+    r"""Time from ``t_start_s`` (the start of the intended move) to the first tick at or after it with the hand
+    within ``tolerance_m`` of ``target`` [s]; None if never.
+
+    For a hand on a minimum-jerk path of distance L and duration T [FlashHogan1985]_, it is
+    :math:`\tau^* T` with :math:`x(\tau^*) = 10\tau^{*3} - 15\tau^{*4} + 6\tau^{*5} = 1 - \mathrm{tol}/L`,
+    to one tick.
+    """
+    t, p = np.asarray(t_s, dtype=float), np.asarray(p_hand, dtype=float)
+    inside = (np.linalg.norm(p - np.asarray(target, dtype=float), axis=1) <= tolerance_m) & (t >= t_start_s)
+    k = np.flatnonzero(inside)
+    return float(t[k[0]] - t_start_s) if len(k) else None
+
+
+def completion_metrics(t_s: np.ndarray, p_hand: np.ndarray, p_hand_intent: np.ndarray) -> dict:
+    """``movement_completion`` and ``time_to_target_s`` of a run: the wearer's hand (N, 3) against the intended
+    hand path (N, 3) [m] (the forward kinematics of the logged intent); both None without an intended movement."""
+    if len(t_s) == 0:
+        return {"movement_completion": None, "time_to_target_s": None}
+    start, target, k0 = intended_reach(p_hand_intent)
+    c = movement_completion(p_hand, start, target)
+    return {"movement_completion": c,
+            "time_to_target_s": None if c is None else time_to_target_s(t_s, p_hand, target, float(t_s[k0]))}
+
+
 # -- one run ------------------------------------------------------------------------------------
 def run_metrics(
     arrays: Mapping[str, np.ndarray],
@@ -1090,6 +1164,8 @@ METRICS: Mapping[str, MetricInfo] = MappingProxyType({
     "realtime_factor": MetricInfo("-", "higher", "realtime factor", True),
     "sim_duration_s": MetricInfo("s", None, "simulated time"),
     "fault_count": MetricInfo("-", None, "faults of the scenario"),
+    "movement_completion": MetricInfo("-", "one", "share of the intended hand displacement reached", True),
+    "time_to_target_s": MetricInfo("s", "lower", "time to the target within 2 cm"),
 })
 
 #: Keys that measure this machine's wall clock: they differ between executors and runs; every other key is a

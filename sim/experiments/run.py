@@ -20,6 +20,7 @@ from collections.abc import Hashable
 from pathlib import Path
 
 import numpy as np
+import pinocchio as pin
 
 from controllers.registry import build_levels, make_controller
 from controllers.tasks import WallLaw, WallTask
@@ -27,6 +28,7 @@ from models.arm import load_arm
 from sim.analysis.derived import cuff_columns
 from sim.analysis.metrics import (
     BODY_REGION_FORCE_LIMITS_N,
+    completion_metrics,
     hand_cuff_index,
     plane_penetration_m,
     robot_interaction_terms,
@@ -43,7 +45,7 @@ from sim.output.report import write_run_report
 from sim.physics.plant import PlantParams
 
 __all__ = ["Batch", "WARM_UP_TICKS", "run_scenario", "warm_up", "reusable_baseline", "evaluate_run",
-           "renders_walls", "run_warnings", "FALLBACK_WARN_FRACTION"]
+           "renders_walls", "run_warnings", "FALLBACK_WARN_FRACTION", "intended_hand_m"]
 
 #: A run warns when more than this share of its ticks fell back (1 %, common practice: an occasional failed
 #: solve is survivable, a controller that fails often is not the controller that was designed).
@@ -398,9 +400,27 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     faults = meta.get("faults") or []
     metrics["fault_count"] = len(faults)
     metrics["faults"] = [{k: f[k] for k in ("name", "kind", "start_s", "end_s")} for f in faults]
+    # the intended movement's completion: the wearer's hand against the forward kinematics of the logged intent
+    metrics |= completion_metrics(arrays["t"], arrays["p_hand_human"], intended_hand_m(out, meta, arrays))
     if base_note is not None:
         metrics["partial"] = {"baseline": base_note}
     return metrics
+
+
+def intended_hand_m(folder: Path, meta: dict, arrays) -> np.ndarray:
+    """The intended hand path (N, 3) [m] of a run: the forward kinematics of ``q_human_intent`` on the run's own
+    human model (``human.urdf``), the same hand point as ``p_hand_human``."""
+    models_meta = meta["models"]
+    human = load_arm((folder / models_meta["human_urdf"]).read_text(encoding="utf-8"),
+                     hand_frame=models_meta["human_hand_frame"], source=str(folder / "human.urdf"))
+    model, data = human.model, human.model.createData()
+    fid = human.frame_id(human.hand_frame)
+    q = np.asarray(arrays["q_human_intent"], dtype=float)
+    out = np.empty((len(q), 3))
+    for k in range(len(q)):
+        pin.framesForwardKinematics(model, data, q[k])
+        out[k] = data.oMf[fid].translation
+    return out
 
 
 def run_warnings(metrics: dict) -> list[str]:

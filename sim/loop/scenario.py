@@ -38,6 +38,7 @@ from models.exo import ExoParams
 from models.human import HumanParams
 from sim.physics.actuators import ActuatorParams
 from sim.physics.faults import Fault, check_faults
+from sim.physics.impairment import Impairment
 from sim.physics.intent import JointIntent
 from sim.physics.plant import PlantParams
 from sim.physics.sensors import EncoderParams, ForceSensorParams
@@ -101,6 +102,9 @@ class Scenario:
     #: The safety monitor of the run's controller (:class:`controllers.safety.SafetyParams`; its force limits
     #: are its own, ``force_limits_N`` above only sets the metrics' reference lines); None: no monitor.
     safety: SafetyParams | None = field(default_factory=SafetyParams)
+    #: The wearer's impairment (:mod:`sim.physics.impairment`: weakness, spasticity, contracture, tremor);
+    #: None: a healthy arm.
+    impairment: Impairment | None = None
 
     def __post_init__(self) -> None:
         o = f"Scenario({self.name!r})"
@@ -163,6 +167,10 @@ class Scenario:
         object.__setattr__(self, "faults", faults)
         if self.safety is not None and not isinstance(self.safety, SafetyParams):
             raise ParameterError(f"{o}.safety must be SafetyParams(...) or None, got {self.safety!r}")
+        if self.impairment is not None:
+            if not isinstance(self.impairment, Impairment):
+                raise ParameterError(f"{o}.impairment must be Impairment(...) or None, got {self.impairment!r}")
+            self.impairment.check_period(o, self.control_period_s)
 
     @property
     def human(self) -> HumanParams:

@@ -120,8 +120,12 @@ def jsonable(obj):
 
 
 def log_columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple[str, ...], *,
-                n_faults: int = 0) -> dict:
+                n_faults: int = 0, impairment: bool = False) -> dict:
     """The logged columns of a run (name -> per-tick shape, or (shape, dtype)), in the order of a row.
+
+    With an impaired wearer (``impairment``), ``tau_human_impairment`` (nq_h,) [N m] follows ``p_hand_human``:
+    the involuntary part of ``tau_human`` (spasticity + contracture + tremor, :mod:`sim.physics.impairment`);
+    a run without an impairment has no such column.
 
     With faults, the last column ``fault_active`` (n_faults,) bool says which are active at each tick (in
     the order of ``scenario.faults``); a run without faults has no such column.
@@ -130,6 +134,8 @@ def log_columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple
     if mode != "exo_alone":
         cols |= {"q_human": (nq_h,), "dq_human": (nq_h,), "tau_human": (nq_h,), "q_human_intent": (nq_h,),
                  "p_hand_human": (3,)}
+        if impairment:
+            cols["tau_human_impairment"] = (nq_h,)
     if mode != "human_alone":
         cols |= {
             "q_exo": (nq_e,), "dq_exo": (nq_e,), "q_exo_meas": (nq_e,), "dq_exo_meas": (nq_e,),
@@ -345,7 +351,8 @@ class Simulation:
             self._actuators.reset(np.zeros(asm.exo.nv))
         else:
             diag_names = timing_diag = ()
-        self._human = (HumanMotor(plant.human, scenario.human, scenario.intent, scenario.motor)
+        self._human = (HumanMotor(plant.human, scenario.human, scenario.intent, scenario.motor,
+                                  impairment=scenario.impairment, period_s=T, seed=self.seed)
                        if plant.has_human else None)
         self._controller, self._controller_name, self._asm, self._plant = controller, name, asm, plant
         self._diag_names = diag_names
@@ -371,7 +378,8 @@ class Simulation:
             "environment": environment_metadata(),
         })
         self._columns = log_columns(mode, asm.exo.nq, asm.human.nq, len(asm.cuffs), diag_names,
-                                    n_faults=len(scenario.faults))
+                                    n_faults=len(scenario.faults),
+                                    impairment=scenario.impairment is not None)
         self._urdfs = {"exo.urdf": plant.exo.urdf, "human.urdf": plant.human.urdf}
         self._tick_times, self._controller_times = np.zeros(n), np.zeros(n)
         self._timing = {d: np.zeros(n) for d in timing_diag}
@@ -531,6 +539,7 @@ class Simulation:
         tau_cmd = zero_e
         command_shape = (asm.exo.nv,)
         has_controller, has_human, coupled = controller is not None, human is not None, mode == "coupled"
+        impaired = has_human and scenario.impairment is not None
         exo_torque = actuators if has_controller else zero_e  # the actuators' lag runs alongside the plant
         has_cuffs = bool(plant.cuffs)
         faults = self._faults  # None without faults: the ticks below then do exactly what they did before
@@ -595,6 +604,8 @@ class Simulation:
                         series[k] = float(diag.get(d, nan))
                 if has_human:
                     row["p_hand_human"] = plant.hand_position("human")
+                    if impaired:
+                        row["tau_human_impairment"] = human.last_impairment_torque
                 if has_controller:
                     row["p_hand_exo"] = plant.hand_position("exo")
                 if coupled:

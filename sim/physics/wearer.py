@@ -11,6 +11,9 @@ the intent,
 
 saturated at the arm's peak joint torques (the sum and the saturation are one
 compiled call, :func:`_impedance_torque`).  It does not anticipate the robot.
+An impaired wearer (:mod:`sim.physics.impairment`) saturates at the capacity
+its weakness leaves, and adds the involuntary torque (spasticity,
+contracture, tremor) after the saturation.
 Impedance magnitudes: shoulder and elbow from the standard two-link arm model
 of Shadmehr & Mussa-Ivaldi (1994), diagonal terms of K = [[15, 6], [6, 16]]
 N m/rad and B = [[2.3, 0.9], [0.9, 2.4]] N m s/rad [ShadmehrMussaIvaldi1994]_
@@ -35,6 +38,7 @@ from models.arm import ArmModel
 from models.checks import vector
 from models.errors import ParameterError
 from models.human import HumanParams, girdle_posture
+from sim.physics.impairment import Impairment, ImpairmentTorque
 from sim.physics.intent import JointIntent
 
 __all__ = ["HumanMotorParams", "HumanMotor"]
@@ -96,13 +100,21 @@ class HumanMotor:
         Intended motion of the 7 arm joints [rad].
     motor : HumanMotorParams
         Impedance and internal-model switches.
+    impairment : Impairment, optional
+        The wearer's impairment (None: a healthy arm, the arithmetic of before).
+    period_s : float
+        Control period [s]: with an impairment, :meth:`torque` is called once per period (the reflex delay's
+        history of joint speeds).
+    seed : int
+        The run's seed (a tremor's phase when not fixed).
     """
 
     #: Step of the central difference that gives girdle velocities and accelerations [s].
     _FD_STEP_S = 1e-4
 
     def __init__(self, arm: ArmModel, params: HumanParams, intent: JointIntent,
-                 motor: HumanMotorParams | None = None) -> None:
+                 motor: HumanMotorParams | None = None, *, impairment: Impairment | None = None,
+                 period_s: float = 1e-3, seed: int = 0) -> None:
         self.arm, self.params, self.intent = arm, params, intent
         self.motor = HumanMotorParams() if motor is None else motor
         if len(intent.start_rad) != 7:
@@ -117,6 +129,13 @@ class HumanMotor:
         self._nv = int(arm.model.nv)
         #: Intended posture used by the last :meth:`torque` call [rad].
         self.last_desired_q = np.zeros(arm.nq)
+        #: The involuntary part of the last :meth:`torque` call (nv,) [N m] (zeros without an impairment).
+        self.last_impairment_torque = np.zeros(self._nv)
+        self.impairment = impairment
+        self._impaired = None
+        if impairment is not None:
+            self._impaired = ImpairmentTorque(impairment, arm.joint_names, period_s, seed)
+            self._limit = self._limit * self._impaired.capacity_scale
 
     def desired(self, t_s: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Intended (q, dq, ddq) of every joint of the model at ``t_s``."""
@@ -142,4 +161,7 @@ class HumanMotor:
         tau = np.empty(self._nv)
         _impedance_torque(ff, self.K, pin.difference(model, q, qd), self.B, dqd, np.asarray(v, dtype=float),
                           self._limit, tau)
+        if self._impaired is not None:
+            self.last_impairment_torque = self._impaired.torque(t_s, q, v)
+            tau += self.last_impairment_torque
         return tau
