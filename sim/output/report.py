@@ -29,6 +29,7 @@ import numpy as np
 from sim.analysis.levels import level_activity
 from sim.analysis.metrics import (
     METRICS,
+    TARGET_TOLERANCE_M,
     flat_metrics,
     is_timing_key,
 )
@@ -40,7 +41,7 @@ from sim.output.figures import compare_figures, run_figures
 __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
            "write_run_report", "compare_runs", "write_sweep_report", "write_sweeps_report", "sweep_verdicts",
            "has_wall", "transparency_key", "fmt", "fmt_stat", "renders_wall", "is_applicable", "TIMING_NOTE",
-           "controller_section", "variant_differences", "faults_section", "safety_section"]
+           "controller_section", "variant_differences", "faults_section", "safety_section", "wearer_section"]
 
 #: Printed in every report.
 CAUTION = (
@@ -480,6 +481,41 @@ def faults_section(meta: Mapping) -> list[str]:
             markdown_table(["fault", "kind", "start [s]", "end [s]", "parameters"], rows), ""]
 
 
+def wearer_section(meta: Mapping, metrics: Mapping, arrays: Mapping[str, np.ndarray] | None = None) -> list[str]:
+    """The "Wearer" section of a run report (Markdown lines): the wearer's impairment with its parameters as
+    ``meta.json`` records it (``parameters.impairment``, :mod:`sim.physics.impairment`), the completion metrics,
+    the largest involuntary torque per joint (``tau_human_impairment``), and a warning line when the movement
+    was not completed; nothing for a wearer without an impairment."""
+    impairment = ((meta or {}).get("parameters") or {}).get("impairment")
+    if not impairment:
+        return []
+    parts = [[name, _params_text(p)] for name, p in impairment.items() if p is not None]
+    text = ["## Wearer", "",
+            "The wearer is impaired (grades and their values are illustrative, not clinical):", "",
+            markdown_table(["part", "parameters"], parts or [["none", ""]]), ""]
+    c, t = metrics.get("movement_completion"), metrics.get("time_to_target_s")
+    if c is None:
+        text.append("The intent holds no hand movement: `movement_completion` and `time_to_target_s` are n/a.")
+    else:
+        tol = f"{fmt(TARGET_TOLERANCE_M)} m"
+        reached = (f"reached the target within {tol} {fmt(t)} s after the start of the move" if t is not None
+                   else f"never came within {tol} of the target")
+        text.append(f"The hand covered {fmt(100 * c)} % of the intended displacement (`movement_completion`) and "
+                    f"{reached} (`time_to_target_s`).")
+        if t is None:
+            text += ["", f"**Warning: the movement was not completed.** The wearer's hand reached "
+                     f"{fmt(100 * c)} % of the way to the target."]
+    inv = None if arrays is None else arrays.get("tau_human_impairment")
+    if inv is not None and len(inv):
+        peak = np.max(np.abs(np.asarray(inv)), axis=0)
+        names = list((meta or {}).get("human_joints") or [str(i) for i in range(len(peak))])
+        rows = [[names[j], fmt(float(peak[j]))] for j in range(len(peak)) if peak[j] > 0]
+        if rows:
+            text += ["", "Largest involuntary torque (spasticity + contracture + tremor, the log's "
+                     "`tau_human_impairment`):", "", markdown_table(["joint", "peak [N m]"], rows)]
+    return text + [""]
+
+
 def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run: Run | None = None,
                      figures: bool = True) -> Path:
     """``report.md`` and ``plots/*.png`` of one coupled run folder: the controller, the metrics, the figures
@@ -511,6 +547,7 @@ def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run:
     text += [f"![{p.stem}](plots/{p.name})" for p in timeline] + ([""] if timeline else [])
     text += safety_section(meta, m)
     text += faults_section(meta)
+    text += wearer_section(meta, m, run.arrays)
     text += ["## Metrics", "", markdown_table(["key", "unit", "value", "meaning"], rows), ""]
     text += [f"- {n}" for n in notes] + ([""] if notes else []) + [TIMING_NOTE, "", "## Plots", ""]
     text += [f"![{p.stem}](plots/{p.name})" for p in figs]
