@@ -355,6 +355,7 @@ class ImpairmentTorque:
     """
 
     def __init__(self, impairment: Impairment, joint_names: Sequence[str], period_s: float, seed: int = 0) -> None:
+        impairment.check_period("ImpairmentTorque", period_s)
         self.impairment = impairment
         names = list(joint_names)
         nv = len(names)
