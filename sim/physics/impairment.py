@@ -133,8 +133,8 @@ class Weakness:
     Grades (illustrative, not clinical): mild 0.6, moderate 0.15, severe 0.1 of the healthy capacity on every
     arm joint.  The moderate value is chosen so that the wearer cannot lift their own arm to the shelf of the
     shipped reach (``scenarios/reach.py``) when the robot carries only itself (``transparent``, ``gravity``): the
-    shoulder's 0.15 x 60 N m = 9 N m is below the about 11 N m that the outstretched arm of the m50 subject
-    weighs at shoulder height.
+    shoulder's 0.15 x 60 N m = 9 N m is below the 12.2 N m that the arm of the m50 subject weighs at the
+    shelf posture (pinocchio's generalized gravity of the human model).
     """
 
     scale: float | Mapping[str, float] = 1.0
