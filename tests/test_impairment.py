@@ -27,7 +27,7 @@ from scipy.signal import periodogram
 
 import models
 from models.errors import ParameterError
-from models.human import HUMAN_ARM_JOINTS, HUMAN_ARM_LIMITS_RAD
+from models.human import HUMAN_ARM_JOINTS, HUMAN_ARM_LIMITS_RAD, HumanParams
 from sim import (
     Contracture,
     Impairment,
@@ -149,7 +149,7 @@ def test_contracture_is_zero_inside_the_range_and_a_linear_spring_beyond_it():
 
 
 def test_contracture_grade_keeps_a_share_of_the_model_range_about_its_middle():
-    lower, upper = models.build_human("m50").position_limits()  # the model's own limits (AAOS, Norkin & White)
+    lower, upper = models.build_human(HumanParams("m50")).position_limits()  # AAOS ranges (Norkin & White)
     np.testing.assert_allclose(np.array(HUMAN_ARM_LIMITS_RAD), np.c_[lower, upper], rtol=0, atol=1e-12)
     lo, hi = HUMAN_ARM_LIMITS_RAD[J_ELBOW]
     for grade, kept in zip(("mild", "moderate", "severe"), Contracture.GRADE_RANGE_KEPT):
