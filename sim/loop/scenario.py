@@ -31,6 +31,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from controllers.safety import SafetyParams
+from controllers.tasks.paths import HandPath
 from models.checks import positive
 from models.coupling import DEFAULT_CUFFS, CuffSpec, Registration
 from models.errors import ParameterError, SandboxError
@@ -101,6 +102,10 @@ class Scenario:
     #: The safety monitor of the run's controller (:class:`controllers.safety.SafetyParams`; its force limits
     #: are its own, ``force_limits_N`` above only sets the metrics' reference lines); None: no monitor.
     safety: SafetyParams | None = field(default_factory=SafetyParams)
+    #: The exercise's reference hand path as a therapist sets it (:class:`controllers.tasks.HandPath`, world frame
+    #: [m], time from the start of the run), followed by the ``assist`` and ``tunnel`` variants and measured by
+    #: ``path_error_rms_m``; never derived from the wearer's intent.  None: no reference path.
+    reference_path: HandPath | None = None
 
     def __post_init__(self) -> None:
         o = f"Scenario({self.name!r})"
@@ -163,6 +168,9 @@ class Scenario:
         object.__setattr__(self, "faults", faults)
         if self.safety is not None and not isinstance(self.safety, SafetyParams):
             raise ParameterError(f"{o}.safety must be SafetyParams(...) or None, got {self.safety!r}")
+        if self.reference_path is not None and not isinstance(self.reference_path, HandPath):
+            raise ParameterError(f"{o}.reference_path must be a HandPath or None, got "
+                                 f"{type(self.reference_path).__name__}")
 
     @property
     def human(self) -> HumanParams:
