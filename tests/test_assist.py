@@ -354,3 +354,14 @@ def test_wearer_cuff_twists_match_the_numerical_derivative_of_the_cuff_frames(tm
         scale = np.abs(v_local[sel]).max()
         assert scale > 0.05  # the arm moves
         assert np.abs(V[sel, c, :3] - v_local[sel]).max() < 0.02 * scale
+
+
+@pytest.mark.parametrize("subject", ("f5", "m50", "m95"))
+@pytest.mark.parametrize("variant", tuple(PATH_VARIANTS))
+def test_short_guided_run_is_finite_without_fallbacks(tmp_path, variant, subject):
+    sc = dataclasses.replace(load_scenario(SCENARIO_FILE, subject=subject), duration_s=0.15)
+    simulate(sc, variant, tmp_path / "run")
+    run = load_run(tmp_path / "run")
+    assert len(run["t"]) == sc.n_ticks and np.count_nonzero(run["diag_fallback"]) == 0
+    for col in ("q_human", "q_exo", "tau_cmd", "cuff_wrench_human"):
+        assert np.all(np.isfinite(run[col])), col
