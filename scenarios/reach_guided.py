@@ -2,10 +2,11 @@
 
 The therapist's reference path (``reference_path``) takes the hand from beside the lap to the cup on the
 shelf of ``reach.py`` and back, with the same timing; the wearer, healthy, intends only half of the reach
-(half of every joint's excursion).  Under ``transparent`` the hand stops short; ``assist`` stiffens a
-spring toward the path as long as the hand lags behind it (assist-as-needed); ``tunnel`` holds the hand
-within 3 cm of the path point of the time.  The path is built from the wearer's own hand positions at the
-two postures (``for_subject``), so it starts where each wearer's hand is.  Copy this file and edit it.
+(half of every joint's excursion).  Under ``transparent`` the hand stops short, about 17 cm from the cup;
+``assist`` stiffens a spring toward the path as long as the hand lags behind it (assist-as-needed);
+``tunnel`` leaves the hand free within 3 cm of the path point of the time and pushes it back beyond (the
+wearer, who resists, then stays about 2 cm outside).  The path is built from the wearer's own hand positions
+at the two postures (``for_subject``), so it starts where each wearer's hand is.  Copy this file and edit it.
 """
 
 import dataclasses

@@ -32,7 +32,7 @@ from models.errors import ParameterError
 from models.human import hand_position_m
 from models.records import Measurement
 from sim import load_run, simulate
-from sim.analysis.derived import human_cuff_twists
+from sim.analysis.derived import cuff_columns, human_cuff_twists
 from sim.analysis.metrics import (
     METRICS,
     assistance_metrics,
@@ -365,3 +365,37 @@ def test_short_guided_run_is_finite_without_fallbacks(tmp_path, variant, subject
     assert len(run["t"]) == sc.n_ticks and np.count_nonzero(run["diag_fallback"]) == 0
     for col in ("q_human", "q_exo", "tau_cmd", "cuff_wrench_human"):
         assert np.all(np.isfinite(run[col])), col
+
+
+# -- the guided reach: a healthy wearer who means to stop half way ----------------------------------
+def test_guided_reach_assist_pulls_the_hand_along_and_the_tunnel_wall_obeys_hookes_law(tmp_path):
+    sc = load_scenario(SCENARIO_FILE)
+    out = {}
+    for variant in ("transparent", "assist", "tunnel"):
+        simulate(sc, variant, tmp_path / variant)
+        run = load_run(tmp_path / variant)
+        arrays = run.arrays | cuff_columns(run)
+        assert np.count_nonzero(arrays["diag_fallback"]) == 0
+        out[variant] = (run, arrays, path_error_rms_m(arrays["p_hand_human"], arrays["t"], sc.reference_path))
+    t = out["transparent"][1]["t"]
+    hold = (t > 1.5) & (t < 1.69)  # the end of the hold at the cup (1.3 to 1.7 s): quasi-static
+    ref, _, _ = sc.reference_path.sample(t)
+    # without guidance the hand stops well short of the cup (the wearer intends half the reach)
+    gap = np.linalg.norm(out["transparent"][1]["p_hand_human"] - ref, axis=1)
+    assert gap[hold].min() > 0.1
+    # assist-as-needed: the stiffness grows while the hand lags, and the error is less than half
+    K = out["assist"][1]["diag_assist_as_needed_stiffness_N_per_m"]
+    assert K[0] == 0.0 and K[hold].mean() > 200.0
+    assert out["assist"][2] < 0.5 * out["transparent"][2]
+    # the tunnel: at rest outside the tube, the hand cuff's force on the wearer toward the path point is the
+    # wall's spring, K delta (Hooke's law; within 5 %, common practice for a quasi-static reading)
+    run, arrays, err = out["tunnel"]
+    assert err < 0.5 * out["transparent"][2]
+    d = arrays["p_hand_exo"] - ref
+    dist = np.linalg.norm(d, axis=1)
+    n = d / dist[:, None]
+    f = arrays["cuff_force_human_world"][:, run.meta["cuffs"].index("hand")]
+    felt = -np.einsum("ki,ki->k", n, f)
+    delta = dist - 0.03
+    assert delta[hold].min() > 0.005  # pressed against the wall
+    assert felt[hold].mean() == pytest.approx(400.0 * delta[hold].mean(), rel=0.05)
