@@ -399,3 +399,12 @@ def test_guided_reach_assist_pulls_the_hand_along_and_the_tunnel_wall_obeys_hook
     delta = dist - 0.03
     assert delta[hold].min() > 0.005  # pressed against the wall
     assert felt[hold].mean() == pytest.approx(400.0 * delta[hold].mean(), rel=0.05)
+
+
+def test_the_catalog_lists_the_path_variants_with_their_levels():
+    from sim.catalog import catalog
+
+    entries = {v.name: v.levels for v in catalog().path_variants}
+    assert entries == {
+        "assist": (("joint_limits", "velocity_limits"), ("assist_as_needed",), ("transparency",), ("damping",)),
+        "tunnel": (("joint_limits", "velocity_limits"), ("guidance_tunnel",), ("transparency",), ("damping",))}
