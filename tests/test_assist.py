@@ -408,3 +408,19 @@ def test_the_catalog_lists_the_path_variants_with_their_levels():
     assert entries == {
         "assist": (("joint_limits", "velocity_limits"), ("assist_as_needed",), ("transparency",), ("damping",)),
         "tunnel": (("joint_limits", "velocity_limits"), ("guidance_tunnel",), ("transparency",), ("damping",))}
+
+
+def test_the_assistance_section_shows_only_for_a_run_with_a_path_or_a_path_task():
+    from sim.output.report import assistance_section
+
+    metrics = {"assistance_work_J": 1.5, "assistance_share": 0.25, "path_error_rms_m": 0.04,
+               "assist_stiffness_peak_N_per_m": 400.0, "assist_stiffness_final_N_per_m": 300.0}
+    with_path = {"reference_path": PATH.describe(),
+                 "controller_structure": make_controller("assist", path=PATH).structure()}
+    text = "\n".join(assistance_section(with_path, metrics))
+    assert "## Assistance" in text and "5 via points over 2.7 s" in text and "`assist_as_needed`" in text
+    assert "| path_error_rms_m | m | 0.04 |" in text
+    no_task = {"reference_path": PATH.describe(), "controller_structure": make_controller("transparent").structure()}
+    assert "no task that follows the path" in "\n".join(assistance_section(no_task, metrics))
+    assert assistance_section({"reference_path": None,
+                               "controller_structure": make_controller("walls").structure()}, metrics) == []
