@@ -9,6 +9,14 @@ Shipped variants, usable in every scenario:
 * ``walls``: joint position and velocity limits > the scenario's virtual
   walls > transparency > joint damping.
 
+Shipped variants for a scenario with a reference hand path (``Scenario.reference_path``, a
+:class:`controllers.tasks.HandPath`), :data:`PATH_VARIANTS`:
+
+* ``assist``: joint position and velocity limits > assist-as-needed toward the path
+  (:class:`controllers.tasks.AssistAsNeeded`) > transparency > joint damping;
+* ``tunnel``: joint position and velocity limits > a guidance tunnel around the path
+  (:class:`controllers.tasks.GuidanceTunnel`) > transparency > joint damping.
+
 A scenario may declare its own variants as an ordered list of levels, each a
 list of tasks given by name (see :data:`controllers.tasks.TASKS`), by
 ``(name, {parameter: value})`` or as Task objects; a Task object is a
@@ -37,9 +45,19 @@ from .base import Controller
 from .basic import GravityCompensation, ZeroTorque
 from .hqp import HQPController
 from .safety import SafetyParams, Supervised
-from .tasks import TASKS, JointDamping, JointPositionLimits, JointVelocityLimits, Task, Transparency
+from .tasks import (
+    TASKS,
+    AssistAsNeeded,
+    GuidanceTunnel,
+    HandPath,
+    JointDamping,
+    JointPositionLimits,
+    JointVelocityLimits,
+    Task,
+    Transparency,
+)
 
-__all__ = ["CONTROLLERS", "SHIPPED", "UNSUPERVISED", "make_controller", "build_levels"]
+__all__ = ["CONTROLLERS", "SHIPPED", "UNSUPERVISED", "PATH_VARIANTS", "make_controller", "build_levels"]
 
 TaskSpec = str | tuple | Task
 LevelsSpec = Sequence[Sequence[TaskSpec]]
@@ -72,6 +90,24 @@ CONTROLLERS: Mapping[str, Callable[[], Controller]] = MappingProxyType({
 _WITH_WALLS: Mapping[Callable[[], Controller], Callable[[Sequence[TaskSpec]], Controller]] = MappingProxyType(
     {_walls_default: _walls})
 SHIPPED = tuple(CONTROLLERS)
+
+
+def _path_levels(task: Task, name: str) -> Controller:
+    return HQPController([[JointPositionLimits(), JointVelocityLimits()], [task], [Transparency()], [JointDamping()]],
+                         name=name)
+
+
+def _assist(path: HandPath) -> Controller:
+    return _path_levels(AssistAsNeeded(path), "assist")
+
+
+def _tunnel(path: HandPath) -> Controller:
+    return _path_levels(GuidanceTunnel(path), "tunnel")
+
+
+#: Shipped variants that follow the scenario's reference hand path: name -> factory of the path (a HandPath).
+PATH_VARIANTS: Mapping[str, Callable[[HandPath], Controller]] = MappingProxyType({"assist": _assist,
+                                                                                   "tunnel": _tunnel})
 #: Shipped variants never wrapped in the safety monitor (``zero``: the unpowered reference commands nothing).
 UNSUPERVISED = frozenset({"zero"})
 
@@ -108,29 +144,41 @@ def build_levels(spec: LevelsSpec, variant: str = "variant") -> list[list[Task]]
 
 
 def make_controller(name: str, variants: Mapping[str, LevelsSpec] | None = None,
-                    walls: Sequence[TaskSpec] = (), safety: SafetyParams | None = None) -> Controller:
+                    walls: Sequence[TaskSpec] = (), safety: SafetyParams | None = None,
+                    path: HandPath | None = None) -> Controller:
     """A new controller by name: a scenario's own variant first, then the shipped ones.
 
     ``walls`` (task specs, e.g. ``("wall_plane", {...})``) are the scenario's
     virtual walls, used by the ``walls`` variant; each call builds fresh tasks.
+    ``path`` is the scenario's reference hand path (``Scenario.reference_path``), used by the
+    variants of :data:`PATH_VARIANTS`, which cannot be built without it.
     ``safety``: wrap the controller in the safety monitor with these
     parameters (:class:`controllers.safety.Supervised`; not ``zero``, see
     :data:`UNSUPERVISED`); None: unwrapped.
     """
     if safety is not None and not isinstance(safety, SafetyParams):
         raise ParameterError(f"make_controller: safety must be SafetyParams or None, got {type(safety).__name__}")
-    controller = _make(name, variants, walls)
+    if path is not None and not isinstance(path, HandPath):
+        raise ParameterError(f"make_controller: path must be a HandPath or None, got {type(path).__name__}")
+    controller = _make(name, variants, walls, path)
     if safety is None or (name in UNSUPERVISED and not (variants and name in variants)):
         return controller
     return Supervised(controller, safety)
 
 
-def _make(name: str, variants: Mapping[str, LevelsSpec] | None, walls: Sequence[TaskSpec]) -> Controller:
+def _make(name: str, variants: Mapping[str, LevelsSpec] | None, walls: Sequence[TaskSpec],
+          path: HandPath | None) -> Controller:
     if variants and name in variants:
         return HQPController(build_levels(variants[name], name), name=name)
+    with_path = PATH_VARIANTS.get(name)
+    if with_path is not None:
+        if path is None:
+            raise ParameterError(f"variant {name!r} follows the exercise's reference hand path: set "
+                                 f"Scenario.reference_path (a HandPath)")
+        return with_path(path)
     factory = CONTROLLERS.get(name)
     if factory is None:
-        known = list(CONTROLLERS) + [v for v in (variants or {}) if v not in CONTROLLERS]
+        known = list(CONTROLLERS) + list(PATH_VARIANTS) + [v for v in (variants or {}) if v not in CONTROLLERS]
         raise UnknownNameError(f"unknown controller {name!r}; controllers are {', '.join(known)}")
     with_walls = _WITH_WALLS.get(factory)
     return with_walls(walls) if with_walls is not None else factory()

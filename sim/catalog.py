@@ -3,7 +3,7 @@
 :func:`catalog` gathers it as plain frozen records (``exosandbox catalog``
 prints them, as text or JSON through :meth:`Catalog.as_dict`).  Nothing here
 is computed anew: every entry is read from the registry it comes from
-(:data:`controllers.registry.CONTROLLERS`, :data:`controllers.tasks.TASKS`,
+(:data:`controllers.registry.CONTROLLERS` and ``PATH_VARIANTS``, :data:`controllers.tasks.TASKS`,
 :data:`models.human.SUBJECTS`, the models built by :func:`models.build_exo`
 and :func:`models.build_human`), so the list cannot drift from the code.
 """
@@ -19,8 +19,8 @@ from pathlib import Path
 
 import pinocchio as pin
 
-from controllers.registry import CONTROLLERS, build_levels, make_controller
-from controllers.tasks import TASKS, Task
+from controllers.registry import CONTROLLERS, PATH_VARIANTS, build_levels, make_controller
+from controllers.tasks import TASKS, HandPath, Task
 from models import HumanParams, build_exo, build_human
 from models.coupling import DEFAULT_CUFFS
 from models.errors import SandboxError
@@ -121,6 +121,8 @@ class Catalog:
     subjects: tuple[SubjectEntry, ...]
     frames: tuple[ModelFrames, ...]
     cuffs: tuple[CuffEntry, ...]
+    #: The shipped variants that follow a scenario's reference hand path (:data:`controllers.registry.PATH_VARIANTS`).
+    path_variants: tuple[VariantEntry, ...] = ()
 
     def as_dict(self) -> dict:
         """Plain dicts, lists, strings and numbers (JSON-ready)."""
@@ -164,7 +166,9 @@ class _WallsMarker(Task):
 
 
 def _variant(name: str) -> VariantEntry:
-    controller = make_controller(name, walls=(_WallsMarker(),))
+    # a path variant is listed with a one-point path: its levels do not depend on the path
+    path = HandPath(points_m=((0.0, 0.0, 0.0),), times_s=(0.0,)) if name in PATH_VARIANTS else None
+    controller = make_controller(name, walls=(_WallsMarker(),), path=path)
     levels = getattr(controller, "levels", None)
     if levels is None:  # a plain controller, no task hierarchy
         return VariantEntry(name, _summary(type(controller)))
@@ -216,4 +220,5 @@ def catalog(scenarios_folder: str | Path | None = None) -> Catalog:
         subjects=tuple(SubjectEntry(name, s.sex, s.stature_m, s.mass_kg) for name, s in SUBJECTS.items()),
         frames=(_frames("exo", exo), _frames(f"human {FRAMES_SUBJECT}", human)),
         cuffs=tuple(CuffEntry(c.name, c.exo_site, c.human_site) for c in DEFAULT_CUFFS),
+        path_variants=tuple(_variant(name) for name in PATH_VARIANTS),
     )

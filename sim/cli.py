@@ -520,6 +520,10 @@ def _cmd_catalog(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     lines += ["", "controller variants (--controller NAME; levels highest priority first):"]
     width = max(len(v.name) for v in c.variants)
     lines += [f"  {v.name:<{width}}  {levels(v.levels) if v.levels else v.summary}" for v in c.variants]
+    if c.path_variants:
+        lines += ["", "controller variants for a scenario with a reference_path (the path's task at the second level):"]
+        width = max(len(v.name) for v in c.path_variants)
+        lines += [f"  {v.name:<{width}}  {levels(v.levels)}" for v in c.path_variants]
     lines += ["", "tasks (in a scenario's variants: \"name\", (\"name\", {parameter: value}) or a Task object):"]
     for t in c.tasks:
         params, star = [], False

@@ -18,7 +18,7 @@ import pinocchio as pin
 import pytest
 
 import models
-from controllers.tasks import TASKS, TickState, WallTask
+from controllers.tasks import TASKS, HandPath, TickState, WallTask
 from models.records import Measurement
 
 CUFFS = {"upper_arm": "exo_cuff_upper_arm", "forearm": "exo_cuff_forearm", "hand": "exo_cuff_hand"}
@@ -28,13 +28,16 @@ STEP = 1e-6  # finite-difference step [rad]
 
 def _arguments(name, hand):
     """Constructor arguments of each registered task; walls placed so that the hand point is inside them by
-    10 mm (so that they write rows)."""
+    10 mm (so that they write rows), and the path tasks' paths away from the hand (so that they push)."""
     n = np.array([0.6, 0.0, 0.8])
     return {
         "posture": {"posture_rad": (0.1, 0.2, 0.0, 0.8, 0.0, 0.1, 0.0)},
         "wall_plane": {"point_m": hand - 0.01 * n, "normal": n},
         "wall_box": {"lower_m": hand - [0.05, 0.05, 0.05], "upper_m": hand + [0.05, 0.05, -0.01]},
         "wall_sphere": {"center_m": hand + [0.0, 0.02, 0.0], "radius_m": 0.03},
+        # the path tasks: a path point 2 cm from the hand (assist-as-needed), 5 cm out of a 3 cm tunnel
+        "assist_as_needed": {"path": HandPath(points_m=(hand + [0.0, 0.0, 0.02],), times_s=(0.0,))},
+        "guidance_tunnel": {"path": HandPath(points_m=(hand - 0.05 * n,), times_s=(0.0,)), "radius_m": 0.03},
     }.get(name, {})
 
 

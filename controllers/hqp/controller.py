@@ -145,7 +145,8 @@ class HQPController(Controller):
     the answer), ``level_i_time_s`` [s], ``active_i`` (1.0: the level had rows this tick), ``binding_i``
     (1.0: an equality row of the level is not met or an inequality row sits at its bound, within
     ``binding_tol``) and ``qp_i`` (1.0: the compiled solve could not verify the level and the QP backend
-    solved it). On a fallback tick the per-level values are NaN.
+    solved it). On a fallback tick the per-level values are NaN. Then each task's own diagnostics
+    (:meth:`controllers.tasks.Task.diagnostic_names`) as ``<task name>_<name>``.
     """
 
     def __init__(self, levels: Sequence[Sequence[Task]], *, name: str = "hqp", solver: str | None = None,
@@ -214,6 +215,7 @@ class HQPController(Controller):
         self.fallback_count = 0
         self.last_fallback_reason = None
         self._diag = dict.fromkeys(self.diagnostic_names(), 0.0)
+        self._task_diag = self._task_diagnostic_keys()  # empty unless a task reports diagnostics
         self._level_keys = [(f"residual_{i}", f"level_{i}_time_s") for i in range(len(self.levels))]
         p = len(self.levels)
         self._status_keys = [(f"active_{i}", f"binding_{i}", f"qp_{i}") for i in range(p)]
@@ -281,7 +283,23 @@ class HQPController(Controller):
         return (("solve_time_s", "rows_time_s", "fallback", "active_rows", "qp_solves")
                 + tuple(f"residual_{i}" for i in p)
                 + tuple(f"level_{i}_time_s" for i in p)
-                + tuple(f"{kind}_{i}" for i in p for kind in ("active", "binding", "qp")))
+                + tuple(f"{kind}_{i}" for i in p for kind in ("active", "binding", "qp"))
+                + tuple(key for _, _, key in self._task_diagnostic_keys()))
+
+    def _task_diagnostic_keys(self) -> list[tuple[Task, str, str]]:
+        """(task, its diagnostic's name, the controller's name for it) of every task's diagnostics
+        (:meth:`controllers.tasks.Task.diagnostic_names`): ``<task name>_<name>``, or ``<task name>_<level>_<j>_<name>``
+        when two tasks would give the same name."""
+        out, seen = [], set()
+        for i, level in enumerate(self.levels):
+            for j, t in enumerate(level):
+                for name in t.diagnostic_names():
+                    key = f"{t.name}_{name}"
+                    if key in seen:
+                        key = f"{t.name}_{i}_{j}_{name}"
+                    seen.add(key)
+                    out.append((t, name, key))
+        return out
 
     def diagnostics(self):
         return self._diag
@@ -510,4 +528,6 @@ class HQPController(Controller):
         active, binding, qp_level = status
         for i, (active_key, binding_key, qp_key) in enumerate(self._status_keys):
             d[active_key], d[binding_key], d[qp_key] = active[i], binding[i], qp_level[i]
+        for t, name, key in self._task_diag:  # the tasks' own, as they stand after this tick's rows()
+            d[key] = float(t.diagnostics().get(name, math.nan))
         return tau

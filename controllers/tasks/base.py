@@ -51,6 +51,18 @@ class Task(ABC):
     def rows(self, state: TickState) -> tuple[np.ndarray, np.ndarray] | None:
         """``(A, b)`` for this tick, A of shape (m, 2 nv); None when inactive."""
 
+    def diagnostic_names(self) -> tuple[str, ...]:
+        """Names of the task's per-tick diagnostics (fixed after :meth:`bind`); none by default.
+
+        The controller logs each as ``diag_<task name>_<name>`` (:class:`controllers.hqp.HQPController`), one
+        float per tick, e.g. the adapted stiffness of :class:`controllers.tasks.AssistAsNeeded`.
+        """
+        return ()
+
+    def diagnostics(self) -> Mapping[str, float]:
+        """The values of :meth:`diagnostic_names` after the last :meth:`rows` (one float each)."""
+        return {}
+
     def describe(self) -> str:
         """One line for logs and reports."""
         return f"{self.name} ({self.kind})"

@@ -45,7 +45,7 @@ import pinocchio as pin
 
 from sim.loop.runlog import Run, RunLogError
 
-__all__ = ["DERIVED_CUFF_COLUMNS", "cuff_columns", "joint_placements"]
+__all__ = ["DERIVED_CUFF_COLUMNS", "cuff_columns", "joint_placements", "human_cuff_twists"]
 
 #: The columns :func:`cuff_columns` returns.
 DERIVED_CUFF_COLUMNS = ("cuff_wrench_exo", "cuff_force_human_world")
@@ -218,6 +218,50 @@ def cuff_columns(run: Run) -> dict[str, np.ndarray]:
         a.flags.writeable = False  # shared by every reader of this Run
     run.derived.update(cuff_wrench_exo=w_a, cuff_force_human_world=f_o)
     return {"cuff_wrench_exo": w_a, "cuff_force_human_world": f_o}
+
+
+def human_cuff_twists(run: Run) -> np.ndarray | None:
+    r"""(n, n_cuffs, 6) spatial velocity ``[v; omega]`` [m/s, rad/s] of each human-side cuff frame B, in B.
+
+    The frame of ``cuff_wrench_human``, so that :math:`w_B \cdot V_B` is the power each cuff delivers to the
+    wearer (:func:`sim.analysis.metrics.interaction_power_W`).  Per tick, pinocchio's
+    ``forwardKinematics(q_human, dq_human)`` and ``getFrameVelocity`` (LOCAL) of the cuff's site frame on the
+    run's ``human.urdf``, moved to B through the strap offset :math:`{}^{site}M_B`
+    (:math:`V_B = {}^{site}M_B^{-1} \cdot V_{site}`, Featherstone 2008, ch. 2).  None for a run without cuffs.
+    Kept in ``run.derived`` for the next call.
+    """
+    arrays = run.arrays
+    if "cuff_wrench_human" not in arrays or "dq_human" not in arrays:
+        return None
+    if "human_cuff_twist" in run.derived:
+        return run.derived["human_cuff_twist"]
+    where = f"run folder {str(run.folder)!r}"
+    meta = run.meta
+    models_meta = meta.get("models")
+    if run.folder is None or not isinstance(models_meta, Mapping) or "cuff_human_offsets" not in models_meta:
+        raise RunLogError(f"{where}: the human cuff twists need the run's human.urdf and meta.json's "
+                          "models.cuff_human_offsets")
+    cuffs = list(meta["cuffs"])
+    model = _model(run, models_meta.get("human_urdf", "human.urdf"))
+    data = model.createData()
+    fids = []
+    for c in cuffs:
+        name = models_meta["cuff_frames"][c][1]
+        if not model.existFrame(name):
+            raise RunLogError(f"{where}, human model: no frame {name!r}")
+        fids.append(model.getFrameId(name))
+    offsets = [_offset(models_meta["cuff_human_offsets"][c], f"{where}: meta.json models.cuff_human_offsets[{c!r}]")
+               for c in cuffs]
+    q, dq = np.asarray(arrays["q_human"], dtype=float), np.asarray(arrays["dq_human"], dtype=float)
+    out = np.empty((len(q), len(cuffs), 6))
+    local = pin.ReferenceFrame.LOCAL
+    for k in range(len(q)):
+        pin.forwardKinematics(model, data, q[k], dq[k])
+        for c, (fid, off) in enumerate(zip(fids, offsets)):
+            out[k, c] = off.actInv(pin.getFrameVelocity(model, data, fid, local)).vector
+    out.flags.writeable = False
+    run.derived["human_cuff_twist"] = out
+    return out
 
 
 def _model(run: Run, name: str):

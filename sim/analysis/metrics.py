@@ -59,6 +59,10 @@ __all__ = [
     "wall_metrics",
     "interaction_power_W",
     "interaction_work_J",
+    "positive_work_J",
+    "joint_power_W",
+    "path_error_rms_m",
+    "assistance_metrics",
     "apparent_mass_kg",
     "apparent_mass_fit",
     "MassFit",
@@ -447,6 +451,69 @@ def interaction_work_J(power_W: np.ndarray, dt_s: float) -> float:
     transparent robot at rest at both ends of a movement takes none.
     """
     return float(np.sum(power_W) * dt_s)
+
+
+# -- assistance: the robot's work on the wearer, against the reference path ------------------------
+def positive_work_J(power_W: np.ndarray, dt_s: float) -> float:
+    r"""Work of the positive part of a power, :math:`W^+ = \sum_k \max(P(t_k), 0)\, T` [J].
+
+    The power held over each tick (zero-order hold, as :func:`interaction_work_J`); what a source delivered,
+    without crediting it for what it took back.
+    """
+    P = np.asarray(power_W, dtype=float)
+    return float(np.sum(np.maximum(P, 0.0)) * dt_s)
+
+
+def joint_power_W(tau_Nm: np.ndarray, dq_rad_s: np.ndarray) -> np.ndarray:
+    r"""Per tick :math:`P(t_k) = \tau(t_k) \cdot \dot q(t_k)` [W] (power of joint torques on their joints)."""
+    return np.einsum("ki,ki->k", np.asarray(tau_Nm, dtype=float), np.asarray(dq_rad_s, dtype=float))
+
+
+def path_error_rms_m(p_hand_m: np.ndarray, t_s: np.ndarray, path) -> float:
+    r""":math:`\sqrt{\tfrac1N \sum_k \lVert p(t_k) - p_{ref}(t_k) \rVert^2}` [m]: a hand against a reference
+    path at the same times (``path`` a :class:`controllers.tasks.HandPath`)."""
+    p = np.asarray(p_hand_m, dtype=float)
+    if not len(p):
+        return 0.0
+    ref, _, _ = path.sample(np.asarray(t_s, dtype=float))
+    d = p - ref
+    return float(np.sqrt(np.mean(np.sum(d * d, axis=-1))))
+
+
+def assistance_metrics(arrays: Mapping[str, np.ndarray], human_cuff_twist: np.ndarray | None, dt_s: float,
+                       path=None) -> dict:
+    r"""The assistance keys of ``metrics.json`` for a coupled run.
+
+    * ``assistance_work_J``: the positive work the robot does on the wearer through the cuffs,
+      :func:`positive_work_J` of :math:`P_r(t_k) = \sum_c w_{B,c} \cdot V_{B,c}`, each cuff's wrench on
+      the human (``cuff_wrench_human``) times the human-side cuff frame's twist (``human_cuff_twist``,
+      :func:`sim.analysis.derived.human_cuff_twists`), both in that frame.  The positive part is taken of
+      the sum over the cuffs at each tick (what the robot gives the arm as a whole); the energy the cuffs'
+      own springs store and return is in it, as the wearer receives it.
+    * ``assistance_share``: :math:`W_r^+ / (W_r^+ + W_h^+)`, the wearer's own positive joint work
+      :math:`W_h^+` = :func:`positive_work_J` of :func:`joint_power_W` (``tau_human``, ``dq_human``); None
+      when neither did positive work.
+    * ``path_error_rms_m``: :func:`path_error_rms_m` of the wearer's hand (``p_hand_human``) against
+      ``path`` at the same times; None without a path.
+    * ``assist_stiffness_peak_N_per_m``, ``assist_stiffness_final_N_per_m``: the largest and the last
+      stiffness of an assist-as-needed task (the ``diag_assist_as_needed_stiffness_N_per_m`` column); None
+      without one.
+    """
+    out = {"assistance_work_J": None, "assistance_share": None, "path_error_rms_m": None,
+           "assist_stiffness_peak_N_per_m": None, "assist_stiffness_final_N_per_m": None}
+    if human_cuff_twist is not None:
+        w_r = positive_work_J(interaction_power_W(arrays["cuff_wrench_human"], human_cuff_twist), dt_s)
+        w_h = positive_work_J(joint_power_W(arrays["tau_human"], arrays["dq_human"]), dt_s)
+        out["assistance_work_J"] = w_r
+        out["assistance_share"] = w_r / (w_r + w_h) if w_r + w_h > 0 else None
+    if path is not None:
+        out["path_error_rms_m"] = path_error_rms_m(arrays["p_hand_human"], arrays["t"], path)
+    K = arrays.get("diag_assist_as_needed_stiffness_N_per_m")
+    if K is not None and len(K):
+        K = np.asarray(K, dtype=float)
+        out["assist_stiffness_peak_N_per_m"] = float(np.nanmax(K)) if np.isfinite(K).any() else None
+        out["assist_stiffness_final_N_per_m"] = float(K[-1]) if np.isfinite(K[-1]) else None
+    return out
 
 
 def _moving_average(x: np.ndarray, n: int) -> np.ndarray:
@@ -1166,6 +1233,11 @@ METRICS: Mapping[str, MetricInfo] = MappingProxyType({
     "fault_count": MetricInfo("-", None, "faults of the scenario"),
     "movement_completion": MetricInfo("-", "one", "share of the intended hand displacement reached", True),
     "time_to_target_s": MetricInfo("s", "lower", "time to the target within 2 cm"),
+    "assistance_work_J": MetricInfo("J", None, "positive work of the robot on the wearer", True),
+    "assistance_share": MetricInfo("-", None, "robot's share of the positive work on the arm", True),
+    "path_error_rms_m": MetricInfo("m", "lower", "hand error from the reference path, RMS", True),
+    "assist_stiffness_peak_N_per_m": MetricInfo("N/m", None, "assist-as-needed stiffness, peak"),
+    "assist_stiffness_final_N_per_m": MetricInfo("N/m", None, "assist-as-needed stiffness, at the end"),
 })
 
 #: Keys that measure this machine's wall clock: they differ between executors and runs; every other key is a

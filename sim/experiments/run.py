@@ -23,11 +23,12 @@ import numpy as np
 import pinocchio as pin
 
 from controllers.registry import build_levels, make_controller
-from controllers.tasks import WallLaw, WallTask
+from controllers.tasks import HandPath, WallLaw, WallTask
 from models.arm import load_arm
-from sim.analysis.derived import cuff_columns
+from sim.analysis.derived import cuff_columns, human_cuff_twists
 from sim.analysis.metrics import (
     BODY_REGION_FORCE_LIMITS_N,
+    assistance_metrics,
     completion_metrics,
     hand_cuff_index,
     plane_penetration_m,
@@ -156,7 +157,8 @@ def run_scenario(
     """
     batch = Batch() if batch is None else batch
     out = Path(out_dir)
-    make_controller(controller_name, scenario.variants, scenario.walls)  # fail on a bad name before writing
+    # fail on a bad name (or a path variant without a path) before writing
+    make_controller(controller_name, scenario.variants, scenario.walls, path=scenario.reference_path)
     warm_up(scenario, controller_name, batch)  # the timed runs below then time the loop, not the kernels' loading
     n = scenario.n_ticks
     coupled_progress = (lambda k, _n: progress(k, 2 * n)) if progress else None
@@ -396,6 +398,10 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
         if not rendered:  # a slope of force on penetration (or its rate) means nothing without a wall
             metrics["wall_stiffness_rendered_N_per_m"] = metrics["wall_stiffness_rendered_robot_N_per_m"] = None
             metrics["wall_damping_rendered_N_s_per_m"] = None
+    # the robot's work on the wearer, and the hand against the exercise's reference path (meta.json's, if any)
+    path = meta.get("reference_path")
+    metrics |= assistance_metrics(arrays, human_cuff_twists(run), dt,
+                                  HandPath.from_dict(path) if path is not None else None)
     # the scenario's faults, as meta.json lists them (sim.physics.faults)
     faults = meta.get("faults") or []
     metrics["fault_count"] = len(faults)

@@ -31,6 +31,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from controllers.safety import SafetyParams
+from controllers.tasks.paths import HandPath
 from models.checks import positive
 from models.coupling import DEFAULT_CUFFS, CuffSpec, Registration
 from models.errors import ParameterError, SandboxError
@@ -105,6 +106,10 @@ class Scenario:
     #: The wearer's impairment (:mod:`sim.physics.impairment`: weakness, spasticity, contracture, tremor);
     #: None: a healthy arm.
     impairment: Impairment | None = None
+    #: The exercise's reference hand path as a therapist sets it (:class:`controllers.tasks.HandPath`, world frame
+    #: [m], time from the start of the run), followed by the ``assist`` and ``tunnel`` variants and measured by
+    #: ``path_error_rms_m``; never derived from the wearer's intent.  None: no reference path.
+    reference_path: HandPath | None = None
 
     def __post_init__(self) -> None:
         o = f"Scenario({self.name!r})"
@@ -171,6 +176,9 @@ class Scenario:
             if not isinstance(self.impairment, Impairment):
                 raise ParameterError(f"{o}.impairment must be Impairment(...) or None, got {self.impairment!r}")
             self.impairment.check_period(o, self.control_period_s)
+        if self.reference_path is not None and not isinstance(self.reference_path, HandPath):
+            raise ParameterError(f"{o}.reference_path must be a HandPath or None, got "
+                                 f"{type(self.reference_path).__name__}")
 
     @property
     def human(self) -> HumanParams:

@@ -321,7 +321,8 @@ class Simulation:
         if mode == "human_alone":
             controller, name = None, None
         elif isinstance(spec, str):
-            controller, name = make_controller(spec, scenario.variants, scenario.walls, scenario.safety), spec
+            controller, name = make_controller(spec, scenario.variants, scenario.walls, scenario.safety,
+                                               path=scenario.reference_path), spec
         else:  # an object built in code runs under the scenario's safety monitor as a variant by name does
             controller, name = supervised(spec, scenario.safety), spec.name
         asm = build_assembly(scenario)
@@ -368,6 +369,8 @@ class Simulation:
                                                 asm.human.model.frames[c.human_frame_id].name] for c in asm.cuffs},
                        "cuff_human_offsets": {c.name: c.human_offset.homogeneous for c in asm.cuffs}},
             "walls": jsonable(scenario.walls),
+            # the exercise's reference hand path (controllers.tasks.HandPath.describe), None without one
+            "reference_path": scenario.reference_path.describe() if scenario.reference_path is not None else None,
             # the controller's levels and tasks with their parameters (Controller.structure), for the reports;
             # the safety monitor's settings apart (None: no monitor), so that the structure is the variant's own
             "controller_structure": _unsupervised(controller).structure() if controller is not None else None,

@@ -41,7 +41,8 @@ from sim.output.figures import compare_figures, run_figures
 __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows", "markdown_table",
            "write_run_report", "compare_runs", "write_sweep_report", "write_sweeps_report", "sweep_verdicts",
            "has_wall", "transparency_key", "fmt", "fmt_stat", "renders_wall", "is_applicable", "TIMING_NOTE",
-           "controller_section", "variant_differences", "faults_section", "safety_section", "wearer_section"]
+           "controller_section", "variant_differences", "faults_section", "safety_section", "wearer_section",
+           "assistance_section"]
 
 #: Printed in every report.
 CAUTION = (
@@ -516,6 +517,46 @@ def wearer_section(meta: Mapping, metrics: Mapping, arrays: Mapping[str, np.ndar
     return text + [""]
 
 
+#: The task classes that follow the exercise's reference hand path, by class name.
+_PATH_CLASSES = frozenset({"AssistAsNeeded", "GuidanceTunnel"})
+
+
+def assistance_section(meta: Mapping, metrics: Mapping) -> list[str]:
+    """The "Assistance" section of a run report (Markdown lines), for a run with a reference hand path
+    (``meta["reference_path"]``) or a controller holding a task that follows one; nothing otherwise.
+
+    The path (via points and duration), the variant's path task and its parameters, and the assistance metrics:
+    the robot's positive work on the wearer and its share of the positive work on the arm, the hand's RMS
+    error from the path, and the assist-as-needed stiffness (peak and end of the run).
+    """
+    path = (meta or {}).get("reference_path")
+    tasks = [t for t in _task_entries(meta) if {str(t.get("type")), *map(str, t.get("bases") or ())} & _PATH_CLASSES]
+    if path is None and not tasks:
+        return []
+    text = ["## Assistance", ""]
+    if isinstance(path, Mapping):
+        times = path.get("times_s") or []
+        text.append(f"Reference hand path (the exercise's, set before the run): {len(times)} via points over "
+                    f"{fmt(times[-1] - times[0]) if times else 'n/a'} s, minimum-jerk between them.")
+        text.append("")
+    else:
+        text.append("The run has no reference hand path.")
+    if tasks:
+        text += [f"Path task: `{t.get('name')}` ({t.get('type')}), "
+                 + _params_text({k: v for k, v in (t.get("params") or {}).items() if not k.startswith("path.")})
+                 for t in tasks]
+    else:
+        text.append("This variant has no task that follows the path: the robot does not guide the hand.")
+    rows = [[k, key_info(k)[0], fmt(metrics.get(k)) if metrics.get(k) is not None else "n/a", key_info(k)[2]]
+            for k in ("assistance_work_J", "assistance_share", "path_error_rms_m", "assist_stiffness_peak_N_per_m",
+                      "assist_stiffness_final_N_per_m")]
+    text += ["", markdown_table(["key", "unit", "value", "meaning"], rows), "",
+             "Work: the robot's is the positive part of the power its cuffs deliver to the wearer (each cuff's wrench "
+             "on the human times the human cuff frame's twist, summed over the cuffs per tick); the wearer's is the "
+             "positive part of their joint power; the share is the robot's over the sum of the two.", ""]
+    return text
+
+
 def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run: Run | None = None,
                      figures: bool = True) -> Path:
     """``report.md`` and ``plots/*.png`` of one coupled run folder: the controller, the metrics, the figures
@@ -548,6 +589,7 @@ def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run:
     text += safety_section(meta, m)
     text += faults_section(meta)
     text += wearer_section(meta, m, run.arrays)
+    text += assistance_section(meta, m)
     text += ["## Metrics", "", markdown_table(["key", "unit", "value", "meaning"], rows), ""]
     text += [f"- {n}" for n in notes] + ([""] if notes else []) + [TIMING_NOTE, "", "## Plots", ""]
     text += [f"![{p.stem}](plots/{p.name})" for p in figs]

@@ -2,7 +2,7 @@
 
 A :class:`JointIntent` starts at a posture, may hold it, then moves through a
 sequence of :class:`Via` postures.  Each move is a minimum-jerk
-point-to-point movement (Flash & Hogan 1985); each hold keeps the posture
+point-to-point movement (Flash & Hogan 1985; the polynomial is :mod:`models.motion`); each hold keeps the posture
 with zero velocity and acceleration.  Position and velocity are continuous at
 every segment boundary (a minimum-jerk move starts and ends at rest);
 acceleration is continuous too, since it is zero at both ends of a move.
@@ -20,11 +20,11 @@ from bisect import bisect_right
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-import numba
 import numpy as np
 
 from models.checks import nonnegative, positive, vector
 from models.errors import ParameterError
+from models.motion import minimum_jerk, minimum_jerk_at, minimum_jerk_profile
 
 __all__ = ["minimum_jerk", "Via", "JointIntent"]
 
@@ -38,109 +38,6 @@ def _posture(owner: str, field: str, value: Sequence[float]) -> tuple[float, ...
     if n == 0:
         raise ParameterError(f"{owner}.{field} must have at least one joint, got {value!r}")
     return vector(owner, field, value, n)
-
-
-def _mj_eval(
-    q0: np.ndarray, D: np.ndarray, T: float, t: np.ndarray | float
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Minimum-jerk polynomial without input checks (the hot path of :meth:`JointIntent.at`).
-
-    ``t`` is a scalar or an (m,) array; outputs have shape ``np.shape(t) + q0.shape``.
-    """
-    if np.ndim(t) == 0:  # scalar fast path: Python floats, three array operations
-        tau = min(max(float(t) / T, 0.0), 1.0)
-    else:
-        tau = np.clip(np.asarray(t, dtype=float) / T, 0.0, 1.0)[:, None]
-    t2 = tau * tau
-    s = t2 * tau * (10.0 + tau * (-15.0 + 6.0 * tau))  # 10 tau^3 - 15 tau^4 + 6 tau^5
-    ds = 30.0 * t2 * (1.0 - tau) ** 2  # 30 tau^2 - 60 tau^3 + 30 tau^4
-    dds = 60.0 * tau * (1.0 - tau) * (1.0 - 2.0 * tau)  # 60 tau - 180 tau^2 + 120 tau^3
-    q = q0 + D * s
-    dq = D * (ds / T)
-    ddq = D * (dds / (T * T))
-    return q, dq, ddq
-
-
-@numba.njit(cache=True)
-def _mj_rows(q0, D, s, ds_per_T, dds_per_T2, out):
-    """The vector part of :func:`_mj_eval` at one time, into the rows of ``out`` (3, n).
-
-    ``out[0] = q0 + D s``, ``out[1] = D (ds / T)``, ``out[2] = D (dds / T^2)``: the same operations in the same
-    order as the Python reference :func:`_mj_eval`, so the values are the same bit for bit.
-    """
-    for i in range(D.shape[0]):
-        out[0, i] = q0[i] + D[i] * s
-        out[1, i] = D[i] * ds_per_T
-        out[2, i] = D[i] * dds_per_T2
-
-
-def _mj_at(q0: np.ndarray, D: np.ndarray, T: float, t: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """:func:`_mj_eval` at one time ``t`` [s] (a float): the scalar profile in Python, the rows compiled.
-
-    Returns three rows of one new (3, n) array; bit-identical to :func:`_mj_eval` (tests compare them).
-    """
-    tau = min(max(t / T, 0.0), 1.0)
-    t2 = tau * tau
-    s = t2 * tau * (10.0 + tau * (-15.0 + 6.0 * tau))  # 10 tau^3 - 15 tau^4 + 6 tau^5
-    ds = 30.0 * t2 * (1.0 - tau) ** 2  # 30 tau^2 - 60 tau^3 + 30 tau^4
-    dds = 60.0 * tau * (1.0 - tau) * (1.0 - 2.0 * tau)  # 60 tau - 180 tau^2 + 120 tau^3
-    out = np.empty((3, D.shape[0]))
-    _mj_rows(q0, D, s, ds / T, dds / (T * T), out)
-    return out[0], out[1], out[2]
-
-
-def minimum_jerk(
-    q0: Sequence[float] | np.ndarray,
-    q1: Sequence[float] | np.ndarray,
-    duration_s: float,
-    t_s: float | np.ndarray,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Position, velocity and acceleration of a minimum-jerk move from ``q0`` to ``q1``.
-
-    With :math:`\\tau = t / T` and :math:`D = q_1 - q_0`,
-
-    .. math::
-        x(t) = q_0 + D \\, (10 \\tau^3 - 15 \\tau^4 + 6 \\tau^5), \\qquad
-        \\dot x = \\frac{D}{T} 30 \\tau^2 (1 - \\tau)^2, \\qquad
-        \\ddot x = \\frac{D}{T^2} 60 \\tau (1 - \\tau)(1 - 2 \\tau),
-
-    the movement that minimises the integrated squared jerk between two rest
-    postures (Flash & Hogan 1985, *J. Neurosci.* 5(7):1688-1703).  Outside
-    :math:`[0, T]` the time is clamped: the output is the nearer end posture
-    with zero velocity and acceleration.
-
-    Parameters
-    ----------
-    q0, q1 : (n,) array_like [rad]
-        Start and end postures (a scalar counts as n = 1).
-    duration_s : float [s]
-        Movement time T, > 0.
-    t_s : float or (m,) array_like [s]
-        Time since the start of the move.
-
-    Returns
-    -------
-    q, dq, ddq : (n,) ndarray, or (m, n) for an (m,) ``t_s``
-        Position [rad], velocity [rad/s] and acceleration [rad/s^2].
-
-    Raises
-    ------
-    ParameterError
-        If the postures differ in length or are not finite, if ``duration_s``
-        is not > 0, or if a time is not finite.
-    """
-    owner = "minimum_jerk"
-    a = np.atleast_1d(np.asarray(q0, dtype=float))
-    b = np.atleast_1d(np.asarray(q1, dtype=float))
-    if a.ndim != 1 or a.shape != b.shape:
-        raise ParameterError(f"{owner}.q1 must have the shape of q0 {a.shape}, got {b.shape}")
-    if not (np.all(np.isfinite(a)) and np.all(np.isfinite(b))):
-        raise ParameterError(f"{owner}.q0 and q1 must be finite, got {q0!r} and {q1!r}")
-    T = positive(owner, "duration_s", duration_s, "s")
-    t = np.asarray(t_s, dtype=float)
-    if t.ndim > 1 or not np.all(np.isfinite(t)):
-        raise ParameterError(f"{owner}.t_s must be a finite scalar or 1-D array [s], got {t_s!r}")
-    return _mj_eval(a, b - a, T, t if t.ndim else float(t))
 
 
 @dataclass(frozen=True)
@@ -191,8 +88,8 @@ class JointIntent:
     -----
     Segment start times are precomputed, so :meth:`at` costs one bisection
     and one polynomial evaluation (it runs every control tick; its joint
-    rows are one compiled call, :func:`_mj_rows`, checked against the
-    Python reference :func:`_mj_eval` that :meth:`sample` uses).  A hold is
+    rows are one compiled call, :func:`models.motion.minimum_jerk_at`, checked against the
+    Python reference :func:`models.motion.minimum_jerk_profile` that :meth:`sample` uses).  A hold is
     evaluated as a minimum-jerk "move" of zero amplitude, which is constant.
     """
 
@@ -291,7 +188,7 @@ class JointIntent:
             z = np.zeros(q.shape)
             return q.copy(), z, z.copy()
         i = bisect_right(self._starts, t) - 1
-        return _mj_at(self._q_from_rows[i], self._amplitude_rows[i], self._durations[i], t - self._starts[i])
+        return minimum_jerk_at(self._q_from_rows[i], self._amplitude_rows[i], self._durations[i], t - self._starts[i])
 
     def sample(self, t_s: Sequence[float] | np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Evaluate :meth:`at` on a time grid, vectorised.
@@ -319,7 +216,7 @@ class JointIntent:
         idx = np.searchsorted(self._starts, t, side="right") - 1
         for i in np.unique(idx[inside]):
             mask = inside & (idx == i)
-            Q[mask], dQ[mask], ddQ[mask] = _mj_eval(
+            Q[mask], dQ[mask], ddQ[mask] = minimum_jerk_profile(
                 self._q_from[i], self._amplitude[i], self._durations[i], t[mask] - self._starts[i]
             )
         return Q, dQ, ddQ
