@@ -5,7 +5,9 @@ tick by tick, in memory: notebooks and scripts), :func:`sim.run_scenario`
 (a run folder with its baseline, metrics and report), :func:`sim.loop.simulate`
 and :func:`sim.load_run`. Scenario files import :class:`sim.Scenario`,
 :class:`sim.JointIntent`, :class:`sim.Via`, :func:`sim.deg`, :class:`sim.SafetyParams` (the safety
-monitor's settings) and the faults of :mod:`sim.physics.faults` (:class:`sim.SensorDropout`, ...) from here.
+monitor's settings), the faults of :mod:`sim.physics.faults` (:class:`sim.SensorDropout`, ...) and the drive
+models' parameters (:class:`sim.ActuatorParams`, :class:`sim.IdealActuatorParams`,
+:class:`sim.SeriesElasticParams`) from here.
 """
 
 from controllers.safety import SafetyParams
@@ -14,6 +16,7 @@ from sim.loop.runlog import Run, RunLog, load_run
 from sim.loop.scenario import Scenario, ScenarioError, deg, load_scenario
 from sim.loop.simulate import RunResult, simulate
 from sim.loop.simulation import Simulation, SimulationError, Trajectory
+from sim.physics.actuators import ActuatorParams, IdealActuatorParams
 from sim.physics.faults import (
                                 ControlDelay,
                                 CuffSlip,
@@ -31,9 +34,10 @@ from sim.physics.faults import (
                                 random_faults,
 )
 from sim.physics.intent import JointIntent, Via
+from sim.physics.sea import SeriesElasticParams
 
 __all__ = ["JointIntent", "Via", "Run", "RunLog", "load_run", "Scenario", "ScenarioError", "deg", "load_scenario",
            "RunResult", "SimulationError", "run_scenario", "simulate", "Simulation", "Trajectory",
            "Fault", "SensorDropout", "SensorBiasStep", "SensorBiasDrift", "SensorNoiseBurst", "EncoderGlitch",
            "StuckEncoder", "SensorDelay", "ControlDelay", "TorqueLoss", "StuckDrive", "CuffSlip", "WearerJerk",
-           "random_faults", "SafetyParams"]
+           "random_faults", "SafetyParams", "ActuatorParams", "IdealActuatorParams", "SeriesElasticParams"]

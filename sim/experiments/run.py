@@ -25,6 +25,7 @@ from controllers.registry import build_levels, make_controller
 from controllers.tasks import WallLaw, WallTask
 from models.arm import load_arm
 from sim.analysis.derived import cuff_columns
+from sim.analysis.drives import drive_metrics
 from sim.analysis.metrics import (
     BODY_REGION_FORCE_LIMITS_N,
     hand_cuff_index,
@@ -394,6 +395,8 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
         if not rendered:  # a slope of force on penetration (or its rate) means nothing without a wall
             metrics["wall_stiffness_rendered_N_per_m"] = metrics["wall_stiffness_rendered_robot_N_per_m"] = None
             metrics["wall_damping_rendered_N_s_per_m"] = None
+    # the drives: tracking, bandwidth (a dedicated frequency response of the run's drive model), motor saturation
+    metrics |= drive_metrics(arrays, meta, arm.model.effortLimit, meta.get("exo_joints") or arm.joint_names)
     # the scenario's faults, as meta.json lists them (sim.physics.faults)
     faults = meta.get("faults") or []
     metrics["fault_count"] = len(faults)
