@@ -328,7 +328,7 @@ class SeriesElasticActuators(Actuators):
         tau0 = np.asarray(tau0_Nm, dtype=float)
         self._pending = tau0.copy()
         self._tau[:] = tau0
-        self._state[2] = tau0
+        self._state[2] = np.clip(tau0, -self._par[3], self._par[3])  # a motor too weak to hold it starts at its limit
         self._u[:] = tau0
         self._saturated[:] = np.abs(tau0) > self._par[3]
         self._count = 0

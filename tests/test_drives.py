@@ -1,0 +1,255 @@
+"""Drive models: the series-elastic drive against closed forms and scipy, the control delay, the choice per scenario.
+
+Sources named beside each check:
+
+* undamped oscillator: a locked motor on a spring rings at sqrt(k/J) (closed form; Pratt & Williamson 1995);
+* second-order step overshoot exp(-pi zeta / sqrt(1 - zeta^2)) and -3 dB bandwidth
+  omega_n sqrt(1 - 2 zeta^2 + sqrt(4 zeta^4 - 4 zeta^2 + 2)) (Ogata, Modern Control Engineering, 5th ed.,
+  sections 5-3 and 7-5);
+* the loop's frequency response against scipy.signal.freqresp of its transfer function;
+* first-order lag bandwidth 1/(2 pi T) (closed form);
+* energy: an undamped, unforced spring-mass conserves energy, a damped one never gains it (closed form).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import signal
+
+from controllers.base import Controller
+from models.errors import ParameterError
+from models.exo import ExoParams
+from sim import IdealActuatorParams, Scenario, SeriesElasticParams, Simulation, load_scenario
+from sim.analysis.drives import (
+    drive_metrics,
+    torque_bandwidth_Hz,
+    torque_frequency_response,
+    torque_tracking_rms_Nm,
+)
+from sim.loop.simulation import log_columns
+from sim.physics.actuators import ActuatorParams, CommandDelay, IdealActuators, TorqueSourceActuators, make_actuators
+from sim.physics.sea import SeriesElasticActuators, torque_loop_closed_form
+
+SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
+EXO = ExoParams()
+LIMIT = np.array(EXO.torque_limit_Nm)
+T, SUB = 1e-3, 4  # the default control period [s] and substeps
+
+
+def _linear(**kw) -> SeriesElasticParams:
+    """Resolved defaults without Coulomb friction (the closed forms are linear)."""
+    return dataclasses.replace(SeriesElasticParams(**kw).resolved(EXO), motor_coulomb_Nm=0.0)
+
+
+def _step_locked(act: SeriesElasticActuators, command: np.ndarray, ticks: int) -> np.ndarray:
+    """The delivered torque at each tick's start (ticks, nv) with the output locked."""
+    q = np.zeros(len(LIMIT))
+    out = np.empty((ticks, len(LIMIT)))
+    for k in range(ticks):
+        out[k] = act.delivered_Nm(q, q)
+        act.hold(command)
+        for _ in range(SUB):
+            act.substep(q, q, T / SUB)
+    return out
+
+
+def test_locked_drive_without_loop_rings_at_sqrt_k_over_J():
+    # closed form of an undamped spring-mass (Pratt & Williamson 1995: the locked SEA's motor-side resonance)
+    p = _linear(torque_kp=0.0, torque_kd_s=0.0, motor_damping_Nm_s_per_rad=0.0)
+    act = make_actuators(p, LIMIT)
+    act.reset(0.2 * LIMIT)  # released from a deflection, commanded nothing: tau_m = 0
+    y = _step_locked(act, np.zeros(len(LIMIT)), 2000)
+    for j in range(len(LIMIT)):
+        s = np.sign(y[:, j])
+        crossings = np.flatnonzero(s[1:] != s[:-1])
+        # linear interpolation of the zero crossings; half a period between two
+        tc = [(i + y[i, j] / (y[i, j] - y[i + 1, j])) * T for i in crossings]
+        f = (len(tc) - 1) / (2.0 * (tc[-1] - tc[0]))
+        f_ref = math.sqrt(p.spring_stiffness_Nm_per_rad[j] / p.motor_inertia_kg_m2[j]) / (2 * math.pi)
+        assert f == pytest.approx(f_ref, rel=1e-3)
+        assert torque_loop_closed_form(p).open_resonance_Hz[j] == pytest.approx(f_ref, rel=1e-12)
+    # e.g. k_s = 2155 N m/rad on J_m = 0.5 kg m^2: 10.4 Hz (the figure of the drive's specification)
+    q = _linear(spring_stiffness_Nm_per_rad=2155.0, motor_inertia_kg_m2=0.5)
+    assert torque_loop_closed_form(q).open_resonance_Hz[0] == pytest.approx(10.45, abs=0.01)
+
+
+def test_closed_loop_step_overshoot_matches_the_second_order_closed_form():
+    # Ogata, Modern Control Engineering, sec. 5-3: M_p = exp(-pi zeta / sqrt(1 - zeta^2))
+    p = _linear(torque_damping_ratio=0.4)
+    cf = torque_loop_closed_form(p)
+    assert np.allclose(cf.damping_ratio, 0.4)
+    act = make_actuators(p, LIMIT)
+    act.reset(np.zeros(len(LIMIT)))
+    step = 0.1 * LIMIT
+    y = _step_locked(act, step, 300)
+    overshoot = y.max(axis=0) / step - 1.0
+    ref = math.exp(-math.pi * 0.4 / math.sqrt(1 - 0.4**2))  # 25.4 %
+    # sampled loop (4 kHz) and ticks of 1 ms: a few points of overshoot from the discretisation
+    assert np.allclose(overshoot, ref, atol=0.03)
+    assert np.allclose(y[-1], step, rtol=1e-3)  # unit DC gain: the feed-forward plus P on the error
+
+
+def test_torque_bandwidth_matches_ogata_and_scipy():
+    p = _linear()
+    cf = torque_loop_closed_form(p)
+    wn, z = cf.natural_frequency_rad_s, cf.damping_ratio
+    # Ogata sec. 7-5, the -3 dB bandwidth of a standard second-order system
+    wb = wn * np.sqrt(1 - 2 * z**2 + np.sqrt(4 * z**4 - 4 * z**2 + 2))
+    assert np.allclose(cf.bandwidth_Hz, wb / (2 * np.pi))
+    measured = torque_bandwidth_Hz(lambda: make_actuators(p, LIMIT), LIMIT, control_period_s=T, substeps=SUB)
+    assert np.allclose(measured, cf.bandwidth_Hz, rtol=0.03)
+    # the exoskeleton-drive range of 5-30 Hz or a little above (common practice)
+    assert 5.0 < min(measured) and max(measured) < 60.0
+    # scipy.signal: |H(j w)| of wn^2 / (s^2 + 2 zeta wn s + wn^2) at a few frequencies
+    for f in (3.0, 15.0, 30.0):
+        g = torque_frequency_response(lambda: make_actuators(p, LIMIT), np.full(len(LIMIT), f), 0.1 * LIMIT,
+                                      control_period_s=T, substeps=SUB)
+        ref = [abs(signal.freqresp(signal.lti([w * w], [1.0, 2 * zz * w, w * w]), [2 * np.pi * f])[1][0])
+               for w, zz in zip(wn, z)]
+        assert np.allclose(g, ref, rtol=0.03)
+
+
+def test_lag_bandwidth_measurement_matches_the_first_order_closed_form():
+    # a first-order lag's -3 dB frequency is 1/(2 pi T) (closed form); a slow lag keeps the 1 kHz sampling out
+    tau = 0.02
+    f = torque_bandwidth_Hz(lambda: TorqueSourceActuators(LIMIT, ActuatorParams(tau)), LIMIT, control_period_s=T,
+                            substeps=SUB)
+    assert np.allclose(f, 1 / (2 * np.pi * tau), rtol=0.01)
+    # an ideal source has no -3 dB frequency below a quarter of the control rate
+    assert torque_bandwidth_Hz(lambda: IdealActuators(LIMIT), LIMIT, control_period_s=T, substeps=SUB) == [None] * 7
+
+
+def test_spring_and_motor_store_and_return_energy_without_creating_it():
+    # closed form: 1/2 J w^2 + 1/2 k d^2 is constant without damping or input, and never rises with damping
+    p = _linear(torque_kp=0.0, torque_kd_s=0.0, motor_damping_Nm_s_per_rad=0.0)
+    q = np.zeros(len(LIMIT))
+    act = make_actuators(p, LIMIT)
+    act.reset(0.3 * LIMIT)
+    act.hold(np.zeros(len(LIMIT)))
+    act.substep(q, q, T / SUB)  # the motor placed at its start deflection
+    e0 = act.energy_J(q)
+    assert e0 == pytest.approx(sum(0.5 * (0.3 * L) ** 2 / k for L, k in zip(LIMIT, p.spring_stiffness_Nm_per_rad)),
+                               rel=1e-3)
+    energies = []
+    for _ in range(8000):  # 2 s
+        act.substep(q, q, T / SUB)
+        energies.append(act.energy_J(q))
+    assert np.allclose(energies, e0, rtol=1e-9)  # the exact step of the linear motor: round-off only
+    damped = make_actuators(dataclasses.replace(p, motor_damping_Nm_s_per_rad=EXO.viscous_friction_Nm_s_per_rad),
+                            LIMIT)
+    damped.reset(0.3 * LIMIT)
+    damped.hold(np.zeros(len(LIMIT)))
+    damped.substep(q, q, T / SUB)
+    e = [damped.energy_J(q)]
+    for _ in range(8000):
+        damped.substep(q, q, T / SUB)
+        e.append(damped.energy_J(q))
+    assert np.all(np.diff(e) <= 1e-12 * e[0]) and e[-1] < 0.9 * e[0]
+
+
+class _TimedSine(Controller):
+    """Open-loop torques that depend on time only (so that delayed runs command the same)."""
+
+    name = "timed_sine"
+
+    def step(self, m):
+        return 0.5 * np.sin(2 * np.pi * 3.0 * m.t_s + np.arange(7))
+
+
+def _short(name: str = "stand_still", **kw) -> Scenario:
+    s = load_scenario(SCENARIOS / f"{name}.py")
+    return dataclasses.replace(s, duration_s=0.06, safety=None, **kw)
+
+
+def test_control_delay_shifts_the_applied_torque_by_exactly_d_ticks():
+    # an ideal drive applies the (clipped) command at once: a delay of d ticks must shift it by d ticks, to the bit
+    runs = {d: Simulation(_short(actuators=IdealActuatorParams(), control_delay_ticks=d), _TimedSine()).run()
+            for d in (0, 3)}
+    a0, a3 = runs[0].arrays["tau_applied"], runs[3].arrays["tau_applied"]
+    assert np.array_equal(runs[0].arrays["tau_cmd"], runs[3].arrays["tau_cmd"])
+    assert np.array_equal(a3[3:], a0[:-3])
+    assert not np.array_equal(a3, a0)
+    assert runs[3].meta["drives"] == {"model": "ideal", "parameters": {}, "control_delay_ticks": 3}
+    # an ideal drive without delay tracks with zero error (the command of tick k against row k+1)
+    arr = runs[0].arrays
+    assert torque_tracking_rms_Nm(arr["tau_cmd"], arr["tau_applied"], LIMIT) == 0.0
+    assert torque_tracking_rms_Nm(runs[3].arrays["tau_cmd"], a3, LIMIT) > 0.0
+
+
+def test_command_delay_line():
+    d = CommandDelay(2)
+    out = [d.push(np.array([float(k)]))[0] for k in range(5)]
+    assert out == [0.0, 0.0, 0.0, 1.0, 2.0]  # the first command fills the line
+    with pytest.raises(ParameterError, match="CommandDelay.ticks"):
+        CommandDelay(-1)
+
+
+def test_tracking_rms_by_hand():
+    cmd = np.array([[100.0, 1.0], [0.0, 0.0], [0.0, 0.0]])
+    app = np.array([[0.0, 0.0], [80.0, 2.0], [3.0, 4.0]])
+    # rows (clip(cmd_k) - app_{k+1}): (80-80, 1-2) and (-3, -4): sqrt((1 + 25) / 2)
+    assert torque_tracking_rms_Nm(cmd, app, np.array([80.0, 20.0])) == pytest.approx(math.sqrt(13.0))
+
+
+def test_defaults_keep_the_lag_model_and_the_columns_of_before():
+    s = load_scenario(SCENARIOS / "reach.py")
+    assert type(s.actuators) is ActuatorParams and s.control_delay_ticks == 0
+    assert isinstance(make_actuators(s.actuators, LIMIT), TorqueSourceActuators)
+    sim = Simulation(dataclasses.replace(s, duration_s=0.01), "transparent")
+    assert "tau_motor" not in sim.columns and "motor_saturated" not in sim.columns
+    assert list(sim.columns) == list(log_columns("coupled", 7, 7, 3, tuple(
+        d for d in sim.controller.diagnostic_names() if not d.endswith("_time_s"))))
+    assert sim.meta["drives"]["model"] == "lag" and sim.meta["drives"]["control_delay_ticks"] == 0
+    assert sim.meta["exo_params"]["armature_kg_m2"] == list(ExoParams().armature_kg_m2)
+
+
+def test_series_elastic_run_moves_rotor_inertia_behind_the_spring_and_counts_motor_saturation():
+    weak = SeriesElasticParams(motor_torque_limit_Nm=0.5)  # a motor far too weak to hold the arm
+    s = _short("reach", actuators=weak)
+    sim = Simulation(s, "transparent")
+    traj = sim.run()
+    meta, arr = traj.meta, traj.arrays
+    assert meta["drives"]["model"] == "series_elastic"
+    assert meta["drives"]["parameters"]["motor_inertia_kg_m2"] == list(EXO.armature_kg_m2)  # the exo's armature
+    assert meta["exo_params"]["armature_kg_m2"] == [0.0] * 7 and meta["exo_params"]["coulomb_friction_Nm"] == [0.0] * 7
+    assert np.all(sim.plant.exo.model.armature == 0.0) and np.all(sim.controller.context.arm.model.armature == 0.0)
+    assert np.all(np.abs(arr["tau_motor"]) <= 0.5 + 1e-12)
+    assert arr["motor_saturated"].any()
+    # the joint-torque reading is the spring torque (no sensor noise by default)
+    assert np.allclose(arr["tau_applied"][0], np.clip(arr["tau_cmd"][0], -LIMIT, LIMIT))
+    m = drive_metrics(arr, meta, LIMIT, meta["exo_joints"])
+    assert m["drive_model"] == "series_elastic" and 0.0 < m["motor_saturation_fraction"] <= 1.0
+    assert set(m["torque_bandwidth_Hz"]) == set(meta["exo_joints"])
+
+
+@pytest.mark.parametrize("kw, match", [
+    ({"actuators": SeriesElasticParams(loop_rate_Hz=3000.0)}, "actuators.loop_rate_Hz must be the substep rate"),
+    ({"control_delay_ticks": -1}, "control_delay_ticks must be an integer >= 0"),
+    ({"control_delay_ticks": 2000}, "control_delay_ticks = 2000"),
+    ({"actuators": "lag"}, "actuators must be a ActuatorParams or IdealActuatorParams or SeriesElasticParams"),
+])
+def test_bad_drive_fields_name_the_culprit(kw, match):
+    s = load_scenario(SCENARIOS / "reach.py")
+    with pytest.raises(ParameterError, match=match):
+        dataclasses.replace(s, **kw)
+
+
+def test_series_elastic_params_check_their_fields():
+    with pytest.raises(ParameterError, match=r"spring_stiffness_Nm_per_rad must be a number or 7 numbers"):
+        SeriesElasticParams(spring_stiffness_Nm_per_rad=(1.0, 2.0))
+    with pytest.raises(ParameterError, match=r"motor_inertia_kg_m2\[0\] must be > 0"):
+        SeriesElasticParams(motor_inertia_kg_m2=0.0)
+    assert SeriesElasticParams(torque_kp=2.0).torque_kp == (2.0,) * 7
+
+
+def test_wall_push_sea_keeps_for_subject():
+    from sim.loop.scenario import load_scenario as load
+
+    s = load(SCENARIOS / "wall_push_sea.py", subject="f5")
+    base = load(SCENARIOS / "wall_push.py", subject="f5")
+    assert isinstance(s.actuators, SeriesElasticParams) and s.walls == base.walls and s.intent == base.intent
