@@ -21,14 +21,22 @@ to the exoskeleton's armature and friction values (:meth:`SeriesElasticParams.re
 Inner torque loop (sampled at ``loop_rate_Hz``, held in between): a PD law
 on the spring torque with unit feed-forward of the desired torque
 :math:`\\tau_d` (the controller's command, clipped to the joint's torque
-limit), the derivative on the measurement (no derivative kick),
+limit), the derivative on the measurement (no derivative kick), and a
+feed-forward of the motor's own inertia and viscous damping as the joint
+moves (``motor_feedforward``), so that the motor follows the joint without
+the spring having to drag it,
 
 .. math::
 
     \\tau_m = \\operatorname{sat}_{\\tau_{m,max}}\\big(\\tau_d + K_p (\\tau_d - \\tau_s)
-               - K_d \\dot\\tau_s\\big), \\qquad \\dot\\tau_s = k_s(\\dot\\theta_m - \\dot q).
+               - K_d \\dot\\tau_s + J_m \\hat{\\ddot q} + b_m \\dot q\\big), \\qquad
+    \\dot\\tau_s = k_s(\\dot\\theta_m - \\dot q),
 
-With the output locked (:math:`q = 0`), no Coulomb friction and a
+with :math:`\\hat{\\ddot q}` the backward difference of the joint speed
+between two loop samples (the joint and motor encoders are what the drive
+reads).
+
+With the output locked (:math:`q = 0`, the feed-forward then nil), no Coulomb friction and a
 continuous loop it closes to the standard second-order system
 
 .. math::
@@ -43,12 +51,15 @@ step overshoot :math:`e^{-\\pi\\zeta/\\sqrt{1-\\zeta^2}}` ([Ogata2010]_, section
 7-5; :func:`torque_loop_closed_form`).  Without the loop (:math:`K_p = K_d = 0`,
 :math:`\\tau_m = \\tau_d`) the locked drive rings at :math:`\\sqrt{k_s/J_m}`.
 
-Integration: over each physics substep of length h the joint position q and
-the motor torque are held and the linear part of the motor (inertia, spring,
-viscous damping) is stepped exactly, :math:`x_{k+1} = \\Phi x_k + \\Gamma u_k`,
-:math:`\\Phi = e^{Ah}` (zero-order-hold discretisation, [FranklinPowellWorkman1998]_
-ch. 4); the Coulomb term enters the held input.  The spring torque applied to
-the joint over the substep is that at its start.
+Integration: over each physics substep of length h the motor torque is held
+and the joint is taken to move at the speed it has at the substep's start,
+:math:`q(t) = q_0 + \\dot q_0 t`; the linear part of the motor (inertia, spring,
+viscous damping) is then stepped exactly, :math:`x_{k+1} = \\Phi x_k + \\Gamma_0 u_0
++ \\Gamma_1 u_1` with :math:`u(t) = u_0 + u_1 t`, :math:`\\Phi = e^{Ah}` (hold
+discretisation, [FranklinPowellWorkman1998]_ ch. 4; :math:`\\Gamma_0, \\Gamma_1` from
+the exponential of the augmented matrix); the Coulomb term enters the held
+input.  The spring torque applied to the joint over the substep is that at
+its start.
 
 References
 ----------
@@ -132,6 +143,8 @@ class SeriesElasticParams:
       :math:`K_d = (2\\zeta J_m\\omega_n - b_m)/k_s` (floored at 0).  The
       closed loop's bandwidth is then about 23-45 Hz per joint, at or just
       above the 5-30 Hz typical of exoskeleton SEA drives (common practice).
+    * ``motor_feedforward`` = True: the loop adds :math:`J_m \\hat{\\ddot q} + b_m \\dot q` (module
+      docstring; feed-forward of the motor's inertia, common practice).
     * ``loop_rate_Hz`` = 4000 Hz (inner current/torque loops run at 1-10 kHz,
       common practice); the physics substep rate must be a whole multiple of it.
     * ``coulomb_smoothing_rad_s`` = 0.01 rad/s, as the plant's friction
@@ -148,6 +161,7 @@ class SeriesElasticParams:
     torque_kp: float | tuple[float, ...] = 1.0
     torque_kd_s: float | tuple[float, ...] | None = None
     torque_damping_ratio: float = 0.7
+    motor_feedforward: bool = True
     loop_rate_Hz: float = 4000.0
     coulomb_smoothing_rad_s: float = 0.01
 
@@ -162,6 +176,8 @@ class SeriesElasticParams:
                 object.__setattr__(self, name, _per_joint(o, name, v, units[name], name in _POSITIVE))
         object.__setattr__(self, "torque_damping_ratio",
                            in_range(o, "torque_damping_ratio", self.torque_damping_ratio, 0.05, 5.0))
+        if not isinstance(self.motor_feedforward, bool):
+            raise ParameterError(f"{o}.motor_feedforward must be True or False, got {self.motor_feedforward!r}")
         object.__setattr__(self, "loop_rate_Hz", positive(o, "loop_rate_Hz", self.loop_rate_Hz, "Hz"))
         object.__setattr__(self, "coulomb_smoothing_rad_s",
                            positive(o, "coulomb_smoothing_rad_s", self.coulomb_smoothing_rad_s, "rad/s"))
@@ -237,13 +253,15 @@ def loop_decimation(loop_rate_Hz: float, substep_s: float) -> int | None:
 
 
 @numba.njit(cache=True)
-def _sea_substep(state, q, v, u_cmd, par, phi, gam, smoothing, update, tau_out, saturated):
+def _sea_substep(state, q, v, u_cmd, par, phi, gam, gam1, smoothing, update, loop_dt, tau_out, saturated):
     """One substep of every joint's drive, in place; see the module docstring.
 
-    ``state`` (3, n): motor angle [rad], motor speed [rad/s], motor torque [N m] (held between loop updates).
-    ``par`` (6, n): k_s, K_p, K_d, motor torque limit, Coulomb torque, (unused).  ``phi`` (n, 2, 2) and
-    ``gam`` (n, 2): the exact step of the linear motor for a unit held input.  ``update``: the loop samples now.
-    Writes the spring torque over the substep into ``tau_out`` and, on an update, the saturation flags.
+    ``state`` (4, n): motor angle [rad], motor speed [rad/s], motor torque [N m] (held between loop updates),
+    joint speed at the last loop update [rad/s].  ``par`` (7, n): k_s, K_p, K_d, motor torque limit, Coulomb
+    torque, and the feed-forward's J_m and b_m (zero without it).  ``phi`` (n, 2, 2), ``gam`` and ``gam1``
+    (n, 2): the exact step of the linear motor for a unit held input and a unit ramp of input.  ``update``: the
+    loop samples now, ``loop_dt`` [s] after the last sample.  Writes the spring torque over the substep into
+    ``tau_out`` and, on an update, the saturation flags.
     """
     for i in range(q.shape[0]):
         th, om = state[0, i], state[1, i]
@@ -251,13 +269,16 @@ def _sea_substep(state, q, v, u_cmd, par, phi, gam, smoothing, update, tau_out, 
         ts = k * (th - q[i])
         if update:
             dts = k * (om - v[i])
-            tm = u_cmd[i] + par[1, i] * (u_cmd[i] - ts) - par[2, i] * dts
+            acc = (v[i] - state[3, i]) / loop_dt
+            state[3, i] = v[i]
+            tm = u_cmd[i] + par[1, i] * (u_cmd[i] - ts) - par[2, i] * dts + par[5, i] * acc + par[6, i] * v[i]
             lim = par[3, i]
             saturated[i] = abs(tm) > lim
             state[2, i] = -lim if tm < -lim else (lim if tm > lim else tm)
         u = state[2, i] - par[4, i] * math.tanh(om / smoothing) + k * q[i]
-        state[0, i] = phi[i, 0, 0] * th + phi[i, 0, 1] * om + gam[i, 0] * u
-        state[1, i] = phi[i, 1, 0] * th + phi[i, 1, 1] * om + gam[i, 1] * u
+        u1 = k * v[i]  # the joint's motion over the substep, a ramp of the spring's input
+        state[0, i] = phi[i, 0, 0] * th + phi[i, 0, 1] * om + gam[i, 0] * u + gam1[i, 0] * u1
+        state[1, i] = phi[i, 1, 0] * th + phi[i, 1, 1] * om + gam[i, 1] * u + gam1[i, 1] * u1
         tau_out[i] = ts
 
 
@@ -289,22 +310,24 @@ class SeriesElasticActuators(Actuators):
         n = self._limit.shape[0]
         if n != N_DRIVE_JOINTS:
             raise ParameterError(f"SeriesElasticActuators: torque_limit_Nm must have {N_DRIVE_JOINTS} entries, got {n}")
-        self._par = np.zeros((6, n))
+        self._par = np.zeros((7, n))
         for row, f in enumerate(("spring_stiffness_Nm_per_rad", "torque_kp", "torque_kd_s", "motor_torque_limit_Nm",
                                  "motor_coulomb_Nm")):
             self._par[row] = getattr(params, f)
         self._J = np.asarray(params.motor_inertia_kg_m2, dtype=float)
         self._b = np.asarray(params.motor_damping_Nm_s_per_rad, dtype=float)
-        self._state = np.zeros((3, n))
+        if params.motor_feedforward:
+            self._par[5], self._par[6] = self._J, self._b
+        self._state = np.zeros((4, n))
         self._u = np.zeros(n)  # the held command, clipped to the joint torque limit
         self._tau = np.zeros(n)  # the spring torque over the last substep
         self._saturated = np.zeros(n, dtype=np.bool_)  # the motor torque at its limit (last loop update)
         self._pending: np.ndarray | None = np.zeros(n)  # the spring torque to start at, placed at the first substep
         self._count = 0
-        self._steps: dict[float, tuple[np.ndarray, np.ndarray, int]] = {}
+        self._steps: dict[float, tuple[np.ndarray, np.ndarray, np.ndarray, int]] = {}
 
     # -- the exact step of the linear motor --------------------------------------------------
-    def _step_matrices(self, dt_s: float) -> tuple[np.ndarray, np.ndarray, int]:
+    def _step_matrices(self, dt_s: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, int]:
         got = self._steps.get(dt_s)
         if got is None:
             n_loop = loop_decimation(self.params.loop_rate_Hz, dt_s)
@@ -312,15 +335,17 @@ class SeriesElasticActuators(Actuators):
                 raise ParameterError(f"SeriesElasticParams.loop_rate_Hz must divide the substep rate {1 / dt_s:g} Hz "
                                      f"by a whole number, got {self.params.loop_rate_Hz!r}")
             n = self._J.shape[0]
-            phi, gam = np.zeros((n, 2, 2)), np.zeros((n, 2))
+            phi, gam, gam1 = np.zeros((n, 2, 2)), np.zeros((n, 2)), np.zeros((n, 2))
             k = self._par[0]
             for i in range(n):
-                M = np.zeros((3, 3))
+                # x' = A x + B u, u' = u1, u1' = 0: its exponential holds Phi, Gamma_0 and Gamma_1
+                M = np.zeros((4, 4))
                 M[0, 1] = 1.0
                 M[1, 0], M[1, 1], M[1, 2] = -k[i] / self._J[i], -self._b[i] / self._J[i], 1.0 / self._J[i]
+                M[2, 3] = 1.0
                 E = expm(M * dt_s)
-                phi[i], gam[i] = E[:2, :2], E[:2, 2]
-            got = self._steps[dt_s] = (phi, gam, n_loop)
+                phi[i], gam[i], gam1[i] = E[:2, :2], E[:2, 2], E[:2, 3]
+            got = self._steps[dt_s] = (phi, gam, gam1, n_loop)
         return got
 
     # -- Actuators -------------------------------------------------------------------------
@@ -339,17 +364,18 @@ class SeriesElasticActuators(Actuators):
         return saturated
 
     def substep(self, q: np.ndarray, v: np.ndarray, dt_s: float) -> np.ndarray:
-        phi, gam, n_loop = self._step_matrices(dt_s)
+        phi, gam, gam1, n_loop = self._step_matrices(dt_s)
         q = np.asarray(q, dtype=float)
         v = np.asarray(v, dtype=float)
         if self._pending is not None:  # steady state: the motor wound up to the start torque, moving with the joint
             self._state[0] = q + self._pending / self._par[0]
             self._state[1] = v
+            self._state[3] = v
             self._pending = None
         update = self._count % n_loop == 0
         self._count += 1
-        _sea_substep(self._state, q, v, self._u, self._par, phi, gam, self.params.coulomb_smoothing_rad_s, update,
-                     self._tau, self._saturated)
+        _sea_substep(self._state, q, v, self._u, self._par, phi, gam, gam1, self.params.coulomb_smoothing_rad_s, update,
+                     n_loop * dt_s, self._tau, self._saturated)
         return self._tau
 
     @property
