@@ -181,6 +181,15 @@ def test_control_delay_shifts_the_applied_torque_by_exactly_d_ticks():
     assert torque_tracking_rms_Nm(runs[3].arrays["tau_cmd"], a3, LIMIT) > 0.0
 
 
+def test_a_control_delay_fault_adds_to_the_run_s_delay():
+    from sim import ControlDelay
+
+    fault = ControlDelay(name="late", ticks=1, start_s=0.0, end_s=1.0)
+    a = Simulation(_short(actuators=IdealActuatorParams(), control_delay_ticks=2, faults=(fault,)), _TimedSine()).run()
+    b = Simulation(_short(actuators=IdealActuatorParams(), control_delay_ticks=3), _TimedSine()).run()
+    assert np.array_equal(a.arrays["tau_applied"], b.arrays["tau_applied"])
+
+
 def test_command_delay_line():
     d = CommandDelay(2)
     out = [d.push(np.array([float(k)]))[0] for k in range(5)]

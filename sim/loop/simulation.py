@@ -4,10 +4,13 @@ One control tick of period T (default 1 ms):
 
 1. the sensors read the plant (encoders, joint torque, cuff force/torque);
 2. the controller maps that :class:`~models.records.Measurement` to a
-   torque command, held for the period (zero-order hold);
+   torque command; it reaches the drives ``Scenario.control_delay_ticks``
+   ticks later (:class:`~sim.physics.actuators.CommandDelay`; 0 by default),
+   where it is held for the period (zero-order hold);
 3. the human's torque is computed from their intent and own state;
 4. the plant advances by ``substeps`` semi-implicit Euler steps of T/substeps
-   (:class:`~sim.physics.plant.CoupledPlant`), the actuators' lag integrated alongside;
+   (:class:`~sim.physics.plant.CoupledPlant`), the drives (a lag, or series-elastic motors with their
+   torque loop, :func:`~sim.physics.actuators.make_actuators`) stepped alongside;
 5. the tick's row is kept: in memory (a :class:`Trajectory`), or streamed to a
    :class:`~sim.loop.runlog.RunLog` as the run goes.
 
@@ -15,7 +18,10 @@ A scenario's timed faults (:mod:`sim.physics.faults`) act at hooks of this
 tick through a :class:`~sim.physics.faults.FaultSchedule`: the cuffs' stiffness
 before the cuff update, what the encoders read and what the controller gets in
 1, what the drives take and deliver in 2 and 4, the wearer's torque in 3.  A
-run without faults skips every hook.
+run without faults skips every hook.  The drives take the command in this
+order: the controller's, delayed by the run's control delay, then changed by
+the active faults (a :class:`~sim.physics.faults.ControlDelay` fault delays the
+already delayed command further).
 
 Runs are deterministic: all randomness comes from one seed through
 ``numpy.random.SeedSequence``; the same seed gives bit-identical rows, whether

@@ -510,8 +510,10 @@ def drives_section(meta: Mapping, metrics: Mapping) -> list[str]:
         text += [f"Series-elastic drives (Pratt & Williamson 1995): a motor behind a torsion spring per joint, the "
                  f"spring's deflection the joint-torque reading, an inner PD torque loop at "
                  f"{fmt(p.get('loop_rate_Hz'))} Hz (damping ratio {fmt(p.get('torque_damping_ratio'))} when K_d is "
-                 "derived). The rotor inertia and gear friction are on the motor side: the robot model of this run "
-                 "has zero armature and joint friction.", ""]
+                 "derived), " + ("with" if p.get("motor_feedforward") else "without")
+                 + " feed-forward of the motor's inertia and damping as the joint moves. The rotor inertia and gear "
+                 "friction are on the motor side: the robot model of this run has zero armature and joint friction.",
+                 ""]
         rows = [[n, *(fmt((p.get(key) or [None] * len(names))[i]) for key, _ in _SEA_COLUMNS), fmt(bw.get(n))]
                 for i, n in enumerate(names)]
         text += [markdown_table(["joint", *(h for _, h in _SEA_COLUMNS), "bandwidth [Hz]"], rows), ""]
