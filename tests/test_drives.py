@@ -288,3 +288,15 @@ def test_moving_output_drags_the_motor_unless_fed_forward(feedforward):
     ref = np.zeros(7) if feedforward else c0 + c1 * t
     # the loop samples at 4 kHz and estimates the acceleration by a backward difference: 2 % of the drag
     assert np.allclose(tau, ref, atol=0.02 * np.max(np.abs(J * acc + b * acc * t)))
+
+
+def test_drives_report_section_only_for_other_drives_than_the_default():
+    from sim.output.report import drives_section
+
+    default = Simulation(_short(), "transparent").meta
+    assert drives_section(default, {"drive_model": "lag"}) == []
+    sea = Simulation(_short(actuators=SeriesElasticParams(), control_delay_ticks=2), "transparent").meta
+    text = "\n".join(drives_section(sea, {"torque_tracking_rms_Nm": 1.5, "motor_saturation_fraction": 0.0,
+                                          "torque_bandwidth_Hz": {n: 20.0 for n in sea["exo_joints"]}}))
+    assert "## Drives" in text and "Series-elastic" in text and "Control delay: 2 tick(s)" in text
+    assert "| exo_elbow | 400 |" in text  # the elbow's spring stiffness [N m/rad] in its row
