@@ -264,13 +264,14 @@ def test_wall_push_sea_keeps_for_subject():
     assert isinstance(s.actuators, SeriesElasticParams) and s.walls == base.walls and s.intent == base.intent
 
 
-@pytest.mark.parametrize("feedforward", [False, True])
-def test_moving_output_drags_the_motor_unless_fed_forward(feedforward):
+@pytest.mark.parametrize("damping, inertia", [(False, False), (True, False), (True, True)])
+def test_moving_output_drags_the_motor_unless_fed_forward(damping, inertia):
     # closed form, steady state of the loop under a uniformly accelerating joint, tau_d = 0: with
     # theta_m = q + tau_s / k_s, J_m theta_m'' + b_m theta_m' = tau_m - tau_s, tau_m = -K_p tau_s - K_d tau_s' + FF,
     # tau_s = c0 + c1 t solves it without the feed-forward (FF = 0) for c1 = -b_m a / (1 + K_p) and
-    # c0 = -(J_m a + b_m c1 / k_s + K_d c1) / (1 + K_p); with FF = J_m a + b_m v, tau_s = 0
-    p = dataclasses.replace(_linear(), motor_feedforward=feedforward)
+    # c0 = -(J_m a + b_m c1 / k_s + K_d c1) / (1 + K_p); with FF = b_m v, c1 = 0 and c0 = -J_m a / (1 + K_p);
+    # with FF = J_m a + b_m v, tau_s = 0
+    p = dataclasses.replace(_linear(), damping_feedforward=damping, inertia_feedforward=inertia)
     act = make_actuators(p, LIMIT)
     act.reset(np.zeros(7))
     act.hold(np.zeros(7))
@@ -283,9 +284,9 @@ def test_moving_output_drags_the_motor_unless_fed_forward(feedforward):
     tau = act.delivered_Nm(np.full(7, 0.5 * acc * t * t), np.full(7, acc * t))
     J, b = np.array(p.motor_inertia_kg_m2), np.array(p.motor_damping_Nm_s_per_rad)
     k, kp, kd = (np.array(getattr(p, f)) for f in ("spring_stiffness_Nm_per_rad", "torque_kp", "torque_kd_s"))
-    c1 = -b * acc / (1.0 + kp)
+    c1 = np.zeros(7) if damping else -b * acc / (1.0 + kp)
     c0 = -(J * acc + b * c1 / k + kd * c1) / (1.0 + kp)
-    ref = np.zeros(7) if feedforward else c0 + c1 * t
+    ref = np.zeros(7) if inertia else c0 + c1 * t
     # the loop samples at 4 kHz and estimates the acceleration by a backward difference: 2 % of the drag
     assert np.allclose(tau, ref, atol=0.02 * np.max(np.abs(J * acc + b * acc * t)))
 

@@ -510,8 +510,9 @@ def drives_section(meta: Mapping, metrics: Mapping) -> list[str]:
         text += [f"Series-elastic drives (Pratt & Williamson 1995): a motor behind a torsion spring per joint, the "
                  f"spring's deflection the joint-torque reading, an inner PD torque loop at "
                  f"{fmt(p.get('loop_rate_Hz'))} Hz (damping ratio {fmt(p.get('torque_damping_ratio'))} when K_d is "
-                 "derived), " + ("with" if p.get("motor_feedforward") else "without")
-                 + " feed-forward of the motor's inertia and damping as the joint moves. The rotor inertia and gear "
+                 "derived), feed-forward of the motor's damping " + ("on" if p.get("damping_feedforward") else "off")
+                 + " and of its inertia " + ("on" if p.get("inertia_feedforward") else "off")
+                 + " as the joint moves. The rotor inertia and gear "
                  "friction are on the motor side: the robot model of this run has zero armature and joint friction.",
                  ""]
         rows = [[n, *(fmt((p.get(key) or [None] * len(names))[i]) for key, _ in _SEA_COLUMNS), fmt(bw.get(n))]

@@ -21,20 +21,28 @@ to the exoskeleton's armature and friction values (:meth:`SeriesElasticParams.re
 Inner torque loop (sampled at ``loop_rate_Hz``, held in between): a PD law
 on the spring torque with unit feed-forward of the desired torque
 :math:`\\tau_d` (the controller's command, clipped to the joint's torque
-limit), the derivative on the measurement (no derivative kick), and a
-feed-forward of the motor's own inertia and viscous damping as the joint
-moves (``motor_feedforward``), so that the motor follows the joint without
-the spring having to drag it,
+limit), the derivative on the measurement (no derivative kick), and
+feed-forwards of the motor's own viscous damping (``damping_feedforward``,
+on by default) and inertia (``inertia_feedforward``, off by default) as the
+joint moves, so that the motor follows the joint without the spring having
+to drag it,
 
 .. math::
 
     \\tau_m = \\operatorname{sat}_{\\tau_{m,max}}\\big(\\tau_d + K_p (\\tau_d - \\tau_s)
-               - K_d \\dot\\tau_s + J_m \\hat{\\ddot q} + b_m \\dot q\\big), \\qquad
+               - K_d \\dot\\tau_s + [J_m \\hat{\\ddot q}] + [b_m \\dot q]\\big), \\qquad
     \\dot\\tau_s = k_s(\\dot\\theta_m - \\dot q),
 
 with :math:`\\hat{\\ddot q}` the backward difference of the joint speed
 between two loop samples (the joint and motor encoders are what the drive
-reads).
+reads).  The inertia feed-forward is a delayed positive feedback of the
+joint's acceleration: where the motor's inertia exceeds the link-side inertia
+of its joint it destabilises the joint (inertia compensation by acceleration
+feedback is stable only below the physical inertia, common practice, from
+memory).  On the shipped exoskeleton the forearm and wrist links carry
+0.002-0.004 kg m^2 against motor inertias of 0.005-0.01 kg m^2, and the wall
+push with it on chatters at those joints with the motors at their limits: it
+stays off unless asked for.
 
 With the output locked (:math:`q = 0`, the feed-forward then nil), no Coulomb friction and a
 continuous loop it closes to the standard second-order system
@@ -143,8 +151,10 @@ class SeriesElasticParams:
       :math:`K_d = (2\\zeta J_m\\omega_n - b_m)/k_s` (floored at 0).  The
       closed loop's bandwidth is then about 23-45 Hz per joint, at or just
       above the 5-30 Hz typical of exoskeleton SEA drives (common practice).
-    * ``motor_feedforward`` = True: the loop adds :math:`J_m \\hat{\\ddot q} + b_m \\dot q` (module
-      docstring; feed-forward of the motor's inertia, common practice).
+    * ``damping_feedforward`` = True: the loop adds :math:`b_m \\dot q` (the motor's viscous damping as
+      the joint moves; common practice).
+    * ``inertia_feedforward`` = False: :math:`J_m \\hat{\\ddot q}` would be added; off, as it destabilises
+      joints whose motor inertia exceeds their link-side inertia (module docstring).
     * ``loop_rate_Hz`` = 4000 Hz (inner current/torque loops run at 1-10 kHz,
       common practice); the physics substep rate must be a whole multiple of it.
     * ``coulomb_smoothing_rad_s`` = 0.01 rad/s, as the plant's friction
@@ -161,7 +171,8 @@ class SeriesElasticParams:
     torque_kp: float | tuple[float, ...] = 1.0
     torque_kd_s: float | tuple[float, ...] | None = None
     torque_damping_ratio: float = 0.7
-    motor_feedforward: bool = True
+    damping_feedforward: bool = True
+    inertia_feedforward: bool = False
     loop_rate_Hz: float = 4000.0
     coulomb_smoothing_rad_s: float = 0.01
 
@@ -176,8 +187,9 @@ class SeriesElasticParams:
                 object.__setattr__(self, name, _per_joint(o, name, v, units[name], name in _POSITIVE))
         object.__setattr__(self, "torque_damping_ratio",
                            in_range(o, "torque_damping_ratio", self.torque_damping_ratio, 0.05, 5.0))
-        if not isinstance(self.motor_feedforward, bool):
-            raise ParameterError(f"{o}.motor_feedforward must be True or False, got {self.motor_feedforward!r}")
+        for name in ("damping_feedforward", "inertia_feedforward"):
+            if not isinstance(getattr(self, name), bool):
+                raise ParameterError(f"{o}.{name} must be True or False, got {getattr(self, name)!r}")
         object.__setattr__(self, "loop_rate_Hz", positive(o, "loop_rate_Hz", self.loop_rate_Hz, "Hz"))
         object.__setattr__(self, "coulomb_smoothing_rad_s",
                            positive(o, "coulomb_smoothing_rad_s", self.coulomb_smoothing_rad_s, "rad/s"))
@@ -258,7 +270,7 @@ def _sea_substep(state, q, v, u_cmd, par, phi, gam, gam1, smoothing, update, loo
 
     ``state`` (4, n): motor angle [rad], motor speed [rad/s], motor torque [N m] (held between loop updates),
     joint speed at the last loop update [rad/s].  ``par`` (7, n): k_s, K_p, K_d, motor torque limit, Coulomb
-    torque, and the feed-forward's J_m and b_m (zero without it).  ``phi`` (n, 2, 2), ``gam`` and ``gam1``
+    torque, and the feed-forwards' J_m and b_m (each zero without it).  ``phi`` (n, 2, 2), ``gam`` and ``gam1``
     (n, 2): the exact step of the linear motor for a unit held input and a unit ramp of input.  ``update``: the
     loop samples now, ``loop_dt`` [s] after the last sample.  Writes the spring torque over the substep into
     ``tau_out`` and, on an update, the saturation flags.
@@ -316,8 +328,10 @@ class SeriesElasticActuators(Actuators):
             self._par[row] = getattr(params, f)
         self._J = np.asarray(params.motor_inertia_kg_m2, dtype=float)
         self._b = np.asarray(params.motor_damping_Nm_s_per_rad, dtype=float)
-        if params.motor_feedforward:
-            self._par[5], self._par[6] = self._J, self._b
+        if params.inertia_feedforward:
+            self._par[5] = self._J
+        if params.damping_feedforward:
+            self._par[6] = self._b
         self._state = np.zeros((4, n))
         self._u = np.zeros(n)  # the held command, clipped to the joint torque limit
         self._tau = np.zeros(n)  # the spring torque over the last substep
