@@ -22,7 +22,6 @@ References
 from __future__ import annotations
 
 import math
-from abc import ABC, abstractmethod
 from dataclasses import dataclass
 from typing import ClassVar
 
@@ -31,6 +30,8 @@ import numpy as np
 
 from models.checks import positive
 from models.errors import ParameterError
+from sim.physics.drive_base import Actuators, saturate
+from sim.physics.sea import SeriesElasticActuators, SeriesElasticParams
 
 __all__ = ["ActuatorParams", "Actuators", "TorqueSourceActuators", "IdealActuatorParams", "IdealActuators",
            "make_actuators", "drive_model", "saturate", "CommandDelay"]
@@ -60,41 +61,6 @@ class IdealActuatorParams:
     """An ideal torque source: the applied torque is the command clipped to the joint's torque limit, at once."""
 
     model: ClassVar[str] = "ideal"
-
-
-class Actuators(ABC):
-    """What turns a torque command into joint torque."""
-
-    @abstractmethod
-    def reset(self, tau0_Nm: np.ndarray) -> None:
-        """Start with applied torque ``tau0_Nm`` (nv,)."""
-
-    @abstractmethod
-    def hold(self, command_Nm: np.ndarray) -> np.ndarray:
-        """Take a new command (held for the control period); returns the saturation flags (nv,) bool."""
-
-    @abstractmethod
-    def substep(self, q: np.ndarray, v: np.ndarray, dt_s: float) -> np.ndarray:
-        """Advance by ``dt_s``; returns the applied joint torque (nv,) [N m]."""
-
-    @property
-    @abstractmethod
-    def applied_Nm(self) -> np.ndarray:
-        """The joint torque applied now (nv,) [N m] (a copy)."""
-
-    def delivered_Nm(self, q: np.ndarray, v: np.ndarray) -> np.ndarray:
-        """The joint torque delivered at the joint state ``q`` [rad], ``v`` [rad/s] (nv,) [N m], what a joint
-        torque sensor reads: a torque source's does not depend on the joint state (:attr:`applied_Nm`)."""
-        return self.applied_Nm
-
-
-@numba.njit(cache=True)
-def saturate(command, limit, out, saturated):
-    """``out = clip(command, -limit, limit)`` and ``saturated = |command| > limit`` (numpy semantics)."""
-    for i in range(command.shape[0]):
-        c, lim = command[i], limit[i]
-        out[i] = -lim if c < -lim else (lim if c > lim else c)
-        saturated[i] = abs(c) > lim
 
 
 @numba.njit(cache=True)
@@ -202,8 +168,6 @@ def make_actuators(params, torque_limit_Nm: np.ndarray, *, exo=None) -> Actuator
         (:meth:`sim.physics.sea.SeriesElasticParams.resolved`); needed for
         those unless ``params`` is resolved already.
     """
-    from sim.physics.sea import SeriesElasticActuators, SeriesElasticParams  # sea builds on this module
-
     if isinstance(params, IdealActuatorParams):
         return IdealActuators(torque_limit_Nm, params)
     if isinstance(params, ActuatorParams):

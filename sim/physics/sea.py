@@ -94,7 +94,7 @@ from scipy.linalg import expm
 from models.checks import in_range, nonnegative, positive
 from models.errors import ParameterError
 from models.exo import ExoParams
-from sim.physics.actuators import Actuators, saturate
+from sim.physics.drive_base import Actuators, saturate
 
 __all__ = ["SeriesElasticParams", "SeriesElasticActuators", "TorqueLoopClosedForm", "torque_loop_closed_form",
            "N_DRIVE_JOINTS", "loop_decimation"]
