@@ -146,6 +146,10 @@ class SeriesElasticParams:
       (the drive's peak torque is what limits the joint).
     * ``torque_kp`` = 1 (a proportional torque gain of order one, common
       practice; it raises the loop's natural frequency by :math:`\\sqrt 2`).
+      Higher gains widen the locked-output bandwidth but cost passivity
+      against the light, compliant load of the arm (a known limit of SEA
+      torque control, from memory): with :math:`K_p = 4` the wall push chatters
+      with the motors at their limits a third of the time.
     * ``torque_kd_s``: None, chosen per joint for the damping ratio
       ``torque_damping_ratio`` = 0.7 of the locked loop (common practice) by
       :math:`K_d = (2\\zeta J_m\\omega_n - b_m)/k_s` (floored at 0).  The
