@@ -240,7 +240,7 @@ def test_series_elastic_run_moves_rotor_inertia_behind_the_spring_and_counts_mot
     ({"actuators": SeriesElasticParams(loop_rate_Hz=3000.0)}, "actuators.loop_rate_Hz must be the substep rate"),
     ({"control_delay_ticks": -1}, "control_delay_ticks must be an integer >= 0"),
     ({"control_delay_ticks": 2000}, "control_delay_ticks = 2000"),
-    ({"actuators": "lag"}, "actuators must be a ActuatorParams or IdealActuatorParams or SeriesElasticParams"),
+    ({"actuators": "lag"}, "actuators must be a ActuatorParams, IdealActuatorParams or SeriesElasticParams, got str"),
 ])
 def test_bad_drive_fields_name_the_culprit(kw, match):
     s = load_scenario(SCENARIOS / "reach.py")

@@ -152,8 +152,9 @@ class Scenario:
                            ("force_sensor", ForceSensorParams),
                            ("actuators", (ActuatorParams, IdealActuatorParams, SeriesElasticParams))):
             if not isinstance(getattr(self, name), kind):
-                want = (" or ".join(k.__name__ if k is not type(None) else "None" for k in kind)
-                        if isinstance(kind, tuple) else kind.__name__)
+                names = [k.__name__ if k is not type(None) else "None" for k in
+                         (kind if isinstance(kind, tuple) else (kind,))]
+                want = names[0] if len(names) == 1 else ", ".join(names[:-1]) + " or " + names[-1]
                 raise ParameterError(f"{o}.{name} must be a {want}, got {type(getattr(self, name)).__name__}")
         delay_s = self.force_sensor.delay_ticks * self.control_period_s
         if delay_s > MAX_SENSOR_DELAY_S:
