@@ -27,11 +27,12 @@ from models.exo import ExoParams
 from sim import IdealActuatorParams, Scenario, SeriesElasticParams, Simulation, load_scenario
 from sim.analysis.drives import (
     drive_metrics,
+    drive_params_from_meta,
     torque_bandwidth_Hz,
     torque_frequency_response,
     torque_tracking_rms_Nm,
 )
-from sim.loop.simulation import log_columns
+from sim.loop.simulation import drive_params, log_columns
 from sim.physics.actuators import ActuatorParams, CommandDelay, IdealActuators, TorqueSourceActuators, make_actuators
 from sim.physics.sea import SeriesElasticActuators, torque_loop_closed_form
 
@@ -231,6 +232,7 @@ def test_series_elastic_run_moves_rotor_inertia_behind_the_spring_and_counts_mot
     assert arr["motor_saturated"].any()
     # the joint-torque reading is the spring torque (no sensor noise by default)
     assert np.allclose(arr["tau_applied"][0], np.clip(arr["tau_cmd"][0], -LIMIT, LIMIT))
+    assert drive_params_from_meta(meta["drives"]) == drive_params(s)  # meta.json rebuilds the run's drives
     m = drive_metrics(arr, meta, LIMIT, meta["exo_joints"])
     assert m["drive_model"] == "series_elastic" and 0.0 < m["motor_saturation_fraction"] <= 1.0
     assert set(m["torque_bandwidth_Hz"]) == set(meta["exo_joints"])
