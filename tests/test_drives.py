@@ -303,3 +303,12 @@ def test_drives_report_section_only_for_other_drives_than_the_default():
                                           "torque_bandwidth_Hz": {n: 20.0 for n in sea["exo_joints"]}}))
     assert "## Drives" in text and "Series-elastic" in text and "Control delay: 2 tick(s)" in text
     assert "| exo_elbow | 400 |" in text  # the elbow's spring stiffness [N m/rad] in its row
+
+
+def test_per_joint_bandwidths_flatten_for_tables():
+    from sim.analysis.metrics import flat_metrics
+    from sim.output.report import key_info
+
+    flat = flat_metrics({"drive_model": "lag", "torque_bandwidth_Hz": {"exo_elbow": 79.6}})
+    assert flat == {"drive_model": "lag", "torque_bandwidth_Hz.exo_elbow": 79.6}
+    assert key_info("torque_bandwidth_Hz.exo_elbow")[:2] == ("Hz", "higher")

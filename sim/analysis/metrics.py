@@ -1109,7 +1109,8 @@ def is_timing_key(key: str) -> bool:
 
 def flat_metrics(metrics: Mapping) -> dict:
     """Scalar metrics as one flat dict: top-level scalars as they are, per-cuff values as ``cuffs.NAME.KEY``,
-    per-level solve times as ``hqp_levels.I.KEY``; lists of cycles are left out."""
+    per-level solve times as ``hqp_levels.I.KEY``, per-joint drive bandwidths as ``torque_bandwidth_Hz.JOINT``;
+    lists of cycles are left out."""
     out = {}
     for k, v in metrics.items():
         if k == "cuffs" and isinstance(v, Mapping):
@@ -1121,6 +1122,9 @@ def flat_metrics(metrics: Mapping) -> dict:
                 for kk, vv in d.items():
                     if kk != "level":
                         out[f"hqp_levels.{d['level']}.{kk}"] = vv
+        elif k == "torque_bandwidth_Hz" and isinstance(v, Mapping):
+            for joint, f in v.items():
+                out[f"torque_bandwidth_Hz.{joint}"] = f
         elif v is None or isinstance(v, (int, float, bool, str)):
             out[k] = v
     return out

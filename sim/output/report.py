@@ -163,7 +163,8 @@ def best_index(values: Sequence, better: str | None, commanded: Sequence | None 
 
 
 def key_info(key: str) -> tuple[str, str | None, str]:
-    """Unit, better side and label of a flat metric key, per-cuff (``cuffs.NAME.KEY``) and per-level keys too."""
+    """Unit, better side and label of a flat metric key, per-cuff (``cuffs.NAME.KEY``), per-level and per-joint
+    bandwidth (``torque_bandwidth_Hz.JOINT``) keys too."""
     info = METRICS.get(key)
     if info is not None:
         return info.unit, info.better, info.label
@@ -175,6 +176,9 @@ def key_info(key: str) -> tuple[str, str | None, str]:
     if key.startswith("hqp_levels."):
         _, level, tail = key.split(".", 2)
         return "us", "lower", f"level {level}: {tail.replace('_', ' ')}"
+    if key.startswith("torque_bandwidth_Hz."):
+        info = METRICS["torque_bandwidth_Hz"]
+        return info.unit, info.better, f"{key.split('.', 1)[1]}: {info.label}"
     return "", None, ""
 
 
