@@ -1217,6 +1217,10 @@ METRICS: Mapping[str, MetricInfo] = MappingProxyType({
     "wall_contact_count": MetricInfo("-", None, "wall contacts"),
     "torque_saturation_fraction": MetricInfo("-", "lower", "ticks with a saturated joint", True),
     "torque_saturated_ticks": MetricInfo("-", "lower", "saturated ticks"),
+    "drive_model": MetricInfo("", None, "drive model (ideal, lag, series_elastic)"),
+    "torque_tracking_rms_Nm": MetricInfo("N m", "lower", "commanded less delivered joint torque, RMS"),
+    "torque_bandwidth_Hz": MetricInfo("Hz", "higher", "torque bandwidth per joint, output locked (-3 dB)"),
+    "motor_saturation_fraction": MetricInfo("-", "lower", "ticks with a motor torque at its limit"),
     "joint_limit_violation_count": MetricInfo("-", "lower", "ticks past a joint limit", True),
     "joint_limit_excursion_max_rad": MetricInfo("rad", "lower", "joint-limit excursion, max"),
     "force_limit_exceed_count": MetricInfo("-", "lower", "ticks above a body-region force limit", True),
@@ -1253,7 +1257,8 @@ def is_timing_key(key: str) -> bool:
 
 def flat_metrics(metrics: Mapping) -> dict:
     """Scalar metrics as one flat dict: top-level scalars as they are, per-cuff values as ``cuffs.NAME.KEY``,
-    per-level solve times as ``hqp_levels.I.KEY``; lists of cycles are left out."""
+    per-level solve times as ``hqp_levels.I.KEY``, per-joint drive bandwidths as ``torque_bandwidth_Hz.JOINT``;
+    lists of cycles are left out."""
     out = {}
     for k, v in metrics.items():
         if k == "cuffs" and isinstance(v, Mapping):
@@ -1265,6 +1270,9 @@ def flat_metrics(metrics: Mapping) -> dict:
                 for kk, vv in d.items():
                     if kk != "level":
                         out[f"hqp_levels.{d['level']}.{kk}"] = vv
+        elif k == "torque_bandwidth_Hz" and isinstance(v, Mapping):
+            for joint, f in v.items():
+                out[f"torque_bandwidth_Hz.{joint}"] = f
         elif v is None or isinstance(v, (int, float, bool, str)):
             out[k] = v
     return out

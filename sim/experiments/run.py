@@ -26,6 +26,7 @@ from controllers.registry import build_levels, make_controller
 from controllers.tasks import HandPath, WallLaw, WallTask
 from models.arm import load_arm
 from sim.analysis.derived import cuff_columns, human_cuff_twists
+from sim.analysis.drives import drive_metrics
 from sim.analysis.metrics import (
     BODY_REGION_FORCE_LIMITS_N,
     assistance_metrics,
@@ -402,6 +403,8 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
     path = meta.get("reference_path")
     metrics |= assistance_metrics(arrays, human_cuff_twists(run), dt,
                                   HandPath.from_dict(path) if path is not None else None)
+    # the drives: tracking, bandwidth (a dedicated frequency response of the run's drive model), motor saturation
+    metrics |= drive_metrics(arrays, meta, arm.model.effortLimit, meta.get("exo_joints") or arm.joint_names)
     # the scenario's faults, as meta.json lists them (sim.physics.faults)
     faults = meta.get("faults") or []
     metrics["fault_count"] = len(faults)

@@ -37,11 +37,12 @@ from models.coupling import DEFAULT_CUFFS, CuffSpec, Registration
 from models.errors import ParameterError, SandboxError
 from models.exo import ExoParams
 from models.human import HumanParams
-from sim.physics.actuators import ActuatorParams
+from sim.physics.actuators import ActuatorParams, IdealActuatorParams
 from sim.physics.faults import Fault, check_faults
 from sim.physics.impairment import Impairment
 from sim.physics.intent import JointIntent
 from sim.physics.plant import PlantParams
+from sim.physics.sea import SeriesElasticParams, loop_decimation
 from sim.physics.sensors import EncoderParams, ForceSensorParams
 from sim.physics.wearer import HumanMotorParams
 
@@ -84,7 +85,10 @@ class Scenario:
     plant: PlantParams = field(default_factory=PlantParams)
     encoder: EncoderParams = field(default_factory=EncoderParams)
     force_sensor: ForceSensorParams = field(default_factory=ForceSensorParams)
-    actuators: ActuatorParams = field(default_factory=ActuatorParams)
+    #: The drive model, by its parameter class: :class:`~sim.physics.actuators.ActuatorParams` (a first-order
+    #: torque lag, the default), :class:`~sim.physics.actuators.IdealActuatorParams` (saturation only) or
+    #: :class:`~sim.physics.sea.SeriesElasticParams` (series-elastic drives with an inner torque loop).
+    actuators: ActuatorParams | IdealActuatorParams | SeriesElasticParams = field(default_factory=ActuatorParams)
     #: Control period [s] (1 kHz by default) and physics substeps per period.
     control_period_s: float = 1e-3
     substeps: int = 4
@@ -110,6 +114,9 @@ class Scenario:
     #: [m], time from the start of the run), followed by the ``assist`` and ``tunnel`` variants and measured by
     #: ``path_error_rms_m``; never derived from the wearer's intent.  None: no reference path.
     reference_path: HandPath | None = None
+    #: The run's control delay [ticks]: the drives take the command of ``control_delay_ticks`` ticks before
+    #: (at most 1 s of ticks); a :class:`~sim.physics.faults.ControlDelay` fault delays it further.
+    control_delay_ticks: int = 0
 
     def __post_init__(self) -> None:
         o = f"Scenario({self.name!r})"
@@ -151,15 +158,30 @@ class Scenario:
             raise ParameterError(f"{o}.substeps must be at most {MAX_SUBSTEPS}, got {self.substeps!r}")
         for name, kind in (("exo", (ExoParams, type(None))), ("registration", Registration),
                            ("motor", HumanMotorParams), ("plant", PlantParams), ("encoder", EncoderParams),
-                           ("force_sensor", ForceSensorParams), ("actuators", ActuatorParams)):
+                           ("force_sensor", ForceSensorParams),
+                           ("actuators", (ActuatorParams, IdealActuatorParams, SeriesElasticParams))):
             if not isinstance(getattr(self, name), kind):
-                want = kind[0].__name__ + " or None" if isinstance(kind, tuple) else kind.__name__
+                names = [k.__name__ if k is not type(None) else "None" for k in
+                         (kind if isinstance(kind, tuple) else (kind,))]
+                want = names[0] if len(names) == 1 else ", ".join(names[:-1]) + " or " + names[-1]
                 raise ParameterError(f"{o}.{name} must be a {want}, got {type(getattr(self, name)).__name__}")
         delay_s = self.force_sensor.delay_ticks * self.control_period_s
         if delay_s > MAX_SENSOR_DELAY_S:
             raise ParameterError(f"{o}.force_sensor.delay_ticks = {self.force_sensor.delay_ticks} is "
                                  f"{delay_s:.6g} s at control_period_s = {self.control_period_s!r} s; at most "
                                  f"{MAX_SENSOR_DELAY_S:g} s")
+        if isinstance(self.actuators, SeriesElasticParams):
+            f_sub = self.substeps / self.control_period_s
+            if loop_decimation(self.actuators.loop_rate_Hz, 1.0 / f_sub) is None:
+                raise ParameterError(f"{o}.actuators.loop_rate_Hz must be the substep rate {f_sub:g} Hz over a whole "
+                                     f"number ({f_sub:g}, {f_sub / 2:g}, {f_sub / 3:g}, ... Hz), got "
+                                     f"{self.actuators.loop_rate_Hz!r}")
+        d = self.control_delay_ticks
+        if isinstance(d, bool) or not isinstance(d, int) or d < 0:
+            raise ParameterError(f"{o}.control_delay_ticks must be an integer >= 0, got {d!r}")
+        if d * self.control_period_s > MAX_SENSOR_DELAY_S:
+            raise ParameterError(f"{o}.control_delay_ticks = {d} is {d * self.control_period_s:.6g} s at "
+                                 f"control_period_s = {self.control_period_s!r} s; at most {MAX_SENSOR_DELAY_S:g} s")
         if not (isinstance(self.seed, int) and self.seed >= 0):
             raise ParameterError(f"{o}.seed must be an integer >= 0, got {self.seed!r}")
         faults = check_faults(self.faults, o)

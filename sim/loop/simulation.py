@@ -4,10 +4,13 @@ One control tick of period T (default 1 ms):
 
 1. the sensors read the plant (encoders, joint torque, cuff force/torque);
 2. the controller maps that :class:`~models.records.Measurement` to a
-   torque command, held for the period (zero-order hold);
+   torque command; it reaches the drives ``Scenario.control_delay_ticks``
+   ticks later (:class:`~sim.physics.actuators.CommandDelay`; 0 by default),
+   where it is held for the period (zero-order hold);
 3. the human's torque is computed from their intent and own state;
 4. the plant advances by ``substeps`` semi-implicit Euler steps of T/substeps
-   (:class:`~sim.physics.plant.CoupledPlant`), the actuators' lag integrated alongside;
+   (:class:`~sim.physics.plant.CoupledPlant`), the drives (a lag, or series-elastic motors with their
+   torque loop, :func:`~sim.physics.actuators.make_actuators`) stepped alongside;
 5. the tick's row is kept: in memory (a :class:`Trajectory`), or streamed to a
    :class:`~sim.loop.runlog.RunLog` as the run goes.
 
@@ -15,7 +18,10 @@ A scenario's timed faults (:mod:`sim.physics.faults`) act at hooks of this
 tick through a :class:`~sim.physics.faults.FaultSchedule`: the cuffs' stiffness
 before the cuff update, what the encoders read and what the controller gets in
 1, what the drives take and deliver in 2 and 4, the wearer's torque in 3.  A
-run without faults skips every hook.
+run without faults skips every hook.  The drives take the command in this
+order: the controller's, delayed by the run's control delay, then changed by
+the active faults (a :class:`~sim.physics.faults.ControlDelay` fault delays the
+already delayed command further).
 
 Runs are deterministic: all randomness comes from one seed through
 ``numpy.random.SeedSequence``; the same seed gives bit-identical rows, whether
@@ -52,19 +58,22 @@ from controllers.basic import ZeroTorque
 from controllers.registry import make_controller
 from controllers.safety import SafetyParams, Supervised
 from controllers.tasks import Task
-from models.coupling import Assembly, assemble
+from models.coupling import Assembly, assemble, fit_exo
 from models.errors import ParameterError, SandboxError
+from models.exo import ExoParams
 from models.human import girdle_posture
 from models.records import Measurement
 from sim.loop.runlog import RunLog, environment_metadata, load_run
 from sim.loop.scenario import Scenario
-from sim.physics.actuators import TorqueSourceActuators
+from sim.physics.actuators import CommandDelay, drive_model, make_actuators
 from sim.physics.faults import FaultSchedule, FaultTargets, fault_rng
 from sim.physics.plant import CoupledPlant, PlantMode
+from sim.physics.sea import SeriesElasticParams
 from sim.physics.sensors import ForceSensorBank, ForceTorqueSensor, JointSensing, first_nonfinite
 from sim.physics.wearer import HumanMotor
 
 __all__ = ["SimulationError", "Simulation", "Trajectory", "Progress", "Observer", "PLANT_MODES", "build_assembly",
+           "drive_params", "drives_metadata", "without_drive_inertia",
            "controller_context", "supervised", "log_columns", "jsonable", "start_run_folder", "finish_run_folder"]
 
 #: Called after every tick with (ticks done, ticks of the run).
@@ -80,13 +89,44 @@ class SimulationError(SandboxError, RuntimeError):
     """The simulation cannot go on (a non-finite state or command)."""
 
 
+def without_drive_inertia(exo: ExoParams) -> ExoParams:
+    """``exo`` with zero armature and zero joint friction: with series-elastic drives the rotor inertia and the gear
+    friction sit on the motor side of the spring (:mod:`sim.physics.sea`), not on the joint."""
+    zeros = (0.0,) * len(exo.armature_kg_m2)
+    return dataclasses.replace(exo, armature_kg_m2=zeros, viscous_friction_Nm_s_per_rad=zeros,
+                               coulomb_friction_Nm=zeros)
+
+
 def build_assembly(scenario: Scenario) -> Assembly:
-    """Models, registration and cuffs of a scenario, strapped at the intent's start posture."""
+    """Models, registration and cuffs of a scenario, strapped at the intent's start posture.
+
+    With series-elastic drives (``Scenario.actuators`` a :class:`~sim.physics.sea.SeriesElasticParams`) the
+    exoskeleton is built :func:`without_drive_inertia` (plant and controller model alike).
+    """
     hp = scenario.human
     q0 = np.asarray(scenario.intent.start_rad, dtype=float)
     if hp.girdle:
         q0 = girdle_posture(hp, q0)
-    return assemble(hp, exo=scenario.exo, registration=scenario.registration, cuffs=scenario.cuffs, q_human0=q0)
+    exo = scenario.exo
+    if isinstance(scenario.actuators, SeriesElasticParams):
+        exo = without_drive_inertia(fit_exo(hp) if exo is None else exo)
+    return assemble(hp, exo=exo, registration=scenario.registration, cuffs=scenario.cuffs, q_human0=q0)
+
+
+def drive_params(scenario: Scenario):
+    """The drives' parameters of a run: ``scenario.actuators``, a series-elastic one resolved against the
+    scenario's exoskeleton as it is before :func:`without_drive_inertia` (its motor inertia and friction
+    default to the exoskeleton's armature and joint friction)."""
+    p = scenario.actuators
+    if isinstance(p, SeriesElasticParams):
+        return p.resolved(fit_exo(scenario.human) if scenario.exo is None else scenario.exo)
+    return p
+
+
+def drives_metadata(scenario: Scenario) -> dict:
+    """``meta.json``'s ``drives``: the model's name, its (resolved) parameters and the control delay [ticks]."""
+    p = drive_params(scenario)
+    return {"model": drive_model(p), "parameters": jsonable(p), "control_delay_ticks": scenario.control_delay_ticks}
 
 
 def controller_context(asm: Assembly, dt_s: float) -> ControllerContext:
@@ -120,12 +160,14 @@ def jsonable(obj):
 
 
 def log_columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple[str, ...], *,
-                n_faults: int = 0, impairment: bool = False) -> dict:
+                n_faults: int = 0, motor: bool = False, impairment: bool = False) -> dict:
     """The logged columns of a run (name -> per-tick shape, or (shape, dtype)), in the order of a row.
 
     With an impaired wearer (``impairment``), ``tau_human_impairment`` (nq_h,) [N m] follows ``p_hand_human``:
     the involuntary part of ``tau_human`` (spasticity + contracture + tremor, :mod:`sim.physics.impairment`);
     a run without an impairment has no such column.
+    With ``motor`` (series-elastic drives) and a robot, ``tau_motor`` (nq_e,) [N m, reflected to the joint] and
+    ``motor_saturated`` (nq_e,) bool follow the controller's diagnostics.
 
     With faults, the last column ``fault_active`` (n_faults,) bool says which are active at each tick (in
     the order of ``scenario.faults``); a run without faults has no such column.
@@ -142,6 +184,8 @@ def log_columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple
             "tau_cmd": (nq_e,), "tau_applied": (nq_e,), "saturated": ((nq_e,), "bool"), "p_hand_exo": (3,),
         }
         cols |= {f"diag_{d}": () for d in diag}
+        if motor:
+            cols |= {"tau_motor": (nq_e,), "motor_saturated": ((nq_e,), "bool")}
     if mode == "coupled":  # the cuff wrenches on the robot and the world forces follow from these: sim.analysis.derived
         cols |= {"cuff_wrench_human": (n_cuffs, 6), "cuff_wrench_meas": (n_cuffs, 6)}
     if n_faults:
@@ -336,7 +380,9 @@ class Simulation:
                                                                     tuple(asm.human.joint_names)),
                                       T, [fault_rng(self.seed, f.name) for f in scenario.faults])
                         if scenario.faults else None)
-        self._joints = self._cuff_sensors = self._actuators = None
+        self._joints = self._cuff_sensors = self._actuators = self._delay = None
+        drives = drive_params(scenario)
+        motor = isinstance(drives, SeriesElasticParams) and controller is not None
         if controller is not None:
             controller.reset(controller_context(asm, T))
             all_diag = tuple(controller.diagnostic_names())
@@ -348,15 +394,17 @@ class Simulation:
             # one sensor per cuff, each with its own stream, measured together
             self._cuff_sensors = ForceSensorBank([ForceTorqueSensor(scenario.force_sensor, T, r) for r in rng_cuffs])
             self._cuff_sensors.reset()
-            self._actuators = TorqueSourceActuators(asm.exo.model.effortLimit, scenario.actuators)
+            self._actuators = make_actuators(drives, asm.exo.model.effortLimit)
             self._actuators.reset(np.zeros(asm.exo.nv))
+            # the run's permanent control delay, ahead of the timed faults (a ControlDelay fault adds to it)
+            self._delay = CommandDelay(scenario.control_delay_ticks) if scenario.control_delay_ticks else None
         else:
             diag_names = timing_diag = ()
         self._human = (HumanMotor(plant.human, scenario.human, scenario.intent, scenario.motor,
                                   impairment=scenario.impairment, period_s=T, seed=self.seed)
                        if plant.has_human else None)
         self._controller, self._controller_name, self._asm, self._plant = controller, name, asm, plant
-        self._diag_names = diag_names
+        self._diag_names, self._motor = diag_names, motor
         n = scenario.n_ticks
         self._meta = jsonable({  # plain JSON values, as meta.json holds them
             "scenario": scenario.name, "controller": name, "mode": mode,
@@ -378,10 +426,11 @@ class Simulation:
             "parameters": jsonable(scenario), "exo_params": jsonable(asm.exo_params),
             # the faults (name, kind, start_s, end_s, parameters), in the order of the fault_active column
             "faults": [f.describe() for f in scenario.faults],
+            "drives": drives_metadata(scenario),
             "environment": environment_metadata(),
         })
         self._columns = log_columns(mode, asm.exo.nq, asm.human.nq, len(asm.cuffs), diag_names,
-                                    n_faults=len(scenario.faults),
+                                    n_faults=len(scenario.faults), motor=motor,
                                     impairment=scenario.impairment is not None)
         self._urdfs = {"exo.urdf": plant.exo.urdf, "human.urdf": plant.human.urdf}
         self._tick_times, self._controller_times = np.zeros(n), np.zeros(n)
@@ -546,6 +595,7 @@ class Simulation:
         exo_torque = actuators if has_controller else zero_e  # the actuators' lag runs alongside the plant
         has_cuffs = bool(plant.cuffs)
         faults = self._faults  # None without faults: the ticks below then do exactly what they did before
+        delay, motor = self._delay, self._motor  # None without a control delay; True with series-elastic drives
         clock, nan = time.perf_counter, np.nan
         # a blow-up is detected below and reported as SimulationError, not as numpy warnings
         with np.errstate(over="ignore", invalid="ignore"):
@@ -559,7 +609,7 @@ class Simulation:
                 if has_controller:
                     # views of this tick's state (the plant replaces it as it steps)
                     q_e, v_e = plant.q_exo, plant.v_exo
-                    tau_applied = actuators.applied_Nm
+                    tau_applied = actuators.delivered_Nm(q_e, v_e)
                     if faults is None:
                         qm, dqm, taum = joints.measure(q_e, tau_applied)
                         # with no wearer the sensors read their noise and bias alone
@@ -580,11 +630,14 @@ class Simulation:
                         raise SimulationError(
                             f"controller {controller_name!r} returned a non-finite or mis-shaped torque at "
                             f"t = {t:.4f} s: {tau_cmd!r}")
-                    held = tau_cmd if faults is None else faults.command(tau_cmd)  # what the drives take
+                    # what the drives take: the command delayed by the run's control delay, then the faults' (a
+                    # ControlDelay fault delays the delayed command further)
+                    held = tau_cmd if delay is None else delay.push(tau_cmd)
+                    held = held if faults is None else faults.command(held)
                     saturated = actuators.hold(held)
                     if k == 0:  # the run starts in steady state: the drives already apply the first command
                         actuators.reset(np.clip(held, -asm.exo.model.effortLimit, asm.exo.model.effortLimit))
-                        tau_applied = actuators.applied_Nm
+                        tau_applied = actuators.delivered_Nm(q_e, v_e)
                         if faults is not None:
                             tau_applied = faults.applied(tau_applied)
                 row["t"] = t
@@ -600,6 +653,8 @@ class Simulation:
                 if has_controller:
                     row["q_exo"], row["dq_exo"], row["q_exo_meas"], row["dq_exo_meas"] = q_e, v_e, qm, dqm
                     row["tau_cmd"], row["tau_applied"], row["saturated"] = tau_cmd, tau_applied, saturated
+                    if motor:
+                        row["tau_motor"], row["motor_saturated"] = actuators.motor_Nm, actuators.motor_saturated
                     diag = controller.diagnostics()
                     for d, key in diag_keys:
                         row[key] = float(diag.get(d, nan))

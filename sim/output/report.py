@@ -42,7 +42,8 @@ __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows
            "write_run_report", "compare_runs", "write_sweep_report", "write_sweeps_report", "sweep_verdicts",
            "has_wall", "transparency_key", "fmt", "fmt_stat", "renders_wall", "is_applicable", "TIMING_NOTE",
            "controller_section", "variant_differences", "faults_section", "safety_section", "wearer_section",
-           "assistance_section"]
+           "assistance_section",
+           "drives_section", "drives_applies"]
 
 #: Printed in every report.
 CAUTION = (
@@ -164,7 +165,8 @@ def best_index(values: Sequence, better: str | None, commanded: Sequence | None 
 
 
 def key_info(key: str) -> tuple[str, str | None, str]:
-    """Unit, better side and label of a flat metric key, per-cuff (``cuffs.NAME.KEY``) and per-level keys too."""
+    """Unit, better side and label of a flat metric key, per-cuff (``cuffs.NAME.KEY``), per-level and per-joint
+    bandwidth (``torque_bandwidth_Hz.JOINT``) keys too."""
     info = METRICS.get(key)
     if info is not None:
         return info.unit, info.better, info.label
@@ -176,6 +178,9 @@ def key_info(key: str) -> tuple[str, str | None, str]:
     if key.startswith("hqp_levels."):
         _, level, tail = key.split(".", 2)
         return "us", "lower", f"level {level}: {tail.replace('_', ' ')}"
+    if key.startswith("torque_bandwidth_Hz."):
+        info = METRICS["torque_bandwidth_Hz"]
+        return info.unit, info.better, f"{key.split('.', 1)[1]}: {info.label}"
     return "", None, ""
 
 
@@ -482,6 +487,56 @@ def faults_section(meta: Mapping) -> list[str]:
             markdown_table(["fault", "kind", "start [s]", "end [s]", "parameters"], rows), ""]
 
 
+def drives_applies(meta: Mapping | None) -> bool:
+    """Whether a run's drives differ from the default (``meta["drives"]``): another model than the first-order lag,
+    or a control delay.  A run recorded without ``drives`` had the default."""
+    d = (meta or {}).get("drives")
+    return isinstance(d, Mapping) and (d.get("model") != "lag" or bool(d.get("control_delay_ticks")))
+
+
+#: The series-elastic parameters the "Drives" section lists per joint: (key, column header).
+_SEA_COLUMNS = (("spring_stiffness_Nm_per_rad", "k_s [N m/rad]"), ("motor_inertia_kg_m2", "J_m [kg m²]"),
+                ("motor_damping_Nm_s_per_rad", "b_m [N m s/rad]"), ("motor_torque_limit_Nm", "motor limit [N m]"),
+                ("torque_kp", "K_p [-]"), ("torque_kd_s", "K_d [s]"))
+
+
+def drives_section(meta: Mapping, metrics: Mapping) -> list[str]:
+    """The "Drives" section of a run report (Markdown lines): the drive model and its key parameters
+    (``meta["drives"]``), the torque bandwidth per joint, the tracking RMS, the motor saturation and the control
+    delay (``metrics.json``); nothing for the default drives (:func:`drives_applies`)."""
+    if not drives_applies(meta):
+        return []
+    d = meta["drives"]
+    model, p = d.get("model"), d.get("parameters") or {}
+    delay = int(d.get("control_delay_ticks") or 0)
+    names = meta.get("exo_joints") or []
+    bw = metrics.get("torque_bandwidth_Hz") or {}
+    text = ["## Drives", ""]
+    if model == "series_elastic":
+        text += [f"Series-elastic drives (Pratt & Williamson 1995): a motor behind a torsion spring per joint, the "
+                 f"spring's deflection the joint-torque reading, an inner PD torque loop at "
+                 f"{fmt(p.get('loop_rate_Hz'))} Hz (damping ratio {fmt(p.get('torque_damping_ratio'))} when K_d is "
+                 "derived), feed-forward of the motor's damping " + ("on" if p.get("damping_feedforward") else "off")
+                 + " and of its inertia " + ("on" if p.get("inertia_feedforward") else "off")
+                 + " as the joint moves. The rotor inertia and gear "
+                 "friction are on the motor side: the robot model of this run has zero armature and joint friction.",
+                 ""]
+        rows = [[n, *(fmt((p.get(key) or [None] * len(names))[i]) for key, _ in _SEA_COLUMNS), fmt(bw.get(n))]
+                for i, n in enumerate(names)]
+        text += [markdown_table(["joint", *(h for _, h in _SEA_COLUMNS), "bandwidth [Hz]"], rows), ""]
+    else:
+        what = ("an ideal torque source (the command clipped to the torque limit, at once)" if model == "ideal" else
+                f"torque sources with a first-order lag of {fmt(p.get('torque_time_constant_s'))} s")
+        text += [f"Drive model: {what}."
+                 + (" Torque bandwidth (output locked): " + ", ".join(f"{n} {fmt(v)} Hz" for n, v in bw.items()) + "."
+                    if bw else ""), ""]
+    text.append(f"Torque tracking (clipped command less delivered torque), RMS: "
+                f"{fmt(metrics.get('torque_tracking_rms_Nm'))} N m. Motor at its torque limit: "
+                f"{fmt(metrics.get('motor_saturation_fraction'))} of the ticks. Control delay: {delay} tick(s)"
+                f" ({fmt(delay * float(meta.get('dt_s', 0.0)))} s), ahead of any `ControlDelay` fault.")
+    return text + [""]
+
+
 def wearer_section(meta: Mapping, metrics: Mapping, arrays: Mapping[str, np.ndarray] | None = None) -> list[str]:
     """The "Wearer" section of a run report (Markdown lines): the wearer's impairment with its parameters as
     ``meta.json`` records it (``parameters.impairment``, :mod:`sim.physics.impairment`), the completion metrics,
@@ -588,6 +643,7 @@ def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run:
     text += [f"![{p.stem}](plots/{p.name})" for p in timeline] + ([""] if timeline else [])
     text += safety_section(meta, m)
     text += faults_section(meta)
+    text += drives_section(meta, m)
     text += wearer_section(meta, m, run.arrays)
     text += assistance_section(meta, m)
     text += ["## Metrics", "", markdown_table(["key", "unit", "value", "meaning"], rows), ""]

@@ -1,4 +1,10 @@
-"""Joint actuators of the exoskeleton: saturation and a first-order torque bandwidth.
+"""Joint actuators of the exoskeleton: an ideal torque source, a first-order torque lag, and the choice.
+
+Three drive models, each chosen by its parameter class in ``Scenario.actuators``
+(:func:`make_actuators` maps one to the other): :class:`IdealActuatorParams`
+(saturation only), :class:`ActuatorParams` (saturation and a first-order lag,
+the default) and :class:`sim.physics.sea.SeriesElasticParams` (series-elastic
+drives with an inner torque loop, :mod:`sim.physics.sea`).
 
 The interface (:class:`Actuators`) takes the held torque command and returns
 the torque applied to the joints, substep by substep, given the joint state;
@@ -16,15 +22,19 @@ References
 from __future__ import annotations
 
 import math
-from abc import ABC, abstractmethod
 from dataclasses import dataclass
+from typing import ClassVar
 
 import numba
 import numpy as np
 
 from models.checks import positive
+from models.errors import ParameterError
+from sim.physics.drive_base import Actuators, saturate
+from sim.physics.sea import SeriesElasticActuators, SeriesElasticParams
 
-__all__ = ["ActuatorParams", "Actuators", "TorqueSourceActuators"]
+__all__ = ["ActuatorParams", "Actuators", "TorqueSourceActuators", "IdealActuatorParams", "IdealActuators",
+           "make_actuators", "drive_model", "saturate", "CommandDelay"]
 
 
 @dataclass(frozen=True)
@@ -37,6 +47,8 @@ class ActuatorParams:
     for geared electric drives under current control).
     """
 
+    model: ClassVar[str] = "lag"
+
     torque_time_constant_s: float = 0.002
 
     def __post_init__(self) -> None:
@@ -44,34 +56,11 @@ class ActuatorParams:
                            positive("ActuatorParams", "torque_time_constant_s", self.torque_time_constant_s, "s"))
 
 
-class Actuators(ABC):
-    """What turns a torque command into joint torque."""
+@dataclass(frozen=True)
+class IdealActuatorParams:
+    """An ideal torque source: the applied torque is the command clipped to the joint's torque limit, at once."""
 
-    @abstractmethod
-    def reset(self, tau0_Nm: np.ndarray) -> None:
-        """Start with applied torque ``tau0_Nm`` (nv,)."""
-
-    @abstractmethod
-    def hold(self, command_Nm: np.ndarray) -> np.ndarray:
-        """Take a new command (held for the control period); returns the saturation flags (nv,) bool."""
-
-    @abstractmethod
-    def substep(self, q: np.ndarray, v: np.ndarray, dt_s: float) -> np.ndarray:
-        """Advance by ``dt_s``; returns the applied joint torque (nv,) [N m]."""
-
-    @property
-    @abstractmethod
-    def applied_Nm(self) -> np.ndarray:
-        """The joint torque applied now (nv,) [N m] (a copy)."""
-
-
-@numba.njit(cache=True)
-def _saturate(command, limit, out, saturated):
-    """``out = clip(command, -limit, limit)`` and ``saturated = |command| > limit`` (numpy semantics)."""
-    for i in range(command.shape[0]):
-        c, lim = command[i], limit[i]
-        out[i] = -lim if c < -lim else (lim if c > lim else c)
-        saturated[i] = abs(c) > lim
+    model: ClassVar[str] = "ideal"
 
 
 @numba.njit(cache=True)
@@ -102,7 +91,7 @@ class TorqueSourceActuators(Actuators):
 
     def hold(self, command_Nm: np.ndarray) -> np.ndarray:
         saturated = np.empty(self._limit.shape, dtype=np.bool_)
-        _saturate(np.asarray(command_Nm, dtype=float), self._limit, self._u, saturated)
+        saturate(np.asarray(command_Nm, dtype=float), self._limit, self._u, saturated)
         return saturated
 
     @property
@@ -135,3 +124,86 @@ class TorqueSourceActuators(Actuators):
         if a is None:
             a = self._alpha[dt_s] = 1.0 - math.exp(-dt_s / self.params.torque_time_constant_s)
         return self._tau_u, a
+
+
+class IdealActuators(Actuators):
+    """An ideal torque source: the held command clipped to the torque limits is the applied torque."""
+
+    def __init__(self, torque_limit_Nm: np.ndarray, params: IdealActuatorParams | None = None) -> None:
+        self.params = IdealActuatorParams() if params is None else params
+        self._limit = np.asarray(torque_limit_Nm, dtype=float).copy()
+        self._u = np.zeros(self._limit.shape[0])
+
+    def reset(self, tau0_Nm: np.ndarray) -> None:
+        self._u[:] = tau0_Nm
+
+    def hold(self, command_Nm: np.ndarray) -> np.ndarray:
+        saturated = np.empty(self._limit.shape, dtype=np.bool_)
+        saturate(np.asarray(command_Nm, dtype=float), self._limit, self._u, saturated)
+        return saturated
+
+    @property
+    def applied_Nm(self) -> np.ndarray:
+        return self._u.copy()
+
+    def substep(self, q: np.ndarray, v: np.ndarray, dt_s: float) -> np.ndarray:
+        return self._u
+
+
+def drive_model(params) -> str:
+    """The drive model's name of a parameter object (``"ideal"``, ``"lag"``, ``"series_elastic"``)."""
+    return type(params).model
+
+
+def make_actuators(params, torque_limit_Nm: np.ndarray, *, exo=None) -> Actuators:
+    """The drives of a run from their parameter class: the one place that maps a class to its model.
+
+    Parameters
+    ----------
+    params : IdealActuatorParams, ActuatorParams or SeriesElasticParams
+    torque_limit_Nm : (nv,) array_like [N m]
+        The joints' torque limits (the command's saturation).
+    exo : models.exo.ExoParams, optional
+        The exoskeleton the series-elastic drives' unset fields come from
+        (:meth:`sim.physics.sea.SeriesElasticParams.resolved`); needed for
+        those unless ``params`` is resolved already.
+    """
+    if isinstance(params, IdealActuatorParams):
+        return IdealActuators(torque_limit_Nm, params)
+    if isinstance(params, ActuatorParams):
+        return TorqueSourceActuators(torque_limit_Nm, params)
+    if isinstance(params, SeriesElasticParams):
+        if not params.is_resolved:
+            if exo is None:
+                raise ParameterError("make_actuators: SeriesElasticParams with unset fields need exo=ExoParams(...)")
+            params = params.resolved(exo)
+        return SeriesElasticActuators(torque_limit_Nm, params)
+    raise ParameterError(f"make_actuators: params must be IdealActuatorParams, ActuatorParams or SeriesElasticParams, "
+                         f"got {type(params).__name__}")
+
+
+class CommandDelay:
+    """A first-in first-out delay of ``ticks`` control ticks on the torque command: :math:`u_k = \\tau_{cmd,k-d}`.
+
+    The first command fills the line (the run starts in steady state, as the drives do), so that the first
+    ``ticks`` ticks take it.
+    """
+
+    def __init__(self, ticks: int) -> None:
+        if isinstance(ticks, bool) or not isinstance(ticks, (int, np.integer)) or ticks < 0:
+            raise ParameterError(f"CommandDelay.ticks must be an integer >= 0, got {ticks!r}")
+        self.ticks = int(ticks)
+        self._line: list[np.ndarray] = []
+        self._next = 0
+
+    def push(self, command_Nm: np.ndarray) -> np.ndarray:
+        """Take this tick's command (nv,) [N m]; return that of ``ticks`` ticks before (a held copy)."""
+        c = np.array(command_Nm, dtype=float)
+        if self.ticks == 0:
+            return c
+        if not self._line:
+            self._line = [c.copy() for _ in range(self.ticks)]
+        out = self._line[self._next]
+        self._line[self._next] = c
+        self._next = (self._next + 1) % self.ticks
+        return out

@@ -358,7 +358,10 @@ class SensorDelay(Fault):
 
 @dataclass(frozen=True, kw_only=True)
 class ControlDelay(Fault):
-    """Extra control delay: the drives take the command of ``ticks`` ticks before, :math:`u_k = u^0_{k-d}`."""
+    """Extra control delay: the drives take the command of ``ticks`` ticks before, :math:`u_k = u^0_{k-d}`.
+
+    :math:`u^0` is the command after the run's own control delay (``Scenario.control_delay_ticks``): the two add.
+    """
 
     ticks: int = 1
     kind: ClassVar[str] = "control_delay"
