@@ -489,7 +489,8 @@ def assistance_metrics(arrays: Mapping[str, np.ndarray], human_cuff_twist: np.nd
       the human (``cuff_wrench_human``) times the human-side cuff frame's twist (``human_cuff_twist``,
       :func:`sim.analysis.derived.human_cuff_twists`), both in that frame.  The positive part is taken of
       the sum over the cuffs at each tick (what the robot gives the arm as a whole); the energy the cuffs'
-      own springs store and return is in it, as the wearer receives it.
+      own springs store and return is in it, as the wearer receives it.  None without the twists (a run
+      folder written before ``meta.json`` recorded the cuffs' strap offsets).
     * ``assistance_share``: :math:`W_r^+ / (W_r^+ + W_h^+)`, the wearer's own positive joint work
       :math:`W_h^+` = :func:`positive_work_J` of :func:`joint_power_W` (``tau_human``, ``dq_human``); None
       when neither did positive work.

@@ -401,7 +401,9 @@ def evaluate_run(folder: str | Path, *, wall: dict | None = None,
             metrics["wall_damping_rendered_N_s_per_m"] = None
     # the robot's work on the wearer, and the hand against the exercise's reference path (meta.json's, if any)
     path = meta.get("reference_path")
-    metrics |= assistance_metrics(arrays, human_cuff_twists(run), dt,
+    # a folder written before meta.json recorded the strap offsets has no human cuff twists: no work figures
+    twists = human_cuff_twists(run) if "cuff_human_offsets" in (meta.get("models") or {}) else None
+    metrics |= assistance_metrics(arrays, twists, dt,
                                   HandPath.from_dict(path) if path is not None else None)
     # the drives: tracking, bandwidth (a dedicated frequency response of the run's drive model), motor saturation
     metrics |= drive_metrics(arrays, meta, arm.model.effortLimit, meta.get("exo_joints") or arm.joint_names)
