@@ -25,11 +25,12 @@ import math
 
 import numpy as np
 
-from models.checks import in_range, nonnegative, positive, vector
+from models.checks import nonnegative, positive
 from models.errors import ParameterError
 
 from . import kernels
-from .base import Task, q_rows
+from .base import q_rows
+from .hand import HandPointTask
 from .paths import HandPath
 from .state import TickState
 from .walls import WallLaw
@@ -52,43 +53,16 @@ def adapted_stiffness(K: float, error_m: float, forgetting: float, gain_N_per_m2
     return min(max(forgetting * K + gain_N_per_m2 * error_m, 0.0), max_stiffness_N_per_m)
 
 
-class _PathTask(Task):
-    """What the path tasks share: the path, the hand frame and cuff sensor, the wearer's hand estimate."""
+class _PathTask(HandPointTask):
+    """What the path tasks share: the path, and the hand settings of :class:`~controllers.tasks.hand.HandPointTask`."""
 
     def _common(self, path, frame: str, sensor: str, inertia_compensation: float, weight: float,
                 cuff_stiffness_N_per_m) -> None:
-        owner = type(self).__name__
         if not isinstance(path, HandPath):
-            raise ParameterError(f"{owner}.path must be a HandPath (the exercise's reference hand path), got "
-                                 f"{type(path).__name__}")
+            raise ParameterError(f"{type(self).__name__}.path must be a HandPath (the exercise's reference hand "
+                                 f"path), got {type(path).__name__}")
         self.path = path
-        self.frame, self.sensor = frame, sensor
-        self.cuff_compliance = self.cuff_stiffness_N_per_m = None
-        if cuff_stiffness_N_per_m is not None:
-            k = np.array(vector(owner, "cuff_stiffness_N_per_m", cuff_stiffness_N_per_m, 3))
-            if np.any(k <= 0):
-                raise ParameterError(f"{owner}.cuff_stiffness_N_per_m must be > 0, got {k}")
-            self.cuff_compliance, self.cuff_stiffness_N_per_m = 1.0 / k, k
-        self.inertia_compensation = in_range(owner, "inertia_compensation", inertia_compensation, 0.0, 0.9)
-        self.alpha = 1.0 - self.inertia_compensation
-        self.weight = positive(owner, "weight", weight)
-
-    def bind(self, state: TickState) -> None:
-        self.fid = state.arm.frame_id(self.frame)
-        if self.sensor not in state.cuff_ids:
-            raise ParameterError(
-                f"{self.name}: no cuff sensor named {self.sensor!r}; sensors are {sorted(state.cuff_ids)}")
-        self.sid = state.cuff_ids[self.sensor]
-
-    def hand(self, state: TickState) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """The hand point [m] (the wearer's, through the cuff's compliance, when it is given), the hand sensor's
-        orientation (3, 3) and its wrench (6,), all as measured this tick."""
-        w = state.measurement.cuff_wrench[self.sensor]
-        R = state.rotation(self.sid)
-        p = state.position(self.fid)
-        if self.cuff_compliance is not None:
-            p = kernels.hand_point(p, R, w, self.cuff_compliance)
-        return p, R, w
+        self._hand_settings(frame, sensor, inertia_compensation, weight, cuff_stiffness_N_per_m)
 
 
 class AssistAsNeeded(_PathTask):

@@ -15,11 +15,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from models.checks import in_range, nonnegative, positive, vector
+from models.checks import nonnegative, positive, vector
 from models.errors import ParameterError
 
 from . import kernels
-from .base import Task
+from .hand import HandPointTask
 from .state import TickState
 
 __all__ = ["PlaneWall", "BoxWall", "SphereWall", "WallTask", "WallLaw"]
@@ -56,7 +56,7 @@ class WallLaw:
                            nonnegative("WallLaw", "damping_N_s_per_m", self.damping_N_s_per_m, "N s/m"))
 
 
-class WallTask(Task):
+class WallTask(HandPointTask):
     """Shared one-sided wall law on a frame (the hand point by default).
 
     For each touched face with unit normal n pointing into the wall and
@@ -86,35 +86,14 @@ class WallTask(Task):
     def __init__(self, law: WallLaw, frame: str, sensor: str, inertia_compensation: float, weight: float,
                  cuff_stiffness_N_per_m=None) -> None:
         self.law = law if isinstance(law, WallLaw) else WallLaw(*law)
-        self.frame, self.sensor = frame, sensor
-        self.cuff_compliance = self.cuff_stiffness_N_per_m = None
-        if cuff_stiffness_N_per_m is not None:
-            k = np.array(vector(type(self).__name__, "cuff_stiffness_N_per_m", cuff_stiffness_N_per_m, 3))
-            if np.any(k <= 0):
-                raise ParameterError(f"{type(self).__name__}.cuff_stiffness_N_per_m must be > 0, got {k}")
-            self.cuff_compliance, self.cuff_stiffness_N_per_m = 1.0 / k, k
-        self.inertia_compensation = in_range(type(self).__name__, "inertia_compensation", inertia_compensation,
-                                             0.0, 0.9)
-        self.alpha = 1.0 - self.inertia_compensation
-        self.weight = positive(type(self).__name__, "weight", weight)
-
-    def bind(self, state: TickState) -> None:
-        self.fid = state.arm.frame_id(self.frame)
-        if self.sensor not in state.cuff_ids:
-            raise ParameterError(
-                f"{self.name}: no cuff sensor named {self.sensor!r}; sensors are {sorted(state.cuff_ids)}")
-        self.sid = state.cuff_ids[self.sensor]
+        self._hand_settings(frame, sensor, inertia_compensation, weight, cuff_stiffness_N_per_m)
 
     def faces(self, p: np.ndarray) -> list[tuple[np.ndarray, float]]:
         """(normal into the wall, penetration [m]) of every touched face at position p."""
         raise NotImplementedError
 
     def rows(self, state: TickState):
-        w = state.measurement.cuff_wrench[self.sensor]
-        R = state.rotation(self.sid)
-        p = state.position(self.fid)
-        if self.cuff_compliance is not None:
-            p = kernels.hand_point(p, R, w, self.cuff_compliance)  # the wearer's hand point
+        p, R, w = self.hand(state)  # the wearer's hand point, with the cuff's stiffness given
         touched = self.faces(p)
         if not touched:
             return None

@@ -30,7 +30,7 @@ import numpy as np
 
 from models.checks import positive
 from models.errors import ParameterError
-from sim.physics.drive_base import Actuators, saturate
+from sim.physics.drive_base import Actuators, clip_command, saturate
 from sim.physics.sea import SeriesElasticActuators, SeriesElasticParams
 
 __all__ = ["ActuatorParams", "Actuators", "TorqueSourceActuators", "IdealActuatorParams", "IdealActuators",
@@ -90,9 +90,7 @@ class TorqueSourceActuators(Actuators):
         self._u[:] = tau0_Nm
 
     def hold(self, command_Nm: np.ndarray) -> np.ndarray:
-        saturated = np.empty(self._limit.shape, dtype=np.bool_)
-        saturate(np.asarray(command_Nm, dtype=float), self._limit, self._u, saturated)
-        return saturated
+        return clip_command(command_Nm, self._limit, self._u)
 
     @property
     def applied_Nm(self) -> np.ndarray:
@@ -138,9 +136,7 @@ class IdealActuators(Actuators):
         self._u[:] = tau0_Nm
 
     def hold(self, command_Nm: np.ndarray) -> np.ndarray:
-        saturated = np.empty(self._limit.shape, dtype=np.bool_)
-        saturate(np.asarray(command_Nm, dtype=float), self._limit, self._u, saturated)
-        return saturated
+        return clip_command(command_Nm, self._limit, self._u)
 
     @property
     def applied_Nm(self) -> np.ndarray:

@@ -13,7 +13,7 @@ from abc import ABC, abstractmethod
 import numba
 import numpy as np
 
-__all__ = ["Actuators", "saturate"]
+__all__ = ["Actuators", "saturate", "clip_command"]
 
 
 class Actuators(ABC):
@@ -49,3 +49,13 @@ def saturate(command, limit, out, saturated):
         c, lim = command[i], limit[i]
         out[i] = -lim if c < -lim else (lim if c > lim else c)
         saturated[i] = abs(c) > lim
+
+
+def clip_command(command_Nm, limit_Nm: np.ndarray, out: np.ndarray) -> np.ndarray:
+    """Write the command clipped to ``±limit_Nm`` into ``out`` (nv,) [N m]; return which joints it clipped.
+
+    What every drive model's :meth:`Actuators.hold` does first (:func:`saturate`); the flags are a new array.
+    """
+    saturated = np.empty(limit_Nm.shape, dtype=np.bool_)
+    saturate(np.asarray(command_Nm, dtype=float), limit_Nm, out, saturated)
+    return saturated

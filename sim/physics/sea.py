@@ -94,7 +94,7 @@ from scipy.linalg import expm
 from models.checks import in_range, nonnegative, positive
 from models.errors import ParameterError
 from models.exo import ExoParams
-from sim.physics.drive_base import Actuators, saturate
+from sim.physics.drive_base import Actuators, clip_command
 
 __all__ = ["SeriesElasticParams", "SeriesElasticActuators", "TorqueLoopClosedForm", "torque_loop_closed_form",
            "N_DRIVE_JOINTS", "loop_decimation"]
@@ -377,9 +377,7 @@ class SeriesElasticActuators(Actuators):
         self._count = 0
 
     def hold(self, command_Nm: np.ndarray) -> np.ndarray:
-        saturated = np.empty(self._limit.shape, dtype=np.bool_)
-        saturate(np.asarray(command_Nm, dtype=float), self._limit, self._u, saturated)
-        return saturated
+        return clip_command(command_Nm, self._limit, self._u)
 
     def substep(self, q: np.ndarray, v: np.ndarray, dt_s: float) -> np.ndarray:
         phi, gam, gam1, n_loop = self._step_matrices(dt_s)
