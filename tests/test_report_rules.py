@@ -67,7 +67,7 @@ def test_structure_of_the_shipped_variants_lists_their_levels_tasks_and_paramete
         expected = {k: v for k, v in _defaults(cls).items() if k != "weight"}
         assert t["params"] == expected and t["weight"] == _defaults(cls)["weight"]
     wall = by_type["PlaneWall"]
-    assert wall["bases"] == ["WallTask"] and wall["kind"] == "eq"
+    assert wall["bases"] == ["WallTask", "HandPointTask"] and wall["kind"] == "eq"
     assert wall["params"]["point_m"] == [0.40, 0.0, 0.0] and wall["params"]["normal"] == [1.0, 0.0, 0.0]  # unit
     assert wall["params"]["law.stiffness_N_per_m"] == 600.0 and wall["params"]["law.damping_N_s_per_m"] == 5.0
     assert wall["params"]["frame"] == _defaults(PlaneWall)["frame"]
@@ -375,3 +375,25 @@ def test_the_across_scenarios_table_of_a_one_seed_sweep_has_no_plus_minus_zero(t
     assert "| reach | whole run | 3.142 | **2.718** |" in md
     assert "| throw | whole run | 5 | 5 |" in md  # level: nothing marked
     assert "± 0" not in md and "are level on interaction force, RMS: 5 N and 5 N" in md
+
+
+def test_compensation_shares_do_not_apply_to_a_variant_that_pushes_toward_a_path():
+    # the fit of compensation_shares reads every robot torque as compensation of the robot's own gravity and
+    # inertia (the law of the transparency task); a force toward the reference path is neither, so under
+    # assist/tunnel the shares are n/a (the rule), while the other rows still apply
+    from sim.output.report import follows_path
+
+    tunnel = _meta([("joint_limits", "JointPositionLimits", {}, [])],
+                   [("guidance_tunnel", "GuidanceTunnel", {"radius_m": 0.03}, ["_PathTask", "HandPointTask"])],
+                   [("transparency", "Transparency", {"inertia_compensation": 0.5}, [])])
+    mine = _meta([("my_assist", "MyAssist", {}, ["AssistAsNeeded", "_PathTask"])])
+    assert follows_path(tunnel) and follows_path(mine)
+    assert not follows_path(TRANSPARENT_META) and not follows_path(WALLS_META) and not follows_path(GRAVITY_META)
+    metrics = {"gravity_share_left": -0.1, "inertia_share_left": 0.04, "interaction_force_rms_N": 18.0}
+    assert not is_applicable("gravity_share_left", metrics, tunnel)
+    assert not is_applicable("inertia_share_left", metrics, mine)
+    assert is_applicable("interaction_force_rms_N", metrics, tunnel)
+    assert is_applicable("inertia_share_left", metrics, TRANSPARENT_META)
+    rows = {r["key"]: r for r in comparison_rows(["tunnel", "transparent"], [metrics, metrics],
+                                                 [tunnel, TRANSPARENT_META])}
+    assert rows["inertia_share_left"]["tunnel"] is None and rows["inertia_share_left"]["transparent"] == 0.04

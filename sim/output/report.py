@@ -43,7 +43,8 @@ __all__ = ["CAUTION", "best_index", "best_indices", "key_info", "comparison_rows
            "has_wall", "transparency_key", "fmt", "fmt_stat", "renders_wall", "is_applicable", "TIMING_NOTE",
            "controller_section", "variant_differences", "faults_section", "safety_section", "wearer_section",
            "assistance_section",
-           "drives_section", "drives_applies"]
+           "drives_section", "drives_applies",
+           "follows_path"]
 
 #: Printed in every report.
 CAUTION = (
@@ -216,6 +217,24 @@ def renders_wall(meta: Mapping | None) -> bool:
     return False
 
 
+#: The task classes that follow the exercise's reference hand path, by class name.
+_PATH_CLASSES = frozenset({"AssistAsNeeded", "GuidanceTunnel"})
+#: The keys of the fit of the robot's torque on its own gravity and inertia terms (``compensation_shares``).
+_SHARE_KEYS = frozenset({"gravity_share_left", "inertia_share_left"})
+
+
+def _path_tasks(meta: Mapping | None) -> list:
+    """The tasks of the run's ``controller_structure`` that follow the reference path (their class or a base
+    class is a shipped path task)."""
+    return [t for t in _task_entries(meta) if {str(t.get("type")), *map(str, t.get("bases") or ())} & _PATH_CLASSES]
+
+
+def follows_path(meta: Mapping | None) -> bool:
+    """Whether the run's controller holds a task that pushes the hand toward the exercise's reference path
+    (assist-as-needed, the guidance tunnel, or a class derived from them)."""
+    return bool(_path_tasks(meta))
+
+
 def _level_signature(meta: Mapping | None, level: int):
     """The tasks of ``level`` (type, name, kind) in the run's ``controller_structure``; None without it, ``()`` if
     the controller has no such level."""
@@ -238,7 +257,10 @@ def is_applicable(key: str, metrics: Mapping, meta: Mapping | None) -> bool:
     * the wall rows (every ``wall_*`` key: stiffness and damping commanded and rendered, penetration, energy
       returned, bounces, contacts) of a run whose controller renders no wall (:func:`renders_wall`): there is no
       wall to render, and the hand's excursion past a plane the variant does not know is no penetration;
-    * a per-level row (``hqp_levels.I.*``) of a level the controller does not have.
+    * a per-level row (``hqp_levels.I.*``) of a level the controller does not have;
+    * the compensation shares (``gravity_share_left``, ``inertia_share_left``) of a run whose controller
+      pushes the hand toward a reference path (:func:`follows_path`): the fit reads the robot's torque as
+      compensation of its own gravity and inertia, and a force toward the path is neither.
 
     Per-level rows of stacks whose level I holds different tasks are not comparable either: that needs the
     other runs, and :func:`comparison_rows` checks it.
@@ -247,6 +269,8 @@ def is_applicable(key: str, metrics: Mapping, meta: Mapping | None) -> bool:
     if value is None:
         return False
     if key.startswith("wall_") and not renders_wall(meta):
+        return False
+    if key in _SHARE_KEYS and follows_path(meta):
         return False
     if key.startswith("hqp_levels."):
         sig = _level_signature(meta, int(key.split(".")[1]))
@@ -572,10 +596,6 @@ def wearer_section(meta: Mapping, metrics: Mapping, arrays: Mapping[str, np.ndar
     return text + [""]
 
 
-#: The task classes that follow the exercise's reference hand path, by class name.
-_PATH_CLASSES = frozenset({"AssistAsNeeded", "GuidanceTunnel"})
-
-
 def assistance_section(meta: Mapping, metrics: Mapping) -> list[str]:
     """The "Assistance" section of a run report (Markdown lines), for a run with a reference hand path
     (``meta["reference_path"]``) or a controller holding a task that follows one; nothing otherwise.
@@ -585,7 +605,7 @@ def assistance_section(meta: Mapping, metrics: Mapping) -> list[str]:
     error from the path, and the assist-as-needed stiffness (peak and end of the run).
     """
     path = (meta or {}).get("reference_path")
-    tasks = [t for t in _task_entries(meta) if {str(t.get("type")), *map(str, t.get("bases") or ())} & _PATH_CLASSES]
+    tasks = _path_tasks(meta)
     if path is None and not tasks:
         return []
     text = ["## Assistance", ""]
@@ -636,6 +656,9 @@ def write_run_report(folder: str | Path, metrics: Mapping | None = None, *, run:
              for k, v in flat.items() if k.endswith("_note") and v]
     if not renders_wall(meta) and any(k.startswith("wall_") for k in flat):
         notes.append("The wall rows are n/a: this controller renders no wall.")
+    if follows_path(meta) and any(k in flat for k in _SHARE_KEYS):
+        notes.append("The gravity and inertia share rows are n/a: this controller also pushes the hand toward the "
+                     "reference path, which their fit would read as compensation.")
     text = [f"# Run report: {meta['scenario']} / {meta['controller']} / seed {meta['seed']}", "",
             f"Status: {meta.get('status', 'unknown')}, {fmt(m.get('sim_duration_s'))} s simulated at "
             f"{1.0 / float(meta['dt_s']):g} Hz control, {meta['substeps']} physics substeps.", "", CAUTION, ""]
