@@ -312,3 +312,17 @@ def test_per_joint_bandwidths_flatten_for_tables():
     flat = flat_metrics({"drive_model": "lag", "torque_bandwidth_Hz": {"exo_elbow": 79.6}})
     assert flat == {"drive_model": "lag", "torque_bandwidth_Hz.exo_elbow": 79.6}
     assert key_info("torque_bandwidth_Hz.exo_elbow")[:2] == ("Hz", "higher")
+
+
+def test_run_warnings_say_when_a_rendered_wall_was_active():
+    # passivity (the definition in sim.analysis.metrics.wall_cycle_energy_returned_J): a passive wall returns at
+    # most the energy it took over a push-release cycle; a positive return under a variant rendering the wall is
+    # said on the terminal, and only then (a variant without the wall commands 0 N/m: its hand just passes)
+    from sim.experiments.run import run_warnings
+
+    active = {"wall_stiffness_commanded_N_per_m": 600.0, "wall_energy_returned_J": 0.155}
+    lines = run_warnings(active)
+    assert len(lines) == 1 and "0.155 J" in lines[0] and "active" in lines[0]
+    assert run_warnings({"wall_stiffness_commanded_N_per_m": 600.0, "wall_energy_returned_J": -0.11}) == []
+    assert run_warnings({"wall_stiffness_commanded_N_per_m": 0.0, "wall_energy_returned_J": 0.2}) == []
+    assert run_warnings({"wall_stiffness_commanded_N_per_m": 600.0, "wall_energy_returned_J": None}) == []

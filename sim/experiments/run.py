@@ -440,7 +440,11 @@ def run_warnings(metrics: dict) -> list[str]:
     A line when the safety monitor tripped (``safety_trip_count`` > 0, with each trip's reason, time and value),
     when a cuff force exceeded its body-region limit (``force_limit_exceed_count`` > 0) and when the controller
     fell back on any tick (``hqp_fallback_count``; the line says when that is more than
-    :data:`FALLBACK_WARN_FRACTION` of the ticks).
+    :data:`FALLBACK_WARN_FRACTION` of the ticks), and when a wall the controller renders
+    (``wall_stiffness_commanded_N_per_m`` > 0) gave back more energy than it took in a push-release cycle
+    (``wall_energy_returned_J`` > 0): a passive wall never does
+    (:func:`sim.analysis.metrics.wall_cycle_energy_returned_J` gives the definition and its source), so that
+    wall was active.
     """
     out = []
     trips = metrics.get("safety_trips") or []
@@ -458,6 +462,10 @@ def run_warnings(metrics: dict) -> list[str]:
         part += (f", more than {100 * FALLBACK_WARN_FRACTION:g} %)" if over else ")") if part else ""
         out.append(f"the controller fell back to gravity + damping{count}{part}; hqp_fallback_count in "
                    "metrics.json, the first reason is logged above")
+    returned = metrics.get("wall_energy_returned_J")
+    if (metrics.get("wall_stiffness_commanded_N_per_m") or 0) > 0 and returned is not None and returned > 0:
+        out.append(f"the wall gave back {returned:.3g} J more than it took in a push-release cycle: it was active, "
+                   "not passive (wall_energy_returned_J, wall_cycles in metrics.json)")
     return out
 
 
