@@ -326,3 +326,23 @@ def test_run_warnings_say_when_a_rendered_wall_was_active():
     assert run_warnings({"wall_stiffness_commanded_N_per_m": 600.0, "wall_energy_returned_J": -0.11}) == []
     assert run_warnings({"wall_stiffness_commanded_N_per_m": 0.0, "wall_energy_returned_J": 0.2}) == []
     assert run_warnings({"wall_stiffness_commanded_N_per_m": 600.0, "wall_energy_returned_J": None}) == []
+
+
+def test_series_elastic_bandwidth_is_measured_once_per_drive():
+    # the remembered figure is the measurement itself (torque_bandwidth_Hz, checked against Ogata's closed form
+    # above), and a second run with the same drives reuses it
+    from sim.analysis.drives import series_elastic_bandwidth_Hz, torque_bandwidth_Hz
+    from sim.physics.actuators import make_actuators
+    from sim.physics.sea import SeriesElasticParams
+
+    from models.exo import ExoParams
+
+    p = SeriesElasticParams(spring_stiffness_Nm_per_rad=900.0, motor_coulomb_Nm=0.0).resolved(ExoParams())
+    lim = ExoParams().torque_limit_Nm
+    first = series_elastic_bandwidth_Hz(p, lim, 1e-3, 4)
+    hits = series_elastic_bandwidth_Hz.cache_info().hits
+    assert series_elastic_bandwidth_Hz(p, lim, 1e-3, 4) == first
+    assert series_elastic_bandwidth_Hz.cache_info().hits == hits + 1
+    direct = torque_bandwidth_Hz(lambda: make_actuators(p, np.array(lim)), np.array(lim), control_period_s=1e-3,
+                                 substeps=4)
+    assert list(first) == direct

@@ -16,6 +16,7 @@ References
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Callable, Mapping, Sequence
 
@@ -24,7 +25,8 @@ import numpy as np
 from sim.physics.actuators import ActuatorParams, Actuators, IdealActuatorParams, make_actuators
 from sim.physics.sea import SeriesElasticParams
 
-__all__ = ["torque_tracking_rms_Nm", "torque_frequency_response", "torque_bandwidth_Hz", "drive_params_from_meta",
+__all__ = ["torque_tracking_rms_Nm", "torque_frequency_response", "torque_bandwidth_Hz", "series_elastic_bandwidth_Hz",
+           "drive_params_from_meta",
            "drive_metrics", "BANDWIDTH_AMPLITUDE_FRACTION", "HALF_POWER_GAIN"]
 
 #: The test sine's amplitude as a share of each joint's torque limit (10 %: well inside the linear range, well
@@ -166,6 +168,16 @@ def drive_params_from_meta(drives: Mapping | None):
     return ActuatorParams(**p)
 
 
+@functools.lru_cache(maxsize=32)
+def series_elastic_bandwidth_Hz(params: SeriesElasticParams, limit_Nm: tuple[float, ...], control_period_s: float,
+                                substeps: int) -> tuple[float | None, ...]:
+    """:func:`torque_bandwidth_Hz` of series-elastic drives with these (frozen) parameters, remembered per
+    process: the runs of a sweep with the same drives measure it once (about a second each time otherwise)."""
+    lim = np.asarray(limit_Nm, dtype=float)
+    return tuple(torque_bandwidth_Hz(lambda: make_actuators(params, lim), lim, control_period_s=control_period_s,
+                                     substeps=substeps))
+
+
 def drive_metrics(arrays: Mapping[str, np.ndarray], meta: Mapping, limit_Nm: np.ndarray,
                   joint_names: Sequence[str]) -> dict:
     """The drive keys of a run's ``metrics.json``.
@@ -185,8 +197,8 @@ def drive_metrics(arrays: Mapping[str, np.ndarray], meta: Mapping, limit_Nm: np.
     if model == "lag":
         out["torque_bandwidth_Hz"] = dict.fromkeys(names, 1.0 / (2.0 * math.pi * params.torque_time_constant_s))
     elif model == "series_elastic":
-        bw = torque_bandwidth_Hz(lambda: make_actuators(params, limit_Nm), limit_Nm,
-                                 control_period_s=float(meta["dt_s"]), substeps=int(meta["substeps"]))
+        bw = series_elastic_bandwidth_Hz(params, tuple(float(x) for x in limit_Nm), float(meta["dt_s"]),
+                                         int(meta["substeps"]))
         out["torque_bandwidth_Hz"] = dict(zip(names, bw))
         sat = arrays.get("motor_saturated")
         if sat is not None:
