@@ -331,11 +331,10 @@ def test_run_warnings_say_when_a_rendered_wall_was_active():
 def test_series_elastic_bandwidth_is_measured_once_per_drive():
     # the remembered figure is the measurement itself (torque_bandwidth_Hz, checked against Ogata's closed form
     # above), and a second run with the same drives reuses it
+    from models.exo import ExoParams
     from sim.analysis.drives import series_elastic_bandwidth_Hz, torque_bandwidth_Hz
     from sim.physics.actuators import make_actuators
     from sim.physics.sea import SeriesElasticParams
-
-    from models.exo import ExoParams
 
     p = SeriesElasticParams(spring_stiffness_Nm_per_rad=900.0, motor_coulomb_Nm=0.0).resolved(ExoParams())
     lim = ExoParams().torque_limit_Nm
