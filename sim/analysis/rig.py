@@ -43,7 +43,9 @@ import numpy as np
 from models.errors import ParameterError
 
 __all__ = ["RigParams", "RigCell", "rig_cell", "drive_energy_returned_J", "push_response", "PushResponse",
-           "CELL_CLASSES", "rig_passive", "rig_max_passive_stiffness_N_per_m", "DRIVE_FREQUENCIES", "DRIVE_AMPLITUDE_M", "PUSH_FORCE_N", "GROWTH_RATIO"]
+           "CELL_CLASSES",
+           "rig_passive", "rig_max_passive_stiffness_N_per_m", "DRIVE_FREQUENCIES",
+           "DRIVE_AMPLITUDE_M", "PUSH_FORCE_N", "GROWTH_RATIO"]
 
 #: The classes of a cell of a wall map.
 CELL_CLASSES = ("passive", "active", "unstable")
@@ -189,7 +191,8 @@ def push_response(K: float, B: float, params: RigParams, *, force_N: float = PUS
     work of the wall and the physical damper on the mass, :math:`-\\int (F + b v) v\\,dt`
     (positive: the device gave back more than it took, i.e. it was active; the
     mass, lossless, is left out, as in [ColgateSchenkel1997]_); ``bounce_count``: contact onsets after the first
-    (a push enters the wall once); ``growing``: the deviation from the
+    until the end of the hold (a push enters the wall once; while the force ramps down the mass may leave and
+    touch again harmlessly); ``growing``: the deviation from the
     quasi-static penetration :math:`F_h/K` over the last third of the hold
     peaks higher than :data:`GROWTH_RATIO` times that of the first third (and
     above a tenth of a micrometre).
@@ -225,7 +228,7 @@ def push_response(K: float, B: float, params: RigParams, *, force_N: float = PUS
             finite = False
             pos = pos[:k + 2]
             break
-    inside = pos > 0.0
+    inside = pos[:n_ramp + n_hold + 1] > 0.0  # up to the end of the hold: a release may leave and touch again
     onsets = int(np.count_nonzero(inside[1:] & ~inside[:-1])) + int(inside[0])
     growing = not finite
     if finite:
