@@ -49,7 +49,7 @@ def plot_wall_map(cells: Sequence, path: str | Path, *, boundaries: Mapping[tupl
                          "xtick.labelsize": STYLE["tick"], "ytick.labelsize": STYLE["tick"],
                          "legend.fontsize": STYLE["legend"], "axes.spines.top": False,
                          "axes.spines.right": False, "grid.alpha": 0.3}):
-        fig, axes = plt.subplots(rows, cols, figsize=(4.6 * cols, 3.9 * rows + 0.7), squeeze=False)
+        fig, axes = plt.subplots(rows, cols, figsize=(max(6.4, 4.6 * cols), 3.9 * rows + 1.2), squeeze=False)
         handles = {}
         for ax, key in zip(axes.flat, keys):
             mine = [c for c in cells if (c.period_s, c.delay_ticks) == key]
@@ -78,12 +78,17 @@ def plot_wall_map(cells: Sequence, path: str | Path, *, boundaries: Mapping[tupl
             ax.grid(True)
         for ax in list(axes.flat)[len(keys):]:
             ax.set_visible(False)
-        fig.legend(list(handles.values()), list(handles), loc="upper center", ncol=min(4, len(handles)),
-                   frameon=False, bbox_to_anchor=(0.5, 1.0 - 0.5 / fig.get_figheight()))
-        if title:
-            fig.suptitle(wrap_title(title, fig.get_figwidth()), fontsize=STYLE["title"],
-                         y=1.0 - 0.05 / fig.get_figheight())
-        fig.tight_layout(rect=(0, 0, 1, 1.0 - 1.1 / fig.get_figheight()))
+        ncol = min(3, len(handles))
+        legend_rows = -(-len(handles) // max(ncol, 1))
+        title_text = wrap_title(title, fig.get_figwidth()) if title else ""
+        top_in = 0.15 + 0.2 * (title_text.count("\n") + 1 if title_text else 0) + 0.22 * legend_rows
+        height = fig.get_figheight()
+        fig.legend(list(handles.values()), list(handles), loc="upper center", ncol=ncol, frameon=False,
+                   bbox_to_anchor=(0.5, 1.0 - (0.1 + 0.2 * (title_text.count("\n") + 1 if title_text else 0))
+                                   / height))
+        if title_text:
+            fig.suptitle(title_text, fontsize=STYLE["title"], y=1.0 - 0.05 / height)
+        fig.tight_layout(rect=(0, 0, 1, 1.0 - top_in / height))
         out = Path(path)
         fig.savefig(out, dpi=STYLE["dpi"])
         plt.close(fig)
