@@ -62,15 +62,19 @@ from sim.loop.simulation import SimulationError, build_assembly
 
 __all__ = ["WallMapCell", "WallMapTask", "WallMap", "wall_map", "write_wall_map", "map_cell", "rig_params_for",
            "exo_cell_scenario", "classify_exo_run", "first_cycle_s", "scenario_wall_law", "SETUPS", "DRIVES",
-           "WallMapError", "CSV_COLUMNS", "EXO_GROWTH_FLOOR_M", "boundaries",
+           "WallMapError", "CSV_COLUMNS", "EXO_GROWTH_FLOOR_M", "EXO_GROWTH_WINDOW_S", "boundaries",
            "largest_passive"]
 
 SETUPS = ("rig", "exo")
 #: Drives of the exo set-up: the scenario's wearer (a fixture drive plugs in here once it exists).
 DRIVES = ("wearer",)
-#: Oscillation of the wall-normal penetration below this is no oscillation on the exoskeleton [m]
-#: (0.1 mm, about the hand's tremor-free holding noise; common practice).
-EXO_GROWTH_FLOOR_M = 1e-4
+#: Oscillation of the wall-normal penetration below this is no oscillation on the exoskeleton [m] (0.5 mm: above
+#: what a smooth push and release leave in the 50 Hz high-pass of :func:`_growing`, about 0.1 mm on wall_push;
+#: common practice).
+EXO_GROWTH_FLOOR_M = 5e-4
+#: Window of the moving average that :func:`_growing` removes from the penetration [s] (a 50 Hz high-pass: the
+#: wearer's movement stays below it, a sampled wall's contact oscillation above).
+EXO_GROWTH_WINDOW_S = 0.02
 
 
 class WallMapError(ParameterError):
@@ -243,9 +247,11 @@ def exo_cell_scenario(scenario: Scenario, stiffness_N_per_m: float, damping_N_s_
 
 # -- one cell ---------------------------------------------------------------------------------------------------------
 def _growing(pen: np.ndarray, dt_s: float) -> bool:
-    """Whether the oscillation of the penetration grows over the longest contact: its deviation from a 0.1 s
-    moving average peaks in the last third more than :data:`~sim.analysis.rig.GROWTH_RATIO` times as high as in
-    the second third (the first holds the entry), and above :data:`EXO_GROWTH_FLOOR_M`."""
+    """Whether the oscillation of the penetration grows over the longest contact.
+
+    Its deviation from a :data:`EXO_GROWTH_WINDOW_S` moving average peaks in the last third more than
+    :data:`~sim.analysis.rig.GROWTH_RATIO` times as high as in the second third (the first holds the entry),
+    and above :data:`EXO_GROWTH_FLOOR_M`."""
     inside = pen > 0.0
     if not inside.any():
         return False
@@ -253,7 +259,7 @@ def _growing(pen: np.ndarray, dt_s: float) -> bool:
     starts, ends = edges[0::2], edges[1::2]
     j = int(np.argmax(ends - starts))
     seg = pen[starts[j]:ends[j]]
-    w = max(1, round(0.1 / dt_s))
+    w = max(1, round(EXO_GROWTH_WINDOW_S / dt_s))
     if len(seg) < 3 * w:
         return False
     smooth = np.convolve(seg, np.ones(w) / w, mode="same")
