@@ -135,7 +135,8 @@ class WallMapCell:
     elapsed_s: float = 0.0
 
 
-CSV_COLUMNS = tuple(f.name for f in dataclasses.fields(WallMapCell))
+#: Columns of ``wallmap.csv``: every field but the wall-clock ``elapsed_s``, so the same cells give the same file.
+CSV_COLUMNS = tuple(f.name for f in dataclasses.fields(WallMapCell) if f.name != "elapsed_s")
 
 
 @dataclass(frozen=True)
