@@ -66,7 +66,8 @@ __all__ = ["WallMapCell", "WallMapTask", "WallMap", "wall_map", "write_wall_map"
            "largest_passive"]
 
 SETUPS = ("rig", "exo")
-#: Drives of the exo set-up: the scenario's wearer (a fixture drive plugs in here once it exists).
+#: Drives of the exo set-up: the scenario's wearer.  A new drive is a name here and a branch in :func:`_exo_cell`,
+#: where the cell's run is made (the wearer's: ``simulate(scenario, "walls", folder)``).
 DRIVES = ("wearer",)
 #: Oscillation of the wall-normal penetration below this is no oscillation on the exoskeleton [m] (0.5 mm: above
 #: what a smooth push and release leave in the 50 Hz high-pass of :func:`_growing`, about 0.1 mm on wall_push;
