@@ -18,12 +18,13 @@ import dataclasses
 import math
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from sim.analysis.passivity import max_passive_stiffness_N_per_m, passivity_damping_N_s_per_m
 from sim.analysis.rig import RigParams, rig_cell, rig_max_passive_stiffness_N_per_m
 from sim.cli import main
-from sim.experiments.wallmap import exo_cell_scenario, scenario_wall_law, wall_map, write_wall_map
+from sim.experiments.wallmap import classify_exo_run, exo_cell_scenario, scenario_wall_law, wall_map, write_wall_map
 from sim.loop.scenario import load_scenario
 
 WALL_PUSH = Path(__file__).resolve().parents[1] / "scenarios" / "wall_push.py"
@@ -149,3 +150,24 @@ def test_small_exo_map_runs_end_to_end(tmp_path):
     assert len(result.cells) == 4 and all(c.cls in ("passive", "active", "unstable") for c in result.cells)
     assert "IEC 80601-2-78" in paths["report"].read_text()
     assert all(math.isfinite(c.energy_returned_J) for c in result.cells if c.energy_returned_J is not None)
+
+
+@pytest.mark.parametrize("metrics, cls", [
+    ({"wall_bounce_count": 0, "wall_energy_returned_J": -0.1}, "passive"),
+    # Colgate & Schenkel (1997): a cycle that gives energy back is a passivity violation
+    ({"wall_bounce_count": 1, "wall_energy_returned_J": 0.05}, "active"),
+    ({"wall_bounce_count": 3, "wall_energy_returned_J": -0.1}, "unstable"),
+    ({"wall_bounce_count": 0, "wall_energy_returned_J": None}, "passive"),
+])
+def test_exo_cell_class_follows_the_wall_metrics(metrics, cls):
+    assert classify_exo_run(metrics, np.zeros(100), 1e-3)[0] == cls
+
+
+def test_exo_growing_contact_oscillation_is_unstable():
+    # common practice: a 30 Hz oscillation whose amplitude grows e-fold every 0.2 s over a steady 2 cm push
+    t = np.arange(0.0, 2.0, 1e-3)
+    pen = 0.02 + 1e-4 * np.exp(t / 0.2) / np.exp(2.0 / 0.2) * 50 * np.sin(2 * np.pi * 30 * t)
+    assert classify_exo_run({"wall_bounce_count": 0, "wall_energy_returned_J": -0.1}, pen, 1e-3) == (
+        "unstable", True)
+    steady = 0.02 + 2e-4 * np.sin(2 * np.pi * 30 * t)
+    assert classify_exo_run({"wall_bounce_count": 0, "wall_energy_returned_J": -0.1}, steady, 1e-3)[1] is False

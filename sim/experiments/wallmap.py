@@ -62,7 +62,8 @@ from sim.loop.simulation import SimulationError, build_assembly
 
 __all__ = ["WallMapCell", "WallMapTask", "WallMap", "wall_map", "write_wall_map", "map_cell", "rig_params_for",
            "exo_cell_scenario", "classify_exo_run", "first_cycle_s", "scenario_wall_law", "SETUPS", "DRIVES",
-           "WallMapError", "CSV_COLUMNS", "EXO_GROWTH_FLOOR_M", "EXO_GROWTH_WINDOW_S", "boundaries",
+           "WallMapError", "CSV_COLUMNS", "EXO_GROWTH_FLOOR_M", "EXO_GROWTH_WINDOW_S",
+           "EXO_UNSTABLE_BOUNCES", "boundaries",
            "largest_passive"]
 
 SETUPS = ("rig", "exo")
@@ -73,6 +74,9 @@ DRIVES = ("wearer",)
 #: what a smooth push and release leave in the 50 Hz high-pass of :func:`_growing`, about 0.1 mm on wall_push;
 #: common practice).
 EXO_GROWTH_FLOOR_M = 5e-4
+#: Bounces (``wall_bounce_count``) from which an exo contact is unstable: repeated ones (a single rebound on
+#: entry can end in a stable contact; common practice).
+EXO_UNSTABLE_BOUNCES = 2
 #: Window of the moving average that :func:`_growing` removes from the penetration [s] (a 50 Hz high-pass: the
 #: wearer's movement stays below it, a sampled wall's contact oscillation above).
 EXO_GROWTH_WINDOW_S = 0.02
@@ -274,12 +278,15 @@ def _growing(pen: np.ndarray, dt_s: float) -> bool:
 
 
 def classify_exo_run(metrics: dict, penetration_m: np.ndarray, dt_s: float) -> tuple[str, bool]:
-    """An exo cell's class from its run's wall metrics and its log: ``"unstable"`` when the hand bounced
-    (``wall_bounce_count`` > 0) or the penetration's oscillation grew (:func:`_growing`), ``"active"`` when a
-    push-release cycle gave energy back (``wall_energy_returned_J`` > 0, [ColgateSchenkel1997]_), else
-    ``"passive"``.  Returns ``(class, growing)``."""
+    """An exo cell's class from its run's wall metrics and its log.
+
+    ``"unstable"`` when the hand bounced repeatedly (``wall_bounce_count`` >=
+    :data:`EXO_UNSTABLE_BOUNCES`) or the penetration's oscillation grew
+    (:func:`_growing`); ``"active"`` when a push-release cycle gave energy back
+    (``wall_energy_returned_J`` > 0, [ColgateSchenkel1997]_); else ``"passive"``.
+    Returns ``(class, growing)``."""
     growing = _growing(np.asarray(penetration_m, dtype=float), dt_s)
-    if growing or (metrics.get("wall_bounce_count") or 0) > 0:
+    if growing or (metrics.get("wall_bounce_count") or 0) >= EXO_UNSTABLE_BOUNCES:
         return "unstable", growing
     returned = metrics.get("wall_energy_returned_J")
     return ("active" if returned is not None and returned > 0 else "passive"), growing
@@ -506,7 +513,8 @@ def write_wall_map(result: WallMap, out_dir: str | Path) -> dict[str, Path]:
     b = result.rig.damping_N_s_per_m
     png = plot_wall_map(result.cells, out / "wallmap.png", boundaries=boundaries(result),
                         default_law=result.default_law,
-                        title=f"{result.scenario_name}: wall map on the {result.setup}, physical damping b = "
+                        title=f"{result.scenario_name}: wall map on the {result.setup}; bound for "
+                              f"{'its' if result.setup == 'rig' else 'the rig'}'s physical damping b = "
                               f"{fmt(b)} N s/m")
     rows = []
     for (T, d, B), K in largest_passive(result.cells).items():
