@@ -105,6 +105,21 @@ def test_rig_map_is_the_same_with_one_and_two_processes(tmp_path):
     assert {c.cls for c in one.cells} >= {"passive", "active"}
 
 
+def test_rig_map_on_dask_is_the_same_as_on_local_processes(tmp_path):
+    distributed = pytest.importorskip("dask.distributed")
+    scenario = load_scenario(WALL_PUSH)
+    args = ([300.0, 600.0, 9600.0], [0.0, 5.0])
+    cluster = distributed.LocalCluster(n_workers=1, processes=False, threads_per_worker=1, dashboard_address=None)
+    try:
+        on_dask = wall_map(scenario, *args, dask_address=cluster.scheduler_address)
+    finally:
+        cluster.close()
+    local = wall_map(scenario, *args, jobs=1)
+    assert on_dask.executor.startswith("dask")
+    assert (write_wall_map(on_dask, tmp_path / "dask")["csv"].read_bytes()
+            == write_wall_map(local, tmp_path / "local")["csv"].read_bytes())
+
+
 @pytest.mark.parametrize("argv, culprit", [
     (["--stiffness", "600,abc"], "--stiffness"),
     (["--stiffness", "0,600"], "--stiffness"),

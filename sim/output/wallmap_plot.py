@@ -71,7 +71,9 @@ def plot_wall_map(cells: Sequence, path: str | Path, *, boundaries: Mapping[tupl
                 handles["scenario's wall"] = h
             if K.size and K.max() / max(K.min(), 1e-12) > 20:
                 ax.set_yscale("log")
-            ax.set_ylim(0.7 * K.min() if K.size else None, 1.4 * K.max() if K.size else None)
+                ax.set_ylim(0.7 * K.min(), 1.4 * K.max())
+            elif K.size:
+                ax.set_ylim(0.0, 1.1 * K.max())
             ax.set_xlabel("virtual damping B [N s/m]")
             ax.set_ylabel("virtual stiffness K [N/m]")
             ax.set_title(f"T = {1e3 * key[0]:g} ms, delay d = {key[1]} tick(s)")
