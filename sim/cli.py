@@ -146,6 +146,37 @@ def build_parser() -> argparse.ArgumentParser:
                    "draws only its own)")
     w.set_defaults(func=_cmd_sweep)
 
+    m = sub.add_parser("wallmap", help="map a virtual wall's passivity and stability over stiffness x damping",
+                       description="Classify the scenario's plane wall as passive, active or unstable for every "
+                       "stiffness x damping of a grid (optionally also over the control period and delay), on a "
+                       "one-axis rig or on the full exoskeleton, and write wallmap.csv, wallmap.png (with the "
+                       "analytic passivity boundary of Colgate & Schenkel) and report.md.")
+    m.add_argument("scenario", metavar="SCENARIO", help="scenario file with a wall_plane, e.g. scenarios/wall_push.py")
+    m.add_argument("--setup", choices=("rig", "exo"), default="rig",
+                   help="rig: a mass with physical damping and the sampled wall law (fast); exo: the full "
+                   "exoskeleton under the walls variant, a short run per cell (default: rig)")
+    m.add_argument("--stiffness", metavar="K1,K2", help="comma-separated wall stiffnesses [N/m] (default: the "
+                   "scenario wall's times 0.25, 0.5, 1, 2, 4)")
+    m.add_argument("--damping", metavar="B1,B2", help="comma-separated wall dampings [N s/m] (default: the "
+                   "scenario wall's times 0, 0.5, 1, 2)")
+    m.add_argument("--period", metavar="S1,S2", help="comma-separated control periods [s] (default: the scenario's)")
+    m.add_argument("--delay", metavar="TICKS1,TICKS2",
+                   help="comma-separated control delays [ticks] (default: the scenario's)")
+    m.add_argument("--drive", choices=("wearer",), default="wearer",
+                   help="exo: what pushes the hand into the wall (default and only one for now: the scenario's "
+                   "wearer)")
+    m.add_argument("--duration", type=float, metavar="S", help="exo: each cell's run [s] (default: the end of the "
+                   "intent's first push-release cycle)")
+    m.add_argument("--mass", type=float, metavar="KG", help="rig: moving mass [kg] (default: the exoskeleton's "
+                   "operational-space mass along the wall normal at the start posture)")
+    m.add_argument("--physical-damping", type=float, metavar="N_S_PER_M", help="rig: physical damping [N s/m] "
+                   "(default: the exoskeleton's joint viscous friction seen along the wall normal)")
+    m.add_argument("--subject", metavar="NAME", help=_SUBJECT_HELP)
+    m.add_argument("--jobs", type=int, default=1, metavar="N", help="cells at a time on this machine (default 1)")
+    m.add_argument("--dask", metavar="ADDRESS", help="run on an existing Dask scheduler, e.g. tcp://host:8786")
+    m.add_argument("--out", metavar="DIR", help="output folder (default: runs/wallmap-SCENARIO-SETUP; then -2, ...)")
+    m.set_defaults(func=_cmd_wallmap)
+
     g = sub.add_parser("catalog", help="list the scenarios of a folder, the controller variants, the tasks, the "
                        "subjects and the frame names of the models",
                        description="List what a scenario file and the other commands can name: the scenarios of "
@@ -545,6 +576,90 @@ def _cmd_catalog(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     return "\n".join(lines)
 
 
+def _number_list(text: str | None, option: str, parser: argparse.ArgumentParser, *, integer: bool = False,
+                 positive: bool = True) -> list | None:
+    """A comma-separated ``option`` as numbers (None if not given); a bad one is a usage error naming it."""
+    if text is None:
+        return None
+    import math
+
+    out = []
+    for item in text.split(","):
+        item = item.strip()
+        try:
+            v = int(item) if integer else float(item)
+        except ValueError:
+            parser.error(f"{option} expects comma-separated {'integers' if integer else 'numbers'}, got {item!r}")
+        if not math.isfinite(v) or (v <= 0 if positive else v < 0):
+            parser.error(f"{option} values must be finite and {'> 0' if positive else '>= 0'}, got {item!r}")
+        out.append(v)
+    if len(set(out)) != len(out):
+        parser.error(f"{option} holds a value twice: {text!r}")
+    return out
+
+
+def _cmd_wallmap(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    import dataclasses
+
+    from sim.experiments.wallmap import largest_passive, rig_params_for, scenario_wall_law, wall_map, write_wall_map
+    from sim.loop.scenario import load_scenario
+    from sim.output.report import fmt
+
+    stiffness = _number_list(args.stiffness, "--stiffness", parser)
+    damping = _number_list(args.damping, "--damping", parser, positive=False)
+    periods = _number_list(args.period, "--period", parser)
+    delays = _number_list(args.delay, "--delay", parser, integer=True, positive=False)
+    if args.jobs < 1:
+        parser.error(f"--jobs must be >= 1, got {args.jobs}")
+    for option, value in (("--mass", args.mass), ("--duration", args.duration)):
+        if value is not None and not (0 < value < float("inf")):
+            parser.error(f"{option} must be a finite number > 0, got {value}")
+    if args.physical_damping is not None and not (0 <= args.physical_damping < float("inf")):
+        parser.error(f"--physical-damping must be a finite number >= 0, got {args.physical_damping}")
+    if args.setup == "rig" and (args.duration is not None):
+        parser.error("--duration applies to --setup exo only")
+    if args.subject is not None:
+        Subject.named(args.subject)
+    scenario = load_scenario(args.scenario, subject=args.subject)
+    law = scenario_wall_law(scenario)
+    K0, B0 = law.stiffness_N_per_m, law.damping_N_s_per_m
+    stiffness = stiffness or [K0 * f for f in (0.25, 0.5, 1.0, 2.0, 4.0)]
+    damping = damping or list(dict.fromkeys(B0 * f for f in (0.0, 0.5, 1.0, 2.0)))
+    rig = rig_params_for(scenario)
+    rig = dataclasses.replace(rig, **{k: v for k, v in (("mass_kg", args.mass),
+                                                        ("damping_N_s_per_m", args.physical_damping))
+                                      if v is not None})
+    if args.out:
+        out = Path(args.out)
+        if out.is_dir() and any(out.iterdir()):
+            raise _UserError(f"output folder {str(out)!r} already holds something; choose another --out")
+    else:
+        out = _fresh_folder(Path("runs") / f"wallmap-{scenario.name}-{args.setup}")
+    _writable_folder(out, "--out" if args.out else "output folder")
+    try:
+        result = wall_map(scenario, stiffness, damping, setup=args.setup, periods_s=periods,
+                          control_delays_ticks=delays, rig=rig, drive=args.drive, duration_s=args.duration,
+                          jobs=args.jobs, dask_address=args.dask, work_dir=out / "cells")
+    except KeyboardInterrupt:
+        raise _UserError("interrupted; no map written") from None
+    paths = write_wall_map(result, out)
+    lines = [f"{len(result.cells)} cells on the {args.setup} in {result.elapsed_s:.1f} s; largest passive "
+             "stiffness of the grid per damping (and the analytic bound for the rig's b = "
+             f"{fmt(rig.damping_N_s_per_m)} N s/m):"]
+    from sim.analysis.passivity import max_passive_stiffness_N_per_m
+
+    for (T, d, B), K in largest_passive(result.cells).items():
+        total = rig.sensor_delay_ticks + d
+        bound = max_passive_stiffness_N_per_m(rig.damping_N_s_per_m, T, B, total)
+        lines.append(f"  T = {1e3 * T:g} ms, delay {total}, B = {fmt(B)} N s/m: "
+                     f"{'none' if K is None else fmt(K)} N/m (bound {fmt(bound)} N/m)")
+    own = [c for c in result.cells if c.stiffness_N_per_m == K0 and c.damping_N_s_per_m == B0]
+    lines += [f"the scenario's wall ({fmt(K0)} N/m, {fmt(B0)} N s/m): {c.cls}"
+              + (f" at T = {1e3 * c.period_s:g} ms, delay {c.delay_ticks}" if len(own) > 1 else "") for c in own]
+    lines.append(f"map {paths['png']}, cells {paths['csv']}, report {paths['report']}")
+    return "\n".join(lines)
+
+
 #: Columns of the sweep table printed on the terminal (summary.md and summary.csv hold every summary metric).
 _SWEEP_COLUMNS = ("interaction_force_rms_N", "interaction_force_free_rms_N", "apparent_mass_hand_kg",
                   "human_effort_ratio", "wall_stiffness_rendered_N_per_m", "hqp_fallback_count")
@@ -650,7 +765,7 @@ class _UserError(Exception):
 
 
 #: commands that simulate, so run the compiled kernels
-_SIMULATING = ("run", "compare", "sweep", "bench")
+_SIMULATING = ("run", "compare", "sweep", "bench", "wallmap")
 
 
 def _stderr_is_terminal() -> bool:
