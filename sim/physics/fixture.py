@@ -6,8 +6,9 @@ spring-damper to an imposed point
 .. math::  x(t) = p_0 + s(t)\\, u,
 
 with ``u`` a unit direction in the world frame, ``p_0`` the cuff point at the start and ``s(t)`` the imposed
-displacement [m] of a motion, less its value at t = 0 (the imposed point starts at the cuff point) (:class:`Multisine`, :class:`Chirp`, :class:`PiecewiseVelocity`).  The force of
-the fixture on the robot [N, world frame] is
+displacement [m] of a motion (:class:`Multisine`, :class:`Chirp`, :class:`PiecewiseVelocity`) less its value
+at t = 0, so that the imposed point starts at the cuff point.  The force of the fixture on the robot
+[N, world frame] is
 
 .. math::  F = K_a (u u^T)(x - p) + D_a (u u^T)(\\dot x - \\dot p)
             + K_l (I - u u^T)(x - p) + D_l (I - u u^T)(\\dot x - \\dot p),
