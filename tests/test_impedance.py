@@ -197,3 +197,30 @@ def test_write_impedance_writes_csv_bode_and_report(tmp_path):
     lines = paths["csv"].read_text().splitlines()
     assert lines[0].startswith("variant,freq_Hz") and len(lines) == 1 + len(res[0].freq_Hz)
     assert paths["png"].stat().st_size > 10_000
+
+
+@pytest.mark.parametrize("argv, match", [
+    (["--direction", "1,0"], "--direction must be three comma-separated numbers"),
+    (["--band", "5,1"], "--band must be 0 < LO < HI"),
+    (["--amplitude", "-0.01"], "--amplitude must be a finite displacement > 0"),
+    (["--controller", "nosuch"], "--controller: scenario 'reach' supports the controllers"),
+])
+def test_impedance_command_refuses_a_bad_value_in_one_line(argv, match, capsys, tmp_path):
+    from sim.cli import main
+
+    try:
+        status = main(["impedance", "scenarios/reach.py", "--out", str(tmp_path / "out"), *argv])
+    except SystemExit as e:  # a usage error (argparse's exit)
+        status = e.code
+    err = capsys.readouterr().err
+    assert status in (1, 2) and match in err and err.count("\n") == 1
+
+
+def test_impedance_command_writes_its_outputs(capsys, tmp_path):
+    from sim.cli import main
+
+    out = tmp_path / "imp"
+    assert main(["impedance", "scenarios/reach.py", "--controller", "zero", "--duration", "8",
+                 "--band", "0.5,5", "--out", str(out)]) == 0
+    assert "felt mass m [kg]" in capsys.readouterr().out
+    assert {p.name for p in out.iterdir()} == {"impedance.csv", "bode.png", "report.md"}

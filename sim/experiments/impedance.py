@@ -56,7 +56,8 @@ class FeltImpedance:
     fit : ImpedanceFit or None
         None when too few points reach the coherence threshold (``fit_error`` says why).
     bandwidth_Hz : float or None
-        The transparency bandwidth; ``bandwidth_open`` when |Z| stayed under the threshold over the whole band.
+        The transparency bandwidth (0.0: the lowest reliable line already reaches the threshold);
+        ``bandwidth_open`` when |Z| stayed under the threshold over the whole band.
     threshold_N_s_per_m : float
     run_time_s : float
         Wall-clock time of the run [s] (this machine's, not a property of the controller).
@@ -72,6 +73,7 @@ class FeltImpedance:
     bandwidth_open: bool
     threshold_N_s_per_m: float
     run_time_s: float
+    min_coherence: float = 0.9
 
 
 def impedance_record(arrays, fixture: HandFixture, dt_s: float, *, settle_s: float = DEFAULT_SETTLE_S,
@@ -161,7 +163,7 @@ def felt_impedance(scenario: Scenario, controllers: Sequence[str], fixture: Hand
         except ParameterError:
             bw, bw_open = None, False
         results.append(FeltImpedance(name, freq, Z, coh, fit, err, bw, bool(bw_open), float(threshold_N_s_per_m),
-                                     run_time))
+                                     run_time, float(min_coherence)))
     return results
 
 
@@ -175,8 +177,15 @@ def summary_rows(results: Sequence[FeltImpedance]) -> tuple[list[str], list[list
               "transparency bandwidth [Hz]", "coherence (fitted points)", "fitted band [Hz]"]
     rows = []
     for r in results:
-        bw = "n/a" if r.bandwidth_Hz is None else (f"≥ {r.bandwidth_Hz:.3g}" if r.bandwidth_open
-                                                   else f"{r.bandwidth_Hz:.3g}")
+        reliable = r.freq_Hz[r.coherence >= r.min_coherence]
+        if r.bandwidth_Hz is None:
+            bw = "n/a"
+        elif r.bandwidth_open:
+            bw = f"≥ {r.bandwidth_Hz:.3g}"
+        elif r.bandwidth_Hz == 0.0 and reliable.size:
+            bw = f"< {reliable[0]:.3g}"  # the lowest reliable line already reaches the threshold
+        else:
+            bw = f"{r.bandwidth_Hz:.3g}"
         if r.fit is None:
             rows.append([r.variant, "n/a", "n/a", "n/a", "n/a", bw, "n/a", "n/a"])
             continue
@@ -234,6 +243,16 @@ def write_impedance(results: Sequence[FeltImpedance], out: str | Path, *, scenar
     for r in results:
         if r.fit_error:
             lines += [f"- {r.variant}: no fit: {r.fit_error}"]
+        elif r.fit.r2 < 0.9:
+            lines += [f"- {r.variant}: the mass-damper-spring model fits poorly (R² = {r.fit.r2:.2f} < 0.9): the "
+                      "felt impedance is not that of a mass, a damper and a spring over the band (a controller's "
+                      "own dynamics, friction at small speeds), so read the Bode plot rather than m, b, k."]
+        if r.fit is not None and r.fit.n_points < len(r.freq_Hz):
+            lines += [f"- {r.variant}: {len(r.freq_Hz) - r.fit.n_points} of {len(r.freq_Hz)} lines below the "
+                      f"coherence threshold {min_coherence} were left out of the fit (hollow markers)."]
+    lines += ["- Joint friction is simulated as viscous plus smoothed Coulomb friction (PlantParams): at the "
+              "small speeds of a few-millimetre motion the smoothed Coulomb part acts as a large viscous term, "
+              "so the fitted damping depends on the amplitude (try --amplitude)."]
     lines += ["", CAUTION, ""]
     md = out / "report.md"
     md.write_text("\n".join(lines), encoding="utf-8")
