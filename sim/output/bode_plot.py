@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 
@@ -18,9 +19,10 @@ from sim.output.plots import PALETTE, STYLE, wrap_title
 
 __all__ = ["bode"]
 
-_RC = {"axes.titlesize": STYLE["panel"], "axes.labelsize": STYLE["label"], "xtick.labelsize": STYLE["tick"],
-       "ytick.labelsize": STYLE["tick"], "legend.fontsize": STYLE["legend"], "axes.spines.top": False,
-       "axes.spines.right": False, "grid.alpha": 0.3}
+_RC = MappingProxyType({
+    "axes.titlesize": STYLE["panel"], "axes.labelsize": STYLE["label"], "xtick.labelsize": STYLE["tick"],
+    "ytick.labelsize": STYLE["tick"], "legend.fontsize": STYLE["legend"], "axes.spines.top": False,
+    "axes.spines.right": False, "grid.alpha": 0.3})
 
 
 def bode(curves: Mapping[str, tuple], path: str | Path, *, title: str, min_coherence: float = 0.9,
@@ -45,7 +47,7 @@ def bode(curves: Mapping[str, tuple], path: str | Path, *, title: str, min_coher
 
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    with plt.rc_context(_RC):
+    with plt.rc_context(dict(_RC)):
         fig, (ax_m, ax_p) = plt.subplots(2, 1, figsize=(7.2, 5.6), sharex=True,
                                          gridspec_kw={"height_ratios": (3, 2)})
         for i, (name, (f, Z, coh, Zfit)) in enumerate(curves.items()):
