@@ -220,7 +220,7 @@ def _band(owner: str, band) -> tuple[float, float]:
 
 @dataclass(frozen=True)
 class HandFixture:
-    """A fixture at the robot's hand cuff imposing ``motion`` along ``direction``.
+    r"""A fixture at the robot's hand cuff imposing ``motion`` along ``direction``.
 
     Parameters
     ----------
@@ -228,9 +228,13 @@ class HandFixture:
         The imposed displacement s(t) [m] along ``direction``, from the cuff point's start position.
     direction : (3,) unit vector, world frame
     stiffness_N_per_m, damping_N_s_per_m : float
-        The coupling along the direction (stiff by default: 5e4 N/m and 100 N s/m, a stiff stage and load
-        cell; with a felt mass of 0.3 kg or more the coupling's resonance lies above 60 Hz, far above the
-        band, and the semi-implicit Euler step of 0.25 ms stays well inside its stability limit; our choice).
+        The coupling (stiff by default: 1e6 N/m and 1000 N s/m, a stiff stage and load cell; our choice).
+        Held sideways, the coupling's springs and the robot's mass make a mode at
+        :math:`\sqrt{K / m} / 2 \pi`: with K = 1e6 N/m and a mass up to 10 kg it lies above 50 Hz, out of a
+        0.5-20 Hz band (with 5e4 N/m and 6 kg it would sit at 14.5 Hz, inside it).  For the semi-implicit
+        Euler substep h of the plant (0.25 ms by default) the coupling stays stable while
+        :math:`h \sqrt{K / m} < 2` and :math:`h D / m < 2`: with the defaults, for masses down to about
+        0.15 kg.
     lateral : {"held", "free"}
         Sideways of the direction: held with the same stiffness and damping (a linear stage), or free.
     cuff : str
@@ -241,8 +245,8 @@ class HandFixture:
 
     motion: Motion = field(default_factory=Multisine)
     direction: tuple[float, float, float] = (1.0, 0.0, 0.0)
-    stiffness_N_per_m: float = 5.0e4
-    damping_N_s_per_m: float = 100.0
+    stiffness_N_per_m: float = 1.0e6
+    damping_N_s_per_m: float = 1000.0
     lateral: str = "held"
     cuff: str = "hand"
     start_rad: tuple[float, ...] | None = None
