@@ -33,7 +33,7 @@ from sim.loop.simulation import Progress, Simulation
 from sim.physics.fixture import HandFixture, Multisine
 
 __all__ = ["FeltImpedance", "felt_impedance", "impedance_record", "write_impedance", "DEFAULT_SETTLE_S",
-           "DEFAULT_PERIODS"]
+           "DEFAULT_PERIODS", "DRIFT_WARN_RAD"]
 
 #: Time left out at the start of each run [s], rounded up to whole periods of a multisine: the start transient
 #: (the robot's and the controller's states settle in the periodic motion; common practice).
@@ -61,6 +61,10 @@ class FeltImpedance:
     threshold_N_s_per_m : float
     run_time_s : float
         Wall-clock time of the run [s] (this machine's, not a property of the controller).
+    min_coherence : float
+    posture_drift_rad : float
+        The largest distance of a joint from its start angle over the run [rad]: the impedance is that of the
+        start posture only while it stays small (an unpowered robot under gravity hangs on the fixture).
     """
 
     variant: str
@@ -74,6 +78,7 @@ class FeltImpedance:
     threshold_N_s_per_m: float
     run_time_s: float
     min_coherence: float = 0.9
+    posture_drift_rad: float = 0.0
 
 
 def impedance_record(arrays, fixture: HandFixture, dt_s: float, *, settle_s: float = DEFAULT_SETTLE_S,
@@ -163,8 +168,17 @@ def felt_impedance(scenario: Scenario, controllers: Sequence[str], fixture: Hand
         except ParameterError:
             bw, bw_open = None, False
         results.append(FeltImpedance(name, freq, Z, coh, fit, err, bw, bool(bw_open), float(threshold_N_s_per_m),
-                                     run_time, float(min_coherence)))
+                                     run_time, float(min_coherence), _drift(traj.arrays["q_exo"])))
     return results
+
+
+#: Posture drift above which the report warns [rad] (0.1 rad, about 6 deg; our choice).
+DRIFT_WARN_RAD = 0.1
+
+
+def _drift(q: np.ndarray) -> float:
+    q = np.asarray(q)
+    return float(np.max(np.abs(q - q[0]))) if len(q) else 0.0
 
 
 def _f(x, digits: int = 3) -> str:
@@ -174,7 +188,7 @@ def _f(x, digits: int = 3) -> str:
 def summary_rows(results: Sequence[FeltImpedance]) -> tuple[list[str], list[list[str]]]:
     """The table of the report: one row per variant (header, rows as text)."""
     header = ["variant", "felt mass m [kg]", "damping b [N s/m]", "stiffness k [N/m]", "R²",
-              "transparency bandwidth [Hz]", "coherence (fitted points)", "fitted band [Hz]"]
+              "transparency bandwidth [Hz]", "coherence (fitted points)", "fitted band [Hz]", "posture drift [rad]"]
     rows = []
     for r in results:
         reliable = r.freq_Hz[r.coherence >= r.min_coherence]
@@ -187,12 +201,12 @@ def summary_rows(results: Sequence[FeltImpedance]) -> tuple[list[str], list[list
         else:
             bw = f"{r.bandwidth_Hz:.3g}"
         if r.fit is None:
-            rows.append([r.variant, "n/a", "n/a", "n/a", "n/a", bw, "n/a", "n/a"])
+            rows.append([r.variant, "n/a", "n/a", "n/a", "n/a", bw, "n/a", "n/a", f"{r.posture_drift_rad:.3f}"])
             continue
         ft = r.fit
         rows.append([r.variant, _f(ft.mass_kg), _f(ft.damping_N_s_per_m), _f(ft.stiffness_N_per_m), f"{ft.r2:.3f}",
                      bw, f"{ft.coherence_range[0]:.3f}–{ft.coherence_range[1]:.3f}",
-                     f"{ft.band_Hz[0]:.3g}–{ft.band_Hz[1]:.3g}"])
+                     f"{ft.band_Hz[0]:.3g}–{ft.band_Hz[1]:.3g}", f"{r.posture_drift_rad:.3f}"])
     return header, rows
 
 
@@ -247,6 +261,10 @@ def write_impedance(results: Sequence[FeltImpedance], out: str | Path, *, scenar
             lines += [f"- {r.variant}: the mass-damper-spring model fits poorly (R² = {r.fit.r2:.2f} < 0.9): the "
                       "felt impedance is not that of a mass, a damper and a spring over the band (a controller's "
                       "own dynamics, friction at small speeds), so read the Bode plot rather than m, b, k."]
+        if r.posture_drift_rad > DRIFT_WARN_RAD:
+            lines += [f"- {r.variant}: the posture drifted by up to {r.posture_drift_rad:.2f} rad from the start "
+                      "(a robot that does not hold itself up hangs on the fixture): the impedance is not that of "
+                      "the start posture."]
         if r.fit is not None and r.fit.n_points < len(r.freq_Hz):
             lines += [f"- {r.variant}: {len(r.freq_Hz) - r.fit.n_points} of {len(r.freq_Hz)} lines below the "
                       f"coherence threshold {min_coherence} were left out of the fit (hollow markers)."]
