@@ -180,6 +180,8 @@ def build_parser() -> argparse.ArgumentParser:
                    "analysed)")
     z.add_argument("--threshold", type=float, metavar="N_S_PER_M",
                    help="transparency threshold on |Z| [N s/m] (default 12.5: a 1 kg mass at 2 Hz)")
+    z.add_argument("--posture", metavar="DEG,DEG,...",
+                   help="the robot's start posture, one angle per robot joint [deg] (default: the scenario's)")
     z.add_argument("--lateral", choices=("held", "free"), default="held",
                    help="the fixture holds the hand sideways of the motion (a linear stage; default) or leaves "
                    "it free")
@@ -755,8 +757,21 @@ def _cmd_impedance(args: argparse.Namespace, parser: argparse.ArgumentParser) ->
     else:
         out = _fresh_folder(Path("runs") / f"impedance-{scenario.name}")
     _writable_folder(out, "--out" if args.out else "output folder")
+    start_rad = None
+    if args.posture is not None:
+        from sim.loop.simulation import build_assembly
+
+        exo = build_assembly(scenario).exo
+        names = ", ".join(exo.joint_names)
+        start_rad = tuple(math.radians(a) for a in _floats(
+            args.posture, exo.nq, "--posture", f"{exo.nq} comma-separated joint angles [deg] ({names})"))
+        lower, upper = exo.model.lowerPositionLimit, exo.model.upperPositionLimit
+        for name, a, lo_q, hi_q in zip(exo.joint_names, start_rad, lower, upper):
+            if not lo_q <= a <= hi_q:
+                raise _UserError(f"--posture: {name} = {math.degrees(a):g} deg is outside its range "
+                                 f"[{math.degrees(lo_q):g}, {math.degrees(hi_q):g}] deg")
     fixture = HandFixture(Multisine(args.amplitude, (lo, hi)), direction=tuple(x / norm for x in direction),
-                          lateral=args.lateral)
+                          lateral=args.lateral, start_rad=start_rad)
     t0 = time.perf_counter()
     results = felt_impedance(scenario, controllers, fixture, duration_s=args.duration,
                              threshold_N_s_per_m=threshold, seed=args.seed)

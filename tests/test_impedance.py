@@ -204,6 +204,7 @@ def test_write_impedance_writes_csv_bode_and_report(tmp_path):
     (["--band", "5,1"], "--band must be 0 < LO < HI"),
     (["--amplitude", "-0.01"], "--amplitude must be a finite displacement > 0"),
     (["--controller", "nosuch"], "--controller: scenario 'reach' supports the controllers"),
+    (["--posture", "0,10"], "--posture must be 7 comma-separated joint angles [deg]"),
 ])
 def test_impedance_command_refuses_a_bad_value_in_one_line(argv, match, capsys, tmp_path):
     from sim.cli import main
@@ -240,3 +241,12 @@ def test_piecewise_velocity_drives_the_hand_forward_and_back():
     assert s.max() == pytest.approx(0.03, abs=1e-3)
     F_u = traj.arrays["fixture_force_N"] @ fx.unit
     assert np.max(np.abs(F_u)) < fx.stiffness_N_per_m * 1e-3  # the coupling never stretched by as much as 1 mm
+
+
+def test_fixture_start_posture_is_the_robot_start():
+    sc = dataclasses.replace(load_scenario("scenarios/reach.py"), duration_s=0.005)
+    q0 = tuple(build_assembly(sc).q_exo0 + 0.1)
+    sim = Simulation(sc, "gravity", mode="exo_alone", fixture=HandFixture(start_rad=q0))
+    assert np.array_equal(sim.plant.q_exo, np.array(q0))
+    with pytest.raises(ParameterError, match="HandFixture.start_rad must hold 7 joint angles"):
+        Simulation(sc, "gravity", mode="exo_alone", fixture=HandFixture(start_rad=(0.0, 0.1)))
