@@ -185,6 +185,9 @@ def build_parser() -> argparse.ArgumentParser:
     z.add_argument("--lateral", choices=("held", "free"), default="held",
                    help="the fixture holds the hand sideways of the motion (a linear stage; default) or leaves "
                    "it free")
+    z.add_argument("--through-wearer", action="store_true",
+                   help="the fixture moves the wearer's hand, the wearer strapped in as usual and holding still "
+                   "at the start posture (default: the robot alone, the fixture at its hand cuff)")
     z.add_argument("--seed", type=int, metavar="N", help="random seed (default: the scenario's)")
     z.add_argument("--out", metavar="DIR", help="output folder (default: runs/impedance-SCENARIO; then -2, -3, ...)")
     z.set_defaults(func=_cmd_impedance)
@@ -761,6 +764,9 @@ def _cmd_impedance(args: argparse.Namespace, parser: argparse.ArgumentParser) ->
     if args.posture is not None:
         from sim.loop.simulation import build_assembly
 
+        if args.through_wearer:
+            parser.error("--posture sets the robot's posture alone; with --through-wearer the scenario's start "
+                         "posture applies")
         exo = build_assembly(scenario).exo
         names = ", ".join(exo.joint_names)
         start_rad = tuple(math.radians(a) for a in _floats(
@@ -774,8 +780,9 @@ def _cmd_impedance(args: argparse.Namespace, parser: argparse.ArgumentParser) ->
                           lateral=args.lateral, start_rad=start_rad)
     t0 = time.perf_counter()
     results = felt_impedance(scenario, controllers, fixture, duration_s=args.duration,
-                             threshold_N_s_per_m=threshold, seed=args.seed)
-    paths = write_impedance(results, out, scenario_name=scenario.name, fixture=fixture)
+                             threshold_N_s_per_m=threshold, seed=args.seed, through_wearer=args.through_wearer)
+    paths = write_impedance(results, out, scenario_name=scenario.name, fixture=fixture,
+                            through_wearer=args.through_wearer)
     header, rows = summary_rows(results)
     return (f"{text_table(header, rows)}\n(run time {time.perf_counter() - t0:.1f} s)\n"
             f"report {paths['report']}, table {paths['csv']}, Bode plot {paths['png']}")

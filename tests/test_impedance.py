@@ -181,10 +181,10 @@ def test_bad_fixture_parameters_name_the_field(kwargs, match):
         HandFixture(**kwargs)
 
 
-def test_fixture_needs_the_robot_alone():
+def test_fixture_needs_the_robot():
     sc = load_scenario("scenarios/reach.py")
     with pytest.raises(ParameterError, match="fixture needs mode='exo_alone'"):
-        Simulation(sc, "zero", mode="coupled", fixture=HandFixture())
+        Simulation(sc, None, mode="human_alone", fixture=HandFixture())
 
 
 def test_write_impedance_writes_csv_bode_and_report(tmp_path):
@@ -250,3 +250,25 @@ def test_fixture_start_posture_is_the_robot_start():
     assert np.array_equal(sim.plant.q_exo, np.array(q0))
     with pytest.raises(ParameterError, match="HandFixture.start_rad must hold 7 joint angles"):
         Simulation(sc, "gravity", mode="exo_alone", fixture=HandFixture(start_rad=(0.0, 0.1)))
+
+
+def test_through_the_wearer_the_robot_adds_to_the_wearer_end_point_mass():
+    # The fixture holds the wearer's hand (free sideways) and moves the robot through the strapped cuffs. The
+    # wearer's own arm alone would be felt with 1 / (u^T J_h M_h^-1 J_h^T u) (Khatib 1987; pinocchio's crba and
+    # Jacobian of the human model); strapping the robot on can only add inertia at low frequency, so the
+    # fitted mass is at least that (a bound, not an equality: the cuffs are compliant).
+    sc = _exo_alone_scenario()
+    asm = build_assembly(sc)
+    human, q = asm.human, asm.q_human0
+    model, data = human.model, human.model.createData()
+    frame = human.frame_id(human.hand_frame)
+    M = pin.crba(model, data, q)
+    M = np.triu(M) + np.triu(M, 1).T
+    pin.computeJointJacobians(model, data, q)
+    J = pin.getFrameJacobian(model, data, frame, pin.LOCAL_WORLD_ALIGNED)[:3]
+    u = np.array([0.0, 0.0, 1.0])
+    wearer_alone_kg = 1.0 / (u @ J @ np.linalg.solve(M, J.T) @ u)
+    fx = HandFixture(Multisine(0.001, (0.5, 5.0), 0.5), direction=tuple(u), lateral="free")
+    (r,) = felt_impedance(sc, ["zero"], fx, through_wearer=True)
+    assert r.fit is not None and r.coherence.min() > 0.9
+    assert r.fit.mass_kg > 1.2 * wearer_alone_kg

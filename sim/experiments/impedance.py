@@ -31,6 +31,7 @@ from sim.analysis.impedance import (
 from sim.loop.scenario import Scenario
 from sim.loop.simulation import Progress, Simulation
 from sim.physics.fixture import HandFixture, Multisine
+from sim.physics.intent import JointIntent
 
 __all__ = ["FeltImpedance", "felt_impedance", "impedance_record", "write_impedance", "DEFAULT_SETTLE_S",
            "DEFAULT_PERIODS", "DRIFT_WARN_RAD"]
@@ -118,7 +119,8 @@ def impedance_record(arrays, fixture: HandFixture, dt_s: float, *, settle_s: flo
 def felt_impedance(scenario: Scenario, controllers: Sequence[str], fixture: HandFixture | None = None, *,
                    duration_s: float | None = None, settle_s: float = DEFAULT_SETTLE_S,
                    threshold_N_s_per_m: float = DEFAULT_THRESHOLD_N_S_PER_M, min_coherence: float = 0.9,
-                   seed: int | None = None, progress: Progress | None = None) -> list[FeltImpedance]:
+                   seed: int | None = None, progress: Progress | None = None,
+                   through_wearer: bool = False) -> list[FeltImpedance]:
     """Run ``scenario`` under each of ``controllers`` with ``fixture`` at the hand; the impedance felt under each.
 
     Parameters
@@ -136,6 +138,11 @@ def felt_impedance(scenario: Scenario, controllers: Sequence[str], fixture: Hand
         Time left out at the start [s].
     threshold_N_s_per_m, min_coherence : float
         Of the transparency bandwidth and of the fit (points with coherence below are left out).
+    through_wearer : bool
+        The fixture holds the wearer's hand point and moves the robot through the wearer, strapped in as usual
+        (a coupled run); the wearer's intent then holds the scenario's start posture (no movement of their
+        own), so Z is what the fixture feels of the wearer's arm and the robot together.  Default: the robot
+        alone, the fixture at its hand cuff.
     """
     fixture = HandFixture() if fixture is None else fixture
     if not controllers:
@@ -147,11 +154,14 @@ def felt_impedance(scenario: Scenario, controllers: Sequence[str], fixture: Hand
         else:
             duration_s = settle_s + 20.0
     run_scenario = dataclasses.replace(scenario, duration_s=float(duration_s))
+    if through_wearer:  # the wearer holds still at the start posture while the fixture moves their hand
+        run_scenario = dataclasses.replace(run_scenario, intent=JointIntent(scenario.intent.start_rad, ()))
     band = getattr(fixture.motion, "band_Hz", None)
     results = []
     for name in controllers:
         t0 = time.perf_counter()
-        sim = Simulation(run_scenario, name, seed=seed, mode="exo_alone", fixture=fixture)
+        sim = Simulation(run_scenario, name, seed=seed, mode="coupled" if through_wearer else "exo_alone",
+                         fixture=fixture)
         traj = sim.run(progress=progress)
         run_time = time.perf_counter() - t0
         freq, Z, coh = impedance_record(traj.arrays, fixture, run_scenario.control_period_s, settle_s=settle_s,
@@ -214,7 +224,8 @@ __all__ += ["summary_rows"]
 
 
 def write_impedance(results: Sequence[FeltImpedance], out: str | Path, *, scenario_name: str,
-                    fixture: HandFixture, min_coherence: float = 0.9) -> dict[str, Path]:
+                    fixture: HandFixture, min_coherence: float = 0.9, through_wearer: bool = False
+                    ) -> dict[str, Path]:
     """Write ``impedance.csv``, ``bode.png`` and ``report.md`` into ``out``; return their paths by name."""
     from sim.output.bode_plot import bode
     from sim.output.report import CAUTION, markdown_table
@@ -233,18 +244,21 @@ def write_impedance(results: Sequence[FeltImpedance], out: str | Path, *, scenar
                             f"{abs(m):.6g}", f"{np.degrees(np.angle(m)):.6g}"])
     u = ", ".join(f"{x:.3g}" for x in fixture.direction)
     motion = fixture.motion
-    title = f"{scenario_name}: impedance felt at the hand along ({u})"
+    title = f"{scenario_name}: impedance felt at the hand along ({u})" + (", through the wearer" if through_wearer
+                                                                          else ", robot alone")
     curves = {r.variant: (r.freq_Hz, r.Z, r.coherence, r.fit.impedance(r.freq_Hz) if r.fit is not None else None)
               for r in results}
     png = bode(curves, out / "bode.png", title=title, min_coherence=min_coherence,
                threshold_N_s_per_m=results[0].threshold_N_s_per_m if results else None)
     header, rows = summary_rows(results)
+    where = ("The wearer strapped in as usual, holding still, a fixture at the wearer's hand point"
+             if through_wearer else f"The robot alone, a fixture in the wearer's place at its `{fixture.cuff}` cuff")
     lines = [f"# Felt impedance at the hand: {scenario_name}", "",
-             f"The robot alone, a fixture in the wearer's place at its `{fixture.cuff}` cuff imposing "
+             f"{where} imposing "
              f"{type(motion).__name__} motion ({_motion_text(motion)}) along ({u}) in the world frame, "
              f"sideways {fixture.lateral}; coupling {fixture.stiffness_N_per_m:g} N/m, "
-             f"{fixture.damping_N_s_per_m:g} N s/m. Z = F / V with F the fixture's force on the robot and V the "
-             f"cuff point's velocity, both along the direction (H1 estimate, Welch averaging); model "
+             f"{fixture.damping_N_s_per_m:g} N s/m. Z = F / V with F the fixture's force and V the "
+             f"held point's velocity, both along the direction (H1 estimate, Welch averaging); model "
              f"Z(s) = m s + b + k/s fitted where the coherence is at least {min_coherence}.", "",
              markdown_table(header, rows), "",
              f"Transparency bandwidth: the frequency up to which |Z| stays below "

@@ -172,7 +172,8 @@ def log_columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple
 
     With a hand fixture (``fixture``, :class:`~sim.physics.fixture.HandFixture`), ``fixture_force_N`` (3,) [N,
     world frame] the fixture's force on the robot, ``fixture_position_m`` (3,) [m] the imposed point and
-    ``fixture_cuff_velocity_m_s`` (3,) [m/s, world frame] the velocity of the held cuff point follow.
+    ``fixture_cuff_velocity_m_s`` (3,) [m/s, world frame] the velocity of the held cuff point follow (in a
+    coupled run the fixture holds the wearer's hand point: the force on the wearer, that point's velocity).
 
     With faults, the last column ``fault_active`` (n_faults,) bool says which are active at each tick (in
     the order of ``scenario.faults``); a run without faults has no such column.
@@ -256,8 +257,15 @@ class Trajectory:
         return self.arrays["t"]
 
     def _fixture_drive(self, asm: Assembly, plant: CoupledPlant) -> FixtureDrive:
-        """The fixture on the robot's hand cuff; its start posture, when it gives one, set on the plant."""
+        """The fixture on the robot's hand cuff (on the wearer's hand point in a coupled run); its start
+        posture, when it gives one, set on the plant."""
         fx = self.fixture
+        if self.mode == "coupled":
+            if fx.start_rad is not None:
+                raise ParameterError("HandFixture.start_rad applies to the robot alone; in a coupled run the "
+                                     "scenario's intent gives the start posture")
+            human = plant.human
+            return FixtureDrive(fx, human.model, human.frame_id(human.hand_frame), plant.q_human)
         cuffs = {c.name: c for c in asm.cuffs}
         if fx.cuff not in cuffs:
             raise ParameterError(f"HandFixture.cuff {fx.cuff!r} is not a cuff of scenario {self.scenario.name!r} "
@@ -356,9 +364,11 @@ class Simulation:
         Overrides ``scenario.seed``.
     mode : {"coupled", "human_alone", "exo_alone"}
     fixture : HandFixture, optional
-        A test fixture in the wearer's place at the robot's hand cuff (``mode="exo_alone"`` only,
-        :mod:`sim.physics.fixture`): its force acts on the robot per substep and the hand cuff's sensor
-        measures it, as it would the wearer's.
+        A test fixture (:mod:`sim.physics.fixture`).  With ``mode="exo_alone"`` it takes the wearer's place at
+        the robot's hand cuff: its force acts on the robot per substep and the hand cuff's sensor measures it,
+        as it would the wearer's.  With ``mode="coupled"`` it holds the wearer's hand point (the human model's
+        hand frame) and moves the robot through the wearer strapped in as usual: its force acts on the wearer
+        per substep, and the cuff sensors measure the cuffs as always.
 
     Notes
     -----
@@ -380,9 +390,9 @@ class Simulation:
         if fixture is not None:
             if not isinstance(fixture, HandFixture):
                 raise ParameterError(f"fixture must be a HandFixture, got {type(fixture).__name__}")
-            if mode != "exo_alone":
-                raise ParameterError(f"fixture needs mode='exo_alone' (the fixture takes the wearer's place), "
-                                     f"got mode={mode!r}")
+            if mode == "human_alone":
+                raise ParameterError("fixture needs mode='exo_alone' (the fixture takes the wearer's place) or "
+                                     "'coupled' (it moves the wearer's hand), got mode='human_alone'")
         self.fixture = fixture
         self.scenario, self.mode = scenario, mode
         self._controller_spec = controller
@@ -478,8 +488,15 @@ class Simulation:
         self._stopped: str | None = None  # why the run cannot go on (a SimulationError)
 
     def _fixture_drive(self, asm: Assembly, plant: CoupledPlant) -> FixtureDrive:
-        """The fixture on the robot's hand cuff; its start posture, when it gives one, set on the plant."""
+        """The fixture on the robot's hand cuff (on the wearer's hand point in a coupled run); its start
+        posture, when it gives one, set on the plant."""
         fx = self.fixture
+        if self.mode == "coupled":
+            if fx.start_rad is not None:
+                raise ParameterError("HandFixture.start_rad applies to the robot alone; in a coupled run the "
+                                     "scenario's intent gives the start posture")
+            human = plant.human
+            return FixtureDrive(fx, human.model, human.frame_id(human.hand_frame), plant.q_human)
         cuffs = {c.name: c for c in asm.cuffs}
         if fx.cuff not in cuffs:
             raise ParameterError(f"HandFixture.cuff {fx.cuff!r} is not a cuff of scenario {self.scenario.name!r} "
@@ -655,7 +672,8 @@ class Simulation:
         faults = self._faults  # None without faults: the ticks below then do exactly what they did before
         delay, motor = self._delay, self._motor  # None without a control delay; True with series-elastic drives
         fixture = self._fixture  # None without a hand fixture: the ticks below then do exactly what they did before
-        if fixture is not None:
+        through_wearer = fixture is not None and coupled  # the fixture moves the wearer's hand
+        if fixture is not None and not through_wearer:
             fixture_wrench = np.zeros((len(asm.cuffs), 6))
             fixture_row = cuff_names.index(fixture.fixture.cuff)
         clock, nan = time.perf_counter, np.nan
@@ -672,7 +690,7 @@ class Simulation:
                     # views of this tick's state (the plant replaces it as it steps)
                     q_e, v_e = plant.q_exo, plant.v_exo
                     tau_applied = actuators.delivered_Nm(q_e, v_e)
-                    if fixture is None:
+                    if fixture is None or through_wearer:
                         # with no wearer the sensors read their noise and bias alone
                         on_cuffs = plant.wrench_on_exo if has_cuffs else zero_w
                     else:  # the fixture in the wearer's place: its hand cuff sensor measures the fixture's wrench
@@ -718,6 +736,8 @@ class Simulation:
                     row["tau_human"], row["q_human_intent"] = tau_h, human.last_desired_q
                 else:
                     tau_h = zero_h
+                if through_wearer:
+                    fixture.begin_tick(t, plant.q_human, plant.v_human)
                 if has_controller:
                     row["q_exo"], row["dq_exo"], row["q_exo_meas"], row["dq_exo_meas"] = q_e, v_e, qm, dqm
                     row["tau_cmd"], row["tau_applied"], row["saturated"] = tau_cmd, tau_applied, saturated
@@ -747,7 +767,10 @@ class Simulation:
                         a[k] = value
                 self._k = k + 1
                 drives = exo_torque if faults is None or not has_controller else faults.drives(exo_torque)
-                if fixture is not None:  # the fixture's J^T F added to the drives' torque, substep by substep
+                if through_wearer:  # the fixture's J^T F added to the wearer's torque, substep by substep
+                    fixture.inner = tau_h
+                    tau_h = fixture
+                elif fixture is not None:  # the fixture's J^T F added to the drives' torque, substep by substep
                     fixture.inner = drives
                     drives = fixture
                 plant.advance(drives, tau_h, h, n_sub)
