@@ -188,6 +188,40 @@ def build_parser() -> argparse.ArgumentParser:
                    "with exosandbox, installed beside the package)")
     g.add_argument("--json", action="store_true", help="print the same as one JSON object, for scripts")
     g.set_defaults(func=_cmd_catalog)
+
+    z = sub.add_parser("impedance", help="measure the impedance felt at the robot's hand under each controller",
+                       description="Run the robot alone with a test fixture in the wearer's place at its hand "
+                       "cuff, imposing a small multisine motion along a direction from the scenario's start "
+                       "posture; estimate the impedance Z = F/V (H1, Welch) with its coherence, fit "
+                       "m s + b + k/s and find the transparency bandwidth, for each controller variant. Writes "
+                       "impedance.csv, bode.png and report.md.")
+    z.add_argument("scenario", metavar="SCENARIO", help="scenario file (.py)")
+    z.add_argument("--controller", action="append", default=[], metavar="NAME",
+                   help="a controller variant; repeat, or add to --controllers")
+    z.add_argument("--controllers", metavar="A,B", help="comma-separated controller variants "
+                   "(default: all the scenario's)")
+    z.add_argument("--direction", metavar="X,Y,Z", default="1,0,0",
+                   help="direction of the imposed motion in the world frame (normalised; default 1,0,0)")
+    z.add_argument("--amplitude", type=float, metavar="M", default=0.005,
+                   help="peak displacement of the imposed motion [m] (default 0.005)")
+    z.add_argument("--band", metavar="LO,HI", default="0.5,20",
+                   help="excited band [Hz] (default 0.5,20; lines every 0.25 Hz)")
+    z.add_argument("--duration", type=float, metavar="S",
+                   help="simulated time per variant [s] (default 20: one 4 s period to settle, then 4 periods "
+                   "analysed)")
+    z.add_argument("--threshold", type=float, metavar="N_S_PER_M",
+                   help="transparency threshold on |Z| [N s/m] (default 12.5: a 1 kg mass at 2 Hz)")
+    z.add_argument("--posture", metavar="DEG,DEG,...",
+                   help="the robot's start posture, one angle per robot joint [deg] (default: the scenario's)")
+    z.add_argument("--lateral", choices=("held", "free"), default="held",
+                   help="the fixture holds the hand sideways of the motion (a linear stage; default) or leaves "
+                   "it free")
+    z.add_argument("--through-wearer", action="store_true",
+                   help="the fixture moves the wearer's hand, the wearer strapped in as usual and holding still "
+                   "at the start posture (default: the robot alone, the fixture at its hand cuff)")
+    z.add_argument("--seed", type=int, metavar="N", help="random seed (default: the scenario's)")
+    z.add_argument("--out", metavar="DIR", help="output folder (default: runs/impedance-SCENARIO; then -2, -3, ...)")
+    z.set_defaults(func=_cmd_impedance)
     return p
 
 
@@ -784,6 +818,89 @@ def _kernels_cached() -> bool:
     except AttributeError:  # numba's cache layout changed: say nothing
         return True
     return all(os.path.exists(p) for p in paths)
+
+
+def _floats(text: str, n: int, option: str, what: str) -> tuple[float, ...]:
+    """``n`` comma-separated finite numbers, or one line naming ``option``."""
+    import math
+
+    try:
+        values = tuple(float(x) for x in text.split(","))
+    except ValueError:
+        values = ()
+    if len(values) != n or not all(math.isfinite(v) for v in values):
+        raise _UserError(f"{option} must be {what}, got {text!r}")
+    return values
+
+
+def _cmd_impedance(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    import math
+
+    from sim.analysis.impedance import DEFAULT_THRESHOLD_N_S_PER_M
+    from sim.experiments.impedance import felt_impedance, summary_rows, write_impedance
+    from sim.loop.scenario import load_scenario
+    from sim.output.report import text_table
+    from sim.physics.fixture import HandFixture, Multisine
+
+    direction = _floats(args.direction, 3, "--direction", "three comma-separated numbers X,Y,Z (not all zero)")
+    norm = math.sqrt(sum(x * x for x in direction))
+    if norm == 0:
+        parser.error(f"--direction must not be zero, got {args.direction!r}")
+    lo, hi = _floats(args.band, 2, "--band", "two comma-separated frequencies LO,HI [Hz]")
+    if not 0 < lo < hi:
+        parser.error(f"--band must be 0 < LO < HI [Hz], got {args.band!r}")
+    if not (math.isfinite(args.amplitude) and args.amplitude > 0):
+        parser.error(f"--amplitude must be a finite displacement > 0 [m], got {args.amplitude}")
+    if args.amplitude > 0.05:
+        parser.error(f"--amplitude must be at most 0.05 m (a small motion about the posture), got {args.amplitude}")
+    threshold = DEFAULT_THRESHOLD_N_S_PER_M if args.threshold is None else args.threshold
+    if not (math.isfinite(threshold) and threshold > 0):
+        parser.error(f"--threshold must be a finite impedance > 0 [N s/m], got {args.threshold}")
+    if args.duration is not None and not (math.isfinite(args.duration) and 8.0 <= args.duration <= 600.0):
+        parser.error(f"--duration must be between 8 and 600 s (at least the settling time and one 4 s period), "
+                     f"got {args.duration}")
+    if args.seed is not None and args.seed < 0:
+        parser.error(f"--seed must be >= 0, got {args.seed}")
+    scenario = load_scenario(args.scenario)
+    names = [c for c in (args.controllers or "").split(",") if c.strip()] + list(args.controller)
+    controllers = list(dict.fromkeys(c.strip() for c in names)) or list(scenario.controllers)
+    for c in controllers:
+        if c not in scenario.controllers:
+            raise _UserError(f"--controller: scenario {scenario.name!r} supports the controllers "
+                             f"{', '.join(scenario.controllers)}; got {c!r}")
+    if args.out:
+        out = Path(args.out)
+        if out.is_dir() and any(out.iterdir()):
+            raise _UserError(f"output folder {str(out)!r} already holds something; choose another --out")
+    else:
+        out = _fresh_folder(Path("runs") / f"impedance-{scenario.name}")
+    _writable_folder(out, "--out" if args.out else "output folder")
+    start_rad = None
+    if args.posture is not None:
+        from sim.loop.simulation import build_assembly
+
+        if args.through_wearer:
+            parser.error("--posture sets the robot's posture alone; with --through-wearer the scenario's start "
+                         "posture applies")
+        exo = build_assembly(scenario).exo
+        names = ", ".join(exo.joint_names)
+        start_rad = tuple(math.radians(a) for a in _floats(
+            args.posture, exo.nq, "--posture", f"{exo.nq} comma-separated joint angles [deg] ({names})"))
+        lower, upper = exo.model.lowerPositionLimit, exo.model.upperPositionLimit
+        for name, a, lo_q, hi_q in zip(exo.joint_names, start_rad, lower, upper):
+            if not lo_q <= a <= hi_q:
+                raise _UserError(f"--posture: {name} = {math.degrees(a):g} deg is outside its range "
+                                 f"[{math.degrees(lo_q):g}, {math.degrees(hi_q):g}] deg")
+    fixture = HandFixture(Multisine(args.amplitude, (lo, hi)), direction=tuple(x / norm for x in direction),
+                          lateral=args.lateral, start_rad=start_rad)
+    t0 = time.perf_counter()
+    results = felt_impedance(scenario, controllers, fixture, duration_s=args.duration,
+                             threshold_N_s_per_m=threshold, seed=args.seed, through_wearer=args.through_wearer)
+    paths = write_impedance(results, out, scenario_name=scenario.name, fixture=fixture,
+                            through_wearer=args.through_wearer)
+    header, rows = summary_rows(results)
+    return (f"{text_table(header, rows)}\n(run time {time.perf_counter() - t0:.1f} s)\n"
+            f"report {paths['report']}, table {paths['csv']}, Bode plot {paths['png']}")
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -67,6 +67,7 @@ from sim.loop.runlog import RunLog, environment_metadata, load_run
 from sim.loop.scenario import Scenario
 from sim.physics.actuators import CommandDelay, drive_model, make_actuators
 from sim.physics.faults import FaultSchedule, FaultTargets, fault_rng
+from sim.physics.fixture import FixtureDrive, HandFixture
 from sim.physics.plant import CoupledPlant, PlantMode
 from sim.physics.sea import SeriesElasticParams
 from sim.physics.sensors import ForceSensorBank, ForceTorqueSensor, JointSensing, first_nonfinite
@@ -160,7 +161,7 @@ def jsonable(obj):
 
 
 def log_columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple[str, ...], *,
-                n_faults: int = 0, motor: bool = False, impairment: bool = False) -> dict:
+                n_faults: int = 0, motor: bool = False, impairment: bool = False, fixture: bool = False) -> dict:
     """The logged columns of a run (name -> per-tick shape, or (shape, dtype)), in the order of a row.
 
     With an impaired wearer (``impairment``), ``tau_human_impairment`` (nq_h,) [N m] follows ``p_hand_human``:
@@ -168,6 +169,11 @@ def log_columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple
     a run without an impairment has no such column.
     With ``motor`` (series-elastic drives) and a robot, ``tau_motor`` (nq_e,) [N m, reflected to the joint] and
     ``motor_saturated`` (nq_e,) bool follow the controller's diagnostics.
+
+    With a hand fixture (``fixture``, :class:`~sim.physics.fixture.HandFixture`), ``fixture_force_N`` (3,) [N,
+    world frame] the fixture's force on the robot, ``fixture_position_m`` (3,) [m] the imposed point and
+    ``fixture_cuff_velocity_m_s`` (3,) [m/s, world frame] the velocity of the held cuff point follow (in a
+    coupled run the fixture holds the wearer's hand point: the force on the wearer, that point's velocity).
 
     With faults, the last column ``fault_active`` (n_faults,) bool says which are active at each tick (in
     the order of ``scenario.faults``); a run without faults has no such column.
@@ -188,6 +194,8 @@ def log_columns(mode: PlantMode, nq_e: int, nq_h: int, n_cuffs: int, diag: tuple
             cols |= {"tau_motor": (nq_e,), "motor_saturated": ((nq_e,), "bool")}
     if mode == "coupled":  # the cuff wrenches on the robot and the world forces follow from these: sim.analysis.derived
         cols |= {"cuff_wrench_human": (n_cuffs, 6), "cuff_wrench_meas": (n_cuffs, 6)}
+    if fixture:
+        cols |= {"fixture_force_N": (3,), "fixture_position_m": (3,), "fixture_cuff_velocity_m_s": (3,)}
     if n_faults:
         cols["fault_active"] = ((n_faults,), "bool")
     return cols
@@ -247,6 +255,29 @@ class Trajectory:
     def t_s(self) -> np.ndarray:
         """ndarray : the time of each tick [s]."""
         return self.arrays["t"]
+
+    def _fixture_drive(self, asm: Assembly, plant: CoupledPlant) -> FixtureDrive:
+        """The fixture on the robot's hand cuff (on the wearer's hand point in a coupled run); its start
+        posture, when it gives one, set on the plant."""
+        fx = self.fixture
+        if self.mode == "coupled":
+            if fx.start_rad is not None:
+                raise ParameterError("HandFixture.start_rad applies to the robot alone; in a coupled run the "
+                                     "scenario's intent gives the start posture")
+            human = plant.human
+            return FixtureDrive(fx, human.model, human.frame_id(human.hand_frame), plant.q_human)
+        cuffs = {c.name: c for c in asm.cuffs}
+        if fx.cuff not in cuffs:
+            raise ParameterError(f"HandFixture.cuff {fx.cuff!r} is not a cuff of scenario {self.scenario.name!r} "
+                                 f"(cuffs: {', '.join(cuffs)})")
+        if fx.start_rad is not None:
+            if len(fx.start_rad) != asm.exo.nq:
+                raise ParameterError(f"HandFixture.start_rad must hold {asm.exo.nq} joint angles [rad] "
+                                     f"({', '.join(asm.exo.joint_names)}), got {len(fx.start_rad)}")
+            plant.q_exo = np.array(fx.start_rad)
+            plant.v_exo = np.zeros(asm.exo.nv)
+            plant.invalidate()
+        return FixtureDrive(fx, plant.exo.model, cuffs[fx.cuff].exo_frame_id, plant.q_exo)
 
     @property
     def ticks(self) -> int:
@@ -332,6 +363,12 @@ class Simulation:
     seed : int, optional
         Overrides ``scenario.seed``.
     mode : {"coupled", "human_alone", "exo_alone"}
+    fixture : HandFixture, optional
+        A test fixture (:mod:`sim.physics.fixture`).  With ``mode="exo_alone"`` it takes the wearer's place at
+        the robot's hand cuff: its force acts on the robot per substep and the hand cuff's sensor measures it,
+        as it would the wearer's.  With ``mode="coupled"`` it holds the wearer's hand point (the human model's
+        hand frame) and moves the robot through the wearer strapped in as usual: its force acts on the wearer
+        per substep, and the cuff sensors measure the cuffs as always.
 
     Notes
     -----
@@ -342,7 +379,7 @@ class Simulation:
     """
 
     def __init__(self, scenario: Scenario, controller: Controller | str | None, *, seed: int | None = None,
-                 mode: PlantMode = "coupled") -> None:
+                 mode: PlantMode = "coupled", fixture: HandFixture | None = None) -> None:
         if not isinstance(scenario, Scenario):
             raise ParameterError(f"Simulation needs a Scenario (sim.load_scenario), got {type(scenario).__name__}")
         if mode not in PLANT_MODES:
@@ -350,6 +387,13 @@ class Simulation:
         if mode != "human_alone" and not (isinstance(controller, (str, Controller))):
             raise ParameterError(f"controller must be a Controller object or a variant name (str), got "
                                  f"{type(controller).__name__}")
+        if fixture is not None:
+            if not isinstance(fixture, HandFixture):
+                raise ParameterError(f"fixture must be a HandFixture, got {type(fixture).__name__}")
+            if mode == "human_alone":
+                raise ParameterError("fixture needs mode='exo_alone' (the fixture takes the wearer's place) or "
+                                     "'coupled' (it moves the wearer's hand), got mode='human_alone'")
+        self.fixture = fixture
         self.scenario, self.mode = scenario, mode
         self._controller_spec = controller
         self.seed = scenario.seed if seed is None else _seed(seed)
@@ -371,6 +415,7 @@ class Simulation:
             controller, name = supervised(spec, scenario.safety), spec.name
         asm = build_assembly(scenario)
         plant = CoupledPlant(asm, scenario.plant, mode)
+        self._fixture = self._fixture_drive(asm, plant) if self.fixture is not None else None
         T = scenario.control_period_s
         rng_joint, *rng_cuffs = (np.random.default_rng(s) for s in
                                  np.random.SeedSequence(self.seed).spawn(1 + len(asm.cuffs)))
@@ -427,11 +472,13 @@ class Simulation:
             # the faults (name, kind, start_s, end_s, parameters), in the order of the fault_active column
             "faults": [f.describe() for f in scenario.faults],
             "drives": drives_metadata(scenario),
+            **({"fixture": self.fixture} if self.fixture is not None else {}),
             "environment": environment_metadata(),
         })
         self._columns = log_columns(mode, asm.exo.nq, asm.human.nq, len(asm.cuffs), diag_names,
                                     n_faults=len(scenario.faults), motor=motor,
-                                    impairment=scenario.impairment is not None)
+                                    impairment=scenario.impairment is not None,
+                                    fixture=self.fixture is not None)
         self._urdfs = {"exo.urdf": plant.exo.urdf, "human.urdf": plant.human.urdf}
         self._tick_times, self._controller_times = np.zeros(n), np.zeros(n)
         self._timing = {d: np.zeros(n) for d in timing_diag}
@@ -439,6 +486,29 @@ class Simulation:
         self._rows: dict[str, np.ndarray] | None = None  # the rows kept in memory, allocated at the first tick
         self._log: RunLog | None = None  # the log a run was streamed to
         self._stopped: str | None = None  # why the run cannot go on (a SimulationError)
+
+    def _fixture_drive(self, asm: Assembly, plant: CoupledPlant) -> FixtureDrive:
+        """The fixture on the robot's hand cuff (on the wearer's hand point in a coupled run); its start
+        posture, when it gives one, set on the plant."""
+        fx = self.fixture
+        if self.mode == "coupled":
+            if fx.start_rad is not None:
+                raise ParameterError("HandFixture.start_rad applies to the robot alone; in a coupled run the "
+                                     "scenario's intent gives the start posture")
+            human = plant.human
+            return FixtureDrive(fx, human.model, human.frame_id(human.hand_frame), plant.q_human)
+        cuffs = {c.name: c for c in asm.cuffs}
+        if fx.cuff not in cuffs:
+            raise ParameterError(f"HandFixture.cuff {fx.cuff!r} is not a cuff of scenario {self.scenario.name!r} "
+                                 f"(cuffs: {', '.join(cuffs)})")
+        if fx.start_rad is not None:
+            if len(fx.start_rad) != asm.exo.nq:
+                raise ParameterError(f"HandFixture.start_rad must hold {asm.exo.nq} joint angles [rad] "
+                                     f"({', '.join(asm.exo.joint_names)}), got {len(fx.start_rad)}")
+            plant.q_exo = np.array(fx.start_rad)
+            plant.v_exo = np.zeros(asm.exo.nv)
+            plant.invalidate()
+        return FixtureDrive(fx, plant.exo.model, cuffs[fx.cuff].exo_frame_id, plant.q_exo)
 
     @property
     def ticks(self) -> int:
@@ -454,6 +524,11 @@ class Simulation:
     def t_s(self) -> float:
         """float : the time of the next tick [s]."""
         return self._k * self.scenario.control_period_s
+
+    @property
+    def fixture_drive(self) -> FixtureDrive | None:
+        """The hand fixture acting on the robot (its state at the start of the last tick), None without one."""
+        return self._fixture
 
     @property
     def controller(self) -> Controller | None:
@@ -596,6 +671,11 @@ class Simulation:
         has_cuffs = bool(plant.cuffs)
         faults = self._faults  # None without faults: the ticks below then do exactly what they did before
         delay, motor = self._delay, self._motor  # None without a control delay; True with series-elastic drives
+        fixture = self._fixture  # None without a hand fixture: the ticks below then do exactly what they did before
+        through_wearer = fixture is not None and coupled  # the fixture moves the wearer's hand
+        if fixture is not None and not through_wearer:
+            fixture_wrench = np.zeros((len(asm.cuffs), 6))
+            fixture_row = cuff_names.index(fixture.fixture.cuff)
         clock, nan = time.perf_counter, np.nan
         # a blow-up is detected below and reported as SimulationError, not as numpy warnings
         with np.errstate(over="ignore", invalid="ignore"):
@@ -610,14 +690,20 @@ class Simulation:
                     # views of this tick's state (the plant replaces it as it steps)
                     q_e, v_e = plant.q_exo, plant.v_exo
                     tau_applied = actuators.delivered_Nm(q_e, v_e)
+                    if fixture is None or through_wearer:
+                        # with no wearer the sensors read their noise and bias alone
+                        on_cuffs = plant.wrench_on_exo if has_cuffs else zero_w
+                    else:  # the fixture in the wearer's place: its hand cuff sensor measures the fixture's wrench
+                        fixture.begin_tick(t, q_e, v_e)
+                        fixture_wrench[fixture_row] = fixture.wrench_in_cuff_frame()
+                        on_cuffs = fixture_wrench
                     if faults is None:
                         qm, dqm, taum = joints.measure(q_e, tau_applied)
-                        # with no wearer the sensors read their noise and bias alone
-                        meas_wrench = cuff_sensors.measure(plant.wrench_on_exo if has_cuffs else zero_w)
+                        meas_wrench = cuff_sensors.measure(on_cuffs)
                     else:  # the drives' faults, then what the encoders read, then the readings' faults
                         tau_applied = faults.applied(tau_applied)
                         qm, dqm, taum = joints.measure(*faults.encoder(q_e, tau_applied))
-                        meas_wrench = cuff_sensors.measure(plant.wrench_on_exo if has_cuffs else zero_w)
+                        meas_wrench = cuff_sensors.measure(on_cuffs)
                         qm, dqm, taum, meas_wrench = faults.readings(qm, dqm, taum, meas_wrench)
                     # new read-only arrays and read-only rows of the bank's new reading: what the checked
                     # constructor would keep as they are, so the unchecked one (a float t as well)
@@ -650,6 +736,8 @@ class Simulation:
                     row["tau_human"], row["q_human_intent"] = tau_h, human.last_desired_q
                 else:
                     tau_h = zero_h
+                if through_wearer:
+                    fixture.begin_tick(t, plant.q_human, plant.v_human)
                 if has_controller:
                     row["q_exo"], row["dq_exo"], row["q_exo_meas"], row["dq_exo_meas"] = q_e, v_e, qm, dqm
                     row["tau_cmd"], row["tau_applied"], row["saturated"] = tau_cmd, tau_applied, saturated
@@ -669,14 +757,23 @@ class Simulation:
                 if coupled:
                     row["cuff_wrench_human"] = plant.wrench_on_human
                     row["cuff_wrench_meas"] = meas_wrench
+                if fixture is not None:
+                    row["fixture_force_N"], row["fixture_position_m"] = fixture.force_N, fixture.position_m
+                    row["fixture_cuff_velocity_m_s"] = fixture.cuff_velocity_m_s
                 if append is not None:
                     append(row.values())
                 else:
                     for a, value in zip(stored, row.values()):
                         a[k] = value
                 self._k = k + 1
-                plant.advance(exo_torque if faults is None or not has_controller else faults.drives(exo_torque),
-                              tau_h, h, n_sub)
+                drives = exo_torque if faults is None or not has_controller else faults.drives(exo_torque)
+                if through_wearer:  # the fixture's J^T F added to the wearer's torque, substep by substep
+                    fixture.inner = tau_h
+                    tau_h = fixture
+                elif fixture is not None:  # the fixture's J^T F added to the drives' torque, substep by substep
+                    fixture.inner = drives
+                    drives = fixture
+                plant.advance(drives, tau_h, h, n_sub)
                 bad = plant.state_is_finite()
                 tick_times[k] = clock() - t0
                 if bad is not None:

@@ -335,7 +335,9 @@ class CoupledPlant:
         over all the substeps, or an actuator (:class:`sim.physics.actuators.Actuators`,
         anything with ``substep(q, v, dt_s)``), asked before every substep for
         the torque it applies over it given the robot's state then.  The
-        human's torque ``tau_human_Nm`` (nv,) [N m] is held over all of them.
+        human's torque ``tau_human_Nm`` (nv,) [N m] is held over all of them; with both arms it may also
+        be an object with ``substep(q, v, dt_s)``, asked before every substep for the human's torque given
+        the human's state then (a fixture that moves the wearer's hand, :mod:`sim.physics.fixture`).
         An actuator whose ``lag_arrays(dt_s)`` gives its state
         (:meth:`sim.physics.actuators.TorqueSourceActuators.lag_arrays`) is stepped
         inside the plant's compiled substep instead, with the same numbers.
@@ -350,6 +352,7 @@ class CoupledPlant:
                                tau_human_Nm, dt_s, n_substeps)
             return
         has_exo, has_human = self.has_exo, self.has_human
+        human = getattr(tau_human_Nm, "substep", None)  # None: a torque held over all the substeps
         me, mh, de, dh = self.exo.model, self.human.model, self._de, self._dh
         fext_e, fext_h, vh_e, vh_h = self._fext_e, self._fext_h, self._vh_e, self._vh_h
         friction = self.params.exo_friction
@@ -372,7 +375,8 @@ class CoupledPlant:
                 self.q_exo = integrate(me, self.q_exo, vh_e)
                 self._cuffs_fresh = False
             if has_human:
-                a = aba(mh, dh, self.q_human, self.v_human, tau_human_Nm, fext_h)
+                a = aba(mh, dh, self.q_human, self.v_human,
+                        tau_human_Nm if human is None else human(self.q_human, self.v_human, dt_s), fext_h)
                 _euler_velocity(a, self.v_human, dt_s, vh_h)
                 self.v_human = a
                 self.q_human = integrate(mh, self.q_human, vh_h)
@@ -398,7 +402,10 @@ class CoupledPlant:
             tau_u, alpha = self._tau_in, 0.0
         tau = tau_u[0]
         lagged = lag is not None
-        self._tau_h[:] = tau_human_Nm  # held over all the substeps
+        human = getattr(tau_human_Nm, "substep", None)  # None: a torque held over all the substeps
+        if human is None:
+            self._tau_h[:] = tau_human_Nm
+        nq_e, nv_e = self._nq_e, self._nv_e
         refresh = not self._cuffs_fresh
         refreshed = False
         q, v = self._q, self._v
@@ -407,6 +414,8 @@ class CoupledPlant:
                 if not lagged:  # the state so far is the plant's, for the actuator to read
                     self._q, self._v = q, v
                     tau[:] = actuator(self.q_exo, self.v_exo, dt_s) if actuator is not None else tau_held
+                if human is not None:
+                    self._tau_h[:] = human(q[nq_e:], v[nv_e:], dt_s)
                 if refresh:  # the cuff wrenches (the kernel writes them into the forces aba reads) need kinematics
                     kinematics(m, d, q, v)
                     refreshed = True
