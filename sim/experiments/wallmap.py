@@ -56,7 +56,7 @@ import pinocchio as pin
 from controllers.tasks import WallLaw
 from models.cuffs import CuffParams
 from models.errors import ParameterError
-from sim.analysis.metrics import plane_penetration_m, wall_cycle_energy_returned_J
+from sim.analysis.metrics import plane_penetration_m, wall_bounce_count, wall_cycle_energy_returned_J
 from sim.analysis.passivity import max_passive_stiffness_N_per_m, passivity_damping_N_s_per_m
 from sim.analysis.rig import GROWTH_RATIO, RigParams, rig_cell
 from sim.loop.runlog import load_run
@@ -353,7 +353,9 @@ def fixture_drive_cell(scenario: Scenario, speed_m_s: float, *, depth_m: float =
     Returns
     -------
     dict  ``cls`` (``"passive"``, ``"active"``, ``"unstable"``), ``energies_J`` (per cycle, [J]),
-    ``growing`` (the robot hand point's penetration oscillating and growing, :func:`_growing`), ``error``,
+    ``growing`` (the robot hand point's penetration oscillating and growing, :func:`_growing`, over the rests
+    past the plane), ``bounce_count`` (:func:`~sim.analysis.metrics.wall_bounce_count` of the robot hand point;
+    from :data:`EXO_UNSTABLE_BOUNCES` on, unstable as under the wearer), ``error``,
     ``start_penetration_m`` (p0 [m]) and ``max_penetration_m`` (the imposed point's deepest [m]; None if the
     run failed).
     """
@@ -373,7 +375,8 @@ def fixture_drive_cell(scenario: Scenario, speed_m_s: float, *, depth_m: float =
     dt = scenario.control_period_s
     cycle_ticks = round(motion.cycle_s / dt)
     sc = dataclasses.replace(scenario, duration_s=cycles * cycle_ticks * dt + 2 * dt, safety=None)
-    out = {"cls": "unstable", "energies_J": [], "growing": False, "error": "", "start_penetration_m": p0,
+    out = {"cls": "unstable", "energies_J": [], "growing": False, "bounce_count": 0, "error": "",
+           "start_penetration_m": p0,
            "max_penetration_m": None}
     try:
         traj = Simulation(sc, "walls", mode="exo_alone", fixture=fixture).run()
@@ -385,9 +388,14 @@ def fixture_drive_cell(scenario: Scenario, speed_m_s: float, *, depth_m: float =
     if not (np.all(np.isfinite(F)) and np.all(np.isfinite(hand))):
         return {**out, "error": "non-finite fixture force or hand position"}
     energies = fixture_cycle_energies_J(F, pen, cycle_ticks, cycles)
-    growing = _growing(hand, dt)
-    cls = "unstable" if growing else ("active" if max(energies) > 0 else "passive")
-    return {**out, "cls": cls, "energies_J": energies, "growing": growing, "max_penetration_m": float(pen.max())}
+    # growth only while the imposed point rests past the plane: elsewhere the velocity steps alone bend the hand's
+    # path by about dv w / 8 (0.5 mm at 0.2 m/s over the 20 ms window), which is no oscillation
+    go, rest = round(motion.distance_m / motion.speed_m_s / dt), round(pause_s / dt)
+    growing = any(_growing(hand[c * cycle_ticks + go: c * cycle_ticks + go + rest], dt) for c in range(cycles))
+    bounces = wall_bounce_count(hand, dt)
+    cls = "unstable" if growing or bounces >= EXO_UNSTABLE_BOUNCES else ("active" if max(energies) > 0 else "passive")
+    return {**out, "cls": cls, "energies_J": energies, "growing": growing, "bounce_count": bounces,
+            "max_penetration_m": float(pen.max())}
 
 
 def _exo_cell(task: WallMapTask) -> WallMapCell:
@@ -429,6 +437,7 @@ def _fixture_cell(task: WallMapTask) -> WallMapCell:
     worst = max(runs, key=lambda r: _RANK[r["cls"]])
     energies = [e for r in runs for e in r["energies_J"]]
     return dataclasses.replace(_blank(task), cls=worst["cls"], energy_returned_J=max(energies) if energies else None,
+                               bounce_count=max(r["bounce_count"] for r in runs),
                                growing=any(r["growing"] for r in runs), error=worst["error"])
 
 
