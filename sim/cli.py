@@ -652,6 +652,8 @@ def _cmd_wallmap(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
         parser.error(f"--physical-damping must be a finite number >= 0, got {args.physical_damping}")
     if args.setup == "rig" and (args.duration is not None):
         parser.error("--duration applies to --setup exo only")
+    if args.drive == "fixture" and args.duration is not None:
+        parser.error("--duration applies to --drive wearer only (the fixture's runs last their push-release cycles)")
     if args.subject is not None:
         Subject.named(args.subject)
     scenario = load_scenario(args.scenario, subject=args.subject)

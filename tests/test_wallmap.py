@@ -141,6 +141,7 @@ def test_rig_map_on_dask_is_the_same_as_on_local_processes(tmp_path):
     (["--jobs", "0"], "--jobs"),
     (["--setup", "bench"], "--setup"),
     (["--duration", "2"], "--duration"),
+    (["--setup", "exo", "--drive", "fixture", "--duration", "2"], "--duration"),
 ])
 def test_wallmap_command_rejects_a_bad_option_in_one_line(tmp_path, capsys, argv, culprit):
     with pytest.raises(SystemExit) as e:
