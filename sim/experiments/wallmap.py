@@ -558,7 +558,7 @@ def wall_map(scenario: Scenario, stiffness_N_per_m: Sequence[float], damping_N_s
                    stiffness_N_per_m=Ks, damping_N_s_per_m=Bs, periods_s=Ts, control_delays_ticks=Ds,
                    default_law=(default.stiffness_N_per_m, default.damping_N_s_per_m), drive=drive,
                    duration_s=(duration_s if duration_s is not None else first_cycle_s(scenario))
-                   if setup == "exo" else None,
+                   if setup == "exo" and drive == "wearer" else None,
                    elapsed_s=time.perf_counter() - t0, executor=executor)
 
 
