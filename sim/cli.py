@@ -162,9 +162,9 @@ def build_parser() -> argparse.ArgumentParser:
     m.add_argument("--period", metavar="S1,S2", help="comma-separated control periods [s] (default: the scenario's)")
     m.add_argument("--delay", metavar="TICKS1,TICKS2",
                    help="comma-separated control delays [ticks] (default: the scenario's)")
-    m.add_argument("--drive", choices=("wearer",), default="wearer",
-                   help="exo: what pushes the hand into the wall (default and only one for now: the scenario's "
-                   "wearer)")
+    m.add_argument("--drive", choices=("wearer", "fixture"), default="wearer",
+                   help="exo: what pushes the hand into the wall: the scenario's wearer (default) or a hand "
+                   "fixture at piecewise-constant velocity through the wall and back (the worst way)")
     m.add_argument("--duration", type=float, metavar="S", help="exo: each cell's run [s] (default: the end of the "
                    "intent's first push-release cycle)")
     m.add_argument("--mass", type=float, metavar="KG", help="rig: moving mass [kg] (default: the exoskeleton's "
@@ -652,6 +652,8 @@ def _cmd_wallmap(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
         parser.error(f"--physical-damping must be a finite number >= 0, got {args.physical_damping}")
     if args.setup == "rig" and (args.duration is not None):
         parser.error("--duration applies to --setup exo only")
+    if args.drive == "fixture" and args.duration is not None:
+        parser.error("--duration applies to --drive wearer only (the fixture's runs last their push-release cycles)")
     if args.subject is not None:
         Subject.named(args.subject)
     scenario = load_scenario(args.scenario, subject=args.subject)

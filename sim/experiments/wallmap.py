@@ -12,7 +12,9 @@ Two set-ups:
   ``duration_s`` (default: the first push-release cycle of the intent,
   :func:`first_cycle_s`) and classified from the run's wall metrics and log
   (:func:`classify_exo_run`).  Its drive is a parameter: ``"wearer"`` (the
-  scenario's own wearer pushes); a fixture drive is not available yet.
+  scenario's own wearer pushes) or ``"fixture"`` (the worst way: the robot
+  alone, its hand cuff moved at piecewise-constant velocity through the wall
+  and back by a :class:`~sim.physics.fixture.HandFixture`, :func:`fixture_drive_cell`).
 
 The grid (stiffness x damping, optionally x period x control delay) is an
 embarrassingly parallel map: cells run in a pool of local processes
@@ -52,24 +54,44 @@ import numpy as np
 import pinocchio as pin
 
 from controllers.tasks import WallLaw
+from models.cuffs import CuffParams
 from models.errors import ParameterError
-from sim.analysis.metrics import plane_penetration_m
+from sim.analysis.metrics import plane_penetration_m, wall_bounce_count, wall_cycle_energy_returned_J
 from sim.analysis.passivity import max_passive_stiffness_N_per_m, passivity_damping_N_s_per_m
 from sim.analysis.rig import GROWTH_RATIO, RigParams, rig_cell
 from sim.loop.runlog import load_run
 from sim.loop.scenario import Scenario
 from sim.loop.simulation import SimulationError, build_assembly
+from sim.physics.fixture import HandFixture, PiecewiseVelocity
 
 __all__ = ["WallMapCell", "WallMapTask", "WallMap", "wall_map", "write_wall_map", "map_cell", "rig_params_for",
            "exo_cell_scenario", "classify_exo_run", "first_cycle_s", "scenario_wall_law", "SETUPS", "DRIVES",
            "WallMapError", "CSV_COLUMNS", "EXO_GROWTH_FLOOR_M", "EXO_GROWTH_WINDOW_S",
            "EXO_UNSTABLE_BOUNCES", "boundaries",
-           "largest_passive"]
+           "largest_passive", "fixture_drive_cell", "fixture_cycle_energies_J", "FIXTURE_SPEEDS_M_S",
+           "FIXTURE_DEPTH_M", "FIXTURE_CYCLES", "FIXTURE_PAUSE_S", "FIXTURE_STIFFNESS_N_PER_M",
+           "FIXTURE_DAMPING_N_S_PER_M"]
 
 SETUPS = ("rig", "exo")
-#: Drives of the exo set-up: the scenario's wearer.  A new drive is a name here and a branch in :func:`_exo_cell`,
-#: where the cell's run is made (the wearer's: ``simulate(scenario, "walls", folder)``).
-DRIVES = ("wearer",)
+#: Drives of the exo set-up: the scenario's wearer, or a hand fixture at piecewise-constant velocity.  A new drive
+#: is a name here and a branch in :func:`_exo_cell`, where the cell's run is made (the wearer's:
+#: ``simulate(scenario, "walls", folder)``; the fixture's: :func:`fixture_drive_cell`).
+DRIVES = ("wearer", "fixture")
+#: Speeds of the fixture drive [m/s]: slow, medium and fast reaching speeds; a cell takes the worst of them.
+FIXTURE_SPEEDS_M_S = (0.05, 0.2, 0.5)
+#: How far past the plane the fixture takes the hand cuff point [m]: 2 cm, a force K d = 12 N on the scenario's
+#: 600 N/m wall, of the order of a wearer's push held against it (our choice).
+FIXTURE_DEPTH_M = 0.02
+#: Push-release cycles per speed, and the rest at each end of a cycle [s] (the robot comes to rest, so a cycle's
+#: energy holds no kinetic energy; our choice).
+FIXTURE_CYCLES = 2
+FIXTURE_PAUSE_S = 0.3
+#: The fixture's coupling along the normal [N/m], [N s/m]: the hand cuff's own (models.cuffs.CuffParams, first
+#: axis), i.e. a velocity source strapped on as the wearer is.  A rigid stage (1e6 N/m, 1000 N s/m) makes the
+#: robot's force-fed back controller chatter against it whatever the wall (hundreds of N at 600 N/m): what is
+#: then measured is that loop, not the wall.
+FIXTURE_STIFFNESS_N_PER_M = float(CuffParams().stiffness_N_per_m[0])
+FIXTURE_DAMPING_N_S_PER_M = float(CuffParams().damping_N_s_per_m[0])
 #: Oscillation of the wall-normal penetration below this is no oscillation on the exoskeleton [m] (0.5 mm: above
 #: what a smooth push and release leave in the 50 Hz high-pass of :func:`_growing`, about 0.1 mm on wall_push;
 #: common practice).
@@ -117,7 +139,8 @@ class WallMapCell:
     period_s : float [s]  control period; control_delay_ticks : int; delay_ticks : int (total, as in the bound).
     cls : str  ``"passive"``, ``"active"`` or ``"unstable"``.
     energy_returned_J : float or None [J]  rig: the worst drive's energy given back per cycle at the handle;
-        exo: ``wall_energy_returned_J`` (the largest over the push-release cycles; None without a finished one).
+        exo driven by the wearer: ``wall_energy_returned_J`` (the largest over the push-release cycles; None
+        without a finished one); by the fixture: the largest of :func:`fixture_cycle_energies_J` over speeds.
     push_energy_returned_J : float or None [J]  rig: the push's; exo: None.
     bounce_count : int  repeated bounces; growing : bool  growing oscillation of the penetration.
     analytic_passive : bool  whether the analytic bound holds (rig: its b; exo: the rig's b at the same mass).
@@ -292,11 +315,96 @@ def classify_exo_run(metrics: dict, penetration_m: np.ndarray, dt_s: float) -> t
     return ("active" if returned is not None and returned > 0 else "passive"), growing
 
 
+def fixture_cycle_energies_J(force_N: np.ndarray, penetration_m: np.ndarray, cycle_ticks: int,
+                             cycles: int) -> list[float]:
+    """Energy the wall (with the robot and its controller) gave back to the fixture per cycle [J].
+
+    .. math:: E_c = -\\sum_{k=cN}^{(c+1)N-1} F_k \\, (p_{k+1} - p_k)
+
+    F the fixture's force on the robot along the wall normal n (positive pushing into the wall) and p the
+    imposed point's penetration :math:`n^T (x - x_0)`, over the N ticks of cycle c
+    (:func:`sim.analysis.metrics.wall_cycle_energy_returned_J`).  Each cycle starts and ends at rest, so the
+    kinetic energy cancels; positive: the robot gave the fixture net energy back, i.e. it was active
+    at the hand ([ColgateSchenkel1997]_)."""
+    F = np.asarray(force_N, dtype=float)
+    p = np.asarray(penetration_m, dtype=float)
+    return [wall_cycle_energy_returned_J(F, p, c * cycle_ticks, (c + 1) * cycle_ticks) for c in range(cycles)]
+
+
+def fixture_drive_cell(scenario: Scenario, speed_m_s: float, *, depth_m: float = FIXTURE_DEPTH_M,
+                       cycles: int = FIXTURE_CYCLES, pause_s: float = FIXTURE_PAUSE_S) -> dict:
+    """One fixture run of an exo cell: the robot alone driven through the wall and back at ``speed_m_s``.
+
+    The robot runs alone (``mode="exo_alone"``) under the scenario's ``walls`` variant (the cell's wall law,
+    :func:`exo_cell_scenario`) from the scenario's start posture, its hand cuff held by a
+    :class:`~sim.physics.fixture.HandFixture` whose :class:`~sim.physics.fixture.PiecewiseVelocity` motion
+    moves the imposed point along the wall normal n from the cuff point's start (in front of the plane, at a
+    penetration :math:`p_0 < 0`) to ``depth_m`` past the plane (distance :math:`d - p_0`) and back, ``cycles``
+    times, with ``pause_s`` at rest at each end.
+
+    What is measured: the fixture imposes the motion through a coupling as stiff as the hand cuff
+    (:data:`FIXTURE_STIFFNESS_N_PER_M`), in series with the robot; the energy it gets back over a cycle,
+    :math:`-\\oint F \\cdot dx` (:func:`fixture_cycle_energies_J`), is the passivity of the robot, its
+    controller and the wall law as seen at the hand under the worst drive (piecewise-constant velocity)
+    that Colgate & Schenkel's condition is about ([ColgateSchenkel1997]_); the coupling itself is a passive
+    spring-damper and only adds dissipation.  The safety monitor is off: the velocity steps load the coupling
+    by :math:`D \\Delta v` and the monitor would switch the robot off, which is not the wall's behaviour.
+
+    Returns
+    -------
+    dict  ``cls`` (``"passive"``, ``"active"``, ``"unstable"``), ``energies_J`` (per cycle, [J]),
+    ``growing`` (the robot hand point's penetration oscillating and growing, :func:`_growing`, over the rests
+    past the plane), ``bounce_count`` (:func:`~sim.analysis.metrics.wall_bounce_count` of the robot hand point;
+    from :data:`EXO_UNSTABLE_BOUNCES` on, unstable as under the wearer), ``error``,
+    ``start_penetration_m`` (p0 [m]) and ``max_penetration_m`` (the imposed point's deepest [m]; None if the
+    run failed).
+    """
+    from sim.loop.simulation import Simulation
+
+    spec = dict(scenario.walls[_plane_index(scenario)][1])
+    n = _wall_normal(scenario)
+    a = build_assembly(scenario)
+    arm = a.exo
+    data = arm.model.createData()
+    pin.framesForwardKinematics(arm.model, data, np.asarray(a.q_exo0, dtype=float))
+    p0 = float(plane_penetration_m(data.oMf[arm.frame_id(arm.hand_frame)].translation, spec["point_m"], n))
+    motion = PiecewiseVelocity(speed_m_s=float(speed_m_s), distance_m=depth_m - min(p0, 0.0), cycles=cycles,
+                               pause_s=pause_s)
+    fixture = HandFixture(motion, direction=tuple(n), stiffness_N_per_m=FIXTURE_STIFFNESS_N_PER_M,
+                          damping_N_s_per_m=FIXTURE_DAMPING_N_S_PER_M)
+    dt = scenario.control_period_s
+    cycle_ticks = round(motion.cycle_s / dt)
+    sc = dataclasses.replace(scenario, duration_s=cycles * cycle_ticks * dt + 2 * dt, safety=None)
+    out = {"cls": "unstable", "energies_J": [], "growing": False, "bounce_count": 0, "error": "",
+           "start_penetration_m": p0,
+           "max_penetration_m": None}
+    try:
+        traj = Simulation(sc, "walls", mode="exo_alone", fixture=fixture).run()
+    except SimulationError as e:  # a non-finite state or command: the contact blew up
+        return {**out, "error": str(e).splitlines()[0][:200]}
+    F = np.asarray(traj.arrays["fixture_force_N"]) @ n
+    pen = plane_penetration_m(traj.arrays["fixture_position_m"], spec["point_m"], n)
+    hand = plane_penetration_m(traj.arrays["p_hand_exo"], spec["point_m"], n)
+    if not (np.all(np.isfinite(F)) and np.all(np.isfinite(hand))):
+        return {**out, "error": "non-finite fixture force or hand position"}
+    energies = fixture_cycle_energies_J(F, pen, cycle_ticks, cycles)
+    # growth only while the imposed point rests past the plane: elsewhere the velocity steps alone bend the hand's
+    # path by about dv w / 8 (0.5 mm at 0.2 m/s over the 20 ms window), which is no oscillation
+    go, rest = round(motion.distance_m / motion.speed_m_s / dt), round(pause_s / dt)
+    growing = any(_growing(hand[c * cycle_ticks + go: c * cycle_ticks + go + rest], dt) for c in range(cycles))
+    bounces = wall_bounce_count(hand, dt)
+    cls = "unstable" if growing or bounces >= EXO_UNSTABLE_BOUNCES else ("active" if max(energies) > 0 else "passive")
+    return {**out, "cls": cls, "energies_J": energies, "growing": growing, "bounce_count": bounces,
+            "max_penetration_m": float(pen.max())}
+
+
 def _exo_cell(task: WallMapTask) -> WallMapCell:
     from sim.experiments.run import evaluate_run
     from sim.loop.simulate import simulate
 
     sc = task.scenario
+    if task.drive == "fixture":
+        return _fixture_cell(task)
     law = scenario_wall_law(sc)
     spec = dict(sc.walls[_plane_index(sc)][1])
     wall = {"point_m": spec["point_m"], "normal": spec["normal"], "sensor": spec.get("sensor", "hand"),
@@ -318,6 +426,19 @@ def _exo_cell(task: WallMapTask) -> WallMapCell:
     cls, growing = classify_exo_run(metrics, pen, float(run.meta["dt_s"]))
     return dataclasses.replace(_blank(task), cls=cls, energy_returned_J=metrics.get("wall_energy_returned_J"),
                                bounce_count=int(metrics.get("wall_bounce_count") or 0), growing=growing)
+
+
+_RANK = {"passive": 0, "active": 1, "unstable": 2}
+
+
+def _fixture_cell(task: WallMapTask) -> WallMapCell:
+    """An exo cell under the fixture drive: the worst of :data:`FIXTURE_SPEEDS_M_S` (class, then energy)."""
+    runs = [fixture_drive_cell(task.scenario, v) for v in FIXTURE_SPEEDS_M_S]
+    worst = max(runs, key=lambda r: _RANK[r["cls"]])
+    energies = [e for r in runs for e in r["energies_J"]]
+    return dataclasses.replace(_blank(task), cls=worst["cls"], energy_returned_J=max(energies) if energies else None,
+                               bounce_count=max(r["bounce_count"] for r in runs),
+                               growing=any(r["growing"] for r in runs), error=worst["error"])
 
 
 def _blank(task: WallMapTask) -> WallMapCell:
@@ -381,7 +502,9 @@ def wall_map(scenario: Scenario, stiffness_N_per_m: Sequence[float], damping_N_s
     periods_s, control_delays_ticks : optional sequences  default: the scenario's period and control delay.
     rig : RigParams, optional  the rig (default :func:`rig_params_for`; its period and control delay are
         replaced by each cell's).  The exo cells' analytic column uses the same rig's damping.
-    drive : ``"wearer"``  the exo set-up's drive (the only one for now).
+    drive : ``"wearer"`` or ``"fixture"``  the exo set-up's drive: the scenario's wearer, or a hand fixture
+        moving the robot's hand cuff through the wall and back at piecewise-constant velocity
+        (:func:`fixture_drive_cell`, the worst of :data:`FIXTURE_SPEEDS_M_S`).
     duration_s : float, optional  the exo cells' duration (default :func:`first_cycle_s`).
     jobs : int  local processes (1: this one); ignored with ``dask_address``.
     dask_address : str, optional  an existing Dask scheduler; workers must see ``work_dir`` at the same path.
@@ -390,8 +513,7 @@ def wall_map(scenario: Scenario, stiffness_N_per_m: Sequence[float], damping_N_s
     if setup not in SETUPS:
         raise WallMapError(f"setup must be one of {', '.join(SETUPS)}, got {setup!r}")
     if drive not in DRIVES:
-        raise WallMapError(f"drive must be one of {', '.join(DRIVES)} (a fixture drive is not available yet), "
-                           f"got {drive!r}")
+        raise WallMapError(f"drive must be one of {', '.join(DRIVES)}, got {drive!r}")
     if isinstance(jobs, bool) or not isinstance(jobs, int) or jobs < 1:
         raise WallMapError(f"jobs must be an integer >= 1, got {jobs!r}")
     Ks = _values("stiffness_N_per_m", stiffness_N_per_m)
@@ -399,6 +521,9 @@ def wall_map(scenario: Scenario, stiffness_N_per_m: Sequence[float], damping_N_s
     Ts = _values("periods_s", (scenario.control_period_s,) if periods_s is None else periods_s)
     Ds = _values("control_delays_ticks", (scenario.control_delay_ticks,) if control_delays_ticks is None
                  else control_delays_ticks, integer=True)
+    if drive == "fixture" and duration_s is not None:
+        raise WallMapError(f"duration_s applies to the wearer drive only (the fixture's runs last its "
+                           f"{FIXTURE_CYCLES} cycles), got {duration_s!r}")
     if duration_s is not None and not (math.isfinite(duration_s) and duration_s > 0):
         raise WallMapError(f"duration_s must be a finite number > 0 [s], got {duration_s!r}")
     default = scenario_wall_law(scenario)
@@ -433,7 +558,7 @@ def wall_map(scenario: Scenario, stiffness_N_per_m: Sequence[float], damping_N_s
                    stiffness_N_per_m=Ks, damping_N_s_per_m=Bs, periods_s=Ts, control_delays_ticks=Ds,
                    default_law=(default.stiffness_N_per_m, default.damping_N_s_per_m), drive=drive,
                    duration_s=(duration_s if duration_s is not None else first_cycle_s(scenario))
-                   if setup == "exo" else None,
+                   if setup == "exo" and drive == "wearer" else None,
                    elapsed_s=time.perf_counter() - t0, executor=executor)
 
 
@@ -513,7 +638,8 @@ def write_wall_map(result: WallMap, out_dir: str | Path) -> dict[str, Path]:
     b = result.rig.damping_N_s_per_m
     png = plot_wall_map(result.cells, out / "wallmap.png", boundaries=boundaries(result),
                         default_law=result.default_law,
-                        title=f"{result.scenario_name}: wall map on the {result.setup}; bound for "
+                        title=f"{result.scenario_name}: wall map on the {result.setup}"
+                              f"{', driven by the ' + result.drive if result.setup == 'exo' else ''}; bound for "
                               f"{'its' if result.setup == 'rig' else 'the rig'}'s physical damping b = "
                               f"{fmt(b)} N s/m")
     rows = []
@@ -528,7 +654,13 @@ def write_wall_map(result: WallMap, out_dir: str | Path) -> dict[str, Path]:
              "sensor and control delays), each cell driven at a piecewise-constant velocity through sampled "
              "cosines up to Nyquist and by a push" if result.setup == "rig" else
              f"the full exoskeleton, the scenario's walls variant with the wall's law replaced, "
-             f"{fmt(result.duration_s)} s per cell, driven by the {result.drive}")
+             f"{fmt(result.duration_s)} s per cell, driven by the wearer" if result.drive == "wearer" else
+             "the full exoskeleton alone under the walls variant with the wall's law replaced, driven by the "
+             "fixture: its hand cuff moved along the wall normal at piecewise-constant velocity ("
+             + ", ".join(f"{v:g}" for v in FIXTURE_SPEEDS_M_S) + f" m/s, the worst of them) from the start "
+             f"posture to {1e3 * FIXTURE_DEPTH_M:g} mm past the plane and back, {FIXTURE_CYCLES} cycles, through a "
+             f"coupling as stiff as the hand cuff ({fmt(FIXTURE_STIFFNESS_N_PER_M)} N/m); energy returned: "
+             "minus the fixture's work on the robot per cycle")
     text = [f"# Wall stability map: {result.scenario_name}", "", CAUTION, "",
             f"Set-up: {setup}. Rig: mass {fmt(result.rig.mass_kg)} kg, physical damping "
             f"{fmt(b)} N s/m, sensor delay {result.rig.sensor_delay_ticks} tick(s). "
