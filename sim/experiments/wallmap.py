@@ -636,12 +636,12 @@ def write_wall_map(result: WallMap, out_dir: str | Path) -> dict[str, Path]:
             w.writerow(["" if getattr(c, k) is None else (repr(getattr(c, k)) if isinstance(getattr(c, k), float)
                                                           else getattr(c, k)) for k in CSV_COLUMNS])
     b = result.rig.damping_N_s_per_m
+    driven = f", driven by the {result.drive}" if result.setup == "exo" else ""
+    whose = "its" if result.setup == "rig" else "the rig's"
     png = plot_wall_map(result.cells, out / "wallmap.png", boundaries=boundaries(result),
                         default_law=result.default_law,
-                        title=f"{result.scenario_name}: wall map on the {result.setup}"
-                              f"{', driven by the ' + result.drive if result.setup == 'exo' else ''}; bound for "
-                              f"{'its' if result.setup == 'rig' else 'the rig'}'s physical damping b = "
-                              f"{fmt(b)} N s/m")
+                        title=f"{result.scenario_name}: wall map on the {result.setup}{driven}; bound for {whose} "
+                              f"physical damping b = {fmt(b)} N s/m")
     rows = []
     for (T, d, B), K in largest_passive(result.cells).items():
         rig = dataclasses.replace(result.rig, period_s=T, control_delay_ticks=d)
