@@ -688,7 +688,7 @@ def _cmd_wallmap(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
         total = rig.sensor_delay_ticks + d
         bound = max_passive_stiffness_N_per_m(rig.damping_N_s_per_m, T, B, total)
         lines.append(f"  T = {1e3 * T:g} ms, delay {total}, B = {fmt(B)} N s/m: "
-                     f"{'none' if K is None else fmt(K)} N/m (bound {fmt(bound)} N/m)")
+                     f"{'none' if K is None else fmt(K) + ' N/m'} (bound {fmt(bound)} N/m)")
     own = [c for c in result.cells if c.stiffness_N_per_m == K0 and c.damping_N_s_per_m == B0]
     lines += [f"the scenario's wall ({fmt(K0)} N/m, {fmt(B0)} N s/m): {c.cls}"
               + (f" at T = {1e3 * c.period_s:g} ms, delay {c.delay_ticks}" if len(own) > 1 else "") for c in own]
