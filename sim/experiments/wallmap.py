@@ -49,6 +49,7 @@ import time
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 import pinocchio as pin
@@ -428,7 +429,7 @@ def _exo_cell(task: WallMapTask) -> WallMapCell:
                                bounce_count=int(metrics.get("wall_bounce_count") or 0), growing=growing)
 
 
-_RANK = {"passive": 0, "active": 1, "unstable": 2}
+_RANK = MappingProxyType({"passive": 0, "active": 1, "unstable": 2})
 
 
 def _fixture_cell(task: WallMapTask) -> WallMapCell:
