@@ -256,29 +256,6 @@ class Trajectory:
         """ndarray : the time of each tick [s]."""
         return self.arrays["t"]
 
-    def _fixture_drive(self, asm: Assembly, plant: CoupledPlant) -> FixtureDrive:
-        """The fixture on the robot's hand cuff (on the wearer's hand point in a coupled run); its start
-        posture, when it gives one, set on the plant."""
-        fx = self.fixture
-        if self.mode == "coupled":
-            if fx.start_rad is not None:
-                raise ParameterError("HandFixture.start_rad applies to the robot alone; in a coupled run the "
-                                     "scenario's intent gives the start posture")
-            human = plant.human
-            return FixtureDrive(fx, human.model, human.frame_id(human.hand_frame), plant.q_human)
-        cuffs = {c.name: c for c in asm.cuffs}
-        if fx.cuff not in cuffs:
-            raise ParameterError(f"HandFixture.cuff {fx.cuff!r} is not a cuff of scenario {self.scenario.name!r} "
-                                 f"(cuffs: {', '.join(cuffs)})")
-        if fx.start_rad is not None:
-            if len(fx.start_rad) != asm.exo.nq:
-                raise ParameterError(f"HandFixture.start_rad must hold {asm.exo.nq} joint angles [rad] "
-                                     f"({', '.join(asm.exo.joint_names)}), got {len(fx.start_rad)}")
-            plant.q_exo = np.array(fx.start_rad)
-            plant.v_exo = np.zeros(asm.exo.nv)
-            plant.invalidate()
-        return FixtureDrive(fx, plant.exo.model, cuffs[fx.cuff].exo_frame_id, plant.q_exo)
-
     @property
     def ticks(self) -> int:
         """int : the number of ticks (rows)."""
