@@ -494,6 +494,17 @@ def _fresh_folder(base: Path) -> Path:
     return out
 
 
+def _output_folder(out_option: str | None, default: Path) -> Path:
+    """The folder a command writes into: ``--out`` if given (refused when it already holds something), else
+    :func:`_fresh_folder` of ``default``."""
+    if out_option:
+        out = Path(out_option)
+        if out.is_dir() and any(out.iterdir()):
+            raise _UserError(f"output folder {str(out)!r} already holds something; choose another --out")
+        return out
+    return _fresh_folder(default)
+
+
 def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
     from sim.loop.runlog import load_run
     from sim.output.report import compare_runs, fmt, text_table
@@ -504,12 +515,7 @@ def _cmd_compare(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
                               or args.duration is not None):
         parser.error("--controller, --seed, --subject and --duration go with a scenario file, not with run folders")
     _check_duration(args, parser)
-    if args.out:
-        out = Path(args.out)
-        if out.is_dir() and any(out.iterdir()):
-            raise _UserError(f"output folder {str(out)!r} already holds something; choose another --out")
-    else:
-        out = _fresh_folder(Path("runs") / ("compare" if args.subject is None else f"compare-{args.subject}"))
+    out = _output_folder(args.out, Path("runs") / ("compare" if args.subject is None else f"compare-{args.subject}"))
     if scenario_mode:
         from sim.experiments.run import Batch, run_scenario
         from sim.loop.simulation import SimulationError
@@ -665,12 +671,7 @@ def _cmd_wallmap(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     rig = dataclasses.replace(rig, **{k: v for k, v in (("mass_kg", args.mass),
                                                         ("damping_N_s_per_m", args.physical_damping))
                                       if v is not None})
-    if args.out:
-        out = Path(args.out)
-        if out.is_dir() and any(out.iterdir()):
-            raise _UserError(f"output folder {str(out)!r} already holds something; choose another --out")
-    else:
-        out = _fresh_folder(Path("runs") / f"wallmap-{scenario.name}-{args.setup}")
+    out = _output_folder(args.out, Path("runs") / f"wallmap-{scenario.name}-{args.setup}")
     _writable_folder(out, "--out" if args.out else "output folder")
     try:
         result = wall_map(scenario, stiffness, damping, setup=args.setup, periods_s=periods,
@@ -870,12 +871,7 @@ def _cmd_impedance(args: argparse.Namespace, parser: argparse.ArgumentParser) ->
         if c not in scenario.controllers:
             raise _UserError(f"--controller: scenario {scenario.name!r} supports the controllers "
                              f"{', '.join(scenario.controllers)}; got {c!r}")
-    if args.out:
-        out = Path(args.out)
-        if out.is_dir() and any(out.iterdir()):
-            raise _UserError(f"output folder {str(out)!r} already holds something; choose another --out")
-    else:
-        out = _fresh_folder(Path("runs") / f"impedance-{scenario.name}")
+    out = _output_folder(args.out, Path("runs") / f"impedance-{scenario.name}")
     _writable_folder(out, "--out" if args.out else "output folder")
     start_rad = None
     if args.posture is not None:

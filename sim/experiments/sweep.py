@@ -80,6 +80,7 @@ from models.errors import ParameterError, SandboxError, UnknownNameError
 from models.human import SUBJECTS
 from sim.analysis.metrics import METRICS, flat_metrics
 from sim.analysis.tables import run_rows, write_csv, write_json
+from sim.experiments.cluster import dask_client
 from sim.experiments.run import Batch, run_scenario
 from sim.loop.runlog import environment_metadata
 from sim.loop.scenario import load_scenario, scenario_files_in
@@ -440,20 +441,12 @@ def _local(cases: Sequence[SweepCase], jobs: int, batch: Batch) -> Iterable[Case
 
 
 def _dask(cases: Sequence[SweepCase], address: str) -> Iterable[CaseResult]:
-    try:
-        from dask.distributed import Client, as_completed
-    except ImportError as e:
-        raise SweepError("--dask needs Dask distributed: pip install 'exosandbox[dask]'") from e
-    try:
-        client = Client(address, timeout="10s")
-    except Exception as e:  # connection refused, timeout, bad address: one line naming the address
-        raise SweepError(f"cannot connect to the Dask scheduler at {address!r}: {e}") from e
-    try:
+    with dask_client(address, SweepError) as client:
+        from dask.distributed import as_completed
+
         futures = client.map(run_case, list(cases), pure=False)
         for f in as_completed(futures):
             yield f.result()
-    finally:
-        client.close()
 
 
 def run_sweep(

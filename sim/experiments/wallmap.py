@@ -60,6 +60,7 @@ from models.errors import ParameterError
 from sim.analysis.metrics import plane_penetration_m, wall_bounce_count, wall_cycle_energy_returned_J
 from sim.analysis.passivity import max_passive_stiffness_N_per_m, passivity_damping_N_s_per_m
 from sim.analysis.rig import GROWTH_RATIO, RigParams, rig_cell
+from sim.experiments.cluster import dask_client
 from sim.loop.runlog import load_run
 from sim.loop.scenario import Scenario
 from sim.loop.simulation import SimulationError, build_assembly
@@ -574,18 +575,8 @@ def _on_processes(tasks: list[WallMapTask], jobs: int) -> list[WallMapCell]:
 
 
 def _on_dask(tasks: list[WallMapTask], address: str) -> list[WallMapCell]:
-    try:
-        from dask.distributed import Client
-    except ImportError as e:
-        raise WallMapError("--dask needs Dask distributed: pip install 'exosandbox[dask]'") from e
-    try:
-        client = Client(address, timeout="10s")
-    except Exception as e:  # connection refused, timeout, bad address: one line naming the address
-        raise WallMapError(f"cannot connect to the Dask scheduler at {address!r}: {e}") from e
-    try:
+    with dask_client(address, WallMapError) as client:
         return list(client.gather(client.map(map_cell, tasks, pure=False)))
-    finally:
-        client.close()
 
 
 # -- output ---------------------------------------------------------------------------------------------------------
