@@ -144,6 +144,14 @@ def build_parser() -> argparse.ArgumentParser:
     w.add_argument("--run-figures", action="store_true",
                    help="draw each run's figures in its report.md too (about 2 s per run; by default a sweep "
                    "draws only its own)")
+    w.add_argument("--vary", action="append", default=[], metavar="FIELD.PATH=V1,V2,...",
+                   help="run each value of a scenario field, the others at the scenario's own (repeat for another "
+                   "field), e.g. plant.model_mass_scale=0.7,1.0,1.3 or force_sensor.delay_ticks=0,2,5; values are "
+                   "Python literals, or for actuators geared,ideal,sea and for impairment none,mild,moderate,severe,"
+                   "spastic-mild,...; writes sensitivity.md and plots/sensitivity.png")
+    w.add_argument("--population", type=int, metavar="N",
+                   help="N wearers sampled (seeded) from ANSUR II stature and body mass per sex instead of "
+                   "--subjects; writes population.md: means with 95 %% intervals and paired differences")
     w.set_defaults(func=_cmd_sweep)
 
     m = sub.add_parser("wallmap", help="map a virtual wall's passivity and stability over stiffness x damping",
@@ -716,6 +724,13 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     _check_duration(args, parser)
     if args.resume and not args.out:
         parser.error("--resume needs the folder of the sweep to resume: --out DIR")
+    if args.population is not None and (args.subjects or args.subject):
+        parser.error("--population samples the wearers: give it without --subjects/--subject")
+    if args.population is not None and args.population < 2:
+        parser.error(f"--population must be >= 2, got {args.population}")
+    from sim.experiments.vary import parse_vary
+
+    vary = [parse_vary(v) for v in args.vary]
     files = scenario_files(args.scenario)
     n_scenarios = len(scenario_folders(files))
     several = n_scenarios > 1
@@ -729,7 +744,7 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     try:
         result = run_sweep(args.scenario, controllers, subjects, args.seeds, out_dir=out, jobs=args.jobs,
                            dask_address=args.dask, progress=True, duration_s=args.duration, resume=args.resume,
-                           run_figures=args.run_figures)
+                           run_figures=args.run_figures, vary=vary, population=args.population)
     except KeyboardInterrupt:
         raise _UserError(f"interrupted; the runs finished so far are in {out / 'runs.csv'}; the same command with "
                          f"--out {out} --resume goes on with the others") from None
@@ -759,6 +774,10 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     if result.failed:
         lines.append(f"{len(result.failed)} of {len(result.results)} runs failed:")
         lines += [f"  {r.case.label}: {r.error}" for r in result.failed]
+    if vary:
+        lines.append(f"sensitivity {out / 'sensitivity.md'}, chart {out / 'plots' / 'sensitivity.png'}")
+    if vary or args.population is not None:
+        lines.append(f"means with 95 % intervals and paired differences {out / 'population.md'}")
     lines.append(f"report {out / 'report.md'}, tables {out / 'summary.csv'} and {out / 'runs.csv'}")
     from sim.experiments.run import run_warnings
 

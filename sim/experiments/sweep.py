@@ -77,18 +77,19 @@ from pathlib import Path
 import numpy as np
 
 from models.errors import ParameterError, SandboxError, UnknownNameError
-from models.human import SUBJECTS
+from models.human import SUBJECTS, HumanParams, Subject
 from sim.analysis.metrics import METRICS, flat_metrics
 from sim.analysis.tables import run_rows, write_csv, write_json
 from sim.experiments.cluster import dask_client
 from sim.experiments.run import Batch, run_scenario
+from sim.experiments.vary import Variation, check_paths, sample_population, vary_scenario, write_vary_outputs
 from sim.loop.runlog import environment_metadata
 from sim.loop.scenario import load_scenario, scenario_files_in
 from sim.output.report import is_applicable, write_sweep_report, write_sweeps_report
 
 __all__ = ["SweepCase", "CaseResult", "SweepResult", "SweepError", "run_case", "run_sweep", "summarize", "serve",
            "baseline_key", "plan_sweep", "scenario_files", "scenario_folders", "sweep_plan", "check_plan",
-           "load_sweep", "PLAN_FILE"]
+           "load_sweep", "PLAN_FILE", "vary_folder"]
 
 
 class SweepError(SandboxError, ValueError):
@@ -109,12 +110,34 @@ class SweepCase:
     scenario: str = ""
     #: Whether the run's report draws its figures (:func:`sim.output.report.write_run_report`).
     run_figures: bool = False
+    #: A scenario parameter set for this run: ``(field path, value as typed)``
+    #: (:mod:`sim.experiments.vary`); None: the scenario's own values.
+    vary: tuple[str, str] | None = None
+    #: A sampled wearer, ``(stature_m, mass_kg, sex)`` (:func:`sim.experiments.vary.sample_population`), named by
+    #: ``subject`` (``p001``, ...); None: ``subject`` is a built-in subject.
+    wearer: tuple[float, float, str] | None = None
 
     @property
     def label(self) -> str:
-        """``controller/subject/seedN``, after ``SCENARIO/`` in a sweep over several scenarios."""
+        """``controller/subject/seedN``, after ``SCENARIO/`` in a sweep over several scenarios and after
+        ``PATH=VALUE/`` in a sweep that varies a parameter."""
         run = f"{self.controller}/{self.subject}/seed{self.seed}"
+        if self.vary is not None:
+            run = f"{vary_folder(self.vary)}/{run}"
         return f"{self.scenario}/{run}" if self.scenario else run
+
+    @property
+    def variant(self) -> str:
+        """The controller, with the varied parameter's value: ``gravity`` or ``gravity @ plant.model_mass_scale=0.7``
+        (the group of the summary rows)."""
+        return self.controller if self.vary is None else f"{self.controller} @ {self.vary[0]}={self.vary[1]}"
+
+
+def vary_folder(vary: tuple[str, str]) -> str:
+    """The folder of the runs of one varied value, ``PATH=VALUE`` with any character other than letters, digits,
+    ``.``, ``-``, ``_``, ``=`` and ``,`` written ``_``."""
+    text = f"{vary[0]}={vary[1]}"
+    return "".join(ch if ch.isalnum() or ch in ".-_=," else "_" for ch in text)
 
 
 @dataclass(frozen=True)
@@ -161,7 +184,11 @@ def run_case(case: SweepCase, batch: Batch | None = None) -> CaseResult:
     key = baseline_key(case)
     batch = Batch() if batch is None else batch
     try:
-        scenario = load_scenario(case.scenario_path, subject=case.subject)
+        subject = case.subject if case.wearer is None else HumanParams(Subject(*case.wearer))
+        scenario = load_scenario(case.scenario_path, subject=subject)
+        if case.vary is not None:
+            path, text = case.vary
+            scenario = vary_scenario(scenario, path, Variation(path, (text,)).value(text))
         if case.duration_s is not None:
             scenario = replace(scenario, duration_s=case.duration_s)
         # the human-alone baseline of another controller's case of this wearer and seed, if this process ran one
@@ -190,16 +217,31 @@ def _seeds(seeds: int | Sequence[int], first: int) -> tuple[int, ...]:
 
 def plan_sweep(scenario_path: str | Path, controllers: Sequence[str] | None, subjects: Sequence[str],
                seeds: int | Sequence[int], out_dir: str | Path, *, duration_s: float | None = None,
-               scenario: str = "") -> list[SweepCase]:
+               scenario: str = "", vary: Sequence[Variation] = (), population: int | None = None
+               ) -> list[SweepCase]:
     """Check the options and list the cases, controllers outermost, then subjects, then seeds.
 
     ``controllers=None`` takes every variant the scenario lists; ``scenario``
     is the :attr:`SweepCase.scenario` of the cases (a sweep over several
-    scenarios).
+    scenarios).  With ``vary`` (:class:`sim.experiments.vary.Variation`), every
+    value of each varied field is run with the others at the scenario's own
+    (one at a time), outermost, in folders ``PATH=VALUE/``; with
+    ``population`` = N, the subjects are N wearers sampled from ANSUR II
+    (:func:`sim.experiments.vary.sample_population`, seeded by the sweep's first
+    seed) instead of ``subjects``.
     """
     loaded = load_scenario(scenario_path)  # a broken file fails here, once, with its own message
     controllers = list(loaded.controllers) if controllers is None else list(dict.fromkeys(controllers))
     subjects = list(dict.fromkeys(subjects))
+    seed_list = _seeds(seeds, loaded.seed)
+    wearers: dict[str, tuple[float, float, str]] = {}
+    if population is not None:
+        if isinstance(population, bool) or not isinstance(population, int) or population < 2:
+            raise SweepError(f"population must be an integer >= 2 (a spread needs two wearers), got {population!r}")
+        wearers = {name: (s.stature_m, s.mass_kg, s.sex) for name, s in sample_population(population, seed_list[0])}
+        subjects = list(wearers)
+    if vary:
+        check_paths(loaded, vary)
     if not controllers:
         raise SweepError("give at least one controller")
     if not subjects:
@@ -209,15 +251,18 @@ def plan_sweep(scenario_path: str | Path, controllers: Sequence[str] | None, sub
             raise UnknownNameError(f"scenario {loaded.name!r} ({Path(scenario_path).name}) supports the controllers "
                                    f"{', '.join(loaded.controllers)}; got {c!r}")
     for s in subjects:
-        if s not in SUBJECTS:
+        if s not in SUBJECTS and s not in wearers:
             raise UnknownNameError(f"unknown subject {s!r}; built-in subjects are {', '.join(SUBJECTS)}")
     if duration_s is not None and not (isinstance(duration_s, (int, float)) and math.isfinite(duration_s)
                                        and duration_s > 0):
         raise ParameterError(f"duration_s must be a finite number > 0, got {duration_s!r}")
     out = Path(out_dir)
     path = str(Path(scenario_path).resolve())
-    return [SweepCase(path, c, s, seed, str((out / c / s / f"seed{seed}").resolve()), duration_s, scenario)
-            for c in controllers for s in subjects for seed in _seeds(seeds, loaded.seed)]
+    points: list[tuple[str, str] | None] = [(v.path, text) for v in vary for text in v.values] or [None]
+    return [SweepCase(path, c, s, seed,
+                      str(((out if p is None else out / vary_folder(p)) / c / s / f"seed{seed}").resolve()),
+                      duration_s, scenario, vary=p, wearer=wearers.get(s))
+            for p in points for c in controllers for s in subjects for seed in seed_list]
 
 
 def scenario_files(paths: Sequence[str | Path]) -> list[Path]:
@@ -258,7 +303,7 @@ def scenario_folders(scenario_paths: Sequence[str | Path]) -> dict[str, str]:
 
 def baseline_key(case: SweepCase) -> tuple:
     """The cases of one key share their human-alone baseline (it does not depend on the controller)."""
-    return (case.scenario_path, case.subject, case.seed, case.duration_s)
+    return (case.scenario_path, case.subject, case.seed, case.duration_s, case.vary, case.wearer)
 
 
 def _start_method() -> str:
@@ -464,6 +509,8 @@ def run_sweep(
     resume: bool = False,
     batch: Batch | None = None,
     run_figures: bool = False,
+    vary: Sequence[Variation] = (),
+    population: int | None = None,
 ) -> SweepResult:
     """Run every (controller, subject, seed) of a scenario, or of several, and write the tables, plots and report.
 
@@ -516,6 +563,15 @@ def run_sweep(
         longer than a short run); by default a sweep's run reports carry the
         tables and the controller section, and the sweep's own report its
         figures.
+    vary : sequence of Variation
+        Scenario parameters to vary one at a time by field path
+        (:func:`sim.experiments.vary.parse_vary`); the sweep's folder gains
+        ``sensitivity.csv``, ``sensitivity.md`` and ``plots/sensitivity.png``
+        (:func:`sim.experiments.vary.write_vary_outputs`).  One scenario file only.
+    population : int, optional
+        Sample this many wearers from ANSUR II instead of ``subjects``; the
+        folder gains ``population.csv`` and ``population.md`` (means, 95 %
+        intervals and paired differences between variants).  One scenario file only.
 
     Returns
     -------
@@ -540,13 +596,16 @@ def run_sweep(
     if not paths:
         raise SweepError("give at least one scenario file")
     folders = scenario_folders(paths) if len(paths) > 1 else {}
+    if (vary or population is not None) and len(folders) > 1:
+        raise SweepError("vary and population take one scenario file; sweep the scenarios one at a time")
     if len(folders) > 1:  # every file is checked (and every case listed) before anything is written
         cases = [c for path, name in folders.items()
                  for c in plan_sweep(path, controllers, subjects, seeds, out / name, duration_s=duration_s,
                                      scenario=name)]
     else:
         folders = {}
-        cases = plan_sweep(paths[0], controllers, subjects, seeds, out, duration_s=duration_s)
+        cases = plan_sweep(paths[0], controllers, subjects, seeds, out, duration_s=duration_s, vary=vary,
+                           population=population)
     if run_figures:
         cases = [replace(c, run_figures=True) for c in cases]
     plan = sweep_plan(cases, out)
@@ -565,6 +624,11 @@ def run_sweep(
     settings = {"controllers": list(dict.fromkeys(c.controller for c in cases)),
                 "subjects": list(dict.fromkeys(subjects)), "seeds": sorted({c.seed for c in cases}),
                 "duration_s": duration_s, "executor": executor}
+    if vary:
+        settings["vary"] = {v.path: list(v.values) for v in vary}
+    if population is not None:
+        settings["population"] = population
+        settings["subjects"] = list(dict.fromkeys(c.subject for c in cases))
     left = {name: sum(c.scenario == name for c in todo) for name in folders.values()}
     parts: dict[str, SweepResult] = {}
     bar = _bar(len(cases), len(finished)) if progress else None
@@ -599,6 +663,8 @@ def run_sweep(
     if not folders:
         result = SweepResult(out, results, tuple(summarize(results)), time.perf_counter() - t0)
         write_sweep_report(result, {"scenario": str(Path(paths[0])), **settings})
+        if vary or population is not None:
+            write_vary_outputs(result, vary)
         return result
     summary = tuple({"scenario": name, **row} for name in folders.values() for row in parts[name].summary)
     result = SweepResult(out, results, summary, time.perf_counter() - t0)
@@ -622,7 +688,9 @@ def sweep_plan(cases: Sequence[SweepCase], out: Path) -> dict:
             files[c.scenario_path] = hashlib.sha256(Path(c.scenario_path).read_bytes()).hexdigest()
     environment = {k: v for k, v in environment_metadata().items() if k != "git_dirty"}
     return {"cases": [[Path(c.folder).relative_to(root).as_posix(), Path(c.scenario_path).name, c.controller,
-                       c.subject, c.seed, c.duration_s] for c in cases],
+                       c.subject, c.seed, c.duration_s]
+                      + ([{"vary": c.vary, "wearer": c.wearer}] if c.vary is not None or c.wearer is not None else [])
+                      for c in cases],
             "scenario_sha256": {Path(p).name: h for p, h in files.items()}, "environment": environment}
 
 
@@ -755,9 +823,9 @@ def summarize(results: Sequence[CaseResult], keys: Sequence[str] | None = None) 
 
     groups: dict[tuple[str, str], list[CaseResult]] = {}
     for r in results:
-        groups.setdefault((r.case.controller, "all"), []).append(r)
+        groups.setdefault((r.case.variant, "all"), []).append(r)
     for r in results:
-        groups.setdefault((r.case.controller, r.case.subject), []).append(r)
+        groups.setdefault((r.case.variant, r.case.subject), []).append(r)
     rows = []
     for (controller, subject), rs in groups.items():
         ok = [r for r in rs if r.ok]
