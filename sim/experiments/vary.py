@@ -381,14 +381,14 @@ def write_vary_outputs(result, variations: Sequence[Variation]) -> list[Path]:
     ``sensitivity.csv``, ``sensitivity.md`` and ``plots/sensitivity.png`` (:func:`sensitivity_rows`); always:
     ``population.csv``, ``population_differences.csv`` and ``population.md`` (:func:`population_rows`).
     """
-    from sim.analysis.metrics import METRICS
+    from sim.analysis.metrics import METRICS, TIMING_KEYS
     from sim.analysis.tables import write_csv, write_text
     from sim.loop.scenario import load_scenario
     from sim.output.report import markdown_table
     from sim.output.sensitivity_plot import plot_sensitivity
 
     out = Path(result.out_dir)
-    keys = [k for k, m in METRICS.items() if m.summary]
+    keys = [k for k, m in METRICS.items() if m.summary and k not in TIMING_KEYS]  # wall-clock figures vary anyway
     written, section = [], ["", "## Varied parameters and population", ""]
     if variations and result.results:
         scenario = load_scenario(result.results[0].case.scenario_path)
@@ -406,13 +406,15 @@ def write_vary_outputs(result, variations: Sequence[Variation]) -> list[Path]:
         shown = [r for r in rows if r["metric"] in SENSITIVITY_KEYS] + \
             [r for r in rows if r["metric"] not in SENSITIVITY_KEYS]
         table = markdown_table(
-            ["parameter", "controller", "metric", "reference", "at reference", "low", "change at low", "high",
-             "change at high"],
+            ["parameter", "controller", "metric", "reference", "at reference", "low", "at low", "change at low",
+             "high", "at high", "change at high"],
             [[r["parameter"], r["controller"], r["metric"], r["reference"], _g(r["value_reference"]), r["low"],
-              _pct(r["change_low_pct"]), r["high"], _pct(r["change_high_pct"])] for r in shown])
+              _g(r["value_low"]), _pct(r["change_low_pct"]), r["high"], _g(r["value_high"]),
+              _pct(r["change_high_pct"])] for r in shown])
         text = ("# Sensitivity\n\nEach metric's change at the first (low) and last (high) listed value of each "
                 "parameter, relative to its value at the reference (the scenario's own value when listed, else the "
-                "middle one); mean over wearers and seeds; the chart's four metrics first, then by effect.\n\n"
+                "middle one); mean over wearers and seeds (the values in the metric's unit beside each change: a "
+                "reference near 0 makes any relative change large); the chart's four metrics first, then by effect.\n\n"
                 + table + "\n")
         write_text(out / "sensitivity.md", text)
         labels = {k: f"{METRICS[k].label} ({k})" for k in SENSITIVITY_KEYS}
