@@ -25,8 +25,15 @@ from scipy import stats
 from sim.analysis.stats import mean_ci95, paired_difference_ci95
 from sim.cli import main
 from sim.experiments.sweep import PLAN_FILE, SweepError, plan_sweep, run_sweep
-from sim.experiments.vary import (ANSUR_II, NAMED_VALUES, VaryError, parse_vary, sample_population,
-                                  sensitivity_rows, vary_scenario)
+from sim.experiments.vary import (
+    ANSUR_II,
+    NAMED_VALUES,
+    VaryError,
+    parse_vary,
+    sample_population,
+    sensitivity_rows,
+    vary_scenario,
+)
 from sim.loop.scenario import load_scenario
 
 # Gordon et al. (2014), ANSUR II working data, unweighted: stature [mm] and body mass [kg], mean (SD) and n.

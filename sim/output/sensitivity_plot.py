@@ -40,9 +40,9 @@ def plot_sensitivity(rows: Sequence[Mapping], metrics: Sequence[str], path: str 
     n_rows = max([sum(r["metric"] == m for r in rows) for m in metrics] or [1])
     ncols = 1 if len(metrics) <= 1 else 2
     nrows = max(1, math.ceil(len(metrics) / ncols))
-    panel_h = 0.5 + 0.28 * n_rows
+    panel_h = 0.8 + 0.28 * n_rows
     width = 4.4 * ncols + 0.8
-    height = nrows * (panel_h + 0.55) + 1.1
+    height = nrows * (panel_h + 0.55) + 1.4
     fig, axes = plt.subplots(nrows, ncols, figsize=(width, height), squeeze=False)
     for ax in axes.ravel()[len(metrics):]:
         ax.set_visible(False)
@@ -62,7 +62,7 @@ def plot_sensitivity(rows: Sequence[Mapping], metrics: Sequence[str], path: str 
                                          for r in mine], fontsize=STYLE["tick"] - 1)
         ax.set_ylim(-0.7, len(mine) - 0.3)
         ax.set_xlabel("relative change [%]")
-        ax.set_title((labels or {}).get(m, m), fontsize=STYLE["panel"], loc="left")
+        ax.set_title(wrap_title((labels or {}).get(m, m), 3.6, STYLE["panel"]), fontsize=STYLE["panel"], loc="left")
         ax.grid(axis="x", alpha=0.3)
         for side in ("top", "right"):
             ax.spines[side].set_visible(False)
@@ -74,8 +74,8 @@ def plot_sensitivity(rows: Sequence[Mapping], metrics: Sequence[str], path: str 
     fig.suptitle(wrap_title(title, width - 0.2), fontsize=STYLE["title"], y=1 - 0.08 / height, va="top")
     fig.legend(handles, names, loc="upper center", bbox_to_anchor=(0.5, 1 - 0.45 / height), ncol=len(names),
                frameon=False, fontsize=STYLE["legend"])
-    fig.subplots_adjust(left=2.3 / width, right=1 - 0.2 / width, bottom=0.55 / height, top=1 - 0.95 / height,
-                        hspace=0.75, wspace=1.1 if ncols > 1 else None)
+    fig.subplots_adjust(left=2.3 / width, right=1 - 0.2 / width, bottom=0.55 / height, top=1 - 1.25 / height,
+                        hspace=0.9, wspace=0.75 if ncols > 1 else None)
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fig.savefig(path, dpi=STYLE["dpi"])
