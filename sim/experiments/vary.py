@@ -366,7 +366,7 @@ def population_rows(results: Sequence, keys: Sequence[str]) -> tuple[list[dict],
 
 
 def _g(x) -> str:
-    return "n/a" if x is None or (isinstance(x, float) and not math.isfinite(x)) else f"{x:.4g}"
+    return "n/a" if x is None or (isinstance(x, float) and not math.isfinite(x)) else f"{x:.5g}"
 
 
 def _pct(x) -> str:

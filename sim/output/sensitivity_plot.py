@@ -33,6 +33,7 @@ def plot_sensitivity(rows: Sequence[Mapping], metrics: Sequence[str], path: str 
 
     matplotlib.use("Agg", force=True)
     import matplotlib.pyplot as plt
+    from matplotlib.ticker import MaxNLocator
 
     metrics = [m for m in metrics if any(r["metric"] == m for r in rows)]
     controllers = list(dict.fromkeys(r["controller"] for r in rows))
@@ -67,6 +68,7 @@ def plot_sensitivity(rows: Sequence[Mapping], metrics: Sequence[str], path: str 
         for side in ("top", "right"):
             ax.spines[side].set_visible(False)
         ax.tick_params(axis="x", labelsize=STYLE["tick"])
+        ax.xaxis.set_major_locator(MaxNLocator(5))
     handles = [plt.Line2D([], [], color=colour[c], lw=2.2, alpha=0.55) for c in controllers]
     handles += [plt.Line2D([], [], ls="", marker="s", mfc="white", mec="#333333"),
                 plt.Line2D([], [], ls="", marker=">", color="#333333")]
