@@ -777,6 +777,14 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     if vary:
         lines.append(f"sensitivity {out / 'sensitivity.md'}, chart {out / 'plots' / 'sensitivity.png'}")
     if vary or args.population is not None:
+        from sim.experiments.vary import population_rows
+
+        _, diffs = population_rows(result.results, _SWEEP_COLUMNS)
+        if diffs:
+            lines.append("Paired differences (same wearer and seed), mean [95 % interval]:")
+            lines += [f"  {d['difference']}, {d['metric']}: {d['mean']:.4g} [{d['ci95_low']:.4g}, "
+                      f"{d['ci95_high']:.4g}], {'larger than' if d['larger_than_uncertainty'] else 'within'} its "
+                      f"uncertainty" for d in diffs]
         lines.append(f"means with 95 % intervals and paired differences {out / 'population.md'}")
     lines.append(f"report {out / 'report.md'}, tables {out / 'summary.csv'} and {out / 'runs.csv'}")
     from sim.experiments.run import run_warnings

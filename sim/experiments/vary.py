@@ -333,35 +333,37 @@ def sensitivity_rows(results: Sequence, variations: Sequence[Variation], keys: S
 
 
 def population_rows(results: Sequence, keys: Sequence[str]) -> tuple[list[dict], list[dict]]:
-    """Per controller and metric, the mean over the runs (wearers x seeds) with its 95 % interval
-    (:func:`sim.analysis.stats.mean_ci95`); and per metric, the paired difference of each other controller
-    minus the first (same wearer, same seed, same varied value) with its 95 % interval
+    """Per variant (controller, and the varied value if any) and metric, the mean over the runs (wearers x seeds)
+    with its 95 % interval (:func:`sim.analysis.stats.mean_ci95`); and per metric and varied value, the paired
+    difference of each other controller minus the first (same wearer, same seed) with its 95 % interval
     (:func:`sim.analysis.stats.paired_difference_ci95`) and whether it excludes 0."""
     from sim.analysis.stats import mean_ci95, paired_difference_ci95
 
     runs = _run_values(results, keys)
-    controllers = list(dict.fromkeys(case.controller for case, _ in runs))
     means, diffs = [], []
-    for c in controllers:
+    for variant in dict.fromkeys(case.variant for case, _ in runs):
         for k in keys:
-            v = [vals[k] for case, vals in runs if case.controller == c and vals[k] is not None]
+            v = [vals[k] for case, vals in runs if case.variant == variant and vals[k] is not None]
             if v:
                 ci = mean_ci95(v)
-                means.append({"controller": c, "metric": k, "n": ci.n, "mean": ci.mean, "std": ci.std,
+                means.append({"controller": variant, "metric": k, "n": ci.n, "mean": ci.mean, "std": ci.std,
                               "ci95_low": ci.low, "ci95_high": ci.high})
+    controllers = list(dict.fromkeys(case.controller for case, _ in runs))
     first = controllers[0] if controllers else None
     by = {(case.controller, case.subject, case.seed, case.vary): vals for case, vals in runs}
-    for c in controllers[1:]:
-        for k in keys:
-            pairs = [(vals[k], by[(first, s, seed, p)][k]) for (cc, s, seed, p), vals in by.items()
-                     if cc == c and (first, s, seed, p) in by and vals[k] is not None
-                     and by[(first, s, seed, p)][k] is not None]
-            if len(pairs) < 2:
-                continue
-            ci = paired_difference_ci95([b for _, b in pairs], [a for a, _ in pairs])
-            diffs.append({"difference": f"{c} - {first}", "metric": k, "n_pairs": ci.n, "mean": ci.mean,
-                          "std": ci.std, "ci95_low": ci.low, "ci95_high": ci.high,
-                          "larger_than_uncertainty": ci.excludes_zero})
+    for point in dict.fromkeys(case.vary for case, _ in runs):
+        at = "" if point is None else f" @ {point[0]}={point[1]}"
+        for c in controllers[1:]:
+            for k in keys:
+                pairs = [(by[(first, s, seed, p)][k], vals[k]) for (cc, s, seed, p), vals in by.items()
+                         if cc == c and p == point and (first, s, seed, p) in by and vals[k] is not None
+                         and by[(first, s, seed, p)][k] is not None]
+                if len(pairs) < 2:
+                    continue
+                ci = paired_difference_ci95([a for a, _ in pairs], [b for _, b in pairs])
+                diffs.append({"difference": f"{c} - {first}{at}", "metric": k, "n_pairs": ci.n, "mean": ci.mean,
+                              "std": ci.std, "ci95_low": ci.low, "ci95_high": ci.high,
+                              "larger_than_uncertainty": ci.excludes_zero})
     return means, diffs
 
 
@@ -434,15 +436,16 @@ def write_vary_outputs(result, variations: Sequence[Variation]) -> list[Path]:
     mt = markdown_table(["controller", "metric", "n", "mean", "std", "95 % CI"],
                         [[r["controller"], r["metric"], r["n"], _g(r["mean"]), _g(r["std"]),
                           f"[{_g(r['ci95_low'])}, {_g(r['ci95_high'])}]"]
-                         for r in sorted(means, key=lambda r: (order[r["metric"]], r["controller"]))])
+                         for r in sorted(means, key=lambda r: order[r["metric"]])])
     dt = markdown_table(["difference", "metric", "pairs", "mean", "95 % CI", "verdict"],
                         [[r["difference"], r["metric"], r["n_pairs"], _g(r["mean"]),
                           f"[{_g(r['ci95_low'])}, {_g(r['ci95_high'])}]",
                           "larger than its uncertainty" if r["larger_than_uncertainty"] else "within its uncertainty"]
                          for r in sorted(diffs, key=lambda r: order[r["metric"]])])
-    text = ("# Means and paired differences\n\nMean over the runs (wearers x seeds), sample standard deviation and "
-            "two-sided 95 % Student-t interval of the mean; paired differences over the same wearer, seed and "
-            "varied value, with the paired-t interval: a difference is larger than its uncertainty when its "
+    text = ("# Means and paired differences\n\nPer variant (controller, and the varied value if any): mean over "
+            "the runs (wearers x seeds), sample standard deviation and "
+            "two-sided 95 % Student-t interval of the mean; paired differences over the same wearer and seed "
+            "(and varied value), with the paired-t interval: a difference is larger than its uncertainty when its "
             "interval excludes 0.\n\n" + mt + "\n\n## Paired differences\n\n" + dt + "\n")
     write_text(out / "population.md", text)
     written += [out / "population.csv", out / "population_differences.csv", out / "population.md"]
