@@ -779,7 +779,8 @@ def _cmd_sweep(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str
     if vary or args.population is not None:
         from sim.experiments.vary import population_rows
 
-        _, diffs = population_rows(result.results, _SWEEP_COLUMNS)
+        shown_keys = [k for k in _SWEEP_COLUMNS if any(walled.values()) or k != "interaction_force_free_rms_N"]
+        _, diffs = population_rows(result.results, shown_keys)
         if diffs:
             lines.append("Paired differences (same wearer and seed), mean [95 % interval]:")
             lines += [f"  {d['difference']}, {d['metric']}: {d['mean']:.4g} [{d['ci95_low']:.4g}, "

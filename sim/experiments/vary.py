@@ -428,6 +428,10 @@ def write_vary_outputs(result, variations: Sequence[Variation]) -> list[Path]:
             [[r["parameter"] + f" {r['low']}..{r['high']}", r["controller"], r["metric"], _pct(r["change_low_pct"]),
               _pct(r["change_high_pct"])] for r in rows if r["metric"] in SENSITIVITY_KEYS]), "",
             "![sensitivity](plots/sensitivity.png)", ""]
+        missing = [k for k in SENSITIVITY_KEYS if not any(r["metric"] == k for r in rows)]
+        if missing:
+            section += [f"Not drawn (no applicable value at the reference; see each run's metrics.json): "
+                        f"{', '.join(missing)}.", ""]
     means, diffs = population_rows(result.results, keys)
     write_csv(out / "population.csv", means)
     write_csv(out / "population_differences.csv", diffs)
