@@ -455,7 +455,8 @@ def write_vary_outputs(result, variations: Sequence[Variation]) -> list[Path]:
     written += [out / "population.csv", out / "population_differences.csv", out / "population.md"]
     section += ["Paired differences (means and intervals per variant: population.md):", "",
                 "none: fewer than two runs of one wearer set per controller to pair (give --population N or more "
-                "subjects or seeds)" if not diffs else markdown_table(["difference", "metric", "mean", "95 % CI", "verdict"],
+                "subjects or seeds)" if not diffs else markdown_table(
+                    ["difference", "metric", "mean", "95 % CI", "verdict"],
                                [[r["difference"], r["metric"], _g(r["mean"]),
                                  f"[{_g(r['ci95_low'])}, {_g(r['ci95_high'])}]",
                                  "larger than its uncertainty" if r["larger_than_uncertainty"]
