@@ -20,9 +20,11 @@ the ISB thorax frame has X anterior, Y up, Z to the right.  For the right arm
 ``R_isb = C R_model C^T`` with the rows of ``C`` being (1,0,0), (0,0,1),
 (0,-1,0); the humerus link frame of the models is parallel to the thorax at
 rest with the humerus along -z, so the same map gives the ISB humerus frame
-(Y along the shaft towards the shoulder).  A left arm is mirrored across the
-sagittal plane first (``diag(1,-1,1) R diag(1,-1,1)``), so the angles read the
-same on both sides.
+(Y along the shaft towards the shoulder).  A left arm's joint angles mean the
+same anatomical motions as the right's (its chart is the right one's mirror),
+so the same angles apply; an orientation read from a left model is mirrored
+across the sagittal plane (``diag(1,-1,1) R diag(1,-1,1)``) before it is
+decomposed.
 
 Sign conventions (ISB, [Wu2005]_): plane of elevation 0 = abduction in the
 frontal plane, +90 deg = flexion in the sagittal plane (positive anterior);
@@ -63,7 +65,6 @@ __all__ = ["ADL_NEEDS_DEG", "CoverageParams", "CoverageCell", "CoverageMap", "hu
 
 #: Model thorax coordinates (x anterior, y left, z up) to ISB thorax coordinates (X anterior, Y up, Z right).
 _C = np.array([[1.0, 0.0, 0.0], [0.0, 0.0, 1.0], [0.0, -1.0, 0.0]])
-_MIRROR = np.diag([1.0, -1.0, 1.0])
 
 #: Ranges [deg] needed for activities of daily living, [Gates2016]_ (eight tasks, the range covering all),
 #: in the model's conventions.  Shoulder: ISB angles (as the paper reports them, internal rotation positive).
@@ -240,9 +241,7 @@ def human_arm_posture(human: HumanParams, R_isb: np.ndarray, distal_rad: Sequenc
     and the humerus keeps the same orientation relative to the thorax.  Human joint limits are not
     applied (the question is what the robot follows).
     """
-    R = _C.T @ np.asarray(R_isb, dtype=float) @ _C
-    if human.side == "left":
-        R = _MIRROR @ R @ _MIRROR
+    R = _C.T @ np.asarray(R_isb, dtype=float) @ _C  # the chart's angles mean the same motion on either side
     beta = math.asin(max(-1.0, min(1.0, -R[1, 2])))
     alpha = math.atan2(R[0, 2], R[2, 2])
     gamma = math.atan2(R[1, 0], R[1, 1])
