@@ -34,8 +34,8 @@ from sim.analysis.coverage import (
     required_share,
     smallest_singular_value,
 )
-from sim.experiments.coverage import run_coverage
 from sim.cli import main
+from sim.experiments.coverage import run_coverage
 
 L1, L2 = 0.30, 0.25  # [m], the worked example of the planar closed form
 
@@ -162,7 +162,8 @@ def test_coverage_map_follows_and_counts_the_daily_living_region():
     cmap, exo = run_coverage("m50", params=params)
     share, n = required_share(cmap)
     assert n > 0 and 0.0 < share <= 1.0
-    cell = next(c for c in cmap.cells if abs(c.plane_rad - math.radians(30)) < 1e-9 and abs(c.elevation_rad - math.radians(30)) < 1e-9)
+    cell = next(c for c in cmap.cells
+                if abs(c.plane_rad - math.radians(30)) < 1e-9 and abs(c.elevation_rad - math.radians(30)) < 1e-9)
     k0 = params.axial_rad.index(0.0)
     assert cell.reachable[k0] and cell.w[k0] > 0 and cell.sigma_min[k0] > 0
     assert np.nanmax([np.nanmax(c.cuff_offset_m) for c in cmap.cells if c.reachable.any()]) < 1e-9

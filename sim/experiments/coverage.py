@@ -131,7 +131,7 @@ def write_coverage(cmap: CoverageMap, exo: ArmModel, folder: str | Path, *, labe
                    f"{np.nanmin(c.sigma_min):.3g}", f"{np.nanmin(c.w):.3g}",
                    f"{axial_deg[np.nanargmin(c.sigma_min)]:.0f}"] for c in worst]
     table_rows = []
-    for k, c in enumerate(cmap.cells):
+    for c in cmap.cells:
         r = c.axial_range_rad(p.axial_rad)
         table_rows.append([f"{math.degrees(c.plane_rad):.1f}", f"{math.degrees(c.elevation_rad):.1f}",
                            "none" if r is None else f"{math.degrees(r[0]):.0f} .. {math.degrees(r[1]):.0f}",
