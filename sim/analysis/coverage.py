@@ -64,7 +64,7 @@ __all__ = ["ADL_NEEDS_DEG", "CoverageParams", "CoverageCell", "CoverageMap", "hu
            "human_arm_posture", "required_share"]
 
 #: Model thorax coordinates (x anterior, y left, z up) to ISB thorax coordinates (X anterior, Y up, Z right).
-_C = np.array([[1.0, 0.0, 0.0], [0.0, 0.0, 1.0], [0.0, -1.0, 0.0]])
+_MODEL_TO_ISB = ((1.0, 0.0, 0.0), (0.0, 0.0, 1.0), (0.0, -1.0, 0.0))
 
 #: Ranges [deg] needed for activities of daily living, [Gates2016]_ (eight tasks, the range covering all),
 #: in the model's conventions.  Shoulder: ISB angles (as the paper reports them, internal rotation positive).
@@ -241,7 +241,8 @@ def human_arm_posture(human: HumanParams, R_isb: np.ndarray, distal_rad: Sequenc
     and the humerus keeps the same orientation relative to the thorax.  Human joint limits are not
     applied (the question is what the robot follows).
     """
-    R = _C.T @ np.asarray(R_isb, dtype=float) @ _C  # the chart's angles mean the same motion on either side
+    C = np.array(_MODEL_TO_ISB)
+    R = C.T @ np.asarray(R_isb, dtype=float) @ C  # the chart's angles mean the same motion on either side
     beta = math.asin(max(-1.0, min(1.0, -R[1, 2])))
     alpha = math.atan2(R[0, 2], R[2, 2])
     gamma = math.atan2(R[1, 0], R[1, 1])
