@@ -82,6 +82,7 @@ def _grid(cmap: CoverageMap):
     ne, npl = len(p.elevation_rad), len(p.plane_rad)
     axial_deg = np.degrees(p.axial_rad)
     span = np.zeros((ne, npl))
+    offset = np.full((ne, npl), np.nan)
     singular = np.zeros((ne, npl), dtype=bool)
     for k, c in enumerate(cmap.cells):
         i, j = divmod(k, npl)
@@ -89,7 +90,9 @@ def _grid(cmap: CoverageMap):
         span[i, j] = 0.0 if r is None else math.degrees(r[1] - r[0]) + (axial_deg[1] - axial_deg[0]
                                                                          if len(axial_deg) > 1 else 0.0)
         singular[i, j] = bool(np.any(c.sigma_min[c.reachable] < p.singular_sigma))
-    return span, singular
+        if c.reachable.any() and np.isfinite(c.cuff_offset_m[c.reachable]).any():
+            offset[i, j] = float(np.nanmax(c.cuff_offset_m[c.reachable]))
+    return span, singular, offset
 
 
 def write_coverage(cmap: CoverageMap, exo: ArmModel, folder: str | Path, *, label: str = "",
@@ -109,12 +112,13 @@ def write_coverage(cmap: CoverageMap, exo: ArmModel, folder: str | Path, *, labe
                 wr.writerow([f"{math.degrees(c.plane_rad):.6g}", f"{math.degrees(c.elevation_rad):.6g}",
                              f"{math.degrees(a):.6g}", int(c.reachable[k]), f"{c.w[k]:.6g}",
                              f"{c.sigma_min[k]:.6g}", f"{c.cuff_offset_m[k]:.6g}"])
-    span, singular = _grid(cmap)
+    span, singular, offset = _grid(cmap)
     need = ADL_NEEDS_DEG
     setting = (f"{label or cmap.exo_name}, girdle {'on' if cmap.girdle else 'off'}, misalignment "
                f"{tuple(round(x * 1000, 1) for x in cmap.misalignment_m)} mm")
     axial_deg = np.degrees(p.axial_rad)
     plot_axial_coverage(np.degrees(p.plane_rad), np.degrees(p.elevation_rad), span, singular, paths["png"],
+                        cuff_offset_mm=offset * 1000.0, cuff_limit_mm=p.max_cuff_offset_m * 1000.0,
                         need_box_deg=(*need["plane_of_elevation"], *need["elevation"]),
                         span_max_deg=float(axial_deg[-1] - axial_deg[0] + (axial_deg[1] - axial_deg[0]
                                                                            if len(axial_deg) > 1 else 0.0)),
@@ -129,7 +133,7 @@ def write_coverage(cmap: CoverageMap, exo: ArmModel, folder: str | Path, *, labe
     worst = sorted(reach, key=lambda c: float(np.nanmin(c.sigma_min)))[:5]
     worst_rows = [[f"{math.degrees(c.plane_rad):.1f}", f"{math.degrees(c.elevation_rad):.1f}",
                    f"{np.nanmin(c.sigma_min):.3g}", f"{np.nanmin(c.w):.3g}",
-                   f"{axial_deg[np.nanargmin(c.sigma_min)]:.0f}"] for c in worst]
+                   f"{axial_deg[np.nanargmin(c.w)]:.0f}"] for c in worst]
     table_rows = []
     for c in cmap.cells:
         r = c.axial_range_rad(p.axial_rad)
@@ -161,13 +165,15 @@ def write_coverage(cmap: CoverageMap, exo: ArmModel, folder: str | Path, *, labe
         "it and show as cuff offsets.",
         f"A cell is marked near-singular when the smallest singular value of the robot shoulder's angular "
         f"Jacobian falls below {p.singular_sigma:g} along its followed range; w is the manipulability of the "
-        "hand Jacobian (Yoshikawa 1985, sqrt(det(J J^T)), 6 x 7, mixed units).", "",
+        "hand Jacobian (Yoshikawa 1985, sqrt(det(J J^T)), 6 x 7, mixed units). With the robot's last shoulder "
+        "axis along the upper arm (the built-in robot), an axial rotation turns that joint alone, so the "
+        "shoulder's singular values stay the same along a cell's axial range.", "",
         "![axial coverage](coverage.png)", "", "## Elbow, forearm and wrist", "",
         markdown_table(["joint", "robot [deg]", "daily-living need [deg]", "covered"], distal_rows), "",
         "Signs as in the model: flexion, pronation, wrist flexion and radial deviation positive. The forearm and "
         "wrist needs are the paper's read with ISB signs (from memory), see `sim.analysis.coverage`.", "",
         "![distal ranges](ranges.png)", "", "## Cells nearest to a shoulder singularity", "",
-        markdown_table(["plane [deg]", "elevation [deg]", "min sigma", "min w", "at axial [deg]"], worst_rows)
+        markdown_table(["plane [deg]", "elevation [deg]", "min sigma", "min w", "w lowest at axial [deg]"], worst_rows)
         if worst_rows else "No cell is followed at all.", "",
         "## Every cell", "",
         markdown_table(["plane [deg]", "elevation [deg]", "axial range [deg]", "samples followed", "min sigma",

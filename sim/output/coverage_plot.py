@@ -34,11 +34,14 @@ def _plt():
 
 def plot_axial_coverage(plane_deg: Sequence[float], elevation_deg: Sequence[float], span_deg: np.ndarray,
                         singular: np.ndarray, path: str | Path, *, need_box_deg: tuple[float, float, float, float],
-                        span_max_deg: float, title: str = "") -> Path:
+                        span_max_deg: float, cuff_offset_mm: np.ndarray | None = None,
+                        cuff_limit_mm: float | None = None, title: str = "") -> Path:
     """Heat map of the followed axial-rotation span [deg] over plane of elevation [deg] x elevation [deg].
 
     ``span_deg`` (n_elevation, n_plane): reachable axial span per cell (0: none); ``singular`` same shape,
-    bool; ``need_box_deg`` (plane lo, plane hi, elevation lo, elevation hi) outlined.
+    bool; ``need_box_deg`` (plane lo, plane hi, elevation lo, elevation hi) outlined.  With
+    ``cuff_offset_mm`` (same shape, NaN where nothing is followed) a second panel shows the largest cuff
+    offset [mm] over each cell's followed range, cells above ``cuff_limit_mm`` ringed.
     """
     plt = _plt()
     from matplotlib.colors import LinearSegmentedColormap
@@ -49,7 +52,10 @@ def plot_axial_coverage(plane_deg: Sequence[float], elevation_deg: Sequence[floa
     dp = float(plane[1] - plane[0]) if plane.size > 1 else 15.0
     de = float(elev[1] - elev[0]) if elev.size > 1 else 15.0
     cmap = LinearSegmentedColormap.from_list("span", ["#f3f1ea", PALETTE[6], PALETTE[0]])
-    fig, ax = plt.subplots(figsize=(7.2, 4.8), dpi=STYLE["dpi"])
+    two = cuff_offset_mm is not None
+    fig, axes = plt.subplots(1, 2 if two else 1, figsize=(13.0 if two else 7.2, 4.8), dpi=STYLE["dpi"],
+                             squeeze=False)
+    ax = axes[0, 0]
     extent = (plane[0] - dp / 2, plane[-1] + dp / 2, elev[0] - de / 2, elev[-1] + de / 2)
     data = np.ma.masked_where(np.asarray(span_deg) <= 0.0, span_deg)
     im = ax.imshow(data, origin="lower", extent=extent, aspect="auto", cmap=cmap, vmin=0.0, vmax=span_max_deg,
@@ -72,7 +78,29 @@ def plot_axial_coverage(plane_deg: Sequence[float], elevation_deg: Sequence[floa
     cb = fig.colorbar(im, ax=ax, pad=0.02)
     cb.set_label("axial rotation the robot follows [deg]", fontsize=STYLE["label"])
     ax.legend(loc="upper right", fontsize=STYLE["legend"], frameon=True, framealpha=0.85)
-    ax.set_title(wrap_title(title, 6.5), fontsize=STYLE["title"])
+    ax.set_title("axial-rotation span followed within the joint limits", fontsize=STYLE["panel"])
+    if two:
+        bx = axes[0, 1]
+        off = np.ma.masked_invalid(np.asarray(cuff_offset_mm, float))
+        warm = LinearSegmentedColormap.from_list("offset", ["#f3f1ea", PALETTE[1], PALETTE[3]])
+        top = max(float(np.nanmax(cuff_offset_mm)) if np.isfinite(cuff_offset_mm).any() else 1.0, 1.0)
+        im2 = bx.imshow(off, origin="lower", extent=extent, aspect="auto", cmap=warm, vmin=0.0, vmax=top,
+                        interpolation="nearest")
+        if cuff_limit_mm is not None:
+            ii, jj = np.nonzero(np.nan_to_num(np.asarray(cuff_offset_mm, float), nan=0.0) > cuff_limit_mm)
+            bx.plot(plane[jj], elev[ii], ls="none", marker="o", mfc="none", mec="#333333", ms=5, mew=0.9,
+                    label=f"cuff pulled more than {cuff_limit_mm:g} mm")
+        bx.add_patch(Rectangle((p0, e0), p1 - p0, e1 - e0, fill=False, edgecolor=PALETTE[0], lw=2.0, ls="--",
+                               label="daily-living region"))
+        bx.set_xlim(extent[0], extent[1])
+        bx.set_ylim(extent[2], extent[3])
+        bx.set_xlabel("plane of elevation [deg] (0 abduction, 90 flexion)")
+        bx.set_ylabel("elevation [deg]")
+        cb2 = fig.colorbar(im2, ax=bx, pad=0.02)
+        cb2.set_label("largest cuff offset from its strapping [mm]", fontsize=STYLE["label"])
+        bx.legend(loc="upper right", fontsize=STYLE["legend"], frameon=True, framealpha=0.85)
+        bx.set_title("cuff offset over the followed range (joint-centre offsets)", fontsize=STYLE["panel"])
+    fig.suptitle(wrap_title(title, 12.0 if two else 6.5), fontsize=STYLE["title"])
     fig.tight_layout()
     path = Path(path)
     fig.savefig(path)
