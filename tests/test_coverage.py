@@ -200,6 +200,19 @@ def test_coverage_command_writes_its_outputs(tmp_path, capsys):
     assert len(rows) == 1 + 5 * 3 * 7  # header + planes x elevations x axial samples
 
 
+def test_coverage_command_takes_a_users_urdf_with_its_sites(tmp_path, capsys):
+    urdf = tmp_path / "robot.urdf"
+    urdf.write_text(exo_urdf(fit_exo(HumanParams("m50"))))
+    grid = ["--plane-step", "60", "--elevation-step", "60", "--axial-step", "30"]
+    assert main(["coverage", *grid, "--out", str(tmp_path / "a")]) == 0
+    built_in = capsys.readouterr().out.splitlines()[0]
+    assert main(["coverage", *grid, "--exo", str(urdf), "--site", "upper_arm=exo_cuff_upper_arm",
+                 "--site", "forearm=exo_cuff_forearm", "--site", "hand=exo_cuff_hand", "--hand", "exo_hand_point",
+                 "--out", str(tmp_path / "b")]) == 0
+    assert capsys.readouterr().out.splitlines()[0] == built_in  # the same robot, read from its file
+    assert str(urdf) in (tmp_path / "b" / "report.md").read_text()
+
+
 @pytest.mark.parametrize(
     "argv, text",
     [

@@ -25,6 +25,7 @@ from __future__ import annotations
 import csv
 import math
 from collections.abc import Mapping, Sequence
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -57,8 +58,6 @@ def run_coverage(subject: str | HumanParams = "m50", *, girdle: bool = False,
     """
     hp = HumanParams(subject) if isinstance(subject, str) else subject
     if hp.girdle != girdle:
-        from dataclasses import replace
-
         hp = replace(hp, girdle=bool(girdle))
     reg = Registration(misalignment_m=tuple(misalignment_m))
     if exo_urdf is None:
