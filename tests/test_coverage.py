@@ -118,12 +118,12 @@ def test_isb_angles_match_scipy_intrinsic_yxy_and_round_trip():
             rng.uniform(-math.pi, math.pi)
         R = humerus_rotation(plane, elev, axial)
         np.testing.assert_allclose(R, Rotation.from_euler("YXY", [plane, -elev, axial]).as_matrix(), atol=1e-12)
-        # the same rotation as extrinsic x-y-x... in reverse order: lower-case is extrinsic in scipy
+        # the same rotation as extrinsic y-x-y about the fixed axes, angles in reverse order (lower case in scipy)
         np.testing.assert_allclose(R, Rotation.from_euler("yxy", [axial, -elev, plane]).as_matrix(), atol=1e-12)
         got = isb_shoulder_angles(R)
         np.testing.assert_allclose(got, (plane, elev, axial), atol=1e-9)
     for R in Rotation.random(100, random_state=11).as_matrix():
-        a, b, c = Rotation.from_matrix(R).as_euler("YXY")  # scipy: b in [0, pi]; ours: -elevation = b - ...
+        a, b, c = Rotation.from_matrix(R).as_euler("YXY")  # scipy picks the middle angle b in [0, pi]
         plane, elev, axial = isb_shoulder_angles(R)
         # scipy's (a, b, c) and ours (plane, -elev, axial) are the two solutions of a proper Euler sequence:
         # (a + pi, -b, c + pi); compare through the angles, wrapped
