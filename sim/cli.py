@@ -230,6 +230,31 @@ def build_parser() -> argparse.ArgumentParser:
     z.add_argument("--seed", type=int, metavar="N", help="random seed (default: the scenario's)")
     z.add_argument("--out", metavar="DIR", help="output folder (default: runs/impedance-SCENARIO; then -2, -3, ...)")
     z.set_defaults(func=_cmd_impedance)
+
+    cv = sub.add_parser("coverage", help="map the shoulder postures and axial rotations the exoskeleton can "
+                        "follow, against the ranges needed for daily living",
+                        description="Over a grid of ISB shoulder angles (plane of elevation x elevation), find "
+                        "the axial rotations of the humerus the robot follows within its joint limits, its "
+                        "manipulability and distance to a shoulder singularity, and the share of the "
+                        "daily-living region covered. Writes coverage.csv, coverage.png, ranges.png and "
+                        "report.md.")
+    cv.add_argument("--subject", default="m50", metavar="NAME",
+                    help="a built-in subject: f5, f50, f95, m5, m50, m95 (default m50)")
+    cv.add_argument("--girdle", action="store_true", help="give the wearer the 2-DOF shoulder girdle")
+    cv.add_argument("--misalignment", metavar="X,Y,Z", default="0,0,0",
+                    help="offset of the wearer's shoulder centre from the robot's, base frame [m] (default 0,0,0)")
+    cv.add_argument("--exo", metavar="URDF", help="your own exoskeleton URDF (default: the built-in one, fitted)")
+    cv.add_argument("--site", action="append", default=[], metavar="NAME=FRAME",
+                    help="with --exo: a cuff site and the frame that carries it; repeat for each cuff")
+    cv.add_argument("--hand", metavar="FRAME", help="with --exo: frame of the hand point")
+    cv.add_argument("--plane-step", type=float, default=15.0, metavar="DEG",
+                    help="grid step of the plane of elevation [deg] (default 15)")
+    cv.add_argument("--elevation-step", type=float, default=15.0, metavar="DEG",
+                    help="grid step of the elevation [deg] (default 15)")
+    cv.add_argument("--axial-step", type=float, default=10.0, metavar="DEG",
+                    help="sampling step of the axial rotation [deg] (default 10)")
+    cv.add_argument("--out", metavar="DIR", help="output folder (default: runs/coverage-SUBJECT; then -2, -3, ...)")
+    cv.set_defaults(func=_cmd_coverage)
     return p
 
 
@@ -927,6 +952,47 @@ def _cmd_impedance(args: argparse.Namespace, parser: argparse.ArgumentParser) ->
     header, rows = summary_rows(results)
     return (f"{text_table(header, rows)}\n(run time {time.perf_counter() - t0:.1f} s)\n"
             f"report {paths['report']}, table {paths['csv']}, Bode plot {paths['png']}")
+
+
+def _cmd_coverage(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    from models.coupling import Registration
+    from models.human import SUBJECTS
+    from sim.analysis.coverage import CoverageParams, required_share
+    from sim.experiments.coverage import run_coverage, write_coverage
+
+    if args.subject not in SUBJECTS:
+        parser.error(f"--subject must be one of {', '.join(SUBJECTS)}, got {args.subject!r}")
+    misalignment = _floats(args.misalignment, 3, "--misalignment", "three comma-separated offsets X,Y,Z [m]")
+    Registration(misalignment_m=misalignment)  # a bad offset: one line, before any folder is made
+    sites = {}
+    for item in args.site:
+        name, sep, frame = item.partition("=")
+        if not sep or not name or not frame:
+            parser.error(f"--site expects NAME=FRAME, got {item!r}")
+        sites[name] = frame
+    if args.exo is None and (sites or args.hand):
+        parser.error("--site and --hand go with --exo URDF")
+    if args.exo is not None and not args.hand:
+        parser.error("--exo needs --hand FRAME (the frame of the hand point)")
+    for option, value in (("--plane-step", args.plane_step), ("--elevation-step", args.elevation_step),
+                          ("--axial-step", args.axial_step)):
+        if not 0.5 <= value <= 90.0:
+            parser.error(f"{option} must be between 0.5 and 90 deg, got {value}")
+    params = CoverageParams.grid_deg(args.plane_step, args.elevation_step, args.axial_step)
+    out = _output_folder(args.out, Path("runs") / f"coverage-{args.subject}")
+    _writable_folder(out, "--out" if args.out else "output folder")
+    t0 = time.perf_counter()
+    cmap, exo = run_coverage(args.subject, girdle=args.girdle, misalignment_m=misalignment,
+                             exo_urdf=None if args.exo is None else Path(args.exo), sites=sites,
+                             hand_frame=args.hand, params=params)
+    dt = time.perf_counter() - t0
+    paths = write_coverage(cmap, exo, out, label=args.exo or "", run_time_s=dt)
+    share, n = required_share(cmap)
+    share_cuff, _ = required_share(cmap, max_cuff_offset_m=params.max_cuff_offset_m)
+    return (f"daily-living region followed: {share * 100:.1f} % of {n} samples "
+            f"({share_cuff * 100:.1f} % with every cuff within {params.max_cuff_offset_m * 1000:.0f} mm)\n"
+            f"(run time {dt:.1f} s)\nreport {paths['report']}, table {paths['csv']}, maps {paths['png']}, "
+            f"{paths['ranges']}")
 
 
 def main(argv: Sequence[str] | None = None) -> int:
