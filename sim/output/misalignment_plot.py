@@ -73,7 +73,8 @@ def plot_misalignment(cells: Sequence, path: str | Path, *, title: str = "") -> 
                                            edgecolor=PALETTE[0], linewidth=2.2, zorder=3))
                 ax.set_title(f"{name} cuff: worst {g[i, j]:.1f} N at ({fx[j]:g}, {fy[i]:g}) deg")
             ax.set_xlabel("gh flexion [deg]")
-            ax.set_ylabel("gh abduction [deg]")
+            if ax is axes.flat[0]:
+                ax.set_ylabel("gh abduction [deg]")
         if mesh is not None:
             bar = fig.colorbar(mesh, ax=list(axes.flat), shrink=0.85, pad=0.02)
             bar.set_label("parasitic force [N]", fontsize=STYLE["label"])
