@@ -69,7 +69,7 @@ from sim.physics.intent import JointIntent, Via
 from sim.physics.wearer import HumanMotorParams
 
 __all__ = ["MisalignmentError", "MisalignmentTask", "MisalignmentCell", "MisalignmentMap", "HOLDER",
-           "MOVE_S", "SETTLE_S", "AVERAGE_S", "CSV_COLUMNS", "cell_scenario", "held_wrenches",
+           "MOVE_S", "SETTLE_S", "AVERAGE_S", "STEADY_DRIFT_N", "CSV_COLUMNS", "cell_scenario", "held_wrenches",
            "simulated_wrenches", "map_cell", "misalignment_map", "worst_cells", "write_misalignment"]
 
 #: The stiff passive holder that moves the relaxed wearer's arm [N m/rad], [N m s/rad]: about 25 times the
@@ -86,6 +86,11 @@ MOVE_S = 0.6
 SETTLE_S = 0.8
 AVERAGE_S = 0.2
 START_HOLD_S = 0.1
+#: A cell is steady when the mean force of every cuff over the first and the second half of the averaging window
+#: differ by at most this [N] in both runs (0.2 mm of the cuff's 4.5 N/mm; our choice): above it the robot has
+#: not come to rest (it wanders under the load), and the mean is no steady wrench.  A zero-mean chatter at the
+#: sampling rate (the girdle's light links under the stiff holder) averages out and does not count.
+STEADY_DRIFT_N = 1.0
 
 
 class MisalignmentError(ParameterError):
@@ -115,6 +120,9 @@ class MisalignmentCell:
     force_N, torque_Nm : float  norms of the mean wrench on the wearer with the offset [N], [N m].
     force0_N, torque0_N : float  the same with zero offset.
     parasitic_force_N, parasitic_torque_Nm : float  norms of the difference of the two mean wrenches.
+    drift_N : float [N]  the larger change of the cuff's mean force between the halves of the averaging window,
+        of the two runs (0 when held).
+    steady : bool  every cuff of the cell within :data:`STEADY_DRIFT_N` in both runs.
     """
 
     flexion_rad: float
@@ -126,10 +134,12 @@ class MisalignmentCell:
     torque0_Nm: float
     parasitic_force_N: float
     parasitic_torque_Nm: float
+    drift_N: float = 0.0
+    steady: bool = True
 
 
 CSV_COLUMNS = ("flexion_deg", "abduction_deg", "cuff", "force_N", "torque_Nm", "force0_N", "torque0_Nm",
-               "parasitic_force_N", "parasitic_torque_Nm")
+               "parasitic_force_N", "parasitic_torque_Nm", "drift_N", "steady")
 
 
 @dataclass(frozen=True)
@@ -189,28 +199,37 @@ def held_wrenches(scenario: Scenario, flexion_rad: float, abduction_rad: float,
 
 
 def simulated_wrenches(scenario: Scenario, flexion_rad: float, abduction_rad: float, offset_m: Sequence[float],
-                       controller: str) -> np.ndarray:
+                       controller: str) -> tuple[np.ndarray, np.ndarray]:
     """(n_cuffs, 6) the mean of ``cuff_wrench_human`` [N, N m] over the last :data:`AVERAGE_S` of the cell's run
-    (:func:`cell_scenario`) under ``controller``."""
+    (:func:`cell_scenario`) under ``controller``, and (n_cuffs,) the drift of each cuff's force [N]: the norm of the
+    difference of its means over the second and the first half of that window."""
     sc = cell_scenario(scenario, flexion_rad, abduction_rad, offset_m)
     traj = Simulation(sc, controller).run()
     w = traj.arrays["cuff_wrench_human"]
     n = max(1, int(round(AVERAGE_S / sc.control_period_s)))
-    return w[-n:].mean(axis=0)
+    mean = w[-n:].mean(axis=0)
+    h = n // 2
+    drift = np.linalg.norm(w[-h:, :, :3].mean(axis=0) - w[-n:-h, :, :3].mean(axis=0), axis=1) if h else \
+        np.zeros(w.shape[1])
+    return mean, drift
 
 
 def map_cell(task: MisalignmentTask) -> list[MisalignmentCell]:
     """The cells of one posture (one per cuff): with the offset and with zero offset."""
-    f = held_wrenches if task.controller == "held" else \
-        lambda *a: simulated_wrenches(*a, controller=task.controller)
-    w = f(task.scenario, task.flexion_rad, task.abduction_rad, task.offset_m)
-    w0 = f(task.scenario, task.flexion_rad, task.abduction_rad, (0.0, 0.0, 0.0))
+    args = (task.scenario, task.flexion_rad, task.abduction_rad)
+    n = len(task.scenario.cuffs)
+    if task.controller == "held":
+        (w, s), (w0, s0) = ((held_wrenches(*args, d), np.zeros(n)) for d in (task.offset_m, (0.0, 0.0, 0.0)))
+    else:
+        (w, s), (w0, s0) = (simulated_wrenches(*args, d, task.controller) for d in (task.offset_m, (0.0, 0.0, 0.0)))
+    drift = np.maximum(s, s0)
+    steady = bool(np.all(drift <= STEADY_DRIFT_N))
     names = [c.name for c in task.scenario.cuffs]
     return [MisalignmentCell(task.flexion_rad, task.abduction_rad, name,
                              float(np.linalg.norm(w[i, :3])), float(np.linalg.norm(w[i, 3:])),
                              float(np.linalg.norm(w0[i, :3])), float(np.linalg.norm(w0[i, 3:])),
                              float(np.linalg.norm(w[i, :3] - w0[i, :3])),
-                             float(np.linalg.norm(w[i, 3:] - w0[i, 3:])))
+                             float(np.linalg.norm(w[i, 3:] - w0[i, 3:])), float(drift[i]), steady)
             for i, name in enumerate(names)]
 
 
@@ -272,10 +291,13 @@ def misalignment_map(scenario: Scenario, offset_m: Sequence[float], flexion_rad:
                            executor=executor)
 
 
-def worst_cells(result: MisalignmentMap) -> dict[str, MisalignmentCell]:
-    """Per cuff, the cell of the largest parasitic force (the first in grid order on a tie)."""
+def worst_cells(result: MisalignmentMap, *, steady_only: bool = True) -> dict[str, MisalignmentCell]:
+    """Per cuff, the cell of the largest parasitic force (the first in grid order on a tie), among the steady
+    cells (all of them with ``steady_only=False``); a cuff without a steady cell is left out."""
     out: dict[str, MisalignmentCell] = {}
     for c in result.cells:
+        if steady_only and not c.steady:
+            continue
         if c.cuff not in out or c.parasitic_force_N > out[c.cuff].parasitic_force_N:
             out[c.cuff] = c
     return out
@@ -295,8 +317,7 @@ def write_misalignment(result: MisalignmentMap, out_dir: str | Path) -> dict[str
         w.writerow(CSV_COLUMNS)
         for c in result.cells:
             w.writerow([repr(round(math.degrees(c.flexion_rad), 9)), repr(round(math.degrees(c.abduction_rad), 9)),
-                        c.cuff]
-                       + [repr(getattr(c, k)) for k in CSV_COLUMNS[3:]])
+                        c.cuff] + [repr(getattr(c, k)) for k in CSV_COLUMNS[3:-1]] + [str(c.steady).lower()])
     d_mm = ", ".join(f"{1e3 * x:g}" for x in result.offset_m)
     how = ("the robot held at the posture matching the wearer's segments (static cuff law)"
            if result.controller == "held" else f"the robot under {result.controller!r}")
@@ -307,6 +328,17 @@ def write_misalignment(result: MisalignmentMap, out_dir: str | Path) -> dict[str
     rows = [[name, f"{math.degrees(c.flexion_rad):g}", f"{math.degrees(c.abduction_rad):g}",
              fmt(c.parasitic_force_N), fmt(c.parasitic_torque_Nm), fmt(c.force_N), fmt(c.force0_N),
              fmt(c.torque_Nm), fmt(c.torque0_Nm)] for name, c in worst.items()]
+    unsteady = sorted({(c.flexion_rad, c.abduction_rad) for c in result.cells if not c.steady})
+    n_post = len(result.flexion_rad) * len(result.abduction_rad)
+    if unsteady:
+        listed = ", ".join(f"({math.degrees(f):g}, {math.degrees(a):g})" for f, a in unsteady)
+        steadiness = (f"{len(unsteady)} of {n_post} postures did not settle (a cuff's mean force changed by more "
+                      f"than {STEADY_DRIFT_N:g} N between the halves of the window: the robot wanders under the "
+                      f"load); they are left out of the worst cells, hatched on the map and marked steady = false "
+                      f"in the CSV: (flexion, abduction) deg = {listed}.")
+    else:
+        steadiness = (f"Every posture settled (each cuff's mean force changed by at most {STEADY_DRIFT_N:g} N "
+                      "between the halves of the window).")
     method = ("the robot held rigidly at the posture that lines its segments up with the wearer's, the wearer "
               "exactly at the cell's posture: the static cuff law" if result.controller == "held" else
               f"per cell a coupled run of {START_HOLD_S + MOVE_S + SETTLE_S:g} s: the wearer relaxed and moved "
@@ -322,7 +354,8 @@ def write_misalignment(result: MisalignmentMap, out_dir: str | Path) -> dict[str
             f"({result.executor}).", "",
             "Parasitic force and torque: the norms of the difference between the mean wrench with the offset "
             "and with zero offset (same cuff, same posture, same frame).", "",
-            "## Worst cell per cuff", "",
+            steadiness, "",
+            "## Worst steady cell per cuff", "",
             markdown_table(["cuff", "flexion deg", "abduction deg", "parasitic force N", "parasitic torque N m",
                             "force N (offset)", "force N (no offset)", "torque N m (offset)",
                             "torque N m (no offset)"], rows), "",

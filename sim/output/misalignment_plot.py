@@ -23,7 +23,8 @@ __all__ = ["plot_misalignment"]
 def plot_misalignment(cells: Sequence, path: str | Path, *, title: str = "") -> Path:
     """Draw the parasitic force per cuff over flexion x abduction; return ``path``.
 
-    ``cells``: objects with ``flexion_rad``, ``abduction_rad``, ``cuff`` and ``parasitic_force_N``.
+    ``cells``: objects with ``flexion_rad``, ``abduction_rad``, ``cuff``, ``parasitic_force_N`` and ``steady``;
+    the cells that did not settle are hatched and left out of the worst cell.
     """
     import matplotlib
 
@@ -34,13 +35,15 @@ def plot_misalignment(cells: Sequence, path: str | Path, *, title: str = "") -> 
     cuffs = list(dict.fromkeys(c.cuff for c in cells))
     fl = sorted({c.flexion_rad for c in cells})
     ab = sorted({c.abduction_rad for c in cells})
-    grids = {}
+    grids, unsteady = {}, {}
     for name in cuffs:
         g = np.full((len(ab), len(fl)), np.nan)
+        u = np.zeros(g.shape, dtype=bool)
         for c in cells:
             if c.cuff == name:
                 g[ab.index(c.abduction_rad), fl.index(c.flexion_rad)] = c.parasitic_force_N
-        grids[name] = g
+                u[ab.index(c.abduction_rad), fl.index(c.flexion_rad)] = not getattr(c, "steady", True)
+        grids[name], unsteady[name] = g, u
     top = max([float(np.nanmax(g)) for g in grids.values() if np.isfinite(g).any()] + [1e-9])
     cmap = LinearSegmentedColormap.from_list("parasitic", ["#f4f1ea", PALETTE[1], PALETTE[3]])
     fx, fy = np.degrees(fl), np.degrees(ab)
@@ -66,18 +69,26 @@ def plot_misalignment(cells: Sequence, path: str | Path, *, title: str = "") -> 
                     if math.isfinite(g[i, j]):
                         ax.text(fx[j], fy[i], f"{g[i, j]:.1f}", ha="center", va="center", fontsize=STYLE["tick"],
                                 color="#222222" if g[i, j] < 0.6 * top else "white")
-            if np.isfinite(g).any():
-                i, j = np.unravel_index(int(np.nanargmax(g)), g.shape)
-                ex, ey = edges(fx), edges(fy)
+            ex, ey = edges(fx), edges(fy)
+            for i, j in zip(*np.nonzero(unsteady[name])):
+                ax.add_patch(plt.Rectangle((ex[j], ey[i]), ex[j + 1] - ex[j], ey[i + 1] - ey[i], fill=False,
+                                           hatch="////", edgecolor=PALETTE[4], linewidth=0.0, zorder=2))
+            steady = np.where(unsteady[name], np.nan, g)
+            if np.isfinite(steady).any():
+                i, j = np.unravel_index(int(np.nanargmax(steady)), g.shape)
                 ax.add_patch(plt.Rectangle((ex[j], ey[i]), ex[j + 1] - ex[j], ey[i + 1] - ey[i], fill=False,
                                            edgecolor=PALETTE[0], linewidth=2.2, zorder=3))
-                ax.set_title(f"{name} cuff: worst {g[i, j]:.1f} N at ({fx[j]:g}, {fy[i]:g}) deg")
+                ax.set_title(f"{name} cuff: worst steady {g[i, j]:.1f} N at ({fx[j]:g}, {fy[i]:g}) deg")
+            else:
+                ax.set_title(f"{name} cuff: no steady cell")
             ax.set_xlabel("gh flexion [deg]")
             if ax is axes.flat[0]:
                 ax.set_ylabel("gh abduction [deg]")
         if mesh is not None:
             bar = fig.colorbar(mesh, ax=list(axes.flat), shrink=0.85, pad=0.02)
             bar.set_label("parasitic force [N]", fontsize=STYLE["label"])
+        if any(u.any() for u in unsteady.values()):
+            title = (title + "; " if title else "") + "hatched: did not settle, framed: worst steady cell"
         if title:
             fig.suptitle(wrap_title(title, fig.get_figwidth()), fontsize=STYLE["title"])
         out = Path(path)
