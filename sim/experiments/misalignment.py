@@ -29,7 +29,10 @@ not used here) is computed two ways:
 
 Both are computed with the offset and with zero offset; the parasitic force
 [N] and torque [N m] of a cuff are the norms of the difference of the two mean
-wrench vectors (the same frame, the same posture).
+wrench vectors (the same frame, the same posture).  A simulated cell whose
+cuff forces still drift over the averaging window (:data:`STEADY_DRIFT_N`)
+has no steady wrench: it is kept in the table, marked, and left out of the
+worst cells.
 
 The cells run in a pool of local processes, or on an existing Dask cluster
 (:func:`sim.experiments.cluster.dask_client`), and come back in grid order.
@@ -363,7 +366,10 @@ def write_misalignment(result: MisalignmentMap, out_dir: str | Path) -> dict[str
             "Cautions: the holder stands for a relaxed arm moved by someone else, not for muscles; the cuff "
             "stiffness is one published median (Schiebl et al. 2025, Sensors 25(15):4605), real soft tissue is "
             "nonlinear and varies between wearers; the zero-offset force is what the robot's controller and "
-            "gravity compensation leave, the parasitic part is the offset's own.", "",
+            "gravity compensation leave (with the girdle on, also the girdle's own motion of the shoulder centre, "
+            "which the robot's fixed shoulder cannot follow), the parasitic part is the offset's own. With the "
+            "girdle on, the coupled run under the stiff holder also chatters at the sampling rate (zero-mean, "
+            "averaged out) and, at larger abduction, the robot keeps wandering: those cells are not steady.", "",
             "Cells: misalignment.csv. Reference: Schiele A., van der Helm F.C.T. (2006), IEEE TNSRE 14(4):456-469."]
     report = out / "report.md"
     write_text(report, "\n".join(text) + "\n")
