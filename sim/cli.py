@@ -755,7 +755,7 @@ def _cmd_misalignment(args: argparse.Namespace, parser: argparse.ArgumentParser)
     paths = write_misalignment(result, out)
     unsteady = len({(c.flexion_rad, c.abduction_rad) for c in result.cells if not c.steady})
     lines = [f"{len(result.cells)} cells in {result.elapsed_s:.1f} s ({result.executor}); {unsteady} posture(s) did "
-             "not settle (left out); worst steady parasitic force per cuff:"]
+             "not settle or could not be reached (left out); worst steady parasitic force per cuff:"]
     for name, c in worst_cells(result).items():
         lines.append(f"  {name}: {fmt(c.parasitic_force_N)} N, {fmt(c.parasitic_torque_Nm)} N m at flexion "
                      f"{math.degrees(c.flexion_rad):g} deg, abduction {math.degrees(c.abduction_rad):g} deg "

@@ -25,7 +25,9 @@ not used here) is computed two ways:
 * ``"held"``: the robot held rigidly at the posture that lines its segments up
   with the wearer's (:func:`models.coupling.matching_exo_posture`, an ideal
   follower with locked joints), the wearer exactly at the cell's posture: the
-  static cuff law (:func:`models.cuffs.cuff_wrench`), no simulation.
+  static cuff law (:func:`models.cuffs.cuff_wrench`), no simulation.  A
+  posture the robot cannot line up with inside its joint limits gets NaN and
+  is not steady.
 
 Both are computed with the offset and with zero offset; the parasitic force
 [N] and torque [N m] of a cuff are the norms of the difference of the two mean
@@ -222,11 +224,15 @@ def map_cell(task: MisalignmentTask) -> list[MisalignmentCell]:
     args = (task.scenario, task.flexion_rad, task.abduction_rad)
     n = len(task.scenario.cuffs)
     if task.controller == "held":
-        (w, s), (w0, s0) = ((held_wrenches(*args, d), np.zeros(n)) for d in (task.offset_m, (0.0, 0.0, 0.0)))
+        try:
+            (w, s), (w0, s0) = ((held_wrenches(*args, d), np.zeros(n)) for d in (task.offset_m, (0.0, 0.0, 0.0)))
+        except ParameterError:  # no robot posture within its limits lines up with the wearer's: not reachable
+            w = w0 = np.full((n, 6), np.nan)
+            s = s0 = np.full(n, np.nan)
     else:
         (w, s), (w0, s0) = (simulated_wrenches(*args, d, task.controller) for d in (task.offset_m, (0.0, 0.0, 0.0)))
     drift = np.maximum(s, s0)
-    steady = bool(np.all(drift <= STEADY_DRIFT_N))
+    steady = bool(np.all(drift <= STEADY_DRIFT_N))  # False for an unreachable held cell (NaN)
     names = [c.name for c in task.scenario.cuffs]
     return [MisalignmentCell(task.flexion_rad, task.abduction_rad, name,
                              float(np.linalg.norm(w[i, :3])), float(np.linalg.norm(w[i, 3:])),
@@ -335,7 +341,8 @@ def write_misalignment(result: MisalignmentMap, out_dir: str | Path) -> dict[str
     n_post = len(result.flexion_rad) * len(result.abduction_rad)
     if unsteady:
         listed = ", ".join(f"({math.degrees(f):g}, {math.degrees(a):g})" for f, a in unsteady)
-        steadiness = (f"{len(unsteady)} of {n_post} postures did not settle (a cuff's mean force changed by more "
+        steadiness = (f"{len(unsteady)} of {n_post} postures did not settle (held: no robot posture lines up "
+                      f"within its joint limits; simulated: a cuff's mean force changed by more "
                       f"than {STEADY_DRIFT_N:g} N between the halves of the window: the robot wanders under the "
                       f"load); they are left out of the worst cells, hatched on the map and marked steady = false "
                       f"in the CSV: (flexion, abduction) deg = {listed}.")
