@@ -44,7 +44,10 @@ def plot_misalignment(cells: Sequence, path: str | Path, *, title: str = "") -> 
                 g[ab.index(c.abduction_rad), fl.index(c.flexion_rad)] = c.parasitic_force_N
                 u[ab.index(c.abduction_rad), fl.index(c.flexion_rad)] = not getattr(c, "steady", True)
         grids[name], unsteady[name] = g, u
-    top = max([float(np.nanmax(g)) for g in grids.values() if np.isfinite(g).any()] + [1e-9])
+    # the colour scale spans the steady cells (all cells when none is steady): a wandering cell does not wash it out
+    scale = [np.where(unsteady[k], np.nan, g) if not unsteady[k].all() else g for k, g in grids.items()]
+    top = max([float(np.nanmax(g)) for g in scale if np.isfinite(g).any()] + [1e-9])
+    label_cells = len(fl) <= 6 and len(ab) <= 8  # the values written in the cells only when they fit
     cmap = LinearSegmentedColormap.from_list("parasitic", ["#f4f1ea", PALETTE[1], PALETTE[3]])
     fx, fy = np.degrees(fl), np.degrees(ab)
 
@@ -59,14 +62,14 @@ def plot_misalignment(cells: Sequence, path: str | Path, *, title: str = "") -> 
                          "xtick.labelsize": STYLE["tick"], "ytick.labelsize": STYLE["tick"],
                          "legend.fontsize": STYLE["legend"], "axes.spines.top": False,
                          "axes.spines.right": False}):
-        fig, axes = plt.subplots(1, n, figsize=(max(6.4, 3.9 * n), 4.2), squeeze=False)
+        fig, axes = plt.subplots(1, n, figsize=(max(6.4, 4.6 * n), 4.4), squeeze=False)
         mesh = None
         for ax, name in zip(axes.flat, cuffs):
             g = grids[name]
             mesh = ax.pcolormesh(edges(fx), edges(fy), g, cmap=cmap, vmin=0.0, vmax=top, shading="flat")
             for i in range(len(ab)):
                 for j in range(len(fl)):
-                    if math.isfinite(g[i, j]):
+                    if label_cells and math.isfinite(g[i, j]):
                         ax.text(fx[j], fy[i], f"{g[i, j]:.1f}", ha="center", va="center", fontsize=STYLE["tick"],
                                 color="#222222" if g[i, j] < 0.6 * top else "white")
             ex, ey = edges(fx), edges(fy)
@@ -78,19 +81,20 @@ def plot_misalignment(cells: Sequence, path: str | Path, *, title: str = "") -> 
                 i, j = np.unravel_index(int(np.nanargmax(steady)), g.shape)
                 ax.add_patch(plt.Rectangle((ex[j], ey[i]), ex[j + 1] - ex[j], ey[i + 1] - ey[i], fill=False,
                                            edgecolor=PALETTE[0], linewidth=2.2, zorder=3))
-                ax.set_title(f"{name} cuff: worst steady {g[i, j]:.1f} N at ({fx[j]:g}, {fy[i]:g}) deg")
+                ax.set_title(f"{name}: worst {g[i, j]:.1f} N at ({fx[j]:g}, {fy[i]:g}) deg")
             else:
                 ax.set_title(f"{name} cuff: no steady cell")
             ax.set_xlabel("gh flexion [deg]")
             if ax is axes.flat[0]:
                 ax.set_ylabel("gh abduction [deg]")
+        fig.subplots_adjust(top=0.8, right=0.88, wspace=0.22)
         if mesh is not None:
-            bar = fig.colorbar(mesh, ax=list(axes.flat), shrink=0.85, pad=0.02)
+            bar = fig.colorbar(mesh, cax=fig.add_axes((0.9, 0.11, 0.012, 0.69)))
             bar.set_label("parasitic force [N]", fontsize=STYLE["label"])
         if any(u.any() for u in unsteady.values()):
             title = (title + "; " if title else "") + "hatched: did not settle, framed: worst steady cell"
         if title:
-            fig.suptitle(wrap_title(title, fig.get_figwidth()), fontsize=STYLE["title"])
+            fig.suptitle(wrap_title(title, 0.8 * fig.get_figwidth()), fontsize=STYLE["title"], y=0.99)
         out = Path(path)
         fig.savefig(out, dpi=STYLE["dpi"], bbox_inches="tight")
         plt.close(fig)
