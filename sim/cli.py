@@ -185,6 +185,29 @@ def build_parser() -> argparse.ArgumentParser:
     m.add_argument("--out", metavar="DIR", help="output folder (default: runs/wallmap-SCENARIO-SETUP; then -2, ...)")
     m.set_defaults(func=_cmd_wallmap)
 
+    a = sub.add_parser("misalignment", help="steady cuff forces of a joint-centre offset over shoulder postures",
+                       description="Move the relaxed wearer passively over a grid of gh flexion x gh abduction with "
+                       "the robot transparent, with and without an offset of the wearer's joint centres, and write "
+                       "misalignment.csv, misalignment.png (the parasitic force per cuff) and report.md.")
+    a.add_argument("scenario", metavar="SCENARIO", help="scenario file, e.g. scenarios/reach.py (its start posture "
+                   "is where the cuffs are closed)")
+    a.add_argument("--offset", default="0,0,0.02", metavar="X,Y,Z", help="the wearer's joint centres relative to "
+                   "the robot's, robot base frame (x forward, y left, z up) [m] (default: 0,0,0.02)")
+    a.add_argument("--girdle", action=argparse.BooleanOptionalAction, default=None,
+                   help="the wearer's shoulder girdle on or off (default: the scenario's subject)")
+    a.add_argument("--controller", default="transparent", metavar="NAME",
+                   help="the robot's controller during each cell, or 'held' (the robot held rigidly, static; "
+                   "default: transparent)")
+    a.add_argument("--flexion", default="0,90,30", metavar="LO,HI,STEP", help="gh flexion grid [deg] "
+                   "(default: 0,90,30)")
+    a.add_argument("--abduction", default="0,60,30", metavar="LO,HI,STEP", help="gh abduction grid [deg] "
+                   "(default: 0,60,30)")
+    a.add_argument("--subject", metavar="NAME", help=_SUBJECT_HELP)
+    a.add_argument("--jobs", type=int, default=1, metavar="N", help="cells at a time on this machine (default 1)")
+    a.add_argument("--dask", metavar="ADDRESS", help="run on an existing Dask scheduler, e.g. tcp://host:8786")
+    a.add_argument("--out", metavar="DIR", help="output folder (default: runs/misalignment-SCENARIO; then -2, ...)")
+    a.set_defaults(func=_cmd_misalignment)
+
     g = sub.add_parser("catalog", help="list the scenarios of a folder, the controller variants, the tasks, the "
                        "subjects and the frame names of the models",
                        description="List what a scenario file and the other commands can name: the scenarios of "
@@ -726,6 +749,50 @@ def _cmd_wallmap(args: argparse.Namespace, parser: argparse.ArgumentParser) -> s
     own = [c for c in result.cells if c.stiffness_N_per_m == K0 and c.damping_N_s_per_m == B0]
     lines += [f"the scenario's wall ({fmt(K0)} N/m, {fmt(B0)} N s/m): {c.cls}"
               + (f" at T = {1e3 * c.period_s:g} ms, delay {c.delay_ticks}" if len(own) > 1 else "") for c in own]
+    lines.append(f"map {paths['png']}, cells {paths['csv']}, report {paths['report']}")
+    return "\n".join(lines)
+
+
+def _cmd_misalignment(args: argparse.Namespace, parser: argparse.ArgumentParser) -> str:
+    import math
+
+    from sim.experiments.misalignment import misalignment_map, worst_cells, write_misalignment
+    from sim.loop.scenario import load_scenario
+    from sim.output.report import fmt
+
+    offset = _floats(args.offset, 3, "--offset", "three comma-separated numbers X,Y,Z [m]")
+    axes = {}
+    for option, text in (("--flexion", args.flexion), ("--abduction", args.abduction)):
+        lo, hi, step = _floats(text, 3, option, "three comma-separated angles LO,HI,STEP [deg]")
+        if not (step > 0 and lo <= hi and -180 <= lo and hi <= 180):
+            parser.error(f"{option} must be LO <= HI within [-180, 180] deg and STEP > 0, got {text!r}")
+        n = int(math.floor((hi - lo) / step + 1e-9)) + 1
+        if n > 100:
+            parser.error(f"{option} gives {n} angles; at most 100, got {text!r}")
+        axes[option] = [math.radians(lo + i * step) for i in range(n)]
+    if args.jobs < 1:
+        parser.error(f"--jobs must be >= 1, got {args.jobs}")
+    if args.subject is not None:
+        Subject.named(args.subject)
+    scenario = load_scenario(args.scenario, subject=args.subject)
+    if args.controller != "held" and args.controller not in scenario.controllers:
+        raise _UserError(f"--controller: scenario {scenario.name!r} supports the controllers "
+                         f"{', '.join(scenario.controllers)} (or 'held'); got {args.controller!r}")
+    out = _output_folder(args.out, Path("runs") / f"misalignment-{scenario.name}")
+    _writable_folder(out, "--out" if args.out else "output folder")
+    try:
+        result = misalignment_map(scenario, offset, axes["--flexion"], axes["--abduction"], girdle=args.girdle,
+                                  controller=args.controller, jobs=args.jobs, dask_address=args.dask)
+    except KeyboardInterrupt:
+        raise _UserError("interrupted; no map written") from None
+    paths = write_misalignment(result, out)
+    unsteady = len({(c.flexion_rad, c.abduction_rad) for c in result.cells if not c.steady})
+    lines = [f"{len(result.cells)} cells in {result.elapsed_s:.1f} s ({result.executor}); {unsteady} posture(s) did "
+             "not settle or could not be reached (left out); worst steady parasitic force per cuff:"]
+    for name, c in worst_cells(result).items():
+        lines.append(f"  {name}: {fmt(c.parasitic_force_N)} N, {fmt(c.parasitic_torque_Nm)} N m at flexion "
+                     f"{math.degrees(c.flexion_rad):g} deg, abduction {math.degrees(c.abduction_rad):g} deg "
+                     f"(force {fmt(c.force_N)} N with the offset, {fmt(c.force0_N)} N without)")
     lines.append(f"map {paths['png']}, cells {paths['csv']}, report {paths['report']}")
     return "\n".join(lines)
 
