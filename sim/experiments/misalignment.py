@@ -49,12 +49,9 @@ References
 
 from __future__ import annotations
 
-import concurrent.futures
 import csv
 import dataclasses
 import math
-import multiprocessing
-import sys
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -67,7 +64,7 @@ from models.coupling import Registration, matching_exo_posture
 from models.cuffs import cuff_wrench
 from models.errors import ParameterError
 from models.human import girdle_posture
-from sim.experiments.cluster import dask_client
+from sim.experiments.cluster import map_in_order
 from sim.loop.scenario import Scenario
 from sim.loop.simulation import Simulation, build_assembly
 from sim.physics.intent import JointIntent, Via
@@ -282,18 +279,7 @@ def misalignment_map(scenario: Scenario, offset_m: Sequence[float], flexion_rad:
     tasks = [MisalignmentTask(i * len(fl) + j, scenario, f, a, reg.misalignment_m, controller)
              for i, a in enumerate(ab) for j, f in enumerate(fl)]
     t0 = time.perf_counter()
-    if dask_address:
-        with dask_client(dask_address, MisalignmentError) as client:
-            per = list(client.gather(client.map(map_cell, tasks, pure=False)))
-        executor = f"dask {dask_address}"
-    elif jobs == 1 or len(tasks) == 1:
-        per, executor = [map_cell(t) for t in tasks], "local, 1 process(es)"
-    else:
-        method = "fork" if sys.platform.startswith("linux") else "spawn"
-        with concurrent.futures.ProcessPoolExecutor(max_workers=min(jobs, len(tasks)),
-                                                    mp_context=multiprocessing.get_context(method)) as pool:
-            per = list(pool.map(map_cell, tasks))
-        executor = f"local, {jobs} process(es)"
+    per, executor = map_in_order(map_cell, tasks, jobs=jobs, dask_address=dask_address, error=MisalignmentError)
     return MisalignmentMap(cells=tuple(c for cells in per for c in cells), scenario_name=scenario.name,
                            offset_m=reg.misalignment_m, girdle=scenario.human.girdle, controller=controller,
                            flexion_rad=fl, abduction_rad=ab, elapsed_s=time.perf_counter() - t0,

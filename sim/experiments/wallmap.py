@@ -37,13 +37,10 @@ References
 
 from __future__ import annotations
 
-import concurrent.futures
 import csv
 import dataclasses
 import math
-import multiprocessing
 import shutil
-import sys
 import tempfile
 import time
 from collections.abc import Sequence
@@ -60,7 +57,7 @@ from models.errors import ParameterError
 from sim.analysis.metrics import plane_penetration_m, wall_bounce_count, wall_cycle_energy_returned_J
 from sim.analysis.passivity import max_passive_stiffness_N_per_m, passivity_damping_N_s_per_m
 from sim.analysis.rig import GROWTH_RATIO, RigParams, rig_cell
-from sim.experiments.cluster import dask_client
+from sim.experiments.cluster import map_in_order
 from sim.loop.runlog import load_run
 from sim.loop.scenario import Scenario
 from sim.loop.simulation import SimulationError, build_assembly
@@ -549,10 +546,7 @@ def wall_map(scenario: Scenario, stiffness_N_per_m: Sequence[float], damping_N_s
                                              drive=drive, folder=folder))
     t0 = time.perf_counter()
     try:
-        if dask_address:
-            cells, executor = _on_dask(tasks, dask_address), f"dask {dask_address}"
-        else:
-            cells, executor = _on_processes(tasks, jobs), f"local, {jobs} process(es)"
+        cells, executor = map_in_order(map_cell, tasks, jobs=jobs, dask_address=dask_address, error=WallMapError)
     finally:
         if tmp is not None:
             shutil.rmtree(tmp, ignore_errors=True)
@@ -562,21 +556,6 @@ def wall_map(scenario: Scenario, stiffness_N_per_m: Sequence[float], damping_N_s
                    duration_s=(duration_s if duration_s is not None else first_cycle_s(scenario))
                    if setup == "exo" and drive == "wearer" else None,
                    elapsed_s=time.perf_counter() - t0, executor=executor)
-
-
-def _on_processes(tasks: list[WallMapTask], jobs: int) -> list[WallMapCell]:
-    """The cells in grid order, ``jobs`` at a time (1: in this process)."""
-    if jobs == 1 or len(tasks) == 1:
-        return [map_cell(t) for t in tasks]
-    method = "fork" if sys.platform.startswith("linux") else "spawn"  # as a sweep's workers (sweep._start_method)
-    with concurrent.futures.ProcessPoolExecutor(max_workers=min(jobs, len(tasks)),
-                                                mp_context=multiprocessing.get_context(method)) as pool:
-        return list(pool.map(map_cell, tasks))
-
-
-def _on_dask(tasks: list[WallMapTask], address: str) -> list[WallMapCell]:
-    with dask_client(address, WallMapError) as client:
-        return list(client.gather(client.map(map_cell, tasks, pure=False)))
 
 
 # -- output ---------------------------------------------------------------------------------------------------------
