@@ -23,6 +23,23 @@ from sim.output.plots import PALETTE, ROLE_COLOURS, STYLE, wrap_title
 __all__ = ["plot_axial_coverage", "plot_joint_ranges"]
 
 
+def _shoulder_panel(fig, ax, im, extent, need_box_deg, box_colour, colour_label: str, title: str) -> None:
+    """What both shoulder panels share: the daily-living region outlined, the axes [deg], the colour bar, the
+    legend and the panel title."""
+    from matplotlib.patches import Rectangle
+
+    p0, p1, e0, e1 = need_box_deg
+    ax.add_patch(Rectangle((p0, e0), p1 - p0, e1 - e0, fill=False, edgecolor=box_colour, lw=2.0, ls="--",
+                           label="daily-living region"))
+    ax.set_xlim(extent[0], extent[1])
+    ax.set_ylim(extent[2], extent[3])
+    ax.set_xlabel("plane of elevation [deg] (0 abduction, 90 flexion)")
+    ax.set_ylabel("elevation [deg]")
+    fig.colorbar(im, ax=ax, pad=0.02).set_label(colour_label, fontsize=STYLE["label"])
+    ax.legend(loc="upper right", fontsize=STYLE["legend"], frameon=True, framealpha=0.85)
+    ax.set_title(title, fontsize=STYLE["panel"])
+
+
 def _plt():
     import matplotlib
 
@@ -68,17 +85,8 @@ def plot_axial_coverage(plane_deg: Sequence[float], elevation_deg: Sequence[floa
             if singular[i, j]:
                 ax.plot(p, e, marker="x", color=ROLE_COLOURS["limit"], ms=6, mew=1.6, ls="none",
                         label="near-singular shoulder" if (i, j) == tuple(np.argwhere(singular)[0]) else None)
-    p0, p1, e0, e1 = need_box_deg
-    ax.add_patch(Rectangle((p0, e0), p1 - p0, e1 - e0, fill=False, edgecolor=PALETTE[1], lw=2.0, ls="--",
-                           label="daily-living region"))
-    ax.set_xlim(extent[0], extent[1])
-    ax.set_ylim(extent[2], extent[3])
-    ax.set_xlabel("plane of elevation [deg] (0 abduction, 90 flexion)")
-    ax.set_ylabel("elevation [deg]")
-    cb = fig.colorbar(im, ax=ax, pad=0.02)
-    cb.set_label("axial rotation the robot follows [deg]", fontsize=STYLE["label"])
-    ax.legend(loc="upper right", fontsize=STYLE["legend"], frameon=True, framealpha=0.85)
-    ax.set_title("axial-rotation span followed within the joint limits", fontsize=STYLE["panel"])
+    _shoulder_panel(fig, ax, im, extent, need_box_deg, PALETTE[1], "axial rotation the robot follows [deg]",
+                    "axial-rotation span followed within the joint limits")
     if two:
         bx = axes[0, 1]
         off = np.ma.masked_invalid(np.asarray(cuff_offset_mm, float))
@@ -90,16 +98,8 @@ def plot_axial_coverage(plane_deg: Sequence[float], elevation_deg: Sequence[floa
             ii, jj = np.nonzero(np.nan_to_num(np.asarray(cuff_offset_mm, float), nan=0.0) > cuff_limit_mm)
             bx.plot(plane[jj], elev[ii], ls="none", marker="o", mfc="none", mec="#333333", ms=5, mew=0.9,
                     label=f"cuff pulled more than {cuff_limit_mm:g} mm")
-        bx.add_patch(Rectangle((p0, e0), p1 - p0, e1 - e0, fill=False, edgecolor=PALETTE[0], lw=2.0, ls="--",
-                               label="daily-living region"))
-        bx.set_xlim(extent[0], extent[1])
-        bx.set_ylim(extent[2], extent[3])
-        bx.set_xlabel("plane of elevation [deg] (0 abduction, 90 flexion)")
-        bx.set_ylabel("elevation [deg]")
-        cb2 = fig.colorbar(im2, ax=bx, pad=0.02)
-        cb2.set_label("largest cuff offset from its strapping [mm]", fontsize=STYLE["label"])
-        bx.legend(loc="upper right", fontsize=STYLE["legend"], frameon=True, framealpha=0.85)
-        bx.set_title("cuff offset over the followed range (joint-centre offsets)", fontsize=STYLE["panel"])
+        _shoulder_panel(fig, bx, im2, extent, need_box_deg, PALETTE[0], "largest cuff offset from its strapping [mm]",
+                        "cuff offset over the followed range (joint-centre offsets)")
     fig.suptitle(wrap_title(title, 12.0 if two else 6.5), fontsize=STYLE["title"])
     fig.tight_layout()
     path = Path(path)
